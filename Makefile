@@ -1,0 +1,38 @@
+# nightbank — every target creates .venv on first use and is safe to run again.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+EXTRAS ?= test,postgres,dask
+
+.PHONY: install demo test bench serve lock clean
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+
+$(STAMP): pyproject.toml constraints.txt | $(BIN)/python
+	$(BIN)/python -m pip install --quiet -c constraints.txt -e ".[$(EXTRAS)]"
+	@touch $@
+
+install: $(STAMP)
+
+demo: install
+	mkdir -p var
+	$(BIN)/nightbank demo
+
+test: install
+	$(BIN)/python -m pytest -q
+
+bench: install
+	@for b in bench/*.py; do echo "== $$b"; $(BIN)/python $$b || exit 1; done
+
+serve: install
+	mkdir -p var
+	$(BIN)/nightbank serve
+
+lock: install
+	$(BIN)/python -m pip freeze --exclude-editable | grep -v '^nightbank' > constraints.txt
+
+clean:
+	rm -rf $(VENV) var .pytest_cache

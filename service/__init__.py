@@ -1,0 +1,1 @@
+"""nightbank's service layer: HTTP API, registry, jobs, CLI and client. Imports ``models``."""
