@@ -186,19 +186,27 @@ def _label_key(value: Any) -> str:
 
 
 def _reference_problems(reference: Any, n_epochs: int) -> tuple[np.ndarray | None, list[Problem]]:
-    seq = list(reference)
-    if len(seq) != n_epochs:
+    """Canonical stage codes (n_epochs,) or the problems; ``reference`` may be a pandas Categorical."""
+    if len(reference) != n_epochs:
         return None, [Problem(
             "reference_length",
-            f"reference has {len(seq)} labels but there are {n_epochs} epochs; give one label per epoch",
-            {"field": "reference", "values": [len(seq), n_epochs]},
+            f"reference has {len(reference)} labels but there are {n_epochs} epochs; give one label per epoch",
+            {"field": "reference", "values": [len(reference), n_epochs]},
         )]
-    keys = np.asarray(seq if set(map(type, seq)) <= {str} else [_label_key(v) for v in seq], dtype=object)
-    inverse, uniq = pd.factorize(keys)
+    if isinstance(reference, pd.Categorical):
+        inverse, uniq = reference.codes, [_label_key(v) for v in reference.categories]
+        if (inverse < 0).any():  # missing values: unscored
+            inverse = np.where(inverse < 0, len(uniq), inverse)
+            uniq = [*uniq, ""]
+        keys = None
+    else:
+        seq = list(reference)
+        keys = np.asarray(seq if set(map(type, seq)) <= {str} else [_label_key(v) for v in seq], dtype=object)
+        inverse, uniq = pd.factorize(keys)
     mapped = [None if u.startswith("<") else canonical_stage(u) for u in uniq]
     unknown = [str(u) for u, m in zip(uniq, mapped) if m is None]
     if unknown:
-        bad = np.flatnonzero(np.isin(keys, unknown))
+        bad = np.flatnonzero(np.isin(np.asarray(uniq, dtype=object)[inverse], unknown))
         return None, [Problem(
             "unknown_stage",
             f"{bad.size} reference label(s) use unknown codes {unknown[:MAX_LISTED]!r}, first at epoch {bad[0]}; "

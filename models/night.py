@@ -210,7 +210,7 @@ class Night:
         h.update(np.where(np.isnan(self.counts), -1.0, self.counts).astype("<f8").tobytes())  # NaN (filled gap) -> -1
         if self.reference is not None:
             h.update(b"\x00ref\x00")
-            h.update("\x1f".join(self.reference.tolist()).encode())
+            h.update(np.ascontiguousarray(self.reference, dtype="<U3").tobytes())
         return h.hexdigest()
 
 

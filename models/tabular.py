@@ -168,7 +168,10 @@ def _night_from_table(table: Any, meta: dict[str, Any], *, participant_id: str, 
     reference = None
     if cols["reference"] is not None:
         ref_col = table.column(cols["reference"]).combine_chunks()
-        reference = ref_col.fill_null("").to_pylist() if ref_col.null_count else ref_col.to_pylist()
+        if not pa.types.is_dictionary(ref_col.type):
+            ref_col = ref_col.cast(pa.string()).dictionary_encode()
+        reference = pd.Categorical.from_codes(ref_col.indices.fill_null(-1).to_numpy(zero_copy_only=False),
+                                              categories=pd.Index(ref_col.dictionary.to_pylist(), dtype=object))
     start = epoch_seconds = None
     if grid is not None:
         epoch_seconds, index = grid
@@ -179,7 +182,7 @@ def _night_from_table(table: Any, meta: dict[str, Any], *, participant_id: str, 
             counts = full
             if reference is not None:
                 ref_full = np.full(full.size, "?", dtype=object)
-                ref_full[index] = reference
+                ref_full[index] = np.asarray(reference, dtype=object)
                 reference = ref_full.tolist()
     kwargs = _night_kwargs_meta(meta, options.tz, problems)
     night = validate_night_fields(participant_id=participant_id, start=start, epoch_seconds=epoch_seconds,
@@ -192,7 +195,6 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
                    source: str | None = None) -> Night:
     """Night from CSV text (see :mod:`models.io`); parsed by Arrow's C++ CSV reader."""
     import pyarrow as pa
-    import pyarrow.csv as pacsv
 
     text = _decode(data, source)
     meta: dict[str, Any] = {}
@@ -230,15 +232,18 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
             except (ValueError, TypeError):
                 pass
             break
+    buffer = pa.py_buffer(body.encode())
+    roles = {n: role for n in header.split(sep) for role, aliases in COLUMN_ALIASES.items()
+             if n.strip().lower() in aliases}
+    fast_types = {"time": pa.timestamp("s", tz="UTC"), "counts": pa.float64(),
+                  "reference": pa.dictionary(pa.int32(), pa.string())}
+    slow_types = {"reference": pa.string()}
     try:
-        table = pacsv.read_csv(
-            pa.py_buffer(body.encode()),
-            read_options=pacsv.ReadOptions(use_threads=False),
-            parse_options=pacsv.ParseOptions(delimiter=sep),
-            convert_options=pacsv.ConvertOptions(decimal_point=decimal, strings_can_be_null=True,
-                                                 column_types={n: pa.string() for n in header.split(sep)
-                                                               if n.strip().lower() in COLUMN_ALIASES["reference"]}),
-        )
+        try:  # typed read first: the usual file converts without type inference
+            table = _read_arrow_csv(buffer, sep, decimal, {n: fast_types[r] for n, r in roles.items()})
+        except pa.ArrowInvalid:  # something does not convert: read as found, so the checks can locate it
+            table = _read_arrow_csv(buffer, sep, decimal, {n: slow_types[r] for n, r in roles.items()
+                                                           if r in slow_types})
     except pa.ArrowInvalid as exc:
         msg = str(exc).strip().splitlines()[0]
         hit = re.search(r"Row #(\d+)", msg)
@@ -253,6 +258,18 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
             if "epoch" in p.location and "row" not in p.location:
                 exc.problems[i] = Problem(p.code, p.message, {**p.location, "row": n_meta + 2 + p.location["epoch"]})
         raise
+
+
+def _read_arrow_csv(buffer: Any, sep: str, decimal: str, column_types: dict[str, Any]) -> Any:
+    import pyarrow.csv as pacsv
+
+    return pacsv.read_csv(
+        buffer,
+        read_options=pacsv.ReadOptions(use_threads=False),
+        parse_options=pacsv.ParseOptions(delimiter=sep),
+        convert_options=pacsv.ConvertOptions(decimal_point=decimal, strings_can_be_null=True,
+                                             column_types=column_types),
+    )
 
 
 def night_to_csv(night: Night) -> str:
