@@ -239,7 +239,8 @@ def validate_night_fields(
         already recorded a problem).
     epoch_seconds : int
         One of :data:`~models.night.SUPPORTED_EPOCH_SECONDS`.
-    counts : sequence of numbers, shape (n_epochs,)
+    counts : sequence of numbers, shape (n_epochs,), or None
+        None when the reader found no usable counts (its problem is already in ``problems``).
     reference : sequence of labels, shape (n_epochs,), optional
     problems : list of Problem, optional
         Problems already found by the format reader; they are reported together.
@@ -262,6 +263,8 @@ def validate_night_fields(
         epoch_ok = False
     else:
         epoch_ok = True
+    if counts is None:  # the reader could not find counts and already said why
+        raise InvalidNightError(problems, source=source)
     n = len(counts)
     if n > options.max_epochs:
         problems.append(Problem(

@@ -166,12 +166,12 @@ def night_from_json(data: bytes | str | dict, *, participant_id: str = "", optio
     for key in ("epoch_seconds", "start", "counts"):
         if key not in obj:
             problems.append(Problem("missing_field", f"required field {key!r} is missing", {"field": key}))
-    counts = obj.get("counts", [])
-    if not isinstance(counts, list):
+    counts = obj.get("counts")
+    if counts is not None and not isinstance(counts, list):
         problems.append(Problem("invalid_field", f"counts must be a list of numbers, got {type(counts).__name__}",
                                 {"field": "counts"}))
-        counts = []
-    if options.fill_gaps and any(c is None for c in counts):
+        counts = None
+    if counts is not None and options.fill_gaps and any(c is None for c in counts):
         counts = [np.nan if c is None else c for c in counts]
     reference = obj.get("reference")
     if reference is not None and not isinstance(reference, list):
