@@ -3,43 +3,81 @@ features and models. Plain Python (numpy, pandas, scikit-learn, XGBoost, Optuna)
 database code. ``__all__`` is the only surface the service may import.
 """
 
+from .agreement import (
+    BLAND_ALTMAN_PARAMETERS,
+    REFERENCE,
+    BlandAltman,
+    NightRecord,
+    RuleComparison,
+    bland_altman,
+    bland_altman_table,
+    compare_rules_with_reference,
+)
 from .checks import NightOptions, QCConfig, QCFlag, quality_flags, validate_night_fields
 from .demo_study import DEMO_STUDY_ID, demo_nights, write_demo_study
 from .errors import InvalidNightError, NightbankError, NotFittedError, Problem
 from .io import COLUMN_ALIASES, detect_format, night_from_json, night_to_json, read_night
+from .metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep, epoch_agreement
 from .night import SUPPORTED_EPOCH_SECONDS, Night, canonical_stage, stages_to_sleep
+from .parameters import PARAMETER_NAMES, SleepParameters, sleep_parameters
 from .resample import aggregate_epochs
+from .rescoring import webster_rescore
+from .rules import METHOD_IDS, RULES, RuleScoring, UnknownMethodError, continuous_scores, score_with_rule
 from .simulation import CohortSpec, SimulatedNight, simulate_cohort
 from .tabular import night_from_csv, night_from_parquet, night_to_csv, night_to_parquet
 
 __all__ = [
-    "COLUMN_ALIASES",
-    "CohortSpec",
-    "DEMO_STUDY_ID",
-    "InvalidNightError",
-    "Night",
-    "NightOptions",
-    "NightbankError",
-    "NotFittedError",
-    "Problem",
-    "QCConfig",
-    "QCFlag",
-    "SUPPORTED_EPOCH_SECONDS",
-    "SimulatedNight",
     "aggregate_epochs",
+    "agreement_table",
+    "ALWAYS_SLEEP",
+    "always_sleep",
+    "bland_altman",
+    "BLAND_ALTMAN_PARAMETERS",
+    "bland_altman_table",
+    "BlandAltman",
     "canonical_stage",
+    "CohortSpec",
+    "COLUMN_ALIASES",
+    "compare_rules_with_reference",
+    "continuous_scores",
     "demo_nights",
+    "DEMO_STUDY_ID",
     "detect_format",
+    "epoch_agreement",
+    "EPOCH_METRIC_NAMES",
+    "InvalidNightError",
+    "METHOD_IDS",
+    "Night",
     "night_from_csv",
     "night_from_json",
     "night_from_parquet",
     "night_to_csv",
     "night_to_json",
     "night_to_parquet",
+    "NightbankError",
+    "NightOptions",
+    "NightRecord",
+    "NotFittedError",
+    "PARAMETER_NAMES",
+    "Problem",
+    "QCConfig",
+    "QCFlag",
     "quality_flags",
     "read_night",
+    "REFERENCE",
+    "RuleComparison",
+    "RULES",
+    "RuleScoring",
+    "score_with_rule",
+    "ScoredNight",
     "simulate_cohort",
+    "SimulatedNight",
+    "sleep_parameters",
+    "SleepParameters",
     "stages_to_sleep",
+    "SUPPORTED_EPOCH_SECONDS",
+    "UnknownMethodError",
     "validate_night_fields",
+    "webster_rescore",
     "write_demo_study",
 ]

@@ -16,3 +16,4 @@ from . import data as _data  # noqa: E402,F401  (registers commands)
 from . import demo as _demo  # noqa: E402,F401
 
 __all__ = ["app"]
+from . import scoring as _scoring  # noqa: E402,F401

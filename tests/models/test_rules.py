@@ -1,0 +1,273 @@
+"""Classical count rules against worked examples computed by hand from the published formulas.
+
+Every coefficient below is the one in published-methods.md section 1, where all of them are
+tagged "from memory" [M]; the worked examples are therefore checks of the formula as recorded
+there, computed by hand here.
+"""
+
+from __future__ import annotations
+
+import math
+import statistics
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+
+from models.errors import NightbankError
+from models.rescoring import UnsupportedEpochLengthError, webster_rescore
+from models.rules import (METHOD_IDS, RULES, InvalidRuleOptionError, UnknownMethodError, continuous_scores,
+                          score_with_rule)
+
+
+def _rule(counts, epoch_seconds, method, **options):
+    return score_with_rule(np.asarray(counts, dtype=float), epoch_seconds, method, **options)
+
+
+# ---------------------------------------------------------------------------------------------
+# Cole-Kripke (Cole et al. 1992; coefficients from memory, published-methods 1a)
+# D[t] = P * (W-4 A[t-4] + ... + W+2 A[t+2]); sleep if D < 1; score = 1 - D
+
+
+def test_cole_kripke_max10s_worked_example_60s():
+    # P = 0.00001, W = 404, 598, 326, 441, 1408, 508, 350 (from memory)
+    counts = [10, 20, 30, 40, 50, 60, 70]
+    d_first = 0.00001 * (1408 * 10 + 508 * 20 + 350 * 30)  # t=0: t-4..t-1 lie before the recording (zeros)
+    d_middle = 0.00001 * (404 * 10 + 598 * 20 + 326 * 30 + 441 * 40 + 1408 * 50 + 508 * 60 + 350 * 70)
+    d_last = 0.00001 * (404 * 30 + 598 * 40 + 326 * 50 + 441 * 60 + 1408 * 70)  # t+1, t+2 past the end
+    assert (d_first, d_middle, d_last) == pytest.approx((0.3474, 1.688, 1.7736))
+    result = _rule(counts, 60, "cole-kripke", coefficients="max-10s")
+    assert result.score[[0, 4, 6]] == pytest.approx([1 - d_first, 1 - d_middle, 1 - d_last])
+    assert result.sleep[[0, 4, 6]].tolist() == [1, 0, 0]
+
+
+def test_cole_kripke_single_burst_shows_each_weight():
+    # one minute of 200 counts at t=2; D[t] = 1e-5 * W(2-t) * 200 (from memory)
+    result = _rule([0, 0, 200, 0, 0, 0, 0, 0], 60, "cole-kripke")
+    d = [350 * 200e-5, 508 * 200e-5, 1408 * 200e-5, 441 * 200e-5, 326 * 200e-5, 598 * 200e-5, 404 * 200e-5, 0.0]
+    assert result.score == pytest.approx([1 - v for v in d])
+    assert result.sleep.tolist() == [int(v < 1) for v in d] == [1, 0, 0, 1, 1, 0, 1, 1]
+    assert result.sleep.dtype == np.int8
+
+
+def test_cole_kripke_mean_1min_coefficients():
+    # P = 0.001, W = 106, 54, 58, 76, 230, 74, 67 (from memory)
+    counts = [0, 1, 0, 0, 2, 0, 0]
+    d1 = 0.001 * (76 * 0 + 230 * 1 + 74 * 0 + 67 * 0)
+    d2 = 0.001 * (58 * 0 + 76 * 1 + 230 * 0 + 74 * 0 + 67 * 2)
+    d4 = 0.001 * (106 * 0 + 54 * 1 + 58 * 0 + 76 * 0 + 230 * 2 + 74 * 0 + 67 * 0)
+    result = _rule(counts, 60, "cole-kripke", coefficients="mean-1min")
+    assert result.score[[1, 2, 4]] == pytest.approx([1 - d1, 1 - d2, 1 - d4])
+
+
+def test_cole_kripke_30s_sums_minutes_and_copies_calls_back():
+    # 30-s epochs summed in pairs (common practice): minutes = [0, 200, 0, 0, 0(+partial)]
+    counts = [0, 0, 100, 100, 0, 0, 0, 0, 0]
+    d_min = [508 * 200e-5, 1408 * 200e-5, 441 * 200e-5, 326 * 200e-5, 598 * 200e-5]
+    result = _rule(counts, 30, "cole-kripke")
+    assert result.sleep.tolist() == [0, 0, 0, 0, 1, 1, 1, 1, 0]  # minute calls W W S S W, the last minute partial
+    assert result.score == pytest.approx(np.repeat([1 - v for v in d_min], 2)[:9])
+
+
+def test_cole_kripke_trailing_partial_minute_is_completed_with_zeros():
+    # 11 epochs of 30 s: the 6th minute holds one epoch of 60 counts and one missing epoch (0)
+    counts = [0] * 10 + [60]
+    result = _rule(counts, 30, "cole-kripke")
+    assert result.score[-1] == pytest.approx(1 - 1408 * 60e-5)  # D = 0.8448 -> sleep
+    assert result.sleep[-1] == 1
+
+
+def test_cole_kripke_15s_sums_four_epochs():
+    counts = [50, 50, 50, 50] + [0] * 8
+    result = _rule(counts, 15, "cole-kripke")
+    assert result.score[:4] == pytest.approx([1 - 1408 * 200e-5] * 4)
+    assert result.score[4:8] == pytest.approx([1 - 441 * 200e-5] * 4)
+
+
+# ---------------------------------------------------------------------------------------------
+# Sadeh (Sadeh et al. 1994; coefficients as reproduced in later papers, from memory)
+# PS = 7.601 - 0.065 MEAN - 1.08 NAT - 0.056 SD - 0.703 LG; sleep if PS >= 0
+
+
+def _ps(mean, nat, sd, lg):
+    return 7.601 - 0.065 * mean - 1.08 * nat - 0.056 * sd - 0.703 * lg
+
+
+def test_sadeh_worked_example_60s():
+    counts = [0] * 6 + [200] + [0] * 5
+    sd_6 = statistics.stdev([0, 0, 0, 0, 0, 200])  # sample SD of minutes t-5..t (ddof=1, from memory)
+    assert sd_6 == pytest.approx(math.sqrt((5 * (200 / 6) ** 2 + (200 - 200 / 6) ** 2) / 5))
+    expected = {
+        0: _ps(0.0, 0, 0.0, 0.0),  # window 0..5 all zero (zero-padding before the start)
+        1: _ps(200 / 11, 0, 0.0, 0.0),  # centred window -4..6 holds the burst; trailing SD window is all zero
+        6: _ps(200 / 11, 0, sd_6, math.log(201)),
+        11: _ps(200 / 11, 0, sd_6, 0.0),  # window 6..16 runs past the end (zeros)
+    }
+    assert expected[6] == pytest.approx(7.601 - 1.181818 - 4.572381 - 3.728223, abs=1e-5)
+    result = _rule(counts, 60, "sadeh")
+    for t, ps in expected.items():
+        assert result.score[t] == pytest.approx(ps), t
+    assert result.sleep[[0, 1, 6, 11]].tolist() == [1, 1, 0, 1]
+
+
+@pytest.mark.parametrize(("burst", "nat"), [(49, 0), (50, 1), (99, 1), (100, 0)])
+def test_sadeh_nat_counts_minutes_from_50_to_below_100(burst, nat):
+    counts = [0] * 6 + [burst] + [0] * 5
+    sd_6 = statistics.stdev([0, 0, 0, 0, 0, burst])
+    result = _rule(counts, 60, "sadeh")
+    assert result.score[6] == pytest.approx(_ps(burst / 11, nat, sd_6, math.log(burst + 1)))
+
+
+def test_sadeh_30s_uses_minute_sums():
+    counts_30 = [0] * 12 + [100, 100] + [0] * 10  # minute 6 holds 200
+    counts_60 = [0] * 6 + [200] + [0] * 5
+    r30, r60 = _rule(counts_30, 30, "sadeh"), _rule(counts_60, 60, "sadeh")
+    np.testing.assert_allclose(r30.score, np.repeat(r60.score, 2))
+
+
+# ---------------------------------------------------------------------------------------------
+# Weighted count threshold (Oakley 1997 report; weights and thresholds from memory, 1d)
+# TA = sum w_k A[t+k]; sleep if TA <= threshold; score = threshold - TA
+
+
+def test_count_threshold_worked_example_60s():
+    counts = [0, 0, 100, 0, 0, 0]
+    ta = [100 / 25, 100 / 5, 100.0, 100 / 5, 100 / 25, 0.0]  # 1/25, 1/5, 1, 1/5, 1/25
+    result = _rule(counts, 60, "count-threshold")
+    assert result.score == pytest.approx([40 - v for v in ta])
+    assert result.sleep.tolist() == [1, 1, 0, 1, 1, 1]
+    assert _rule(counts, 60, "count-threshold", threshold=20).sleep.tolist() == [1, 1, 0, 1, 1, 1]  # 20 <= 20
+    assert _rule(counts, 60, "count-threshold", threshold=19).sleep.tolist() == [1, 0, 0, 0, 1, 1]
+
+
+def test_count_threshold_30s_fixed_span_weights():
+    # window t-2 min .. t+2 min: 1/25 at t+-3, t+-4; 1/5 at t+-1, t+-2; 2 at t (from memory)
+    counts = [10, 20, 30, 40, 50, 60, 70, 80, 90]
+    ta_4 = 0.04 * 10 + 0.04 * 20 + 0.2 * 30 + 0.2 * 40 + 2 * 50 + 0.2 * 60 + 0.2 * 70 + 0.04 * 80 + 0.04 * 90
+    ta_0 = 2 * 10 + 0.2 * 20 + 0.2 * 30 + 0.04 * 40 + 0.04 * 50
+    result = _rule(counts, 30, "count-threshold")
+    assert result.score[[0, 4]] == pytest.approx([40 - ta_0, 40 - ta_4])
+    assert ta_4 == pytest.approx(148.0)
+
+
+def test_count_threshold_30s_fixed_taps_weights():
+    # the five weights on five consecutive 30-s epochs (the other convention, from memory)
+    counts = [10, 20, 30, 40, 50, 60, 70, 80, 90]
+    ta_4 = 30 / 25 + 40 / 5 + 50 + 60 / 5 + 70 / 25
+    result = _rule(counts, 30, "count-threshold", convention="fixed-taps")
+    assert result.score[4] == pytest.approx(40 - ta_4)
+
+
+def test_count_threshold_15s_fixed_span_covers_two_minutes_each_side():
+    counts = np.zeros(17)
+    counts[0] = counts[16] = 100.0  # 8 epochs (2 min) either side of t=8
+    counts[4] = 10.0  # 4 epochs (1 min) before t=8
+    result = _rule(counts, 15, "count-threshold")
+    assert result.score[8] == pytest.approx(40 - (100 / 25 + 100 / 25 + 10 / 5))
+
+
+# ---------------------------------------------------------------------------------------------
+# Shared input handling, registry, errors
+
+
+@pytest.mark.parametrize("method", METHOD_IDS)
+def test_missing_and_negative_counts_count_as_zero(method):
+    counts = np.array([0, 5, np.nan, 300, -4, np.inf, 20, 0, 0, 0, 0, 0, 0, 0])
+    cleaned = np.array([0, 5, 0, 300, 0, 0, 20, 0, 0, 0, 0, 0, 0, 0], dtype=float)
+    a, b = _rule(counts, 30, method), _rule(cleaned, 30, method)
+    np.testing.assert_array_equal(a.sleep, b.sleep)
+    np.testing.assert_allclose(a.score, b.score)
+
+
+@pytest.mark.parametrize("method", METHOD_IDS)
+def test_count_scale_multiplies_counts_before_the_rule(method):
+    counts = np.random.default_rng(3).poisson(30, 200).astype(float)
+    a, b = _rule(counts, 30, method, count_scale=0.5), _rule(counts * 0.5, 30, method)
+    np.testing.assert_array_equal(a.sleep, b.sleep)
+    np.testing.assert_allclose(a.score, b.score)
+
+
+@pytest.mark.parametrize("base", list(RULES))
+@pytest.mark.parametrize("epoch_seconds", [15, 30, 60])
+def test_webster_suffix_rescores_the_base_calls_and_keeps_the_score(base, epoch_seconds):
+    counts = np.random.default_rng(7).poisson(25, 600).astype(float)
+    plain, rescored = _rule(counts, epoch_seconds, base), _rule(counts, epoch_seconds, base + "+webster")
+    np.testing.assert_array_equal(rescored.sleep, webster_rescore(plain.sleep, epoch_seconds))
+    np.testing.assert_array_equal(rescored.score, plain.score)
+    assert rescored.method == base + "+webster"
+
+
+@pytest.mark.parametrize("base", list(RULES))
+@pytest.mark.parametrize("epoch_seconds", [15, 30, 60])
+def test_score_orientation_higher_means_sleep(base, epoch_seconds):
+    counts = np.random.default_rng(11).gamma(0.5, epoch_seconds, 500)  # about 30 counts per minute
+    result = _rule(counts, epoch_seconds, base)
+    assert 0 < result.sleep.mean() < 1
+    assert result.score[result.sleep == 0].max() < result.score[result.sleep == 1].min() + 1e-12
+    assert set(np.unique(result.sleep)) <= {0, 1}
+    quiet = _rule(np.zeros(40), epoch_seconds, base)
+    assert quiet.sleep.tolist() == [1] * 40
+
+
+@pytest.mark.parametrize("base", ["cole-kripke", "count-threshold"])
+@settings(max_examples=50, deadline=None)
+@given(extra=arrays(np.float64, 120, elements=st.floats(0, 500)))
+def test_more_activity_never_raises_linear_scores(base, extra):
+    counts = np.random.default_rng(5).poisson(10, 120).astype(float)
+    assert np.all(_rule(counts + extra, 30, base).score <= _rule(counts, 30, base).score + 1e-9)
+
+
+@settings(max_examples=60, deadline=None)
+@given(counts=arrays(np.float64, st.integers(0, 130), elements=st.one_of(
+    st.floats(min_value=-1e6, max_value=1e6), st.sampled_from([np.nan, np.inf, -np.inf]))),
+       epoch_seconds=st.sampled_from([15, 30, 60]), method=st.sampled_from(METHOD_IDS))
+def test_rules_never_fail_on_arbitrary_counts(counts, epoch_seconds, method):
+    result = _rule(counts, epoch_seconds, method)
+    assert result.sleep.shape == result.score.shape == counts.shape
+    assert np.isfinite(result.score).all()
+
+
+def test_continuous_scores_match_each_rule():
+    counts = np.random.default_rng(2).poisson(40, 300).astype(float)
+    scores = continuous_scores(counts, 30)
+    assert list(scores) == ["cole_kripke_score", "sadeh_score", "count_threshold_score"]
+    for rule in RULES.values():
+        np.testing.assert_array_equal(scores[rule.score_name], _rule(counts, 30, rule.method_id).score)
+
+
+def test_empty_recording_gives_empty_results():
+    assert _rule([], 30, "sadeh+webster").sleep.shape == (0,)
+    assert all(v.shape == (0,) for v in continuous_scores([], 60).values())
+
+
+@pytest.mark.parametrize("method", ["", "cole", "sadeh+foo", "webster", "count-threshold+webster+webster"])
+def test_unknown_method_is_a_typed_error_listing_valid_ids(method):
+    with pytest.raises(UnknownMethodError, match="valid methods: cole-kripke, cole-kripke\\+webster") as info:
+        _rule([0, 1], 30, method)
+    assert info.value.code == "unknown_method"
+    assert isinstance(info.value, ValueError) and isinstance(info.value, NightbankError)
+
+
+@pytest.mark.parametrize(("method", "options"), [
+    ("cole-kripke", {"coefficients": "nope"}), ("count-threshold", {"convention": "nope"}),
+    ("count-threshold", {"threshold": float("nan")}), ("sadeh", {"threshold": 3}),
+    ("cole-kripke", {"count_scale": 0.0}),
+])
+def test_invalid_rule_options_are_typed_errors(method, options):
+    with pytest.raises(InvalidRuleOptionError) as info:
+        _rule([0, 1, 2], 60, method, **options)
+    assert info.value.code == "invalid_rule_option"
+
+
+@pytest.mark.parametrize("epoch_seconds", [20, 0, 45.5, True, "30"])
+def test_unsupported_epoch_length(epoch_seconds):
+    with pytest.raises(UnsupportedEpochLengthError) as info:
+        _rule([0, 1, 2], epoch_seconds, "sadeh")
+    assert info.value.code == "unsupported_epoch_length"
+
+
+def test_method_ids_cover_every_rule_with_and_without_webster():
+    assert METHOD_IDS == ("cole-kripke", "cole-kripke+webster", "sadeh", "sadeh+webster",
+                          "count-threshold", "count-threshold+webster")
