@@ -32,7 +32,7 @@ serve: install
 	$(BIN)/nightbank serve
 
 lock: install
-	$(BIN)/python -m pip freeze --exclude-editable | grep -v '^nightbank' > constraints.txt
+	( echo "# Versions installed and tested together (pip install -c constraints.txt). Regenerate with: make lock"; $(BIN)/python -m pip freeze --exclude-editable | grep -v "^nightbank" ) > constraints.txt
 
 clean:
 	rm -rf $(VENV) var .pytest_cache
