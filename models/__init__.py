@@ -16,6 +16,16 @@ from .agreement import (
 from .checks import NightOptions, QCConfig, QCFlag, quality_flags, validate_night_fields
 from .demo_study import DEMO_STUDY_ID, demo_nights, write_demo_study
 from .errors import InvalidNightError, NightbankError, NotFittedError, Problem
+from .feature_cache import FeatureCache
+from .features import (
+    FAMILIES,
+    FeatureConfig,
+    FeatureInputError,
+    FeatureMatrix,
+    FeatureSetMismatchError,
+    check_feature_set,
+    compute_features,
+)
 from .io import COLUMN_ALIASES, detect_format, night_from_json, night_to_json, read_night
 from .metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep, epoch_agreement
 from .night import SUPPORTED_EPOCH_SECONDS, Night, canonical_stage, stages_to_sleep
@@ -29,22 +39,30 @@ from .tabular import night_from_csv, night_from_parquet, night_to_csv, night_to_
 __all__ = [
     "aggregate_epochs",
     "agreement_table",
-    "ALWAYS_SLEEP",
     "always_sleep",
+    "ALWAYS_SLEEP",
     "bland_altman",
     "BLAND_ALTMAN_PARAMETERS",
     "bland_altman_table",
     "BlandAltman",
     "canonical_stage",
+    "check_feature_set",
     "CohortSpec",
     "COLUMN_ALIASES",
     "compare_rules_with_reference",
+    "compute_features",
     "continuous_scores",
     "demo_nights",
     "DEMO_STUDY_ID",
     "detect_format",
     "epoch_agreement",
     "EPOCH_METRIC_NAMES",
+    "FAMILIES",
+    "FeatureCache",
+    "FeatureConfig",
+    "FeatureInputError",
+    "FeatureMatrix",
+    "FeatureSetMismatchError",
     "InvalidNightError",
     "METHOD_IDS",
     "Night",

@@ -1,0 +1,260 @@
+"""Shape-over-time features of each centred window: shifts, lumpiness, stability, runs, crossings.
+
+Each function gives, for every epoch, the feature of the centred window around it, defined as in
+R ``tsfeatures`` (Hyndman et al., 1.1.1) or statsmodels, applied to that window alone. Windows are
+truncated at the night's ends and missing epochs (NaN) are skipped as described per feature.
+
+Sub-windows ("tiles") have a fixed width in epochs (R's default for non-seasonal data is 10;
+nightbank passes 5 minutes in epochs, i.e. 10 at 30 s). Deviations from R, each because R's value
+would look like stillness where the feature is simply undefined:
+
+- ``max_level_shift`` / ``max_var_shift``: R returns 0 when the window holds fewer than two
+  sub-windows; these return NaN.
+- ``lumpiness`` / ``stability``: R returns 0 when the window holds fewer than two tiles; these
+  return NaN.
+
+Defined values for still (constant) windows: level and variance shift 0, lumpiness and stability
+0 (R skips standardising a constant series, which gives 0), flat spots = the window's length (R
+and the Python port give n; a missing epoch breaks the run), crossing points 0; the lag-1
+autocorrelation is NaN (undefined 0/0, as in R and statsmodels).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
+from numpy.typing import NDArray
+
+from .windows import CentredWindows
+
+__all__ = [
+    "crossing_points", "flat_spots", "lag1_autocorrelation", "lumpiness", "max_level_shift",
+    "max_var_shift", "stability",
+]
+
+FloatArray = NDArray[np.float64]
+
+
+def _max_shift(stat: FloatArray, windows: CentredWindows, width: int) -> FloatArray:
+    """Largest ``|stat[i + width] - stat[i]|`` over sub-window pairs inside each window."""
+    n, h = windows.values.shape[0], windows.half_width
+    span = 2 * h + 2 - 2 * width  # number of pair starts i in a full window
+    if span < 1 or stat.shape[0] <= width:
+        return np.full(n, np.nan)
+    diff = np.abs(stat[width:] - stat[:-width])  # pair starting at i needs epochs i .. i + 2w - 1
+    # window c allows starts c - h .. c + h - 2w + 1; starts outside 0..n-2w are NaN
+    padded = np.full(n + span - 1, np.nan)
+    padded[h:h + diff.shape[0]] = diff
+    return np.fmax.reduce(sliding_window_view(padded, span), axis=1)
+
+
+def max_level_shift(windows: CentredWindows, *, width: int) -> FloatArray:
+    """Largest change in mean between two adjacent, non-overlapping sub-windows of each window.
+
+    Definition = R ``tsfeatures::max_level_shift(x, width)`` on the raw window: ``m_i`` = mean of
+    ``x[i .. i + width - 1]`` (NaN skipped), feature = ``max_i |m_{i + width} - m_i|`` over all
+    pairs inside the window.
+
+    Parameters
+    ----------
+    windows : CentredWindows
+    width : int
+        Sub-window width in epochs.
+
+    Returns
+    -------
+    ndarray of float64, shape (n_epochs,)
+        In the units of the series; NaN when the window is shorter than ``2 * width`` (R: 0).
+    """
+    mean, _ = windows.rolling_mean_var(width)
+    return _max_shift(mean, windows, width)
+
+
+def max_var_shift(windows: CentredWindows, *, width: int) -> FloatArray:
+    """Largest change in variance between two adjacent, non-overlapping sub-windows of each window.
+
+    Definition = R ``tsfeatures::max_var_shift(x, width)``: as :func:`max_level_shift` with the
+    sub-window sample variance (``ddof=1``, NaN skipped) instead of the mean.
+
+    Parameters
+    ----------
+    windows : CentredWindows
+    width : int
+        Sub-window width in epochs.
+
+    Returns
+    -------
+    ndarray of float64, shape (n_epochs,)
+        In squared units of the series; NaN when the window is shorter than ``2 * width`` (R: 0).
+    """
+    _, var = windows.rolling_mean_var(width)
+    return _max_shift(var, windows, width)
+
+
+def _tile_spread(stat: FloatArray, windows: CentredWindows, width: int) -> FloatArray:
+    """Sample variance (ddof=1) over each window's tiles of a per-tile statistic (NaN tiles skipped)."""
+    n_tiles = windows.width // width
+    starts = windows.lo[:, None] + width * np.arange(n_tiles)[None, :]  # tiles from the window's first epoch
+    inside = starts + width - 1 <= windows.hi[:, None]
+    vals = np.where(inside, stat[np.minimum(starts, stat.shape[0] - 1)], np.nan)
+    defined = ~np.isnan(vals)
+    k = defined.sum(axis=1)
+    low = np.fmin.reduce(vals, axis=1)
+    shifted = np.where(defined, vals - low[:, None], 0.0).sum(axis=1)
+    mean = low + np.divide(shifted, k, out=np.full(k.shape, np.nan), where=k > 0)
+    ss = np.square(np.where(defined, vals - mean[:, None], 0.0)).sum(axis=1)
+    return np.divide(ss, k - 1, out=np.full(k.shape, np.nan), where=k > 1)
+
+
+def _tiles(windows: CentredWindows, width: int, *, power: int, use_var: bool) -> FloatArray:
+    n = windows.values.shape[0]
+    if windows.width < 2 * width or n < width:
+        return np.full(n, np.nan)
+    mean, var = windows.rolling_mean_var(width)
+    spread = _tile_spread(var if use_var else mean, windows, width)
+    sd = np.sqrt(windows.variance(ddof=1))
+    # a constant window's tiles have identical means and zero variances, so spread is exactly 0
+    return spread / np.where(sd > 0, sd, 1.0) ** power
+
+
+def lumpiness(windows: CentredWindows, *, width: int) -> FloatArray:
+    """Variance of the tile variances of each standardised window.
+
+    Definition = R ``tsfeatures::lumpiness(x, width)``: standardise the window (mean, SD with
+    ``ddof=1``), cut it into consecutive tiles of ``width`` epochs starting at its first epoch
+    (an incomplete last tile is dropped), take each tile's variance (``ddof=1``, NaN skipped) and
+    return the variance (``ddof=1``) of those. Computed from unstandardised tiles divided by
+    ``SD**4``.
+
+    Parameters
+    ----------
+    windows : CentredWindows
+    width : int
+        Tile width in epochs.
+
+    Returns
+    -------
+    ndarray of float64, shape (n_epochs,)
+        Unitless; NaN with fewer than two defined tiles (R: 0); 0 for a constant window.
+    """
+    return _tiles(windows, width, power=4, use_var=True)
+
+
+def stability(windows: CentredWindows, *, width: int) -> FloatArray:
+    """Variance of the tile means of each standardised window.
+
+    Definition = R ``tsfeatures::stability(x, width)``: the same tiles as :func:`lumpiness`, the
+    variance (``ddof=1``) of their means after standardising; computed as the variance of the
+    unstandardised tile means divided by ``SD**2``.
+
+    Parameters
+    ----------
+    windows : CentredWindows
+    width : int
+        Tile width in epochs.
+
+    Returns
+    -------
+    ndarray of float64, shape (n_epochs,)
+        Unitless; NaN with fewer than two defined tiles (R: 0); 0 for a constant window.
+    """
+    return _tiles(windows, width, power=2, use_var=False)
+
+
+def _longest_true_run(mask: NDArray[np.bool_]) -> FloatArray:
+    """Length of the longest run of True in each row of a 2-D boolean array."""
+    n_rows, n_cols = mask.shape
+    framed = np.zeros((n_rows, n_cols + 2), dtype=np.int8)  # False columns keep runs inside rows
+    framed[:, 1:-1] = mask
+    step = np.diff(framed.ravel())
+    starts, stops = np.flatnonzero(step == 1), np.flatnonzero(step == -1)
+    longest = np.zeros(n_rows)
+    np.maximum.at(longest, starts // (n_cols + 2), (stops - starts).astype(np.float64))
+    return longest
+
+
+def flat_spots(windows: CentredWindows, *, n_bins: int = 10) -> FloatArray:
+    """Longest run of consecutive epochs falling in the same of ``n_bins`` equal-width value bins.
+
+    Definition = R ``tsfeatures::flat_spots`` (``cut(x, breaks=10)``, longest ``rle`` run) and the
+    Python port (``pd.cut(x, bins=10)``): bins split [min, max] of the window into equal parts,
+    right-closed, with the lowest edge widened so the minimum falls in the first bin. A missing
+    epoch breaks a run.
+
+    Parameters
+    ----------
+    windows : CentredWindows
+    n_bins : int, default=10
+
+    Returns
+    -------
+    ndarray of float64, shape (n_epochs,)
+        Run length in epochs; for a constant window, the longest run of observed epochs (all of
+        them when none is missing); NaN without observed epochs.
+    """
+    rows = windows.rows
+    low, high = windows.minimum[:, None], windows.maximum[:, None]
+    step = np.where(high > low, (high - low) / n_bins, 1.0)  # edges as np.linspace(min, max, n_bins + 1)
+    scaled = rows - low
+    scaled /= step
+    # a value within rounding of an interior edge is placed by comparing it with that edge
+    distance = np.rint(scaled)
+    distance -= scaled
+    near = np.abs(distance, out=distance) < 1e-9 * n_bins
+    near &= scaled > 0.5
+    r, c = np.nonzero(near)
+    label = np.ceil(scaled, out=scaled)  # bin b holds (edge_b, edge_{b+1}]: label b + 1; NaN stays NaN
+    np.maximum(label, 1.0, out=label)
+    np.minimum(label, float(n_bins), out=label)
+    if r.size:
+        edge_idx = np.rint((rows[r, c] - low[r, 0]) / step[r, 0])
+        keep = edge_idx < n_bins
+        r, c, edge_idx = r[keep], c[keep], edge_idx[keep]
+        label[r, c] = np.where(rows[r, c] > edge_idx * step[r, 0] + low[r, 0], edge_idx + 1, edge_idx)
+    same = label[:, 1:] == label[:, :-1]  # NaN never equals: missing epochs break runs
+    return np.where(windows.any_observed, _longest_true_run(same) + 1.0, np.nan)
+
+
+def crossing_points(windows: CentredWindows) -> FloatArray:
+    """Number of times each window crosses its median.
+
+    Definition = R ``tsfeatures::crossing_points``: ``b_t = x_t <= median`` (ties at the median
+    count as below), feature = number of ``t`` with ``b_t != b_{t+1}``. Pairs with a missing epoch
+    are skipped (R: ``sum(..., na.rm = TRUE)``). In sleep windows the median is often 0, so only
+    transitions between 0 and positive counts count.
+
+    Parameters
+    ----------
+    windows : CentredWindows
+
+    Returns
+    -------
+    ndarray of float64, shape (n_epochs,)
+        Count of crossings; NaN without observed epochs.
+    """
+    below = windows.rows <= windows.quantile(0.5)[:, None]
+    both = windows.observed[:, 1:] & windows.observed[:, :-1]
+    crossings = ((below[:, 1:] != below[:, :-1]) & both).sum(axis=1).astype(np.float64)
+    return np.where(windows.any_observed, crossings, np.nan)
+
+
+def lag1_autocorrelation(windows: CentredWindows) -> FloatArray:
+    """Lag-1 autocorrelation of each window (classic biased estimator).
+
+    Definition = statsmodels ``acf(x, nlags=1, adjusted=False, fft=False)[1]`` = R ``acf``
+    (tsfeatures ``x_acf1``): ``sum_t d_t d_{t+1} / sum_t d_t**2`` with ``d`` the deviations from
+    the window mean. Pairs with a missing epoch are left out of the numerator.
+
+    Parameters
+    ----------
+    windows : CentredWindows
+
+    Returns
+    -------
+    ndarray of float64, shape (n_epochs,)
+        In [-1, 1]; NaN for a constant window or without observed epochs.
+    """
+    dev = windows.deviations
+    num = np.einsum("ij,ij->i", dev[:, 1:], dev[:, :-1])
+    ok = windows.any_observed & ~windows.is_constant
+    return np.divide(num, windows.sum_squares, out=np.full(num.shape, np.nan), where=ok)
