@@ -19,6 +19,7 @@ from .errors import InvalidNightError, Problem
 from .night import SUPPORTED_EPOCH_SECONDS, MovementTimePolicy, Night, canonical_stage
 
 __all__ = [
+    "CodedLabels",
     "NightOptions",
     "QCConfig",
     "QCFlag",
@@ -174,6 +175,21 @@ def _counts_problems(counts: Any, field_name: str, allow_missing: bool) -> tuple
     return values, problems
 
 
+@dataclass(frozen=True)
+class CodedLabels:
+    """Reference labels as integer codes into a list of categories (code -1 = missing/unscored)."""
+
+    codes: np.ndarray
+    categories: list[Any]
+
+    def __len__(self) -> int:
+        return int(self.codes.shape[0])
+
+    def __iter__(self):
+        cats = np.asarray([*self.categories, ""], dtype=object)
+        return iter(cats[self.codes].tolist())
+
+
 def _label_key(value: Any) -> str:
     """Text form of one reference label; non-label types get a key no stage code matches."""
     if isinstance(value, str):
@@ -186,14 +202,14 @@ def _label_key(value: Any) -> str:
 
 
 def _reference_problems(reference: Any, n_epochs: int) -> tuple[np.ndarray | None, list[Problem]]:
-    """Canonical stage codes (n_epochs,) or the problems; ``reference`` may be a pandas Categorical."""
+    """Canonical stage codes (n_epochs,) or the problems; ``reference`` may be :class:`CodedLabels`."""
     if len(reference) != n_epochs:
         return None, [Problem(
             "reference_length",
             f"reference has {len(reference)} labels but there are {n_epochs} epochs; give one label per epoch",
             {"field": "reference", "values": [len(reference), n_epochs]},
         )]
-    if isinstance(reference, pd.Categorical):
+    if isinstance(reference, CodedLabels):
         inverse, uniq = reference.codes, [_label_key(v) for v in reference.categories]
         if (inverse < 0).any():  # missing values: unscored
             inverse = np.where(inverse < 0, len(uniq), inverse)

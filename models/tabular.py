@@ -10,7 +10,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .checks import MAX_LISTED, NightOptions, validate_night_fields
+from .checks import MAX_LISTED, CodedLabels, NightOptions, validate_night_fields
 from .errors import InvalidNightError, Problem
 from .io import _META_LINE, COLUMN_ALIASES, _decode, _finish, _night_kwargs_meta
 from .night import Night
@@ -88,8 +88,11 @@ def _regular_epochs(utc_ns: np.ndarray, row0: int, fill_gaps: bool,
                                 {"field": "time", "row": row0}))
         return None
     step_ns = np.diff(utc_ns)
-    positive = step_ns[step_ns > 0]
-    epoch_ns = int(np.median(positive)) if positive.size else 0
+    if (step_ns == step_ns[0]).all() and step_ns[0] > 0:  # the usual, regular file
+        epoch_ns = int(step_ns[0])
+    else:
+        positive = step_ns[step_ns > 0]
+        epoch_ns = int(np.median(positive)) if positive.size else 0
     ok = True
     for code, mask, what in (("duplicate_timestamp", step_ns == 0, "repeats the previous time"),
                              ("time_not_increasing", step_ns < 0, "goes back in time")):
@@ -170,8 +173,8 @@ def _night_from_table(table: Any, meta: dict[str, Any], *, participant_id: str, 
         ref_col = table.column(cols["reference"]).combine_chunks()
         if not pa.types.is_dictionary(ref_col.type):
             ref_col = ref_col.cast(pa.string()).dictionary_encode()
-        reference = pd.Categorical.from_codes(ref_col.indices.fill_null(-1).to_numpy(zero_copy_only=False),
-                                              categories=pd.Index(ref_col.dictionary.to_pylist(), dtype=object))
+        reference = CodedLabels(ref_col.indices.fill_null(-1).to_numpy(zero_copy_only=False),
+                                ref_col.dictionary.to_pylist())
     start = epoch_seconds = None
     if grid is not None:
         epoch_seconds, index = grid
@@ -182,7 +185,7 @@ def _night_from_table(table: Any, meta: dict[str, Any], *, participant_id: str, 
             counts = full
             if reference is not None:
                 ref_full = np.full(full.size, "?", dtype=object)
-                ref_full[index] = np.asarray(reference, dtype=object)
+                ref_full[index] = list(reference)
                 reference = ref_full.tolist()
     kwargs = _night_kwargs_meta(meta, options.tz, problems)
     night = validate_night_fields(participant_id=participant_id, start=start, epoch_seconds=epoch_seconds,
