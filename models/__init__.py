@@ -14,6 +14,9 @@ from .agreement import (
     compare_rules_with_reference,
 )
 from .checks import NightOptions, QCConfig, QCFlag, quality_flags, validate_night_fields
+from .artifacts import InvalidModelArtifactError, load_model, model_from_bytes, model_to_bytes, save_model
+from .classifier import SleepModel
+from .comparison import COMPARED_RULES, MODEL_METHODS, StudyComparison, choose_method, compare_study
 from .demo_study import DEMO_STUDY_ID, demo_nights, write_demo_study
 from .errors import InvalidNightError, NightbankError, NotFittedError, Problem
 from .feature_cache import FeatureCache
@@ -29,12 +32,26 @@ from .features import (
 from .io import COLUMN_ALIASES, detect_format, night_from_json, night_to_json, read_night
 from .metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep, epoch_agreement
 from .night import SUPPORTED_EPOCH_SECONDS, Night, canonical_stage, stages_to_sleep
+from .offset import ShrinkageChoice, choose_shrinkage, estimate_offset
 from .parameters import PARAMETER_NAMES, SleepParameters, sleep_parameters
+from .personal import PersonalResult, train_personal
+from .pooled import PooledResult, participant_offset, train_pooled
 from .resample import aggregate_epochs
 from .rescoring import webster_rescore
 from .rules import METHOD_IDS, RULES, RuleScoring, UnknownMethodError, continuous_scores, score_with_rule
 from .simulation import CohortSpec, SimulatedNight, simulate_cohort
+from .splits import SPLITTERS, ForwardChainedSplit, TooFewNightsError
 from .tabular import night_from_csv, night_from_parquet, night_to_csv, night_to_parquet
+from .tasks import Progress, TrainingCancelled
+from .training import (
+    CHOICE_POLICIES,
+    DESCRIPTOR_NAMES,
+    HeldOutNight,
+    InvalidTrainingConfigError,
+    TrainingConfig,
+    TrainingDataError,
+    participant_descriptors,
+)
 
 __all__ = [
     "aggregate_epochs",
@@ -47,24 +64,39 @@ __all__ = [
     "BlandAltman",
     "canonical_stage",
     "check_feature_set",
+    "CHOICE_POLICIES",
+    "choose_method",
+    "choose_shrinkage",
     "CohortSpec",
     "COLUMN_ALIASES",
     "compare_rules_with_reference",
+    "compare_study",
+    "COMPARED_RULES",
     "compute_features",
     "continuous_scores",
     "demo_nights",
     "DEMO_STUDY_ID",
+    "DESCRIPTOR_NAMES",
     "detect_format",
     "epoch_agreement",
     "EPOCH_METRIC_NAMES",
+    "estimate_offset",
     "FAMILIES",
     "FeatureCache",
     "FeatureConfig",
     "FeatureInputError",
     "FeatureMatrix",
     "FeatureSetMismatchError",
+    "ForwardChainedSplit",
+    "HeldOutNight",
+    "InvalidModelArtifactError",
     "InvalidNightError",
+    "InvalidTrainingConfigError",
+    "load_model",
     "METHOD_IDS",
+    "model_from_bytes",
+    "MODEL_METHODS",
+    "model_to_bytes",
     "Night",
     "night_from_csv",
     "night_from_json",
@@ -77,7 +109,12 @@ __all__ = [
     "NightRecord",
     "NotFittedError",
     "PARAMETER_NAMES",
+    "participant_descriptors",
+    "participant_offset",
+    "PersonalResult",
+    "PooledResult",
     "Problem",
+    "Progress",
     "QCConfig",
     "QCFlag",
     "quality_flags",
@@ -86,14 +123,25 @@ __all__ = [
     "RuleComparison",
     "RULES",
     "RuleScoring",
+    "save_model",
     "score_with_rule",
     "ScoredNight",
+    "ShrinkageChoice",
     "simulate_cohort",
     "SimulatedNight",
     "sleep_parameters",
+    "SleepModel",
     "SleepParameters",
+    "SPLITTERS",
     "stages_to_sleep",
+    "StudyComparison",
     "SUPPORTED_EPOCH_SECONDS",
+    "TooFewNightsError",
+    "train_personal",
+    "train_pooled",
+    "TrainingCancelled",
+    "TrainingConfig",
+    "TrainingDataError",
     "UnknownMethodError",
     "validate_night_fields",
     "webster_rescore",

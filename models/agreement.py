@@ -30,8 +30,8 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
-from .night import MovementTimePolicy, Night
 from .metrics import ALWAYS_SLEEP, ScoredNight, agreement_table, always_sleep
+from .night import MovementTimePolicy, Night
 from .parameters import PARAMETER_NAMES, sleep_parameters
 from .rescoring import InvalidSleepVectorError, as_sleep_vector
 from .rules import METHOD_IDS, score_with_rule

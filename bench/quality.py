@@ -1,0 +1,148 @@
+"""Quality of personal, pooled and pooled+offset models against the classical rules (SIMULATED data).
+
+Runs the full study comparison (:func:`models.comparison.compare_study`, default settings: 30
+trials, ``n_jobs=2``) on two simulated cohorts:
+
+- ``demo``: the demo study (``models.demo_study.demo_nights()``);
+- ``second``: ``simulate_cohort(CohortSpec(spread=1.4, id_prefix="QB"), seed=424242)``, wider
+  person-to-person differences, never used while developing the models.
+
+Every figure is a mean over held-out nights (per-night metric, then averaged). A goal compares
+methods on the same nights: personal on the nights of participants with a personal model,
+pooled on all labelled nights, pooled+offset against pooled on the nights of participants with
+one or two labelled nights (a single labelled night has no held-out offset figure). As those are
+few nights, the same situation is also replayed on every participant with two or more labelled
+nights: offset from one night, scored on each other night (``one_night_offset``).
+
+Goals: personal and pooled beat every rule on balanced accuracy; their specificity >= 0.70 with
+sensitivity >= 0.90; their SOL mean absolute error at most half the count-threshold rule's;
+their awakening-count bias at most half the count-threshold rule's (absolute values);
+pooled+offset no worse than pooled for participants with 1-2 labelled nights.
+The last printed line is one JSON object.
+"""
+
+from __future__ import annotations
+
+import itertools
+import json
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy.special import expit
+from sklearn.metrics import balanced_accuracy_score
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from models.comparison import COMPARED_RULES, compare_study  # noqa: E402
+from models.demo_study import demo_nights  # noqa: E402
+from models.offset import estimate_offset  # noqa: E402
+from models.simulation import CohortSpec, simulate_cohort  # noqa: E402
+from models.training import TrainingConfig  # noqa: E402
+
+METHODS = ("personal", "pooled", "pooled+offset", *COMPARED_RULES, "always-sleep")
+
+
+def _figures(nights: pd.DataFrame) -> dict[str, float]:
+    return {"n_nights": int(len(nights)), "sensitivity": float(nights["sensitivity"].mean()),
+            "specificity": float(nights["specificity"].mean()),
+            "balanced_accuracy": float(nights["balanced_accuracy"].mean()),
+            "sol_mae_min": float(nights["sol_min_error"].abs().mean()),
+            "awakenings_bias": float(nights["awakenings_error"].mean())}
+
+
+def _one_night_offsets(result) -> dict[str, float]:
+    """The few-label situation on every participant with 2+ labelled nights: the offset from one
+    night (penalty chosen without the participant), balanced accuracy on each other night."""
+    pooled = result.pooled
+    gains = []
+    for pid, held in pooled.held_out.items():
+        if len(held) < 2:
+            continue
+        shrinkage = pooled.shrinkage_search.excluding(pid)
+        parts = []
+        for h in held:
+            bed = slice(*h.in_bed)
+            keep = ~np.isnan(h.reference[bed])
+            parts.append((h.margin[bed][keep], h.reference[bed][keep], h.threshold))
+        for (m_k, y_k, _), (m_l, y_l, threshold) in itertools.permutations(parts, 2):
+            b = estimate_offset(m_k + pooled.baselines[pid], y_k, shrinkage=shrinkage)
+            before = balanced_accuracy_score(y_l, expit(m_l) >= threshold)
+            gains.append(balanced_accuracy_score(y_l, expit(m_l + b) >= threshold) - before)
+    g = np.asarray(gains)
+    return {"n_pairs": int(g.size), "mean_gain": float(g.mean()), "share_no_worse": float((g >= 0).mean())}
+
+
+def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object]:
+    study: dict[str, list] = {}
+    for s in sims:
+        study.setdefault(s.night.participant_id, []).append(s.night)
+    start = time.perf_counter()
+    result = compare_study(study, config=config)
+    seconds = time.perf_counter() - start
+    keys = ["participant_id", "night_id", "method"]
+    night_rows = result.epoch_metrics[result.epoch_metrics["level"] == "night"]
+    table = night_rows.merge(result.parameter_errors, on=keys)
+
+    def on(method: str, ids: pd.DataFrame) -> pd.DataFrame:
+        mine = table[table["method"] == method]
+        return mine.merge(ids, on=["participant_id", "night_id"])
+
+    every = table[table["method"] == "pooled"][["participant_id", "night_id"]]
+    personal_ids = table[table["method"] == "personal"][["participant_id", "night_id"]]
+    labelled = result.participants.set_index("participant_id")["n_labelled_nights"]
+    few = [pid for pid, n in labelled.items() if 1 <= n <= 2]
+    few_ids = table[(table["method"] == "pooled+offset") & table["participant_id"].isin(few)][
+        ["participant_id", "night_id"]]
+    methods = {m: _figures(table[table["method"] == m]) for m in METHODS}
+
+    goals: dict[str, bool] = {}
+    for model, ids in (("personal", personal_ids), ("pooled", every)):
+        own = _figures(on(model, ids))
+        rules = {r: _figures(on(r, ids)) for r in COMPARED_RULES}
+        threshold_rule = rules["count-threshold"]
+        goals[f"{model}_beats_every_rule_on_balanced_accuracy"] = all(
+            own["balanced_accuracy"] > r["balanced_accuracy"] for r in rules.values())
+        goals[f"{model}_specificity_0.70_at_sensitivity_0.90"] = bool(
+            own["sensitivity"] >= 0.90 and own["specificity"] >= 0.70)
+        goals[f"{model}_sol_mae_at_most_half_count_threshold"] = bool(
+            own["sol_mae_min"] <= 0.5 * threshold_rule["sol_mae_min"])
+        goals[f"{model}_awakenings_bias_at_most_half_count_threshold"] = bool(
+            abs(own["awakenings_bias"]) <= 0.5 * abs(threshold_rule["awakenings_bias"]))
+    offset_few, pooled_few = _figures(on("pooled+offset", few_ids)), _figures(on("pooled", few_ids))
+    goals["pooled_offset_no_worse_than_pooled_with_1_2_labelled_nights"] = bool(
+        len(few_ids) == 0 or offset_few["balanced_accuracy"] >= pooled_few["balanced_accuracy"])
+    one_night = _one_night_offsets(result)
+    chosen = result.participants["chosen"].value_counts().to_dict()
+    print(f"== {name}: {len(study)} participants, {len(every)} labelled nights, {seconds:.0f} s")
+    for m, f in methods.items():
+        print(f"  {m:16s} " + " ".join(f"{k}={v:.3f}" if isinstance(v, float) else f"{k}={v}" for k, v in f.items()))
+    print(f"  few-label nights: pooled BA {pooled_few['balanced_accuracy']:.3f}, "
+          f"pooled+offset BA {offset_few['balanced_accuracy']:.3f} (n={len(few_ids)})")
+    print(f"  offset from one night, scored on another (all pairs): BA gain {one_night['mean_gain']:+.4f}, "
+          f"no worse in {one_night['share_no_worse']:.0%} of {one_night['n_pairs']} pairs")
+    return {"methods": methods, "goals": goals, "chosen": {k: int(v) for k, v in chosen.items()},
+            "few_label": {"participants": few, "n_nights": int(len(few_ids)), "pooled": pooled_few,
+                          "pooled+offset": offset_few},
+            "one_night_offset": one_night,
+            "shrinkage": result.pooled.shrinkage, "seconds": round(seconds, 1)}
+
+
+def main(argv: list[str]) -> None:
+    trials = int(argv[argv.index("--trials") + 1]) if "--trials" in argv else 30  # fewer: a quick look only
+    config = TrainingConfig(n_trials=trials, n_jobs=2)
+    cohorts = {
+        "demo": demo_nights(),
+        "second": simulate_cohort(CohortSpec(spread=1.4, id_prefix="QB"), seed=424242),
+    }
+    report = {name: _evaluate(name, sims, config) for name, sims in cohorts.items()}
+    report["n_trials"] = trials
+    report["all_goals_met"] = bool(np.all([v for name in cohorts for v in report[name]["goals"].values()]))
+    print(json.dumps(report))
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])

@@ -1,0 +1,94 @@
+"""Study comparison: held-out tables for models and rules, Bland-Altman, method choice."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from models.agreement import NightRecord, bland_altman, compare_rules_with_reference
+from models.comparison import COMPARED_RULES, MODEL_METHODS, choose_method, compare_study
+from models.simulation import CohortSpec, simulate_cohort
+from models.training import TrainingConfig
+
+CONFIG = TrainingConfig(n_trials=2, max_rounds=50, pooled_folds=3)
+
+
+@pytest.fixture(scope="module")
+def study():
+    sims = simulate_cohort(CohortSpec(n_participants=5, nights_min=3, nights_max=3, labelled_share=1.0,
+                                      few_labels_participants=2, artefacts=False), seed=51)
+    nights: dict[str, list] = {}
+    for s in sims:
+        nights.setdefault(s.night.participant_id, []).append(s.night)
+    calls: list[tuple[int, int, str]] = []
+    result = compare_study(nights, config=CONFIG, progress=lambda d, t, s: calls.append((d, t, s)))
+    return nights, result, calls
+
+
+def test_participant_table_and_notes(study) -> None:
+    nights, result, calls = study
+    table = result.participants.set_index("participant_id")
+    assert sorted(table.index) == sorted(nights)
+    assert calls[-1][0] == calls[-1][1]  # progress ends at its total
+    for pid, row in table.iterrows():
+        n_lab = sum(n.reference is not None for n in nights[pid])
+        assert row["n_labelled_nights"] == n_lab
+        assert row["chosen"] in ("personal", "pooled")
+        assert np.isnan(row["personal_balanced_accuracy"]) == (n_lab < 3)
+        assert np.isnan(row["pooled+offset_balanced_accuracy"]) == (n_lab < 2)
+        if n_lab == 1:
+            assert any(note.startswith(f"{pid}: 1 labelled night") for note in result.notes)
+    night_level = result.epoch_metrics[result.epoch_metrics["level"] == "night"]
+    assert set(night_level["method"]) == {*MODEL_METHODS, *COMPARED_RULES, "always-sleep"}
+    json.dumps(result.to_dict(), allow_nan=False)
+
+
+def test_rule_rows_match_the_agreement_module(study) -> None:
+    nights, result, _ = study
+    records = [NightRecord.from_night(n) for pid in sorted(nights) for n in nights[pid] if n.reference is not None]
+    direct = compare_rules_with_reference(records, methods=COMPARED_RULES)
+    ours = result.epoch_metrics
+    for method in COMPARED_RULES:
+        a = ours[(ours.level == "night") & (ours.method == method)].set_index("night_id").sort_index()
+        b = direct.epoch_metrics[(direct.epoch_metrics.level == "night")
+                                 & (direct.epoch_metrics.method == method)].set_index("night_id").sort_index()
+        pd.testing.assert_frame_equal(a[["sensitivity", "specificity", "auc", "kappa"]],
+                                      b[["sensitivity", "specificity", "auc", "kappa"]])
+
+
+def test_parameter_errors_and_bland_altman_agree_with_the_parameter_table(study) -> None:
+    _, result, _ = study
+    p = result.parameters.set_index(["participant_id", "night_id"])
+    ref = p[p.method == "reference"]
+    for method in ("personal", "pooled+offset", "sadeh"):
+        mine = p[p.method == method]
+        diff = (mine["sol_min"] - ref["sol_min"].reindex(mine.index)).to_numpy()
+        errors = result.parameter_errors.query("method == @method")["sol_min_error"].to_numpy()
+        np.testing.assert_array_equal(errors, diff)
+        row = result.bland_altman.query("method == @method and parameter == 'sol_min'").iloc[0]
+        assert row["bias"] == pytest.approx(np.nanmean(diff))  # numpy mean of the differences
+        assert row["n"] == np.isfinite(diff).sum()
+        expected = bland_altman(mine["sol_min"], ref["sol_min"].reindex(mine.index))
+        assert row["loa_upper"] == pytest.approx(expected.loa_upper)
+
+
+def _metrics(**means: float) -> pd.DataFrame:
+    rows = [{"method": m, "balanced_accuracy": v, "kappa": 1.0 - v} for m, v in means.items() for _ in range(2)]
+    return pd.DataFrame(rows)
+
+
+@pytest.mark.parametrize("means, policy, expected", [
+    ({"personal": 0.90, "pooled": 0.85}, "balanced_accuracy", "personal"),
+    ({"personal": 0.85, "pooled": 0.85}, "balanced_accuracy", "pooled"),  # ties go to pooled
+    ({"personal": 0.90, "pooled": 0.95, "pooled+offset": 0.80}, "balanced_accuracy", "personal"),  # as deployed
+    ({"personal": 0.90, "pooled": 0.80, "pooled+offset": 0.92}, "balanced_accuracy", "pooled"),
+    ({"personal": 0.90, "pooled": 0.85}, "kappa", "pooled"),  # kappa = 1 - BA here
+    ({"pooled": 0.70}, "balanced_accuracy", "pooled"),
+])
+def test_choose_method(means: dict, policy: str, expected: str) -> None:
+    method, reason = choose_method(_metrics(**means), policy=policy)
+    assert method == expected
+    assert policy in reason or "no personal" in reason
