@@ -16,4 +16,8 @@ from . import data as _data  # noqa: E402,F401  (registers commands)
 from . import demo as _demo  # noqa: E402,F401
 
 __all__ = ["app"]
+from . import remote as _remote  # noqa: E402,F401
+from . import server as _server  # noqa: E402,F401
+from . import tokens as _tokens  # noqa: E402,F401
 from . import scoring as _scoring  # noqa: E402,F401
+from . import compare as _compare  # noqa: E402,F401

@@ -1,0 +1,1 @@
+"""HTTP API: dependencies, shapes, problem handlers and one router module per resource."""

@@ -1,0 +1,138 @@
+"""Night ingest (JSON, CSV, Parquet), listings and metadata."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Depends, Path, Query, Request, Response
+from fastapi.concurrency import run_in_threadpool
+from fastapi.responses import JSONResponse
+from sqlalchemy.exc import IntegrityError
+
+from models import Night, NightOptions, night_from_csv, night_from_json, night_from_parquet
+
+from ... import registry
+from ...db import session_scope
+from ...errors import PayloadTooLarge, UnsupportedMediaType
+from ...scoring import SCORING_METHODS, score_night
+from ...tokens import Role
+from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, study_access
+from ..schemas import NightAccepted, NightIn, NightOut, Page, ScoringOut
+from .studies import Limit, Offset, ParticipantPath
+
+__all__ = ["NIGHT_MEDIA_TYPES", "parse_night", "router"]
+
+router = APIRouter(prefix="/v1/studies/{study}/participants/{pid}/nights", tags=["nights"])
+NightIdPath = Annotated[str, Path(pattern=r"^[0-9a-f]{1,64}$", description="night id")]
+
+#: content type -> reader format
+NIGHT_MEDIA_TYPES: dict[str, str] = {
+    "application/json": "json",
+    "text/csv": "csv",
+    "application/vnd.apache.parquet": "parquet",
+    "application/x-parquet": "parquet",
+}
+_INGEST_BODY = {
+    "required": True,
+    "content": {
+        "application/json": {"schema": NightIn.model_json_schema()},
+        "text/csv": {"schema": {"type": "string"},
+                     "example": "time,counts,reference\n2031-03-02T22:41:00+01:00,0,W\n"},
+        "application/vnd.apache.parquet": {"schema": {"type": "string", "format": "binary"}},
+    },
+}
+
+
+def parse_night(body: bytes, *, media_type: str, participant_id: str, tz: str | None = None,
+                fill_gaps: bool = False) -> tuple[Night, str]:
+    """Read a night from a request body of ``media_type``; returns the night and its format.
+
+    Raises
+    ------
+    UnsupportedMediaType
+        If the media type is not JSON, CSV or Parquet.
+    InvalidNightError
+        Listing every problem of the night.
+    """
+    fmt = NIGHT_MEDIA_TYPES.get(media_type)
+    if fmt is None:
+        raise UnsupportedMediaType(f"send the night as one of {', '.join(NIGHT_MEDIA_TYPES)}; got "
+                                   f"{media_type or 'no content type'!r}")
+    reader = {"json": night_from_json, "csv": night_from_csv, "parquet": night_from_parquet}[fmt]
+    options = NightOptions(tz=tz, fill_gaps=fill_gaps)
+    return reader(body, participant_id=participant_id, options=options), fmt  # type: ignore[operator]
+
+
+async def _read_body(request: Request, limit_bytes: int) -> bytes:
+    declared = request.headers.get("content-length")
+    if declared is not None and declared.isdigit() and int(declared) > limit_bytes:
+        raise PayloadTooLarge(f"the body is larger than the limit of {limit_bytes // 2**20} MB")
+    chunks, size = [], 0
+    async for chunk in request.stream():
+        size += len(chunk)
+        if size > limit_bytes:
+            raise PayloadTooLarge(f"the body is larger than the limit of {limit_bytes // 2**20} MB")
+        chunks.append(chunk)
+    return b"".join(chunks)
+
+
+@router.post("", status_code=201, response_model=NightAccepted, openapi_extra={"requestBody": _INGEST_BODY},
+             responses={200: {"model": NightAccepted, "description": "Same content stored before: its night id"},
+                        413: {"description": "Body too large"}, 415: {"description": "Unsupported media type"}})
+async def post_night(request: Request, access: Annotated[StudyAccess, Depends(study_access(Role.ingest))],
+                     pid: ParticipantPath, factory: FactoryDep, settings: SettingsDep,
+                     tz: Annotated[str | None, Query(max_length=64, description="IANA zone for naive times")] = None,
+                     fill_gaps: Annotated[bool, Query(description="accept whole-epoch gaps as missing")] = False,
+                     ) -> Any:
+    """Store a night (JSON, CSV or Parquet); the participant is created with its first night."""
+    body = await _read_body(request, int(settings.max_body_mb * 2**20))
+    media_type = request.headers.get("content-type", "").split(";")[0].strip().lower()
+
+    def work() -> tuple[registry.NightInfo, bool]:
+        night, fmt = parse_night(body, media_type=media_type, participant_id=pid, tz=tz, fill_gaps=fill_gaps)
+        values = registry.night_values(night, source_format=fmt)
+        for _ in range(3):  # a concurrent first night of the same participant may win the insert
+            try:
+                with session_scope(factory, write=True) as session:
+                    return registry.ingest_night(session, study_id=access.study_id, night=night, source_format=fmt,
+                                                 actor=access.actor, values=values)
+            except IntegrityError:
+                continue
+        raise AssertionError("night insert lost three races")  # pragma: no cover
+
+    info, created = await run_in_threadpool(work)
+    out = NightAccepted(night_id=info.night_id, created=created, qc=info.qc)  # type: ignore[arg-type]
+    return JSONResponse(out.model_dump(mode="json"), status_code=201 if created else 200)
+
+
+@router.get("", response_model=Page[NightOut])
+def list_nights(access: Annotated[StudyAccess, Depends(study_access(Role.ingest))], pid: ParticipantPath,
+                session: ReadSession, limit: Limit = 100, offset: Offset = 0) -> Any:
+    """A participant's nights in start order (metadata only)."""
+    items, total = registry.list_nights(session, study_id=access.study_id, participant_id=pid, limit=limit,
+                                       offset=offset)
+    return Page[NightOut](data=[NightOut(**vars(n)) for n in items], count=total, limit=limit, offset=offset)
+
+
+@router.get("/{night_id}", response_model=NightOut)
+def get_night(access: Annotated[StudyAccess, Depends(study_access(Role.ingest))], pid: ParticipantPath,
+              night_id: NightIdPath, session: ReadSession) -> Any:
+    """One night's metadata, QC flags and whether it is labelled."""
+    return NightOut(**vars(registry.get_night(session, study_id=access.study_id, participant_id=pid,
+                                              night_id=night_id)))
+
+
+@router.get("/{night_id}/scoring", response_model=ScoringOut,
+            responses={200: {"content": {"application/json": {"schema": {"$ref": "#/components/schemas/ScoringOut"}}}}})
+async def get_scoring(request: Request, access: Annotated[StudyAccess, Depends(study_access(Role.analyst))],
+                      pid: ParticipantPath,
+                      night_id: NightIdPath, factory: FactoryDep,
+                      method: Annotated[str, Query(description="auto, personal, pooled, pooled+offset or a rule id",
+                                                   json_schema_extra={"enum": list(SCORING_METHODS)})] = "auto",
+                      version: Annotated[int | None, Query(ge=1, le=10**9, description="model version")] = None,
+                      ) -> Response:
+    """Sleep/wake per epoch, sleep parameters and (for labelled nights) agreement with the reference."""
+    body = await run_in_threadpool(score_night, factory, study_id=access.study_id, participant_id=pid,
+                                   night_id=night_id, method=method, version=version,
+                                   writer=request.app.state.cache_writer)
+    return Response(content=body, media_type="application/json")

@@ -1,0 +1,45 @@
+"""Comparisons (per participant and study-wide) and parameter exports."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from fastapi import APIRouter, Depends, Query, Response
+from fastapi.concurrency import run_in_threadpool
+
+from ... import reports
+from ...tokens import Role
+from ..deps import FactoryDep, StudyAccess, study_access
+from .studies import ParticipantPath
+
+__all__ = ["router"]
+
+router = APIRouter(prefix="/v1/studies/{study}", tags=["reports"])
+AnalystAccess = Annotated[StudyAccess, Depends(study_access(Role.analyst))]
+
+
+@router.get("/participants/{pid}/comparison", response_model=dict[str, Any])
+async def participant_comparison(access: AnalystAccess, pid: ParticipantPath, factory: FactoryDep) -> Any:
+    """Held-out agreement of the personal, pooled and pooled+offset models and the rules for one participant."""
+    return await run_in_threadpool(reports.participant_comparison, factory, study_id=access.study_id,
+                                   participant_id=pid)
+
+
+@router.get("/comparison", response_model=dict[str, Any])
+async def study_comparison(access: AnalystAccess, factory: FactoryDep) -> Any:
+    """Study-wide held-out agreement per method and Bland-Altman per method and parameter."""
+    return await run_in_threadpool(reports.study_comparison, factory, study_id=access.study_id)
+
+
+@router.get("/exports/parameters", response_class=Response,
+            responses={200: {"content": {"text/csv": {"schema": {"type": "string"}},
+                                         "application/vnd.apache.parquet": {"schema": {"type": "string",
+                                                                                       "format": "binary"}}}}})
+async def export_parameters(access: AnalystAccess, factory: FactoryDep,
+                            format: Annotated[Literal["csv", "parquet"], Query()] = "csv") -> Response:  # noqa: A002
+    """Sleep parameters, one row per night and method (CSV or Parquet)."""
+    body = await run_in_threadpool(reports.export_parameters, factory, study_id=access.study_id, fmt=format)
+    media = "text/csv" if format == "csv" else "application/vnd.apache.parquet"
+    filename = f"{access.study_id}-parameters.{format}"
+    return Response(content=body, media_type=media,
+                    headers={"Content-Disposition": f'attachment; filename="{filename}"'})

@@ -1,0 +1,34 @@
+"""Health check (no token) and Prometheus metrics."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import PlainTextResponse
+from sqlalchemy import text
+
+from ...jobs import count_jobs_by_state
+from ...telemetry import render_prometheus
+from ...tokens import Principal, Role
+from ..deps import ReadSession, require_lab_role
+
+__all__ = ["router"]
+
+router = APIRouter(tags=["system"])
+
+
+@router.get("/healthz", response_model=dict[str, str])
+def healthz(session: ReadSession) -> dict[str, str]:
+    """Liveness and database reachability (no token needed)."""
+    session.execute(text("SELECT 1"))
+    return {"status": "ok"}
+
+
+@router.get("/metrics", response_class=PlainTextResponse,
+            responses={200: {"content": {"text/plain": {"schema": {"type": "string"}}}}})
+def metrics(request: Request, session: ReadSession,
+            _: Annotated[Principal, Depends(require_lab_role(Role.ingest))]) -> PlainTextResponse:
+    """Prometheus text: requests, latencies (this process) and jobs by state."""
+    body = render_prometheus(request.app.state.metrics, jobs_by_state=count_jobs_by_state(session))
+    return PlainTextResponse(body, media_type="text/plain; version=0.0.4")

@@ -1,0 +1,206 @@
+"""HTTP request and response shapes (Pydantic). Requests are strict and refuse unknown fields."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any, Generic, Literal, TypeVar
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from ..registry import ID_PATTERN
+
+__all__ = [
+    "JobAccepted", "JobOut", "ModelVersionOut", "NightAccepted", "NightIn", "NightOut", "Page", "ParticipantOut",
+    "Problem", "ProblemItem", "Progress", "QCFlagOut", "ScoringOut", "StudyIn", "StudyOut", "TokenIn",
+    "TokenCreated", "TokenOut", "TrainingIn",
+]
+
+T = TypeVar("T")
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(strict=True, extra="forbid", allow_inf_nan=False)
+
+
+# ---- problems -------------------------------------------------------------------------------
+class ProblemItem(BaseModel):
+    """One defect of the input: stable code, sentence, and where it is."""
+
+    code: str
+    message: str
+    location: dict[str, Any] = Field(default_factory=dict)
+
+
+class Problem(BaseModel):
+    """RFC 9457 problem details, plus a stable ``code`` and, for invalid input, every problem."""
+
+    type: str
+    title: str
+    status: int
+    detail: str
+    code: str
+    instance: str | None = None
+    problems: list[ProblemItem] | None = None
+    request_id: str | None = None
+
+
+class Page(BaseModel, Generic[T]):
+    """One page of a listing and the total number of items."""
+
+    data: list[T]
+    count: int
+    limit: int
+    offset: int
+
+
+# ---- studies and participants ---------------------------------------------------------------
+class StudyIn(_Strict):
+    study_id: str = Field(pattern=ID_PATTERN, examples=["gullwing"])
+    name: str = Field(min_length=1, max_length=200)
+
+
+class StudyOut(BaseModel):
+    study_id: str
+    name: str
+    created_at: datetime
+
+
+class ParticipantOut(BaseModel):
+    participant_id: str
+    created_at: datetime
+    n_nights: int
+    n_labelled_nights: int
+    chosen_method: str | None = Field(description="personal or pooled once a personal model was compared")
+    active_personal_version: int | None
+    untrained_labelled_nights: int = Field(
+        description="labelled nights the active personal model was not trained on: a retrain would use them")
+    retrain_would_add_nights: bool
+
+
+# ---- nights ---------------------------------------------------------------------------------
+class NightIn(_Strict):
+    """A night in nightbank JSON (also accepted as text/csv or Parquet with the same columns)."""
+
+    epoch_seconds: Literal[15, 30, 60]
+    start: str = Field(description="ISO 8601 start of the first epoch with UTC offset",
+                       examples=["2031-03-02T22:41:00+01:00"])
+    counts: list[float | None] = Field(min_length=1, description="activity counts, one per epoch")
+    reference: list[str | int | None] | None = Field(default=None, description="PSG stage per epoch")
+    lights_off: str | None = None
+    lights_on: str | None = None
+    label: str | None = None
+
+
+class QCFlagOut(BaseModel):
+    code: str
+    message: str
+    ranges: list[list[int]]
+    n_epochs: int
+    threshold: dict[str, Any]
+
+
+class NightAccepted(BaseModel):
+    night_id: str
+    created: bool = Field(description="false when the same content was already stored")
+    qc: list[QCFlagOut]
+
+
+class NightOut(BaseModel):
+    night_id: str
+    participant_id: str
+    content_hash: str
+    label: str | None
+    start: str
+    epoch_seconds: int
+    n_epochs: int
+    lights_off: str | None
+    lights_on: str | None
+    labelled: bool
+    qc: list[QCFlagOut]
+    source_format: str
+    created_at: datetime
+
+
+# ---- training, jobs and versions ------------------------------------------------------------
+class TrainingIn(_Strict):
+    n_trials: int | None = Field(default=None, ge=1, le=1000, description="hyper-parameter trials")
+    seed: int | None = Field(default=None, ge=0, le=2**31 - 1)
+
+
+class JobAccepted(BaseModel):
+    job_id: str
+    state: str
+    created: bool = Field(description="false when a training of the same target was already queued or running")
+
+
+class Progress(BaseModel):
+    done: int
+    total: int
+    stage: str
+
+
+class JobOut(BaseModel):
+    job_id: str
+    kind: str
+    study_id: str
+    participant_id: str | None
+    state: Literal["queued", "running", "succeeded", "failed", "cancelled"]
+    progress: Progress
+    error: str | None
+    result: dict[str, Any] | None
+    attempts: int
+    created_at: datetime
+    started_at: datetime | None
+    finished_at: datetime | None
+
+
+class ModelVersionOut(BaseModel):
+    version: int
+    kind: str
+    active: bool
+    status: Literal["active", "candidate"]
+    created_at: datetime
+    job_id: str | None
+    n_training_nights: int
+    metrics: dict[str, Any] = Field(description="held-out validation figures")
+    threshold: float | None
+    offset: float | None
+    feature_set_version: str | None
+    hyperparameters: dict[str, Any]
+    library_versions: dict[str, str]
+    training_nights: list[dict[str, Any]]
+
+
+# ---- scoring --------------------------------------------------------------------------------
+class ScoringOut(BaseModel):
+    method: str = Field(description="the method that produced the scoring (auto resolved)")
+    model_version: int | None
+    epoch_seconds: int
+    start: str
+    n_epochs: int
+    in_bed: list[int] = Field(description="[first, stop) epoch indices of the in-bed interval")
+    p_sleep: list[float | None] | None = Field(description="probability of sleep per epoch; null for rules")
+    sleep: list[int]
+    parameters: dict[str, float | int | None]
+    agreement: dict[str, Any] | None
+    offset: float | None = Field(default=None, description="log-odds offset applied (model methods)")
+
+
+# ---- tokens ---------------------------------------------------------------------------------
+class TokenIn(_Strict):
+    role: Literal["ingest", "analyst", "admin"]
+    study_id: str | None = Field(default=None, pattern=ID_PATTERN)
+    label: str | None = Field(default=None, max_length=200)
+
+
+class TokenOut(BaseModel):
+    token_id: str
+    role: str
+    study_id: str | None
+    label: str | None
+    created_at: datetime
+    revoked_at: datetime | None
+
+
+class TokenCreated(TokenOut):
+    token: str = Field(description="the bearer token; shown once, only its salted hash is stored")

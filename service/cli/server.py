@@ -1,0 +1,130 @@
+"""Commands that run the service on this machine: ``serve``, ``worker``, ``migrate``."""
+
+from __future__ import annotations
+
+import logging.config
+import os
+from typing import Annotated, Any
+
+import typer
+
+from models import NightbankError
+
+from . import app
+from .console import console, err_console
+
+__all__ = ["DbOption", "configure_logging", "fail", "local_settings"]
+
+DbOption = Annotated[str | None, typer.Option("--db", help="Database URL (default NIGHTBANK_DB or "
+                                                          "sqlite:///./var/nightbank.db).")]
+
+
+def fail(exc: NightbankError) -> typer.Exit:
+    """Print a typed error without traceback; the caller raises the returned exit (code 1)."""
+    err_console.print(f"[bold red]error[/bold red] ({exc.code}): {exc}")
+    return typer.Exit(1)
+
+
+def local_settings(**overrides: Any) -> Any:
+    """Settings from the environment with the given command-line values on top (None = not given)."""
+    from ..config import Settings
+
+    return Settings(**{k: v for k, v in overrides.items() if v is not None})
+
+
+def log_config(level: str) -> dict[str, Any]:
+    """Logging configuration: one line per record on stderr; uvicorn's access log stays off."""
+    handler = {"class": "logging.StreamHandler", "formatter": "plain", "stream": "ext://sys.stderr"}
+    return {
+        "version": 1, "disable_existing_loggers": False,
+        "formatters": {"plain": {"format": "%(asctime)s %(levelname)s %(name)s: %(message)s"}},
+        "handlers": {"stderr": handler},
+        "loggers": {name: {"handlers": ["stderr"], "level": level.upper(), "propagate": False}
+                    for name in ("nightbank", "uvicorn", "uvicorn.error")},
+    }
+
+
+def configure_logging(level: str) -> None:
+    """Apply :func:`log_config` to this process."""
+    logging.config.dictConfig(log_config(level))
+
+
+@app.command()
+def migrate(db: DbOption = None,
+            revision: Annotated[str, typer.Option(help="Target revision (default: the newest).")] = "head") -> None:
+    """Create or upgrade the database schema (safe to run again)."""
+    from ..migration import upgrade
+
+    settings = local_settings(db=db)
+    upgrade(settings, revision)
+    console.print(f"database at revision [bold]{revision}[/bold]: {_safe_url(settings.db)}")
+
+
+def _safe_url(url: str) -> str:
+    """The URL without a password."""
+    from sqlalchemy.engine import make_url
+
+    return make_url(url).render_as_string(hide_password=True)
+
+
+@app.command()
+def serve(
+    host: Annotated[str | None, typer.Option(help="Address to bind (default 127.0.0.1).")] = None,
+    port: Annotated[int | None, typer.Option(help="Port (default 8765).")] = None,
+    db: DbOption = None,
+    workers: Annotated[int | None, typer.Option(min=1, help="HTTP worker processes (default 1).")] = None,
+    job_workers: Annotated[int | None, typer.Option(min=0, help="Training worker processes (default 1).")] = None,
+    migrate_first: Annotated[bool, typer.Option("--migrate/--no-migrate",
+                                                help="Upgrade the database before starting.")] = True,
+) -> None:
+    """Run the HTTP API with its training workers until Ctrl-C."""
+    import uvicorn
+
+    from ..config import get_settings
+    from ..db import make_engine
+    from ..migration import check_schema, upgrade
+    from ..workers import settings_env, start_worker_processes, stop_worker_processes
+
+    settings = local_settings(host=host, port=port, db=db, workers=workers, job_workers=job_workers)
+    if migrate_first and settings.auto_migrate:
+        upgrade(settings)
+    engine = make_engine(settings)
+    try:
+        check_schema(engine)  # fail fast, with the fix in the message, before starting any process
+    except NightbankError as exc:
+        raise fail(exc) from None
+    finally:
+        engine.dispose()
+    os.environ.update(settings_env(settings))  # the app factory and the workers read these
+    get_settings.cache_clear()
+    processes = start_worker_processes(settings, settings.job_workers)
+    console.print(f"nightbank on http://{settings.host}:{settings.port} (docs /docs), {settings.workers} HTTP "
+                  f"worker(s), {settings.job_workers} training worker(s); database {_safe_url(settings.db)}")
+    try:
+        uvicorn.run("service.app:app_from_env", factory=True, host=settings.host, port=settings.port,
+                    workers=settings.workers, access_log=False, log_config=log_config(settings.log_level))
+    finally:
+        stop_worker_processes(processes)
+
+
+@app.command()
+def worker(db: DbOption = None) -> None:
+    """Run one more training worker in the foreground (same database as the server)."""
+    import signal
+
+    from ..db import make_engine, make_session_factory
+    from ..migration import check_schema
+    from ..workers import Worker
+
+    settings = local_settings(db=db)
+    configure_logging(settings.log_level)
+    engine = make_engine(settings)
+    try:
+        check_schema(engine)
+    except NightbankError as exc:
+        raise fail(exc) from None
+    w = Worker(settings, factory=make_session_factory(engine))
+    for sig in (signal.SIGTERM, signal.SIGINT):
+        signal.signal(sig, lambda *_: w.stopping.set())
+    console.print(f"worker {w.worker_id} waiting for training jobs (Ctrl-C to stop)")
+    w.run_forever()

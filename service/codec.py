@@ -1,0 +1,113 @@
+"""Compact storage of a night's arrays, and of the held-out predictions kept with a model version.
+
+Counts are stored as zlib-compressed little-endian float64 bytes (NaN kept for filled gaps), so
+the rebuilt :class:`models.Night` has the same content hash as the one posted; reference labels
+as zlib-compressed text, one canonical code per epoch separated by ``\\x1f``. Held-out
+predictions (:class:`models.HeldOutNight`) are a compressed NumPy archive read without pickle:
+one JSON entry with the scalar fields, and the arrays of each night.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import zlib
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from models import HeldOutNight, Night
+
+from . import db
+
+__all__ = ["decode_counts", "decode_held_out", "decode_reference", "encode_counts", "encode_held_out",
+           "encode_reference", "night_columns", "night_from_row"]
+
+_SEP = "\x1f"
+
+
+def encode_counts(counts: np.ndarray) -> bytes:
+    """Counts of shape (n_epochs,) -> compressed bytes."""
+    return zlib.compress(np.ascontiguousarray(counts, dtype="<f8").tobytes(), 1)
+
+
+def decode_counts(blob: bytes) -> np.ndarray:
+    """Compressed bytes -> counts, float64 of shape (n_epochs,)."""
+    return np.frombuffer(zlib.decompress(blob), dtype="<f8").astype(np.float64)
+
+
+def encode_reference(reference: np.ndarray) -> bytes:
+    """Canonical stage codes of shape (n_epochs,) -> compressed bytes."""
+    return zlib.compress(_SEP.join(reference.tolist()).encode(), 1)
+
+
+def decode_reference(blob: bytes) -> np.ndarray:
+    """Compressed bytes -> canonical stage codes of shape (n_epochs,)."""
+    return np.array(zlib.decompress(blob).decode().split(_SEP), dtype="<U3")
+
+
+def _iso(ts: pd.Timestamp | None) -> str | None:
+    return None if ts is None else pd.Timestamp(ts).isoformat()
+
+
+def night_columns(night: Night) -> dict[str, Any]:
+    """Column values of a ``nights`` row for ``night`` (arrays encoded)."""
+    return {
+        "content_hash": night.content_hash,
+        "night_id": night.content_hash[:20],
+        "label": night.label,
+        "start": _iso(night.start),
+        "start_utc": night.start.tz_convert("UTC").to_pydatetime(),
+        "epoch_seconds": int(night.epoch_seconds),
+        "n_epochs": night.n_epochs,
+        "lights_off": _iso(night.lights_off),
+        "lights_on": _iso(night.lights_on),
+        "labelled": night.has_reference,
+        "counts": encode_counts(night.counts),
+        "reference": None if night.reference is None else encode_reference(night.reference),
+    }
+
+
+def night_from_row(row: db.Night, *, participant_id: str) -> Night:
+    """Rebuild the :class:`models.Night` stored in ``row``."""
+    def ts(text: str | None) -> pd.Timestamp | None:
+        return None if text is None else pd.Timestamp(text)
+
+    return Night(participant_id=participant_id, start=pd.Timestamp(row.start), epoch_seconds=row.epoch_seconds,
+                 counts=decode_counts(row.counts),
+                 reference=None if row.reference is None else decode_reference(row.reference),
+                 lights_off=ts(row.lights_off), lights_on=ts(row.lights_on), label=row.label)
+
+
+_ARRAYS = ("p_sleep", "sleep", "reference", "margin")
+
+
+def encode_held_out(nights: Sequence[HeldOutNight]) -> bytes:
+    """Held-out predictions -> bytes (``np.savez_compressed``, no object arrays)."""
+    meta = [{"participant_id": h.participant_id, "night_hash": h.night_hash, "label": h.label, "method": h.method,
+             "in_bed": [int(h.in_bed[0]), int(h.in_bed[1])], "threshold": float(h.threshold),
+             "offset": float(h.offset)} for h in nights]
+    arrays: dict[str, np.ndarray] = {"meta": np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)}
+    for i, h in enumerate(nights):
+        for name in _ARRAYS:
+            value = getattr(h, name)
+            if value is not None:
+                arrays[f"{i}.{name}"] = np.asarray(value)
+    buffer = io.BytesIO()
+    np.savez_compressed(buffer, **arrays)
+    return buffer.getvalue()
+
+
+def decode_held_out(blob: bytes) -> list[HeldOutNight]:
+    """Bytes from :func:`encode_held_out` -> held-out predictions."""
+    with np.load(io.BytesIO(blob), allow_pickle=False) as archive:
+        meta = json.loads(archive["meta"].tobytes())
+        out = []
+        for i, m in enumerate(meta):
+            arrays = {name: archive[f"{i}.{name}"] if f"{i}.{name}" in archive else None for name in _ARRAYS}
+            out.append(HeldOutNight(participant_id=m["participant_id"], night_hash=m["night_hash"], label=m["label"],
+                                    method=m["method"], in_bed=(m["in_bed"][0], m["in_bed"][1]),
+                                    threshold=m["threshold"], offset=m["offset"], **arrays))
+    return out

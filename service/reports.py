@@ -1,0 +1,285 @@
+"""Reports: per-participant and study-wide comparisons, and the parameter export.
+
+Comparisons use the held-out predictions stored with the *active* model versions (so a model is
+never judged on nights it was trained on), set next to the classical rules
+(:data:`models.COMPARED_RULES`, default options), the always-sleep baseline and the PSG reference
+on the same labelled nights, as :func:`models.compare_study` does when it trains everything at
+once. Metrics come from :func:`models.agreement_table`, parameters from
+:func:`models.sleep_parameters` (the reference's unscored epochs masked on both sides) and
+Bland-Altman statistics from :func:`models.bland_altman_table`. A comparison is kept in memory
+until its nights or the active versions change.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import math
+import threading
+from collections import OrderedDict
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import select
+from sqlalchemy.orm import Session, sessionmaker
+
+from models import (
+    ALWAYS_SLEEP,
+    COMPARED_RULES,
+    EPOCH_METRIC_NAMES,
+    METHOD_IDS,
+    PARAMETER_NAMES,
+    REFERENCE,
+    HeldOutNight,
+    Night,
+    ScoredNight,
+    TrainingConfig,
+    agreement_table,
+    always_sleep,
+    bland_altman_table,
+    score_with_rule,
+    sleep_parameters,
+)
+
+from . import db, versions
+from .codec import night_from_row
+from .registry import find_participant, find_study, load_nights
+from .scoring import MODEL_METHODS, score_night
+
+__all__ = ["EXPORT_METHODS", "export_parameters", "participant_comparison", "study_comparison"]
+
+#: Methods of the parameter export besides the reference (model methods only when trained).
+EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, "personal", "pooled", "pooled+offset")
+
+
+def _finite(value: Any) -> Any:
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    return value
+
+
+def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv") -> bytes:
+    """Sleep parameters of every night, one row per night and method, as CSV or Parquet bytes.
+
+    Methods: ``reference`` (labelled nights), every rule, and the personal, pooled and
+    pooled+offset models where an active version exists. Model rows name their version.
+    """
+    with db.session_scope(factory) as session:
+        study = find_study(session, study_id)
+        pooled = versions.active_version(session, study=study, participant=None)
+        targets = []
+        for participant in session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)
+                                           .order_by(db.Participant.participant_id)):
+            personal = versions.active_version(session, study=study, participant=participant)
+            for row in session.scalars(select(db.Night).where(db.Night.participant_pk == participant.pk)
+                                       .order_by(db.Night.start_utc)):
+                targets.append((participant.participant_id, row.night_id, row.label, row.start, personal is not None,
+                                night_from_row(row, participant_id=participant.participant_id)))
+    rows: list[dict[str, Any]] = []
+    for pid, night_id, label, start, has_personal, night in targets:
+        ids = {"study_id": study_id, "participant_id": pid, "night_id": night_id, "label": label, "start": start}
+        reference = night.reference_sleep()
+        if reference is not None and night.has_reference:
+            first, stop = night.in_bed
+            params = sleep_parameters(reference, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop)
+            rows.append(ids | {"method": "reference", "model_version": None}
+                        | {k: _finite(v) for k, v in params.as_dict().items() if k in PARAMETER_NAMES})
+        for method in EXPORT_METHODS:
+            if (method == "personal" and not has_personal) or (method.startswith("pooled") and pooled is None):
+                continue
+            body = json.loads(score_night(factory, study_id=study_id, participant_id=pid, night_id=night_id,
+                                          method=method))
+            rows.append(ids | {"method": method, "model_version": body["model_version"]}
+                        | {k: body["parameters"].get(k) for k in PARAMETER_NAMES})
+    frame = pd.DataFrame(rows, columns=["study_id", "participant_id", "night_id", "label", "start", "method",
+                                        "model_version", *PARAMETER_NAMES])
+    frame["model_version"] = frame["model_version"].astype("Int64")
+    if fmt == "csv":
+        return frame.to_csv(index=False).encode()
+    buffer = io.BytesIO()
+    frame.to_parquet(buffer, index=False)
+    return buffer.getvalue()
+
+
+def _held_out(session: Session, study: db.Study) -> tuple[dict[str, dict[str, dict[str, HeldOutNight]]],
+                                                          dict[str, int | None]]:
+    """Held-out predictions of the active versions: participant -> night hash -> method -> night."""
+    out: dict[str, dict[str, dict[str, HeldOutNight]]] = {}
+    pooled = versions.active_version(session, study=study, participant=None)
+    used: dict[str, int | None] = {"pooled": None if pooled is None else pooled.version}
+    found = [] if pooled is None else versions.load_held_out(session, pooled)
+    for participant in session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)):
+        personal = versions.active_version(session, study=study, participant=participant)
+        if personal is not None:
+            used[f"personal:{participant.participant_id}"] = personal.version
+            found += versions.load_held_out(session, personal)
+    for h in found:
+        out.setdefault(h.participant_id, {}).setdefault(h.night_hash, {})[h.method] = h
+    return out, used
+
+
+def _fingerprint(session: Session, study: db.Study, participant_id: str | None) -> str:
+    """Changes whenever the nights or the active versions behind a comparison change."""
+    query = (select(db.Participant.participant_id, db.Night.content_hash)
+             .join(db.Night, db.Night.participant_pk == db.Participant.pk)
+             .where(db.Participant.study_pk == study.pk, db.Night.labelled))
+    if participant_id is not None:
+        query = query.where(db.Participant.participant_id == participant_id)
+    nights = sorted(f"{p}/{h}" for p, h in session.execute(query))
+    active = sorted(session.scalars(select(db.ModelVersion.uid).where(db.ModelVersion.study_pk == study.pk,
+                                                                      db.ModelVersion.is_active)))
+    return hashlib.sha256(json.dumps([study.study_id, participant_id, nights, active]).encode()).hexdigest()
+
+
+def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
+    return [{k: _finite(v) if isinstance(v, float) else v for k, v in row.items()}
+            for row in frame.astype(object).where(frame.notna(), None).to_dict(orient="records")]
+
+
+def _participant_summary(table: pd.DataFrame, participant_id: str) -> list[dict[str, Any]]:
+    """Per method: nights compared and the mean and SD over nights of every epoch metric."""
+    rows = table[(table["level"] == "participant") & (table["participant_id"] == participant_id)]
+    out = []
+    for method, stats in rows.groupby("method", sort=False):
+        mean, sd = (stats[stats["statistic"] == k].iloc[0] for k in ("mean", "sd"))
+        out.append({"method": method, "n_nights": int(mean["n_nights"])}
+                   | {m: {"mean": _finite(float(mean[m])), "sd": _finite(float(sd[m]))} for m in EPOCH_METRIC_NAMES})
+    return out
+
+
+def _night_summary(night_rows: pd.DataFrame) -> list[dict[str, Any]]:
+    """Per method: nights compared and the mean and SD (ddof=1) over all those nights of every metric."""
+    out = []
+    for method, rows in night_rows.groupby("method", sort=False):
+        values = rows[list(EPOCH_METRIC_NAMES)].astype(float)
+        out.append({"method": method, "n_nights": int(len(rows))}
+                   | {m: {"mean": _finite(float(values[m].mean())), "sd": _finite(float(values[m].std(ddof=1)))}
+                      for m in EPOCH_METRIC_NAMES})
+    return out
+
+
+def _pooled_summary(table: pd.DataFrame) -> list[dict[str, Any]]:
+    """Per method: nights compared and every epoch metric over all their epochs together."""
+    rows = table[table["level"] == "pooled"]
+    return [{"method": r["method"], "n_nights": int(r["n_nights"]), "n_epochs": int(r["n_epochs"])}
+            | {m: _finite(float(r[m])) for m in EPOCH_METRIC_NAMES} for _, r in rows.iterrows()]
+
+
+def _assemble(nights: dict[str, list[Night]], held_out: dict[str, dict[str, dict[str, HeldOutNight]]]
+              ) -> tuple[pd.DataFrame, pd.DataFrame, list[str]]:
+    """Epoch metrics (:func:`models.agreement_table`), parameters per night and method, and notes."""
+    movement_time = TrainingConfig().movement_time
+    scored: list[ScoredNight] = []
+    rows: list[dict[str, Any]] = []
+    notes: list[str] = []
+    for pid, labelled in nights.items():
+        missing: set[str] = set()
+        for night in labelled:
+            first, stop = night.in_bed
+            reference = night.reference_sleep(movement_time=movement_time)
+            models_here = held_out.get(pid, {}).get(night.content_hash, {})
+            sides: list[tuple[str, Any, Any]] = [(REFERENCE, reference, None)]
+            for method in MODEL_METHODS:
+                if method in models_here:
+                    sides.append((method, models_here[method].sleep, models_here[method].p_sleep))
+                else:
+                    missing.add(method)
+            for method in COMPARED_RULES:
+                rule = score_with_rule(night.counts, night.epoch_seconds, method)
+                sides.append((method, rule.sleep, rule.score))
+            sides.append((ALWAYS_SLEEP, always_sleep(reference), None))
+            unscored = np.isnan(reference)
+            ids = {"participant_id": pid, "night_id": night.content_hash[:20]}
+            for method, sleep, score in sides:
+                params = sleep_parameters(np.where(unscored, np.nan, sleep), night.epoch_seconds, lights_off_idx=first,
+                                          lights_on_idx=stop)
+                rows.append(ids | {"method": method} | params.as_dict())
+                if method != REFERENCE:
+                    scored.append(ScoredNight(participant_id=pid, night_id=ids["night_id"], method=method,
+                                              reference=reference[first:stop], predicted=sleep[first:stop],
+                                              score=None if score is None else score[first:stop]))
+        if missing:
+            notes.append(f"{pid}: no held-out {', '.join(sorted(missing))} figures for some or all labelled nights "
+                         "(model not trained, too few labelled nights, or nights added after training)")
+    parameters = pd.DataFrame(rows, columns=["participant_id", "night_id", "method", *PARAMETER_NAMES,
+                                             "sleep_onset_idx", "final_awakening_idx"])
+    return agreement_table(scored), parameters, notes
+
+
+def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str | None) -> dict[str, Any]:
+    with db.session_scope(factory) as session:
+        study = find_study(session, study_id)
+        participants = list(session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)
+                                            .order_by(db.Participant.participant_id)))
+        if participant_id is not None:
+            participants = [find_participant(session, study, participant_id)]
+        key = _fingerprint(session, study, participant_id)
+        with _CACHE_LOCK:
+            if key in _CACHE:
+                return _CACHE[key]
+        held_out, used = _held_out(session, study)
+        nights = {p.participant_id: load_nights(session, participant=p, labelled_only=True) for p in participants}
+        choices = {p.participant_id: (p.chosen_method, (p.choice or {}).get("reason")) for p in participants}
+    epoch_metrics, parameters, notes = _assemble(nights, held_out)
+    night_rows = epoch_metrics[epoch_metrics["level"] == "night"]
+    result = {
+        "study_id": study_id,
+        "model_versions": used,
+        "summary": _night_summary(night_rows),
+        "pooled_epochs": _pooled_summary(epoch_metrics),
+        "participants": [{"participant_id": pid, "n_labelled_nights": len(nights[pid]),
+                          "chosen_method": choices[pid][0], "choice_reason": choices[pid][1],
+                          "summary": _participant_summary(epoch_metrics, pid)} for pid in nights],
+        "nights": _records(night_rows.drop(columns=["level", "statistic", "n_nights"])),
+        "parameters": _records(parameters),
+        "bland_altman": _records(bland_altman_table(parameters)),
+        "notes": notes,
+    }
+    with _CACHE_LOCK:
+        _CACHE[key] = result
+        while len(_CACHE) > 64:
+            _CACHE.popitem(last=False)
+    return result
+
+
+_CACHE: OrderedDict[str, dict[str, Any]] = OrderedDict()
+_CACHE_LOCK = threading.Lock()
+
+
+def participant_comparison(factory: sessionmaker[Session], *, study_id: str, participant_id: str) -> dict[str, Any]:
+    """Held-out comparison of one participant's methods on their labelled nights.
+
+    Returns
+    -------
+    comparison : dict
+        ``participant_id``, ``chosen_method`` and ``choice_reason``, ``n_labelled_nights``,
+        ``model_versions`` (active versions used), ``summary`` (per method: nights compared and
+        mean/SD over nights of every epoch metric), ``nights`` (per night and method),
+        ``bland_altman`` (this participant's nights only) and ``notes``.
+    """
+    out = _compare(factory, study_id, participant_id)
+    mine = out["participants"][0]
+    return {"participant_id": participant_id, "chosen_method": mine["chosen_method"],
+            "choice_reason": mine["choice_reason"], "n_labelled_nights": mine["n_labelled_nights"],
+            "model_versions": {k: v for k, v in out["model_versions"].items()
+                               if k == "pooled" or k == f"personal:{participant_id}"},
+            "summary": mine["summary"], "nights": out["nights"], "bland_altman": out["bland_altman"],
+            "notes": out["notes"]}
+
+
+def study_comparison(factory: sessionmaker[Session], *, study_id: str) -> dict[str, Any]:
+    """Study-wide held-out comparison per method and participant; Bland-Altman per method and parameter.
+
+    Returns
+    -------
+    comparison : dict
+        ``summary`` (per method: mean/SD over all held-out nights of every epoch metric),
+        ``pooled_epochs`` (per method, every metric over all held-out epochs together),
+        ``participants`` (per participant: chosen method and the mean/SD over nights per
+        method), ``nights`` (epoch metrics per night and method), ``parameters`` (sleep
+        parameters per night and method), ``bland_altman`` (one row per method and parameter:
+        n, bias, limits of agreement and their CIs, ...), ``model_versions`` and ``notes``.
+    """
+    return _compare(factory, study_id, None)

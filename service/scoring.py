@@ -1,0 +1,268 @@
+"""Scoring a stored night with a rule or a model version, with a cache of results.
+
+Methods (the ``method`` query parameter):
+
+- ``auto``: the participant's chosen method: ``personal`` if a personal model was trained, chosen
+  and is active, else ``pooled+offset``;
+- ``personal``: the participant's active personal model (or ``version``);
+- ``pooled``: the study's active pooled model (or ``version``) without participant offset;
+- ``pooled+offset``: the pooled model plus the participant's offset (0 for a participant without
+  labelled nights when the pooled model was trained);
+- any classical rule id of :data:`models.METHOD_IDS` (``cole-kripke``, ``sadeh``,
+  ``count-threshold``, each also ``+webster``).
+
+Pooled models also take the participant's descriptors: those used in training for participants
+the model saw, otherwise computed from all the participant's current nights.
+
+Each result is stored (zlib-compressed JSON) under the night and a key naming the rule, or the
+model version's uid plus the participant inputs (offset, descriptors); a repeat request returns the
+stored body. The stored row records the model version that produced it.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import threading
+import zlib
+from collections import OrderedDict
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from sqlalchemy import select
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session, sessionmaker
+
+from models import (
+    BLAND_ALTMAN_PARAMETERS,
+    METHOD_IDS,
+    PARAMETER_NAMES,
+    FeatureMatrix,
+    Night,
+    epoch_agreement,
+    participant_descriptors,
+    score_with_rule,
+    sleep_parameters,
+)
+
+from . import db, versions
+from .cachewriter import CacheWriter
+from .codec import night_from_row
+from .errors import BadRequest, NotFound, Unprocessable
+from .featurestore import features_row, load_features, night_features
+from .registry import find_participant, find_study
+
+__all__ = ["MODEL_METHODS", "SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
+
+MODEL_METHODS = ("personal", "pooled", "pooled+offset")
+SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
+
+
+@dataclass(frozen=True)
+class _Resolved:
+    method: str
+    version: versions.VersionInfo | None
+
+
+def _finite(value: Any) -> Any:
+    if isinstance(value, float | np.floating):
+        return float(value) if math.isfinite(value) else None
+    if isinstance(value, np.integer):
+        return int(value)
+    return value
+
+
+def _clean(d: dict[str, Any]) -> dict[str, Any]:
+    return {k: _finite(v) for k, v in d.items()}
+
+
+def resolve_method(session: Session, *, study: db.Study, participant: db.Participant, method: str,
+                   version: int | None) -> _Resolved:
+    """The concrete method and model version a request means.
+
+    Raises
+    ------
+    BadRequest
+        If the method is unknown, or ``version`` is given for a rule or ``auto``.
+    Unprocessable
+        If the needed model has not been trained (code ``no_model``).
+    """
+    if method not in SCORING_METHODS:
+        raise BadRequest(f"unknown method {method!r}; choose one of {', '.join(SCORING_METHODS)}")
+    if version is not None and method not in MODEL_METHODS:
+        raise BadRequest("version applies to the personal, pooled and pooled+offset methods only")
+    if method in METHOD_IDS:
+        return _Resolved(method, None)
+    if method == "auto":
+        personal = versions.active_version(session, study=study, participant=participant)
+        if personal is not None and participant.chosen_method == "personal":
+            return _Resolved("personal", personal)
+        method = "pooled+offset"
+    owner = participant if method == "personal" else None
+    if version is not None:
+        return _Resolved(method, versions.get_version(session, study=study, participant=owner, version=version))
+    found = versions.active_version(session, study=study, participant=owner)
+    if found is None:
+        what = "personal model for this participant" if owner else "pooled model for this study"
+        raise Unprocessable(f"no active {what}; train one first", code="no_model")
+    return _Resolved(method, found)
+
+
+_DESCRIPTORS: OrderedDict[tuple[int, str], dict[str, float]] = OrderedDict()
+_DESCRIPTORS_LOCK = threading.Lock()
+
+
+def _descriptors(session: Session, participant: db.Participant) -> dict[str, float]:
+    """Participant descriptors over all their nights (cached per set of nights)."""
+    hashes = sorted(session.scalars(select(db.Night.content_hash).where(db.Night.participant_pk == participant.pk)))
+    key = (participant.pk, hashlib.sha1("".join(hashes).encode()).hexdigest())
+    with _DESCRIPTORS_LOCK:
+        if key in _DESCRIPTORS:
+            return _DESCRIPTORS[key]
+    rows = session.scalars(select(db.Night).where(db.Night.participant_pk == participant.pk))
+    found = participant_descriptors([night_from_row(r, participant_id=participant.participant_id) for r in rows])
+    with _DESCRIPTORS_LOCK:
+        _DESCRIPTORS[key] = found
+        while len(_DESCRIPTORS) > 1024:
+            _DESCRIPTORS.popitem(last=False)
+    return found
+
+
+def compute_scoring(night: Night, *, method: str, model: Any = None, version: int | None = None,
+                    offset: float = 0.0, descriptors: dict[str, float] | None = None,
+                    features: FeatureMatrix | None = None) -> dict[str, Any]:
+    """Score one night and build the response body (pure computation, no database).
+
+    Parameters
+    ----------
+    night : Night
+    method : str
+        Concrete method (a rule id, ``personal``, ``pooled`` or ``pooled+offset``).
+    model : SleepModel, optional
+        Required for the model methods.
+    version : int, optional
+        The model's version number, recorded in the body.
+    offset : float, default=0.0
+        Participant offset in log-odds (``pooled+offset``).
+    descriptors : dict, optional
+        Participant descriptors (pooled models).
+    features : FeatureMatrix, optional
+        The night's stored features for the model's feature set (computed when None).
+
+    Returns
+    -------
+    body : dict
+        ``method``, ``model_version``, ``epoch_seconds``, ``start``, ``n_epochs``, ``in_bed``,
+        ``p_sleep`` (None for rules), ``sleep`` (1 = sleep), ``parameters`` over the in-bed
+        epochs, ``agreement`` with the reference (None without one: epoch metrics, the
+        reference's parameters, and method - reference differences with the reference's
+        unscored epochs masked) and, for models, ``offset``. NaN values are None.
+    """
+    first, stop = night.in_bed
+    if model is None:
+        rule = score_with_rule(night.counts, night.epoch_seconds, method)
+        sleep, p_sleep, score = rule.sleep, None, rule.score
+    else:
+        p_sleep = model.predict_proba(night, offset=offset, descriptors=descriptors, features=features)
+        sleep = (p_sleep >= model.threshold_).astype(np.int8)
+        score = p_sleep
+    params = sleep_parameters(sleep, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop).as_dict()
+    agreement = None
+    reference = night.reference_sleep()
+    if reference is not None and night.has_reference:
+        bed = slice(first, stop)
+        masked = np.where(np.isnan(reference), np.nan, sleep.astype(np.float64))
+        ref_params = sleep_parameters(reference, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop)
+        own_params = sleep_parameters(masked, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop)
+        ref_d, own_d = ref_params.as_dict(), own_params.as_dict()
+        agreement = {
+            "epochs": _clean(epoch_agreement(reference[bed], sleep[bed],
+                                             score=None if score is None else score[bed])),
+            "reference_parameters": _clean({k: ref_d[k] for k in PARAMETER_NAMES}),
+            "differences": _clean({k: own_d[k] - ref_d[k] for k in BLAND_ALTMAN_PARAMETERS}),
+        }
+    body = {
+        "method": method, "model_version": version,
+        "epoch_seconds": int(night.epoch_seconds), "start": night.start.isoformat(), "n_epochs": night.n_epochs,
+        "in_bed": [int(first), int(stop)],
+        "p_sleep": None if p_sleep is None else np.round(p_sleep, 5).tolist(),
+        "sleep": sleep.astype(int).tolist(),
+        "parameters": _clean(params),
+        "agreement": agreement,
+    }
+    if model is not None:
+        body["offset"] = float(offset)
+    return body
+
+
+def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id: str, night_id: str, method: str,
+                version: int | None = None, writer: CacheWriter | None = None) -> bytes:
+    """JSON body of a night's scoring, from the cache or computed (and then cached).
+
+    With a ``writer`` the new cache rows (scoring, features) are stored in the background;
+    without, before returning.
+
+    Raises
+    ------
+    NotFound
+        If the study, participant, night or version does not exist.
+    BadRequest, Unprocessable
+        See :func:`resolve_method`.
+    """
+    with db.session_scope(factory) as session:
+        found = session.execute(
+            select(db.Night, db.Participant, db.Study)
+            .join(db.Participant, db.Participant.pk == db.Night.participant_pk)
+            .join(db.Study, db.Study.pk == db.Participant.study_pk)
+            .where(db.Study.study_id == study_id, db.Participant.participant_id == participant_id,
+                   db.Night.night_id == night_id)).first()
+        if found is None:
+            find_participant(session, find_study(session, study_id), participant_id)  # names what is missing
+            raise NotFound(f"no night {night_id!r} for participant {participant_id!r}")
+        row, participant, study = found
+        resolved = resolve_method(session, study=study, participant=participant, method=method, version=version)
+        offset, descriptors, model = 0.0, None, None
+        if resolved.version is None:
+            key = resolved.method
+        else:
+            model = versions.load_model(session, resolved.version)
+            if resolved.method == "pooled+offset":
+                offset = float(resolved.version.info.get("offsets", {}).get(participant_id, 0.0))
+            if model.descriptor_names_:  # as in training for participants it saw, else from all current nights
+                descriptors = (resolved.version.info.get("descriptors", {}).get(participant_id)
+                               or _descriptors(session, participant))
+            inputs = json.dumps([resolved.method, offset, descriptors], sort_keys=True)
+            key = f"m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
+        cached = session.scalar(select(db.Scoring.body).where(db.Scoring.night_pk == row.pk,
+                                                              db.Scoring.cache_key == key))
+        if cached is not None:
+            return zlib.decompress(cached)
+        night = night_from_row(row, participant_id=participant_id)
+        night_pk, night_hash = row.pk, row.content_hash
+        features = None if model is None else load_features(session, night_pk=night_pk, config=model.feature_config_)
+    if model is not None and features is None:
+        features = night_features(night, model.feature_config_)
+        _save(factory, writer, features_row(night_pk=night_pk, config=model.feature_config_, features=features))
+    number = None if resolved.version is None else resolved.version.version
+    result = compute_scoring(night, method=resolved.method, model=model, version=number,
+                             offset=offset, descriptors=descriptors, features=features)
+    body = json.dumps(result, separators=(",", ":"), allow_nan=False).encode()
+    _save(factory, writer, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
+                                      else resolved.version.pk, cache_key=key, night_hash=night_hash,
+                                      method=resolved.method, body=zlib.compress(body, 1), created_at=db.utcnow()))
+    return body
+
+
+def _save(factory: sessionmaker[Session], writer: CacheWriter | None, row: db.Base) -> None:
+    """Store a cache row now, or hand it to the background writer."""
+    if writer is not None:
+        writer.submit(row)
+        return
+    try:
+        with db.session_scope(factory, write=True) as session:
+            session.add(row)
+    except IntegrityError:
+        pass  # a concurrent request stored the same result
+

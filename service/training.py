@@ -1,0 +1,208 @@
+"""Training jobs: load nights from the registry, call :mod:`models` training, store a version.
+
+The worker calls :func:`run_training_job`; the science (tuning, nested validation, offsets, the
+personal-versus-pooled choice) is all in :mod:`models`. This module only moves data between the
+database and those functions and writes the registry record of the new version.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from typing import Any
+
+import pandas as pd
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session, sessionmaker
+
+from models import EPOCH_METRIC_NAMES, Night, TrainingConfig, choose_method, train_personal, train_pooled
+
+from . import db, versions
+from .codec import encode_held_out
+from .config import Settings
+from .errors import NotFound, Unprocessable
+from .jobs import JobInfo
+from .registry import find_participant, find_study, load_nights
+
+__all__ = ["check_trainable", "refresh_choices", "run_training_job"]
+
+Progress = Callable[[int, int, str], None]
+
+
+def _config(job: JobInfo, settings: Settings) -> TrainingConfig:
+    return TrainingConfig(n_trials=int(job.params.get("n_trials", settings.n_trials)),
+                          seed=int(job.params.get("seed", 0)), n_jobs=settings.training_threads)
+
+
+def check_trainable(session: Session, *, participant: db.Participant) -> None:
+    """Refuse a personal training that cannot succeed (too few labelled nights).
+
+    Raises
+    ------
+    Unprocessable
+        With code ``too_few_labelled_nights``.
+    """
+    needed = TrainingConfig().min_personal_nights
+    have = session.scalar(select(func.count()).select_from(db.Night).where(
+        db.Night.participant_pk == participant.pk, db.Night.labelled)) or 0
+    if have < needed:
+        raise Unprocessable(f"a personal model needs {needed} labelled nights; participant "
+                            f"{participant.participant_id!r} has {have}", code="too_few_labelled_nights")
+
+
+def _finite(value: Any) -> float | None:
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        return None
+    return value if math.isfinite(value) else None
+
+
+def _summary(table: pd.DataFrame) -> dict[str, Any]:
+    """JSON form of a models summary table (index: metric; columns ``mean``, ``sd``, ``n_nights``)."""
+    out: dict[str, Any] = {"n_nights": int(table["n_nights"].max()) if len(table) else 0}
+    for name in EPOCH_METRIC_NAMES:
+        row = table.loc[name] if name in table.index else {"mean": None, "sd": None}
+        out[name] = {"mean": _finite(row["mean"]), "sd": _finite(row["sd"])}
+    return out
+
+
+def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
+    return [{k: (_finite(v) if isinstance(v, float) else v) for k, v in row.items()}
+            for row in frame.to_dict(orient="records")]
+
+
+def _night_refs(nights: Sequence[Night], hashes: Sequence[str]) -> list[dict[str, Any]]:
+    wanted = set(hashes)
+    return [{"participant_id": n.participant_id, "night_id": n.content_hash[:20], "content_hash": n.content_hash,
+             "label": n.label} for n in nights if n.content_hash in wanted]
+
+
+def _base_info(model: Any, nights: Sequence[Night], config: TrainingConfig, metrics: dict[str, Any]) -> dict[str, Any]:
+    return {
+        "metrics": metrics,
+        "selection": {"metric": versions.SELECTION_METRIC, "value": metrics[versions.SELECTION_METRIC]["mean"]},
+        "training_nights": _night_refs(nights, model.training_nights_),
+        "training_hashes": list(model.training_nights_),
+        "feature_set_version": model.feature_version_,
+        "hyperparameters": dict(model.params_),
+        "threshold": float(model.threshold_),
+        "library_versions": dict(model.info_.get("libraries", {})),
+        "config": {k: v for k, v in config.to_dict().items() if k in ("n_trials", "seed", "min_personal_nights",
+                                                                       "choice_policy", "movement_time")},
+    }
+
+
+def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
+                  progress: Progress) -> dict[str, Any]:
+    config = _config(job, settings)
+    assert job.participant_id is not None
+    with db.session_scope(factory) as session:
+        study = find_study(session, job.study_id)
+        participant = find_participant(session, study, job.participant_id)
+        nights = load_nights(session, participant=participant, labelled_only=True)
+    progress(0, 1, "personal: loading nights")
+    result = train_personal(nights, config=config, progress=progress)
+    booster, meta = result.model.to_bytes()
+    info = _base_info(result.model, nights, config, _summary(result.summary))
+    info["night_metrics"] = _records(result.night_metrics)
+    info["offset"] = None
+    with db.session_scope(factory, write=True) as session:
+        study = find_study(session, job.study_id)
+        participant = find_participant(session, study, job.participant_id)
+        version = versions.add_version(session, study=study, participant=participant, booster=booster,
+                                       model_meta=meta, info=info, job_id=job.job_id, actor=_actor(session, job),
+                                       held_out=encode_held_out(result.outer))
+        refresh_choices(session, study=study, participants=[participant], policy=config.choice_policy)
+        chosen = participant.chosen_method
+    return {"model_version": version.version, "active": version.active, "chosen_method": chosen}
+
+
+def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
+                progress: Progress) -> dict[str, Any]:
+    config = _config(job, settings)
+    with db.session_scope(factory) as session:
+        study = find_study(session, job.study_id)
+        by_participant = {p.participant_id: load_nights(session, participant=p) for p in session.scalars(
+            select(db.Participant).where(db.Participant.study_pk == study.pk).order_by(db.Participant.participant_id))}
+    progress(0, 1, "pooled: loading nights")
+    result = train_pooled(by_participant, config=config, progress=progress)
+    booster, meta = result.model.to_bytes()
+    all_nights = [n for nights in by_participant.values() for n in nights]
+    held = result.night_metrics
+    by_method = set(result.summary.index.get_level_values(0))
+    info = _base_info(result.model, all_nights, config, _summary(result.summary.loc["pooled"]))
+    if "pooled+offset" in by_method:
+        info["metrics_with_offset"] = _summary(result.summary.loc["pooled+offset"])
+    info["participants"] = sorted({n["participant_id"] for n in info["training_nights"]})
+    info["offsets"] = {pid: float(v) for pid, v in result.offsets.items()}
+    info["offset_shrinkage"] = float(result.shrinkage)
+    info["descriptors"] = {pid: {k: _finite(v) for k, v in d.items()} for pid, d in result.descriptors.items()}
+    info["offset"] = None
+    info["night_metrics"] = _records(held)
+    held_out = [h for rows in result.held_out.values() for h in rows]
+    held_out += [h for rows in result.offset_held_out.values() for h in rows]
+    with db.session_scope(factory, write=True) as session:
+        study = find_study(session, job.study_id)
+        present = set(session.scalars(select(db.Participant.participant_id).where(
+            db.Participant.study_pk == study.pk)))
+        if missing := set(info["participants"]) - present:
+            raise NotFound(f"{len(missing)} participant(s) were withdrawn while the pooled model trained; train "
+                           "it again", code="participant_withdrawn")
+        version = versions.add_version(session, study=study, participant=None, booster=booster, model_meta=meta,
+                                       info=info, job_id=job.job_id, actor=_actor(session, job),
+                                       held_out=encode_held_out(held_out))
+        refresh_choices(session, study=study, policy=config.choice_policy)
+    return {"model_version": version.version, "active": version.active}
+
+
+def _metrics_frame(records: list[dict[str, Any]]) -> pd.DataFrame:
+    """Stored night-metric records as a frame with numeric metric columns (None -> NaN)."""
+    frame = pd.DataFrame(records)
+    for name in EPOCH_METRIC_NAMES:
+        if name in frame:
+            frame[name] = pd.to_numeric(frame[name])
+    return frame
+
+
+def refresh_choices(session: Session, *, study: db.Study, participants: Sequence[db.Participant] | None = None,
+                    policy: str | None = None) -> None:
+    """Re-decide personal versus pooled for participants from the active versions' held-out figures.
+
+    Called when a version is stored or activated. A participant without an active personal
+    version has no choice (``auto`` uses the pooled model with offset).
+    """
+    policy = policy or TrainingConfig().choice_policy
+    pooled = versions.active_version(session, study=study, participant=None)
+    pooled_rows = _metrics_frame(pooled.info.get("night_metrics", []) if pooled is not None else [])
+    if participants is None:
+        participants = list(session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)))
+    for participant in participants:
+        personal = versions.active_version(session, study=study, participant=participant)
+        if personal is None:
+            participant.chosen_method, participant.choice = None, None
+            continue
+        mine = pooled_rows[pooled_rows["participant_id"] == participant.participant_id] if len(pooled_rows) else None
+        table = pd.concat([_metrics_frame(personal.info.get("night_metrics", [])), mine])
+        method, reason = choose_method(table, policy=policy)
+        participant.chosen_method = method
+        participant.choice = {"method": method, "reason": reason, "personal_version": personal.version,
+                              "pooled_version": None if pooled is None else pooled.version, "policy": policy}
+
+
+def _actor(session: Session, job: JobInfo) -> str:
+    return session.scalar(select(db.Job.created_by).where(db.Job.job_id == job.job_id)) or "worker"
+
+
+def run_training_job(job: JobInfo, *, factory: sessionmaker[Session], settings: Settings,
+                     progress: Progress) -> dict[str, Any]:
+    """Run a claimed training job and return its result (``model_version``, ``active``, ...).
+
+    Raises
+    ------
+    NightbankError
+        Training errors from :mod:`models` (too few nights, mixed epoch lengths), or
+        :class:`~service.errors.NotFound` if the participant was withdrawn meanwhile.
+    """
+    run = {"personal": _run_personal, "pooled": _run_pooled}[job.kind]
+    return run(job, factory, settings, progress)

@@ -1,0 +1,116 @@
+"""Model cards: what a stored model version is, how it was validated and how (not) to use it.
+
+One card per model version, built from the registry record (:class:`service.versions.VersionInfo`)
+as a plain dict (the JSON download) and rendered from that dict as Markdown, so the two downloads
+always say the same thing.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from ..versions import VersionInfo
+from .templating import CAUTIONS
+
+__all__ = ["CARD_METRICS", "model_card", "model_card_markdown"]
+
+#: Held-out metrics reported on a card, in order.
+CARD_METRICS: tuple[str, ...] = ("balanced_accuracy", "sensitivity", "specificity", "ppv", "npv", "accuracy",
+                                 "kappa", "mcc", "auc")
+
+_VALIDATION = {
+    "personal": ("Nested validation on the participant's own PSG-labelled nights. Outer loop: each labelled night "
+                 "is held out once; the hyper-parameter search (forward-chained inner splits over the other "
+                 "nights, early stopping and threshold) runs without it, and the refitted model scores it. The "
+                 "figures below are the mean and SD over those held-out nights. The stored model repeats the "
+                 "search on all labelled nights."),
+    "pooled": ("Leave-participants-out validation: participants are split into folds; every participant's "
+               "held-out figures come from a model that saw none of their nights (also not for early stopping "
+               "or the threshold). The figures below are the mean and SD over the held-out nights of all "
+               "participants. The stored model repeats the procedure on all participants; per-participant "
+               "offsets are estimated from their labelled nights."),
+}
+_INTENDED = {
+    "personal": ("Research scoring of sleep and wake per epoch from wrist-actigraphy activity counts of this one "
+                 "participant, recorded the same way (device, wrist, epoch length) as the training nights."),
+    "pooled": ("Research scoring of sleep and wake per epoch from wrist-actigraphy activity counts of this study's "
+               "participants, with the participant offset where the participant has labelled nights; also the "
+               "fallback for participants without enough labelled nights for a personal model."),
+}
+
+
+def model_card(version: VersionInfo, *, study_id: str, participant_id: str | None) -> dict[str, Any]:
+    """The card of one model version as a JSON-able dict.
+
+    Parameters
+    ----------
+    version : VersionInfo
+    study_id : str
+    participant_id : str or None
+        Owner of a personal model; None for a pooled model.
+    """
+    info = version.info
+    metrics = info.get("metrics", {})
+    nights = info.get("training_nights", [])
+    return {
+        "title": (f"Personal model v{version.version} of participant {participant_id}" if participant_id
+                  else f"Pooled model v{version.version}") + f", study {study_id}",
+        "model": {"kind": version.kind, "version": version.version, "status": version.status,
+                  "created_at": version.created_at.isoformat(timespec="seconds"), "training_job": version.job_id,
+                  "study_id": study_id, "participant_id": participant_id},
+        "intended_use": _INTENDED.get(version.kind, ""),
+        "data": {
+            "training_nights": len(nights),
+            "participants": sorted({n.get("participant_id") for n in nights if n.get("participant_id")}),
+            "nights": [{"participant_id": n.get("participant_id"), "night_id": n.get("night_id"),
+                        "label": n.get("label")} for n in nights],
+            "feature_set_version": info.get("feature_set_version"),
+        },
+        "validation": {"scheme": _VALIDATION.get(version.kind, ""), "held_out_nights": metrics.get("n_nights"),
+                       "metrics": {name: metrics[name] for name in CARD_METRICS if name in metrics},
+                       "selection_metric": info.get("selection", {}).get("metric")},
+        "threshold": {"p_sleep": info.get("threshold"),
+                      "meaning": "an epoch is called sleep when the model's sleep probability is at least this"},
+        "method_choice": info.get("choice"),
+        "hyperparameters": info.get("hyperparameters", {}),
+        "library_versions": info.get("library_versions", {}),
+        "cautions": [*CAUTIONS,
+                     f"Validated on {metrics.get('n_nights', 'few')} held-out night(s); figures on other people, "
+                     "devices, wear positions or epoch lengths may be worse.",
+                     "Sleep is the positive class throughout (1 = sleep, 0 = wake)."],
+    }
+
+
+def _fmt(value: Any) -> str:
+    return "–" if value is None else f"{value:.3f}" if isinstance(value, float) else str(value)
+
+
+def model_card_markdown(card: dict[str, Any]) -> str:
+    """The card as Markdown (same content as the dict)."""
+    m, data, validation = card["model"], card["data"], card["validation"]
+    lines = [f"# Model card: {card['title']}", "",
+             f"- Kind: {m['kind']}; version {m['version']} ({m['status']}); created {m['created_at']} UTC",
+             f"- Training job: {m['training_job'] or '–'}", "",
+             "## Intended use", "", card["intended_use"], "",
+             "## Data used", "",
+             f"- Training nights: {data['training_nights']} "
+             f"(participants: {', '.join(data['participants']) or '–'})",
+             f"- Feature set version: {data['feature_set_version'] or '–'}", ""]
+    for n in data["nights"]:
+        lines.append(f"  - {n['participant_id']} night {n['night_id']}" + (f" ({n['label']})" if n["label"] else ""))
+    lines += ["", "## Validation", "", validation["scheme"], "",
+              f"Held-out nights: {validation['held_out_nights'] or '–'}", "",
+              "| metric | mean | SD |", "|---|---|---|"]
+    for name, stats in validation["metrics"].items():
+        lines.append(f"| {name.replace('_', ' ')} | {_fmt(stats.get('mean'))} | {_fmt(stats.get('sd'))} |")
+    lines += ["", "## Threshold", "", f"P(sleep) ≥ {_fmt(card['threshold']['p_sleep'])}: "
+              f"{card['threshold']['meaning']}.", ""]
+    if card["method_choice"]:
+        choice = card["method_choice"]
+        lines += ["## Method choice", "", f"Chosen: {choice.get('method', '–')}. {choice.get('reason', '')}", ""]
+    lines += ["## Hyperparameters", ""]
+    lines += [f"- {k}: {v}" for k, v in card["hyperparameters"].items()] or ["- –"]
+    lines += ["", "## Library versions", ""]
+    lines += [f"- {k}: {v}" for k, v in card["library_versions"].items()] or ["- –"]
+    lines += ["", "## Cautions", ""] + [f"- {c}" for c in card["cautions"]] + [""]
+    return "\n".join(lines)

@@ -1,0 +1,222 @@
+"""The model registry: immutable, numbered versions of personal and pooled models.
+
+Versions are numbered per participant (personal) and per study (pooled), from 1, and never
+change once stored. Each holds the model bytes (XGBoost UBJSON plus JSON metadata; no pickle)
+and an ``info`` record: training nights with their hashes, feature-set version, hyperparameters,
+threshold, offsets, held-out validation figures, library versions and the job that made it.
+
+Promotion rule: a new version becomes active only if its held-out balanced accuracy is not worse
+than the active version's (or no version is active); otherwise it is kept as a candidate, which
+an admin may activate. Activating an older version is a rollback.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+import uuid
+from collections import OrderedDict
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy import func, select, update
+from sqlalchemy.orm import Session
+
+from models import HeldOutNight, SleepModel
+
+from . import db
+from .audit import record_audit
+from .codec import decode_held_out
+from .errors import NotFound
+
+__all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_version", "add_version",
+           "get_version", "list_versions", "load_held_out", "load_model", "scope_of"]
+
+POOLED_SCOPE = "pooled"
+#: Held-out metric that decides promotion ("higher is better").
+SELECTION_METRIC = "balanced_accuracy"
+
+
+@dataclass(frozen=True)
+class VersionInfo:
+    """Snapshot of a stored model version (without its bytes); ``info`` is shared: read it only."""
+
+    pk: int
+    uid: str
+    kind: str
+    version: int
+    active: bool
+    created_at: datetime
+    job_id: str | None
+    info: dict[str, Any]
+
+    @property
+    def status(self) -> str:
+        return "active" if self.active else "candidate"
+
+    @property
+    def selection_score(self) -> float | None:
+        value = self.info.get("selection", {}).get("value")
+        return None if value is None else float(value)
+
+
+def scope_of(participant: db.Participant | None) -> str:
+    """Numbering scope: ``participant:<pk>`` or ``pooled``."""
+    return POOLED_SCOPE if participant is None else f"participant:{participant.pk}"
+
+
+_INFO: OrderedDict[str, dict[str, Any]] = OrderedDict()
+_INFO_LOCK = threading.Lock()
+
+
+def _info(row: db.ModelVersion) -> VersionInfo:
+    """Snapshot of a row; ``info`` (immutable like the version) is parsed once per process."""
+    with _INFO_LOCK:
+        info = _INFO.get(row.uid)
+    if info is None:
+        info = dict(row.info)  # loads the deferred column
+        with _INFO_LOCK:
+            _INFO[row.uid] = info
+            while len(_INFO) > 256:
+                _INFO.popitem(last=False)
+    return VersionInfo(pk=row.pk, uid=row.uid, kind=row.kind, version=row.version, active=row.is_active,
+                       created_at=row.created_at, job_id=row.job_id, info=info)
+
+
+def _not_worse(new: float | None, old: float | None) -> bool:
+    if old is None or math.isnan(old):
+        return True
+    return new is not None and not math.isnan(new) and new >= old
+
+
+def add_version(session: Session, *, study: db.Study, participant: db.Participant | None, booster: bytes,
+                model_meta: dict[str, Any], info: dict[str, Any], job_id: str | None, actor: str,
+                held_out: bytes | None = None) -> VersionInfo:
+    """Store a new version and apply the promotion rule.
+
+    Parameters
+    ----------
+    study : db.Study
+    participant : db.Participant or None
+        Owner of a personal model; None for the study's pooled model.
+    booster : bytes
+        XGBoost UBJSON bytes.
+    model_meta : dict
+        Metadata from :meth:`models.SleepModel.to_bytes`.
+    info : dict
+        Registry record; ``info["selection"]["value"]`` is the held-out balanced accuracy used by
+        the promotion rule.
+    job_id : str or None
+        Training job that produced the version.
+    actor : str
+        Token id of whoever requested the training (audit log).
+    held_out : bytes, optional
+        Held-out predictions of the validation (:func:`service.codec.encode_held_out`).
+
+    Returns
+    -------
+    VersionInfo
+        ``active`` tells whether it was promoted.
+    """
+    scope = scope_of(participant)
+    number = (session.scalar(select(func.max(db.ModelVersion.version)).where(
+        db.ModelVersion.study_pk == study.pk, db.ModelVersion.scope == scope)) or 0) + 1
+    current = session.scalar(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
+                                                           db.ModelVersion.scope == scope, db.ModelVersion.is_active))
+    new_score = info.get("selection", {}).get("value")
+    old_score = None if current is None else current.info.get("selection", {}).get("value")
+    promote = _not_worse(new_score, old_score)
+    if promote and current is not None:
+        current.is_active = False
+        session.flush()
+    row = db.ModelVersion(uid=uuid.uuid4().hex, study_pk=study.pk,
+                          participant_pk=None if participant is None else participant.pk, scope=scope,
+                          kind="pooled" if participant is None else "personal", version=number, is_active=promote,
+                          booster=booster, model_meta=model_meta, info=info, held_out=held_out, job_id=job_id,
+                          created_at=db.utcnow())
+    session.add(row)
+    session.flush()
+    subject = POOLED_SCOPE if participant is None else participant.participant_id
+    record_audit(session, actor=actor, action="model.create", study_id=study.study_id, subject=subject,
+                 detail={"version": number, "active": promote, "job_id": job_id,
+                         "previous_active": None if current is None else current.version})
+    return _info(row)
+
+
+def list_versions(session: Session, *, study: db.Study, participant: db.Participant | None) -> list[VersionInfo]:
+    """Every version of the scope, newest first."""
+    rows = session.scalars(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
+                                                         db.ModelVersion.scope == scope_of(participant))
+                           .order_by(db.ModelVersion.version.desc()))
+    return [_info(r) for r in rows]
+
+
+def get_version(session: Session, *, study: db.Study, participant: db.Participant | None,
+                version: int) -> VersionInfo:
+    """One version.
+
+    Raises
+    ------
+    NotFound
+        If the scope has no such version.
+    """
+    row = session.scalar(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
+                                                       db.ModelVersion.scope == scope_of(participant),
+                                                       db.ModelVersion.version == version))
+    if row is None:
+        raise NotFound(f"no model version {version}")
+    return _info(row)
+
+
+def active_version(session: Session, *, study: db.Study, participant: db.Participant | None) -> VersionInfo | None:
+    """The active version of the scope, or None."""
+    row = session.scalar(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
+                                                       db.ModelVersion.scope == scope_of(participant),
+                                                       db.ModelVersion.is_active))
+    return None if row is None else _info(row)
+
+
+def activate_version(session: Session, *, study: db.Study, participant: db.Participant | None, version: int,
+                     actor: str) -> VersionInfo:
+    """Make ``version`` the active one of its scope (promotion of a candidate, or rollback)."""
+    target = get_version(session, study=study, participant=participant, version=version)
+    previous = active_version(session, study=study, participant=participant)
+    session.execute(update(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
+                                                  db.ModelVersion.scope == scope_of(participant))
+                    .values(is_active=False).execution_options(synchronize_session=False))
+    session.execute(update(db.ModelVersion).where(db.ModelVersion.pk == target.pk).values(is_active=True)
+                    .execution_options(synchronize_session=False))
+    subject = POOLED_SCOPE if participant is None else participant.participant_id
+    record_audit(session, actor=actor, action="model.activate", study_id=study.study_id, subject=subject,
+                 detail={"version": version, "previous_active": None if previous is None else previous.version})
+    return get_version(session, study=study, participant=participant, version=version)
+
+
+def load_held_out(session: Session, version: VersionInfo) -> list[HeldOutNight]:
+    """The held-out predictions stored with a version (empty if none were stored)."""
+    blob = session.scalar(select(db.ModelVersion.held_out).where(db.ModelVersion.pk == version.pk))
+    return [] if blob is None else decode_held_out(blob)
+
+
+_CACHE: OrderedDict[str, SleepModel] = OrderedDict()
+_CACHE_LOCK = threading.Lock()
+_CACHE_SIZE = 64
+
+
+def load_model(session: Session, version: VersionInfo) -> SleepModel:
+    """The :class:`models.SleepModel` of a version (kept in a small per-process cache by ``uid``)."""
+    with _CACHE_LOCK:
+        model = _CACHE.get(version.uid)
+        if model is not None:
+            _CACHE.move_to_end(version.uid)
+            return model
+    row = session.get(db.ModelVersion, version.pk)
+    if row is None:
+        raise NotFound(f"model version {version.version} was removed")
+    model = SleepModel.from_bytes(row.booster, row.model_meta)
+    with _CACHE_LOCK:
+        _CACHE[version.uid] = model
+        while len(_CACHE) > _CACHE_SIZE:
+            _CACHE.popitem(last=False)
+    return model

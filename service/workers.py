@@ -1,0 +1,250 @@
+"""Training workers: processes that take jobs from the database queue and run them.
+
+A :class:`Worker` claims a job (:mod:`service.jobs`), keeps its lease alive from a heartbeat
+thread, hands it to a :class:`JobExecutor` with a progress callback, and records the outcome.
+The callback raises :class:`JobStopped` when the job is cancelled, the lease is lost or the
+worker is shutting down; training stops at its next progress step. On shutdown the job goes back
+to the queue and restarts from the beginning on the next worker.
+
+:class:`LocalExecutor` runs the training in the worker process. Another executor (for example
+one that submits the training to a Dask cluster and relays its progress) implements the same
+one method.
+
+``nightbank serve`` starts ``Settings.job_workers`` worker processes; ``nightbank worker`` runs
+one more in the foreground, on the same or another machine sharing the database.
+"""
+
+from __future__ import annotations
+
+import abc
+import logging
+import os
+import signal
+import socket
+import subprocess
+import sys
+import threading
+import time
+import uuid
+from collections.abc import Callable
+from typing import Any
+
+from sqlalchemy.orm import Session, sessionmaker
+
+from models import NightbankError
+
+from . import db
+from .config import Settings
+from .jobs import JobInfo, JobState, claim_job, finish_job, heartbeat, release_job, report_progress
+
+__all__ = ["JobExecutor", "JobStopped", "LocalExecutor", "ProgressCallback", "Worker", "start_worker_processes",
+           "stop_worker_processes"]
+
+log = logging.getLogger("nightbank.worker")
+
+#: progress(done, total, stage): called by the executor as training advances
+ProgressCallback = Callable[[int, int, str], None]
+
+
+class JobStopped(Exception):  # noqa: N818  (a signal, not an error)
+    """Raised from the progress callback to stop a job: ``reason`` is cancelled, lost or shutdown."""
+
+    def __init__(self, reason: str) -> None:
+        super().__init__(reason)
+        self.reason = reason
+
+
+class JobExecutor(abc.ABC):
+    """Runs one claimed job to completion."""
+
+    @abc.abstractmethod
+    def run(self, job: JobInfo, *, progress: ProgressCallback) -> dict[str, Any]:
+        """Run ``job`` and return its JSON result (``{"model_version": n, ...}``).
+
+        Must call ``progress`` as work advances and let :class:`JobStopped` propagate.
+        Raises any exception to fail the job; its message becomes the job's error.
+        """
+
+
+class LocalExecutor(JobExecutor):
+    """Runs the training in this process (see :mod:`service.training`)."""
+
+    def __init__(self, settings: Settings, factory: sessionmaker[Session]) -> None:
+        self.settings = settings
+        self.factory = factory
+
+    def run(self, job: JobInfo, *, progress: ProgressCallback) -> dict[str, Any]:
+        from .training import run_training_job
+
+        return run_training_job(job, factory=self.factory, settings=self.settings, progress=progress)
+
+
+class _Lease:
+    """Heartbeat thread plus the stop flag the progress callback checks."""
+
+    def __init__(self, worker: Worker, job: JobInfo) -> None:
+        self.worker, self.job = worker, job
+        self.reason: str | None = None
+        self._done = threading.Event()
+        self._thread = threading.Thread(target=self._beat, name=f"heartbeat-{job.job_id[:8]}", daemon=True)
+        self._last_report = 0.0
+
+    def __enter__(self) -> _Lease:
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._done.set()
+        self._thread.join()
+
+    def _note(self, cancel: bool | None) -> None:
+        if cancel is None:
+            self.reason = self.reason or "lost"
+        elif cancel:
+            self.reason = self.reason or "cancelled"
+
+    def _beat(self) -> None:
+        s = self.worker.settings
+        while not self._done.wait(s.heartbeat_s):
+            try:
+                self._note(heartbeat(self.worker.factory, self.job.job_id, worker_id=self.worker.worker_id,
+                                     lease_s=s.lease_s))
+            except Exception:  # a failed heartbeat is retried; the lease outlives several intervals
+                log.warning("heartbeat of job %s failed", self.job.job_id, exc_info=True)
+
+    def progress(self, done: int, total: int, stage: str) -> None:
+        if self.worker.stopping.is_set():
+            self.reason = self.reason or "shutdown"
+        if self.reason is not None:
+            raise JobStopped(self.reason)
+        now = time.monotonic()
+        if now - self._last_report >= 0.25 or done >= total:
+            self._last_report = now
+            self._note(report_progress(self.worker.factory, self.job.job_id, worker_id=self.worker.worker_id,
+                                       done=done, total=total, stage=stage))
+            if self.reason is not None:
+                raise JobStopped(self.reason)
+
+
+class Worker:
+    """Claims and runs jobs until stopped.
+
+    Parameters
+    ----------
+    settings : Settings
+    factory : sessionmaker, optional
+        Built from ``settings`` if not given.
+    executor : JobExecutor, optional
+        Default :class:`LocalExecutor`.
+    """
+
+    def __init__(self, settings: Settings, *, factory: sessionmaker[Session] | None = None,
+                 executor: JobExecutor | None = None) -> None:
+        self.settings = settings
+        self.factory = factory or db.make_session_factory(db.make_engine(settings))
+        self.executor = executor or LocalExecutor(settings, self.factory)
+        self.worker_id = f"{socket.gethostname()[:32]}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
+        self.stopping = threading.Event()
+
+    def run_once(self) -> JobInfo | None:
+        """Claim and run one job; returns the job run, or None if the queue was empty."""
+        job = claim_job(self.factory, worker_id=self.worker_id, lease_s=self.settings.lease_s,
+                        max_attempts=self.settings.max_attempts)
+        if job is None:
+            return None
+        log.info("job %s (%s) started, attempt %d", job.job_id, job.kind, job.attempts)
+        with _Lease(self, job) as lease:
+            try:
+                result = self.executor.run(job, progress=lease.progress)
+            except JobStopped as stop:
+                self._stopped(job, stop.reason)
+                return job
+            except NightbankError as exc:
+                self._finish(job, JobState.failed, error=f"{exc.code}: {exc}")
+                return job
+            except Exception as exc:
+                log.exception("job %s failed", job.job_id)
+                self._finish(job, JobState.failed, error=f"training failed unexpectedly ({type(exc).__name__}); "
+                                                         "see the worker log")
+                return job
+        self._finish(job, JobState.succeeded, result=result)
+        return job
+
+    def _stopped(self, job: JobInfo, reason: str) -> None:
+        if reason == "cancelled":
+            self._finish(job, JobState.cancelled, error=None)
+        elif reason == "shutdown":
+            release_job(self.factory, job.job_id, worker_id=self.worker_id)
+            log.info("job %s returned to the queue (worker stopping)", job.job_id)
+        else:
+            log.warning("job %s: lease lost, another worker may have taken it over", job.job_id)
+
+    def _finish(self, job: JobInfo, state: JobState, *, result: dict[str, Any] | None = None,
+                error: str | None = None) -> None:
+        if finish_job(self.factory, job.job_id, worker_id=self.worker_id, state=state, result=result, error=error):
+            log.info("job %s %s", job.job_id, state.value)
+        else:
+            log.warning("job %s finished as %s after its lease was lost; outcome not recorded", job.job_id,
+                        state.value)
+
+    def run_forever(self) -> None:
+        """Run jobs until :attr:`stopping` is set; between jobs, store features of new nights.
+
+        With an empty queue and no features to compute, the queue is polled every ``poll_s``.
+        """
+        from .featurestore import warm_features
+
+        log.info("worker %s polling for jobs", self.worker_id)
+        failed: set[tuple[int, str]] = set()
+        while not self.stopping.is_set():
+            try:
+                busy = self.run_once() is not None or warm_features(self.factory, limit=4, failed=failed) > 0
+            except Exception:
+                log.exception("worker loop error; retrying")
+                busy = False
+            if not busy:
+                self.stopping.wait(self.settings.poll_s)
+        log.info("worker %s stopped", self.worker_id)
+
+
+def settings_env(settings: Settings) -> dict[str, str]:
+    """``NIGHTBANK_*`` variables that reproduce ``settings`` in a child process."""
+    out = {}
+    for name, value in settings.model_dump().items():
+        out[f"NIGHTBANK_{name.upper()}"] = str(value).lower() if isinstance(value, bool) else str(value)
+    return out
+
+
+def start_worker_processes(settings: Settings, n: int) -> list[subprocess.Popen[bytes]]:
+    """Start ``n`` worker processes (``python -m service.workers``) with ``settings``."""
+    env = {**os.environ, **settings_env(settings)}
+    return [subprocess.Popen([sys.executable, "-m", "service.workers"], env=env) for _ in range(n)]
+
+
+def stop_worker_processes(processes: list[subprocess.Popen[bytes]], *, timeout_s: float = 15.0) -> None:
+    """Ask workers to stop (SIGTERM: running jobs go back to the queue), kill those that do not."""
+    for proc in processes:
+        if proc.poll() is None:
+            proc.terminate()
+    deadline = time.monotonic() + timeout_s
+    for proc in processes:
+        try:
+            proc.wait(max(deadline - time.monotonic(), 0.1))
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+
+
+def main() -> None:
+    """Entry point of a worker process: settings from the environment, stop on SIGTERM/SIGINT."""
+    settings = Settings()
+    os.nice(settings.worker_nice)
+    logging.basicConfig(level=settings.log_level.upper(), format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    worker = Worker(settings)
+    for sig in (signal.SIGTERM, signal.SIGINT):
+        signal.signal(sig, lambda *_: worker.stopping.set())
+    worker.run_forever()
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,194 @@
+"""Training jobs end to end: real worker processes, the database queue, versions and activation."""
+
+from __future__ import annotations
+
+import signal
+
+import numpy as np
+import pytest
+from harness import bearer, cohort_bodies, wait_for
+
+pytestmark = pytest.mark.slow
+
+
+def _load(http, headers, study: str, bodies: dict[str, list[dict]]) -> dict[str, list[str]]:
+    ids: dict[str, list[str]] = {}
+    for pid, nights in bodies.items():
+        for body in nights:
+            r = http.post(f"/v1/studies/{study}/participants/{pid}/nights", json=body, headers=headers)
+            assert r.status_code == 201, r.text
+            ids.setdefault(pid, []).append(r.json()["night_id"])
+    return ids
+
+
+def _train(http, headers, study: str, pid: str, **body):
+    return http.post(f"/v1/studies/{study}/participants/{pid}/training", json=body or None, headers=headers)
+
+
+def _job(http, headers, job_id: str) -> dict:
+    return http.get(f"/v1/jobs/{job_id}", headers=headers).json()
+
+
+def _finished(http, headers, job_id: str):
+    def check():
+        job = _job(http, headers, job_id)
+        return job if job["state"] in ("succeeded", "failed", "cancelled") else None
+    return check
+
+
+def test_personal_training_lifecycle_with_a_worker_process(http, study, admin, start_worker) -> None:
+    ids = _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+    r = _train(http, admin, study, "P-01", n_trials=2)
+    assert r.status_code == 202 and r.json()["state"] == "queued" and r.json()["created"] is True
+    job_id = r.json()["job_id"]
+    again = _train(http, admin, study, "P-01")
+    assert again.status_code == 200 and again.json()["job_id"] == job_id and again.json()["created"] is False
+    assert _job(http, admin, job_id)["state"] == "queued"
+    start_worker()
+    job = wait_for(_finished(http, admin, job_id))
+    assert job["state"] == "succeeded", job["error"]
+    assert job["progress"]["done"] == job["progress"]["total"] > 1
+    assert job["result"]["model_version"] == 1 and job["result"]["active"] is True
+    versions = http.get(f"/v1/studies/{study}/participants/P-01/models", headers=admin).json()
+    assert [(v["version"], v["active"], v["status"]) for v in versions] == [(1, True, "active")]
+    v1 = versions[0]
+    assert v1["n_training_nights"] == 3 and 0 < v1["threshold"] < 1 and v1["feature_set_version"]
+    assert {n["night_id"] for n in v1["training_nights"]} == set(ids["P-01"])
+    assert 0.5 < v1["metrics"]["balanced_accuracy"]["mean"] <= 1 and "xgboost" in v1["library_versions"]
+    listing = http.get(f"/v1/studies/{study}/participants", headers=admin).json()["data"][0]
+    assert listing["active_personal_version"] == 1 and listing["retrain_would_add_nights"] is False
+    out = http.get(f"/v1/studies/{study}/participants/P-01/nights/{ids['P-01'][0]}/scoring",
+                   params={"method": "auto"}, headers=admin).json()
+    assert out["method"] == "personal" and out["model_version"] == 1
+    assert len(out["p_sleep"]) == len(out["sleep"]) and all(0 <= p <= 1 for p in out["p_sleep"])
+    assert out["agreement"]["epochs"]["n_epochs"] > 0
+    # a new labelled night never retrains silently; the listing says a retrain would use it
+    extra = cohort_bodies(n_participants=1, nights=4, seed=2)["P-01"][3]
+    assert http.post(f"/v1/studies/{study}/participants/P-01/nights", json=extra, headers=admin).status_code == 201
+    listing = http.get(f"/v1/studies/{study}/participants", headers=admin).json()["data"][0]
+    assert listing["retrain_would_add_nights"] is True and listing["untrained_labelled_nights"] == 1
+    assert len(http.get(f"/v1/studies/{study}/participants/P-01/models", headers=admin).json()) == 1
+
+
+def test_activation_and_rollback_change_what_auto_scores_with(http, study, admin, make_token, start_worker) -> None:
+    ids = _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+    start_worker()
+    for seed in (0, 1):
+        job_id = _train(http, admin, study, "P-01", n_trials=2, seed=seed).json()["job_id"]
+        assert wait_for(_finished(http, admin, job_id))["state"] == "succeeded"
+    base = f"/v1/studies/{study}/participants/P-01"
+    versions = {v["version"]: v for v in http.get(f"{base}/models", headers=admin).json()}
+    assert set(versions) == {1, 2} and sum(v["active"] for v in versions.values()) == 1
+    analyst = bearer(make_token("analyst", study))
+    assert http.post(f"{base}/models/1/activate", headers=analyst).status_code == 403
+    for version in (1, 2, 1):
+        r = http.post(f"{base}/models/{version}/activate", headers=admin)
+        assert r.status_code == 200 and r.json()["active"] is True
+        active = [v["version"] for v in http.get(f"{base}/models", headers=admin).json() if v["active"]]
+        assert active == [version]
+        out = http.get(f"{base}/nights/{ids['P-01'][1]}/scoring", params={"method": "personal"}, headers=admin)
+        assert out.json()["model_version"] == version
+    pinned = http.get(f"{base}/nights/{ids['P-01'][1]}/scoring", params={"method": "personal", "version": 2},
+                      headers=admin).json()
+    assert pinned["model_version"] == 2
+    assert http.post(f"{base}/models/9/activate", headers=admin).status_code == 404
+
+
+def test_cancel_queued_and_running_jobs(http, study, admin, start_worker) -> None:
+    _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+    queued = _train(http, admin, study, "P-01", n_trials=2).json()["job_id"]
+    r = http.post(f"/v1/jobs/{queued}/cancel", headers=admin)
+    assert r.status_code == 200 and r.json()["state"] == "cancelled"
+    running = _train(http, admin, study, "P-01", n_trials=500).json()
+    assert running["created"] is True and running["job_id"] != queued
+    start_worker()
+    wait_for(lambda: _job(http, admin, running["job_id"])["progress"]["done"] > 0)
+    assert http.post(f"/v1/jobs/{running['job_id']}/cancel", headers=admin).status_code == 200
+    job = wait_for(_finished(http, admin, running["job_id"]), timeout_s=60)
+    assert job["state"] == "cancelled" and job["progress"]["done"] < job["progress"]["total"]
+    assert http.get(f"/v1/studies/{study}/participants/P-01/models", headers=admin).json() == []
+
+
+def test_job_of_a_dead_worker_is_taken_over_after_the_lease(http, study, admin, start_worker) -> None:
+    _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+    job_id = _train(http, admin, study, "P-01", n_trials=10).json()["job_id"]
+    first = start_worker()
+    wait_for(lambda: _job(http, admin, job_id)["progress"]["done"] > 0)
+    first.send_signal(signal.SIGKILL)
+    first.wait()
+    assert _job(http, admin, job_id)["state"] == "running"  # nobody knows yet
+    start_worker()
+    job = wait_for(_finished(http, admin, job_id), timeout_s=180)
+    assert job["state"] == "succeeded" and job["attempts"] == 2
+
+
+def test_failed_job_records_a_readable_error(http, study, admin, start_worker) -> None:
+    bodies = cohort_bodies(n_participants=1, nights=3)["P-01"]
+    bodies[2] = {**bodies[2], "epoch_seconds": 60, "counts": bodies[2]["counts"][::2],
+                 "reference": bodies[2]["reference"][::2]}
+    _load(http, admin, study, {"P-01": bodies})
+    job_id = _train(http, admin, study, "P-01", n_trials=2).json()["job_id"]
+    start_worker()
+    job = wait_for(_finished(http, admin, job_id))
+    assert job["state"] == "failed" and job["error"].startswith("mixed_epoch_lengths:")
+    assert "Traceback" not in job["error"]
+
+
+def test_training_needs_enough_labelled_nights_and_the_analyst_role(http, study, admin, make_token) -> None:
+    _load(http, admin, study, {"P-01": cohort_bodies(n_participants=1, nights=3)["P-01"][:2]})
+    r = _train(http, admin, study, "P-01")
+    assert r.status_code == 422 and r.json()["code"] == "too_few_labelled_nights"
+    assert _train(http, bearer(make_token("ingest", study)), study, "P-01").status_code == 403
+    assert _train(http, admin, study, "nobody").status_code == 404
+    assert _train(http, admin, study, "P-01", n_trials=0).status_code == 422
+
+
+def test_consent_withdrawal_removes_trained_models_and_their_scorings(http, server, study, admin, start_worker,
+                                                                     factory) -> None:
+    from sqlalchemy import func, select
+
+    from service import db
+
+    ids = _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+    start_worker()
+    job_id = _train(http, admin, study, "P-01", n_trials=2).json()["job_id"]
+    assert wait_for(_finished(http, admin, job_id))["state"] == "succeeded"
+    http.get(f"/v1/studies/{study}/participants/P-01/nights/{ids['P-01'][0]}/scoring",
+             params={"method": "personal"}, headers=admin)
+    server.app.state.cache_writer.flush()  # scorings are stored in the background
+    removed = http.delete(f"/v1/studies/{study}/participants/P-01", headers=admin).json()
+    assert removed == {"nights": 3, "scorings": 1, "personal_versions": 1, "pooled_versions": 0}
+    with db.session_scope(factory) as session:
+        for table in (db.Night, db.Scoring, db.ModelVersion, db.Job, db.Participant):
+            assert session.scalar(select(func.count()).select_from(table)) == 0, table
+
+
+def test_pooled_training_then_scoring_with_offset_and_auto(http, study, admin, make_token, start_worker) -> None:
+    ids = _load(http, admin, study, cohort_bodies(n_participants=3, nights=3))
+    r = http.post(f"/v1/studies/{study}/pooled/training", headers=admin)
+    assert r.status_code == 202
+    start_worker()
+    job = wait_for(_finished(http, admin, r.json()["job_id"]))
+    assert job["state"] == "succeeded", job["error"]
+    versions = http.get(f"/v1/studies/{study}/pooled/models", headers=admin).json()
+    assert [(v["version"], v["kind"], v["active"]) for v in versions] == [(1, "pooled", True)]
+    assert versions[0]["n_training_nights"] == 9
+    assert http.post(f"/v1/studies/{study}/pooled/models/1/activate", headers=admin).json()["active"] is True
+    assert http.post(f"/v1/studies/{study}/pooled/models/1/activate",
+                     headers=bearer(make_token("analyst", study))).status_code == 403
+    other_study = bearer(make_token("admin", "elsewhere"))
+    assert http.get(f"/v1/jobs/{r.json()['job_id']}", headers=other_study).status_code == 404
+    assert http.post(f"/v1/jobs/{r.json()['job_id']}/cancel", headers=other_study).status_code == 404
+    night = ids["P-02"][0]
+    url = f"/v1/studies/{study}/participants/P-02/nights/{night}/scoring"
+    plain = http.get(url, params={"method": "pooled"}, headers=admin).json()
+    shifted = http.get(url, params={"method": "pooled+offset"}, headers=admin).json()
+    auto = http.get(url, params={"method": "auto"}, headers=admin).json()
+    assert plain["model_version"] == shifted["model_version"] == 1 and plain["offset"] == 0.0
+    assert auto["method"] == "pooled+offset" and auto["p_sleep"] == shifted["p_sleep"]
+    assert shifted["offset"] != 0.0 and shifted["p_sleep"] != plain["p_sleep"]
+    # p = expit(margin + offset): the offset moves every epoch's log-odds by the same amount
+    logit = lambda p: np.log(p / (1 - p))  # noqa: E731
+    a, b = np.array(plain["p_sleep"]), np.array(shifted["p_sleep"])
+    inner = (a > 0.01) & (a < 0.99) & (b > 0.01) & (b < 0.99)
+    np.testing.assert_allclose(logit(b[inner]) - logit(a[inner]), shifted["offset"], atol=2e-3)
