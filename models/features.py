@@ -173,6 +173,10 @@ class FeatureConfig:
         payload = json.dumps({"revision": FEATURE_REVISION, **self.to_dict()}, sort_keys=True)
         return f"fs{FEATURE_REVISION}-{hashlib.sha256(payload.encode()).hexdigest()[:16]}"
 
+    def version_for(self, epoch_seconds: float) -> str:
+        """:attr:`FeatureMatrix.version` of features of ``epoch_seconds``-s nights."""
+        return f"{self.version}-{epoch_seconds:g}s"
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict of the fields (lists for tuples)."""
         return {k: list(v) if isinstance(v, tuple) else v for k, v in asdict(self).items()}
@@ -364,4 +368,4 @@ def compute_features(counts: ArrayLike, epoch_seconds: float, *, config: Feature
         names += list(extra)
         blocks.append(np.column_stack(list(extra.values())).astype(np.float32))
     return FeatureMatrix(values=np.hstack(blocks), names=tuple(names),
-                         version=f"{config.version}-{epoch_seconds:g}s")
+                         version=config.version_for(epoch_seconds))

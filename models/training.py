@@ -296,10 +296,6 @@ def _compute(night: Night, config: FeatureConfig) -> FeatureMatrix:
                             lights_on_epoch=stop)
 
 
-def _version(night: Night, config: FeatureConfig) -> str:
-    return f"{config.version}-{night.epoch_seconds:g}s"  # FeatureMatrix.version of these features
-
-
 def night_features(night: Night, config: FeatureConfig, *, cache: FeatureCache | None = None) -> FeatureMatrix:
     """Features of the whole night (lights indices from ``night.in_bed``), through a cache.
 
@@ -316,7 +312,7 @@ def night_features(night: Night, config: FeatureConfig, *, cache: FeatureCache |
         Shape (n_epochs, n_features).
     """
     store = DEFAULT_FEATURE_CACHE if cache is None else cache
-    return store.get_or_compute(night.content_hash, _version(night, config), lambda: _compute(night, config))
+    return store.get_or_compute(night.content_hash, config.version_for(night.epoch_seconds), lambda: _compute(night, config))
 
 
 def iter_night_features(nights: Sequence[Night], config: FeatureConfig, *, cache: FeatureCache | None = None,
@@ -328,7 +324,7 @@ def iter_night_features(nights: Sequence[Night], config: FeatureConfig, *, cache
     Every computed matrix is stored in the cache.
     """
     store = DEFAULT_FEATURE_CACHE if cache is None else cache
-    found = [store.get(n.content_hash, _version(n, config)) for n in nights]
+    found = [store.get(n.content_hash, config.version_for(n.epoch_seconds)) for n in nights]
     missing = [n for n, f in zip(nights, found, strict=True) if f is None]
     if n_jobs > 1 and len(missing) > 1:
         computed: Iterator[FeatureMatrix] = iter(Parallel(n_jobs=n_jobs, return_as="generator")(
