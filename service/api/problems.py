@@ -20,7 +20,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from models import InvalidNightError, NightbankError
 
-__all__ = ["PROBLEM_RESPONSES", "install_problem_handlers", "problem_response"]
+__all__ = ["PROBLEM_RESPONSES", "install_problem_handlers", "problem_response", "problem_responses"]
 
 log = logging.getLogger("nightbank.http")
 MEDIA_TYPE = "application/problem+json"
@@ -30,11 +30,16 @@ _TITLES = {400: "Bad request", 401: "Unauthorized", 403: "Forbidden", 404: "Not 
            500: "Internal error", 503: "Service unavailable"}
 
 _PROBLEM_SCHEMA = {"$ref": "#/components/schemas/Problem"}
+
+
+def problem_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
+    """OpenAPI ``responses`` entries of problem+json errors with these statuses."""
+    return {status: {"description": _TITLES[status], "content": {MEDIA_TYPE: {"schema": _PROBLEM_SCHEMA}}}
+            for status in statuses}
+
+
 #: Responses every route may give, for the OpenAPI document.
-PROBLEM_RESPONSES: dict[int | str, dict[str, Any]] = {
-    status: {"description": _TITLES[status], "content": {MEDIA_TYPE: {"schema": _PROBLEM_SCHEMA}}}
-    for status in (400, 401, 403, 404, 422)
-}
+PROBLEM_RESPONSES = problem_responses(400, 401, 403, 404, 422, 503)
 
 
 def problem_response(request: Request, *, status: int, code: str, detail: str,

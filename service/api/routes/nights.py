@@ -17,6 +17,7 @@ from ...errors import PayloadTooLarge, UnsupportedMediaType
 from ...scoring import SCORING_METHODS, score_night
 from ...tokens import Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, study_access
+from ..problems import problem_responses
 from ..schemas import NightAccepted, NightIn, NightOut, Page, ScoringOut
 from .studies import Limit, Offset, ParticipantPath
 
@@ -78,7 +79,7 @@ async def _read_body(request: Request, limit_bytes: int) -> bytes:
 
 @router.post("", status_code=201, response_model=NightAccepted, openapi_extra={"requestBody": _INGEST_BODY},
              responses={200: {"model": NightAccepted, "description": "Same content stored before: its night id"},
-                        413: {"description": "Body too large"}, 415: {"description": "Unsupported media type"}})
+                        **problem_responses(413, 415)})
 async def post_night(request: Request, access: Annotated[StudyAccess, Depends(study_access(Role.ingest))],
                      pid: ParticipantPath, factory: FactoryDep, settings: SettingsDep,
                      tz: Annotated[str | None, Query(max_length=64, description="IANA zone for naive times")] = None,

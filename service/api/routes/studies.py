@@ -11,6 +11,7 @@ from ...db import session_scope
 from ...errors import Forbidden
 from ...tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, StudyAccess, require_lab_role, study_access
+from ..problems import problem_responses
 from ..schemas import Page, ParticipantOut, StudyIn, StudyOut
 
 __all__ = ["ParticipantPath", "router"]
@@ -22,7 +23,7 @@ Limit = Annotated[int, Query(ge=1, le=500, description="page size")]
 Offset = Annotated[int, Query(ge=0, le=10**9, description="items to skip")]
 
 
-@router.post("", status_code=201, response_model=StudyOut)
+@router.post("", status_code=201, response_model=StudyOut, responses=problem_responses(409))
 def create_study(body: StudyIn, factory: FactoryDep,
                  principal: Annotated[Principal, Depends(require_lab_role(Role.admin))]) -> Any:
     """Create a study (admin; a study-scoped admin token may create its own study)."""

@@ -14,6 +14,7 @@ from ...jobs import JobInfo
 from ...tokens import Principal, Role
 from ...training import check_trainable, refresh_choices
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, require_lab_role, study_access
+from ..problems import problem_responses
 from ..schemas import JobAccepted, JobOut, ModelVersionOut, Progress, TrainingIn
 from .studies import ParticipantPath
 
@@ -24,7 +25,8 @@ AnalystAccess = Annotated[StudyAccess, Depends(study_access(Role.analyst))]
 AdminAccess = Annotated[StudyAccess, Depends(study_access(Role.admin))]
 VersionPath = Annotated[int, Path(ge=1, le=10**9, description="model version number")]
 OptionalTraining = Annotated[TrainingIn | None, Body()]
-_ACCEPTED = {200: {"model": JobAccepted, "description": "A training of the same target is already queued or running"}}
+_ACCEPTED = {200: {"model": JobAccepted, "description": "A training of the same target is already queued or running"},
+             **problem_responses(409)}
 
 
 def _accepted(job: JobInfo, created: bool) -> JSONResponse:
