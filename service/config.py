@@ -25,6 +25,10 @@ environment variable            default                              meaning
 ``NIGHTBANK_TOKEN_CACHE_S``     ``5``                                seconds a verified token is remembered
                                                                      (a revocation takes effect within it)
 ``NIGHTBANK_LOG_LEVEL``         ``INFO``                             service log level
+``NIGHTBANK_EXECUTOR``          ``local``                            where workers run trainings: ``local``
+                                                                     (in the worker process) or ``dask``
+``NIGHTBANK_DASK_SCHEDULER``    (none)                               Dask scheduler address for ``dask``,
+                                                                     e.g. ``tcp://10.0.0.5:8786``
 ==============================  ===================================  ==========================================
 """
 
@@ -32,8 +36,9 @@ from __future__ import annotations
 
 from functools import lru_cache
 from pathlib import Path
+from typing import Literal, Self
 
-from pydantic import Field
+from pydantic import Field, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 __all__ = ["DEFAULT_DB_URL", "Settings", "get_settings"]
@@ -62,6 +67,15 @@ class Settings(BaseSettings):
     max_body_mb: float = Field(default=20.0, gt=0)
     token_cache_s: float = Field(default=5.0, ge=0)
     log_level: str = "INFO"
+    executor: Literal["local", "dask"] = "local"
+    dask_scheduler: str | None = None
+
+    @model_validator(mode="after")
+    def _scheduler_for_dask(self) -> Self:
+        if self.executor == "dask" and not self.dask_scheduler:
+            raise ValueError("executor 'dask' needs a scheduler address (NIGHTBANK_DASK_SCHEDULER or "
+                             "--dask-scheduler, e.g. tcp://HOST:8786)")
+        return self
 
     @property
     def is_sqlite(self) -> bool:

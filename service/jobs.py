@@ -11,10 +11,13 @@ heartbeats. A job whose lease ran out (its worker died, or the whole server stop
 again by the next free worker, so a restart resumes queued and interrupted jobs; after
 ``max_attempts`` claims it is failed with a readable error.
 
-Claiming goes through a :class:`Claimer`. :class:`CompareAndSetClaimer` works on every database:
-it picks the oldest claimable job, then updates it only if it is still claimable (a conditional
-UPDATE whose row count says who won). A PostgreSQL ``FOR UPDATE SKIP LOCKED`` claimer can be
-added by implementing the same one method.
+Claiming goes through a :class:`Claimer`; :func:`claimer_for` picks one per database.
+:class:`SkipLockedClaimer` (PostgreSQL) locks the oldest claimable row with
+``SELECT ... FOR UPDATE SKIP LOCKED``, so workers on many machines never wait on each other and
+never take the same row. :class:`CompareAndSetClaimer` works on every database (SQLite): it picks
+the oldest claimable job, then updates it only if it is still claimable (a conditional UPDATE
+whose row count says who won). Lease times come from the claiming worker's clock, so machines
+sharing a database should keep their clocks synchronised (NTP) to well under the lease.
 
 At most one training is queued or running per participant (and one pooled training per study):
 ``active_key`` is unique while a job is active and NULL once it finishes.
@@ -42,8 +45,10 @@ __all__ = [
     "CompareAndSetClaimer",
     "JobInfo",
     "JobState",
+    "SkipLockedClaimer",
     "cancel_job",
     "claim_job",
+    "claimer_for",
     "count_jobs_by_state",
     "enqueue_job",
     "finish_job",
@@ -197,6 +202,35 @@ class Claimer(abc.ABC):
         """
 
 
+def _claimable(now: datetime) -> Any:
+    return or_(db.Job.state == JobState.queued.value,
+               (db.Job.state == JobState.running.value) & (db.Job.lease_expires_at < now))
+
+
+def _lease_values(worker_id: str, now: datetime, lease_s: float) -> dict[str, Any]:
+    return {"state": JobState.running.value, "lease_owner": worker_id, "attempts": db.Job.attempts + 1,
+            "lease_expires_at": now + timedelta(seconds=lease_s),
+            "started_at": func.coalesce(db.Job.started_at, now)}
+
+
+class SkipLockedClaimer(Claimer):
+    """PostgreSQL claiming: ``SELECT ... FOR UPDATE SKIP LOCKED`` of the oldest claimable job.
+
+    A row another worker is claiming at the same moment is skipped, not waited for, and the
+    row lock is held until the claim commits, so exactly one worker takes each job.
+    """
+
+    def claim(self, session: Session, *, worker_id: str, lease_s: float) -> db.Job | None:
+        now = db.utcnow()
+        pk = session.scalar(select(db.Job.pk).where(_claimable(now)).order_by(db.Job.created_at, db.Job.pk)
+                            .limit(1).with_for_update(skip_locked=True))
+        if pk is None:
+            return None
+        session.execute(update(db.Job).where(db.Job.pk == pk).values(**_lease_values(worker_id, now, lease_s))
+                        .execution_options(synchronize_session=False))
+        return session.get(db.Job, pk, populate_existing=True)
+
+
 class CompareAndSetClaimer(Claimer):
     """Portable claiming: select a candidate, then a conditional UPDATE that only one worker wins."""
 
@@ -205,27 +239,31 @@ class CompareAndSetClaimer(Claimer):
 
     def claim(self, session: Session, *, worker_id: str, lease_s: float) -> db.Job | None:
         now = db.utcnow()
-        claimable = or_(db.Job.state == JobState.queued.value,
-                        (db.Job.state == JobState.running.value) & (db.Job.lease_expires_at < now))
+        claimable = _claimable(now)
         for pk in session.scalars(select(db.Job.pk).where(claimable).order_by(db.Job.created_at, db.Job.pk)
                                   .limit(self.candidates)).all():
             won = session.execute(
-                update(db.Job).where(db.Job.pk == pk, claimable)
-                .values(state=JobState.running.value, lease_owner=worker_id, attempts=db.Job.attempts + 1,
-                        lease_expires_at=now + timedelta(seconds=lease_s),
-                        started_at=func.coalesce(db.Job.started_at, now))
+                update(db.Job).where(db.Job.pk == pk, claimable).values(**_lease_values(worker_id, now, lease_s))
                 .execution_options(synchronize_session=False))
             if won.rowcount == 1:  # type: ignore[attr-defined]
                 return session.get(db.Job, pk, populate_existing=True)
         return None
 
 
+def claimer_for(dialect_name: str) -> Claimer:
+    """The claimer for a database: :class:`SkipLockedClaimer` on PostgreSQL, else compare-and-set."""
+    return SkipLockedClaimer() if dialect_name == "postgresql" else CompareAndSetClaimer()
+
+
 def claim_job(factory: sessionmaker[Session], *, worker_id: str, lease_s: float, max_attempts: int,
               claimer: Claimer | None = None) -> JobInfo | None:
-    """Claim the next job; jobs claimed more than ``max_attempts`` times are failed instead."""
-    claimer = claimer or CompareAndSetClaimer()
+    """Claim the next job; jobs claimed more than ``max_attempts`` times are failed instead.
+
+    ``claimer`` defaults to :func:`claimer_for` the session's database.
+    """
     while True:
         with db.session_scope(factory, write=True) as session:
+            claimer = claimer or claimer_for(session.get_bind().dialect.name)
             row = claimer.claim(session, worker_id=worker_id, lease_s=lease_s)
             if row is None:
                 return None
@@ -281,11 +319,14 @@ def finish_job(factory: sessionmaker[Session], job_id: str, *, worker_id: str, s
         return True
 
 
-def release_job(factory: sessionmaker[Session], job_id: str, *, worker_id: str) -> None:
-    """Give a job back to the queue (a worker shutting down); it restarts from the beginning."""
+def release_job(factory: sessionmaker[Session], job_id: str, *, worker_id: str, stage: str = "queued") -> None:
+    """Give a job back to the queue (a worker shutting down); it restarts from the beginning.
+
+    ``stage`` is the status shown while it waits (default ``"queued"``), e.g. why it went back.
+    """
     with db.session_scope(factory, write=True) as session:
         row = _owned(session, job_id, worker_id)
         if row is not None:
             row.state, row.lease_owner, row.lease_expires_at = JobState.queued.value, None, None
             row.attempts = max(row.attempts - 1, 0)
-            row.progress_stage = "queued"
+            row.progress_stage = stage[:64]

@@ -3,6 +3,13 @@
 The worker calls :func:`run_training_job`; the science (tuning, nested validation, offsets, the
 personal-versus-pooled choice) is all in :mod:`models`. This module only moves data between the
 database and those functions and writes the registry record of the new version.
+
+The training call itself goes through a :data:`Compute` function: :func:`compute_here` runs it in
+this process; an executor may run it elsewhere (a Dask cluster). The version is stored only if
+the job is still held by the same claim (``attempts`` unchanged), so a worker whose lease was
+taken over never adds a version; the version row holds its bytes, written in one transaction.
+A job that already stored its version (its worker died before recording the outcome) returns
+that version when claimed again instead of training twice.
 """
 
 from __future__ import annotations
@@ -20,13 +27,35 @@ from models import EPOCH_METRIC_NAMES, Night, TrainingConfig, choose_method, tra
 from . import db, versions
 from .codec import encode_held_out
 from .config import Settings
-from .errors import NotFound, Unprocessable
+from .errors import Conflict, NotFound, Unprocessable
 from .jobs import JobInfo
 from .registry import find_participant, find_study, load_nights
 
-__all__ = ["check_trainable", "refresh_choices", "run_training_job"]
+__all__ = ["Compute", "check_trainable", "compute_here", "refresh_choices", "run_training_job"]
 
 Progress = Callable[[int, int, str], None]
+#: compute(function, kwargs, progress) -> function(**kwargs) computed here or elsewhere; ``progress``
+#: must be called as work advances (it raises to stop the job)
+Compute = Callable[[Callable[..., Any], dict[str, Any], Progress], Any]
+
+
+def compute_here(function: Callable[..., Any], kwargs: dict[str, Any], progress: Progress) -> Any:
+    """Run ``function(**kwargs, progress=progress)`` in this process."""
+    return function(**kwargs, progress=progress)
+
+
+def _check_claim(session: Session, job: JobInfo) -> None:
+    """Lock the job row and make sure this claim of it is still the current one.
+
+    Raises
+    ------
+    Conflict
+        With code ``lease_lost`` if the job finished or was claimed again meanwhile.
+    """
+    row = session.scalar(select(db.Job).where(db.Job.job_id == job.job_id).with_for_update())
+    if row is None or row.state != "running" or row.attempts != job.attempts:
+        raise Conflict("the lease of this training ran out and another worker took the job over; this result "
+                       "was discarded", code="lease_lost")
 
 
 def _config(job: JobInfo, settings: Settings) -> TrainingConfig:
@@ -94,7 +123,7 @@ def _base_info(model: Any, nights: Sequence[Night], config: TrainingConfig, metr
 
 
 def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
-                  progress: Progress) -> dict[str, Any]:
+                  progress: Progress, compute: Compute) -> dict[str, Any]:
     config = _config(job, settings)
     assert job.participant_id is not None
     with db.session_scope(factory) as session:
@@ -102,12 +131,13 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
         participant = find_participant(session, study, job.participant_id)
         nights = load_nights(session, participant=participant, labelled_only=True)
     progress(0, 1, "personal: loading nights")
-    result = train_personal(nights, config=config, progress=progress)
+    result = compute(train_personal, {"nights": nights, "config": config}, progress)
     booster, meta = result.model.to_bytes()
     info = _base_info(result.model, nights, config, _summary(result.summary))
     info["night_metrics"] = _records(result.night_metrics)
     info["offset"] = None
     with db.session_scope(factory, write=True) as session:
+        _check_claim(session, job)
         study = find_study(session, job.study_id)
         participant = find_participant(session, study, job.participant_id)
         version = versions.add_version(session, study=study, participant=participant, booster=booster,
@@ -119,14 +149,14 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
 
 
 def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
-                progress: Progress) -> dict[str, Any]:
+                progress: Progress, compute: Compute) -> dict[str, Any]:
     config = _config(job, settings)
     with db.session_scope(factory) as session:
         study = find_study(session, job.study_id)
         by_participant = {p.participant_id: load_nights(session, participant=p) for p in session.scalars(
             select(db.Participant).where(db.Participant.study_pk == study.pk).order_by(db.Participant.participant_id))}
     progress(0, 1, "pooled: loading nights")
-    result = train_pooled(by_participant, config=config, progress=progress)
+    result = compute(train_pooled, {"nights": by_participant, "config": config}, progress)
     booster, meta = result.model.to_bytes()
     all_nights = [n for nights in by_participant.values() for n in nights]
     held = result.night_metrics
@@ -143,6 +173,7 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
     held_out = [h for rows in result.held_out.values() for h in rows]
     held_out += [h for rows in result.offset_held_out.values() for h in rows]
     with db.session_scope(factory, write=True) as session:
+        _check_claim(session, job)
         study = find_study(session, job.study_id)
         present = set(session.scalars(select(db.Participant.participant_id).where(
             db.Participant.study_pk == study.pk)))
@@ -194,15 +225,33 @@ def _actor(session: Session, job: JobInfo) -> str:
     return session.scalar(select(db.Job.created_by).where(db.Job.job_id == job.job_id)) or "worker"
 
 
+def _stored_result(factory: sessionmaker[Session], job: JobInfo) -> dict[str, Any] | None:
+    """Result of the version this job already stored, None if it stored none."""
+    with db.session_scope(factory) as session:
+        row = session.scalar(select(db.ModelVersion).where(db.ModelVersion.job_id == job.job_id))
+        if row is None:
+            return None
+        out: dict[str, Any] = {"model_version": row.version, "active": row.is_active}
+        if row.participant_pk is not None:
+            out["chosen_method"] = session.scalar(select(db.Participant.chosen_method).where(
+                db.Participant.pk == row.participant_pk))
+        return out
+
+
 def run_training_job(job: JobInfo, *, factory: sessionmaker[Session], settings: Settings,
-                     progress: Progress) -> dict[str, Any]:
+                     progress: Progress, compute: Compute = compute_here) -> dict[str, Any]:
     """Run a claimed training job and return its result (``model_version``, ``active``, ...).
+
+    ``compute`` runs the :mod:`models` training call (default :func:`compute_here`).
 
     Raises
     ------
     NightbankError
         Training errors from :mod:`models` (too few nights, mixed epoch lengths), or
-        :class:`~service.errors.NotFound` if the participant was withdrawn meanwhile.
+        :class:`~service.errors.NotFound` if the participant was withdrawn meanwhile,
+        :class:`~service.errors.Conflict` (``lease_lost``) if another worker took the job over.
     """
+    if (stored := _stored_result(factory, job)) is not None:
+        return stored
     run = {"personal": _run_personal, "pooled": _run_pooled}[job.kind]
-    return run(job, factory, settings, progress)
+    return run(job, factory, settings, progress, compute)

@@ -6,9 +6,11 @@ The callback raises :class:`JobStopped` when the job is cancelled, the lease is 
 worker is shutting down; training stops at its next progress step. On shutdown the job goes back
 to the queue and restarts from the beginning on the next worker.
 
-:class:`LocalExecutor` runs the training in the worker process. Another executor (for example
-one that submits the training to a Dask cluster and relays its progress) implements the same
-one method.
+:class:`LocalExecutor` runs the training in the worker process;
+:class:`service.dask_executor.DaskExecutor` submits it to a Dask cluster (``Settings.executor``,
+see :func:`make_executor`). An executor that cannot run jobs right now (its cluster is unreachable)
+raises :class:`ExecutorUnavailable`: the job goes back to the queue, unchanged but for a status
+saying why it waits, and the worker pauses before claiming again.
 
 ``nightbank serve`` starts ``Settings.job_workers`` worker processes; ``nightbank worker`` runs
 one more in the foreground, on the same or another machine sharing the database.
@@ -37,8 +39,8 @@ from . import db
 from .config import Settings
 from .jobs import JobInfo, JobState, claim_job, finish_job, heartbeat, release_job, report_progress
 
-__all__ = ["JobExecutor", "JobStopped", "LocalExecutor", "ProgressCallback", "Worker", "start_worker_processes",
-           "stop_worker_processes"]
+__all__ = ["ExecutorUnavailable", "JobExecutor", "JobStopped", "LocalExecutor", "ProgressCallback", "Worker",
+           "make_executor", "start_worker_processes", "stop_worker_processes"]
 
 log = logging.getLogger("nightbank.worker")
 
@@ -54,6 +56,10 @@ class JobStopped(Exception):  # noqa: N818  (a signal, not an error)
         self.reason = reason
 
 
+class ExecutorUnavailable(Exception):  # noqa: N818  (a condition to wait out, not a job error)
+    """The executor cannot run jobs now; the message is shown as the status of the waiting job."""
+
+
 class JobExecutor(abc.ABC):
     """Runs one claimed job to completion."""
 
@@ -62,7 +68,8 @@ class JobExecutor(abc.ABC):
         """Run ``job`` and return its JSON result (``{"model_version": n, ...}``).
 
         Must call ``progress`` as work advances and let :class:`JobStopped` propagate.
-        Raises any exception to fail the job; its message becomes the job's error.
+        Raises :class:`ExecutorUnavailable` to put the job back in the queue, any other
+        exception to fail the job; its message becomes the job's error.
         """
 
 
@@ -77,6 +84,15 @@ class LocalExecutor(JobExecutor):
         from .training import run_training_job
 
         return run_training_job(job, factory=self.factory, settings=self.settings, progress=progress)
+
+
+def make_executor(settings: Settings, factory: sessionmaker[Session]) -> JobExecutor:
+    """The executor ``settings.executor`` names (``local`` or ``dask``)."""
+    if settings.executor == "dask":
+        from .dask_executor import DaskExecutor
+
+        return DaskExecutor(settings, factory)
+    return LocalExecutor(settings, factory)
 
 
 class _Lease:
@@ -135,19 +151,26 @@ class Worker:
     factory : sessionmaker, optional
         Built from ``settings`` if not given.
     executor : JobExecutor, optional
-        Default :class:`LocalExecutor`.
+        Default :func:`make_executor` of ``settings``.
+    unavailable_pause_s : float, default=10.0
+        Seconds to wait before claiming again after the executor was unavailable.
     """
 
     def __init__(self, settings: Settings, *, factory: sessionmaker[Session] | None = None,
-                 executor: JobExecutor | None = None) -> None:
+                 executor: JobExecutor | None = None, unavailable_pause_s: float = 10.0) -> None:
         self.settings = settings
         self.factory = factory or db.make_session_factory(db.make_engine(settings))
-        self.executor = executor or LocalExecutor(settings, self.factory)
+        self.executor = executor or make_executor(settings, self.factory)
+        self.unavailable_pause_s = unavailable_pause_s
+        self._paused_until = 0.0
         self.worker_id = f"{socket.gethostname()[:32]}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
         self.stopping = threading.Event()
 
     def run_once(self) -> JobInfo | None:
-        """Claim and run one job; returns the job run, or None if the queue was empty."""
+        """Claim and run one job; returns the job run, or None if the queue was empty or the
+        executor unavailable (the job then went back to the queue)."""
+        if time.monotonic() < self._paused_until:
+            return None
         job = claim_job(self.factory, worker_id=self.worker_id, lease_s=self.settings.lease_s,
                         max_attempts=self.settings.max_attempts)
         if job is None:
@@ -159,6 +182,11 @@ class Worker:
             except JobStopped as stop:
                 self._stopped(job, stop.reason)
                 return job
+            except ExecutorUnavailable as exc:
+                release_job(self.factory, job.job_id, worker_id=self.worker_id, stage=str(exc))
+                log.warning("job %s returned to the queue: %s", job.job_id, exc)
+                self._paused_until = time.monotonic() + self.unavailable_pause_s
+                return None
             except NightbankError as exc:
                 self._finish(job, JobState.failed, error=f"{exc.code}: {exc}")
                 return job
@@ -211,6 +239,8 @@ def settings_env(settings: Settings) -> dict[str, str]:
     """``NIGHTBANK_*`` variables that reproduce ``settings`` in a child process."""
     out = {}
     for name, value in settings.model_dump().items():
+        if value is None:
+            continue
         out[f"NIGHTBANK_{name.upper()}"] = str(value).lower() if isinstance(value, bool) else str(value)
     return out
 
@@ -247,4 +277,7 @@ def main() -> None:
 
 
 if __name__ == "__main__":
-    main()
+    # run the importable module's main, so classes other modules import (ExecutorUnavailable) are the same
+    from service.workers import main as run_worker
+
+    run_worker()

@@ -13,10 +13,16 @@ from models import NightbankError
 from . import app
 from .console import console, err_console
 
-__all__ = ["DbOption", "configure_logging", "fail", "local_settings"]
+__all__ = ["DaskSchedulerOption", "DbOption", "ExecutorOption", "configure_logging", "fail", "local_settings"]
 
 DbOption = Annotated[str | None, typer.Option("--db", help="Database URL (default NIGHTBANK_DB or "
                                                           "sqlite:///./var/nightbank.db).")]
+ExecutorOption = Annotated[str | None, typer.Option(
+    "--executor", help="Where trainings run: 'local' (in the worker process) or 'dask' (default NIGHTBANK_EXECUTOR "
+                       "or local).")]
+DaskSchedulerOption = Annotated[str | None, typer.Option(
+    "--dask-scheduler", help="Dask scheduler address for --executor dask, e.g. tcp://HOST:8786 (default "
+                             "NIGHTBANK_DASK_SCHEDULER).")]
 
 
 def fail(exc: NightbankError) -> typer.Exit:
@@ -26,10 +32,20 @@ def fail(exc: NightbankError) -> typer.Exit:
 
 
 def local_settings(**overrides: Any) -> Any:
-    """Settings from the environment with the given command-line values on top (None = not given)."""
+    """Settings from the environment with the given command-line values on top (None = not given).
+
+    Invalid settings (an unknown executor, dask without a scheduler) exit with code 2 and the reason.
+    """
+    from pydantic import ValidationError
+
     from ..config import Settings
 
-    return Settings(**{k: v for k, v in overrides.items() if v is not None})
+    try:
+        return Settings(**{k: v for k, v in overrides.items() if v is not None})
+    except ValidationError as exc:
+        reasons = "; ".join(f"{'.'.join(map(str, e['loc'])) or 'settings'}: {e['msg']}" for e in exc.errors())
+        err_console.print(f"[bold red]error[/bold red] (invalid_settings): {reasons}")
+        raise typer.Exit(2) from None
 
 
 def log_config(level: str) -> dict[str, Any]:
@@ -74,6 +90,8 @@ def serve(
     db: DbOption = None,
     workers: Annotated[int | None, typer.Option(min=1, help="HTTP worker processes (default 1).")] = None,
     job_workers: Annotated[int | None, typer.Option(min=0, help="Training worker processes (default 1).")] = None,
+    executor: ExecutorOption = None,
+    dask_scheduler: DaskSchedulerOption = None,
     migrate_first: Annotated[bool, typer.Option("--migrate/--no-migrate",
                                                 help="Upgrade the database before starting.")] = True,
 ) -> None:
@@ -85,7 +103,8 @@ def serve(
     from ..migration import check_schema, upgrade
     from ..workers import settings_env, start_worker_processes, stop_worker_processes
 
-    settings = local_settings(host=host, port=port, db=db, workers=workers, job_workers=job_workers)
+    settings = local_settings(host=host, port=port, db=db, workers=workers, job_workers=job_workers,
+                              executor=executor, dask_scheduler=dask_scheduler)
     if migrate_first and settings.auto_migrate:
         upgrade(settings)
     engine = make_engine(settings)
@@ -99,7 +118,8 @@ def serve(
     get_settings.cache_clear()
     processes = start_worker_processes(settings, settings.job_workers)
     console.print(f"nightbank on http://{settings.host}:{settings.port} (docs /docs), {settings.workers} HTTP "
-                  f"worker(s), {settings.job_workers} training worker(s); database {_safe_url(settings.db)}")
+                  f"worker(s), {settings.job_workers} training worker(s){_where(settings)}; database "
+                  f"{_safe_url(settings.db)}")
     try:
         uvicorn.run("service.app:app_from_env", factory=True, host=settings.host, port=settings.port,
                     workers=settings.workers, access_log=False, log_config=log_config(settings.log_level))
@@ -107,16 +127,20 @@ def serve(
         stop_worker_processes(processes)
 
 
+def _where(settings: Any) -> str:
+    return f" training on Dask at {settings.dask_scheduler}" if settings.executor == "dask" else ""
+
+
 @app.command()
-def worker(db: DbOption = None) -> None:
-    """Run one more training worker in the foreground (same database as the server)."""
+def worker(db: DbOption = None, executor: ExecutorOption = None, dask_scheduler: DaskSchedulerOption = None) -> None:
+    """Run one more training worker in the foreground (same database as the server, any machine)."""
     import signal
 
     from ..db import make_engine, make_session_factory
     from ..migration import check_schema
     from ..workers import Worker
 
-    settings = local_settings(db=db)
+    settings = local_settings(db=db, executor=executor, dask_scheduler=dask_scheduler)
     configure_logging(settings.log_level)
     engine = make_engine(settings)
     try:
@@ -126,5 +150,5 @@ def worker(db: DbOption = None) -> None:
     w = Worker(settings, factory=make_session_factory(engine))
     for sig in (signal.SIGTERM, signal.SIGINT):
         signal.signal(sig, lambda *_: w.stopping.set())
-    console.print(f"worker {w.worker_id} waiting for training jobs (Ctrl-C to stop)")
+    console.print(f"worker {w.worker_id} waiting for training jobs{_where(settings)} (Ctrl-C to stop)")
     w.run_forever()

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import signal
 
 import numpy as np
@@ -109,17 +110,80 @@ def test_cancel_queued_and_running_jobs(http, study, admin, start_worker) -> Non
     assert http.get(f"/v1/studies/{study}/participants/P-01/models", headers=admin).json() == []
 
 
-def test_job_of_a_dead_worker_is_taken_over_after_the_lease(http, study, admin, start_worker) -> None:
-    _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+def _registry_intact(factory) -> list[tuple[int, bool, str | None]]:
+    """Every stored version has its model bytes and loads; returns (version, active, job_id) of each."""
+    from sqlalchemy import select
+
+    from service import db, versions
+
+    out = []
+    with db.session_scope(factory) as session:
+        for row in session.scalars(select(db.ModelVersion).order_by(db.ModelVersion.pk)):
+            assert row.booster and len(row.booster) > 0 and row.info["selection"]["value"] is not None
+            info = versions.get_version(session, study=session.get(db.Study, row.study_pk),
+                                        participant=session.get(db.Participant, row.participant_pk),
+                                        version=row.version)
+            assert versions.load_model(session, info).threshold_ == info.info["threshold"]
+            out.append((row.version, row.is_active, row.job_id))
+    return out
+
+
+def test_job_of_a_dead_worker_is_taken_over_after_the_lease(http, study, admin, start_worker, factory) -> None:
+    ids = _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
     job_id = _train(http, admin, study, "P-01", n_trials=10).json()["job_id"]
+    models_url = f"/v1/studies/{study}/participants/P-01/models"
     first = start_worker()
-    wait_for(lambda: _job(http, admin, job_id)["progress"]["done"] > 0)
-    first.send_signal(signal.SIGKILL)
-    first.wait()
-    assert _job(http, admin, job_id)["state"] == "running"  # nobody knows yet
+    wait_for(lambda: (j := _job(http, admin, job_id))["state"] == "running" and j["progress"]["done"] > 0)
+    os.kill(first.pid, signal.SIGKILL)  # mid-training: no chance to give the job back
+    assert first.wait() == -signal.SIGKILL
+    stuck = _job(http, admin, job_id)
+    assert stuck["state"] == "running" and stuck["attempts"] == 1  # nobody knows yet
+    assert stuck["progress"]["done"] < stuck["progress"]["total"]
+    assert http.get(models_url, headers=admin).json() == [] and _registry_intact(factory) == []
     start_worker()
-    job = wait_for(_finished(http, admin, job_id), timeout_s=180)
+    seen: list[list[tuple[int, bool, str | None]]] = []
+
+    def finished():
+        seen.append(_registry_intact(factory))  # checked on every poll while the job runs again
+        return _finished(http, admin, job_id)()
+
+    job = wait_for(finished, timeout_s=180)
     assert job["state"] == "succeeded" and job["attempts"] == 2
+    assert all(s in ([], [(1, True, job_id)]) for s in seen)
+    assert _registry_intact(factory) == [(1, True, job_id)]
+    out = http.get(f"/v1/studies/{study}/participants/P-01/nights/{ids['P-01'][0]}/scoring",
+                   params={"method": "personal"}, headers=admin).json()
+    assert out["model_version"] == 1 and len(out["p_sleep"]) == len(out["sleep"])
+
+
+def test_a_taken_over_claim_stores_nothing_and_a_stored_version_is_not_trained_twice(http, study, admin, settings,
+                                                                                     factory) -> None:
+    import time
+
+    from service.errors import Conflict
+    from service.jobs import claim_job
+    from service.training import run_training_job
+
+    def claim(worker_id: str):
+        return claim_job(factory, worker_id=worker_id, lease_s=1.0, max_attempts=3)
+
+    _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+    job_id = _train(http, admin, study, "P-01", n_trials=2).json()["job_id"]
+    stalled = claim("stalled")
+    time.sleep(1.2)  # its lease runs out while it is still training
+    taker = claim("taker")
+    assert (stalled.attempts, taker.attempts) == (1, 2) and stalled.job_id == taker.job_id == job_id
+    with pytest.raises(Conflict) as lost:
+        run_training_job(stalled, factory=factory, settings=settings, progress=lambda *_: None)
+    assert lost.value.code == "lease_lost" and _registry_intact(factory) == []
+    stored = run_training_job(taker, factory=factory, settings=settings, progress=lambda *_: None)
+    assert stored["model_version"] == 1 and _registry_intact(factory) == [(1, True, job_id)]
+    time.sleep(1.2)  # the taker died after storing its version, before recording the outcome
+    last = claim("last")
+    assert last.attempts == 3
+    steps: list[tuple] = []
+    assert run_training_job(last, factory=factory, settings=settings, progress=lambda *a: steps.append(a)) == stored
+    assert steps == [] and _registry_intact(factory) == [(1, True, job_id)]  # no second training or version
 
 
 def test_failed_job_records_a_readable_error(http, study, admin, start_worker) -> None:
