@@ -9,7 +9,7 @@ Measures, on one core (BLAS limited to one thread):
   is imported;
 - ``reference_ms_per_night``: the same window features for one night through a plain Python loop
   over the 4 x 1,000 windows calling antropy / scipy / statsmodels / pandas / numpy (the R-only
-  features as direct numpy transcriptions of their definitions), after warm-up;
+  features as direct numpy re-statements of their definitions), after warm-up;
 - ``speedup_vs_reference``: reference_ms_per_night / ms_per_night.
 
 All counts are simulated (seeded). Run from the project root: ``python bench/features.py``.

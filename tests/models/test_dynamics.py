@@ -1,7 +1,7 @@
 """Shift, lumpiness, stability, flat-spot, crossing and autocorrelation features.
 
 References: R tsfeatures 1.1.1 check values (feature-references.md §2), statsmodels 0.15 ``acf``,
-pandas 3.1 ``cut``. Per-window loops use small transcriptions of the R definitions that are
+pandas 3.1 ``cut``. Per-window loops use small re-statements of the R definitions that are
 themselves checked against the R values first.
 """
 
@@ -41,7 +41,7 @@ def _whole(x: np.ndarray) -> CentredWindows:
     return CentredWindows(x, x.size)  # every window covers the whole series
 
 
-# ---- transcriptions of the R definitions (tsfeatures 1.1.1), for per-window loops ----------
+# ---- re-statements of the R definitions (tsfeatures 1.1.1), for per-window loops ----------
 
 def _r_max_shift(x: np.ndarray, width: int, *, var: bool) -> float:
     """R max_level_shift / max_var_shift on a NaN-free window; NaN where R returns 0 (no pairs)."""
