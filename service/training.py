@@ -28,10 +28,11 @@ from . import db, versions
 from .codec import encode_held_out
 from .config import Settings
 from .errors import Conflict, NotFound, Unprocessable
-from .jobs import JobInfo
+from .db import session_scope
+from .jobs import JobInfo, enqueue_job
 from .registry import find_participant, find_study, load_nights
 
-__all__ = ["Compute", "check_trainable", "compute_here", "refresh_choices", "run_training_job"]
+__all__ = ["Compute", "check_trainable", "compute_here", "queue_training", "refresh_choices", "run_training_job"]
 
 Progress = Callable[[int, int, str], None]
 #: compute(function, kwargs, progress) -> function(**kwargs) computed here or elsewhere; ``progress``
@@ -77,6 +78,32 @@ def check_trainable(session: Session, *, participant: db.Participant) -> None:
     if have < needed:
         raise Unprocessable(f"a personal model needs {needed} labelled nights; participant "
                             f"{participant.participant_id!r} has {have}", code="too_few_labelled_nights")
+
+
+def queue_training(factory: sessionmaker[Session], *, study_id: str, participant_id: str | None,
+                   params: dict[str, Any], actor: str) -> tuple[JobInfo, bool]:
+    """Queue a personal (``participant_id`` given) or pooled training; the one way the API and pages do it.
+
+    Returns the job and whether it was created (False: the one already queued or running).
+
+    Raises
+    ------
+    NotFound
+        If the study or participant does not exist.
+    Unprocessable
+        If a personal training has too few labelled nights (:func:`check_trainable`).
+    """
+    with session_scope(factory) as session:
+        study = find_study(session, study_id)
+        participant_pk = None
+        if participant_id is not None:
+            participant = find_participant(session, study, participant_id)
+            check_trainable(session, participant=participant)
+            participant_pk = participant.pk
+        study_pk = study.pk
+    return enqueue_job(factory, kind="pooled" if participant_id is None else "personal", study_pk=study_pk,
+                       participant_pk=participant_pk, params=params, actor=actor, study_id=study_id,
+                       subject=participant_id or "pooled")
 
 
 def _finite(value: Any) -> float | None:

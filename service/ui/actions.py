@@ -1,6 +1,6 @@
 """Form actions of the pages: start a training job, and the job status read by the progress bar.
 
-Training goes through the service's job queue (:func:`service.jobs.enqueue_job`), exactly like
+Training goes through the service's job queue (:func:`service.training.queue_training`), exactly like
 ``POST /v1/studies/{study}/.../training``: the same checks, the same one-job-per-target rule,
 and the same audit record. The status route is the page-session twin of ``GET /v1/jobs/{id}``
 (the page's script cannot send the bearer token: the cookie is HttpOnly).
@@ -13,12 +13,12 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Form, Path, Request
 from fastapi.responses import RedirectResponse
 
-from .. import jobs, registry
+from .. import jobs
 from ..api.deps import FactoryDep, SettingsDep
 from ..db import session_scope
 from ..errors import Forbidden, NotFound
 from ..tokens import Principal, Role
-from ..training import check_trainable
+from ..training import queue_training
 from .access import UI_PREFIX, StudyPage, check_origin, page_principal
 from .pages import ParticipantPath
 
@@ -38,14 +38,8 @@ def train_personal(request: Request, access: StudyPage, pid: ParticipantPath, fa
     """Queue a personal training (analyst) and go back to the participant page, which shows its progress."""
     check_origin(request)
     access.require(Role.analyst)
-    with session_scope(factory) as session:
-        study = registry.find_study(session, access.study_id)
-        participant = registry.find_participant(session, study, pid)
-        check_trainable(session, participant=participant)
-        study_pk, participant_pk = study.pk, participant.pk
-    job, _ = jobs.enqueue_job(factory, kind="personal", study_pk=study_pk, participant_pk=participant_pk,
-                              params=_params(n_trials, settings.n_trials), actor=access.actor,
-                              study_id=access.study_id, subject=pid)
+    job, _ = queue_training(factory, study_id=access.study_id, participant_id=pid,
+                            params=_params(n_trials, settings.n_trials), actor=access.actor)
     return RedirectResponse(f"{UI_PREFIX}/studies/{access.study_id}/participants/{pid}?job={job.job_id}#training",
                             status_code=303)
 
@@ -56,11 +50,8 @@ def train_pooled(request: Request, access: StudyPage, factory: FactoryDep, setti
     """Queue the study's pooled training (analyst) and go back to the study page."""
     check_origin(request)
     access.require(Role.analyst)
-    with session_scope(factory) as session:
-        study_pk = registry.find_study(session, access.study_id).pk
-    job, _ = jobs.enqueue_job(factory, kind="pooled", study_pk=study_pk, participant_pk=None,
-                              params=_params(n_trials, settings.n_trials), actor=access.actor,
-                              study_id=access.study_id, subject="pooled")
+    job, _ = queue_training(factory, study_id=access.study_id, participant_id=None,
+                            params=_params(n_trials, settings.n_trials), actor=access.actor)
     return RedirectResponse(f"{UI_PREFIX}/studies/{access.study_id}?job={job.job_id}#training", status_code=303)
 
 

@@ -12,7 +12,7 @@ from ...db import session_scope
 from ...errors import NotFound
 from ...jobs import JobInfo
 from ...tokens import Principal, Role
-from ...training import check_trainable, refresh_choices
+from ...training import queue_training, refresh_choices
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
 from ..schemas import JobAccepted, JobOut, ModelVersionOut, Progress, TrainingIn
@@ -44,14 +44,8 @@ def _params(body: TrainingIn | None, default_trials: int) -> dict[str, Any]:
 def train_personal(access: AnalystAccess, pid: ParticipantPath, factory: FactoryDep, settings: SettingsDep,
                    body: OptionalTraining = None) -> Any:
     """Queue the training of a participant's personal model (returns the running job if one exists)."""
-    with session_scope(factory) as session:
-        study = registry.find_study(session, access.study_id)
-        participant = registry.find_participant(session, study, pid)
-        check_trainable(session, participant=participant)
-        study_pk, participant_pk = study.pk, participant.pk
-    job, created = jobs.enqueue_job(factory, kind="personal", study_pk=study_pk, participant_pk=participant_pk,
-                                    params=_params(body, settings.n_trials), actor=access.actor,
-                                    study_id=access.study_id, subject=pid)
+    job, created = queue_training(factory, study_id=access.study_id, participant_id=pid,
+                                  params=_params(body, settings.n_trials), actor=access.actor)
     return _accepted(job, created)
 
 
@@ -59,11 +53,8 @@ def train_personal(access: AnalystAccess, pid: ParticipantPath, factory: Factory
 def train_pooled(access: AnalystAccess, factory: FactoryDep, settings: SettingsDep,
                  body: OptionalTraining = None) -> Any:
     """Queue the training of the study's pooled model (returns the running job if one exists)."""
-    with session_scope(factory) as session:
-        study_pk = registry.find_study(session, access.study_id).pk
-    job, created = jobs.enqueue_job(factory, kind="pooled", study_pk=study_pk, participant_pk=None,
-                                    params=_params(body, settings.n_trials), actor=access.actor,
-                                    study_id=access.study_id, subject="pooled")
+    job, created = queue_training(factory, study_id=access.study_id, participant_id=None,
+                                  params=_params(body, settings.n_trials), actor=access.actor)
     return _accepted(job, created)
 
 
