@@ -25,7 +25,7 @@ test: install
 	$(BIN)/python -m pytest -q
 
 bench: install
-	@for b in bench/*.py; do echo "== $$b"; $(BIN)/python $$b || exit 1; done
+	@for b in bench/[!_]*.py; do echo "== $$b"; $(BIN)/python $$b || exit 1; done
 
 serve: install
 	mkdir -p var

@@ -21,14 +21,8 @@ p99 <= 250 ms, 0 errors, >= 100 nights/s ingest. The last printed line is one JS
 from __future__ import annotations
 
 import json
-import os
 import random
-import shutil
-import socket
 import sqlite3
-import subprocess
-import sys
-import tempfile
 import threading
 import time
 from collections import deque
@@ -37,6 +31,7 @@ from pathlib import Path
 
 import httpx
 import numpy as np
+from _served import served
 
 SEED = 20261202
 N_PARTICIPANTS = 32
@@ -47,13 +42,6 @@ METHODS = ("auto", "pooled", "cole-kripke", "sadeh", "count-threshold", "cole-kr
            "count-threshold+webster")
 MODEL_METHODS = ("auto", "pooled")
 WARM_LIMIT_S = 180.0
-EXE = shutil.which("nightbank", path=str(Path(sys.executable).parent)) or "nightbank"
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
 
 
 def _study() -> dict[str, list[bytes]]:
@@ -76,35 +64,10 @@ def _wait_job(client: httpx.Client, job_id: str) -> dict:
 
 
 def main() -> None:
-    workdir = Path(tempfile.mkdtemp(prefix="nightbank-bench-"))
-    port = _free_port()
-    db = f"sqlite:///{workdir / 'bench.db'}"
-    env = {**os.environ, "NIGHTBANK_LOG_LEVEL": "WARNING"}
-    subprocess.run([EXE, "migrate", "--db", db], check=True, capture_output=True, env=env)
-    token = subprocess.run([EXE, "token", "create", "--role", "admin", "--db", db], check=True, capture_output=True,
-                           text=True, env=env).stdout.strip().splitlines()[-1]
-    server = subprocess.Popen([EXE, "serve", "--db", db, "--port", str(port), "--workers", "4", "--job-workers", "2"],
-                              env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    base = f"http://127.0.0.1:{port}"
-    headers = {"Authorization": f"Bearer {token}"}
-    try:
-        with httpx.Client(base_url=base, headers=headers, timeout=600) as client:
-            deadline = time.monotonic() + 60
-            while True:
-                try:
-                    if client.get("/healthz").status_code == 200:
-                        break
-                except httpx.TransportError:
-                    pass
-                if time.monotonic() > deadline:
-                    raise RuntimeError("the server did not start")
-                time.sleep(0.2)
+    with served("nightbank-bench-", workers=4, job_workers=2) as inst:
+        with httpx.Client(base_url=inst.base, headers=inst.headers, timeout=600) as client:
             client.post("/v1/studies", json={"study_id": "bench", "name": "bench (simulated)"}).raise_for_status()
-            figures = _run(client, base, headers, workdir / "bench.db")
-    finally:
-        server.terminate()
-        server.wait(30)
-        shutil.rmtree(workdir, ignore_errors=True)
+            figures = _run(client, inst.base, inst.headers, inst.db_path)
     print(json.dumps(figures))
 
 

@@ -21,18 +21,13 @@ from __future__ import annotations
 import json
 import os
 import random
-import shutil
-import socket
-import subprocess
-import sys
-import tempfile
 import threading
 import time
-from pathlib import Path
 
 import httpx
 import numpy as np
 import pandas as pd
+from _served import served
 
 SEED = 20261203
 N_PARTICIPANTS = 16
@@ -40,13 +35,6 @@ NIGHTS_EACH = 5
 RULES = ("cole-kripke", "cole-kripke+webster", "sadeh", "sadeh+webster", "count-threshold",
          "count-threshold+webster")
 MIX = (("ingest", 0.3), ("scoring", 0.4), ("listing", 0.3))
-EXE = shutil.which("nightbank", path=str(Path(sys.executable).parent)) or "nightbank"
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
 
 
 def _night_body(seed: int, participant_id: str) -> bytes:
@@ -117,30 +105,10 @@ def main() -> None:
     seconds = float(os.environ.get("NIGHTBANK_LOAD_SECONDS", "60"))
     clients = int(os.environ.get("NIGHTBANK_LOAD_CLIENTS", "32"))
     workers = int(os.environ.get("NIGHTBANK_LOAD_WORKERS", "2"))
-    workdir = Path(tempfile.mkdtemp(prefix="nightbank-load-"))
-    port = _free_port()
-    db = f"sqlite:///{workdir / 'load.db'}"
-    env = {**os.environ, "NIGHTBANK_LOG_LEVEL": "WARNING"}
-    subprocess.run([EXE, "migrate", "--db", db], check=True, capture_output=True, env=env)
-    token = subprocess.run([EXE, "token", "create", "--role", "admin", "--db", db], check=True, capture_output=True,
-                           text=True, env=env).stdout.strip().splitlines()[-1]
-    server = subprocess.Popen([EXE, "serve", "--db", db, "--port", str(port), "--workers", str(workers),
-                               "--job-workers", "0"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    base = f"http://127.0.0.1:{port}"
-    headers = {"Authorization": f"Bearer {token}"}
     traffic = Traffic()
-    try:
+    with served("nightbank-load-", workers=workers, job_workers=0) as inst:
+        base, headers = inst.base, inst.headers
         with httpx.Client(base_url=base, headers=headers, timeout=60) as client:
-            deadline = time.monotonic() + 60
-            while True:
-                try:
-                    if client.get("/healthz").status_code == 200:
-                        break
-                except httpx.TransportError:
-                    pass
-                if time.monotonic() > deadline:
-                    raise RuntimeError("the server did not start")
-                time.sleep(0.2)
             client.post("/v1/studies", json={"study_id": "load", "name": "load (simulated)"}).raise_for_status()
             for p in range(N_PARTICIPANTS):
                 pid = f"L-{p:02d}"
@@ -165,10 +133,6 @@ def main() -> None:
         for t in threads:
             t.join()
         wall_s = time.perf_counter() - t0
-    finally:
-        server.terminate()
-        server.wait(30)
-        shutil.rmtree(workdir, ignore_errors=True)
     everything = np.concatenate([np.asarray(v) for v in traffic.latencies.values()])
     figures = {
         "requests_per_s": round(everything.size / wall_s, 1),
