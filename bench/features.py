@@ -26,8 +26,8 @@ import warnings
 import numpy as np
 from threadpoolctl import threadpool_limits
 
-from models.features import FeatureConfig, compute_features
-from models.windows import half_width_epochs
+from models.features.matrix import FeatureConfig, compute_features
+from models.features.windows import half_width_epochs
 
 N_NIGHTS, N_EPOCHS, LONG_EPOCHS, EPOCH_SECONDS = 200, 1000, 40_320, 30
 

@@ -1,9 +1,9 @@
 """Quality of personal, pooled and pooled+offset models against the classical rules (SIMULATED data).
 
-Runs the full study comparison (:func:`models.comparison.compare_study`, default settings: 30
+Runs the full study comparison (:func:`models.learning.study_comparison.compare_study`, default settings: 30
 trials, ``n_jobs=2``) on two simulated cohorts:
 
-- ``demo``: the demo study (``models.demo_study.demo_nights()``);
+- ``demo``: the demo study (``models.simulation.demo_study.demo_nights()``);
 - ``second``: ``simulate_cohort(CohortSpec(spread=1.4, id_prefix="QB"), seed=424242)``, wider
   person-to-person differences, never used while developing the models.
 
@@ -37,11 +37,11 @@ from sklearn.metrics import balanced_accuracy_score
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from models.comparison import COMPARED_RULES, compare_study  # noqa: E402
-from models.demo_study import demo_nights  # noqa: E402
-from models.offset import estimate_offset  # noqa: E402
-from models.simulation import CohortSpec, simulate_cohort  # noqa: E402
-from models.training import TrainingConfig  # noqa: E402
+from models.learning.study_comparison import COMPARED_RULES, compare_study  # noqa: E402
+from models.simulation.demo_study import demo_nights  # noqa: E402
+from models.learning.offset import estimate_offset  # noqa: E402
+from models.simulation.simulator import CohortSpec, simulate_cohort  # noqa: E402
+from models.learning.training import TrainingConfig  # noqa: E402
 
 METHODS = ("personal", "pooled", "pooled+offset", *COMPARED_RULES, "always-sleep")
 

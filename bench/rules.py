@@ -7,8 +7,8 @@ Simulates 1,000 nights of 1,000 epochs of 30-s counts (seeded) and times, on one
 - ``plain_rules_nights_per_s``: the same without Webster rescoring;
 - ``six_sequences_nights_per_s``: the three rules once each, every result also Webster-rescored,
   and the parameters of all six sequences (what a rule comparison computes per night);
-- ``continuous_scores_nights_per_s``: :func:`models.rules.continuous_scores` (feature input);
-- ``parameters_per_s``: one :func:`models.parameters.sleep_parameters` call.
+- ``continuous_scores_nights_per_s``: :func:`models.scoring.rules.continuous_scores` (feature input);
+- ``parameters_per_s``: one :func:`models.scoring.parameters.sleep_parameters` call.
 
 Rates use the CPU time of this process (``time.process_time``), so other work on a shared
 machine does not count against them; ``wall_nights_per_s`` gives the headline in wall time too.
@@ -24,9 +24,9 @@ import time
 
 import numpy as np
 
-from models.parameters import sleep_parameters
-from models.rescoring import webster_rescore
-from models.rules import METHOD_IDS, RULES, continuous_scores, score_with_rule
+from models.scoring.parameters import sleep_parameters
+from models.scoring.rescoring import webster_rescore
+from models.scoring.rules import METHOD_IDS, RULES, continuous_scores, score_with_rule
 
 N_NIGHTS = 1_000
 N_EPOCHS = 1_000

@@ -3,7 +3,7 @@ features and models. Plain Python (numpy, pandas, scikit-learn, XGBoost, Optuna)
 database code. ``__all__`` is the only surface the service may import.
 """
 
-from .agreement import (
+from .agreement.bland_altman import (
     BLAND_ALTMAN_PARAMETERS,
     REFERENCE,
     BlandAltman,
@@ -13,14 +13,14 @@ from .agreement import (
     bland_altman_table,
     compare_rules_with_reference,
 )
-from .checks import NightOptions, QCConfig, QCFlag, quality_flags, validate_night_fields
-from .artifacts import InvalidModelArtifactError, load_model, model_from_bytes, model_to_bytes, save_model
-from .classifier import SleepModel
-from .comparison import COMPARED_RULES, MODEL_METHODS, StudyComparison, choose_method, compare_study
-from .demo_study import DEMO_STUDY_ID, demo_nights, write_demo_study
+from .nights.checks import NightOptions, QCConfig, QCFlag, quality_flags, validate_night_fields
+from .learning.artifacts import InvalidModelArtifactError, load_model, model_from_bytes, model_to_bytes, save_model
+from .learning.classifier import SleepModel
+from .learning.study_comparison import COMPARED_RULES, MODEL_METHODS, StudyComparison, choose_method, compare_study
+from .simulation.demo_study import DEMO_STUDY_ID, demo_nights, write_demo_study
 from .errors import InvalidNightError, NightbankError, NotFittedError, Problem
-from .feature_cache import FeatureCache
-from .features import (
+from .features.cache import FeatureCache
+from .features.matrix import (
     FAMILIES,
     FeatureConfig,
     FeatureInputError,
@@ -29,21 +29,21 @@ from .features import (
     check_feature_set,
     compute_features,
 )
-from .io import COLUMN_ALIASES, detect_format, night_from_json, night_to_json, read_night
-from .metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep, epoch_agreement
-from .night import SUPPORTED_EPOCH_SECONDS, Night, canonical_stage, stages_to_sleep
-from .offset import ShrinkageChoice, choose_shrinkage, estimate_offset
-from .parameters import PARAMETER_NAMES, SleepParameters, sleep_parameters
-from .personal import PersonalResult, train_personal
-from .pooled import PooledResult, participant_offset, train_pooled
-from .resample import aggregate_epochs
-from .rescoring import webster_rescore
-from .rules import METHOD_IDS, RULES, RuleScoring, UnknownMethodError, continuous_scores, score_with_rule
-from .simulation import CohortSpec, SimulatedNight, simulate_cohort
-from .splits import SPLITTERS, ForwardChainedSplit, TooFewNightsError
-from .tabular import night_from_csv, night_from_parquet, night_to_csv, night_to_parquet
-from .tasks import Progress, TrainingCancelled
-from .training import (
+from .nights.json_io import COLUMN_ALIASES, detect_format, night_from_json, night_to_json, read_night
+from .agreement.epoch_metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep, epoch_agreement
+from .nights.night import SUPPORTED_EPOCH_SECONDS, Night, canonical_stage, stages_to_sleep
+from .learning.offset import ShrinkageChoice, choose_shrinkage, estimate_offset
+from .scoring.parameters import PARAMETER_NAMES, SleepParameters, sleep_parameters
+from .learning.personal import PersonalResult, train_personal
+from .learning.pooled import PooledResult, participant_offset, train_pooled
+from .nights.resample import aggregate_epochs
+from .scoring.rescoring import webster_rescore
+from .scoring.rules import METHOD_IDS, RULES, RuleScoring, UnknownMethodError, continuous_scores, score_with_rule
+from .simulation.simulator import CohortSpec, SimulatedNight, simulate_cohort
+from .learning.splits import SPLITTERS, ForwardChainedSplit, TooFewNightsError
+from .nights.tabular import night_from_csv, night_from_parquet, night_to_csv, night_to_parquet
+from .learning.tasks import Progress, TrainingCancelled
+from .learning.training import (
     CHOICE_POLICIES,
     DESCRIPTOR_NAMES,
     HeldOutNight,

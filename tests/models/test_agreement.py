@@ -16,12 +16,12 @@ import pytest
 import statsmodels.api as sm
 from statsmodels.graphics.agreement import mean_diff_plot
 
-from models.agreement import (BLAND_ALTMAN_PARAMETERS, REFERENCE, NightRecord, bland_altman, bland_altman_table,
+from models.agreement.bland_altman import (BLAND_ALTMAN_PARAMETERS, REFERENCE, NightRecord, bland_altman, bland_altman_table,
                               compare_rules_with_reference)
-from models.metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, epoch_agreement
-from models.parameters import PARAMETER_NAMES, sleep_parameters
-from models.rescoring import InvalidSleepVectorError
-from models.rules import METHOD_IDS, score_with_rule
+from models.agreement.epoch_metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, epoch_agreement
+from models.scoring.parameters import PARAMETER_NAMES, sleep_parameters
+from models.scoring.rescoring import InvalidSleepVectorError
+from models.scoring.rules import METHOD_IDS, score_with_rule
 
 matplotlib.use("Agg")
 

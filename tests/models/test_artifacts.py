@@ -11,14 +11,14 @@ import numpy as np
 import pytest
 import xgboost as xgb
 
-from models.artifacts import InvalidModelArtifactError, load_model, model_from_bytes, save_model
-from models.classifier import Projection, SleepModel
-from models.features import FeatureConfig, FeatureSetMismatchError
-from models.io import night_to_json
-from models.night import Night
-from models.pooled import train_pooled
-from models.simulation import CohortSpec, simulate_cohort
-from models.training import TrainingConfig, night_features
+from models.learning.artifacts import InvalidModelArtifactError, load_model, model_from_bytes, save_model
+from models.learning.classifier import Projection, SleepModel
+from models.features.matrix import FeatureConfig, FeatureSetMismatchError
+from models.nights.json_io import night_to_json
+from models.nights.night import Night
+from models.learning.pooled import train_pooled
+from models.simulation.simulator import CohortSpec, simulate_cohort
+from models.learning.training import TrainingConfig, night_features
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -78,8 +78,8 @@ def test_model_loads_in_a_fresh_process_with_identical_predictions(personal_with
     night_file.write_text(json.dumps(night_to_json(nights[1])))
     script = (
         "import json, sys\n"
-        "from models.artifacts import load_model\n"
-        "from models.io import read_night\n"
+        "from models.learning.artifacts import load_model\n"
+        "from models.nights.json_io import read_night\n"
         "model = load_model(sys.argv[1])\n"
         "p = model.predict_proba(read_night(sys.argv[2]))\n"
         "print(json.dumps([float(v).hex() for v in p]))\n")

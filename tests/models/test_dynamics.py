@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 from statsmodels.tsa.stattools import acf
 
-from models.dynamics import (
+from models.features.dynamics import (
     crossing_points,
     flat_spots,
     lag1_autocorrelation,
@@ -21,7 +21,7 @@ from models.dynamics import (
     max_var_shift,
     stability,
 )
-from models.windows import CentredWindows
+from models.features.windows import CentredWindows
 
 X30 = np.array([0, 0, 3, 12, 0, 0, 0, 45, 80, 2, 0, 0, 0, 0, 7, 0, 0, 1, 0, 0, 150, 90, 10, 0, 0, 0, 0, 0, 0, 4],
                dtype=float)  # feature-references.md §2

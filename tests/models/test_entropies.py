@@ -12,8 +12,8 @@ import warnings
 import numpy as np
 import pytest
 
-from models.entropies import permutation_entropy, sample_entropy, spectral_entropy
-from models.windows import CentredWindows
+from models.features.entropies import permutation_entropy, sample_entropy, spectral_entropy
+from models.features.windows import CentredWindows
 
 X30 = np.array([0, 0, 3, 12, 0, 0, 0, 45, 80, 2, 0, 0, 0, 0, 7, 0, 0, 1, 0, 0, 150, 90, 10, 0, 0, 0, 0, 0, 0, 4],
                dtype=float)  # feature-references.md §2

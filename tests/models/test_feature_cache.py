@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from models.feature_cache import FeatureCache
-from models.features import (
+from models.features.cache import FeatureCache
+from models.features.matrix import (
     FeatureConfig,
     FeatureInputError,
     FeatureMatrix,

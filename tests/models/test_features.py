@@ -10,7 +10,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from models.features import (
+from models.features.matrix import (
     FAMILIES,
     FeatureConfig,
     FeatureInputError,
@@ -19,7 +19,7 @@ from models.features import (
     check_feature_set,
     compute_features,
 )
-from models.windows import half_width_epochs
+from models.features.windows import half_width_epochs
 
 WINDOW_ONLY = FeatureConfig(families=("summary", "dynamics"))
 LOCAL_NAME = re.compile(r"_\d+(\.\d+)?m$")  # window features end in the window length, e.g. "_10m"
@@ -212,7 +212,7 @@ def test_context_features_by_hand():
 
 
 def test_rule_scores_are_the_rules_continuous_scores():
-    from models.rules import continuous_scores
+    from models.scoring.rules import continuous_scores
 
     x = _night(300, 4)
     x[10] = np.nan

@@ -14,9 +14,9 @@ import pandas as pd
 import pytest
 from sklearn import metrics as skm
 
-from models.metrics import (ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep,
+from models.agreement.epoch_metrics import (ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep,
                             epoch_agreement)
-from models.rescoring import InvalidSleepVectorError
+from models.scoring.rescoring import InvalidSleepVectorError
 
 
 def _counts(y, p):

@@ -9,11 +9,11 @@ from scipy.optimize import minimize_scalar
 from scipy.special import expit
 
 from models.errors import NightbankError
-from models.metrics import epoch_agreement
-from models.offset import choose_shrinkage, estimate_offset, offset_log_likelihood
-from models.pooled import participant_offset, train_pooled
-from models.simulation import CohortSpec, PersonTraits, simulate_cohort, simulate_night
-from models.training import TrainingConfig, participant_descriptors
+from models.agreement.epoch_metrics import epoch_agreement
+from models.learning.offset import choose_shrinkage, estimate_offset, offset_log_likelihood
+from models.learning.pooled import participant_offset, train_pooled
+from models.simulation.simulator import CohortSpec, PersonTraits, simulate_cohort, simulate_night
+from models.learning.training import TrainingConfig, participant_descriptors
 
 
 def _balanced_weights(y: np.ndarray) -> np.ndarray:

@@ -17,8 +17,8 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from models.parameters import PARAMETER_NAMES, InvalidInBedIntervalError, SleepParameters, sleep_parameters
-from models.rescoring import InvalidSleepVectorError, UnsupportedEpochLengthError
+from models.scoring.parameters import PARAMETER_NAMES, InvalidInBedIntervalError, SleepParameters, sleep_parameters
+from models.scoring.rescoring import InvalidSleepVectorError, UnsupportedEpochLengthError
 
 NAN = float("nan")
 

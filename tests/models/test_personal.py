@@ -9,10 +9,10 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_auc_score
 
-from models.night import Night
-from models.personal import train_personal
-from models.simulation import CohortSpec, simulate_cohort
-from models.training import TrainingConfig, TrainingDataError
+from models.nights.night import Night
+from models.learning.personal import train_personal
+from models.simulation.simulator import CohortSpec, simulate_cohort
+from models.learning.training import TrainingConfig, TrainingDataError
 
 CONFIG = TrainingConfig(n_trials=3, max_rounds=60)
 

@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from models.night import Night
-from models.pooled import train_pooled
-from models.simulation import CohortSpec, simulate_cohort
-from models.training import DESCRIPTOR_NAMES, TrainingConfig, TrainingDataError, participant_descriptors
+from models.nights.night import Night
+from models.learning.pooled import train_pooled
+from models.simulation.simulator import CohortSpec, simulate_cohort
+from models.learning.training import DESCRIPTOR_NAMES, TrainingConfig, TrainingDataError, participant_descriptors
 
 CONFIG = TrainingConfig(pooled_folds=3, max_rounds=80)
 

@@ -14,7 +14,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from models.rescoring import (InvalidSleepVectorError, UnsupportedEpochLengthError, as_sleep_vector, run_lengths,
+from models.scoring.rescoring import (InvalidSleepVectorError, UnsupportedEpochLengthError, as_sleep_vector, run_lengths,
                               webster_rescore)
 
 

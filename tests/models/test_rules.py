@@ -17,8 +17,8 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from models.errors import NightbankError
-from models.rescoring import UnsupportedEpochLengthError, webster_rescore
-from models.rules import (METHOD_IDS, RULES, InvalidRuleOptionError, UnknownMethodError, continuous_scores,
+from models.scoring.rescoring import UnsupportedEpochLengthError, webster_rescore
+from models.scoring.rules import (METHOD_IDS, RULES, InvalidRuleOptionError, UnknownMethodError, continuous_scores,
                           score_with_rule)
 
 

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from sklearn.model_selection import GroupKFold, LeaveOneGroupOut, TimeSeriesSplit
 
-from models.splits import SPLITTERS, ForwardChainedSplit, TooFewNightsError
+from models.learning.splits import SPLITTERS, ForwardChainedSplit, TooFewNightsError
 
 
 @st.composite

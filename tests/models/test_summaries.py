@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 import scipy.stats as st
 
-from models.summaries import SUMMARY_STATISTICS, window_shares, window_summaries
-from models.windows import CentredWindows
+from models.features.summaries import SUMMARY_STATISTICS, window_shares, window_summaries
+from models.features.windows import CentredWindows
 
 # feature-references.md §2 inputs (exact)
 X30 = np.array([0, 0, 3, 12, 0, 0, 0, 45, 80, 2, 0, 0, 0, 0, 7, 0, 0, 1, 0, 0, 150, 90, 10, 0, 0, 0, 0, 0, 0, 4],

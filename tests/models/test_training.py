@@ -9,11 +9,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from models.feature_cache import FeatureCache
-from models.features import compute_features
-from models.night import Night
-from models.tasks import Reporter, run_tasks
-from models.training import InvalidTrainingConfigError, TrainingConfig, labelled_nights, night_features, prepare_nights
+from models.features.cache import FeatureCache
+from models.features.matrix import compute_features
+from models.nights.night import Night
+from models.learning.tasks import Reporter, run_tasks
+from models.learning.training import InvalidTrainingConfigError, TrainingConfig, labelled_nights, night_features, prepare_nights
 
 
 def _night(reference: list[str] | None, *, day: int = 0, lights_off_s: int | None = None) -> Night:

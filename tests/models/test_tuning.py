@@ -7,8 +7,8 @@ import optuna
 import pytest
 from sklearn.metrics import balanced_accuracy_score, recall_score
 
-from models.training import TrainingConfig
-from models.tuning import PCA_CHOICES, WARM_START, booster_params, suggest_hyperparameters, youden_threshold
+from models.learning.training import TrainingConfig
+from models.learning.tuning import PCA_CHOICES, WARM_START, booster_params, suggest_hyperparameters, youden_threshold
 
 
 def test_search_space_accepts_the_warm_start_configuration() -> None:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from models.windows import (
+from models.features.windows import (
     CentredWindows,
     half_width_epochs,
     rolling_mean_var,

@@ -1,0 +1,211 @@
+"""Epoch-by-epoch agreement between a reference and a predicted sleep/wake sequence.
+
+Sleep is the positive class (1 = sleep, 0 = wake). Reference epochs that are NaN (unscored,
+excluded) are dropped before anything is computed and counted in ``excluded_epochs``.
+The metrics come from scikit-learn; where a metric is undefined for the data at hand it is
+NaN, never a warning:
+
+=====================  =====================================  ==========================================
+name                   definition                             NaN when
+=====================  =====================================  ==========================================
+sensitivity            TP / (TP + FN), sleep recall           no reference sleep
+specificity            TN / (TN + FP), wake recall            no reference wake
+ppv / npv              TP / (TP + FP), TN / (TN + FN)         nothing predicted sleep / wake
+accuracy               (TP + TN) / N                          no epochs
+balanced_accuracy      (sensitivity + specificity) / 2        reference holds a single class
+f1_sleep / f1_wake     2TP / (2TP + FP + FN), same for wake   class absent from reference and prediction
+kappa                  Cohen's kappa                          both sequences hold the same single class
+pabak                  2 x accuracy - 1                       no epochs
+mcc                    Matthews correlation coefficient       either sequence holds a single class
+auc                    ROC AUC of the continuous score        no score, a non-finite score, or one class
+=====================  =====================================  ==========================================
+
+(scikit-learn returns 0 for an undefined MCC; here it is NaN.) Every name is "higher is better".
+Summaries (:func:`agreement_table`) are reported per night, per participant (mean and SD across
+nights) and pooled over all epochs, each row labelled by ``level``: pooled figures hide the
+spread between people.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike, NDArray
+from sklearn.metrics import (accuracy_score, balanced_accuracy_score, cohen_kappa_score, matthews_corrcoef,
+                             precision_recall_fscore_support, roc_auc_score)
+
+from ..scoring.rescoring import InvalidSleepVectorError, as_sleep_vector
+
+__all__ = ["ALWAYS_SLEEP", "EPOCH_METRIC_NAMES", "ScoredNight", "agreement_table", "always_sleep", "epoch_agreement"]
+
+#: Method label of the "always sleep" baseline.
+ALWAYS_SLEEP = "always-sleep"
+#: Stable order of the metric columns.
+EPOCH_METRIC_NAMES: tuple[str, ...] = (
+    "sensitivity", "specificity", "ppv", "npv", "accuracy", "balanced_accuracy",
+    "f1_sleep", "f1_wake", "kappa", "pabak", "mcc", "auc",
+)
+_LABELS = [0, 1]
+
+
+def always_sleep(reference: ArrayLike) -> NDArray[np.int8]:
+    """The "always sleep" baseline: 1 for every epoch of ``reference``.
+
+    Parameters
+    ----------
+    reference : array-like of shape (n_epochs,)
+
+    Returns
+    -------
+    predicted : ndarray of int8, shape (n_epochs,)
+    """
+    return np.ones(np.shape(reference)[0], dtype=np.int8)
+
+
+def epoch_agreement(reference: ArrayLike, predicted: ArrayLike, *,
+                    score: ArrayLike | None = None) -> dict[str, float]:
+    """Epoch-by-epoch agreement of one night (or of pooled epochs).
+
+    Parameters
+    ----------
+    reference : array-like of shape (n_epochs,)
+        Reference labels: 1 = sleep, 0 = wake, NaN = excluded.
+    predicted : array-like of shape (n_epochs,)
+        Predicted labels, 1 = sleep, 0 = wake (NaN only where the reference is NaN).
+    score : array-like of shape (n_epochs,), default=None
+        Continuous score, higher = more likely sleep, for ROC AUC.
+
+    Returns
+    -------
+    metrics : dict of str to float
+        ``n_epochs`` (compared), ``excluded_epochs`` and every name in :data:`EPOCH_METRIC_NAMES`.
+
+    Raises
+    ------
+    InvalidSleepVectorError
+        If the inputs differ in length, hold values other than 0/1 (NaN in the reference), or the
+        prediction is NaN where the reference is scored.
+
+    Examples
+    --------
+    >>> m = epoch_agreement([1, 1, 0, 0], [1, 1, 1, 0])
+    >>> m["sensitivity"], m["specificity"], m["pabak"]
+    (1.0, 0.5, 0.5)
+    """
+    ref = as_sleep_vector(reference, allow_unscored=True, name="reference")
+    pred = as_sleep_vector(predicted, allow_unscored=True, name="predicted")
+    scores = None if score is None else np.asarray(score, dtype=np.float64)
+    if pred.shape != ref.shape or (scores is not None and scores.shape != ref.shape):
+        raise InvalidSleepVectorError(
+            f"reference ({ref.size}), predicted ({pred.size}) and score must have the same length")
+    keep = ~np.isnan(ref)
+    y, p = ref[keep].astype(np.int8), pred[keep]
+    if np.isnan(p).any():
+        raise InvalidSleepVectorError("predicted is NaN on epochs where the reference is scored")
+    p = p.astype(np.int8)
+    out: dict[str, float] = {"n_epochs": float(y.size), "excluded_epochs": float(ref.size - y.size)}
+    if y.size == 0:
+        return out | dict.fromkeys(EPOCH_METRIC_NAMES, float("nan"))
+    two_ref, two_pred = y.min() != y.max(), p.min() != p.max()
+    precision, recall, f1, _ = precision_recall_fscore_support(
+        y, p, labels=_LABELS, average=None, zero_division=np.nan)
+    accuracy = float(accuracy_score(y, p))
+    nan = float("nan")
+    out |= {
+        "sensitivity": float(recall[1]), "specificity": float(recall[0]),
+        "ppv": float(precision[1]), "npv": float(precision[0]),
+        "accuracy": accuracy,
+        "balanced_accuracy": float(balanced_accuracy_score(y, p)) if two_ref else nan,
+        "f1_sleep": float(f1[1]), "f1_wake": float(f1[0]),
+        "kappa": float(cohen_kappa_score(y, p, labels=_LABELS)) if (two_ref or two_pred or y[0] != p[0]) else nan,
+        "pabak": 2.0 * accuracy - 1.0,  # Byrt et al. 1993; Menghini et al. 2021 glossary
+        "mcc": float(matthews_corrcoef(y, p)) if (two_ref and two_pred) else nan,
+        "auc": nan,
+    }
+    if scores is not None and two_ref and np.isfinite(scores[keep]).all():
+        out["auc"] = float(roc_auc_score(y, scores[keep]))
+    return out
+
+
+@dataclass(frozen=True, eq=False)
+class ScoredNight:
+    """One method's output on one night, next to the reference (in-bed epochs only).
+
+    Attributes
+    ----------
+    participant_id, night_id, method : str
+    reference : ndarray of shape (n_epochs,)
+        1 = sleep, 0 = wake, NaN = excluded.
+    predicted : ndarray of shape (n_epochs,)
+        1 = sleep, 0 = wake.
+    score : ndarray of shape (n_epochs,) or None
+        Continuous score, higher = more likely sleep.
+    """
+
+    participant_id: str
+    night_id: str
+    method: str
+    reference: NDArray[np.float64]
+    predicted: NDArray[np.generic]
+    score: NDArray[np.float64] | None = None
+
+
+def agreement_table(nights: Iterable[ScoredNight]) -> pd.DataFrame:
+    """Epoch-by-epoch agreement per night, per participant and pooled, for every method.
+
+    Parameters
+    ----------
+    nights : iterable of ScoredNight
+        Any number of methods and participants; add the :func:`always_sleep` baseline as one
+        more method to keep it in the table.
+
+    Returns
+    -------
+    table : pandas.DataFrame
+        Columns ``level``, ``method``, ``participant_id``, ``night_id``, ``statistic``,
+        ``n_nights``, ``n_epochs``, ``excluded_epochs`` and :data:`EPOCH_METRIC_NAMES`. Rows come
+        in three blocks (night, participant, pooled), each ordered by method (in order of first
+        appearance) and then as the nights were given:
+
+        - ``level="night"``, ``statistic="value"``: one row per method and night;
+        - ``level="participant"``, ``statistic="mean"`` and ``"sd"``: mean and SD (ddof=1; NaN
+          for one night) across that participant's nights, NaN nights skipped; ``n_epochs``
+          and ``excluded_epochs`` are totals;
+        - ``level="pooled"``, ``statistic="value"``: one confusion over all epochs of all nights
+          of the method (AUC only if every night has a score).
+    """
+    nights = list(nights)
+    id_cols = ["level", "method", "participant_id", "night_id", "statistic", "n_nights"]
+    columns = id_cols + ["n_epochs", "excluded_epochs", *EPOCH_METRIC_NAMES]
+    if not nights:
+        return pd.DataFrame(columns=columns)
+    night_rows = pd.DataFrame([
+        {"level": "night", "method": n.method, "participant_id": n.participant_id, "night_id": n.night_id,
+         "statistic": "value", "n_nights": 1} | epoch_agreement(n.reference, n.predicted, score=n.score)
+        for n in nights])
+    order = {method: i for i, method in enumerate(dict.fromkeys(n.method for n in nights))}
+    night_rows = night_rows.sort_values("method", key=lambda col: col.map(order), kind="stable", ignore_index=True)
+    grouped = night_rows.groupby(["method", "participant_id"], sort=False)
+    metrics = grouped[list(EPOCH_METRIC_NAMES)]
+    totals = grouped[["n_epochs", "excluded_epochs"]].sum()
+    counts = grouped.size().rename("n_nights")
+    blocks = [values.join(totals).join(counts).reset_index().assign(
+        level="participant", night_id=None, statistic=statistic)
+        for statistic, values in (("mean", metrics.mean()), ("sd", metrics.std(ddof=1)))]
+    participant_rows = pd.concat(blocks).sort_index(kind="stable")  # mean then sd for each participant
+    pooled = []
+    for method in order:
+        mine = [n for n in nights if n.method == method]
+        with_score = all(n.score is not None for n in mine)
+        pooled.append({"level": "pooled", "method": method, "participant_id": None, "night_id": None,
+                       "statistic": "value", "n_nights": len(mine)} | epoch_agreement(
+            np.concatenate([np.asarray(n.reference, dtype=np.float64) for n in mine]),
+            np.concatenate([np.asarray(n.predicted, dtype=np.float64) for n in mine]),
+            score=np.concatenate([np.asarray(n.score) for n in mine]) if with_score else None))
+    table = pd.concat([night_rows, participant_rows, pd.DataFrame(pooled)], ignore_index=True)
+    table[["n_nights", "n_epochs", "excluded_epochs"]] = table[["n_nights", "n_epochs", "excluded_epochs"]].astype(
+        np.int64)
+    return table[columns]

@@ -1,0 +1,170 @@
+"""Personal model: one participant's labelled nights, nested evaluation, final model.
+
+Nested validation, so that nothing about a held-out night reaches its prediction:
+
+- outer loop, leave-one-night-out: each labelled night is held out once; a full search
+  (:func:`models.learning.tuning.tune_and_fit`: forward-chained inner splits, early stopping, threshold)
+  runs on the *other* nights and its refitted model predicts the held-out night;
+- final model: the same search on all labelled nights, refitted on all of them.
+
+With ``n`` labelled nights that is ``n + 1`` independent studies; they run on ``n_jobs``
+threads, each seeded from ``config.seed`` and its position, so results do not depend on
+``n_jobs``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .artifacts import library_versions
+from .classifier import SleepModel
+from ..features.cache import FeatureCache
+from ..nights.night import Night
+from .tasks import Progress, Reporter, run_tasks
+from .training import (
+    HeldOutNight,
+    NightRows,
+    TrainingConfig,
+    TrainingDataError,
+    labelled_nights,
+    night_metrics_table,
+    prepare_nights,
+    study_seed,
+    summary_table,
+)
+from .tuning import TunedPipeline, tune_and_fit
+
+__all__ = ["PersonalResult", "train_personal"]
+
+
+@dataclass(frozen=True, eq=False)
+class PersonalResult:
+    """Result of :func:`train_personal`.
+
+    Attributes
+    ----------
+    model : SleepModel
+        Final model, trained on every labelled night.
+    outer : list of HeldOutNight
+        One per labelled night (chronological), predicted by a model tuned and trained without it.
+    night_metrics : pandas.DataFrame
+        Epoch-by-epoch metrics of each held-out night (in-bed epochs).
+    summary : pandas.DataFrame
+        Mean and SD across held-out nights per metric.
+    best_params : dict
+        Hyperparameters of the final model.
+    trials : pandas.DataFrame
+        One row per study (``study`` = held-out night id, or ``"final"``): trial counts, best
+        inner AUC, threshold, number of trees and chosen hyperparameters.
+    """
+
+    model: SleepModel
+    outer: list[HeldOutNight] = field(repr=False)
+    night_metrics: pd.DataFrame = field(repr=False)
+    summary: pd.DataFrame = field(repr=False)
+    best_params: dict[str, Any] = field(repr=False)
+    trials: pd.DataFrame = field(repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-able summary (tables as lists of records; no per-epoch arrays)."""
+        return {
+            "participant_id": self.model.participant_id_,
+            "threshold": self.model.threshold_,
+            "best_params": self.best_params,
+            "summary": self.summary.reset_index(names="metric").to_dict(orient="records"),
+            "night_metrics": self.night_metrics.to_dict(orient="records"),
+            "trials": self.trials.to_dict(orient="records"),
+        }
+
+
+def _model(pipe: TunedPipeline, nights: Sequence[NightRows], config: TrainingConfig, seed: int) -> SleepModel:
+    features = nights[0].features
+    return SleepModel(
+        kind="personal", booster=pipe.booster, threshold=pipe.threshold, feature_config=config.features,
+        feature_version=features.version, feature_names=features.names, params=pipe.hyperparameters,
+        n_rounds=pipe.n_rounds, projection=pipe.projection, participant_id=nights[0].night.participant_id,
+        training_nights=tuple(n.night.content_hash for n in nights),
+        info={"seed": seed, "inner_auc": pipe.best_value, "tuning": pipe.trials, "libraries": library_versions()})
+
+
+def _labelled(nights: Sequence[Night], config: TrainingConfig, cache: FeatureCache | None) -> list[NightRows]:
+    owners = sorted({n.participant_id for n in nights})
+    if len(owners) > 1:
+        raise TrainingDataError(f"a personal model takes one participant's nights, got {owners}",
+                                code="mixed_participants")
+    rows = prepare_nights(labelled_nights(nights, config), config, cache=cache)
+    if len(rows) < config.min_personal_nights:
+        raise TrainingDataError(
+            f"a personal model needs {config.min_personal_nights} labelled nights, got {len(rows)}",
+            code="too_few_labelled_nights")
+    return rows
+
+
+def train_personal(nights: Sequence[Night], *, config: TrainingConfig = TrainingConfig(),
+                   progress: Progress | None = None, feature_cache: FeatureCache | None = None) -> PersonalResult:
+    """Tune, evaluate (nested) and train a participant's personal model.
+
+    Parameters
+    ----------
+    nights : sequence of Night
+        One participant's nights; only nights with scored in-bed reference epochs are used.
+    config : TrainingConfig, default=TrainingConfig()
+    progress : callable, default=None
+        ``progress(done, total, stage)`` after every trial and fit, called in the caller's
+        thread; if it raises, training stops and the exception propagates.
+    feature_cache : FeatureCache, default=None
+        Where night features are looked up and stored; None = the process-wide default.
+
+    Returns
+    -------
+    PersonalResult
+
+    Raises
+    ------
+    TrainingDataError
+        If the nights belong to several participants (code ``mixed_participants``), fewer than
+        ``config.min_personal_nights`` are labelled (``too_few_labelled_nights``) or they mix
+        epoch lengths (``mixed_epoch_lengths``).
+    """
+    rows = _labelled(nights, config, feature_cache)
+    n = len(rows)
+    per_study = config.n_trials + 1
+
+    def outer_task(k: int) -> Any:
+        def run(reporter: Reporter) -> tuple[HeldOutNight, dict[str, Any]]:
+            held = rows[k]
+            others = rows[:k] + rows[k + 1:]
+            seed = study_seed(config.seed, k + 1)
+            model = _model(tune_and_fit(others, config=config, seed=seed, reporter=reporter,
+                                        stage=f"personal: night {k + 1}/{n} held out"), others, config, seed)
+            p = model.predict_proba(held.night, features=held.features)
+            out = HeldOutNight(participant_id=held.night.participant_id, night_hash=held.night.content_hash,
+                               label=held.night.label, method="personal", p_sleep=p,
+                               sleep=(p >= model.threshold_).astype(np.int8), reference=held.reference,
+                               in_bed=held.night.in_bed, threshold=model.threshold_)
+            return out, _trial_row(out.night_id, model)
+        return run
+
+    def final_task(reporter: Reporter) -> SleepModel:
+        seed = study_seed(config.seed, 0)
+        pipe = tune_and_fit(rows, config=config, seed=seed, reporter=reporter, stage="personal: final model")
+        return _model(pipe, rows, config, seed)
+
+    results = run_tasks([final_task, *(outer_task(k) for k in range(n))], n_jobs=config.n_jobs,
+                        total=(n + 1) * per_study, progress=progress)
+    model: SleepModel = results[0]
+    outer: list[HeldOutNight] = [held for held, _ in results[1:]]
+    night_metrics = night_metrics_table(outer)
+    trials = pd.DataFrame([row for _, row in results[1:]] + [_trial_row("final", model)])
+    return PersonalResult(model=model, outer=outer, night_metrics=night_metrics,
+                          summary=summary_table(night_metrics), best_params=dict(model.params_), trials=trials)
+
+
+def _trial_row(study: str, model: SleepModel) -> dict[str, Any]:
+    tuning = model.info_["tuning"]
+    return {"study": study, **tuning, "threshold": model.threshold_, **model.params_}

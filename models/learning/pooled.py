@@ -1,0 +1,329 @@
+"""Pooled model: every participant's labelled nights, evaluated leave-participants-out, with offsets.
+
+Inputs per epoch are the night's features plus the participant's label-free descriptors
+(:func:`~models.learning.training.participant_descriptors`, over all their nights, labelled or not).
+
+Hyperparameters are fixed (``TrainingConfig.pooled_params``: depth 6, learning rate 0.1, min
+child weight 5, 80% rows and 70% features per tree, L2 1, ``class_balance`` 0.5, no PCA) rather
+than searched: with tens of thousands of rows per fold the model is far less sensitive to them
+than a personal model, and a search would multiply the cost of the largest fits. What is tuned is
+the number of trees (early stopping) and the threshold, both on *validation participants*: a
+share ``pooled_validation_share`` of each fit's training participants, held back from that fit.
+
+Evaluation is leave-participants-out (GroupKFold over participants, ``pooled_folds`` folds):
+every participant's held-out predictions come from a fold model that never saw any of their
+nights, and whose early stopping and threshold never saw them either. The final model repeats
+the procedure on all participants. Each fit trains on at most ``pooled_max_rows`` epochs (a
+uniform sample when there are more) through ``xgboost.QuantileDMatrix`` (compressed histogram
+input); fits and night features run on ``n_jobs`` threads.
+
+Offsets (:mod:`models.learning.offset`): the penalty is chosen from the held-out margins of participants
+with two or more labelled nights; each participant's offset is then estimated from all their
+held-out margins. ``pooled+offset`` held-out figures (``PooledResult.offset_held_out``) use, for
+each labelled night, an offset fitted on the participant's *other* nights with a penalty chosen
+without the participant (:meth:`~models.learning.offset.ShrinkageChoice.excluding`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import xgboost as xgb
+from numpy.typing import NDArray
+from scipy.special import expit
+from sklearn.model_selection import GroupKFold, GroupShuffleSplit
+
+from .artifacts import library_versions
+from .classifier import SleepModel
+from ..features.cache import FeatureCache
+from ..nights.night import Night
+from .offset import ShrinkageChoice, choose_shrinkage, estimate_offset
+from .tasks import Progress, Reporter, run_tasks
+from .training import (
+    DESCRIPTOR_NAMES,
+    POOLED_PARAMS,
+    HeldOutNight,
+    NightRows,
+    TrainingConfig,
+    TrainingDataError,
+    iter_prepared,
+    labelled_nights,
+    night_metrics_table,
+    participant_descriptors,
+    study_seed,
+    summary_table,
+)
+from .tuning import booster_params, youden_threshold
+
+__all__ = ["PooledResult", "participant_offset", "train_pooled"]
+
+
+@dataclass(frozen=True, eq=False)
+class PooledResult:
+    """Result of :func:`train_pooled`.
+
+    Attributes
+    ----------
+    model : SleepModel
+        Final pooled model (all participants).
+    held_out : dict of str to list of HeldOutNight
+        Per participant, leave-participants-out predictions of each labelled night (empty for a
+        participant without labelled nights).
+    offsets : dict of str to float
+        Per participant, log-odds offset from all labelled nights (0.0 without labels).
+    shrinkage : float
+        Chosen offset penalty.
+    shrinkage_search : ShrinkageChoice
+        The penalty search (log-likelihood per candidate).
+    offset_held_out : dict of str to list of HeldOutNight
+        Per participant with two or more labelled nights, ``pooled+offset`` predictions of each
+        labelled night (offset from the other nights).
+    descriptors : dict of str to dict
+        Per participant, the descriptors the model used.
+    folds : dict of str to int
+        Outer fold of each participant with labelled nights.
+    baselines : dict of str to float
+        Per participant with labelled nights, the ``offset_baseline_`` of the fold model that
+        predicted them (add it to their held-out margins to estimate offsets).
+    night_metrics, summary : pandas.DataFrame
+        Epoch metrics per held-out night (``pooled`` and ``pooled+offset`` rows) and their mean/SD
+        per method.
+    """
+
+    model: SleepModel
+    held_out: dict[str, list[HeldOutNight]] = field(repr=False)
+    offsets: dict[str, float]
+    shrinkage: float
+    shrinkage_search: ShrinkageChoice = field(repr=False)
+    offset_held_out: dict[str, list[HeldOutNight]] = field(repr=False)
+    descriptors: dict[str, dict[str, float]] = field(repr=False)
+    folds: dict[str, int] = field(repr=False)
+    baselines: dict[str, float] = field(repr=False)
+    night_metrics: pd.DataFrame = field(repr=False)
+    summary: pd.DataFrame = field(repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-able summary (no per-epoch arrays)."""
+        return {"threshold": self.model.threshold_, "n_rounds": self.model.n_rounds_, "offsets": self.offsets,
+                "shrinkage": self.shrinkage_search.to_dict(), "folds": self.folds,
+                "night_metrics": self.night_metrics.to_dict(orient="records"),
+                "summary": self.summary.reset_index().to_dict(orient="records")}
+
+
+class _Rows:
+    """Stacked pooled inputs: features + descriptors of every labelled in-bed epoch."""
+
+    def __init__(self, data: Mapping[str, list[NightRows]], descriptors: Mapping[str, Mapping[str, float]]) -> None:
+        self.participants = [pid for pid, rows in data.items() if any(r.labelled for r in rows)]
+        blocks, ys, groups = [], [], []
+        for g, pid in enumerate(self.participants):
+            desc = np.array([descriptors[pid][n] for n in DESCRIPTOR_NAMES], dtype=np.float32)
+            for r in data[pid]:
+                if r.labelled:
+                    X = r.features.values[r.rows]
+                    blocks.append(np.hstack([X, np.broadcast_to(desc, (X.shape[0], desc.size))]))
+                    ys.append(r.reference[r.rows])  # type: ignore[index]
+                    groups.append(np.full(r.rows.size, g))
+        self.X = np.vstack(blocks)
+        self.y = np.concatenate(ys)
+        self.groups = np.concatenate(groups)
+
+
+class _CancelCallback(xgb.callback.TrainingCallback):
+    """Stops a long fit as soon as training is cancelled."""
+
+    def __init__(self, reporter: Reporter) -> None:
+        super().__init__()
+        self.reporter = reporter
+
+    def after_iteration(self, model: Any, epoch: int, evals_log: Any) -> bool:
+        self.reporter.check()
+        return False
+
+
+def _at_most(idx: NDArray[np.intp], n: int, rng: np.random.Generator) -> NDArray[np.intp]:
+    """``idx`` itself, or a sorted uniform sample of ``n`` of its entries."""
+    return idx if idx.size <= n else np.sort(rng.choice(idx, size=n, replace=False))
+
+
+def _fit(rows: _Rows, train_idx: NDArray[np.intp], *, config: TrainingConfig, seed: int, feature_names: tuple[str, ...],
+         feature_version: str, training_nights: tuple[str, ...], reporter: Reporter) -> SleepModel:
+    """One pooled fit: hold back validation participants, early-stop and pick the threshold on them."""
+    hp = dict(POOLED_PARAMS) | dict(config.pooled_params)
+    splitter = GroupShuffleSplit(n_splits=1, test_size=config.pooled_validation_share, random_state=seed)
+    fit_pos, val_pos = next(splitter.split(train_idx, groups=rows.groups[train_idx]))
+    rng = np.random.default_rng(seed)
+    fit_idx = _at_most(train_idx[fit_pos], config.pooled_max_rows, rng)
+    val_idx = _at_most(train_idx[val_pos], config.pooled_max_rows // 2, rng)
+    params = booster_params(hp, y=rows.y[fit_idx], config=config, seed=seed)
+    dtrain = xgb.QuantileDMatrix(rows.X[fit_idx], rows.y[fit_idx], max_bin=config.max_bin, nthread=1)
+    y_val = rows.y[val_idx]
+    # a plain DMatrix: XGBoost evaluates it incrementally, a QuantileDMatrix validation set ~10x slower
+    dval = xgb.DMatrix(rows.X[val_idx], y_val, weight=np.where(y_val == 1, params["scale_pos_weight"], 1.0),
+                       nthread=1)
+    booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
+                        early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False,
+                        callbacks=[_CancelCallback(reporter)])
+    n_rounds = booster.best_iteration + 1
+    margin_val = booster.predict(dval, iteration_range=(0, n_rounds), output_margin=True).astype(np.float64)
+    del dtrain, dval
+    return SleepModel(
+        kind="pooled", booster=booster[:n_rounds],
+        threshold=youden_threshold(y_val, expit(margin_val), min_sensitivity=config.min_sensitivity),
+        offset_baseline=estimate_offset(margin_val, y_val, shrinkage=0.0),
+        feature_config=config.features, feature_version=feature_version, feature_names=feature_names,
+        params=hp | {"n_rounds": n_rounds, "scale_pos_weight": params["scale_pos_weight"], "pca_variance": 0.0},
+        n_rounds=n_rounds, descriptor_names=DESCRIPTOR_NAMES, training_nights=training_nights,
+        info={"seed": seed, "n_fit_participants": int(np.unique(rows.groups[fit_idx]).size),
+              "n_validation_participants": int(np.unique(rows.groups[val_idx]).size),
+              "libraries": library_versions()})
+
+
+def _held_out(model: SleepModel, r: NightRows, descriptors: Mapping[str, float], *, method: str = "pooled",
+              offset: float = 0.0, margin: NDArray[np.float64] | None = None) -> HeldOutNight:
+    if margin is None:
+        margin = model.decision_function(r.night, descriptors=descriptors, features=r.features)
+    p = expit(margin + offset)
+    return HeldOutNight(participant_id=r.night.participant_id, night_hash=r.night.content_hash, label=r.night.label,
+                        method=method, p_sleep=p, sleep=(p >= model.threshold_).astype(np.int8),
+                        reference=r.reference, in_bed=r.night.in_bed, threshold=model.threshold_, offset=offset,
+                        margin=margin)
+
+
+def _margins(held: list[HeldOutNight], rows: list[NightRows], baseline: float) -> list[tuple[NDArray[np.float64],
+                                                                                           NDArray[np.float64]]]:
+    """Per labelled night: held-out margin plus the fold model's baseline, and the reference (scored epochs)."""
+    return [(h.margin[r.rows] + baseline, r.reference[r.rows])  # type: ignore[index]
+            for h, r in zip(held, rows, strict=True)]
+
+
+def _offset_held_out(held: list[HeldOutNight], rows: list[NightRows], pairs: list[tuple[NDArray[np.float64], ...]],
+                     model: SleepModel, shrinkage: float) -> list[HeldOutNight]:
+    """``pooled+offset`` for each labelled night: offset fitted on the participant's other nights."""
+    out = []
+    for k, (h, r) in enumerate(zip(held, rows, strict=True)):
+        rest = [pair for i, pair in enumerate(pairs) if i != k]
+        b = estimate_offset(np.concatenate([m for m, _ in rest]), np.concatenate([y for _, y in rest]),
+                            shrinkage=shrinkage)
+        out.append(_held_out(model, r, {}, method="pooled+offset", offset=b, margin=h.margin))
+    return out
+
+
+def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfig = TrainingConfig(),
+                 progress: Progress | None = None, feature_cache: FeatureCache | None = None) -> PooledResult:
+    """Train the pooled model, evaluate it leave-participants-out and estimate participant offsets.
+
+    Parameters
+    ----------
+    nights : mapping of str to sequence of Night
+        Participant id -> all that participant's nights, labelled and unlabelled (unlabelled
+        nights only feed the participant's descriptors).
+    config : TrainingConfig, default=TrainingConfig()
+    progress : callable, default=None
+        ``progress(done, total, stage)`` after each night's features and each fit, called in the
+        caller's thread; if it raises, training stops and the exception propagates.
+    feature_cache : FeatureCache, default=None
+        Where night features are looked up and stored; None = the process-wide default.
+
+    Returns
+    -------
+    PooledResult
+
+    Raises
+    ------
+    TrainingDataError
+        If fewer than three participants have labelled nights (code ``too_few_participants``) or
+        the nights mix epoch lengths.
+    """
+    pids = sorted(nights)
+    descriptors = {pid: participant_descriptors(list(nights[pid])) for pid in pids}
+    labelled = {pid: labelled_nights(list(nights[pid]), config) for pid in pids}
+    flat = [n for pid in pids for n in labelled[pid]]
+    n_labelled_pids = sum(bool(v) for v in labelled.values())
+    if n_labelled_pids < 3:
+        raise TrainingDataError(
+            f"a pooled model needs labelled nights of at least 3 participants, got {n_labelled_pids}",
+            code="too_few_participants")
+    n_folds = min(config.pooled_folds, n_labelled_pids)
+    total = len(flat) + n_folds + 1
+    data: dict[str, list[NightRows]] = {pid: [] for pid in pids}
+    for done, r in enumerate(iter_prepared(flat, config, cache=feature_cache, n_jobs=config.n_jobs), start=1):
+        data[r.night.participant_id].append(r)
+        if progress is not None:
+            progress(done, total, "pooled: features")
+    prepared = [r for pid in pids for r in data[pid]]
+    rows = _Rows(data, descriptors)
+    meta = {"feature_names": prepared[0].features.names, "feature_version": prepared[0].features.version}
+    folds = list(GroupKFold(n_splits=n_folds).split(rows.X, rows.y, rows.groups))
+    fold_of = {rows.participants[g]: k for k, (_, test) in enumerate(folds) for g in np.unique(rows.groups[test])}
+
+    def fit_task(k: int) -> Any:
+        def run(reporter: Reporter) -> SleepModel:
+            train_idx = np.arange(rows.y.size) if k < 0 else folds[k][0]
+            training = tuple(r.night.content_hash for pid in pids for r in data[pid]
+                             if k < 0 or fold_of.get(pid) != k)
+            model = _fit(rows, train_idx, config=config, seed=study_seed(config.seed, 1000 + k + 1),
+                         training_nights=training, reporter=reporter, **meta)
+            reporter.tick("pooled: final model" if k < 0 else f"pooled: fold {k + 1}/{n_folds}")
+            return model
+        return run
+
+    fitted = run_tasks([fit_task(k) for k in [-1, *range(n_folds)]], n_jobs=config.n_jobs, total=total,
+                       progress=progress, done=len(flat))
+    final, fitted = fitted[0], fitted[1:]
+    held_out = {pid: [_held_out(fitted[fold_of[pid]], r, descriptors[pid]) for r in data[pid]] for pid in pids}
+    baselines = {pid: fitted[k].offset_baseline_ for pid, k in fold_of.items()}
+    pairs = {pid: _margins(held_out[pid], data[pid], baselines[pid]) for pid in pids if data[pid]}
+    search = choose_shrinkage(pairs, grid=config.shrinkage_grid)
+    offsets = {pid: estimate_offset(np.concatenate([m for m, _ in pairs[pid]]),
+                                    np.concatenate([y for _, y in pairs[pid]]), shrinkage=search.shrinkage)
+               if pid in pairs else 0.0 for pid in pids}
+    offset_held_out = {pid: _offset_held_out(held_out[pid], data[pid], pairs[pid], fitted[fold_of[pid]],
+                                             search.excluding(pid)) for pid in pairs if len(pairs[pid]) >= 2}
+    everything = [h for pid in pids for h in held_out[pid]] + [h for v in offset_held_out.values() for h in v]
+    night_metrics = night_metrics_table(everything)
+    summary = night_metrics.groupby("method", sort=False).apply(summary_table)
+    return PooledResult(model=final, held_out=held_out, offsets=offsets, shrinkage=search.shrinkage,
+                        shrinkage_search=search, offset_held_out=offset_held_out, descriptors=descriptors,
+                        folds=fold_of, baselines=baselines, night_metrics=night_metrics, summary=summary)
+
+
+def participant_offset(model: SleepModel, nights: Sequence[Night], *, shrinkage: float,
+                       config: TrainingConfig = TrainingConfig(),
+                       descriptors: Mapping[str, float] | None = None) -> float:
+    """Offset of a participant the pooled ``model`` never saw, from their labelled nights.
+
+    Parameters
+    ----------
+    model : SleepModel
+        A pooled model.
+    nights : sequence of Night
+        The participant's nights; labelled in-bed epochs are used, all nights give the
+        descriptors when ``descriptors`` is None.
+    shrinkage : float
+        Penalty, e.g. :attr:`PooledResult.shrinkage`.
+    config : TrainingConfig, default=TrainingConfig()
+        Only ``movement_time`` is used (reference binarisation).
+    descriptors : mapping, default=None
+
+    Returns
+    -------
+    float
+        Log-odds offset (0.0 without labelled epochs).
+    """
+    descriptors = descriptors or participant_descriptors(list(nights))
+    margins, refs = [], []
+    for night in nights:
+        ref = night.reference_sleep(movement_time=config.movement_time)
+        if ref is None:
+            continue
+        bed = slice(*night.in_bed)
+        margins.append(model.decision_function(night, descriptors=descriptors)[bed] + model.offset_baseline_)
+        refs.append(ref[bed])
+    if not margins:
+        return 0.0
+    return estimate_offset(np.concatenate(margins), np.concatenate(refs), shrinkage=shrinkage)

@@ -1,0 +1,268 @@
+"""Hyperparameter search for one training set of nights: Optuna over forward-chained inner splits.
+
+Search space (``suggest_hyperparameters``)
+------------------------------------------
+=====================  =====================================  ==========================================
+name                   range                                  meaning
+=====================  =====================================  ==========================================
+``max_depth``          2 .. 7 (int)                           tree depth
+``learning_rate``      0.05 .. 0.3 (log)                      shrinkage per round
+``min_child_weight``   0.5 .. 50 (log)                        minimum hessian sum in a leaf
+``subsample``          0.5 .. 1                               rows sampled per tree
+``colsample_bytree``   0.3 .. 1                               features sampled per tree
+``reg_lambda``         1e-3 .. 10 (log)                       L2 penalty on leaf weights
+``reg_alpha``          1e-3 .. 10 (log)                       L1 penalty on leaf weights
+``class_balance``      0 .. 1                                 ``scale_pos_weight = (n_wake / n_sleep) **
+                                                              class_balance`` on the training rows: 0 =
+                                                              unweighted, 1 = classes weighted equally
+                                                              (sleep is the positive, majority class)
+``pca_variance``       off, 0.90, 0.95, 0.99                  standardise + PCA keeping that share of
+                                                              variance (fitted on each training split)
+=====================  =====================================  ==========================================
+
+The number of trees is not searched: each fit runs up to ``max_rounds`` with early stopping on
+the split's validation night (``early_stopping_rounds`` without improvement of the training
+objective there: log-loss with the same class weights as the training rows). The first trial is a
+fixed, data-independent configuration (:data:`WARM_START`), so every study starts from a sensible
+point; the sampler is seeded TPE. A trial reports its running mean validation AUC after every
+inner split and Optuna's median pruner stops trials that fall below the median of earlier
+trials at the same split (never before ``pruning_warmup_splits`` splits are done).
+
+Inner splits are :class:`~models.learning.splits.ForwardChainedSplit` over the nights in chronological
+order: train on the earliest nights, validate on the next. With two nights there is a single
+split (train on the first, validate on the second): the trial score is that one AUC, pruning saves
+nothing (a trial below the median is only marked pruned), and the threshold comes from that one
+validation night.
+
+After the search, the best trial's configuration is refitted on all the nights with
+``n_rounds`` = mean best iteration over its inner splits, and the threshold maximises Youden's J
+(= balanced accuracy) on its pooled inner validation predictions (scikit-learn ``roc_curve``)
+among the thresholds whose validation sensitivity reaches ``min_sensitivity``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import optuna
+import xgboost as xgb
+from numpy.typing import NDArray
+from sklearn.metrics import roc_auc_score, roc_curve
+
+from .classifier import Projection
+from .splits import ForwardChainedSplit
+from .tasks import Reporter
+from .training import NightRows, TrainingConfig
+
+__all__ = ["PCA_CHOICES", "TunedPipeline", "WARM_START", "booster_params", "suggest_hyperparameters",
+           "tune_and_fit", "youden_threshold"]
+
+#: PCA settings searched: 0.0 = off, else the share of variance kept.
+PCA_CHOICES: tuple[float, ...] = (0.0, 0.90, 0.95, 0.99)
+#: The first trial of every study (fixed, independent of any data).
+WARM_START: Mapping[str, float] = {
+    "max_depth": 4, "learning_rate": 0.1, "min_child_weight": 5.0, "subsample": 0.8, "colsample_bytree": 0.7,
+    "reg_lambda": 1.0, "reg_alpha": 0.001, "class_balance": 0.5, "pca_variance": 0.0,
+}
+
+
+def suggest_hyperparameters(trial: optuna.Trial) -> dict[str, float]:
+    """Draw one configuration from the search space (module docstring)."""
+    return {
+        "max_depth": trial.suggest_int("max_depth", 2, 7),
+        "learning_rate": trial.suggest_float("learning_rate", 0.05, 0.3, log=True),
+        "min_child_weight": trial.suggest_float("min_child_weight", 0.5, 50.0, log=True),
+        "subsample": trial.suggest_float("subsample", 0.5, 1.0),
+        "colsample_bytree": trial.suggest_float("colsample_bytree", 0.3, 1.0),
+        "reg_lambda": trial.suggest_float("reg_lambda", 1e-3, 10.0, log=True),
+        "reg_alpha": trial.suggest_float("reg_alpha", 1e-3, 10.0, log=True),
+        "class_balance": trial.suggest_float("class_balance", 0.0, 1.0),
+        "pca_variance": trial.suggest_categorical("pca_variance", PCA_CHOICES),
+    }
+
+
+def booster_params(hyperparameters: Mapping[str, float], *, y: NDArray[np.float64], config: TrainingConfig,
+                   seed: int) -> dict[str, Any]:
+    """XGBoost ``train`` parameters (single-threaded) for a configuration and training labels ``y``."""
+    n_sleep = float(np.sum(y == 1))
+    n_wake = float(np.sum(y == 0))
+    ratio = n_wake / n_sleep if n_sleep > 0 and n_wake > 0 else 1.0
+    hp = hyperparameters
+    return {
+        "objective": "binary:logistic", "tree_method": "hist", "max_bin": config.max_bin, "nthread": 1,
+        "seed": seed, "eval_metric": "logloss", "max_depth": int(hp["max_depth"]), "eta": float(hp["learning_rate"]),
+        "min_child_weight": float(hp["min_child_weight"]), "subsample": float(hp["subsample"]),
+        "colsample_bytree": float(hp["colsample_bytree"]), "lambda": float(hp["reg_lambda"]),
+        "alpha": float(hp["reg_alpha"]), "scale_pos_weight": ratio ** float(hp["class_balance"]),
+    }
+
+
+def youden_threshold(y: NDArray[np.float64], p: NDArray[np.float64], *, min_sensitivity: float = 0.0) -> float:
+    """Probability threshold maximising Youden's J = sensitivity + specificity - 1.
+
+    Uses :func:`sklearn.metrics.roc_curve` (sleep = positive); an epoch is called sleep when
+    ``p >= threshold``. Only thresholds whose sensitivity is at least ``min_sensitivity`` compete
+    (the point calling everything sleep always qualifies); among equal J the highest threshold
+    wins. Returns 0.5 when ``y`` holds a single class.
+
+    Parameters
+    ----------
+    y : ndarray of shape (n_epochs,)
+        1 = sleep, 0 = wake.
+    p : ndarray of shape (n_epochs,)
+        Probability of sleep.
+    min_sensitivity : float, default=0.0
+        Sensitivity floor; 0 is plain Youden's J (maximum balanced accuracy).
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> y, p = np.array([0, 0, 1, 1.0]), np.array([0.1, 0.4, 0.35, 0.8])
+    >>> youden_threshold(y, p), youden_threshold(y, p, min_sensitivity=0.9)
+    (0.8, 0.35)
+    """
+    y = np.asarray(y, dtype=np.float64)
+    if np.unique(y).size < 2:
+        return 0.5
+    fpr, tpr, thresholds = roc_curve(y, p)
+    # the first point is the "nothing called sleep" corner (threshold inf)
+    j = np.where(tpr >= min_sensitivity, tpr - fpr, -np.inf)[1:]
+    return float(thresholds[1:][int(np.argmax(j))])
+
+
+@dataclass(frozen=True, eq=False)
+class TunedPipeline:
+    """Result of :func:`tune_and_fit`: the fitted parts of one model and its search record.
+
+    Attributes
+    ----------
+    booster : xgboost.Booster
+    projection : Projection or None
+    hyperparameters : dict
+        The best configuration plus ``n_rounds`` and ``scale_pos_weight``.
+    threshold : float
+    n_rounds : int
+    best_value : float
+        Mean inner validation AUC of the best trial.
+    trials : dict
+        ``n_trials``, ``n_complete``, ``n_pruned``, ``best_trial``, ``best_value``.
+    """
+
+    booster: xgb.Booster
+    projection: Projection | None
+    hyperparameters: dict[str, Any]
+    threshold: float
+    n_rounds: int
+    best_value: float
+    trials: dict[str, Any] = field(default_factory=dict)
+
+
+class _InnerData:
+    """Stacked rows of a study's nights, its inner splits and cached XGBoost matrices."""
+
+    def __init__(self, nights: Sequence[NightRows], config: TrainingConfig) -> None:
+        order = sorted(range(len(nights)), key=lambda i: nights[i].night.start)
+        self.X = np.vstack([nights[i].features.values[nights[i].rows] for i in order])
+        self.y = np.concatenate([nights[i].reference[nights[i].rows] for i in order])  # type: ignore[index]
+        groups = np.concatenate([np.full(nights[i].rows.size, rank) for rank, i in enumerate(order)])
+        self.splits = list(ForwardChainedSplit().split(self.X, self.y, groups))
+        self.config = config
+        self._cache: dict[tuple[int, float], tuple[xgb.QuantileDMatrix, xgb.DMatrix]] = {}
+
+    def matrices(self, k: int, pca_variance: float) -> tuple[xgb.QuantileDMatrix, xgb.DMatrix]:
+        """Training and validation matrices of split ``k`` (projected when PCA is on), built once."""
+        key = (k, pca_variance)
+        if key not in self._cache:
+            train, val = self.splits[k]
+            Xt, Xv = self.X[train], self.X[val]
+            if pca_variance:
+                projection = Projection.fit(Xt, variance=pca_variance)
+                Xt, Xv = projection.transform(Xt), projection.transform(Xv)
+            dtrain = xgb.QuantileDMatrix(Xt, self.y[train], max_bin=self.config.max_bin, nthread=1)
+            self._cache[key] = (dtrain, xgb.DMatrix(Xv, self.y[val], nthread=1))
+        return self._cache[key]
+
+
+def _auc(y: NDArray[np.float64], p: NDArray[np.float64]) -> float:
+    return float(roc_auc_score(y, p)) if np.unique(y).size == 2 else float("nan")
+
+
+def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: int, reporter: Reporter,
+                 stage: str) -> TunedPipeline:
+    """Search hyperparameters on forward-chained splits of ``nights``, then refit on all of them.
+
+    Parameters
+    ----------
+    nights : sequence of NightRows
+        Labelled nights (at least two); their order does not matter (sorted by start time).
+    config : TrainingConfig
+    seed : int
+        Seed of the TPE sampler and of XGBoost's sampling.
+    reporter : Reporter
+        Receives one tick per finished trial and one for the refit.
+    stage : str
+        Label of the ticks (shown by progress bars).
+
+    Returns
+    -------
+    TunedPipeline
+    """
+    data = _InnerData(nights, config)
+    inner: dict[int, tuple[NDArray[np.float64], NDArray[np.float64], list[int]]] = {}
+
+    def objective(trial: optuna.Trial) -> float:
+        reporter.check()
+        hp = suggest_hyperparameters(trial)
+        aucs: list[float] = []
+        ys, ps, rounds = [], [], []
+        for k, (train, val) in enumerate(data.splits):
+            dtrain, dval = data.matrices(k, hp["pca_variance"])
+            params = booster_params(hp, y=data.y[train], config=config, seed=seed)
+            y_val = data.y[val]
+            dval.set_weight(np.where(y_val == 1, params["scale_pos_weight"], 1.0))
+            booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
+                                early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False)
+            n = booster.best_iteration + 1
+            p = booster.predict(dval, iteration_range=(0, n))
+            aucs.append(_auc(y_val, p))
+            ys.append(y_val)
+            ps.append(p.astype(np.float64))
+            rounds.append(n)
+            running = float(np.nanmean(aucs)) if np.isfinite(aucs).any() else 0.5
+            trial.report(running, k)
+            if trial.should_prune():
+                raise optuna.TrialPruned()
+        inner[trial.number] = (np.concatenate(ys), np.concatenate(ps), rounds)
+        return float(np.nanmean(aucs)) if np.isfinite(aucs).any() else 0.5
+
+    optuna.logging.set_verbosity(optuna.logging.ERROR)  # errors propagate; trial logs are noise
+    study = optuna.create_study(
+        direction="maximize", sampler=optuna.samplers.TPESampler(seed=seed),
+        pruner=optuna.pruners.MedianPruner(n_startup_trials=config.pruning_startup_trials,
+                                           n_warmup_steps=config.pruning_warmup_splits))
+    study.enqueue_trial(dict(WARM_START))
+    study.optimize(objective, n_trials=config.n_trials, callbacks=[lambda s, t: reporter.tick(stage)])
+    best = study.best_trial
+    y_inner, p_inner, rounds = inner[best.number]
+    n_rounds = max(1, int(round(float(np.mean(rounds)))))
+    hp = dict(best.params)
+    projection = Projection.fit(data.X, variance=hp["pca_variance"]) if hp["pca_variance"] else None
+    X_all = data.X if projection is None else projection.transform(data.X)
+    params = booster_params(hp, y=data.y, config=config, seed=seed)
+    booster = xgb.train(params, xgb.QuantileDMatrix(X_all, data.y, max_bin=config.max_bin, nthread=1), n_rounds)
+    reporter.tick(stage)
+    states = [t.state for t in study.trials]
+    trials = {"n_trials": len(states), "n_complete": states.count(optuna.trial.TrialState.COMPLETE),
+              "n_pruned": states.count(optuna.trial.TrialState.PRUNED), "best_trial": best.number,
+              "best_value": float(best.value), "n_inner_splits": len(data.splits)}
+    hyperparameters = hp | {"n_rounds": n_rounds, "scale_pos_weight": params["scale_pos_weight"]}
+    return TunedPipeline(booster=booster, projection=projection, hyperparameters=hyperparameters,
+                         threshold=youden_threshold(y_inner, p_inner, min_sensitivity=config.min_sensitivity),
+                         n_rounds=n_rounds,
+                         best_value=float(best.value), trials=trials)

@@ -1,0 +1,223 @@
+"""Night-level sleep parameters from a sleep/wake sequence.
+
+One function, :func:`sleep_parameters`, serves reference (PSG) labels and every prediction, so
+both sides of a comparison are computed the same way. Definitions follow the AASM conventions
+for PSG (Iber et al. 2007; from memory) with the actigraphy options of Fekedulegn et al. 2020
+made explicit (onset run length, minimum awakening length, WASO end point).
+
+All durations are in minutes and all latencies are measured from lights-off. Epoch indices
+(``*_idx``) count from the start of the recording, not from lights-off.
+
+Unscored epochs
+---------------
+Epochs with NaN (unscored, artefact, excluded) inside the in-bed interval are skipped: they are
+counted in ``unscored_epochs`` and are neither sleep nor wake. TST and WASO count scored epochs
+only, the sleep-efficiency denominator is the *scored* time in bed, wake bouts and sleep runs
+are formed from the scored epochs in order (an unscored epoch neither ends nor splits a bout),
+while latencies and SPT are clock intervals (they include unscored epochs that fall inside
+them).
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from typing import Literal
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from ..errors import NightbankError
+from .rescoring import as_sleep_vector, check_epoch_seconds, run_lengths
+
+__all__ = ["InvalidInBedIntervalError", "PARAMETER_NAMES", "SleepParameters", "WasoEnd", "sleep_parameters"]
+
+WasoEnd = Literal["lights_on", "final_awakening"]
+
+#: Stable order of the parameter columns in tables.
+PARAMETER_NAMES: tuple[str, ...] = (
+    "time_in_bed_min", "sol_min", "lps_min", "spt_min", "tst_min", "waso_min", "sleep_efficiency_pct",
+    "awakenings", "mean_awakening_min", "longest_awakening_min", "unscored_epochs",
+)
+
+
+class InvalidInBedIntervalError(NightbankError):
+    """Lights-off / lights-on indices are not ``0 <= lights_off_idx <= lights_on_idx <= n_epochs``."""
+
+    code = "invalid_in_bed_interval"
+
+
+@dataclass(frozen=True)
+class SleepParameters:
+    """Sleep parameters of one night (see :func:`sleep_parameters` for definitions).
+
+    Attributes
+    ----------
+    time_in_bed_min, sol_min, lps_min, spt_min, tst_min, waso_min : float
+        Minutes. ``sol_min`` and ``lps_min`` are NaN when there is no (persistent) sleep.
+    sleep_efficiency_pct : float
+        Percent, 100 x TST / scored time in bed.
+    awakenings : float
+        Number of wake bouts counted (a float so that "undefined" can be NaN).
+    mean_awakening_min, longest_awakening_min : float
+        Mean and longest counted wake bout, minutes.
+    unscored_epochs : int
+        Unscored (NaN) epochs inside the in-bed interval.
+    sleep_onset_idx, final_awakening_idx : int or None
+        Index of the first sleep epoch, and of the epoch just after the last sleep epoch (equals
+        ``lights_on_idx`` when sleep lasts until lights-on); None without sleep.
+    """
+
+    time_in_bed_min: float
+    sol_min: float
+    lps_min: float
+    spt_min: float
+    tst_min: float
+    waso_min: float
+    sleep_efficiency_pct: float
+    awakenings: float
+    mean_awakening_min: float
+    longest_awakening_min: float
+    unscored_epochs: int
+    sleep_onset_idx: int | None
+    final_awakening_idx: int | None
+
+    def as_dict(self) -> dict[str, float | int | None]:
+        """All fields as a dict, the :data:`PARAMETER_NAMES` first, in table order."""
+        return asdict(self)
+
+
+def _no_sleep(tib: float, unscored: int, nothing_scored: bool) -> SleepParameters:
+    nan = float("nan")
+    zero = nan if nothing_scored else 0.0  # with no scored epoch, even "no sleep" is unknown
+    return SleepParameters(time_in_bed_min=tib, sol_min=nan, lps_min=nan, spt_min=zero, tst_min=zero,
+                           waso_min=zero, sleep_efficiency_pct=zero, awakenings=zero, mean_awakening_min=nan,
+                           longest_awakening_min=zero, unscored_epochs=unscored, sleep_onset_idx=None,
+                           final_awakening_idx=None)
+
+
+def _check_index(value: object, name: str) -> int:
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)):
+        raise InvalidInBedIntervalError(f"{name} must be an integer epoch index, got {value!r}")
+    return int(value)
+
+
+def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: int = 0,
+                     lights_on_idx: int | None = None, persistent_sleep_min: float = 10.0,
+                     min_awakening_epochs: int = 1, waso_end: WasoEnd = "lights_on") -> SleepParameters:
+    """Compute the sleep parameters of one night within its in-bed interval.
+
+    Parameters
+    ----------
+    sleep : array-like of shape (n_epochs,)
+        1 = sleep, 0 = wake, NaN = unscored (integer and bool arrays are accepted).
+    epoch_seconds : {15, 30, 60}
+        Epoch length in seconds.
+    lights_off_idx : int, default=0
+        First in-bed epoch (inclusive).
+    lights_on_idx : int or None, default=None
+        End of the in-bed interval (exclusive); None = end of the recording.
+    persistent_sleep_min : float, default=10.0
+        Length of the uninterrupted sleep run that defines persistent sleep (LPS), minutes;
+        rounded up to whole epochs (10 min = 20 epochs of 30 s).
+    min_awakening_epochs : int, default=1
+        Shortest wake bout, in epochs, counted as an awakening.
+    waso_end : {"lights_on", "final_awakening"}, default="lights_on"
+        Where WASO and the awakening count stop. ``"lights_on"`` (AASM PSG convention, from
+        memory) includes the wake between the final awakening and lights-on, and the final
+        wake bout is an awakening; ``"final_awakening"`` counts only wake inside the sleep period.
+
+    Returns
+    -------
+    SleepParameters
+        - ``time_in_bed_min``: length of the in-bed interval (unscored epochs included).
+        - ``sol_min``: lights-off to the first sleep epoch.
+        - ``lps_min``: lights-off to the first epoch of the first run of ``persistent_sleep_min``
+          of sleep.
+        - ``spt_min``: first sleep epoch to the end of the last sleep epoch.
+        - ``tst_min``: sleep epochs x epoch length.
+        - ``waso_min``: wake epochs after sleep onset, up to ``waso_end``; every wake epoch
+          counts, whatever its bout length.
+        - ``sleep_efficiency_pct``: 100 x TST / scored time in bed.
+        - ``awakenings``, ``mean_awakening_min``, ``longest_awakening_min``: wake bouts after
+          sleep onset (same end as WASO) of at least ``min_awakening_epochs``; the mean is NaN
+          and the longest 0 when there is none.
+        - ``unscored_epochs``, ``sleep_onset_idx``, ``final_awakening_idx``.
+
+    Raises
+    ------
+    InvalidSleepVectorError
+        If ``sleep`` holds values other than 0, 1 or NaN.
+    InvalidInBedIntervalError
+        If the in-bed indices are out of order or outside the recording.
+    UnsupportedEpochLengthError
+        If ``epoch_seconds`` is not 15, 30 or 60.
+
+    Notes
+    -----
+    Defined edge cases: without any sleep epoch, ``sol_min`` and ``lps_min`` are NaN (no onset
+    happened; a latency of "time in bed" would be a censored value posing as a measurement),
+    TST, SPT, WASO, efficiency, awakenings and the longest awakening are 0, and the indices
+    None. When no epoch of the in-bed interval is scored (or the interval is empty), every
+    parameter except ``time_in_bed_min`` and ``unscored_epochs`` is NaN.
+
+    Examples
+    --------
+    >>> p = sleep_parameters([0, 0, 1, 1, 0, 1, 0], 60)
+    >>> p.sol_min, p.tst_min, p.waso_min, p.awakenings
+    (2.0, 3.0, 2.0, 2.0)
+    """
+    x = as_sleep_vector(sleep, allow_unscored=True)
+    epoch_min = check_epoch_seconds(epoch_seconds) / 60.0
+    off = _check_index(lights_off_idx, "lights_off_idx")
+    on = x.size if lights_on_idx is None else _check_index(lights_on_idx, "lights_on_idx")
+    if not 0 <= off <= on <= x.size:
+        raise InvalidInBedIntervalError(
+            f"in-bed interval [{off}, {on}) is not inside the recording of {x.size} epochs")
+    if waso_end not in ("lights_on", "final_awakening"):
+        raise NightbankError(f"waso_end must be 'lights_on' or 'final_awakening', got {waso_end!r}",
+                             code="invalid_parameter_option")
+    if isinstance(min_awakening_epochs, bool) or int(min_awakening_epochs) != min_awakening_epochs \
+            or min_awakening_epochs < 1 or not persistent_sleep_min > 0:
+        raise NightbankError("min_awakening_epochs must be an integer >= 1 and persistent_sleep_min > 0",
+                             code="invalid_parameter_option")
+    seg = x[off:on]
+    tib = seg.size * epoch_min
+    missing = np.isnan(seg)
+    unscored = int(np.count_nonzero(missing))
+    scored_idx = (~missing).nonzero()[0] if unscored else None  # in-bed positions of scored epochs
+    v = seg[scored_idx] if unscored else seg
+    sleep_pos = (v == 1.0).nonzero()[0]  # positions among scored epochs
+    if sleep_pos.size == 0:
+        return _no_sleep(tib, unscored, nothing_scored=unscored == seg.size)
+    onset_c, last_c = int(sleep_pos[0]), int(sleep_pos[-1])
+    onset, last = (onset_c, last_c) if scored_idx is None else (int(scored_idx[onset_c]), int(scored_idx[last_c]))
+    # runs from sleep onset on: sleep and wake alternate; the run after last_c is terminal wake
+    starts, lengths, vals = run_lengths(v[onset_c:])
+    is_wake = vals == 0.0
+    wake_bouts = lengths[is_wake]
+    if waso_end == "final_awakening" and is_wake[-1]:
+        wake_bouts = wake_bouts[:-1]
+    bouts = wake_bouts[wake_bouts >= min_awakening_epochs]
+    persistent_epochs = int(np.ceil(persistent_sleep_min / epoch_min - 1e-9))
+    persistent = (~is_wake & (lengths >= persistent_epochs)).nonzero()[0]
+    if persistent.size:
+        lps_c = onset_c + int(starts[persistent[0]])
+        lps = (lps_c if scored_idx is None else int(scored_idx[lps_c])) * epoch_min
+    else:
+        lps = float("nan")
+    tst = sleep_pos.size * epoch_min
+    return SleepParameters(
+        time_in_bed_min=tib,
+        sol_min=onset * epoch_min,
+        lps_min=float(lps),
+        spt_min=(last + 1 - onset) * epoch_min,
+        tst_min=tst,
+        waso_min=float(wake_bouts.sum()) * epoch_min,
+        sleep_efficiency_pct=100.0 * tst / ((seg.size - unscored) * epoch_min),
+        awakenings=float(bouts.size),
+        mean_awakening_min=float(bouts.sum()) / bouts.size * epoch_min if bouts.size else float("nan"),
+        longest_awakening_min=float(bouts.max()) * epoch_min if bouts.size else 0.0,
+        unscored_epochs=int(unscored),
+        sleep_onset_idx=off + onset,
+        final_awakening_idx=off + last + 1,
+    )

@@ -1,0 +1,353 @@
+"""Classical count rules for sleep/wake scoring, behind one interface and one registry.
+
+Every rule maps activity counts (one value per epoch) to a per-epoch call (1 = sleep, 0 = wake,
+int8) and a continuous score oriented so that **higher = more likely sleep** (usable for ROC AUC
+and as a model input). Method ids: ``cole-kripke``, ``sadeh``, ``count-threshold``, each also
+with a ``+webster`` suffix (Webster rescoring of the calls, :func:`models.scoring.rescoring.webster_rescore`;
+the score is left unchanged).
+
+Shared input handling
+---------------------
+- Non-finite counts (NaN for missing or gap-filled epochs, and +/-inf) are treated as 0 counts,
+  and negative counts as 0; the rules never fail on them (the night checks report such epochs).
+- ``count_scale`` multiplies the counts before any rule (a per-study factor to bring a device's
+  counts to the scale the coefficients were fitted on; default 1).
+- Windows that run past either end of the recording see zero counts (zero-padding: common
+  practice, from memory; the published descriptions leave edges unspecified).
+- Cole-Kripke and Sadeh are 1-minute rules: 15-s and 30-s counts are summed into minutes
+  (minute k = epochs ``k*m .. k*m+m-1`` with ``m = 60 / epoch_seconds``, aligned on the first
+  epoch), scored, and each minute's call and score are copied back to its epochs. A trailing
+  partial minute is completed with zero counts, exactly like missing epochs.
+- The weighted count-threshold rule works on the native epochs with an explicit weight table.
+
+Add a rule by writing one :class:`CountRule` subclass and adding it to :data:`RULES`.
+"""
+
+from __future__ import annotations
+
+import abc
+from dataclasses import dataclass
+from typing import Any, ClassVar
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from ..errors import NightbankError
+from .rescoring import check_epoch_seconds, webster_rescore
+
+__all__ = [
+    "COLE_KRIPKE_COEFFICIENTS",
+    "COUNT_THRESHOLD_WEIGHTS",
+    "ColeKripke",
+    "CountRule",
+    "CountThreshold",
+    "InvalidRuleOptionError",
+    "METHOD_IDS",
+    "RULES",
+    "RuleScoring",
+    "Sadeh",
+    "UnknownMethodError",
+    "continuous_scores",
+    "score_with_rule",
+]
+
+WEBSTER_SUFFIX = "+webster"
+
+#: Cole et al. 1992 1-minute coefficient sets: name -> (P, weights for t-4 .. t+2).
+#: Both rows are from memory (published-methods 1a, [M]).
+COLE_KRIPKE_COEFFICIENTS: dict[str, tuple[float, tuple[float, ...]]] = {
+    "max-10s": (0.00001, (404, 598, 326, 441, 1408, 508, 350)),  # max of overlapping 10-s counts
+    "mean-1min": (0.001, (106, 54, 58, 76, 230, 74, 67)),  # mean activity per minute
+}
+
+_TAPER = (1 / 25, 1 / 5, 1.0, 1 / 5, 1 / 25)
+#: Weighted count-threshold rule (Oakley 1997 report, all from memory, published-methods 1d):
+#: (convention, epoch_seconds) -> centred weights. "fixed-span": the window always covers
+#: t-2 min .. t+2 min and the centre weight is the number of epochs per minute, so the weighted
+#: sum stays in counts per minute. "fixed-taps": the 5 weights on 5 consecutive epochs.
+COUNT_THRESHOLD_WEIGHTS: dict[tuple[str, int], tuple[float, ...]] = {
+    ("fixed-span", 60): _TAPER,
+    ("fixed-span", 30): (1 / 25,) * 2 + (1 / 5,) * 2 + (2.0,) + (1 / 5,) * 2 + (1 / 25,) * 2,
+    ("fixed-span", 15): (1 / 25,) * 4 + (1 / 5,) * 4 + (4.0,) + (1 / 5,) * 4 + (1 / 25,) * 4,
+    ("fixed-taps", 60): _TAPER,
+    ("fixed-taps", 30): _TAPER,
+    ("fixed-taps", 15): _TAPER,
+}
+
+
+class UnknownMethodError(NightbankError):
+    """The method id is not a registered rule (optionally with ``+webster``)."""
+
+    code = "unknown_method"
+
+
+class InvalidRuleOptionError(NightbankError):
+    """A rule option is unknown or has an invalid value."""
+
+    code = "invalid_rule_option"
+
+
+@dataclass(frozen=True, eq=False)
+class RuleScoring:
+    """Result of scoring one recording with one method.
+
+    Attributes
+    ----------
+    sleep : ndarray of int8, shape (n_epochs,)
+        1 = sleep, 0 = wake.
+    score : ndarray of float64, shape (n_epochs,), or None
+        The rule's continuous score, higher = more likely sleep (before any Webster rescoring);
+        None for a rule without one.
+    method : str
+        The method id used, e.g. ``"cole-kripke+webster"``.
+    """
+
+    sleep: NDArray[np.int8]
+    score: NDArray[np.float64] | None
+    method: str
+
+
+def _minute_counts(counts: NDArray[np.float64], epoch_seconds: int) -> NDArray[np.float64]:
+    """Sum epochs into minutes; a trailing partial minute is completed with zeros."""
+    per_min = 60 // epoch_seconds
+    if per_min == 1:
+        return counts
+    short = -counts.size % per_min
+    full = np.concatenate((counts, np.zeros(short))) if short else counts
+    total = full[0::per_min].copy()
+    for offset in range(1, per_min):  # at most 4 strided slices, not a loop over epochs
+        total += full[offset::per_min]
+    return total
+
+
+def _to_epochs(per_minute: NDArray[np.float64], epoch_seconds: int, n_epochs: int) -> NDArray[np.float64]:
+    per_min = 60 // epoch_seconds
+    return per_minute if per_min == 1 else np.repeat(per_minute, per_min)[:n_epochs]
+
+
+def _window_sum(x: NDArray[np.float64], before: int, after: int) -> NDArray[np.float64]:
+    """Sum of ``x[t-before .. t+after]`` for every t, values outside ``x`` counting as zero."""
+    return np.convolve(x, np.ones(before + after + 1), mode="full")[after:after + x.size]
+
+
+class CountRule(abc.ABC):
+    """A classical count rule.
+
+    Subclasses set ``method_id`` (the registry key), ``score_name`` (the feature name of the
+    continuous score) and implement :meth:`apply`. Options are keyword-only ``__init__``
+    arguments with documented defaults; ``__init__`` raises :class:`InvalidRuleOptionError`
+    for invalid values.
+    """
+
+    method_id: ClassVar[str]
+    score_name: ClassVar[str]
+
+    @abc.abstractmethod
+    def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
+        """Score clean counts.
+
+        Parameters
+        ----------
+        counts : ndarray of float64, shape (n_epochs,)
+            Finite, non-negative counts per epoch, already multiplied by the count scale.
+        epoch_seconds : {15, 30, 60}
+
+        Returns
+        -------
+        sleep : ndarray of int8, shape (n_epochs,)
+        score : ndarray of float64, shape (n_epochs,)
+            Higher = more likely sleep.
+        """
+
+
+class ColeKripke(CountRule):
+    """Cole-Kripke weighted 7-minute window (Cole et al. 1992, Sleep 15(5):461-469).
+
+    ``D[t] = P * sum_k W_k * A[t+k]`` for k = -4 .. +2 (minutes); wake if ``D >= 1``, sleep if
+    ``D < 1``. The score is ``1 - D`` (sleep exactly when the score is > 0).
+
+    Parameters
+    ----------
+    coefficients : {"max-10s", "mean-1min"}, default="max-10s"
+        Which 1-minute coefficient set of :data:`COLE_KRIPKE_COEFFICIENTS` (both from memory).
+        The default is the set most often quoted in full (scale factor plus 7 weights); its wake
+        threshold for steady activity, ``1 / (P * sum W)`` = 24.8 counts per minute, lies in
+        the range of per-minute count totals, whereas ``"mean-1min"`` (threshold 1.5 counts per
+        minute) expects counts first brought to its scale with ``count_scale``.
+    """
+
+    method_id = "cole-kripke"
+    score_name = "cole_kripke_score"
+
+    def __init__(self, *, coefficients: str = "max-10s") -> None:
+        if coefficients not in COLE_KRIPKE_COEFFICIENTS:
+            raise InvalidRuleOptionError(
+                f"unknown Cole-Kripke coefficient set {coefficients!r}; use one of {sorted(COLE_KRIPKE_COEFFICIENTS)}")
+        self.coefficients = coefficients
+
+    def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
+        scale, weights = COLE_KRIPKE_COEFFICIENTS[self.coefficients]
+        minutes = _minute_counts(counts, epoch_seconds)
+        padded = np.concatenate((np.zeros(4), minutes, np.zeros(2)))
+        d = scale * np.correlate(padded, np.asarray(weights, dtype=np.float64), mode="valid")
+        score = _to_epochs(1.0 - d, epoch_seconds, counts.size)
+        return (score > 0).astype(np.int8), score
+
+
+class Sadeh(CountRule):
+    """Sadeh probability-of-sleep score (Sadeh et al. 1994, Sleep 17(3):201-207).
+
+    ``PS = 7.601 - 0.065*MEAN - 1.08*NAT - 0.056*SD - 0.703*LG`` on 1-minute counts, where MEAN
+    is the mean over minutes t-5 .. t+5 (always divided by 11), NAT the number of those minutes
+    with ``50 <= A < 100``, SD the sample standard deviation (ddof=1) of minutes t-5 .. t and LG
+    ``ln(A[t] + 1)``. Sleep if ``PS >= 0``. The score is PS itself. Coefficients are the ones
+    reproduced in later papers; ddof=1 for SD is our reading (both from memory).
+    Minutes outside the recording count as zero (common practice).
+    """
+
+    method_id = "sadeh"
+    score_name = "sadeh_score"
+
+    def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
+        a = _minute_counts(counts, epoch_seconds)
+        mean = _window_sum(a, 5, 5) / 11.0
+        nat = _window_sum(((a >= 50) & (a < 100)).astype(np.float64), 5, 5)
+        s1, s2 = _window_sum(a, 5, 0), _window_sum(a * a, 5, 0)  # trailing 6-minute sums
+        sd = np.sqrt(np.maximum(s2 - s1 * s1 / 6.0, 0.0) / 5.0)
+        ps = 7.601 - 0.065 * mean - 1.08 * nat - 0.056 * sd - 0.703 * np.log1p(a)
+        score = _to_epochs(ps, epoch_seconds, counts.size)
+        return (score >= 0).astype(np.int8), score
+
+
+class CountThreshold(CountRule):
+    """Weighted count-threshold rule (Oakley 1997 technical report; all from memory).
+
+    ``TA[t] = sum_k w_k * A[t+k]`` over a short centred window of native epochs; sleep if
+    ``TA <= threshold``, wake otherwise. The score is ``threshold - TA`` (sleep exactly when the
+    score is >= 0).
+
+    Parameters
+    ----------
+    threshold : float, default=40.0
+        Wake threshold in counts (common choices: 20 low, 40 medium, 80 high; lower calls more
+        wake). In the original device's units; calibrate for other counts.
+    convention : {"fixed-span", "fixed-taps"}, default="fixed-span"
+        Weight table of :data:`COUNT_THRESHOLD_WEIGHTS` used for 15-s and 30-s epochs (both are
+        the same at 60 s). The default keeps the window at +/-2 minutes and ``TA`` in counts
+        per minute, so the thresholds keep their meaning at every epoch length.
+    """
+
+    method_id = "count-threshold"
+    score_name = "count_threshold_score"
+
+    def __init__(self, *, threshold: float = 40.0, convention: str = "fixed-span") -> None:
+        if convention not in {c for c, _ in COUNT_THRESHOLD_WEIGHTS}:
+            raise InvalidRuleOptionError(f"unknown convention {convention!r}; use 'fixed-span' or 'fixed-taps'")
+        if not np.isfinite(threshold):
+            raise InvalidRuleOptionError(f"threshold must be a finite number of counts, got {threshold!r}")
+        self.threshold = float(threshold)
+        self.convention = convention
+
+    def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
+        weights = np.asarray(COUNT_THRESHOLD_WEIGHTS[(self.convention, epoch_seconds)])
+        half = weights.size // 2  # weights are symmetric, so convolution = correlation
+        ta = np.convolve(counts, weights)[half:half + counts.size]
+        score = self.threshold - ta
+        return (score >= 0).astype(np.int8), score
+
+
+#: Registry of count rules keyed by base method id.
+RULES: dict[str, type[CountRule]] = {rule.method_id: rule for rule in (ColeKripke, Sadeh, CountThreshold)}
+#: Every valid method id: each rule alone and followed by Webster rescoring.
+METHOD_IDS: tuple[str, ...] = tuple(m for base in RULES for m in (base, base + WEBSTER_SUFFIX))
+
+
+def _clean_counts(counts: ArrayLike, count_scale: float) -> NDArray[np.float64]:
+    a = np.asarray(counts, dtype=np.float64)
+    if a.ndim != 1:
+        raise NightbankError(f"counts must be 1-D, got shape {a.shape}", code="invalid_counts")
+    if not np.isfinite(count_scale) or count_scale <= 0:
+        raise InvalidRuleOptionError(f"count_scale must be a positive number, got {count_scale!r}")
+    clean = np.where(np.isfinite(a) & (a > 0), a, 0.0)
+    return clean * count_scale if count_scale != 1.0 else clean
+
+
+def _make_rule(base: str, options: dict[str, Any]) -> CountRule:
+    try:
+        return RULES[base](**options)
+    except TypeError as exc:
+        raise InvalidRuleOptionError(f"invalid option for {base!r}: {exc}") from exc
+
+
+def score_with_rule(counts: ArrayLike, epoch_seconds: int, method: str, *, count_scale: float = 1.0,
+                    **rule_options: Any) -> RuleScoring:
+    """Score a recording with one classical method.
+
+    Parameters
+    ----------
+    counts : array-like of shape (n_epochs,)
+        Activity counts per epoch; NaN (missing) and negative values count as 0.
+    epoch_seconds : {15, 30, 60}
+        Epoch length in seconds.
+    method : str
+        One of :data:`METHOD_IDS`, e.g. ``"sadeh"`` or ``"cole-kripke+webster"``.
+    count_scale : float, default=1.0
+        Factor applied to the counts before the rule.
+    **rule_options
+        Keyword options of the rule class (e.g. ``threshold=20`` for ``count-threshold``).
+
+    Returns
+    -------
+    RuleScoring
+        ``sleep`` (int8, 1 = sleep), ``score`` (higher = more likely sleep) and ``method``.
+
+    Raises
+    ------
+    UnknownMethodError
+        If ``method`` is not in :data:`METHOD_IDS` (the message lists them).
+    InvalidRuleOptionError
+        If an option or ``count_scale`` is invalid.
+    UnsupportedEpochLengthError
+        If ``epoch_seconds`` is not 15, 30 or 60.
+
+    Examples
+    --------
+    >>> score_with_rule([0, 0, 500, 0, 0], 60, "count-threshold").sleep.tolist()
+    [1, 0, 0, 0, 1]
+    """
+    base, _, suffix = method.partition("+")
+    if base not in RULES or suffix not in ("", WEBSTER_SUFFIX[1:]):
+        raise UnknownMethodError(f"unknown method {method!r}; valid methods: {', '.join(METHOD_IDS)}")
+    epoch_seconds = check_epoch_seconds(epoch_seconds)
+    rule = _make_rule(base, rule_options)
+    clean = _clean_counts(counts, count_scale)
+    if clean.size == 0:
+        return RuleScoring(sleep=np.zeros(0, dtype=np.int8), score=np.zeros(0), method=method)
+    sleep, score = rule.apply(clean, epoch_seconds)
+    if suffix:
+        sleep = webster_rescore(sleep, epoch_seconds)
+    return RuleScoring(sleep=sleep, score=score, method=method)
+
+
+def continuous_scores(counts: ArrayLike, epoch_seconds: int, *,
+                      count_scale: float = 1.0) -> dict[str, NDArray[np.float64]]:
+    """Every registered rule's continuous score, with default options.
+
+    Parameters
+    ----------
+    counts : array-like of shape (n_epochs,)
+        Activity counts per epoch; NaN and negative values count as 0.
+    epoch_seconds : {15, 30, 60}
+    count_scale : float, default=1.0
+
+    Returns
+    -------
+    scores : dict of str to ndarray of float64, shape (n_epochs,)
+        Keyed by each rule's ``score_name`` (``cole_kripke_score``, ``sadeh_score``,
+        ``count_threshold_score``); higher = more likely sleep.
+    """
+    epoch_seconds = check_epoch_seconds(epoch_seconds)
+    clean = _clean_counts(counts, count_scale)
+    if clean.size == 0:
+        return {rule.score_name: np.zeros(0) for rule in RULES.values()}
+    return {rule.score_name: rule().apply(clean, epoch_seconds)[1] for rule in RULES.values()}
