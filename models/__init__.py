@@ -3,54 +3,106 @@ features and models. Plain Python (numpy, pandas, scikit-learn, XGBoost, Optuna)
 database code. ``__all__`` is the only surface the service may import.
 """
 
-from .agreement.bland_altman import (
-    BLAND_ALTMAN_PARAMETERS,
-    REFERENCE,
-    BlandAltman,
-    NightRecord,
-    RuleComparison,
-    bland_altman,
-    bland_altman_table,
-    compare_rules_with_reference,
-)
-from .nights.checks import NightOptions, QCConfig, QCFlag, quality_flags, validate_night_fields
-from .learning.artifacts import InvalidModelArtifactError, load_model, model_from_bytes, model_to_bytes, save_model
-from .learning.classifier import SleepModel
-from .learning.study_comparison import COMPARED_RULES, MODEL_METHODS, StudyComparison, choose_method, compare_study
-from .simulation.demo_study import DEMO_STUDY_ID, demo_nights, write_demo_study
 from .errors import InvalidNightError, NightbankError, NotFittedError, Problem
-from .features.cache import FeatureCache
-from .features.matrix import (
+from .agreement import (
+    agreement_table,
+    ALWAYS_SLEEP,
+    always_sleep,
+    bland_altman,
+    BLAND_ALTMAN_PARAMETERS,
+    bland_altman_table,
+    BlandAltman,
+    compare_rules_with_reference,
+    epoch_agreement,
+    EPOCH_METRIC_NAMES,
+    NightRecord,
+    REFERENCE,
+    RuleComparison,
+    ScoredNight,
+)
+from .features import (
+    check_feature_set,
+    compute_features,
     FAMILIES,
+    FeatureCache,
     FeatureConfig,
     FeatureInputError,
     FeatureMatrix,
     FeatureSetMismatchError,
-    check_feature_set,
-    compute_features,
 )
-from .nights.json_io import COLUMN_ALIASES, detect_format, night_from_json, night_to_json, read_night
-from .agreement.epoch_metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep, epoch_agreement
-from .nights.night import SUPPORTED_EPOCH_SECONDS, Night, canonical_stage, stages_to_sleep
-from .learning.offset import ShrinkageChoice, choose_shrinkage, estimate_offset
-from .scoring.parameters import PARAMETER_NAMES, SleepParameters, sleep_parameters
-from .learning.personal import PersonalResult, train_personal
-from .learning.pooled import PooledResult, participant_offset, train_pooled
-from .nights.resample import aggregate_epochs
-from .scoring.rescoring import webster_rescore
-from .scoring.rules import METHOD_IDS, RULES, RuleScoring, UnknownMethodError, continuous_scores, score_with_rule
-from .simulation.simulator import CohortSpec, SimulatedNight, simulate_cohort
-from .learning.splits import SPLITTERS, ForwardChainedSplit, TooFewNightsError
-from .nights.tabular import night_from_csv, night_from_parquet, night_to_csv, night_to_parquet
-from .learning.tasks import Progress, TrainingCancelled
-from .learning.training import (
+from .learning import (
     CHOICE_POLICIES,
+    choose_method,
+    choose_shrinkage,
+    compare_study,
+    COMPARED_RULES,
     DESCRIPTOR_NAMES,
+    estimate_offset,
+    ForwardChainedSplit,
     HeldOutNight,
+    InvalidModelArtifactError,
     InvalidTrainingConfigError,
+    load_model,
+    model_from_bytes,
+    MODEL_METHODS,
+    model_to_bytes,
+    participant_descriptors,
+    participant_offset,
+    PersonalResult,
+    PooledResult,
+    Progress,
+    save_model,
+    ShrinkageChoice,
+    SleepModel,
+    SPLITTERS,
+    StudyComparison,
+    TooFewNightsError,
+    train_personal,
+    train_pooled,
+    TrainingCancelled,
     TrainingConfig,
     TrainingDataError,
-    participant_descriptors,
+)
+from .nights import (
+    aggregate_epochs,
+    canonical_stage,
+    COLUMN_ALIASES,
+    detect_format,
+    Night,
+    night_from_csv,
+    night_from_json,
+    night_from_parquet,
+    night_to_csv,
+    night_to_json,
+    night_to_parquet,
+    NightOptions,
+    QCConfig,
+    QCFlag,
+    quality_flags,
+    read_night,
+    stages_to_sleep,
+    SUPPORTED_EPOCH_SECONDS,
+    validate_night_fields,
+)
+from .scoring import (
+    continuous_scores,
+    METHOD_IDS,
+    PARAMETER_NAMES,
+    RULES,
+    RuleScoring,
+    score_with_rule,
+    sleep_parameters,
+    SleepParameters,
+    UnknownMethodError,
+    webster_rescore,
+)
+from .simulation import (
+    CohortSpec,
+    demo_nights,
+    DEMO_STUDY_ID,
+    simulate_cohort,
+    SimulatedNight,
+    write_demo_study,
 )
 
 __all__ = [

@@ -1,7 +1,7 @@
 """The FastAPI application: ``create_app(settings)`` wires database, routers, problems and telemetry.
 
 The app never migrates the database: it refuses to start on a database that is not at the newest
-schema revision (see :mod:`service.migration`). ``nightbank serve`` migrates before starting it.
+schema revision (see :mod:`service.store.schema`). ``nightbank serve`` migrates before starting it.
 """
 
 from __future__ import annotations
@@ -12,15 +12,15 @@ from contextlib import asynccontextmanager
 from fastapi import FastAPI
 from fastapi.routing import APIRoute
 
-from . import db
+from .store import db
 from .api.problems import PROBLEM_RESPONSES, install_problem_handlers
 from .api.routes import nights, reports, studies, system, tokens, training
 from .api.schemas import Problem
-from .cachewriter import CacheWriter
+from .store.cachewriter import CacheWriter
 from .config import Settings, get_settings
-from .migration import check_schema
+from .store.schema import check_schema
 from .telemetry import Metrics, RequestTelemetry
-from .tokens import TokenCache
+from .store.tokens import TokenCache
 from .ui import mount_ui
 
 __all__ = ["app_from_env", "create_app"]

@@ -1,1 +1,69 @@
-"""TODO."""
+"""Nights: the data model, validation and quality flags, epoch aggregation, and the JSON/CSV/Parquet formats."""
+
+from __future__ import annotations
+
+from .checks import (
+    NightOptions,
+    QCConfig,
+    QCFlag,
+    quality_flags,
+    validate_night_fields,
+)
+from .decoding import (
+    COLUMN_ALIASES,
+)
+from .formats import (
+    FORMATS,
+    detect_format,
+    read_night,
+)
+from .json_io import (
+    night_from_json,
+    night_to_json,
+)
+from .night import (
+    MovementTimePolicy,
+    Night,
+    STAGE_CODES,
+    SUPPORTED_EPOCH_SECONDS,
+    UNSCORED_CODES,
+    canonical_stage,
+    stages_to_sleep,
+)
+from .resample import (
+    aggregate_epochs,
+    majority_stage,
+)
+from .tabular import (
+    night_from_csv,
+    night_from_parquet,
+    night_to_csv,
+    night_to_parquet,
+)
+
+__all__ = [
+    "COLUMN_ALIASES",
+    "FORMATS",
+    "MovementTimePolicy",
+    "Night",
+    "NightOptions",
+    "QCConfig",
+    "QCFlag",
+    "STAGE_CODES",
+    "SUPPORTED_EPOCH_SECONDS",
+    "UNSCORED_CODES",
+    "aggregate_epochs",
+    "canonical_stage",
+    "detect_format",
+    "majority_stage",
+    "night_from_csv",
+    "night_from_json",
+    "night_from_parquet",
+    "night_to_csv",
+    "night_to_json",
+    "night_to_parquet",
+    "quality_flags",
+    "read_night",
+    "stages_to_sleep",
+    "validate_night_fields",
+]

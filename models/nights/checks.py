@@ -53,7 +53,7 @@ class NightOptions:
     aggregate_to : int, optional
         Sum epochs into this longer length (30 or 60 s) after reading.
     time_column, counts_column, reference_column : str, optional
-        Explicit column names; by default found through :data:`models.nights.json_io.COLUMN_ALIASES`.
+        Explicit column names; by default found through :data:`models.nights.decoding.COLUMN_ALIASES`.
     """
 
     min_hours: float = 1.0

@@ -1,6 +1,6 @@
 """The night: one actigraphy recording of one participant, with optional PSG reference labels.
 
-A :class:`Night` is immutable. It is built by :mod:`models.nights.json_io` (JSON, CSV, Parquet) after
+A :class:`Night` is immutable. It is built by the readers of :mod:`models.nights.formats` (JSON, CSV, Parquet) after
 :func:`models.nights.checks.validate_night_fields` has accepted its fields, so every ``Night`` in memory
 is valid. Derived values (end time, duration, in-bed epochs, content hash) are computed from the
 stored fields.

@@ -1,4 +1,4 @@
-"""CSV and Parquet nights: one row per epoch (see :mod:`models.nights.json_io` for the format rules)."""
+"""CSV and Parquet nights: one row per epoch (see :mod:`models.nights.formats` for the format rules)."""
 
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ import pandas as pd
 
 from .checks import MAX_LISTED, CodedLabels, NightOptions, validate_night_fields
 from ..errors import InvalidNightError, Problem
-from .json_io import _META_LINE, COLUMN_ALIASES, _decode, _finish, _night_kwargs_meta
+from .decoding import COLUMN_ALIASES, META_LINE, decode_text, finish_night, metadata_fields
 from .night import Night
 
 __all__ = ["night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
@@ -187,26 +187,26 @@ def _night_from_table(table: Any, meta: dict[str, Any], *, participant_id: str, 
                 ref_full = np.full(full.size, "?", dtype=object)
                 ref_full[index] = list(reference)
                 reference = ref_full.tolist()
-    kwargs = _night_kwargs_meta(meta, options.tz, problems)
+    kwargs = metadata_fields(meta, options.tz, problems)
     night = validate_night_fields(participant_id=participant_id, start=start, epoch_seconds=epoch_seconds,
                                   counts=counts, reference=reference, options=options, problems=problems,
                                   source=source, **kwargs)
-    return _finish(night, options)
+    return finish_night(night, options)
 
 
 def night_from_csv(data: bytes | str, *, participant_id: str = "", options: NightOptions = NightOptions(),
                    source: str | None = None) -> Night:
-    """Night from CSV text (see :mod:`models.nights.json_io`); parsed by Arrow's C++ CSV reader."""
+    """Night from CSV text (see :mod:`models.nights.formats`); parsed by Arrow's C++ CSV reader."""
     import pyarrow as pa
 
-    text = _decode(data, source)
+    text = decode_text(data, source)
     meta: dict[str, Any] = {}
     pos = 0
     n_meta = 0
     while text.startswith("#", pos):
         nl = text.find("\n", pos)
         line = text[pos: len(text) if nl < 0 else nl]
-        hit = _META_LINE.match(line.rstrip("\r"))
+        hit = META_LINE.match(line.rstrip("\r"))
         if hit:
             meta[hit.group(1).lower()] = hit.group(2)
         n_meta += 1

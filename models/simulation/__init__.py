@@ -1,1 +1,29 @@
-"""TODO."""
+"""Simulated nights: the cohort simulator and the demo study (all data invented)."""
+
+from __future__ import annotations
+
+from .demo_study import (
+    DEMO_SEED,
+    DEMO_STUDY_ID,
+    demo_nights,
+    write_demo_study,
+)
+from .simulator import (
+    CohortSpec,
+    PersonTraits,
+    SimulatedNight,
+    simulate_cohort,
+    simulate_night,
+)
+
+__all__ = [
+    "CohortSpec",
+    "DEMO_SEED",
+    "DEMO_STUDY_ID",
+    "PersonTraits",
+    "SimulatedNight",
+    "demo_nights",
+    "simulate_cohort",
+    "simulate_night",
+    "write_demo_study",
+]

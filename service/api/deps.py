@@ -20,10 +20,10 @@ from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy.orm import Session, sessionmaker
 
 from ..config import Settings
-from ..db import session_scope
+from ..store.db import session_scope
 from ..errors import Forbidden, NotFound, Unauthorized
-from ..registry import ID_PATTERN
-from ..tokens import Principal, Role, TokenCache, verify_token
+from ..store.registry import ID_PATTERN
+from ..store.tokens import Principal, Role, TokenCache, verify_token
 
 __all__ = [
     "FactoryDep", "PrincipalDep", "ReadSession", "SettingsDep", "StudyAccess", "require_lab_role", "study_access",

@@ -7,7 +7,7 @@ from typing import Any, Generic, Literal, TypeVar
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from ..registry import ID_PATTERN
+from ..store.registry import ID_PATTERN
 
 __all__ = [
     "JobAccepted", "JobOut", "ModelVersionOut", "NightAccepted", "NightIn", "NightOut", "Page", "ParticipantOut",

@@ -69,7 +69,7 @@ def configure_logging(level: str) -> None:
 def migrate(db: DbOption = None,
             revision: Annotated[str, typer.Option(help="Target revision (default: the newest).")] = "head") -> None:
     """Create or upgrade the database schema (safe to run again)."""
-    from ..migration import upgrade
+    from ..store.schema import upgrade
 
     settings = local_settings(db=db)
     upgrade(settings, revision)
@@ -99,9 +99,9 @@ def serve(
     import uvicorn
 
     from ..config import get_settings
-    from ..db import make_engine
-    from ..migration import check_schema, upgrade
-    from ..workers import settings_env, start_worker_processes, stop_worker_processes
+    from ..store.db import make_engine
+    from ..store.schema import check_schema, upgrade
+    from ..jobs.workers import settings_env, start_worker_processes, stop_worker_processes
 
     settings = local_settings(host=host, port=port, db=db, workers=workers, job_workers=job_workers,
                               executor=executor, dask_scheduler=dask_scheduler)
@@ -136,9 +136,9 @@ def worker(db: DbOption = None, executor: ExecutorOption = None, dask_scheduler:
     """Run one more training worker in the foreground (same database as the server, any machine)."""
     import signal
 
-    from ..db import make_engine, make_session_factory
-    from ..migration import check_schema
-    from ..workers import Worker
+    from ..store.db import make_engine, make_session_factory
+    from ..store.schema import check_schema
+    from ..jobs.workers import Worker
 
     settings = local_settings(db=db, executor=executor, dask_scheduler=dask_scheduler)
     configure_logging(settings.log_level)

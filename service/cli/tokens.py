@@ -22,8 +22,8 @@ StudyOption = Annotated[str | None, typer.Option("--study", help="Scope the toke
 
 
 def _factory(db: str | None) -> Any:
-    from ..db import make_engine, make_session_factory
-    from ..migration import check_schema
+    from ..store.db import make_engine, make_session_factory
+    from ..store.schema import check_schema
 
     engine = make_engine(local_settings(db=db))
     check_schema(engine)
@@ -38,8 +38,8 @@ def create(
     db: DbOption = None,
 ) -> None:
     """Create a token and print it once, as the last line (only a salted hash is stored)."""
-    from ..db import session_scope
-    from ..tokens import create_token
+    from ..store.db import session_scope
+    from ..store.tokens import create_token
 
     try:
         with session_scope(_factory(db), write=True) as session:
@@ -54,8 +54,8 @@ def create(
 @token_app.command("list")
 def list_(study: StudyOption = None, db: DbOption = None) -> None:
     """List tokens (ids, roles, scopes; never secrets)."""
-    from ..db import session_scope
-    from ..tokens import list_tokens
+    from ..store.db import session_scope
+    from ..store.tokens import list_tokens
 
     try:
         with session_scope(_factory(db)) as session:
@@ -75,8 +75,8 @@ def list_(study: StudyOption = None, db: DbOption = None) -> None:
 def revoke(token_id: Annotated[str, typer.Argument(help="Token id (12 hex digits) from `token list`.")],
            db: DbOption = None) -> None:
     """Revoke a token; it is refused from the next request on."""
-    from ..db import session_scope
-    from ..tokens import revoke_token
+    from ..store.db import session_scope
+    from ..store.tokens import revoke_token
 
     try:
         with session_scope(_factory(db), write=True) as session:

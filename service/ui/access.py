@@ -3,7 +3,7 @@
 What the cookie holds, and why
 ------------------------------
 The cookie holds the token itself, not a server-side session id. Every page request verifies it
-with :func:`service.tokens.verify_token`, exactly like an API request with
+with :func:`service.store.tokens.verify_token`, exactly like an API request with
 ``Authorization: Bearer``, so the pages have the API's roles and study scoping by construction,
 and a revoked token stops working on the next page load. No session table or in-memory session
 store is needed, so the pages work the same behind several HTTP worker processes and across
@@ -33,10 +33,10 @@ from fastapi import Depends, Path, Request
 from fastapi.responses import Response
 from sqlalchemy.orm import Session, sessionmaker
 
-from ..db import session_scope
+from ..store.db import session_scope
 from ..errors import Forbidden, NotFound, Unauthorized
-from ..registry import ID_PATTERN
-from ..tokens import Principal, Role, verify_token
+from ..store.registry import ID_PATTERN
+from ..store.tokens import Principal, Role, verify_token
 
 __all__ = [
     "COOKIE_MAX_AGE_S",

@@ -1,6 +1,6 @@
 """Form actions of the pages: start a training job, and the job status read by the progress bar.
 
-Training goes through the service's job queue (:func:`service.training.queue_training`), exactly like
+Training goes through the service's job queue (:func:`service.jobs.training.queue_training`), exactly like
 ``POST /v1/studies/{study}/.../training``: the same checks, the same one-job-per-target rule,
 and the same audit record. The status route is the page-session twin of ``GET /v1/jobs/{id}``
 (the page's script cannot send the bearer token: the cookie is HttpOnly).
@@ -13,12 +13,12 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Form, Path, Request
 from fastapi.responses import RedirectResponse
 
-from .. import jobs
+from ..jobs import queue as jobs
 from ..api.deps import FactoryDep, SettingsDep
-from ..db import session_scope
+from ..store.db import session_scope
 from ..errors import Forbidden, NotFound
-from ..tokens import Principal, Role
-from ..training import queue_training
+from ..store.tokens import Principal, Role
+from ..jobs.training import queue_training
 from .access import UI_PREFIX, StudyPage, check_origin, page_principal
 from .pages import ParticipantPath
 

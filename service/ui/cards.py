@@ -1,6 +1,6 @@
 """Model cards: what a stored model version is, how it was validated and how (not) to use it.
 
-One card per model version, built from the registry record (:class:`service.versions.VersionInfo`)
+One card per model version, built from the registry record (:class:`service.store.versions.VersionInfo`)
 as a plain dict (the JSON download) and rendered from that dict as Markdown, so the two downloads
 always say the same thing.
 """
@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from ..versions import VersionInfo
+from ..store.versions import VersionInfo
 from .templating import CAUTIONS
 
 __all__ = ["CARD_METRICS", "model_card", "model_card_markdown"]

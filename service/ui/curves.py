@@ -1,7 +1,7 @@
 """Held-out ROC curves of one participant, per method.
 
 Models are judged only on their held-out predictions, stored with the active versions
-(:func:`service.versions.load_held_out`): the personal model's nested leave-one-night-out
+(:func:`service.store.versions.load_held_out`): the personal model's nested leave-one-night-out
 predictions, the pooled model's leave-participants-out predictions (with and without offset).
 The classical rules are not fitted to anyone, so every labelled night counts as held out for
 them; their continuous scores (higher = more likely sleep) come from
@@ -20,8 +20,8 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import COMPARED_RULES, TrainingConfig, score_with_rule
 
-from .. import registry, versions
-from ..db import session_scope
+from ..store import registry, versions
+from ..store.db import session_scope
 
 __all__ = ["RocCurve", "held_out_roc"]
 

@@ -13,11 +13,11 @@ import pandas as pd
 from fastapi import APIRouter, Path, Query
 from fastapi.responses import Response
 
-from .. import registry, versions
+from ..store import registry, versions
 from ..api.deps import FactoryDep
-from ..db import session_scope
+from ..store.db import session_scope
 from ..errors import NotFound, Unprocessable
-from ..tokens import Role
+from ..store.tokens import Role
 from .access import StudyPage
 from .cards import model_card, model_card_markdown
 from .curves import held_out_roc

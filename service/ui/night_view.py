@@ -1,6 +1,6 @@
 """What the night page shows: the night, every method's scoring, the parameter table, the figure data.
 
-Scorings come from :func:`service.scoring.score_night` (cached in the database after the first
+Scorings come from :func:`service.results.scoring.score_night` (cached in the database after the first
 request), so the page, its figure and its CSV show the same numbers as the API's scoring route.
 """
 
@@ -16,11 +16,11 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import PARAMETER_NAMES, Night, sleep_parameters
 
-from .. import registry, versions
-from ..db import session_scope
+from ..store import registry, versions
+from ..store.db import session_scope
 from ..errors import BadRequest, Unprocessable
-from ..registry import NightInfo
-from ..scoring import SCORING_METHODS, score_night
+from ..store.registry import NightInfo
+from ..results.scoring import SCORING_METHODS, score_night
 from .figures import style_of
 from .night_figure import NightPanels
 
@@ -244,7 +244,7 @@ def load_night_view(factory: sessionmaker[Session], *, study_id: str, participan
     ----------
     method : str
         ``"auto"`` (the participant's chosen method) or a method of :data:`NIGHT_METHODS` or
-        :data:`service.scoring.SCORING_METHODS`.
+        :data:`service.results.scoring.SCORING_METHODS`.
     analyse : bool
         Whether to score (analyst role); without it only the night itself is shown.
 

@@ -9,13 +9,14 @@ from fastapi import APIRouter, Depends, Form, Path, Query, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from sqlalchemy.orm import Session, sessionmaker
 
-from .. import jobs, registry
+from ..jobs import queue as jobs
+from ..store import registry
 from ..api.deps import FactoryDep
-from ..db import session_scope
+from ..store.db import session_scope
 from ..errors import NotFound, Unauthorized
-from ..jobs import JobInfo
-from ..registry import StudyInfo
-from ..tokens import Principal
+from ..jobs.queue import JobInfo
+from ..store.registry import StudyInfo
+from ..store.tokens import Principal
 from .access import (
     UI_PREFIX,
     PageAccess,

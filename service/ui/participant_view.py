@@ -11,13 +11,15 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import ALWAYS_SLEEP, COMPARED_RULES
 
-from .. import db, jobs, registry, reports, versions
-from ..db import session_scope
+from ..store import db, registry, versions
+from ..jobs import queue as jobs
+from ..results import reports
+from ..store.db import session_scope
 from ..errors import Unprocessable
-from ..jobs import JobInfo
-from ..registry import NightInfo
-from ..training import check_trainable
-from ..versions import VersionInfo
+from ..jobs.queue import JobInfo
+from ..store.registry import NightInfo
+from ..jobs.training import check_trainable
+from ..store.versions import VersionInfo
 
 __all__ = ["COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "ParticipantView", "held_out_table",
            "last_job", "load_participant_view", "method_summary_table", "nights_table", "versions_table"]
@@ -85,7 +87,7 @@ class ParticipantView:
     trainable : str or None
         None if a personal model can be trained, else why not.
     comparison : dict or None
-        :func:`service.reports.participant_comparison`, or None (``comparison_unavailable`` says why).
+        :func:`service.results.reports.participant_comparison`, or None (``comparison_unavailable`` says why).
     job : JobInfo or None
         The newest personal training job.
     """

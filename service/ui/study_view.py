@@ -11,12 +11,13 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import ALWAYS_SLEEP, REFERENCE
 
-from .. import registry, reports, versions
-from ..db import session_scope
+from ..store import registry, versions
+from ..results import reports
+from ..store.db import session_scope
 from ..errors import Unprocessable
-from ..jobs import JobInfo
-from ..registry import ParticipantInfo
-from ..versions import VersionInfo
+from ..jobs.queue import JobInfo
+from ..store.registry import ParticipantInfo
+from ..store.versions import VersionInfo
 from .participant_view import COMPARISON_METHODS, last_job
 
 __all__ = ["BLAND_ALTMAN_FIGURE_PARAMETERS", "TABLE_METHODS", "StudyView", "bland_altman_pairs",
@@ -42,7 +43,7 @@ class StudyView:
     pooled_versions : list of VersionInfo
         The study's pooled model versions, newest first.
     comparison : dict or None
-        :func:`service.reports.study_comparison`, or None (``comparison_unavailable`` says why).
+        :func:`service.results.reports.study_comparison`, or None (``comparison_unavailable`` says why).
     job : JobInfo or None
         The newest pooled training job.
     """

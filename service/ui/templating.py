@@ -13,7 +13,7 @@ from fastapi.templating import Jinja2Templates
 
 from models import DEMO_STUDY_ID
 
-from ..tokens import Principal
+from ..store.tokens import Principal
 from .access import UI_PREFIX
 from .figures import PARAMETER_LABELS, PARAMETER_UNITS, style_of
 

@@ -21,7 +21,7 @@ ROOT = Path(__file__).resolve().parents[2]
 def settings(tmp_path: Path) -> Any:
     """Settings of a fresh, migrated SQLite database under ``tmp_path`` (short leases, few trials)."""
     from service.config import Settings
-    from service.migration import upgrade
+    from service.store.schema import upgrade
 
     s = Settings(db=f"sqlite:///{tmp_path / 'nightbank.db'}", port=free_port(), lease_s=3.0, heartbeat_s=0.5,
                  poll_s=0.2, n_trials=2, job_workers=1, token_cache_s=0.5)
@@ -31,7 +31,7 @@ def settings(tmp_path: Path) -> Any:
 
 @pytest.fixture
 def factory(settings: Any) -> Any:
-    from service.db import make_engine, make_session_factory
+    from service.store.db import make_engine, make_session_factory
 
     engine = make_engine(settings)
     yield make_session_factory(engine)
@@ -41,8 +41,8 @@ def factory(settings: Any) -> Any:
 @pytest.fixture
 def make_token(factory: Any) -> Callable[..., str]:
     """``make_token(role, study_id=None)`` -> bearer token stored in the test database."""
-    from service.db import session_scope
-    from service.tokens import create_token
+    from service.store.db import session_scope
+    from service.store.tokens import create_token
 
     def make(role: str = "admin", study_id: str | None = None) -> str:
         with session_scope(factory, write=True) as session:
@@ -81,16 +81,16 @@ def study(http: Any, admin: dict[str, str]) -> str:
 
 @pytest.fixture
 def start_worker(settings: Any) -> Iterator[Callable[[], subprocess.Popen[bytes]]]:
-    """Start real worker processes (``python -m service.workers``); all are stopped after the test."""
+    """Start real worker processes (``python -m service.jobs.workers``); all are stopped after the test."""
     started: list[subprocess.Popen[bytes]] = []
 
     def start() -> subprocess.Popen[bytes]:
-        proc = subprocess.Popen([sys.executable, "-m", "service.workers"], env=worker_env(settings), cwd=ROOT)
+        proc = subprocess.Popen([sys.executable, "-m", "service.jobs.workers"], env=worker_env(settings), cwd=ROOT)
         started.append(proc)
         return proc
 
     yield start
-    from service.workers import stop_worker_processes
+    from service.jobs.workers import stop_worker_processes
 
     stop_worker_processes(started, timeout_s=10)
 

@@ -50,7 +50,7 @@ def bearer(token: str) -> dict[str, str]:
 
 
 def worker_env(settings: Any) -> dict[str, str]:
-    from service.workers import settings_env
+    from service.jobs.workers import settings_env
 
     return {**os.environ, **settings_env(settings)}
 

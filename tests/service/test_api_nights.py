@@ -126,8 +126,8 @@ def test_stored_arrays_rebuild_the_posted_night(http, study, admin, factory) -> 
     from sqlalchemy import select
 
     from models import night_from_json
-    from service import db
-    from service.codec import night_from_row
+    from service.store import db
+    from service.store.codec import night_from_row
 
     body = night_json(240, seed=9)
     body["counts"][3] = 12.5

@@ -43,7 +43,7 @@ def test_rule_scoring_matches_the_models_package(http, study, admin, method) -> 
 def test_scoring_is_cached_and_records_its_method(http, server, study, admin, factory) -> None:
     from sqlalchemy import select
 
-    from service import db
+    from service.store import db
 
     night_id = _store(http, admin, study, night_json(240, seed=4))
     first = _score(http, admin, study, night_id, method="sadeh")

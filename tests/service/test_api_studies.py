@@ -28,8 +28,8 @@ def test_routes_need_a_token_except_healthz(http, study) -> None:
 def test_revoked_token_is_refused_once_the_cache_entry_expires(http, make_token, factory, settings) -> None:
     import time
 
-    from service.db import session_scope
-    from service.tokens import list_tokens, revoke_token
+    from service.store.db import session_scope
+    from service.store.tokens import list_tokens, revoke_token
 
     token = make_token("admin")
     assert http.get("/v1/studies", headers=bearer(token)).status_code == 200
@@ -98,8 +98,8 @@ def test_participants_listing_is_paginated_and_counts_nights(http, study, admin)
 def test_consent_withdrawal_removes_nights_and_keeps_an_audit_record(http, server, study, admin, factory) -> None:
     from sqlalchemy import func, select
 
-    from service import db
-    from service.audit import list_audit
+    from service.store import db
+    from service.store.audit import list_audit
 
     night_id = _post_night(http, admin, study, "p1").json()["night_id"]
     assert _post_night(http, admin, study, "p1", seed=1).status_code == 201
@@ -119,8 +119,8 @@ def test_consent_withdrawal_removes_nights_and_keeps_an_audit_record(http, serve
 
 
 def test_every_write_is_audited_with_actor(http, study, make_token, factory) -> None:
-    from service.audit import list_audit
-    from service.db import session_scope
+    from service.store.audit import list_audit
+    from service.store.db import session_scope
 
     token = make_token("ingest", study)
     assert _post_night(http, bearer(token), study, "p1").status_code == 201

@@ -114,7 +114,7 @@ def _registry_intact(factory) -> list[tuple[int, bool, str | None]]:
     """Every stored version has its model bytes and loads; returns (version, active, job_id) of each."""
     from sqlalchemy import select
 
-    from service import db, versions
+    from service.store import db, versions
 
     out = []
     with db.session_scope(factory) as session:
@@ -161,8 +161,8 @@ def test_a_taken_over_claim_stores_nothing_and_a_stored_version_is_not_trained_t
     import time
 
     from service.errors import Conflict
-    from service.jobs import claim_job
-    from service.training import run_training_job
+    from service.jobs.queue import claim_job
+    from service.jobs.training import run_training_job
 
     def claim(worker_id: str):
         return claim_job(factory, worker_id=worker_id, lease_s=1.0, max_attempts=3)
@@ -211,7 +211,7 @@ def test_consent_withdrawal_removes_trained_models_and_their_scorings(http, serv
                                                                      factory) -> None:
     from sqlalchemy import func, select
 
-    from service import db
+    from service.store import db
 
     ids = _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
     start_worker()

@@ -42,8 +42,8 @@ def test_concurrent_ingest_and_scoring_store_every_night_once(server, http, admi
     import httpx
     from sqlalchemy import func, select
 
-    from service import db, registry
-    from service.codec import night_from_row
+    from service.store import db, registry
+    from service.store.codec import night_from_row
 
     assert http.post("/v1/studies", json={"study_id": "s1", "name": "Study one"}, headers=admin).status_code == 201
     nights = _nights()

@@ -60,10 +60,10 @@ def test_sigkill_mid_upload_keeps_every_acknowledged_night_whole(tmp_path: Path)
     from sqlalchemy import select
 
     from models import night_to_json
-    from service import db
-    from service.codec import night_from_row
+    from service.store import db
+    from service.store.codec import night_from_row
     from service.config import Settings
-    from service.tokens import create_token
+    from service.store.tokens import create_token
 
     db_url = f"sqlite:///{tmp_path / 'nightbank.db'}"
     migrate = subprocess.run([str(Path(sys.executable).parent / "nightbank"), "migrate", "--db", db_url], cwd=ROOT,

@@ -30,8 +30,8 @@ def _load_and_train(http, admin, study: str, *, seed: int) -> str:
 
 
 def _version_info(factory, version: int) -> dict:
-    from service import db, versions
-    from service.registry import find_participant, find_study
+    from service.store import db, versions
+    from service.store.registry import find_participant, find_study
 
     with db.session_scope(factory) as session:
         study = find_study(session, "s1")
@@ -42,9 +42,9 @@ def _version_info(factory, version: int) -> dict:
 def test_training_on_a_dask_cluster_matches_a_local_run(http, study, admin, settings, factory) -> None:
     from distributed import Client, LocalCluster, get_task_stream
 
-    from service.db import session_scope
-    from service.jobs import get_job
-    from service.workers import LocalExecutor, Worker
+    from service.store.db import session_scope
+    from service.jobs.queue import get_job
+    from service.jobs.workers import LocalExecutor, Worker
 
     job_on_dask = _load_and_train(http, admin, study, seed=3)
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
@@ -83,9 +83,9 @@ def test_cancelling_a_job_running_on_dask_stops_it_and_stores_nothing(http, stud
 
     from distributed import LocalCluster
 
-    from service.db import session_scope
-    from service.jobs import cancel_job, get_job
-    from service.workers import Worker
+    from service.store.db import session_scope
+    from service.jobs.queue import cancel_job, get_job
+    from service.jobs.workers import Worker
 
     for body in cohort_bodies(n_participants=1, nights=3)["P-01"]:
         http.post(f"/v1/studies/{study}/participants/P-01/nights", json=body, headers=admin)
@@ -117,7 +117,7 @@ def test_unreachable_scheduler_leaves_jobs_queued_with_a_readable_status(http, s
     address = f"tcp://127.0.0.1:{free_port()}"  # nothing listens there
     job_id = _load_and_train(http, admin, study, seed=0)
     dask_settings = settings.model_copy(update={"executor": "dask", "dask_scheduler": address})
-    proc = subprocess.Popen([sys.executable, "-m", "service.workers"], env=worker_env(dask_settings))
+    proc = subprocess.Popen([sys.executable, "-m", "service.jobs.workers"], env=worker_env(dask_settings))
     try:
         job = wait_for(lambda: (j := http.get(f"/v1/jobs/{job_id}", headers=admin).json())["progress"]["stage"]
                        .startswith("waiting for Dask scheduler") and j, timeout_s=60)

@@ -33,9 +33,9 @@ def fuzz_world(tmp_path_factory: pytest.TempPathFactory) -> Any:
 
     from service.app import create_app
     from service.config import Settings
-    from service.db import make_engine, make_session_factory, session_scope
-    from service.migration import upgrade
-    from service.tokens import create_token
+    from service.store.db import make_engine, make_session_factory, session_scope
+    from service.store.schema import upgrade
+    from service.store.tokens import create_token
 
     path = tmp_path_factory.mktemp("fuzz") / "nightbank.db"
     s = Settings(db=f"sqlite:///{path}", n_trials=1, job_workers=0, token_cache_s=5.0)

@@ -65,7 +65,7 @@ def _body(path: str) -> dict[str, Any]:
 
 
 def test_every_route_needs_a_token_the_role_and_the_study(http: Any, world: dict[str, Any]) -> None:
-    from service.tokens import Role
+    from service.store.tokens import Role
 
     checked, failures = 0, []
     below = {Role.analyst: "ingest", Role.admin: "analyst"}

@@ -21,7 +21,7 @@ N_CLAIMERS = 6
 
 def _migrated(url: str):
     from service.config import Settings
-    from service.migration import upgrade
+    from service.store.schema import upgrade
 
     settings = Settings(db=url)
     upgrade(settings)
@@ -30,8 +30,8 @@ def _migrated(url: str):
 
 def _queue(settings, n_jobs: int) -> list[str]:
     """``n_jobs`` queued personal trainings, one per participant of one study."""
-    from service import db
-    from service.jobs import enqueue_job
+    from service.store import db
+    from service.jobs.queue import enqueue_job
 
     engine = db.make_engine(settings)
     factory = db.make_session_factory(engine)
@@ -54,8 +54,8 @@ def _race(settings, *, n_claimers: int, lease_s: float, claimer=None) -> list[tu
 
     Returns (job_id, worker_id, attempts) of every successful claim.
     """
-    from service import db
-    from service.jobs import claim_job
+    from service.store import db
+    from service.jobs.queue import claim_job
 
     claims: list[tuple[str, str, int]] = []
     errors: list[BaseException] = []
@@ -89,7 +89,7 @@ def _race(settings, *, n_claimers: int, lease_s: float, claimer=None) -> list[tu
 def _states(settings) -> Counter[str]:
     from sqlalchemy import select
 
-    from service import db
+    from service.store import db
 
     engine = db.make_engine(settings)
     with db.session_scope(db.make_session_factory(engine)) as session:
@@ -116,7 +116,7 @@ def pg_url():
 
 @pytest.mark.postgres
 def test_postgres_claimers_take_each_job_exactly_once_and_expired_leases_once_more(pg_url) -> None:
-    from service.jobs import SkipLockedClaimer, claimer_for
+    from service.jobs.queue import SkipLockedClaimer, claimer_for
 
     assert isinstance(claimer_for("postgresql"), SkipLockedClaimer)
     settings = _migrated(pg_url)
@@ -134,8 +134,8 @@ def test_postgres_claimers_take_each_job_exactly_once_and_expired_leases_once_mo
 def test_postgres_claim_skips_a_row_another_transaction_holds_instead_of_waiting(pg_url) -> None:
     from sqlalchemy import select, text
 
-    from service import db
-    from service.jobs import SkipLockedClaimer
+    from service.store import db
+    from service.jobs.queue import SkipLockedClaimer
 
     settings = _migrated(pg_url)
     first, second = _queue(settings, 2)
@@ -155,7 +155,7 @@ def test_postgres_claim_skips_a_row_another_transaction_holds_instead_of_waiting
 
 
 def test_sqlite_claimers_take_each_job_exactly_once(tmp_path: Path) -> None:
-    from service.jobs import CompareAndSetClaimer, claimer_for
+    from service.jobs.queue import CompareAndSetClaimer, claimer_for
 
     assert isinstance(claimer_for("sqlite"), CompareAndSetClaimer)
     settings = _migrated(f"sqlite:///{tmp_path / 'race.db'}")
@@ -166,7 +166,7 @@ def test_sqlite_claimers_take_each_job_exactly_once(tmp_path: Path) -> None:
 
 @pytest.mark.postgres
 def test_compare_and_set_claimer_is_also_safe_on_postgres(pg_url) -> None:
-    from service.jobs import CompareAndSetClaimer
+    from service.jobs.queue import CompareAndSetClaimer
 
     settings = _migrated(pg_url)
     job_ids = _queue(settings, 30)
@@ -186,9 +186,9 @@ def test_postgres_worker_processes_share_the_queue_and_a_killed_one_loses_nothin
     from harness import LiveServer, bearer, cohort_bodies, free_port, wait_for, worker_env
     from sqlalchemy import select
 
-    from service import db, versions
-    from service.tokens import create_token
-    from service.workers import stop_worker_processes
+    from service.store import db, versions
+    from service.store.tokens import create_token
+    from service.jobs.workers import stop_worker_processes
 
     settings = _migrated(pg_url).model_copy(update={"port": free_port(), "lease_s": 3.0, "heartbeat_s": 0.5,
                                                      "poll_s": 0.2, "token_cache_s": 0.0})
@@ -199,7 +199,7 @@ def test_postgres_worker_processes_share_the_queue_and_a_killed_one_loses_nothin
     procs: list[subprocess.Popen[bytes]] = []
 
     def start() -> subprocess.Popen[bytes]:
-        procs.append(subprocess.Popen([sys.executable, "-m", "service.workers"], env=worker_env(settings)))
+        procs.append(subprocess.Popen([sys.executable, "-m", "service.jobs.workers"], env=worker_env(settings)))
         return procs[-1]
 
     try:

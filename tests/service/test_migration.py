@@ -28,8 +28,8 @@ def test_upgrade_from_empty_creates_every_table_and_matches_the_models(tmp_path:
     from alembic.migration import MigrationContext
     from sqlalchemy import create_engine
 
-    from service.db import Base
-    from service.migration import current_revision, head_revision, upgrade
+    from service.store.db import Base
+    from service.store.schema import current_revision, head_revision, upgrade
 
     settings = _settings(tmp_path)
     upgrade(settings)
@@ -45,7 +45,7 @@ def test_upgrade_from_empty_creates_every_table_and_matches_the_models(tmp_path:
 
 
 def test_downgrade_to_base_and_upgrade_again_round_trips(tmp_path: Path) -> None:
-    from service.migration import downgrade, upgrade
+    from service.store.schema import downgrade, upgrade
 
     settings = _settings(tmp_path)
     upgrade(settings)
@@ -58,7 +58,7 @@ def test_downgrade_to_base_and_upgrade_again_round_trips(tmp_path: Path) -> None
 
 def test_app_refuses_an_unmigrated_database_and_names_the_command(tmp_path: Path) -> None:
     from service.app import create_app
-    from service.migration import DatabaseNotMigrated
+    from service.store.schema import DatabaseNotMigrated
 
     with pytest.raises(DatabaseNotMigrated, match="nightbank migrate") as info:
         create_app(_settings(tmp_path))
@@ -67,7 +67,7 @@ def test_app_refuses_an_unmigrated_database_and_names_the_command(tmp_path: Path
 
 def test_app_refuses_a_database_behind_the_newest_revision(tmp_path: Path) -> None:
     from service.app import create_app
-    from service.migration import DatabaseNotMigrated, downgrade, upgrade
+    from service.store.schema import DatabaseNotMigrated, downgrade, upgrade
 
     settings = _settings(tmp_path)
     upgrade(settings)
@@ -79,7 +79,7 @@ def test_app_refuses_a_database_behind_the_newest_revision(tmp_path: Path) -> No
 def test_sqlite_connections_use_wal_foreign_keys_and_busy_timeout(settings) -> None:
     from sqlalchemy import text
 
-    from service.db import make_engine
+    from service.store.db import make_engine
 
     engine = make_engine(settings)
     try:

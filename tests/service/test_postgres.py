@@ -19,7 +19,7 @@ pytestmark = pytest.mark.postgres
 @pytest.fixture
 def pg_settings():
     from service.config import Settings
-    from service.migration import downgrade, upgrade
+    from service.store.schema import downgrade, upgrade
 
     with throwaway_database() as url:
         settings = Settings(db=url, port=free_port(), token_cache_s=0)
@@ -30,8 +30,8 @@ def pg_settings():
 
 
 def test_postgres_migrations_and_api_flow(pg_settings) -> None:
-    from service.db import make_engine, make_session_factory, session_scope
-    from service.tokens import create_token
+    from service.store.db import make_engine, make_session_factory, session_scope
+    from service.store.tokens import create_token
 
     engine = make_engine(pg_settings)
     with session_scope(make_session_factory(engine), write=True) as session:

@@ -45,9 +45,9 @@ def test_tokens_are_stored_only_as_salted_hashes(settings, http, admin, make_tok
 @pytest.mark.parametrize("kind", ["wrong secret", "unknown id", "malformed"])
 def test_token_check_compares_in_constant_time(factory, make_token, monkeypatch, kind) -> None:
     """Every verification, including unknown and malformed tokens, goes through hmac.compare_digest."""
-    from service.db import session_scope
+    from service.store.db import session_scope
     from service.errors import Unauthorized
-    from service.tokens import verify_token
+    from service.store.tokens import verify_token
 
     token = make_token("admin")
     presented = {"wrong secret": token[:-4] + "AAAA", "unknown id": "nb_000000000000_" + token[16:],

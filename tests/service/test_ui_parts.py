@@ -57,7 +57,7 @@ def test_figures_are_reproducible_byte_for_byte() -> None:
 
 def test_model_card_markdown_says_what_the_json_says() -> None:
     from service.ui.cards import model_card, model_card_markdown
-    from service.versions import VersionInfo
+    from service.store.versions import VersionInfo
 
     info = {"metrics": {"n_nights": 3, "balanced_accuracy": {"mean": 0.8123, "sd": 0.0456},
                         "specificity": {"mean": 0.7011, "sd": None}},

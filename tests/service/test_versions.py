@@ -6,7 +6,7 @@ import pytest
 
 
 def _add(session, study, participant, score):
-    from service import versions
+    from service.store import versions
 
     info = {"selection": {"metric": "balanced_accuracy", "value": score}}
     return versions.add_version(session, study=study, participant=participant, booster=b"raw", model_meta={},
@@ -18,7 +18,7 @@ def owners(factory):
     """A study with one participant (rows created through the registry)."""
     from factories import make_night
 
-    from service import db, registry
+    from service.store import db, registry
 
     with db.session_scope(factory, write=True) as session:
         registry.create_study(session, study_id="s", name="S", actor="test")
@@ -28,7 +28,7 @@ def owners(factory):
 
 
 def test_versions_are_numbered_per_scope_and_promoted_only_when_not_worse(owners) -> None:
-    from service import db, registry, versions
+    from service.store import db, registry, versions
 
     with db.session_scope(owners, write=True) as session:
         study = registry.find_study(session, "s")
@@ -45,8 +45,8 @@ def test_versions_are_numbered_per_scope_and_promoted_only_when_not_worse(owners
 
 
 def test_activation_rolls_back_and_is_audited(owners) -> None:
-    from service import db, registry, versions
-    from service.audit import list_audit
+    from service.store import db, registry, versions
+    from service.store.audit import list_audit
     from service.errors import NotFound
 
     with db.session_scope(owners, write=True) as session:

@@ -11,11 +11,11 @@ from sqlalchemy.exc import IntegrityError
 
 from models import Night, NightOptions, night_from_csv, night_from_json, night_from_parquet
 
-from ... import registry
-from ...db import session_scope
+from ...store import registry
+from ...store.db import session_scope
 from ...errors import PayloadTooLarge, UnsupportedMediaType
-from ...scoring import SCORING_METHODS, score_night
-from ...tokens import Role
+from ...results.scoring import SCORING_METHODS, score_night
+from ...store.tokens import Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, study_access
 from ..problems import problem_responses
 from ..schemas import NightAccepted, NightIn, NightOut, Page, ScoringOut

@@ -7,8 +7,8 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Depends, Query, Response
 from fastapi.concurrency import run_in_threadpool
 
-from ... import reports
-from ...tokens import Role
+from ...results import reports
+from ...store.tokens import Role
 from ..deps import FactoryDep, StudyAccess, study_access
 from .studies import ParticipantPath
 

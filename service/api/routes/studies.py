@@ -6,10 +6,10 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Path, Query
 
-from ... import registry
-from ...db import session_scope
+from ...store import registry
+from ...store.db import session_scope
 from ...errors import Forbidden
-from ...tokens import Principal, Role
+from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
 from ..schemas import Page, ParticipantOut, StudyIn, StudyOut

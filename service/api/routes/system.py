@@ -8,9 +8,9 @@ from fastapi import APIRouter, Depends, Request
 from fastapi.responses import PlainTextResponse
 from sqlalchemy import text
 
-from ...jobs import count_jobs_by_state
+from ...jobs.queue import count_jobs_by_state
 from ...telemetry import render_prometheus
-from ...tokens import Principal, Role
+from ...store.tokens import Principal, Role
 from ..deps import ReadSession, require_lab_role
 
 __all__ = ["router"]

@@ -6,10 +6,10 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Path
 
-from ... import tokens
-from ...db import session_scope
+from ...store import tokens
+from ...store.db import session_scope
 from ...errors import Forbidden
-from ...tokens import Principal, Role
+from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, require_lab_role
 from ..schemas import TokenCreated, TokenIn, TokenOut
 

@@ -7,12 +7,13 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Body, Depends, Path
 from fastapi.responses import JSONResponse
 
-from ... import jobs, registry, versions
-from ...db import session_scope
+from ...jobs import queue as jobs
+from ...store import registry, versions
+from ...store.db import session_scope
 from ...errors import NotFound
-from ...jobs import JobInfo
-from ...tokens import Principal, Role
-from ...training import queue_training, refresh_choices
+from ...jobs.queue import JobInfo
+from ...store.tokens import Principal, Role
+from ...jobs.training import queue_training, refresh_choices
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
 from ..schemas import JobAccepted, JobOut, ModelVersionOut, Progress, TrainingIn

@@ -19,7 +19,7 @@ from models import Night, quality_flags
 from . import db
 from .audit import record_audit
 from .codec import night_columns, night_from_row
-from .errors import BadRequest, Conflict, NotFound
+from ..errors import BadRequest, Conflict, NotFound
 
 __all__ = [
     "ID_PATTERN",

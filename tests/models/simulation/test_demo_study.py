@@ -10,7 +10,7 @@ import numpy as np
 
 from models import demo_nights, quality_flags, read_night, write_demo_study
 
-ROOT = Path(__file__).resolve().parents[2]
+ROOT = Path(__file__).resolve().parents[3]
 
 
 def test_committed_files_regenerate_bit_for_bit(tmp_path: Path) -> None:

@@ -20,7 +20,7 @@ from models.learning.pooled import train_pooled
 from models.simulation.simulator import CohortSpec, simulate_cohort
 from models.learning.training import TrainingConfig, night_features
 
-ROOT = Path(__file__).resolve().parents[2]
+ROOT = Path(__file__).resolve().parents[3]
 
 
 @pytest.fixture(scope="module")
@@ -79,7 +79,7 @@ def test_model_loads_in_a_fresh_process_with_identical_predictions(personal_with
     script = (
         "import json, sys\n"
         "from models.learning.artifacts import load_model\n"
-        "from models.nights.json_io import read_night\n"
+        "from models.nights.formats import read_night\n"
         "model = load_model(sys.argv[1])\n"
         "p = model.predict_proba(read_night(sys.argv[2]))\n"
         "print(json.dumps([float(v).hex() for v in p]))\n")

@@ -47,12 +47,12 @@ from models import (
     sleep_parameters,
 )
 
-from . import db, versions
-from .cachewriter import CacheWriter
-from .codec import night_from_row
-from .errors import BadRequest, NotFound, Unprocessable
-from .featurestore import features_row, load_features, night_features
-from .registry import find_participant, find_study
+from ..store import db, versions
+from ..store.cachewriter import CacheWriter
+from ..store.codec import night_from_row
+from ..errors import BadRequest, NotFound, Unprocessable
+from ..store.features import features_row, load_features, night_features
+from ..store.registry import find_participant, find_study
 
 __all__ = ["MODEL_METHODS", "SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
 

@@ -24,13 +24,13 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import EPOCH_METRIC_NAMES, Night, TrainingConfig, choose_method, train_personal, train_pooled
 
-from . import db, versions
-from .codec import encode_held_out
-from .config import Settings
-from .errors import Conflict, NotFound, Unprocessable
-from .db import session_scope
-from .jobs import JobInfo, enqueue_job
-from .registry import find_participant, find_study, load_nights
+from ..store import db, versions
+from ..store.codec import encode_held_out
+from ..config import Settings
+from ..errors import Conflict, NotFound, Unprocessable
+from ..store.db import session_scope
+from .queue import JobInfo, enqueue_job
+from ..store.registry import find_participant, find_study, load_nights
 
 __all__ = ["Compute", "check_trainable", "compute_here", "queue_training", "refresh_choices", "run_training_job"]
 

@@ -43,9 +43,9 @@ from models import (
     sleep_parameters,
 )
 
-from . import db, versions
-from .codec import night_from_row
-from .registry import find_participant, find_study, load_nights
+from ..store import db, versions
+from ..store.codec import night_from_row
+from ..store.registry import find_participant, find_study, load_nights
 from .scoring import MODEL_METHODS, score_night
 
 __all__ = ["EXPORT_METHODS", "export_parameters", "participant_comparison", "study_comparison"]

@@ -1,13 +1,13 @@
 """Training workers: processes that take jobs from the database queue and run them.
 
-A :class:`Worker` claims a job (:mod:`service.jobs`), keeps its lease alive from a heartbeat
+A :class:`Worker` claims a job (:mod:`service.jobs.queue`), keeps its lease alive from a heartbeat
 thread, hands it to a :class:`JobExecutor` with a progress callback, and records the outcome.
 The callback raises :class:`JobStopped` when the job is cancelled, the lease is lost or the
 worker is shutting down; training stops at its next progress step. On shutdown the job goes back
 to the queue and restarts from the beginning on the next worker.
 
 :class:`LocalExecutor` runs the training in the worker process;
-:class:`service.dask_executor.DaskExecutor` submits it to a Dask cluster (``Settings.executor``,
+:class:`service.jobs.dask_executor.DaskExecutor` submits it to a Dask cluster (``Settings.executor``,
 see :func:`make_executor`). An executor that cannot run jobs right now (its cluster is unreachable)
 raises :class:`ExecutorUnavailable`: the job goes back to the queue, unchanged but for a status
 saying why it waits, and the worker pauses before claiming again.
@@ -35,9 +35,9 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import NightbankError
 
-from . import db
-from .config import Settings
-from .jobs import JobInfo, JobState, claim_job, finish_job, heartbeat, release_job, report_progress
+from ..store import db
+from ..config import Settings
+from .queue import JobInfo, JobState, claim_job, finish_job, heartbeat, release_job, report_progress
 
 __all__ = ["ExecutorUnavailable", "JobExecutor", "JobStopped", "LocalExecutor", "ProgressCallback", "Worker",
            "make_executor", "start_worker_processes", "stop_worker_processes"]
@@ -74,7 +74,7 @@ class JobExecutor(abc.ABC):
 
 
 class LocalExecutor(JobExecutor):
-    """Runs the training in this process (see :mod:`service.training`)."""
+    """Runs the training in this process (see :mod:`service.jobs.training`)."""
 
     def __init__(self, settings: Settings, factory: sessionmaker[Session]) -> None:
         self.settings = settings
@@ -220,7 +220,7 @@ class Worker:
 
         With an empty queue and no features to compute, the queue is polled every ``poll_s``.
         """
-        from .featurestore import warm_features
+        from ..store.features import warm_features
 
         log.info("worker %s polling for jobs", self.worker_id)
         failed: set[tuple[int, str]] = set()
@@ -246,9 +246,9 @@ def settings_env(settings: Settings) -> dict[str, str]:
 
 
 def start_worker_processes(settings: Settings, n: int) -> list[subprocess.Popen[bytes]]:
-    """Start ``n`` worker processes (``python -m service.workers``) with ``settings``."""
+    """Start ``n`` worker processes (``python -m service.jobs.workers``) with ``settings``."""
     env = {**os.environ, **settings_env(settings)}
-    return [subprocess.Popen([sys.executable, "-m", "service.workers"], env=env) for _ in range(n)]
+    return [subprocess.Popen([sys.executable, "-m", "service.jobs.workers"], env=env) for _ in range(n)]
 
 
 def stop_worker_processes(processes: list[subprocess.Popen[bytes]], *, timeout_s: float = 15.0) -> None:
@@ -278,6 +278,6 @@ def main() -> None:
 
 if __name__ == "__main__":
     # run the importable module's main, so classes other modules import (ExecutorUnavailable) are the same
-    from service.workers import main as run_worker
+    from service.jobs.workers import main as run_worker
 
     run_worker()

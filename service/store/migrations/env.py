@@ -1,4 +1,4 @@
-"""Alembic environment: URL from the service settings, metadata from :mod:`service.db`.
+"""Alembic environment: URL from the service settings, metadata from :mod:`service.store.db`.
 
 Alembic builds its own engine here, without the service's SQLite connect hook: foreign keys stay
 OFF while migrating, so batch mode's table rebuilds (copy, drop, rename) cannot cascade deletes.
@@ -12,7 +12,7 @@ from alembic import context
 from sqlalchemy import engine_from_config, pool
 
 from service.config import get_settings
-from service.db import Base, UTCDateTime
+from service.store.db import Base, UTCDateTime
 
 config = context.config
 target_metadata = Base.metadata

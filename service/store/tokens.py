@@ -32,7 +32,7 @@ from sqlalchemy.orm import Session
 
 from . import db
 from .audit import record_audit
-from .errors import BadRequest, NotFound, Unauthorized
+from ..errors import BadRequest, NotFound, Unauthorized
 
 __all__ = ["Principal", "Role", "TokenCache", "TokenInfo", "create_token", "list_tokens", "revoke_token",
            "verify_token"]

@@ -28,7 +28,7 @@ from models import HeldOutNight, SleepModel
 from . import db
 from .audit import record_audit
 from .codec import decode_held_out
-from .errors import NotFound
+from ..errors import NotFound
 
 __all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_version", "add_version",
            "get_version", "list_versions", "load_held_out", "load_model", "scope_of"]
@@ -112,7 +112,7 @@ def add_version(session: Session, *, study: db.Study, participant: db.Participan
     actor : str
         Token id of whoever requested the training (audit log).
     held_out : bytes, optional
-        Held-out predictions of the validation (:func:`service.codec.encode_held_out`).
+        Held-out predictions of the validation (:func:`service.store.codec.encode_held_out`).
 
     Returns
     -------

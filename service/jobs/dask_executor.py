@@ -1,7 +1,7 @@
 """Running trainings on a Dask cluster: each claimed job's :mod:`models` call becomes one Dask task.
 
 The worker process still claims the job, keeps its lease, loads the nights and stores the version
-(:mod:`service.training`); only the training call (``models.train_personal`` or
+(:mod:`service.jobs.training`); only the training call (``models.train_personal`` or
 ``models.train_pooled``) is sent with :meth:`distributed.Client.submit` to the scheduler at
 ``Settings.dask_scheduler``. Many worker processes (``nightbank worker --executor dask``) therefore
 fan per-participant trainings out over the cluster's machines, while the database queue keeps
@@ -11,7 +11,7 @@ While the task runs, the worker reports a ``running on the Dask cluster`` stage 
 ``poll_s``; a cancelled job or a lost lease cancels the task (a task already running keeps its
 Dask worker busy until it ends, since Dask does not interrupt running tasks; its result is
 dropped). If the scheduler cannot be reached (at connection or while the task runs),
-:class:`~service.workers.ExecutorUnavailable` puts the job back in the queue with a status naming
+:class:`~service.jobs.workers.ExecutorUnavailable` puts the job back in the queue with a status naming
 the scheduler, and the worker retries later. Dask's workers need nightbank installed (they import
 :mod:`models` to run the task).
 """
@@ -25,8 +25,8 @@ from typing import Any
 
 from sqlalchemy.orm import Session, sessionmaker
 
-from .config import Settings
-from .jobs import JobInfo
+from ..config import Settings
+from .queue import JobInfo
 from .training import Progress, run_training_job
 from .workers import ExecutorUnavailable, JobExecutor, ProgressCallback
 

@@ -39,8 +39,8 @@ from sqlalchemy import (
 from sqlalchemy.exc import DBAPIError, IntegrityError, SQLAlchemyError
 from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sessionmaker
 
-from .config import Settings
-from .errors import StorageError
+from ..config import Settings
+from ..errors import StorageError
 
 __all__ = [
     "AuditEntry",
@@ -172,7 +172,7 @@ class ModelVersion(Base):
     booster: Mapped[bytes] = mapped_column(LargeBinary, deferred=True)
     model_meta: Mapped[dict[str, Any]] = mapped_column(JSON, deferred=True)
     info: Mapped[dict[str, Any]] = mapped_column(JSON, deferred=True)
-    #: held-out predictions of the nested validation (see :func:`service.codec.encode_held_out`)
+    #: held-out predictions of the nested validation (see :func:`service.store.codec.encode_held_out`)
     held_out: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True, deferred=True)
     job_id: Mapped[str | None] = mapped_column(String(32), nullable=True)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)

@@ -17,8 +17,8 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from sqlalchemy import Engine
 
-from .config import Settings
-from .errors import StorageError
+from ..config import Settings
+from ..errors import StorageError
 
 __all__ = ["DatabaseNotMigrated", "alembic_config", "check_schema", "current_revision", "downgrade",
            "head_revision", "upgrade"]

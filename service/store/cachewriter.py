@@ -16,7 +16,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
 from . import db
-from .errors import StorageError
+from ..errors import StorageError
 
 __all__ = ["CacheWriter"]
 

@@ -1,0 +1,87 @@
+"""Shared pieces of the night readers: text decoding, timestamps, metadata fields and column aliases."""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+import pandas as pd
+
+from ..errors import InvalidNightError, Problem
+from .checks import NightOptions
+from .night import Night
+from .resample import aggregate_epochs
+
+__all__ = ["COLUMN_ALIASES", "META_LINE", "decode_text", "finish_night", "metadata_fields", "parse_time"]
+
+#: accepted header names per role, compared case-insensitively after stripping blanks
+COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
+    "time": ("time", "timestamp", "datetime", "date_time", "epoch_start", "start"),
+    "counts": ("counts", "count", "activity", "activity_counts", "movement"),
+    "reference": ("reference", "stage", "stages", "sleep_stage", "psg", "psg_stage", "label"),
+}
+#: an optional leading ``# key: value`` line of a CSV file
+META_LINE = re.compile(r"^#\s*([A-Za-z_]+)\s*:\s*(.*?)\s*$")
+
+
+def decode_text(data: bytes | str, source: str | None) -> str:
+    """Text of a file: UTF-8 (a byte-order mark is dropped); UTF-16 and undecodable bytes are refused."""
+    if isinstance(data, str):
+        return data.removeprefix("\ufeff")
+    if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        raise InvalidNightError([Problem("not_utf8", "the file is UTF-16 encoded (byte-order mark at byte 0); "
+                                         "save it as UTF-8", {"row": 1})], source=source)
+    try:
+        return data.decode("utf-8").removeprefix("\ufeff")
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        raise InvalidNightError([Problem("not_utf8", f"the file is not valid UTF-8: byte {exc.start} "
+                                         f"(line {line}) cannot be decoded", {"row": line})], source=source) from None
+
+
+def parse_time(value: Any, field: str, tz: str | None, problems: list[Problem]) -> pd.Timestamp | None:
+    """An ISO 8601 time, localised with ``tz`` when it has no offset; None (and a problem) when invalid."""
+    if not isinstance(value, str):
+        problems.append(Problem("invalid_timestamp", f"{field} must be an ISO 8601 text, got {value!r}",
+                                {"field": field}))
+        return None
+    try:
+        ts = pd.Timestamp(value)
+    except (ValueError, TypeError):
+        problems.append(Problem("invalid_timestamp", f"{field} {value!r} is not an ISO 8601 time", {"field": field}))
+        return None
+    if ts is pd.NaT:
+        problems.append(Problem("invalid_timestamp", f"{field} {value!r} is not a time", {"field": field}))
+        return None
+    if ts.tzinfo is None:
+        if tz is None:
+            problems.append(Problem("missing_timezone", f"{field} {value!r} has no UTC offset; add one "
+                                    "(e.g. +01:00) or give a time zone", {"field": field, "time": value}))
+            return None
+        try:
+            ts = ts.tz_localize(tz, ambiguous="raise", nonexistent="raise")
+        except Exception as exc:  # pytz/zoneinfo raise several types for DST and unknown zones
+            problems.append(Problem("invalid_timestamp", f"{field} {value!r} cannot be placed in time zone "
+                                    f"{tz!r}: {exc}", {"field": field, "time": value}))
+            return None
+    return ts
+
+
+def metadata_fields(meta: dict[str, Any], tz: str | None, problems: list[Problem]) -> dict[str, Any]:
+    """``lights_off``, ``lights_on`` and ``label`` of a night from its metadata, checked."""
+    out: dict[str, Any] = {}
+    for key in ("lights_off", "lights_on"):
+        if meta.get(key) not in (None, ""):
+            out[key] = parse_time(meta[key], key, tz, problems)
+    label = meta.get("label")
+    if label is not None and not isinstance(label, str):
+        problems.append(Problem("invalid_field", f"label must be text, got {type(label).__name__}",
+                                {"field": "label"}))
+        label = None
+    out["label"] = label
+    return out
+
+
+def finish_night(night: Night, options: NightOptions) -> Night:
+    """The night aggregated to ``options.aggregate_to`` when that is set and differs."""
+    return night if options.aggregate_to in (None, night.epoch_seconds) else aggregate_epochs(night, options.aggregate_to)
