@@ -8,8 +8,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from models.agreement.bland_altman import NightRecord, bland_altman, compare_rules_with_reference
-from models.learning.study_comparison import COMPARED_RULES, MODEL_METHODS, choose_method, compare_study
+from models.agreement.bland_altman import bland_altman
+from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference
+from models.learning.method_choice import MODEL_METHODS, choose_method
+from models.learning.study_comparison import COMPARED_RULES, compare_study
 from models.simulation.simulator import CohortSpec, simulate_cohort
 from models.learning.training import TrainingConfig
 
