@@ -77,6 +77,15 @@ def test_parameter_errors_and_bland_altman_agree_with_the_parameter_table(study)
         assert row["loa_upper"] == pytest.approx(expected.loa_upper)
 
 
+def test_tables_name_nights_as_the_service_stores_them_and_keep_labels(study) -> None:
+    nights, result, _ = study
+    labels = {n.content_hash[:20]: n.label for v in nights.values() for n in v}  # the API's night_id
+    for frame in (result.parameters, result.parameter_errors):
+        assert [labels[i] for i in frame["night_id"]] == list(frame["label"])
+    night_level = result.epoch_metrics[result.epoch_metrics["level"] == "night"]
+    assert set(night_level["night_id"]) <= set(labels)
+
+
 def _metrics(**means: float) -> pd.DataFrame:
     rows = [{"method": m, "balanced_accuracy": v, "kappa": 1.0 - v} for m, v in means.items() for _ in range(2)]
     return pd.DataFrame(rows)
