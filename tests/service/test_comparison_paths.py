@@ -28,7 +28,7 @@ def test_scoring_participant_comparison_and_compare_study_agree(factory) -> None
         registry.create_study(session, study_id="s", name="S", actor="test")
         for night in (n for v in nights.values() for n in v):
             registry.ingest_night(session, study_id="s", night=night, source_format="json", actor="test")
-    pid = sorted(nights)[0]
+    pid = min(nights)
     mine = [n for n in nights[pid] if n.has_reference]
     assert len(mine) >= 2
 
