@@ -5,12 +5,17 @@ from __future__ import annotations
 from .bland_altman import (
     BLAND_ALTMAN_PARAMETERS,
     BlandAltman,
-    NightRecord,
     REFERENCE,
-    RuleComparison,
     bland_altman,
     bland_altman_table,
-    compare_rules_with_reference,
+)
+from .comparison import (
+    ERROR_PARAMETERS,
+    PARAMETER_COLUMNS,
+    ComparisonTables,
+    NightComparison,
+    compare_night,
+    comparison_tables,
 )
 from .epoch_metrics import (
     ALWAYS_SLEEP,
@@ -20,20 +25,29 @@ from .epoch_metrics import (
     always_sleep,
     epoch_agreement,
 )
+from .rule_comparison import (
+    NightRecord,
+    compare_rules_with_reference,
+)
 
 __all__ = [
     "ALWAYS_SLEEP",
     "BLAND_ALTMAN_PARAMETERS",
     "BlandAltman",
+    "ComparisonTables",
     "EPOCH_METRIC_NAMES",
+    "ERROR_PARAMETERS",
+    "NightComparison",
     "NightRecord",
+    "PARAMETER_COLUMNS",
     "REFERENCE",
-    "RuleComparison",
     "ScoredNight",
     "agreement_table",
     "always_sleep",
     "bland_altman",
     "bland_altman_table",
+    "compare_night",
     "compare_rules_with_reference",
+    "comparison_tables",
     "epoch_agreement",
 ]

@@ -1,4 +1,4 @@
-"""Agreement of night-level sleep parameters (Bland-Altman) and the rule-versus-reference report.
+"""Agreement of night-level sleep parameters across nights (Bland-Altman).
 
 Convention: difference = method - reference, for every night where both values are finite.
 
@@ -21,31 +21,18 @@ Bland-Altman (Bland & Altman 1986, Lancet; 1999, Stat Methods Med Res 8:135-160)
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
-from dataclasses import asdict, dataclass, field
-from typing import Any
+from collections.abc import Sequence
+from dataclasses import asdict, dataclass
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
-from .epoch_metrics import ALWAYS_SLEEP, ScoredNight, agreement_table, always_sleep
-from ..nights.night import MovementTimePolicy, Night
-from ..scoring.parameters import PARAMETER_NAMES, sleep_parameters
-from ..scoring.rescoring import InvalidSleepVectorError, as_sleep_vector
-from ..scoring.rules import METHOD_IDS, score_with_rule
+from ..scoring.parameters import PARAMETER_NAMES
+from ..scoring.rescoring import InvalidSleepVectorError
 
-__all__ = [
-    "BLAND_ALTMAN_PARAMETERS",
-    "BlandAltman",
-    "NightRecord",
-    "REFERENCE",
-    "RuleComparison",
-    "bland_altman",
-    "bland_altman_table",
-    "compare_rules_with_reference",
-]
+__all__ = ["BLAND_ALTMAN_PARAMETERS", "BlandAltman", "REFERENCE", "bland_altman", "bland_altman_table"]
 
 #: Method label of the reference labels in parameter tables.
 REFERENCE = "reference"
@@ -160,7 +147,7 @@ def bland_altman_table(parameters: pd.DataFrame, *, reference_method: str = REFE
     ----------
     parameters : pandas.DataFrame
         One row per night and method: ``participant_id``, ``night_id``, ``method`` and the
-        parameter columns (as returned in :attr:`RuleComparison.parameters`).
+        parameter columns (as :attr:`models.agreement.comparison.ComparisonTables.parameters`).
     reference_method : str, default="reference"
         The ``method`` value of the reference rows.
     parameter_names : sequence of str, default=BLAND_ALTMAN_PARAMETERS
@@ -181,131 +168,3 @@ def bland_altman_table(parameters: pd.DataFrame, *, reference_method: str = REFE
         for name in parameter_names:
             rows.append({"method": method, "parameter": name} | asdict(bland_altman(own[name], ref[name])))
     return pd.DataFrame(rows, columns=["method", "parameter", *BlandAltman.__dataclass_fields__])
-
-
-@dataclass(frozen=True, eq=False)
-class NightRecord:
-    """One night for :func:`compare_rules_with_reference`.
-
-    Attributes
-    ----------
-    participant_id, night_id : str
-    reference : ndarray of shape (n_epochs,)
-        Reference labels: 1 = sleep, 0 = wake, NaN = unscored.
-    counts : ndarray of shape (n_epochs,)
-        Activity counts per epoch (NaN = missing).
-    epoch_seconds : {15, 30, 60}
-    lights_off_idx : int, default=0
-        First in-bed epoch.
-    lights_on_idx : int or None, default=None
-        End of the in-bed interval (exclusive); None = end of the recording.
-    """
-
-    participant_id: str
-    night_id: str
-    reference: NDArray[np.float64]
-    counts: NDArray[np.float64]
-    epoch_seconds: int
-    lights_off_idx: int = 0
-    lights_on_idx: int | None = None
-
-    @classmethod
-    def from_night(cls, night: Night, *, night_id: str | None = None,
-                   movement_time: MovementTimePolicy = "wake") -> NightRecord:
-        """Record of a labelled :class:`~models.nights.night.Night` (its in-bed interval and reference)."""
-        reference = night.reference_sleep(movement_time=movement_time)
-        if reference is None:
-            raise InvalidSleepVectorError(f"night {night.label or night.content_hash[:12]!r} has no reference labels")
-        first, stop = night.in_bed
-        return cls(participant_id=night.participant_id, night_id=night_id or night.label or night.content_hash[:12],
-                   reference=reference, counts=night.counts, epoch_seconds=night.epoch_seconds,
-                   lights_off_idx=first, lights_on_idx=stop)
-
-
-@dataclass(frozen=True, eq=False)
-class RuleComparison:
-    """Everything a rule-versus-reference report shows.
-
-    Attributes
-    ----------
-    epoch_metrics : pandas.DataFrame
-        :func:`models.agreement.epoch_metrics.agreement_table` of every method and the always-sleep baseline.
-    parameters : pandas.DataFrame
-        One row per night and method (the reference first, then the baseline and the methods):
-        ``participant_id``, ``night_id``, ``method``, :data:`~models.scoring.parameters.PARAMETER_NAMES`,
-        ``sleep_onset_idx`` and ``final_awakening_idx``.
-    bland_altman : pandas.DataFrame
-        :func:`bland_altman_table` of every method and the baseline against the reference.
-    """
-
-    epoch_metrics: pd.DataFrame
-    parameters: pd.DataFrame
-    bland_altman: pd.DataFrame = field(repr=False)
-
-
-def compare_rules_with_reference(
-        nights: Sequence[NightRecord], *, methods: Sequence[str] = METHOD_IDS, count_scale: float = 1.0,
-        rule_options: Mapping[str, Mapping[str, Any]] | None = None,
-        parameter_options: Mapping[str, Any] | None = None) -> RuleComparison:
-    """Score nights with classical rules and compare them with their reference labels.
-
-    Each rule scores the whole recording (so its windows see the epochs around lights-off and
-    lights-on); every comparison uses the in-bed epochs only. The always-sleep baseline is
-    always included. A method's parameters are computed with the reference's unscored epochs
-    masked out too, so both sides of a difference cover the same epochs.
-
-    Parameters
-    ----------
-    nights : sequence of NightRecord
-    methods : sequence of str, default=METHOD_IDS
-        Method ids of :func:`models.scoring.rules.score_with_rule`.
-    count_scale : float, default=1.0
-        Factor applied to the counts before every rule.
-    rule_options : mapping, default=None
-        Options per base method id, e.g. ``{"count-threshold": {"threshold": 20}}``.
-    parameter_options : mapping, default=None
-        Keyword options of :func:`models.scoring.parameters.sleep_parameters` (same for every side).
-
-    Returns
-    -------
-    RuleComparison
-
-    Raises
-    ------
-    InvalidSleepVectorError
-        If a night's reference and counts differ in length.
-    UnknownMethodError, InvalidRuleOptionError, InvalidInBedIntervalError
-        As raised by the rule and parameter functions.
-    """
-    rule_options = rule_options or {}
-    parameter_options = dict(parameter_options or {})
-    scored: list[ScoredNight] = []
-    param_rows: list[dict[str, Any]] = []
-    for night in nights:
-        ref = as_sleep_vector(night.reference, allow_unscored=True, name="reference")
-        if ref.size != np.shape(night.counts)[0]:
-            raise InvalidSleepVectorError(
-                f"night {night.night_id!r}: reference has {ref.size} epochs, counts {np.shape(night.counts)[0]}")
-        bed = slice(night.lights_off_idx, ref.size if night.lights_on_idx is None else night.lights_on_idx)
-        unscored = np.isnan(ref)
-        sides: list[tuple[str, NDArray[np.generic], NDArray[np.float64] | None]] = [
-            (REFERENCE, ref, None), (ALWAYS_SLEEP, always_sleep(ref), None)]
-        for method in methods:
-            options = rule_options.get(method.partition("+")[0], {})
-            result = score_with_rule(night.counts, night.epoch_seconds, method, count_scale=count_scale, **options)
-            sides.append((method, result.sleep, result.score))
-        ids = {"participant_id": night.participant_id, "night_id": night.night_id}
-        for method, sleep, score in sides:
-            masked = np.where(unscored, np.nan, sleep)
-            params = sleep_parameters(masked, night.epoch_seconds, lights_off_idx=night.lights_off_idx,
-                                      lights_on_idx=night.lights_on_idx, **parameter_options)
-            param_rows.append(ids | {"method": method} | params.as_dict())
-            if method != REFERENCE:
-                scored.append(ScoredNight(participant_id=night.participant_id, night_id=night.night_id,
-                                          method=method, reference=ref[bed], predicted=sleep[bed],
-                                          score=None if score is None else score[bed]))
-    param_columns = ["participant_id", "night_id", "method", *PARAMETER_NAMES, "sleep_onset_idx",
-                     "final_awakening_idx"]
-    parameters = pd.DataFrame(param_rows, columns=param_columns)
-    return RuleComparison(epoch_metrics=agreement_table(scored), parameters=parameters,
-                          bland_altman=bland_altman_table(parameters))

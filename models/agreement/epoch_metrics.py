@@ -28,7 +28,7 @@ spread between people.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -153,7 +153,8 @@ class ScoredNight:
     score: NDArray[np.float64] | None = None
 
 
-def agreement_table(nights: Iterable[ScoredNight]) -> pd.DataFrame:
+def agreement_table(nights: Iterable[ScoredNight], *,
+                    night_metrics: Sequence[Mapping[str, float]] | None = None) -> pd.DataFrame:
     """Epoch-by-epoch agreement per night, per participant and pooled, for every method.
 
     Parameters
@@ -161,6 +162,9 @@ def agreement_table(nights: Iterable[ScoredNight]) -> pd.DataFrame:
     nights : iterable of ScoredNight
         Any number of methods and participants; add the :func:`always_sleep` baseline as one
         more method to keep it in the table.
+    night_metrics : sequence of mapping, default=None
+        :func:`epoch_agreement` of each of ``nights`` (same order and length) when the caller
+        has already computed them; None computes them here.
 
     Returns
     -------
@@ -182,10 +186,12 @@ def agreement_table(nights: Iterable[ScoredNight]) -> pd.DataFrame:
     columns = id_cols + ["n_epochs", "excluded_epochs", *EPOCH_METRIC_NAMES]
     if not nights:
         return pd.DataFrame(columns=columns)
+    if night_metrics is None:
+        night_metrics = [epoch_agreement(n.reference, n.predicted, score=n.score) for n in nights]
     night_rows = pd.DataFrame([
         {"level": "night", "method": n.method, "participant_id": n.participant_id, "night_id": n.night_id,
-         "statistic": "value", "n_nights": 1} | epoch_agreement(n.reference, n.predicted, score=n.score)
-        for n in nights])
+         "statistic": "value", "n_nights": 1} | dict(metrics)
+        for n, metrics in zip(nights, night_metrics, strict=True)])
     order = {method: i for i, method in enumerate(dict.fromkeys(n.method for n in nights))}
     night_rows = night_rows.sort_values("method", key=lambda col: col.map(order), kind="stable", ignore_index=True)
     grouped = night_rows.groupby(["method", "participant_id"], sort=False)

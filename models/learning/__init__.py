@@ -1,4 +1,4 @@
-"""Sleep/wake models: splits, tuning, thresholds, the classifier and its artifacts, personal and pooled training, offsets and the study comparison."""
+"""Sleep/wake models: splits, tuning, thresholds, the classifier and its artifacts, personal and pooled training, offsets, the method choice and the study comparison."""
 
 from __future__ import annotations
 
@@ -16,6 +16,10 @@ from .classifier import (
     ModelKind,
     Projection,
     SleepModel,
+)
+from .method_choice import (
+    MODEL_METHODS,
+    choose_method,
 )
 from .offset import (
     DEFAULT_SHRINKAGE_GRID,
@@ -40,11 +44,9 @@ from .splits import (
 )
 from .study_comparison import (
     COMPARED_RULES,
-    ERROR_PARAMETERS,
-    MODEL_METHODS,
     StudyComparison,
-    choose_method,
     compare_study,
+    held_out_comparison,
 )
 from .tasks import (
     Progress,
@@ -77,7 +79,6 @@ __all__ = [
     "COMPARED_RULES",
     "DEFAULT_SHRINKAGE_GRID",
     "DESCRIPTOR_NAMES",
-    "ERROR_PARAMETERS",
     "FORMAT",
     "FORMAT_VERSION",
     "ForwardChainedSplit",
@@ -108,6 +109,7 @@ __all__ = [
     "choose_shrinkage",
     "compare_study",
     "estimate_offset",
+    "held_out_comparison",
     "library_versions",
     "load_model",
     "model_from_bytes",

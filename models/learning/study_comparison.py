@@ -16,10 +16,10 @@ count-threshold
 always-sleep      the baseline that calls every epoch sleep
 ================  ==========================================================================
 
-Epoch metrics (in-bed epochs) come from :func:`models.agreement.epoch_metrics.agreement_table`; sleep
-parameters from :func:`models.scoring.parameters.sleep_parameters` with the reference's unscored epochs
-masked on both sides; Bland-Altman across all nights from
-:func:`models.agreement.bland_altman.bland_altman_table`.
+Each night is compared with its reference by :func:`held_out_comparison` (the one comparison of
+:func:`models.agreement.comparison.compare_night`: epoch metrics on the in-bed epochs, sleep parameters
+with the reference's unscored epochs masked on both sides) and the nights are tabulated by
+:func:`models.agreement.comparison.comparison_tables` (Bland-Altman across all nights).
 """
 
 from __future__ import annotations
@@ -30,60 +30,24 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 
-from ..agreement.bland_altman import REFERENCE, bland_altman_table
+from ..agreement.comparison import NightComparison, compare_night, comparison_tables
+from ..agreement.epoch_metrics import ALWAYS_SLEEP, always_sleep
 from ..features.cache import FeatureCache
-from ..agreement.epoch_metrics import ALWAYS_SLEEP, ScoredNight, agreement_table, always_sleep
-from ..nights.night import Night
-from ..scoring.parameters import PARAMETER_NAMES, sleep_parameters
+from ..nights.night import MovementTimePolicy, Night
+from ..records import json_records
+from ..scoring.rules import score_with_rule
+from .method_choice import MODEL_METHODS, choose_method
 from .personal import PersonalResult, train_personal
 from .pooled import PooledResult, train_pooled
-from ..scoring.rules import score_with_rule
 from .tasks import Progress
-from .training import HeldOutNight, TrainingConfig, labelled_nights
+from .training import HeldOutNight, TrainingConfig, TrainingDataError, labelled_nights
 
-__all__ = ["COMPARED_RULES", "ERROR_PARAMETERS", "MODEL_METHODS", "StudyComparison", "choose_method", "compare_study"]
+__all__ = ["COMPARED_RULES", "StudyComparison", "compare_study", "held_out_comparison"]
 
-#: Model methods, in table order.
-MODEL_METHODS: tuple[str, ...] = ("personal", "pooled", "pooled+offset")
 #: Classical rules in the comparison (default options).
 COMPARED_RULES: tuple[str, ...] = ("cole-kripke", "sadeh", "count-threshold")
-#: Parameters whose per-night error (method - reference) is tabulated.
-ERROR_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
-
-
-def choose_method(night_metrics: pd.DataFrame, *, policy: str = "balanced_accuracy") -> tuple[str, str]:
-    """Choose between a participant's personal and pooled model from held-out figures.
-
-    Parameters
-    ----------
-    night_metrics : pandas.DataFrame
-        The participant's held-out nights: a ``method`` column (``personal``, ``pooled``,
-        ``pooled+offset``) and a column named ``policy``.
-    policy : str, default="balanced_accuracy"
-        Metric compared (higher is better), one of ``CHOICE_POLICIES``.
-
-    Returns
-    -------
-    method : {"personal", "pooled"}
-        ``"pooled"`` means the pooled model with the participant's offset (zero without labels).
-    reason : str
-        The figures behind the choice.
-
-    Notes
-    -----
-    The pooled side is scored as deployed: ``pooled+offset`` when the participant has held-out
-    offset figures, else ``pooled``. Personal wins only when its mean is strictly higher; ties go
-    to pooled, the simpler model.
-    """
-    means = night_metrics.groupby("method")[policy].mean() if len(night_metrics) else pd.Series(dtype=float)
-    pooled_method = "pooled+offset" if np.isfinite(means.get("pooled+offset", np.nan)) else "pooled"
-    pooled, personal = means.get(pooled_method, np.nan), means.get("personal", np.nan)
-    if not np.isfinite(personal):
-        return "pooled", "no personal held-out figures (too few labelled nights)"
-    if not np.isfinite(pooled) or personal > pooled:
-        return "personal", f"personal {policy} {personal:.3f} > {pooled_method} {pooled:.3f}"
-    return "pooled", f"{pooled_method} {policy} {pooled:.3f} >= personal {personal:.3f} (ties go to pooled)"
 
 
 @dataclass(frozen=True, eq=False)
@@ -96,10 +60,11 @@ class StudyComparison:
         :func:`~models.agreement.epoch_metrics.agreement_table` of every method: per night, per participant
         (mean and SD over held-out nights) and pooled over all epochs.
     parameters : pandas.DataFrame
-        Sleep parameters per night and method, the reference included.
+        Sleep parameters per night and method, the reference included
+        (:data:`~models.agreement.comparison.PARAMETER_COLUMNS`).
     parameter_errors : pandas.DataFrame
         Per night and method, ``<parameter>_error`` = method - reference for
-        :data:`ERROR_PARAMETERS`.
+        :data:`~models.agreement.comparison.ERROR_PARAMETERS`.
     bland_altman : pandas.DataFrame
         Study-wide Bland-Altman statistics per method and parameter.
     participants : pandas.DataFrame
@@ -121,12 +86,11 @@ class StudyComparison:
     notes: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-able tables (records; NaN becomes None)."""
-        def records(df: pd.DataFrame) -> list[dict[str, Any]]:
-            return df.astype(object).where(df.notna(), None).to_dict(orient="records")
-        return {"participants": records(self.participants), "epoch_metrics": records(self.epoch_metrics),
-                "parameters": records(self.parameters), "parameter_errors": records(self.parameter_errors),
-                "bland_altman": records(self.bland_altman), "shrinkage": self.pooled.shrinkage, "notes": self.notes}
+        """JSON-able tables (:func:`models.records.json_records`: NaN becomes None)."""
+        return {"participants": json_records(self.participants), "epoch_metrics": json_records(self.epoch_metrics),
+                "parameters": json_records(self.parameters), "parameter_errors": json_records(self.parameter_errors),
+                "bland_altman": json_records(self.bland_altman), "shrinkage": self.pooled.shrinkage,
+                "notes": self.notes}
 
 
 class _Stages:
@@ -143,16 +107,61 @@ class _Stages:
         return lambda done, _total, stage: report(base + done, self.total, stage)
 
 
-def _sides(night: Night, config: TrainingConfig, models: Mapping[str, HeldOutNight],
-           rule_options: Mapping[str, Mapping[str, Any]]) -> list[tuple[str, np.ndarray, np.ndarray | None]]:
-    ref = night.reference_sleep(movement_time=config.movement_time)
-    sides: list[tuple[str, np.ndarray, np.ndarray | None]] = [(REFERENCE, ref, None)]  # type: ignore[list-item]
-    sides += [(m, models[m].sleep, models[m].p_sleep) for m in MODEL_METHODS if m in models]
+def _sides(night: Night, held_out: Mapping[str, HeldOutNight],
+           rule_options: Mapping[str, Mapping[str, Any]]) -> dict[str, tuple[ArrayLike, ArrayLike | None]]:
+    sides: dict[str, tuple[ArrayLike, ArrayLike | None]] = {
+        m: (held_out[m].sleep, held_out[m].p_sleep) for m in MODEL_METHODS if m in held_out}
     for method in COMPARED_RULES:
         scored = score_with_rule(night.counts, night.epoch_seconds, method, **rule_options.get(method, {}))
-        sides.append((method, scored.sleep, scored.score))
-    sides.append((ALWAYS_SLEEP, always_sleep(ref), None))
+        sides[method] = (scored.sleep, scored.score)
+    sides[ALWAYS_SLEEP] = (always_sleep(night.counts), None)
     return sides
+
+
+def held_out_comparison(night: Night, held_out: Mapping[str, HeldOutNight], *, participant_id: str | None = None,
+                        movement_time: MovementTimePolicy = "wake",
+                        rule_options: Mapping[str, Mapping[str, Any]] | None = None,
+                        parameter_options: Mapping[str, Any] | None = None) -> NightComparison:
+    """One labelled night of a study comparison: every method against the night's reference.
+
+    The methods, in table order: the held-out models present (:data:`MODEL_METHODS`, calls and
+    ``p_sleep``), :data:`COMPARED_RULES` scoring the whole recording (calls and continuous
+    score) and the always-sleep baseline (no score).
+
+    Parameters
+    ----------
+    night : Night
+        A night with reference labels.
+    held_out : mapping of str to HeldOutNight
+        The night's held-out model predictions by method (a model without one is left out).
+    participant_id : str, default=None
+        Names the night's participant in the tables; None = ``night.participant_id``.
+    movement_time : {"wake", "sleep", "exclude"}, default="wake"
+        How R&K movement-time epochs of the reference count.
+    rule_options : mapping, default=None
+        Options per rule of :data:`COMPARED_RULES`, e.g. ``{"count-threshold": {"threshold": 20}}``.
+    parameter_options : mapping, default=None
+        Keyword options of :func:`models.scoring.parameters.sleep_parameters`.
+
+    Returns
+    -------
+    NightComparison
+        Named by :attr:`Night.night_id <models.nights.night.Night.night_id>` and the night's label.
+
+    Raises
+    ------
+    TrainingDataError
+        If the night has no reference labels.
+    """
+    reference = night.reference_sleep(movement_time=movement_time)
+    if reference is None:
+        raise TrainingDataError(f"night {night.night_id} has no reference", code="no_reference")
+    first, stop = night.in_bed
+    return compare_night(reference, _sides(night, held_out, rule_options or {}),
+                         epoch_seconds=night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop,
+                         parameter_options=parameter_options,
+                         participant_id=night.participant_id if participant_id is None else participant_id,
+                         night_id=night.night_id, label=night.label)
 
 
 def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfig = TrainingConfig(),
@@ -184,7 +193,6 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
     TrainingDataError
         As :func:`~models.learning.pooled.train_pooled` (fewer than three labelled participants, ...).
     """
-    rule_options, parameter_options = dict(rule_options or {}), dict(parameter_options or {})
     pids = sorted(nights)
     labelled = {pid: labelled_nights(list(nights[pid]), config) for pid in pids}
     personal_pids = [pid for pid in pids if len(labelled[pid]) >= config.min_personal_nights]
@@ -196,43 +204,20 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
     personal = {pid: train_personal(nights[pid], config=config, progress=stages.part(personal_totals[pid]),
                                     feature_cache=feature_cache) for pid in personal_pids}
 
-    scored: list[ScoredNight] = []
-    param_rows: list[dict[str, Any]] = []
+    compared: list[NightComparison] = []
     for pid in pids:
         by_hash: dict[str, dict[str, HeldOutNight]] = {}
         outer = personal[pid].outer if pid in personal else []
         for h in [*outer, *pooled.held_out[pid], *pooled.offset_held_out.get(pid, [])]:
             by_hash.setdefault(h.night_hash, {})[h.method] = h
-        for night in labelled[pid]:
-            first, stop = night.in_bed
-            ids = {"participant_id": pid, "night_id": night.label or night.content_hash[:12]}
-            sides = _sides(night, config, by_hash.get(night.content_hash, {}), rule_options)
-            unscored = np.isnan(sides[0][1])
-            for method, sleep, score in sides:
-                masked = np.where(unscored, np.nan, sleep)
-                params = sleep_parameters(masked, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop,
-                                          **parameter_options)
-                param_rows.append(ids | {"method": method} | params.as_dict())
-                if method != REFERENCE:
-                    scored.append(ScoredNight(participant_id=pid, night_id=ids["night_id"], method=method,
-                                              reference=sides[0][1][first:stop], predicted=sleep[first:stop],
-                                              score=None if score is None else score[first:stop]))
-    parameters = pd.DataFrame(param_rows, columns=["participant_id", "night_id", "method", *PARAMETER_NAMES,
-                                                   "sleep_onset_idx", "final_awakening_idx"])
-    epoch_metrics = agreement_table(scored)
-    participants, notes = _participants(pids, nights, labelled, pooled, epoch_metrics, config)
-    return StudyComparison(epoch_metrics=epoch_metrics, parameters=parameters,
-                           parameter_errors=_errors(parameters), bland_altman=bland_altman_table(parameters),
+        compared += [held_out_comparison(night, by_hash.get(night.content_hash, {}), participant_id=pid,
+                                         movement_time=config.movement_time, rule_options=rule_options,
+                                         parameter_options=parameter_options) for night in labelled[pid]]
+    tables = comparison_tables(compared)
+    participants, notes = _participants(pids, nights, labelled, pooled, tables.epoch_metrics, config)
+    return StudyComparison(epoch_metrics=tables.epoch_metrics, parameters=tables.parameters,
+                           parameter_errors=tables.parameter_errors, bland_altman=tables.bland_altman,
                            participants=participants, personal=personal, pooled=pooled, notes=notes)
-
-
-def _errors(parameters: pd.DataFrame) -> pd.DataFrame:
-    keys = ["participant_id", "night_id"]
-    ref = parameters[parameters["method"] == REFERENCE].set_index(keys)[list(ERROR_PARAMETERS)]
-    rows = parameters[parameters["method"] != REFERENCE].set_index(keys)
-    diff = rows[list(ERROR_PARAMETERS)] - ref.reindex(rows.index)
-    diff.columns = [f"{c}_error" for c in ERROR_PARAMETERS]
-    return pd.concat([rows[["method"]], diff], axis=1).reset_index()
 
 
 def _participants(pids: list[str], nights: Mapping[str, Sequence[Night]], labelled: Mapping[str, list[Night]],

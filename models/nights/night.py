@@ -174,6 +174,12 @@ class Night:
         """
         return self._hash
 
+    @property
+    def night_id(self) -> str:
+        """The night's identifier in every table and stored record: the first 20 hex digits of
+        :attr:`content_hash` (the lab's ``label`` is kept beside it, as its own value)."""
+        return self._hash[:20]
+
     def epoch_index(self, when: pd.Timestamp) -> int:
         """Index of the first epoch starting at or after ``when`` (0..n_epochs)."""
         offset_s = (when - self.start).total_seconds()

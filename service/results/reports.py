@@ -3,11 +3,11 @@
 Comparisons use the held-out predictions stored with the *active* model versions (so a model is
 never judged on nights it was trained on), set next to the classical rules
 (:data:`models.COMPARED_RULES`, default options), the always-sleep baseline and the PSG reference
-on the same labelled nights, as :func:`models.compare_study` does when it trains everything at
-once. Metrics come from :func:`models.agreement_table`, parameters from
-:func:`models.sleep_parameters` (the reference's unscored epochs masked on both sides) and
-Bland-Altman statistics from :func:`models.bland_altman_table`. A comparison is kept in memory
-until its nights or the active versions change.
+on the same labelled nights by :func:`models.held_out_comparison`, the same comparison
+:func:`models.compare_study` makes when it trains everything at once; its tables (epoch metrics,
+parameters with the reference's unscored epochs masked on both sides, Bland-Altman statistics)
+come from :func:`models.comparison_tables`. A comparison is kept in memory until its nights or the
+active versions change.
 """
 
 from __future__ import annotations
@@ -15,49 +15,39 @@ from __future__ import annotations
 import hashlib
 import io
 import json
-import math
 import threading
 from collections import OrderedDict
 from typing import Any
 
-import numpy as np
 import pandas as pd
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import (
-    ALWAYS_SLEEP,
-    COMPARED_RULES,
     EPOCH_METRIC_NAMES,
     METHOD_IDS,
+    MODEL_METHODS,
     PARAMETER_NAMES,
-    REFERENCE,
+    ComparisonTables,
     HeldOutNight,
     Night,
-    ScoredNight,
     TrainingConfig,
-    agreement_table,
-    always_sleep,
-    bland_altman_table,
-    score_with_rule,
-    sleep_parameters,
+    compare_night,
+    comparison_tables,
+    held_out_comparison,
+    json_record,
+    json_records,
 )
 
 from ..store import db, versions
 from ..store.codec import night_from_row
 from ..store.registry import find_participant, find_study, load_nights
-from .scoring import MODEL_METHODS, score_night
+from .scoring import score_night
 
 __all__ = ["EXPORT_METHODS", "export_parameters", "participant_comparison", "study_comparison"]
 
 #: Methods of the parameter export besides the reference (model methods only when trained).
-EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, "personal", "pooled", "pooled+offset")
-
-
-def _finite(value: Any) -> Any:
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
-    return value
+EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, *MODEL_METHODS)
 
 
 def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv") -> bytes:
@@ -83,9 +73,10 @@ def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str
         reference = night.reference_sleep()
         if reference is not None and night.has_reference:
             first, stop = night.in_bed
-            params = sleep_parameters(reference, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop)
+            params = compare_night(reference, {}, epoch_seconds=night.epoch_seconds, lights_off_idx=first,
+                                   lights_on_idx=stop).reference_parameters.as_dict()
             rows.append(ids | {"method": "reference", "model_version": None}
-                        | {k: _finite(v) for k, v in params.as_dict().items() if k in PARAMETER_NAMES})
+                        | json_record({k: params[k] for k in PARAMETER_NAMES}))
         for method in EXPORT_METHODS:
             if (method == "personal" and not has_personal) or (method.startswith("pooled") and pooled is None):
                 continue
@@ -133,11 +124,6 @@ def _fingerprint(session: Session, study: db.Study, participant_id: str | None) 
     return hashlib.sha256(json.dumps([study.study_id, participant_id, nights, active]).encode()).hexdigest()
 
 
-def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
-    return [{k: _finite(v) if isinstance(v, float) else v for k, v in row.items()}
-            for row in frame.astype(object).where(frame.notna(), None).to_dict(orient="records")]
-
-
 def _participant_summary(table: pd.DataFrame, participant_id: str) -> list[dict[str, Any]]:
     """Per method: nights compared and the mean and SD over nights of every epoch metric."""
     rows = table[(table["level"] == "participant") & (table["participant_id"] == participant_id)]
@@ -145,7 +131,7 @@ def _participant_summary(table: pd.DataFrame, participant_id: str) -> list[dict[
     for method, stats in rows.groupby("method", sort=False):
         mean, sd = (stats[stats["statistic"] == k].iloc[0] for k in ("mean", "sd"))
         out.append({"method": method, "n_nights": int(mean["n_nights"])}
-                   | {m: {"mean": _finite(float(mean[m])), "sd": _finite(float(sd[m]))} for m in EPOCH_METRIC_NAMES})
+                   | {m: json_record({"mean": float(mean[m]), "sd": float(sd[m])}) for m in EPOCH_METRIC_NAMES})
     return out
 
 
@@ -155,7 +141,7 @@ def _night_summary(night_rows: pd.DataFrame) -> list[dict[str, Any]]:
     for method, rows in night_rows.groupby("method", sort=False):
         values = rows[list(EPOCH_METRIC_NAMES)].astype(float)
         out.append({"method": method, "n_nights": int(len(rows))}
-                   | {m: {"mean": _finite(float(values[m].mean())), "sd": _finite(float(values[m].std(ddof=1)))}
+                   | {m: json_record({"mean": float(values[m].mean()), "sd": float(values[m].std(ddof=1))})
                       for m in EPOCH_METRIC_NAMES})
     return out
 
@@ -164,48 +150,25 @@ def _pooled_summary(table: pd.DataFrame) -> list[dict[str, Any]]:
     """Per method: nights compared and every epoch metric over all their epochs together."""
     rows = table[table["level"] == "pooled"]
     return [{"method": r["method"], "n_nights": int(r["n_nights"]), "n_epochs": int(r["n_epochs"])}
-            | {m: _finite(float(r[m])) for m in EPOCH_METRIC_NAMES} for _, r in rows.iterrows()]
+            | json_record({m: float(r[m]) for m in EPOCH_METRIC_NAMES}) for _, r in rows.iterrows()]
 
 
 def _assemble(nights: dict[str, list[Night]], held_out: dict[str, dict[str, dict[str, HeldOutNight]]]
-              ) -> tuple[pd.DataFrame, pd.DataFrame, list[str]]:
-    """Epoch metrics (:func:`models.agreement_table`), parameters per night and method, and notes."""
+              ) -> tuple[ComparisonTables, list[str]]:
+    """The comparison tables of the labelled nights (:func:`models.comparison_tables`) and notes."""
     movement_time = TrainingConfig().movement_time
-    scored: list[ScoredNight] = []
-    rows: list[dict[str, Any]] = []
+    compared = []
     notes: list[str] = []
     for pid, labelled in nights.items():
         missing: set[str] = set()
         for night in labelled:
-            first, stop = night.in_bed
-            reference = night.reference_sleep(movement_time=movement_time)
             models_here = held_out.get(pid, {}).get(night.content_hash, {})
-            sides: list[tuple[str, Any, Any]] = [(REFERENCE, reference, None)]
-            for method in MODEL_METHODS:
-                if method in models_here:
-                    sides.append((method, models_here[method].sleep, models_here[method].p_sleep))
-                else:
-                    missing.add(method)
-            for method in COMPARED_RULES:
-                rule = score_with_rule(night.counts, night.epoch_seconds, method)
-                sides.append((method, rule.sleep, rule.score))
-            sides.append((ALWAYS_SLEEP, always_sleep(reference), None))
-            unscored = np.isnan(reference)
-            ids = {"participant_id": pid, "night_id": night.content_hash[:20]}
-            for method, sleep, score in sides:
-                params = sleep_parameters(np.where(unscored, np.nan, sleep), night.epoch_seconds, lights_off_idx=first,
-                                          lights_on_idx=stop)
-                rows.append(ids | {"method": method} | params.as_dict())
-                if method != REFERENCE:
-                    scored.append(ScoredNight(participant_id=pid, night_id=ids["night_id"], method=method,
-                                              reference=reference[first:stop], predicted=sleep[first:stop],
-                                              score=None if score is None else score[first:stop]))
+            missing |= set(MODEL_METHODS) - set(models_here)
+            compared.append(held_out_comparison(night, models_here, participant_id=pid, movement_time=movement_time))
         if missing:
             notes.append(f"{pid}: no held-out {', '.join(sorted(missing))} figures for some or all labelled nights "
                          "(model not trained, too few labelled nights, or nights added after training)")
-    parameters = pd.DataFrame(rows, columns=["participant_id", "night_id", "method", *PARAMETER_NAMES,
-                                             "sleep_onset_idx", "final_awakening_idx"])
-    return agreement_table(scored), parameters, notes
+    return comparison_tables(compared), notes
 
 
 def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str | None) -> dict[str, Any]:
@@ -222,7 +185,8 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
         held_out, used = _held_out(session, study)
         nights = {p.participant_id: load_nights(session, participant=p, labelled_only=True) for p in participants}
         choices = {p.participant_id: (p.chosen_method, (p.choice or {}).get("reason")) for p in participants}
-    epoch_metrics, parameters, notes = _assemble(nights, held_out)
+    tables, notes = _assemble(nights, held_out)
+    epoch_metrics = tables.epoch_metrics
     night_rows = epoch_metrics[epoch_metrics["level"] == "night"]
     result = {
         "study_id": study_id,
@@ -232,9 +196,9 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
         "participants": [{"participant_id": pid, "n_labelled_nights": len(nights[pid]),
                           "chosen_method": choices[pid][0], "choice_reason": choices[pid][1],
                           "summary": _participant_summary(epoch_metrics, pid)} for pid in nights],
-        "nights": _records(night_rows.drop(columns=["level", "statistic", "n_nights"])),
-        "parameters": _records(parameters),
-        "bland_altman": _records(bland_altman_table(parameters)),
+        "nights": json_records(night_rows.drop(columns=["level", "statistic", "n_nights"])),
+        "parameters": json_records(tables.parameters.drop(columns=["label"])),  # nights are named by night_id
+        "bland_altman": json_records(tables.bland_altman),
         "notes": notes,
     }
     with _CACHE_LOCK:

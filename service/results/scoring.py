@@ -23,7 +23,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import math
 import threading
 import zlib
 from collections import OrderedDict
@@ -36,12 +35,13 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import (
-    BLAND_ALTMAN_PARAMETERS,
     METHOD_IDS,
+    MODEL_METHODS,
     PARAMETER_NAMES,
     FeatureMatrix,
     Night,
-    epoch_agreement,
+    compare_night,
+    json_record,
     participant_descriptors,
     score_with_rule,
     sleep_parameters,
@@ -54,9 +54,8 @@ from ..errors import BadRequest, NotFound, Unprocessable
 from ..store.features import features_row, load_features, night_features
 from ..store.registry import find_participant, find_study
 
-__all__ = ["MODEL_METHODS", "SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
+__all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
 
-MODEL_METHODS = ("personal", "pooled", "pooled+offset")
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 
 
@@ -64,18 +63,6 @@ SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 class _Resolved:
     method: str
     version: versions.VersionInfo | None
-
-
-def _finite(value: Any) -> Any:
-    if isinstance(value, float | np.floating):
-        return float(value) if math.isfinite(value) else None
-    if isinstance(value, np.integer):
-        return int(value)
-    return value
-
-
-def _clean(d: dict[str, Any]) -> dict[str, Any]:
-    return {k: _finite(v) for k, v in d.items()}
 
 
 def resolve_method(session: Session, *, study: db.Study, participant: db.Participant, method: str,
@@ -156,9 +143,10 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
     body : dict
         ``method``, ``model_version``, ``epoch_seconds``, ``start``, ``n_epochs``, ``in_bed``,
         ``p_sleep`` (None for rules), ``sleep`` (1 = sleep), ``parameters`` over the in-bed
-        epochs, ``agreement`` with the reference (None without one: epoch metrics, the
-        reference's parameters, and method - reference differences with the reference's
-        unscored epochs masked) and, for models, ``offset``. NaN values are None.
+        epochs, ``agreement`` with the reference (None without one; the night's
+        :func:`models.compare_night`: epoch metrics, the reference's parameters, and method -
+        reference differences with the reference's unscored epochs masked) and, for models,
+        ``offset``. NaN values are None.
     """
     first, stop = night.in_bed
     if model is None:
@@ -172,16 +160,13 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
     agreement = None
     reference = night.reference_sleep()
     if reference is not None and night.has_reference:
-        bed = slice(first, stop)
-        masked = np.where(np.isnan(reference), np.nan, sleep.astype(np.float64))
-        ref_params = sleep_parameters(reference, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop)
-        own_params = sleep_parameters(masked, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop)
-        ref_d, own_d = ref_params.as_dict(), own_params.as_dict()
+        compared = compare_night(reference, {method: (sleep, score)}, epoch_seconds=night.epoch_seconds,
+                                 lights_off_idx=first, lights_on_idx=stop)
+        reference_parameters = compared.reference_parameters.as_dict()
         agreement = {
-            "epochs": _clean(epoch_agreement(reference[bed], sleep[bed],
-                                             score=None if score is None else score[bed])),
-            "reference_parameters": _clean({k: ref_d[k] for k in PARAMETER_NAMES}),
-            "differences": _clean({k: own_d[k] - ref_d[k] for k in BLAND_ALTMAN_PARAMETERS}),
+            "epochs": json_record(compared.epoch_metrics[method]),
+            "reference_parameters": json_record({k: reference_parameters[k] for k in PARAMETER_NAMES}),
+            "differences": json_record(compared.differences[method]),
         }
     body = {
         "method": method, "model_version": version,
@@ -189,7 +174,7 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         "in_bed": [int(first), int(stop)],
         "p_sleep": None if p_sleep is None else np.round(p_sleep, 5).tolist(),
         "sleep": sleep.astype(int).tolist(),
-        "parameters": _clean(params),
+        "parameters": json_record(params),
         "agreement": agreement,
     }
     if model is not None:

@@ -56,7 +56,7 @@ def night_columns(night: Night) -> dict[str, Any]:
     """Column values of a ``nights`` row for ``night`` (arrays encoded)."""
     return {
         "content_hash": night.content_hash,
-        "night_id": night.content_hash[:20],
+        "night_id": night.night_id,
         "label": night.label,
         "start": _iso(night.start),
         "start_utc": night.start.tz_convert("UTC").to_pydatetime(),

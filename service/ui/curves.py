@@ -18,14 +18,12 @@ from numpy.typing import NDArray
 from sklearn.metrics import roc_auc_score, roc_curve
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import COMPARED_RULES, TrainingConfig, score_with_rule
+from models import COMPARED_RULES, MODEL_METHODS, TrainingConfig, score_with_rule
 
 from ..store import registry, versions
 from ..store.db import session_scope
 
 __all__ = ["RocCurve", "held_out_roc"]
-
-_MODEL_METHODS = ("personal", "pooled", "pooled+offset")
 
 
 @dataclass(frozen=True, eq=False)
@@ -81,7 +79,7 @@ def held_out_roc(factory: sessionmaker[Session], *, study_id: str, participant_i
         nights = registry.load_nights(session, participant=participant, labelled_only=True)
     by_method: dict[str, list[tuple[NDArray[np.float64], NDArray[np.float64]]]] = {}
     for h in held:
-        if h.method in _MODEL_METHODS and h.reference is not None:
+        if h.method in MODEL_METHODS and h.reference is not None:
             bed = slice(*h.in_bed)
             by_method.setdefault(h.method, []).append((h.reference[bed], h.p_sleep[bed]))
     movement_time = TrainingConfig().movement_time
@@ -93,5 +91,5 @@ def held_out_roc(factory: sessionmaker[Session], *, study_id: str, participant_i
         for method in COMPARED_RULES:
             score = score_with_rule(night.counts, night.epoch_seconds, method).score
             by_method.setdefault(method, []).append((reference[bed], score[bed]))
-    curves = [_curve(m, by_method.get(m, [])) for m in (*_MODEL_METHODS, *COMPARED_RULES)]
+    curves = [_curve(m, by_method.get(m, [])) for m in (*MODEL_METHODS, *COMPARED_RULES)]
     return [c for c in curves if c is not None]

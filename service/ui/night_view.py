@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import PARAMETER_NAMES, Night, sleep_parameters
+from models import COMPARED_RULES, MODEL_METHODS, PARAMETER_NAMES, Night, compare_night
 
 from ..store import registry, versions
 from ..store.db import session_scope
@@ -29,7 +29,7 @@ __all__ = ["AGREEMENT_METRICS", "AUTO", "NIGHT_METHODS", "TABLE_PARAMETERS", "Me
 
 AUTO = "auto"
 #: Methods offered by the selector and compared in the parameter table.
-NIGHT_METHODS: tuple[str, ...] = ("cole-kripke", "sadeh", "count-threshold", "personal", "pooled", "pooled+offset")
+NIGHT_METHODS: tuple[str, ...] = (*COMPARED_RULES, *MODEL_METHODS)
 #: Rows of the parameter table (unscored epochs are reported beside it).
 TABLE_PARAMETERS: tuple[str, ...] = tuple(p for p in PARAMETER_NAMES if p != "unscored_epochs")
 #: Columns of the night's agreement table.
@@ -142,12 +142,14 @@ class NightView:
             qc=[(int(a), int(b), flag["code"]) for flag in self.info.qc for a, b in flag["ranges"]])
 
     def reference_parameters(self) -> dict[str, Any] | None:
-        """Sleep parameters of the reference labels over the in-bed epochs (None if unlabelled)."""
+        """Sleep parameters of the reference labels over the in-bed epochs (None if unlabelled), as in
+        every comparison (:func:`models.compare_night`)."""
         ref = self.reference_sleep
         if ref is None:
             return None
         first, stop = self.night.in_bed
-        return sleep_parameters(ref, self.night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop).as_dict()
+        return compare_night(ref, {}, epoch_seconds=self.night.epoch_seconds, lights_off_idx=first,
+                             lights_on_idx=stop).reference_parameters.as_dict()
 
     def parameter_table(self) -> pd.DataFrame:
         """Parameters side by side: one row per parameter, one column for the reference and each method."""

@@ -9,7 +9,7 @@ import pandas as pd
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import ALWAYS_SLEEP, COMPARED_RULES
+from models import ALWAYS_SLEEP, COMPARED_RULES, MODEL_METHODS
 
 from ..store import db, registry, versions
 from ..jobs import queue as jobs
@@ -27,7 +27,7 @@ __all__ = ["COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "Parti
 #: Held-out metrics listed for every model version.
 VERSION_METRICS: tuple[str, ...] = ("balanced_accuracy", "specificity", "sensitivity", "kappa", "auc")
 #: Methods of the comparisons, in display order (the always-sleep baseline last).
-COMPARISON_METHODS: tuple[str, ...] = ("personal", "pooled", "pooled+offset", *COMPARED_RULES, ALWAYS_SLEEP)
+COMPARISON_METHODS: tuple[str, ...] = (*MODEL_METHODS, *COMPARED_RULES, ALWAYS_SLEEP)
 #: Metrics of the comparison tables.
 COMPARISON_METRICS: tuple[str, ...] = ("balanced_accuracy", "sensitivity", "specificity", "kappa", "auc")
 

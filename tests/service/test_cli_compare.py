@@ -9,7 +9,7 @@ import numpy as np
 from typer.testing import CliRunner
 
 from models import CohortSpec, night_to_json, simulate_cohort
-from models.agreement.bland_altman import NightRecord, compare_rules_with_reference
+from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference
 
 
 def _study(root: Path) -> dict[str, list]:

@@ -8,8 +8,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from models.agreement.bland_altman import NightRecord, bland_altman, compare_rules_with_reference
-from models.learning.study_comparison import COMPARED_RULES, MODEL_METHODS, choose_method, compare_study
+from models.agreement.bland_altman import bland_altman
+from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference
+from models.learning.method_choice import MODEL_METHODS, choose_method
+from models.learning.study_comparison import COMPARED_RULES, compare_study
 from models.simulation.simulator import CohortSpec, simulate_cohort
 from models.learning.training import TrainingConfig
 
@@ -73,6 +75,15 @@ def test_parameter_errors_and_bland_altman_agree_with_the_parameter_table(study)
         assert row["n"] == np.isfinite(diff).sum()
         expected = bland_altman(mine["sol_min"], ref["sol_min"].reindex(mine.index))
         assert row["loa_upper"] == pytest.approx(expected.loa_upper)
+
+
+def test_tables_name_nights_as_the_service_stores_them_and_keep_labels(study) -> None:
+    nights, result, _ = study
+    labels = {n.content_hash[:20]: n.label for v in nights.values() for n in v}  # the API's night_id
+    for frame in (result.parameters, result.parameter_errors):
+        assert [labels[i] for i in frame["night_id"]] == list(frame["label"])
+    night_level = result.epoch_metrics[result.epoch_metrics["level"] == "night"]
+    assert set(night_level["night_id"]) <= set(labels)
 
 
 def _metrics(**means: float) -> pd.DataFrame:

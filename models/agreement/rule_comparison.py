@@ -1,0 +1,130 @@
+"""Classical rules against the reference on labelled nights (the rule-versus-reference report).
+
+Each night's rules and the always-sleep baseline are compared with its reference by
+:func:`models.agreement.comparison.compare_night`, and the nights are tabulated by
+:func:`models.agreement.comparison.comparison_tables`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from ..nights.night import MovementTimePolicy, Night
+from ..scoring.rescoring import InvalidSleepVectorError, as_sleep_vector
+from ..scoring.rules import METHOD_IDS, score_with_rule
+from .comparison import ComparisonTables, compare_night, comparison_tables
+from .epoch_metrics import ALWAYS_SLEEP, always_sleep
+
+__all__ = ["NightRecord", "compare_rules_with_reference"]
+
+
+@dataclass(frozen=True, eq=False)
+class NightRecord:
+    """One night for :func:`compare_rules_with_reference`.
+
+    Attributes
+    ----------
+    participant_id, night_id : str
+    reference : ndarray of shape (n_epochs,)
+        Reference labels: 1 = sleep, 0 = wake, NaN = unscored.
+    counts : ndarray of shape (n_epochs,)
+        Activity counts per epoch (NaN = missing).
+    epoch_seconds : {15, 30, 60}
+    lights_off_idx : int, default=0
+        First in-bed epoch.
+    lights_on_idx : int or None, default=None
+        End of the in-bed interval (exclusive); None = end of the recording.
+    label : str or None, default=None
+        The lab's own name for the night (its own column in the tables).
+    """
+
+    participant_id: str
+    night_id: str
+    reference: NDArray[np.float64]
+    counts: NDArray[np.float64]
+    epoch_seconds: int
+    lights_off_idx: int = 0
+    lights_on_idx: int | None = None
+    label: str | None = None
+
+    @classmethod
+    def from_night(cls, night: Night, *, night_id: str | None = None,
+                   movement_time: MovementTimePolicy = "wake") -> NightRecord:
+        """Record of a labelled :class:`~models.nights.night.Night` (its in-bed interval and reference).
+
+        ``night_id`` defaults to :attr:`Night.night_id <models.nights.night.Night.night_id>`.
+        """
+        reference = night.reference_sleep(movement_time=movement_time)
+        if reference is None:
+            raise InvalidSleepVectorError(f"night {night.label or night.night_id!r} has no reference labels")
+        first, stop = night.in_bed
+        return cls(participant_id=night.participant_id, night_id=night_id or night.night_id, reference=reference,
+                   counts=night.counts, epoch_seconds=night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop,
+                   label=night.label)
+
+
+def _sides(night: NightRecord, reference: NDArray[np.float64], methods: Sequence[str], count_scale: float,
+           rule_options: Mapping[str, Mapping[str, Any]]) -> dict[str, tuple[ArrayLike, ArrayLike | None]]:
+    sides: dict[str, tuple[ArrayLike, ArrayLike | None]] = {ALWAYS_SLEEP: (always_sleep(reference), None)}
+    for method in methods:
+        options = rule_options.get(method.partition("+")[0], {})
+        result = score_with_rule(night.counts, night.epoch_seconds, method, count_scale=count_scale, **options)
+        sides[method] = (result.sleep, result.score)
+    return sides
+
+
+def compare_rules_with_reference(
+        nights: Sequence[NightRecord], *, methods: Sequence[str] = METHOD_IDS, count_scale: float = 1.0,
+        rule_options: Mapping[str, Mapping[str, Any]] | None = None,
+        parameter_options: Mapping[str, Any] | None = None) -> ComparisonTables:
+    """Score nights with classical rules and compare them with their reference labels.
+
+    Each rule scores the whole recording (so its windows see the epochs around lights-off and
+    lights-on); every comparison uses the in-bed epochs only. The always-sleep baseline is
+    always included, right after the reference. A method's parameters are computed with the
+    reference's unscored epochs masked out too, so both sides of a difference cover the same
+    epochs.
+
+    Parameters
+    ----------
+    nights : sequence of NightRecord
+    methods : sequence of str, default=METHOD_IDS
+        Method ids of :func:`models.scoring.rules.score_with_rule`.
+    count_scale : float, default=1.0
+        Factor applied to the counts before every rule.
+    rule_options : mapping, default=None
+        Options per base method id, e.g. ``{"count-threshold": {"threshold": 20}}``.
+    parameter_options : mapping, default=None
+        Keyword options of :func:`models.scoring.parameters.sleep_parameters` (same for every side).
+
+    Returns
+    -------
+    ComparisonTables
+        Epoch metrics, parameters, per-night parameter errors and Bland-Altman statistics of the
+        baseline and every rule.
+
+    Raises
+    ------
+    InvalidSleepVectorError
+        If a night's reference and counts differ in length.
+    UnknownMethodError, InvalidRuleOptionError, InvalidInBedIntervalError
+        As raised by the rule and parameter functions.
+    """
+    rule_options = rule_options or {}
+    compared = []
+    for night in nights:
+        reference = as_sleep_vector(night.reference, allow_unscored=True, name="reference")
+        if reference.size != np.shape(night.counts)[0]:
+            raise InvalidSleepVectorError(f"night {night.night_id!r}: reference has {reference.size} epochs, "
+                                          f"counts {np.shape(night.counts)[0]}")
+        compared.append(compare_night(
+            reference, _sides(night, reference, methods, count_scale, rule_options),
+            epoch_seconds=night.epoch_seconds, lights_off_idx=night.lights_off_idx,
+            lights_on_idx=night.lights_on_idx, parameter_options=parameter_options,
+            participant_id=night.participant_id, night_id=night.night_id, label=night.label))
+    return comparison_tables(compared)
