@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import logging.config
 import os
 from typing import Annotated, Any
@@ -102,6 +103,7 @@ def serve(
     from ..store.db import make_engine
     from ..store.schema import check_schema, upgrade
     from ..jobs.workers import settings_env, start_worker_processes, stop_worker_processes
+    from ..telemetry import multiprocess_folder
 
     settings = local_settings(host=host, port=port, db=db, workers=workers, job_workers=job_workers,
                               executor=executor, dask_scheduler=dask_scheduler)
@@ -121,8 +123,10 @@ def serve(
                   f"worker(s), {settings.job_workers} training worker(s){_where(settings)}; database "
                   f"{_safe_url(settings.db)}")
     try:
-        uvicorn.run("service.app:app_from_env", factory=True, host=settings.host, port=settings.port,
-                    workers=settings.workers, access_log=False, log_config=log_config(settings.log_level))
+        # several HTTP workers share their metrics through a folder, so /metrics counts for all of them
+        with multiprocess_folder() if settings.workers > 1 else contextlib.nullcontext():
+            uvicorn.run("service.app:app_from_env", factory=True, host=settings.host, port=settings.port,
+                        workers=settings.workers, access_log=False, log_config=log_config(settings.log_level))
     finally:
         stop_worker_processes(processes)
 
