@@ -11,7 +11,6 @@ from __future__ import annotations
 
 from typing import Any
 
-import click
 import typer
 from typer.core import TyperGroup
 
@@ -25,7 +24,7 @@ __all__ = ["CommandGroup", "app"]
 class CommandGroup(TyperGroup):
     """The command group of ``nightbank``: turns a nightbank error into a message and its exit code."""
 
-    def invoke(self, ctx: click.Context) -> Any:
+    def invoke(self, ctx: Any) -> Any:  # ctx: the click context of typer's own click
         try:
             return super().invoke(ctx)
         except NightbankError as exc:

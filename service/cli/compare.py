@@ -17,6 +17,8 @@ from . import app
 from ..errors import BadRequest, Unprocessable
 from .console import FillGapsOption, JsonOption, TzOption, console, err_console
 
+__all__ = ["compare", "read_study"]
+
 _NIGHT_SUFFIXES = (".json", ".csv", ".parquet")
 _METHODS = ("personal", "pooled", "pooled+offset", "cole-kripke", "sadeh", "count-threshold", "always-sleep")
 _PARAMETERS = {"sol_min": "SOL min", "tst_min": "TST min", "waso_min": "WASO min", "awakenings": "awakenings",

@@ -15,6 +15,8 @@ from . import app
 from ..errors import Incomplete
 from .console import FillGapsOption, JsonOption, TzOption, console
 
+__all__ = ["check", "night_summary"]
+
 
 def night_summary(night: Any) -> dict[str, Any]:
     """Per-night QC summary row (epochs, hours, reference coverage, flags)."""

@@ -27,6 +27,8 @@ from . import app
 from ..errors import Unprocessable
 from .console import FillGapsOption, JsonOption, TzOption, console, err_console
 
+__all__ = ["agree", "score"]
+
 MethodOption = Annotated[str, typer.Option("--method", "-m", help=f"One of: {', '.join(METHOD_IDS)}.")]
 ScaleOption = Annotated[float, typer.Option("--count-scale", help="Counts are multiplied by this before the rule.")]
 

@@ -214,10 +214,10 @@ def list_participants(session: Session, *, study_id: str, limit: int = 100,
                                 .order_by(db.Participant.participant_id).limit(limit).offset(offset)))
     pks = [p.pk for p in rows]
     nights: dict[int, list[tuple[str, bool]]] = {pk: [] for pk in pks}
-    for pk, content_hash, labelled in session.execute(
+    for pk, content_hash, has_labels in session.execute(
             select(db.Night.participant_pk, db.Night.content_hash, db.Night.labelled)
             .where(db.Night.participant_pk.in_(pks))):
-        nights[pk].append((content_hash, labelled))
+        nights[pk].append((content_hash, has_labels))
     active = versions.active_personal_versions(session, participant_pks=pks)
     out = []
     for p in rows:

@@ -120,6 +120,7 @@ def activate_personal_model(access: AdminAccess, pid: ParticipantPath, version: 
     """Make a personal model version the active one (promotion or rollback; admin)."""
     with session_scope(factory, write=True) as session:
         study, participant = _owner(session, access.study_id, pid)
+        assert participant is not None  # pid names one
         out = versions.activate_version(session, study=study, participant=participant, version=version,
                                         actor=access.actor)
         refresh_choices(session, study=study, participants=[participant])
