@@ -56,12 +56,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     factory = db.make_session_factory(engine)
     writer = CacheWriter(factory)
+    metrics = Metrics()
 
     @asynccontextmanager
     async def lifespan(_: FastAPI) -> AsyncIterator[None]:
         yield
         writer.close()
         engine.dispose()
+        metrics.close()
 
     app = FastAPI(title="nightbank", version="0.1.0", description=DESCRIPTION, lifespan=lifespan,
                   docs_url="/docs", redoc_url=None, generate_unique_id_function=_operation_id,
@@ -70,7 +72,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = engine
     app.state.factory = factory
     app.state.cache_writer = writer
-    app.state.metrics = Metrics()
+    app.state.metrics = metrics
     app.state.token_cache = TokenCache(settings.token_cache_s)
     install_problem_handlers(app)
     for module in (system, studies, nights, training, reports, tokens):

@@ -1,22 +1,25 @@
-"""Errors of the service layer, each with a stable ``code`` and an HTTP ``status``.
+"""Errors of the service layer, each with a stable ``code``, an HTTP ``status`` and an ``exit_code``.
 
-Hierarchy::
+Hierarchy (HTTP status, command-line exit code)::
 
-    models.NightbankError(ValueError)       code; science errors map to 422 (InvalidNightError too)
-    └── ServiceError                        status 400
-        ├── BadRequest                      400  malformed request (wrong content type, bad query)
-        ├── Unauthorized                    401  missing, unknown or revoked token
-        ├── Forbidden                       403  the token's role is too low
-        ├── NotFound                        404  missing resource, or one outside the token's study
-        ├── Conflict                        409  the request contradicts stored state
-        ├── PayloadTooLarge                 413  request body over the configured limit
-        ├── UnsupportedMediaType            415  body in a format the route does not read
-        ├── Unprocessable                   422  well-formed request that cannot be carried out
-        └── StorageError                    503  the database refused or is unreachable
+    models.NightbankError(ValueError)       code; science errors map to 422 and exit code 1
+    └── ServiceError                        400  1
+        ├── BadRequest                      400  1  malformed request (wrong content type, bad query)
+        │   └── InvalidSettings             400  2  settings or options that do not fit together
+        ├── Unauthorized                    401  1  missing, unknown or revoked token
+        ├── Forbidden                       403  1  the token's role is too low
+        ├── NotFound                        404  1  missing resource, or one outside the token's study
+        ├── Conflict                        409  1  the request contradicts stored state
+        ├── PayloadTooLarge                 413  1  request body over the configured limit
+        ├── UnsupportedMediaType            415  1  body in a format the route does not read
+        ├── Unprocessable                   422  1  well-formed request that cannot be carried out
+        │   └── Incomplete                  422  1  a command failed for some of its items
+        └── StorageError                    503  1  the database refused or is unreachable
 
-The HTTP layer turns every one of them into ``application/problem+json``; the CLI prints the
-message and exits non-zero; :mod:`service.client` raises the same classes from problem responses.
-No FastAPI import here.
+The HTTP layer turns every one of them into ``application/problem+json``; the command line
+prints the code and message and exits with ``exit_code`` (:mod:`service.cli`, one handler, as
+click does with its ``ClickException.exit_code``); :mod:`service.client` raises the same classes
+from problem responses. No FastAPI import here.
 """
 
 from __future__ import annotations
@@ -26,22 +29,30 @@ from models import NightbankError
 __all__ = [
     "BadRequest",
     "Conflict",
+    "DEFAULT_EXIT_CODE",
     "Forbidden",
+    "Incomplete",
+    "InvalidSettings",
     "NotFound",
     "PayloadTooLarge",
     "ServiceError",
     "StorageError",
     "Unauthorized",
-    "UnsupportedMediaType",
     "Unprocessable",
+    "UnsupportedMediaType",
 ]
 
 
+#: Exit code of the command line for an error without its own (every science error).
+DEFAULT_EXIT_CODE = 1
+
+
 class ServiceError(NightbankError):
-    """Base class of service errors: ``code`` and HTTP ``status`` are class attributes."""
+    """Base class of service errors: ``code``, HTTP ``status`` and ``exit_code`` are class attributes."""
 
     code = "service_error"
     status = 400
+    exit_code = DEFAULT_EXIT_CODE
 
 
 class BadRequest(ServiceError):
@@ -49,6 +60,13 @@ class BadRequest(ServiceError):
 
     code = "bad_request"
     status = 400
+
+
+class InvalidSettings(BadRequest):
+    """Settings or command-line options that are invalid or do not fit together (a usage error)."""
+
+    code = "invalid_settings"
+    exit_code = 2
 
 
 class Unauthorized(ServiceError):
@@ -98,6 +116,12 @@ class Unprocessable(ServiceError):
 
     code = "unprocessable"
     status = 422
+
+
+class Incomplete(Unprocessable):
+    """A command that handles many items failed for some of them (each is reported on its own)."""
+
+    code = "incomplete"
 
 
 class StorageError(ServiceError):

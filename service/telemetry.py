@@ -1,87 +1,127 @@
-"""Request metrics and logs: counters, latency histograms and Prometheus text exposition.
+"""Request metrics and logs: Prometheus counters and latency histograms (``prometheus_client``).
 
 The ASGI middleware :class:`RequestTelemetry` times every request, counts it by method, route
 *template* (``/v1/studies/{study}/...``, never the concrete path) and status, adds an
 ``X-Request-ID`` header, and logs one INFO line per request with the template only: no token,
-participant id or count data reaches the log. Metrics are per process (with several HTTP
-workers each process reports its own).
+participant id or count data reaches the log.
+
+Metrics are kept by :mod:`prometheus_client`. When ``nightbank serve`` runs several HTTP worker
+processes, it points ``PROMETHEUS_MULTIPROC_DIR`` at a fresh temporary folder before starting
+them (:func:`multiprocess_folder`), so every process writes its samples there and ``/metrics``
+reports the sum over all of them, whichever process answers
+(:class:`prometheus_client.multiprocess.MultiProcessCollector`). A process that stops marks
+itself dead; the counts it made stay in the totals. Without that variable (one HTTP process,
+tests, an app built in-process) the metrics are those of the :class:`Metrics` object. The job
+counts come from the database at each scrape.
 """
 
 from __future__ import annotations
 
+import contextlib
 import logging
-import threading
+import os
+import tempfile
 import time
 import uuid
-from collections import defaultdict
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from typing import Any
 
-__all__ = ["LATENCY_BUCKETS_S", "Metrics", "RequestTelemetry", "render_prometheus"]
+from prometheus_client import CONTENT_TYPE_PLAIN_0_0_4, CollectorRegistry, Counter, Histogram, generate_latest, values
+from prometheus_client.core import GaugeMetricFamily, Metric
+from prometheus_client.multiprocess import MultiProcessCollector, mark_process_dead
+from prometheus_client.registry import Collector
+
+__all__ = ["LATENCY_BUCKETS_S", "METRICS_MEDIA_TYPE", "MULTIPROCESS_ENV", "Metrics", "RequestTelemetry",
+           "multiprocess_folder"]
 
 log = logging.getLogger("nightbank.http")
 
 #: Upper bounds of the latency histogram buckets, seconds.
 LATENCY_BUCKETS_S: tuple[float, ...] = (0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0, 10.0)
+#: Environment variable naming the folder the processes of one server share their samples in.
+MULTIPROCESS_ENV = "PROMETHEUS_MULTIPROC_DIR"
+#: Content type of the ``/metrics`` body (Prometheus text format 0.0.4).
+METRICS_MEDIA_TYPE = CONTENT_TYPE_PLAIN_0_0_4
+
+
+class _JobCounts(Collector):
+    """The ``nightbank_jobs`` gauge from counts read at scrape time."""
+
+    def __init__(self, jobs_by_state: dict[str, int]) -> None:
+        self.jobs_by_state = jobs_by_state
+
+    def collect(self) -> Iterable[Metric]:
+        family = GaugeMetricFamily("nightbank_jobs", "Training jobs in the database by state.", labels=["state"])
+        for state, n in self.jobs_by_state.items():
+            family.add_metric([state], n)
+        yield family
 
 
 class Metrics:
-    """Thread-safe request counters and latency histograms of this process."""
+    """Request counter and latency histogram of this server (all its processes in multi-process mode).
+
+    Attributes
+    ----------
+    folder : str or None
+        The multi-process folder (``PROMETHEUS_MULTIPROC_DIR`` when the object was made), or
+        None: the samples are this object's own.
+
+    Raises
+    ------
+    RuntimeError
+        If ``PROMETHEUS_MULTIPROC_DIR`` is set but :mod:`prometheus_client` was imported before it
+        was (its samples would then never reach the folder).
+    """
 
     def __init__(self) -> None:
-        self._lock = threading.Lock()
-        self.requests: dict[tuple[str, str, str], int] = defaultdict(int)
-        self.buckets: dict[tuple[str, str], list[int]] = defaultdict(lambda: [0] * len(LATENCY_BUCKETS_S))
-        self.sums: dict[tuple[str, str], float] = defaultdict(float)
-        self.counts: dict[tuple[str, str], int] = defaultdict(int)
+        self.folder = os.environ.get(MULTIPROCESS_ENV) or None
+        if self.folder is not None and not getattr(values.ValueClass, "_multiprocess", False):
+            raise RuntimeError(f"{MULTIPROCESS_ENV} was set after prometheus_client was imported; set it before "
+                               "the process imports nightbank's service")
+        self._registry = None if self.folder is not None else CollectorRegistry(auto_describe=True)
+        self.requests = Counter("nightbank_http_requests", "HTTP requests handled.", ["method", "route", "status"],
+                                registry=self._registry)
+        self.latency = Histogram("nightbank_http_request_duration_seconds", "Time to handle a request.",
+                                 ["method", "route"], buckets=LATENCY_BUCKETS_S, registry=self._registry)
 
     def observe(self, method: str, route: str, status: int, seconds: float) -> None:
-        with self._lock:
-            self.requests[(method, route, str(status))] += 1
-            key = (method, route)
-            for i, bound in enumerate(LATENCY_BUCKETS_S):
-                if seconds <= bound:
-                    self.buckets[key][i] += 1
-            self.sums[key] += seconds
-            self.counts[key] += 1
+        """Count one request and its duration."""
+        self.requests.labels(method, route, str(status)).inc()
+        self.latency.labels(method, route).observe(seconds)
 
-    def snapshot(self) -> dict[str, Any]:
-        with self._lock:
-            return {"requests": dict(self.requests), "buckets": {k: list(v) for k, v in self.buckets.items()},
-                    "sums": dict(self.sums), "counts": dict(self.counts)}
+    def render(self, *, jobs_by_state: dict[str, int]) -> bytes:
+        """Prometheus text format (version 0.0.4) of the request metrics and the job counts."""
+        if self.folder is not None:
+            registry = CollectorRegistry()
+            MultiProcessCollector(registry, path=self.folder)
+        else:
+            assert self._registry is not None
+            registry = self._registry
+        return generate_latest(registry) + generate_latest(_JobCounts(jobs_by_state))
+
+    def close(self) -> None:
+        """Mark this process dead in the multi-process folder (its counts stay in the totals)."""
+        if self.folder is not None:
+            mark_process_dead(os.getpid(), self.folder)
 
 
-def _labels(**labels: str) -> str:
-    inner = ",".join(f'{k}="{v.replace(chr(92), chr(92) * 2).replace(chr(34), chr(92) + chr(34))}"'
-                     for k, v in labels.items())
-    return "{" + inner + "}"
+@contextlib.contextmanager
+def multiprocess_folder() -> Iterator[str]:
+    """A fresh folder named in ``PROMETHEUS_MULTIPROC_DIR`` while the block runs, removed after it.
 
-
-def render_prometheus(metrics: Metrics, *, jobs_by_state: dict[str, int]) -> str:
-    """Prometheus text format (version 0.0.4) of the request metrics and the job counts."""
-    snap = metrics.snapshot()
-    lines: list[str] = [
-        "# HELP nightbank_http_requests_total HTTP requests handled by this process.",
-        "# TYPE nightbank_http_requests_total counter",
-    ]
-    for (method, route, status), n in sorted(snap["requests"].items()):
-        lines.append(f"nightbank_http_requests_total{_labels(method=method, route=route, status=status)} {n}")
-    lines += ["# HELP nightbank_http_request_duration_seconds Time to handle a request.",
-              "# TYPE nightbank_http_request_duration_seconds histogram"]
-    for (method, route), counts in sorted(snap["buckets"].items()):
-        for bound, n in zip(LATENCY_BUCKETS_S, counts, strict=True):
-            lines.append("nightbank_http_request_duration_seconds_bucket"
-                         f"{_labels(method=method, route=route, le=repr(bound))} {n}")
-        total = snap["counts"][(method, route)]
-        lines.append(f"nightbank_http_request_duration_seconds_bucket{_labels(method=method, route=route, le='+Inf')}"
-                     f" {total}")
-        lines.append(f"nightbank_http_request_duration_seconds_sum{_labels(method=method, route=route)} "
-                     f"{snap['sums'][(method, route)]:.6f}")
-        lines.append(f"nightbank_http_request_duration_seconds_count{_labels(method=method, route=route)} {total}")
-    lines += ["# HELP nightbank_jobs Training jobs in the database by state.", "# TYPE nightbank_jobs gauge"]
-    for state, n in jobs_by_state.items():
-        lines.append(f"nightbank_jobs{_labels(state=state)} {n}")
-    return "\n".join(lines) + "\n"
+    Processes started inside the block (the HTTP workers of ``serve``) inherit the variable; it
+    must be set before they import :mod:`prometheus_client`.
+    """
+    previous = os.environ.get(MULTIPROCESS_ENV)
+    with tempfile.TemporaryDirectory(prefix="nightbank-metrics-") as folder:
+        os.environ[MULTIPROCESS_ENV] = folder
+        try:
+            yield folder
+        finally:
+            if previous is None:
+                os.environ.pop(MULTIPROCESS_ENV, None)
+            else:
+                os.environ[MULTIPROCESS_ENV] = previous
 
 
 class RequestTelemetry:

@@ -11,8 +11,8 @@ from ..store.registry import ID_PATTERN
 
 __all__ = [
     "JobAccepted", "JobOut", "ModelVersionOut", "NightAccepted", "NightIn", "NightOut", "Page", "ParticipantOut",
-    "Problem", "ProblemItem", "Progress", "QCFlagOut", "ScoringOut", "StudyIn", "StudyOut", "TokenIn",
-    "TokenCreated", "TokenOut", "TrainingIn",
+    "Problem", "ProblemItem", "Progress", "QCFlagOut", "ScoringOut", "StudyIn", "StudyOut", "TokenCreated",
+    "TokenIn", "TokenOut", "TrainingIn",
 ]
 
 T = TypeVar("T")

@@ -11,23 +11,18 @@ import typer
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
-from models import InvalidNightError, Night, NightbankError, NightOptions, TrainingConfig, compare_study, read_night
+from models import Night, NightOptions, TrainingConfig, compare_study, read_night
 
 from . import app
+from ..errors import BadRequest, Unprocessable
 from .console import FillGapsOption, JsonOption, TzOption, console, err_console
+
+__all__ = ["compare", "read_study"]
 
 _NIGHT_SUFFIXES = (".json", ".csv", ".parquet")
 _METHODS = ("personal", "pooled", "pooled+offset", "cole-kripke", "sadeh", "count-threshold", "always-sleep")
 _PARAMETERS = {"sol_min": "SOL min", "tst_min": "TST min", "waso_min": "WASO min", "awakenings": "awakenings",
                "sleep_efficiency_pct": "SE %"}
-
-
-def _fail(exc: NightbankError) -> None:
-    err_console.print(f"[red]{exc.code}[/red]: {exc}")
-    if isinstance(exc, InvalidNightError):
-        for p in exc.problems:
-            err_console.print(f"  {p.code}: {p.message}")
-    raise typer.Exit(1)
 
 
 def read_study(directory: Path, options: NightOptions) -> dict[str, list[Night]]:
@@ -92,24 +87,19 @@ def compare(
 ) -> None:
     """Train personal and pooled models and compare them with classical rules on held-out nights."""
     if not directory.is_dir():
-        err_console.print(f"[red]not_a_directory[/red]: {directory} is not a folder")
-        raise typer.Exit(1)
-    try:
-        study = read_study(directory, NightOptions(tz=tz, fill_gaps=fill_gaps))
-        if not study:
-            err_console.print(f"[red]no_nights[/red]: no participant folders with night files in {directory}")
-            raise typer.Exit(1)
-        config = TrainingConfig(n_trials=trials, seed=seed, n_jobs=jobs)
-        with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
-                      console=err_console, transient=True) as bar:
-            task = bar.add_task("reading", total=None)
+        raise BadRequest(f"{directory} is not a folder", code="not_a_directory")
+    study = read_study(directory, NightOptions(tz=tz, fill_gaps=fill_gaps))
+    if not study:
+        raise Unprocessable(f"no participant folders with night files in {directory}", code="no_nights")
+    config = TrainingConfig(n_trials=trials, seed=seed, n_jobs=jobs)
+    with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
+                  console=err_console, transient=True) as bar:
+        task = bar.add_task("reading", total=None)
 
-            def progress(done: int, total: int, stage: str) -> None:
-                bar.update(task, completed=done, total=total, description=stage)
+        def progress(done: int, total: int, stage: str) -> None:
+            bar.update(task, completed=done, total=total, description=stage)
 
-            result = compare_study(study, config=config, progress=progress)
-    except NightbankError as exc:
-        _fail(exc)
+        result = compare_study(study, config=config, progress=progress)
     if as_json:
         console.print_json(json.dumps(result.to_dict()))
     else:

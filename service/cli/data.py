@@ -12,7 +12,10 @@ from rich.table import Table
 from models import InvalidNightError, NightOptions, quality_flags, read_night
 
 from . import app
+from ..errors import Incomplete
 from .console import FillGapsOption, JsonOption, TzOption, console
+
+__all__ = ["check", "night_summary"]
 
 
 def night_summary(night: Any) -> dict[str, Any]:
@@ -57,8 +60,8 @@ def check(
         console.print_json(json.dumps(results))
     else:
         _print_check(results)
-    if not all(r["valid"] for r in results):
-        raise typer.Exit(1)
+    if invalid := sum(not r["valid"] for r in results):
+        raise Incomplete(f"{invalid} of {len(results)} file(s) are invalid", code="invalid_files")
 
 
 def _missing(path: Path):

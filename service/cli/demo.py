@@ -19,13 +19,13 @@ import typer
 from rich import box
 from rich.table import Table
 
-from models import DEMO_STUDY_ID, NightbankError, read_night, write_demo_study
+from models import DEMO_STUDY_ID, read_night, write_demo_study
 
 from . import app
 from .console import console
 from .data import night_summary
 from .remote import push_folder, train_and_wait
-from .server import DbOption, fail, local_settings
+from .server import DbOption, local_settings
 
 __all__ = ["demo_files"]
 
@@ -185,8 +185,6 @@ def demo(
             console.print("Serving until Ctrl-C.")
             while server.thread.is_alive():
                 time.sleep(0.5)
-    except NightbankError as exc:
-        raise fail(exc) from None
     except KeyboardInterrupt:
         console.print("stopping")
     finally:

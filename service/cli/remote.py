@@ -14,8 +14,8 @@ from rich.table import Table
 from models import InvalidNightError, NightbankError
 
 from . import app
+from ..errors import Incomplete
 from .console import TzOption, console
-from .server import fail
 
 __all__ = ["NIGHT_SUFFIXES", "night_files", "progress_bar", "push_folder", "train_and_wait"]
 
@@ -99,7 +99,7 @@ def push(
     bad = [r for r in rows if r["status"] in ("invalid", "failed")]
     console.print(f"{len(rows) - len(bad)} of {len(rows)} nights stored")
     if bad:
-        raise typer.Exit(1)
+        raise Incomplete(f"{len(bad)} of {len(rows)} night(s) were not stored", code="nights_refused")
 
 
 def train_and_wait(client: Any, study: str, requests: list[tuple[str, str | None]], *, n_trials: int | None = None,
@@ -155,18 +155,15 @@ def train(
     from ..client import NightbankClient
 
     with NightbankClient(server, token=token) as client:
-        try:
-            if all_ or pooled:
-                jobs = train_and_wait(client, study, [("pooled", None)], n_trials=n_trials)
-            else:
-                jobs = {}
-            pids = list(participant or [])
-            if all_:
-                pids += [p["participant_id"] for p in client.list_participants(study) if p["n_labelled_nights"] >= 3]
-            if pids:
-                jobs |= train_and_wait(client, study, [(pid, pid) for pid in dict.fromkeys(pids)], n_trials=n_trials)
-        except NightbankError as exc:
-            raise fail(exc) from None
+        if all_ or pooled:
+            jobs = train_and_wait(client, study, [("pooled", None)], n_trials=n_trials)
+        else:
+            jobs = {}
+        pids = list(participant or [])
+        if all_:
+            pids += [p["participant_id"] for p in client.list_participants(study) if p["n_labelled_nights"] >= 3]
+        if pids:
+            jobs |= train_and_wait(client, study, [(pid, pid) for pid in dict.fromkeys(pids)], n_trials=n_trials)
     table = Table(title="Training")
     for col in ("model", "state", "version", "active", "error"):
         table.add_column(col)
@@ -175,8 +172,8 @@ def train(
         table.add_row(label, job["state"], str(result.get("model_version", "")), str(result.get("active", "")),
                       job.get("error") or "")
     console.print(table)
-    if any(j["state"] != "succeeded" for j in jobs.values()):
-        raise typer.Exit(1)
+    if failed := sum(j["state"] != "succeeded" for j in jobs.values()):
+        raise Incomplete(f"{failed} of {len(jobs)} training(s) did not succeed", code="trainings_failed")
 
 
 @app.command()
@@ -193,9 +190,6 @@ def export(
     if fmt not in ("csv", "parquet"):
         raise typer.BadParameter("choose csv or parquet", param_hint="--format")
     with NightbankClient(server, token=token) as client, console.status("computing the export"):
-        try:
-            data = client.export_parameters(study, fmt=fmt)
-        except NightbankError as exc:
-            raise fail(exc) from None
+        data = client.export_parameters(study, fmt=fmt)
     output.write_bytes(data)
     console.print(f"wrote {output} ({len(data)} bytes)")

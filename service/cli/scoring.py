@@ -15,8 +15,6 @@ from models import (
     EPOCH_METRIC_NAMES,
     METHOD_IDS,
     PARAMETER_NAMES,
-    InvalidNightError,
-    NightbankError,
     NightOptions,
     NightRecord,
     compare_rules_with_reference,
@@ -26,18 +24,13 @@ from models import (
 )
 
 from . import app
+from ..errors import Unprocessable
 from .console import FillGapsOption, JsonOption, TzOption, console, err_console
+
+__all__ = ["agree", "score"]
 
 MethodOption = Annotated[str, typer.Option("--method", "-m", help=f"One of: {', '.join(METHOD_IDS)}.")]
 ScaleOption = Annotated[float, typer.Option("--count-scale", help="Counts are multiplied by this before the rule.")]
-
-
-def _fail(exc: NightbankError) -> None:
-    err_console.print(f"[red]{exc.code}[/red]: {exc}")
-    if isinstance(exc, InvalidNightError):
-        for p in exc.problems:
-            err_console.print(f"  {p.code}: {p.message}")
-    raise typer.Exit(1)
 
 
 def _clean(value: Any) -> Any:
@@ -59,11 +52,8 @@ def score(
     as_json: JsonOption = False,
 ) -> None:
     """Score a night with a classical rule and print its sleep parameters (in-bed interval)."""
-    try:
-        night = read_night(file, participant_id=file.parent.name, options=NightOptions(tz=tz, fill_gaps=fill_gaps))
-        result = score_with_rule(night.counts, night.epoch_seconds, method, count_scale=count_scale)
-    except NightbankError as exc:
-        _fail(exc)
+    night = read_night(file, participant_id=file.parent.name, options=NightOptions(tz=tz, fill_gaps=fill_gaps))
+    result = score_with_rule(night.counts, night.epoch_seconds, method, count_scale=count_scale)
     first, stop = night.in_bed
     params = {k: _clean(v) for k, v in sleep_parameters(result.sleep, night.epoch_seconds, lights_off_idx=first,
                                                           lights_on_idx=stop).as_dict().items()}
@@ -97,19 +87,15 @@ def agree(
 ) -> None:
     """Compare every classical rule with the reference labels: epoch metrics and Bland-Altman."""
     records = []
-    try:
-        for path in track(files, description="reading", console=err_console, transient=True):
-            night = read_night(path, participant_id=path.parent.name, options=NightOptions(tz=tz))
-            if night.has_reference:
-                records.append(NightRecord.from_night(night, night_id=path.stem))
-            else:
-                err_console.print(f"[yellow]{path}: no reference labels, skipped[/yellow]")
-        if not records:
-            err_console.print("[red]no_reference[/red]: none of the files has reference labels")
-            raise typer.Exit(1)
-        comparison = compare_rules_with_reference(records, count_scale=count_scale)
-    except NightbankError as exc:
-        _fail(exc)
+    for path in track(files, description="reading", console=err_console, transient=True):
+        night = read_night(path, participant_id=path.parent.name, options=NightOptions(tz=tz))
+        if night.has_reference:
+            records.append(NightRecord.from_night(night, night_id=path.stem))
+        else:
+            err_console.print(f"[yellow]{path}: no reference labels, skipped[/yellow]")
+    if not records:
+        raise Unprocessable("none of the files has reference labels", code="no_reference")
+    comparison = compare_rules_with_reference(records, count_scale=count_scale)
     metrics = comparison.epoch_metrics
     if as_json:
         console.print_json(json.dumps({

@@ -2,18 +2,18 @@
 
 from __future__ import annotations
 
+import contextlib
 import logging.config
 import os
 from typing import Annotated, Any
 
 import typer
 
-from models import NightbankError
-
 from . import app
-from .console import console, err_console
+from ..errors import InvalidSettings
+from .console import console
 
-__all__ = ["DaskSchedulerOption", "DbOption", "ExecutorOption", "configure_logging", "fail", "local_settings"]
+__all__ = ["DaskSchedulerOption", "DbOption", "ExecutorOption", "configure_logging", "local_settings"]
 
 DbOption = Annotated[str | None, typer.Option("--db", help="Database URL (default NIGHTBANK_DB or "
                                                           "sqlite:///./var/nightbank.db).")]
@@ -25,16 +25,14 @@ DaskSchedulerOption = Annotated[str | None, typer.Option(
                              "NIGHTBANK_DASK_SCHEDULER).")]
 
 
-def fail(exc: NightbankError) -> typer.Exit:
-    """Print a typed error without traceback; the caller raises the returned exit (code 1)."""
-    err_console.print(f"[bold red]error[/bold red] ({exc.code}): {exc}")
-    return typer.Exit(1)
-
-
 def local_settings(**overrides: Any) -> Any:
     """Settings from the environment with the given command-line values on top (None = not given).
 
-    Invalid settings (an unknown executor, dask without a scheduler) exit with code 2 and the reason.
+    Raises
+    ------
+    InvalidSettings
+        With every reason, if the settings are invalid (an unknown executor, dask without a
+        scheduler); the command then exits with code 2.
     """
     from pydantic import ValidationError
 
@@ -44,8 +42,7 @@ def local_settings(**overrides: Any) -> Any:
         return Settings(**{k: v for k, v in overrides.items() if v is not None})
     except ValidationError as exc:
         reasons = "; ".join(f"{'.'.join(map(str, e['loc'])) or 'settings'}: {e['msg']}" for e in exc.errors())
-        err_console.print(f"[bold red]error[/bold red] (invalid_settings): {reasons}")
-        raise typer.Exit(2) from None
+        raise InvalidSettings(reasons) from None
 
 
 def log_config(level: str) -> dict[str, Any]:
@@ -102,6 +99,7 @@ def serve(
     from ..store.db import make_engine
     from ..store.schema import check_schema, upgrade
     from ..jobs.workers import settings_env, start_worker_processes, stop_worker_processes
+    from ..telemetry import multiprocess_folder
 
     settings = local_settings(host=host, port=port, db=db, workers=workers, job_workers=job_workers,
                               executor=executor, dask_scheduler=dask_scheduler)
@@ -110,8 +108,6 @@ def serve(
     engine = make_engine(settings)
     try:
         check_schema(engine)  # fail fast, with the fix in the message, before starting any process
-    except NightbankError as exc:
-        raise fail(exc) from None
     finally:
         engine.dispose()
     os.environ.update(settings_env(settings))  # the app factory and the workers read these
@@ -121,8 +117,10 @@ def serve(
                   f"worker(s), {settings.job_workers} training worker(s){_where(settings)}; database "
                   f"{_safe_url(settings.db)}")
     try:
-        uvicorn.run("service.app:app_from_env", factory=True, host=settings.host, port=settings.port,
-                    workers=settings.workers, access_log=False, log_config=log_config(settings.log_level))
+        # several HTTP workers share their metrics through a folder, so /metrics counts for all of them
+        with multiprocess_folder() if settings.workers > 1 else contextlib.nullcontext():
+            uvicorn.run("service.app:app_from_env", factory=True, host=settings.host, port=settings.port,
+                        workers=settings.workers, access_log=False, log_config=log_config(settings.log_level))
     finally:
         stop_worker_processes(processes)
 
@@ -143,10 +141,7 @@ def worker(db: DbOption = None, executor: ExecutorOption = None, dask_scheduler:
     settings = local_settings(db=db, executor=executor, dask_scheduler=dask_scheduler)
     configure_logging(settings.log_level)
     engine = make_engine(settings)
-    try:
-        check_schema(engine)
-    except NightbankError as exc:
-        raise fail(exc) from None
+    check_schema(engine)
     w = Worker(settings, factory=make_session_factory(engine))
     for sig in (signal.SIGTERM, signal.SIGINT):
         signal.signal(sig, lambda *_: w.stopping.set())

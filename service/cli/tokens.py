@@ -7,11 +7,9 @@ from typing import Annotated, Any
 import typer
 from rich.table import Table
 
-from models import NightbankError
-
 from . import app
 from .console import console
-from .server import DbOption, fail, local_settings
+from .server import DbOption, local_settings
 
 __all__ = ["token_app"]
 
@@ -41,11 +39,8 @@ def create(
     from ..store.db import session_scope
     from ..store.tokens import create_token
 
-    try:
-        with session_scope(_factory(db), write=True) as session:
-            info, token = create_token(session, role=role, study_id=study, label=label, actor="cli")
-    except NightbankError as exc:
-        raise fail(exc) from None
+    with session_scope(_factory(db), write=True) as session:
+        info, token = create_token(session, role=role, study_id=study, label=label, actor="cli")
     scope = f"study {info.study_id}" if info.study_id else "lab-wide"
     console.print(f"created {info.role} token {info.token_id} ({scope}); store it now, it is not shown again:")
     print(token)  # plain print: the token alone on the last line, easy to capture
@@ -57,11 +52,8 @@ def list_(study: StudyOption = None, db: DbOption = None) -> None:
     from ..store.db import session_scope
     from ..store.tokens import list_tokens
 
-    try:
-        with session_scope(_factory(db)) as session:
-            rows = list_tokens(session, study_id=study)
-    except NightbankError as exc:
-        raise fail(exc) from None
+    with session_scope(_factory(db)) as session:
+        rows = list_tokens(session, study_id=study)
     table = Table(title="Tokens")
     for col in ("token id", "role", "study", "label", "created", "revoked"):
         table.add_column(col)
@@ -78,9 +70,6 @@ def revoke(token_id: Annotated[str, typer.Argument(help="Token id (12 hex digits
     from ..store.db import session_scope
     from ..store.tokens import revoke_token
 
-    try:
-        with session_scope(_factory(db), write=True) as session:
-            revoke_token(session, token_id, actor="cli")
-    except NightbankError as exc:
-        raise fail(exc) from None
+    with session_scope(_factory(db), write=True) as session:
+        revoke_token(session, token_id, actor="cli")
     console.print(f"token {token_id} revoked")

@@ -29,8 +29,10 @@ from ..store.codec import encode_held_out
 from ..config import Settings
 from ..errors import Conflict, NotFound, Unprocessable
 from ..store.db import session_scope
+from ..store.metadata import HeldOutFigures, MetricSummary, ModelMetadata, Selection, TrainingNight
 from .queue import JobInfo, enqueue_job
-from ..store.registry import find_participant, find_study, load_nights
+from ..store.registry import (ParticipantInfo, StudyInfo, find_participant, find_study, load_nights, record_choice,
+                              study_participants)
 
 __all__ = ["Compute", "check_trainable", "compute_here", "queue_training", "refresh_choices", "run_training_job"]
 
@@ -64,7 +66,7 @@ def _config(job: JobInfo, settings: Settings) -> TrainingConfig:
                           seed=int(job.params.get("seed", 0)), n_jobs=settings.training_threads)
 
 
-def check_trainable(session: Session, *, participant: db.Participant) -> None:
+def check_trainable(session: Session, *, participant: ParticipantInfo) -> None:
     """Refuse a personal training that cannot succeed (too few labelled nights).
 
     Raises
@@ -114,13 +116,13 @@ def _finite(value: Any) -> float | None:
     return value if math.isfinite(value) else None
 
 
-def _summary(table: pd.DataFrame) -> dict[str, Any]:
-    """JSON form of a models summary table (index: metric; columns ``mean``, ``sd``, ``n_nights``)."""
-    out: dict[str, Any] = {"n_nights": int(table["n_nights"].max()) if len(table) else 0}
+def _summary(table: pd.DataFrame) -> HeldOutFigures:
+    """Held-out figures of a models summary table (index: metric; columns ``mean``, ``sd``, ``n_nights``)."""
+    by_metric = {}
     for name in EPOCH_METRIC_NAMES:
         row = table.loc[name] if name in table.index else {"mean": None, "sd": None}
-        out[name] = {"mean": _finite(row["mean"]), "sd": _finite(row["sd"])}
-    return out
+        by_metric[name] = MetricSummary(mean=_finite(row["mean"]), sd=_finite(row["sd"]))
+    return HeldOutFigures(n_nights=int(table["n_nights"].max()) if len(table) else 0, by_metric=by_metric)
 
 
 def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
@@ -128,25 +130,27 @@ def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
             for row in frame.to_dict(orient="records")]
 
 
-def _night_refs(nights: Sequence[Night], hashes: Sequence[str]) -> list[dict[str, Any]]:
+def _night_refs(nights: Sequence[Night], hashes: Sequence[str]) -> tuple[TrainingNight, ...]:
     wanted = set(hashes)
-    return [{"participant_id": n.participant_id, "night_id": n.content_hash[:20], "content_hash": n.content_hash,
-             "label": n.label} for n in nights if n.content_hash in wanted]
+    return tuple(TrainingNight(participant_id=n.participant_id, night_id=n.content_hash[:20],
+                               content_hash=n.content_hash, label=n.label) for n in nights if n.content_hash in wanted)
 
 
-def _base_info(model: Any, nights: Sequence[Night], config: TrainingConfig, metrics: dict[str, Any]) -> dict[str, Any]:
-    return {
-        "metrics": metrics,
-        "selection": {"metric": versions.SELECTION_METRIC, "value": metrics[versions.SELECTION_METRIC]["mean"]},
-        "training_nights": _night_refs(nights, model.training_nights_),
-        "training_hashes": list(model.training_nights_),
-        "feature_set_version": model.feature_version_,
-        "hyperparameters": dict(model.params_),
-        "threshold": float(model.threshold_),
-        "library_versions": dict(model.info_.get("libraries", {})),
-        "config": {k: v for k, v in config.to_dict().items() if k in ("n_trials", "seed", "min_personal_nights",
-                                                                       "choice_policy", "movement_time")},
-    }
+def _metadata(model: Any, nights: Sequence[Night], config: TrainingConfig, metrics: HeldOutFigures,
+              **pooled: Any) -> ModelMetadata:
+    return ModelMetadata(
+        metrics=metrics,
+        selection=Selection(metric=versions.SELECTION_METRIC, value=metrics.mean(versions.SELECTION_METRIC)),
+        training_nights=_night_refs(nights, model.training_nights_),
+        training_hashes=tuple(model.training_nights_),
+        feature_set_version=model.feature_version_,
+        hyperparameters=dict(model.params_),
+        threshold=float(model.threshold_),
+        library_versions=dict(model.info_.get("libraries", {})),
+        config={k: v for k, v in config.to_dict().items() if k in ("n_trials", "seed", "min_personal_nights",
+                                                                    "choice_policy", "movement_time")},
+        **pooled,
+    )
 
 
 def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
@@ -160,18 +164,17 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
     progress(0, 1, "personal: loading nights")
     result = compute(train_personal, {"nights": nights, "config": config}, progress)
     booster, meta = result.model.to_bytes()
-    info = _base_info(result.model, nights, config, _summary(result.summary))
-    info["night_metrics"] = _records(result.night_metrics)
-    info["offset"] = None
+    metadata = _metadata(result.model, nights, config, _summary(result.summary),
+                         night_metrics=tuple(_records(result.night_metrics)))
     with db.session_scope(factory, write=True) as session:
         _check_claim(session, job)
         study = find_study(session, job.study_id)
         participant = find_participant(session, study, job.participant_id)
         version = versions.add_version(session, study=study, participant=participant, booster=booster,
-                                       model_meta=meta, info=info, job_id=job.job_id, actor=_actor(session, job),
-                                       held_out=encode_held_out(result.outer))
+                                       model_meta=meta, metadata=metadata, job_id=job.job_id,
+                                       actor=_actor(session, job), held_out=encode_held_out(result.outer))
         refresh_choices(session, study=study, participants=[participant], policy=config.choice_policy)
-        chosen = participant.chosen_method
+        chosen = find_participant(session, study, job.participant_id).chosen_method
     return {"model_version": version.version, "active": version.active, "chosen_method": chosen}
 
 
@@ -180,23 +183,21 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
     config = _config(job, settings)
     with db.session_scope(factory) as session:
         study = find_study(session, job.study_id)
-        by_participant = {p.participant_id: load_nights(session, participant=p) for p in session.scalars(
-            select(db.Participant).where(db.Participant.study_pk == study.pk).order_by(db.Participant.participant_id))}
+        by_participant = {p.participant_id: load_nights(session, participant=p)
+                          for p in study_participants(session, study=study)}
     progress(0, 1, "pooled: loading nights")
     result = compute(train_pooled, {"nights": by_participant, "config": config}, progress)
     booster, meta = result.model.to_bytes()
     all_nights = [n for nights in by_participant.values() for n in nights]
     held = result.night_metrics
     by_method = set(result.summary.index.get_level_values(0))
-    info = _base_info(result.model, all_nights, config, _summary(result.summary.loc["pooled"]))
-    if "pooled+offset" in by_method:
-        info["metrics_with_offset"] = _summary(result.summary.loc["pooled+offset"])
-    info["participants"] = sorted({n["participant_id"] for n in info["training_nights"]})
-    info["offsets"] = {pid: float(v) for pid, v in result.offsets.items()}
-    info["offset_shrinkage"] = float(result.shrinkage)
-    info["descriptors"] = {pid: {k: _finite(v) for k, v in d.items()} for pid, d in result.descriptors.items()}
-    info["offset"] = None
-    info["night_metrics"] = _records(held)
+    metadata = _metadata(
+        result.model, all_nights, config, _summary(result.summary.loc["pooled"]),
+        metrics_with_offset=_summary(result.summary.loc["pooled+offset"]) if "pooled+offset" in by_method else None,
+        participants=tuple(sorted({n.participant_id for n in _night_refs(all_nights, result.model.training_nights_)})),
+        offsets={pid: float(v) for pid, v in result.offsets.items()}, offset_shrinkage=float(result.shrinkage),
+        descriptors={pid: {k: _finite(v) for k, v in d.items()} for pid, d in result.descriptors.items()},
+        night_metrics=tuple(_records(held)))
     held_out = [h for rows in result.held_out.values() for h in rows]
     held_out += [h for rows in result.offset_held_out.values() for h in rows]
     with db.session_scope(factory, write=True) as session:
@@ -204,26 +205,26 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
         study = find_study(session, job.study_id)
         present = set(session.scalars(select(db.Participant.participant_id).where(
             db.Participant.study_pk == study.pk)))
-        if missing := set(info["participants"]) - present:
+        if missing := set(metadata.participants) - present:
             raise NotFound(f"{len(missing)} participant(s) were withdrawn while the pooled model trained; train "
                            "it again", code="participant_withdrawn")
         version = versions.add_version(session, study=study, participant=None, booster=booster, model_meta=meta,
-                                       info=info, job_id=job.job_id, actor=_actor(session, job),
+                                       metadata=metadata, job_id=job.job_id, actor=_actor(session, job),
                                        held_out=encode_held_out(held_out))
         refresh_choices(session, study=study, policy=config.choice_policy)
     return {"model_version": version.version, "active": version.active}
 
 
-def _metrics_frame(records: list[dict[str, Any]]) -> pd.DataFrame:
+def _metrics_frame(records: Sequence[dict[str, Any]]) -> pd.DataFrame:
     """Stored night-metric records as a frame with numeric metric columns (None -> NaN)."""
-    frame = pd.DataFrame(records)
+    frame = pd.DataFrame(list(records))
     for name in EPOCH_METRIC_NAMES:
         if name in frame:
             frame[name] = pd.to_numeric(frame[name])
     return frame
 
 
-def refresh_choices(session: Session, *, study: db.Study, participants: Sequence[db.Participant] | None = None,
+def refresh_choices(session: Session, *, study: StudyInfo, participants: Sequence[ParticipantInfo] | None = None,
                     policy: str | None = None) -> None:
     """Re-decide personal versus pooled for participants from the active versions' held-out figures.
 
@@ -232,20 +233,20 @@ def refresh_choices(session: Session, *, study: db.Study, participants: Sequence
     """
     policy = policy or TrainingConfig().choice_policy
     pooled = versions.active_version(session, study=study, participant=None)
-    pooled_rows = _metrics_frame(pooled.info.get("night_metrics", []) if pooled is not None else [])
+    pooled_rows = _metrics_frame(pooled.metadata.night_metrics if pooled is not None else [])
     if participants is None:
-        participants = list(session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)))
+        participants = study_participants(session, study=study)
     for participant in participants:
         personal = versions.active_version(session, study=study, participant=participant)
         if personal is None:
-            participant.chosen_method, participant.choice = None, None
+            record_choice(session, participant=participant, method=None, choice=None)
             continue
         mine = pooled_rows[pooled_rows["participant_id"] == participant.participant_id] if len(pooled_rows) else None
-        table = pd.concat([_metrics_frame(personal.info.get("night_metrics", [])), mine])
+        table = pd.concat([_metrics_frame(personal.metadata.night_metrics), mine])
         method, reason = choose_method(table, policy=policy)
-        participant.chosen_method = method
-        participant.choice = {"method": method, "reason": reason, "personal_version": personal.version,
-                              "pooled_version": None if pooled is None else pooled.version, "policy": policy}
+        record_choice(session, participant=participant, method=method,
+                      choice={"method": method, "reason": reason, "personal_version": personal.version,
+                              "pooled_version": None if pooled is None else pooled.version, "policy": policy})
 
 
 def _actor(session: Session, job: JobInfo) -> str:

@@ -16,10 +16,10 @@ import hashlib
 import io
 import json
 import threading
-from collections import OrderedDict
 from typing import Any
 
 import pandas as pd
+from cachetools import LRUCache
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -41,7 +41,7 @@ from models import (
 
 from ..store import db, versions
 from ..store.codec import night_from_row
-from ..store.registry import find_participant, find_study, load_nights
+from ..store.registry import StudyInfo, find_participant, find_study, load_nights, study_participants
 from .scoring import score_night
 
 __all__ = ["EXPORT_METHODS", "export_parameters", "participant_comparison", "study_comparison"]
@@ -60,8 +60,7 @@ def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str
         study = find_study(session, study_id)
         pooled = versions.active_version(session, study=study, participant=None)
         targets = []
-        for participant in session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)
-                                           .order_by(db.Participant.participant_id)):
+        for participant in study_participants(session, study=study):
             personal = versions.active_version(session, study=study, participant=participant)
             for row in session.scalars(select(db.Night).where(db.Night.participant_pk == participant.pk)
                                        .order_by(db.Night.start_utc)):
@@ -94,14 +93,14 @@ def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str
     return buffer.getvalue()
 
 
-def _held_out(session: Session, study: db.Study) -> tuple[dict[str, dict[str, dict[str, HeldOutNight]]],
+def _held_out(session: Session, study: StudyInfo) -> tuple[dict[str, dict[str, dict[str, HeldOutNight]]],
                                                           dict[str, int | None]]:
     """Held-out predictions of the active versions: participant -> night hash -> method -> night."""
     out: dict[str, dict[str, dict[str, HeldOutNight]]] = {}
     pooled = versions.active_version(session, study=study, participant=None)
     used: dict[str, int | None] = {"pooled": None if pooled is None else pooled.version}
     found = [] if pooled is None else versions.load_held_out(session, pooled)
-    for participant in session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)):
+    for participant in study_participants(session, study=study):
         personal = versions.active_version(session, study=study, participant=participant)
         if personal is not None:
             used[f"personal:{participant.participant_id}"] = personal.version
@@ -111,7 +110,7 @@ def _held_out(session: Session, study: db.Study) -> tuple[dict[str, dict[str, di
     return out, used
 
 
-def _fingerprint(session: Session, study: db.Study, participant_id: str | None) -> str:
+def _fingerprint(session: Session, study: StudyInfo, participant_id: str | None) -> str:
     """Changes whenever the nights or the active versions behind a comparison change."""
     query = (select(db.Participant.participant_id, db.Night.content_hash)
              .join(db.Night, db.Night.participant_pk == db.Participant.pk)
@@ -174,8 +173,7 @@ def _assemble(nights: dict[str, list[Night]], held_out: dict[str, dict[str, dict
 def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str | None) -> dict[str, Any]:
     with db.session_scope(factory) as session:
         study = find_study(session, study_id)
-        participants = list(session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)
-                                            .order_by(db.Participant.participant_id)))
+        participants = study_participants(session, study=study)
         if participant_id is not None:
             participants = [find_participant(session, study, participant_id)]
         key = _fingerprint(session, study, participant_id)
@@ -203,12 +201,10 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
     }
     with _CACHE_LOCK:
         _CACHE[key] = result
-        while len(_CACHE) > 64:
-            _CACHE.popitem(last=False)
     return result
 
 
-_CACHE: OrderedDict[str, dict[str, Any]] = OrderedDict()
+_CACHE: LRUCache[str, dict[str, Any]] = LRUCache(maxsize=64)
 _CACHE_LOCK = threading.Lock()
 
 

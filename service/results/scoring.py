@@ -25,11 +25,11 @@ import hashlib
 import json
 import threading
 import zlib
-from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from cachetools import LRUCache
 from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
@@ -97,7 +97,7 @@ def resolve_method(session: Session, *, study: db.Study, participant: db.Partici
     return _Resolved(method, found)
 
 
-_DESCRIPTORS: OrderedDict[tuple[int, str], dict[str, float]] = OrderedDict()
+_DESCRIPTORS: LRUCache[tuple[int, str], dict[str, float]] = LRUCache(maxsize=1024)
 _DESCRIPTORS_LOCK = threading.Lock()
 
 
@@ -112,8 +112,6 @@ def _descriptors(session: Session, participant: db.Participant) -> dict[str, flo
     found = participant_descriptors([night_from_row(r, participant_id=participant.participant_id) for r in rows])
     with _DESCRIPTORS_LOCK:
         _DESCRIPTORS[key] = found
-        while len(_DESCRIPTORS) > 1024:
-            _DESCRIPTORS.popitem(last=False)
     return found
 
 
@@ -214,9 +212,9 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         else:
             model = versions.load_model(session, resolved.version)
             if resolved.method == "pooled+offset":
-                offset = float(resolved.version.info.get("offsets", {}).get(participant_id, 0.0))
+                offset = resolved.version.metadata.offset_of(participant_id)
             if model.descriptor_names_:  # as in training for participants it saw, else from all current nights
-                descriptors = (resolved.version.info.get("descriptors", {}).get(participant_id)
+                descriptors = (resolved.version.metadata.descriptors.get(participant_id)
                                or _descriptors(session, participant))
             inputs = json.dumps([resolved.method, offset, descriptors], sort_keys=True)
             key = f"m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"

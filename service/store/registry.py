@@ -1,22 +1,25 @@
 """Studies, participants and nights in the database; every function returns frozen snapshots.
 
-Functions take the session keyword-only (``session=``) and never return ORM rows, so callers
-cannot change stored state by accident. Writes add an audit entry in the same transaction.
+Functions never return ORM rows, so callers cannot change stored state by accident: a change is
+a function of this package (:func:`record_choice`, :func:`delete_participant`, ...). Snapshots
+carry the database key ``pk`` for the other store functions. Writes add an audit entry in the
+same transaction.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import re
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import delete, func, select
+from sqlalchemy import delete, func, select, update
 from sqlalchemy.orm import Session
 
 from models import Night, quality_flags
 
-from . import db
+from . import db, versions
 from .audit import record_audit
 from .codec import night_columns, night_from_row
 from ..errors import BadRequest, Conflict, NotFound
@@ -25,6 +28,7 @@ __all__ = [
     "ID_PATTERN",
     "NightInfo",
     "ParticipantInfo",
+    "ParticipantSummary",
     "StudyInfo",
     "create_study",
     "delete_participant",
@@ -38,6 +42,8 @@ __all__ = [
     "load_night",
     "load_nights",
     "night_values",
+    "record_choice",
+    "study_participants",
 ]
 
 #: Study and participant ids: letters, digits, ``.``, ``_`` and ``-``; 1 to 64 characters.
@@ -47,24 +53,41 @@ _ID = re.compile(ID_PATTERN)
 
 @dataclass(frozen=True)
 class StudyInfo:
+    """A study; ``pk`` is its database key."""
+
     study_id: str
     name: str
     created_at: datetime
+    pk: int
 
 
 @dataclass(frozen=True)
 class ParticipantInfo:
+    """A participant and the method their nights are scored with.
+
+    ``chosen_method`` is ``personal`` or ``pooled`` once a personal model was trained and
+    compared with the pooled one (None before); ``choice`` records why (``method``, ``reason``,
+    the versions compared, ``policy``). ``pk`` is the participant's database key.
+    """
+
+    participant_id: str
+    study_id: str
+    created_at: datetime
+    chosen_method: str | None
+    choice: dict[str, Any] | None
+    pk: int
+
+
+@dataclass(frozen=True)
+class ParticipantSummary(ParticipantInfo):
     """A participant with the facts a lab needs to decide on (re)training.
 
     ``untrained_labelled_nights`` counts labelled nights that the active personal model was not
     trained on (all labelled nights without a personal model): a retrain would use them.
     """
 
-    participant_id: str
-    created_at: datetime
     n_nights: int
     n_labelled_nights: int
-    chosen_method: str | None
     active_personal_version: int | None
     untrained_labelled_nights: int
 
@@ -99,8 +122,18 @@ def _night_info(row: db.Night, participant_id: str) -> NightInfo:
                      source_format=row.source_format, created_at=row.created_at)
 
 
-def find_study(session: Session, study_id: str) -> db.Study:
-    """The study row (for other service modules).
+def _study_info(row: db.Study) -> StudyInfo:
+    return StudyInfo(study_id=row.study_id, name=row.name, created_at=row.created_at, pk=row.pk)
+
+
+def _participant_info(row: db.Participant, study_id: str) -> ParticipantInfo:
+    return ParticipantInfo(participant_id=row.participant_id, study_id=study_id, created_at=row.created_at,
+                           chosen_method=row.chosen_method, choice=None if row.choice is None else dict(row.choice),
+                           pk=row.pk)
+
+
+def find_study(session: Session, study_id: str) -> StudyInfo:
+    """One study.
 
     Raises
     ------
@@ -110,11 +143,11 @@ def find_study(session: Session, study_id: str) -> db.Study:
     row = session.scalar(select(db.Study).where(db.Study.study_id == study_id))
     if row is None:
         raise NotFound(f"no study {study_id!r}")
-    return row
+    return _study_info(row)
 
 
-def find_participant(session: Session, study: db.Study, participant_id: str) -> db.Participant:
-    """The participant row of ``study``.
+def find_participant(session: Session, study: StudyInfo, participant_id: str) -> ParticipantInfo:
+    """One participant of ``study``.
 
     Raises
     ------
@@ -125,7 +158,22 @@ def find_participant(session: Session, study: db.Study, participant_id: str) -> 
                                                       db.Participant.participant_id == participant_id))
     if row is None:
         raise NotFound(f"no participant {participant_id!r} in study {study.study_id!r}")
-    return row
+    return _participant_info(row, study.study_id)
+
+
+def study_participants(session: Session, *, study: StudyInfo) -> list[ParticipantInfo]:
+    """Every participant of ``study``, ordered by id."""
+    rows = session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)
+                           .order_by(db.Participant.participant_id))
+    return [_participant_info(row, study.study_id) for row in rows]
+
+
+def record_choice(session: Session, *, participant: ParticipantInfo, method: str | None,
+                  choice: dict[str, Any] | None) -> ParticipantInfo:
+    """Store the method a participant's nights are scored with, and why; returns the new snapshot."""
+    session.execute(update(db.Participant).where(db.Participant.pk == participant.pk)
+                    .values(chosen_method=method, choice=choice))
+    return dataclasses.replace(participant, chosen_method=method, choice=None if choice is None else dict(choice))
 
 
 def create_study(session: Session, *, study_id: str, name: str, actor: str) -> StudyInfo:
@@ -145,7 +193,7 @@ def create_study(session: Session, *, study_id: str, name: str, actor: str) -> S
     session.add(row)
     record_audit(session, actor=actor, action="study.create", study_id=study_id, subject=study_id)
     session.flush()
-    return StudyInfo(study_id=row.study_id, name=row.name, created_at=row.created_at)
+    return _study_info(row)
 
 
 def list_studies(session: Session, *, study_id: str | None = None) -> list[StudyInfo]:
@@ -153,11 +201,11 @@ def list_studies(session: Session, *, study_id: str | None = None) -> list[Study
     query = select(db.Study).order_by(db.Study.study_id)
     if study_id is not None:
         query = query.where(db.Study.study_id == study_id)
-    return [StudyInfo(study_id=s.study_id, name=s.name, created_at=s.created_at) for s in session.scalars(query)]
+    return [_study_info(s) for s in session.scalars(query)]
 
 
 def list_participants(session: Session, *, study_id: str, limit: int = 100,
-                      offset: int = 0) -> tuple[list[ParticipantInfo], int]:
+                      offset: int = 0) -> tuple[list[ParticipantSummary], int]:
     """One page of the study's participants (ordered by id) and the total count."""
     study = find_study(session, study_id)
     total = session.scalar(select(func.count()).select_from(db.Participant)
@@ -166,21 +214,19 @@ def list_participants(session: Session, *, study_id: str, limit: int = 100,
                                 .order_by(db.Participant.participant_id).limit(limit).offset(offset)))
     pks = [p.pk for p in rows]
     nights: dict[int, list[tuple[str, bool]]] = {pk: [] for pk in pks}
-    for pk, content_hash, labelled in session.execute(
+    for pk, content_hash, has_labels in session.execute(
             select(db.Night.participant_pk, db.Night.content_hash, db.Night.labelled)
             .where(db.Night.participant_pk.in_(pks))):
-        nights[pk].append((content_hash, labelled))
-    active = {pk: (version, info) for pk, version, info in session.execute(
-        select(db.ModelVersion.participant_pk, db.ModelVersion.version, db.ModelVersion.info)
-        .where(db.ModelVersion.participant_pk.in_(pks), db.ModelVersion.is_active))}
+        nights[pk].append((content_hash, has_labels))
+    active = versions.active_personal_versions(session, participant_pks=pks)
     out = []
     for p in rows:
         labelled = {h for h, is_labelled in nights[p.pk] if is_labelled}
-        version, info = active.get(p.pk, (None, {}))
-        trained = set(info.get("training_hashes", []))
-        out.append(ParticipantInfo(
-            participant_id=p.participant_id, created_at=p.created_at, n_nights=len(nights[p.pk]),
-            n_labelled_nights=len(labelled), chosen_method=p.chosen_method, active_personal_version=version,
+        version = active.get(p.pk)
+        trained = set() if version is None else set(version.metadata.training_hashes)
+        out.append(ParticipantSummary(
+            **vars(_participant_info(p, study_id)), n_nights=len(nights[p.pk]), n_labelled_nights=len(labelled),
+            active_personal_version=None if version is None else version.version,
             untrained_labelled_nights=len(labelled - trained)))
     return out, int(total)
 
@@ -274,7 +320,7 @@ def load_night(session: Session, *, study_id: str, participant_id: str, night_id
     return _night_info(row, participant_id), night_from_row(row, participant_id=participant_id)
 
 
-def load_nights(session: Session, *, participant: db.Participant, labelled_only: bool = False) -> list[Night]:
+def load_nights(session: Session, *, participant: ParticipantInfo, labelled_only: bool = False) -> list[Night]:
     """A participant's nights in start order (only the labelled ones on request)."""
     query = select(db.Night).where(db.Night.participant_pk == participant.pk).order_by(db.Night.start_utc)
     if labelled_only:
@@ -297,9 +343,8 @@ def delete_participant(session: Session, *, study_id: str, participant_id: str, 
     study = find_study(session, study_id)
     participant = find_participant(session, study, participant_id)
     night_pks = select(db.Night.pk).where(db.Night.participant_pk == participant.pk)
-    pooled = [v for v in session.scalars(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
-                                                                       db.ModelVersion.scope == "pooled"))
-              if participant_id in v.info.get("participants", [])]
+    pooled = [v for v in versions.list_versions(session, study=study, participant=None)
+              if participant_id in v.metadata.participants]
     removed = {
         "nights": session.scalar(select(func.count()).select_from(db.Night)
                                  .where(db.Night.participant_pk == participant.pk)) or 0,

@@ -22,11 +22,11 @@ import hashlib
 import hmac
 import secrets
 import threading
-import time
 from dataclasses import dataclass
 from datetime import datetime
 from enum import IntEnum
 
+from cachetools import TTLCache
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
@@ -187,30 +187,25 @@ class TokenCache:
     """Verified tokens remembered for ``ttl_s`` seconds (keyed by their SHA-256, never the text).
 
     Saves a database lookup per request; a revoked token stops working within ``ttl_s``.
-    ``ttl_s=0`` disables the cache.
+    ``ttl_s=0`` disables the cache. Past ``max_entries`` tokens the least recently used goes.
     """
 
     def __init__(self, ttl_s: float, *, max_entries: int = 4096) -> None:
         self.ttl_s = ttl_s
-        self.max_entries = max_entries
-        self._entries: dict[bytes, tuple[float, Principal]] = {}
+        self._entries: TTLCache[bytes, Principal] | None = (
+            TTLCache(maxsize=max_entries, ttl=ttl_s) if ttl_s > 0 else None)
         self._lock = threading.Lock()
 
     def get(self, token: str) -> Principal | None:
-        if self.ttl_s <= 0:
+        """The principal of a token verified less than ``ttl_s`` seconds ago, else None."""
+        if self._entries is None:
             return None
-        key = hashlib.sha256(token.encode()).digest()
         with self._lock:
-            hit = self._entries.get(key)
-        if hit is None or hit[0] < time.monotonic():
-            return None
-        return hit[1]
+            return self._entries.get(hashlib.sha256(token.encode()).digest())
 
     def put(self, token: str, principal: Principal) -> None:
-        if self.ttl_s <= 0:
+        """Remember a verified token."""
+        if self._entries is None:
             return
-        key = hashlib.sha256(token.encode()).digest()
         with self._lock:
-            if len(self._entries) >= self.max_entries:
-                self._entries.clear()
-            self._entries[key] = (time.monotonic() + self.ttl_s, principal)
+            self._entries[hashlib.sha256(token.encode()).digest()] = principal

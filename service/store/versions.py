@@ -2,8 +2,9 @@
 
 Versions are numbered per participant (personal) and per study (pooled), from 1, and never
 change once stored. Each holds the model bytes (XGBoost UBJSON plus JSON metadata; no pickle)
-and an ``info`` record: training nights with their hashes, feature-set version, hyperparameters,
-threshold, offsets, held-out validation figures, library versions and the job that made it.
+and its metadata (:class:`~service.store.metadata.ModelMetadata`): training nights with their
+hashes, feature-set version, hyperparameters, threshold, offsets, held-out validation figures and
+library versions; the version row also names the job that made it.
 
 Promotion rule: a new version becomes active only if its held-out balanced accuracy is not worse
 than the active version's (or no version is active); otherwise it is kept as a candidate, which
@@ -15,11 +16,11 @@ from __future__ import annotations
 import math
 import threading
 import uuid
-from collections import OrderedDict
 from dataclasses import dataclass
 from datetime import datetime
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
+from cachetools import LRUCache, cached
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
@@ -28,10 +29,14 @@ from models import HeldOutNight, SleepModel
 from . import db
 from .audit import record_audit
 from .codec import decode_held_out
+from .metadata import ModelMetadata
 from ..errors import NotFound
 
-__all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_version", "add_version",
-           "get_version", "list_versions", "load_held_out", "load_model", "scope_of"]
+if TYPE_CHECKING:
+    from .registry import ParticipantInfo, StudyInfo
+
+__all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_personal_versions",
+           "active_version", "add_version", "get_version", "list_versions", "load_held_out", "load_model", "scope_of"]
 
 POOLED_SCOPE = "pooled"
 #: Held-out metric that decides promotion ("higher is better").
@@ -40,7 +45,7 @@ SELECTION_METRIC = "balanced_accuracy"
 
 @dataclass(frozen=True)
 class VersionInfo:
-    """Snapshot of a stored model version (without its bytes); ``info`` is shared: read it only."""
+    """Snapshot of a stored model version (without its bytes); ``metadata`` is shared: read it only."""
 
     pk: int
     uid: str
@@ -49,7 +54,7 @@ class VersionInfo:
     active: bool
     created_at: datetime
     job_id: str | None
-    info: dict[str, Any]
+    metadata: ModelMetadata
 
     @property
     def status(self) -> str:
@@ -57,31 +62,23 @@ class VersionInfo:
 
     @property
     def selection_score(self) -> float | None:
-        value = self.info.get("selection", {}).get("value")
-        return None if value is None else float(value)
+        return self.metadata.selection_score
 
 
-def scope_of(participant: db.Participant | None) -> str:
+def scope_of(participant: ParticipantInfo | None) -> str:
     """Numbering scope: ``participant:<pk>`` or ``pooled``."""
     return POOLED_SCOPE if participant is None else f"participant:{participant.pk}"
 
 
-_INFO: OrderedDict[str, dict[str, Any]] = OrderedDict()
-_INFO_LOCK = threading.Lock()
+@cached(LRUCache(maxsize=256), key=lambda row: row.uid, lock=threading.Lock())
+def _metadata(row: db.ModelVersion) -> ModelMetadata:
+    """A version's metadata, read once per process (it is immutable like the version)."""
+    return ModelMetadata.from_json(row.info)  # loads the deferred column
 
 
 def _info(row: db.ModelVersion) -> VersionInfo:
-    """Snapshot of a row; ``info`` (immutable like the version) is parsed once per process."""
-    with _INFO_LOCK:
-        info = _INFO.get(row.uid)
-    if info is None:
-        info = dict(row.info)  # loads the deferred column
-        with _INFO_LOCK:
-            _INFO[row.uid] = info
-            while len(_INFO) > 256:
-                _INFO.popitem(last=False)
     return VersionInfo(pk=row.pk, uid=row.uid, kind=row.kind, version=row.version, active=row.is_active,
-                       created_at=row.created_at, job_id=row.job_id, info=info)
+                       created_at=row.created_at, job_id=row.job_id, metadata=_metadata(row))
 
 
 def _not_worse(new: float | None, old: float | None) -> bool:
@@ -90,23 +87,23 @@ def _not_worse(new: float | None, old: float | None) -> bool:
     return new is not None and not math.isnan(new) and new >= old
 
 
-def add_version(session: Session, *, study: db.Study, participant: db.Participant | None, booster: bytes,
-                model_meta: dict[str, Any], info: dict[str, Any], job_id: str | None, actor: str,
+def add_version(session: Session, *, study: StudyInfo, participant: ParticipantInfo | None, booster: bytes,
+                model_meta: dict[str, Any], metadata: ModelMetadata, job_id: str | None, actor: str,
                 held_out: bytes | None = None) -> VersionInfo:
     """Store a new version and apply the promotion rule.
 
     Parameters
     ----------
-    study : db.Study
-    participant : db.Participant or None
+    study : StudyInfo
+    participant : ParticipantInfo or None
         Owner of a personal model; None for the study's pooled model.
     booster : bytes
         XGBoost UBJSON bytes.
     model_meta : dict
         Metadata from :meth:`models.SleepModel.to_bytes`.
-    info : dict
-        Registry record; ``info["selection"]["value"]`` is the held-out balanced accuracy used by
-        the promotion rule.
+    metadata : ModelMetadata
+        Registry record; ``metadata.selection.value`` (the held-out balanced accuracy) is what the
+        promotion rule compares.
     job_id : str or None
         Training job that produced the version.
     actor : str
@@ -124,17 +121,15 @@ def add_version(session: Session, *, study: db.Study, participant: db.Participan
         db.ModelVersion.study_pk == study.pk, db.ModelVersion.scope == scope)) or 0) + 1
     current = session.scalar(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
                                                            db.ModelVersion.scope == scope, db.ModelVersion.is_active))
-    new_score = info.get("selection", {}).get("value")
-    old_score = None if current is None else current.info.get("selection", {}).get("value")
-    promote = _not_worse(new_score, old_score)
+    promote = _not_worse(metadata.selection_score, None if current is None else _metadata(current).selection_score)
     if promote and current is not None:
         current.is_active = False
         session.flush()
     row = db.ModelVersion(uid=uuid.uuid4().hex, study_pk=study.pk,
                           participant_pk=None if participant is None else participant.pk, scope=scope,
                           kind="pooled" if participant is None else "personal", version=number, is_active=promote,
-                          booster=booster, model_meta=model_meta, info=info, held_out=held_out, job_id=job_id,
-                          created_at=db.utcnow())
+                          booster=booster, model_meta=model_meta, info=metadata.to_json(), held_out=held_out,
+                          job_id=job_id, created_at=db.utcnow())
     session.add(row)
     session.flush()
     subject = POOLED_SCOPE if participant is None else participant.participant_id
@@ -144,7 +139,7 @@ def add_version(session: Session, *, study: db.Study, participant: db.Participan
     return _info(row)
 
 
-def list_versions(session: Session, *, study: db.Study, participant: db.Participant | None) -> list[VersionInfo]:
+def list_versions(session: Session, *, study: StudyInfo, participant: ParticipantInfo | None) -> list[VersionInfo]:
     """Every version of the scope, newest first."""
     rows = session.scalars(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
                                                          db.ModelVersion.scope == scope_of(participant))
@@ -152,7 +147,7 @@ def list_versions(session: Session, *, study: db.Study, participant: db.Particip
     return [_info(r) for r in rows]
 
 
-def get_version(session: Session, *, study: db.Study, participant: db.Participant | None,
+def get_version(session: Session, *, study: StudyInfo, participant: ParticipantInfo | None,
                 version: int) -> VersionInfo:
     """One version.
 
@@ -169,7 +164,7 @@ def get_version(session: Session, *, study: db.Study, participant: db.Participan
     return _info(row)
 
 
-def active_version(session: Session, *, study: db.Study, participant: db.Participant | None) -> VersionInfo | None:
+def active_version(session: Session, *, study: StudyInfo, participant: ParticipantInfo | None) -> VersionInfo | None:
     """The active version of the scope, or None."""
     row = session.scalar(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
                                                        db.ModelVersion.scope == scope_of(participant),
@@ -177,7 +172,14 @@ def active_version(session: Session, *, study: db.Study, participant: db.Partici
     return None if row is None else _info(row)
 
 
-def activate_version(session: Session, *, study: db.Study, participant: db.Participant | None, version: int,
+def active_personal_versions(session: Session, *, participant_pks: list[int]) -> dict[int, VersionInfo]:
+    """The active personal version of each of these participants that has one, by participant ``pk``."""
+    rows = session.scalars(select(db.ModelVersion).where(db.ModelVersion.participant_pk.in_(participant_pks),
+                                                         db.ModelVersion.is_active))
+    return {row.participant_pk: _info(row) for row in rows if row.participant_pk is not None}
+
+
+def activate_version(session: Session, *, study: StudyInfo, participant: ParticipantInfo | None, version: int,
                      actor: str) -> VersionInfo:
     """Make ``version`` the active one of its scope (promotion of a candidate, or rollback)."""
     target = get_version(session, study=study, participant=participant, version=version)
@@ -199,24 +201,10 @@ def load_held_out(session: Session, version: VersionInfo) -> list[HeldOutNight]:
     return [] if blob is None else decode_held_out(blob)
 
 
-_CACHE: OrderedDict[str, SleepModel] = OrderedDict()
-_CACHE_LOCK = threading.Lock()
-_CACHE_SIZE = 64
-
-
+@cached(LRUCache(maxsize=64), key=lambda session, version: version.uid, condition=threading.Condition())
 def load_model(session: Session, version: VersionInfo) -> SleepModel:
     """The :class:`models.SleepModel` of a version (kept in a small per-process cache by ``uid``)."""
-    with _CACHE_LOCK:
-        model = _CACHE.get(version.uid)
-        if model is not None:
-            _CACHE.move_to_end(version.uid)
-            return model
     row = session.get(db.ModelVersion, version.pk)
     if row is None:
         raise NotFound(f"model version {version.version} was removed")
-    model = SleepModel.from_bytes(row.booster, row.model_meta)
-    with _CACHE_LOCK:
-        _CACHE[version.uid] = model
-        while len(_CACHE) > _CACHE_SIZE:
-            _CACHE.popitem(last=False)
-    return model
+    return SleepModel.from_bytes(row.booster, row.model_meta)

@@ -44,6 +44,7 @@ __all__ = [
     "COOKIE_PATH",
     "PageAccess",
     "SignInRequired",
+    "StudyPage",
     "UI_PREFIX",
     "check_origin",
     "clear_cookie",
@@ -52,7 +53,6 @@ __all__ = [
     "safe_next",
     "set_cookie",
     "sign_in",
-    "StudyPage",
     "study_page",
 ]
 

@@ -1,8 +1,8 @@
 """Model cards: what a stored model version is, how it was validated and how (not) to use it.
 
-One card per model version, built from the registry record (:class:`service.store.versions.VersionInfo`)
-as a plain dict (the JSON download) and rendered from that dict as Markdown, so the two downloads
-always say the same thing.
+One card per model version, built from the registry record (:class:`service.store.versions.VersionInfo`
+and its :class:`~service.store.metadata.ModelMetadata`) as a plain dict (the JSON download) and
+rendered from that dict as Markdown, so the two downloads always say the same thing.
 """
 
 from __future__ import annotations
@@ -39,7 +39,8 @@ _INTENDED = {
 }
 
 
-def model_card(version: VersionInfo, *, study_id: str, participant_id: str | None) -> dict[str, Any]:
+def model_card(version: VersionInfo, *, study_id: str, participant_id: str | None,
+               choice: dict[str, Any] | None = None) -> dict[str, Any]:
     """The card of one model version as a JSON-able dict.
 
     Parameters
@@ -48,10 +49,13 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
     study_id : str
     participant_id : str or None
         Owner of a personal model; None for a pooled model.
+    choice : dict, optional
+        The participant's choice of method made with this version (``method``, ``reason``), if
+        any; shown as the card's method choice.
     """
-    info = version.info
-    metrics = info.get("metrics", {})
-    nights = info.get("training_nights", [])
+    meta = version.metadata
+    metrics = meta.metrics.as_dict()
+    nights = meta.training_nights
     return {
         "title": (f"Personal model v{version.version} of participant {participant_id}" if participant_id
                   else f"Pooled model v{version.version}") + f", study {study_id}",
@@ -61,21 +65,20 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
         "intended_use": _INTENDED.get(version.kind, ""),
         "data": {
             "training_nights": len(nights),
-            "participants": sorted({n.get("participant_id") for n in nights if n.get("participant_id")}),
-            "nights": [{"participant_id": n.get("participant_id"), "night_id": n.get("night_id"),
-                        "label": n.get("label")} for n in nights],
-            "feature_set_version": info.get("feature_set_version"),
+            "participants": sorted({n.participant_id for n in nights}),
+            "nights": [{"participant_id": n.participant_id, "night_id": n.night_id, "label": n.label} for n in nights],
+            "feature_set_version": meta.feature_set_version,
         },
-        "validation": {"scheme": _VALIDATION.get(version.kind, ""), "held_out_nights": metrics.get("n_nights"),
+        "validation": {"scheme": _VALIDATION.get(version.kind, ""), "held_out_nights": meta.metrics.n_nights,
                        "metrics": {name: metrics[name] for name in CARD_METRICS if name in metrics},
-                       "selection_metric": info.get("selection", {}).get("metric")},
-        "threshold": {"p_sleep": info.get("threshold"),
+                       "selection_metric": None if meta.selection is None else meta.selection.metric},
+        "threshold": {"p_sleep": meta.threshold,
                       "meaning": "an epoch is called sleep when the model's sleep probability is at least this"},
-        "method_choice": info.get("choice"),
-        "hyperparameters": info.get("hyperparameters", {}),
-        "library_versions": info.get("library_versions", {}),
+        "method_choice": choice,
+        "hyperparameters": dict(meta.hyperparameters),
+        "library_versions": dict(meta.library_versions),
         "cautions": [*CAUTIONS,
-                     f"Validated on {metrics.get('n_nights', 'few')} held-out night(s); figures on other people, "
+                     f"Validated on {meta.metrics.n_nights or 'few'} held-out night(s); figures on other people, "
                      "devices, wear positions or epoch lengths may be worse.",
                      "Sleep is the positive class throughout (1 = sleep, 0 = wake)."],
     }

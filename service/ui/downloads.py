@@ -212,7 +212,8 @@ def _card(access: StudyPage, factory: FactoryDep, pid: str | None, version: int,
         study = registry.find_study(session, access.study_id)
         owner = None if pid is None else registry.find_participant(session, study, pid)
         found = versions.get_version(session, study=study, participant=owner, version=version)
-    card = model_card(found, study_id=access.study_id, participant_id=pid)
+    choice = None if owner is None or (owner.choice or {}).get("personal_version") != version else owner.choice
+    card = model_card(found, study_id=access.study_id, participant_id=pid, choice=choice)
     stem = f"{access.study_id}-{pid or 'pooled'}-v{version}-model-card"
     if fmt == "json":
         return _file(json.dumps(card, indent=1).encode(), media_type="application/json", filename=f"{stem}.json")

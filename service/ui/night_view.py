@@ -62,9 +62,7 @@ def _version_facts(factory: sessionmaker[Session], study_id: str, participant_id
         study = registry.find_study(session, study_id)
         owner = registry.find_participant(session, study, participant_id) if body["method"] == "personal" else None
         version = versions.get_version(session, study=study, participant=owner, version=int(body["model_version"]))
-    threshold = version.info.get("threshold")
-    trained_on = night_hash in set(version.info.get("training_hashes", []))
-    return None if threshold is None else float(threshold), trained_on
+    return version.metadata.threshold, night_hash in set(version.metadata.training_hashes)
 
 
 def _score(factory: sessionmaker[Session], study_id: str, participant_id: str, night: NightInfo,

@@ -59,7 +59,8 @@ def held_out_table(comparison: dict[str, Any], nights: list[NightInfo]) -> pd.Da
         ["_night", "_method"], kind="stable", ignore_index=True).drop(columns=["_night", "_method"])
 
 
-def last_job(session: Session, *, study: db.Study, participant: db.Participant | None) -> JobInfo | None:
+def last_job(session: Session, *, study: registry.StudyInfo,
+             participant: registry.ParticipantInfo | None) -> JobInfo | None:
     """The newest training job of a participant (or of the study's pooled model), if any."""
     query = select(db.Job.job_id).where(db.Job.study_pk == study.pk)
     query = query.where(db.Job.participant_pk.is_(None) if participant is None
@@ -134,15 +135,15 @@ def versions_table(model_versions: list[VersionInfo]) -> pd.DataFrame:
     """One row per model version: status, training nights, threshold and held-out mean/SD of each metric."""
     rows = []
     for v in model_versions:
-        metrics = v.info.get("metrics", {})
+        metrics = v.metadata.metrics
         row: dict[str, Any] = {"version": v.version, "kind": v.kind, "status": v.status,
                                "created_at": v.created_at.isoformat(timespec="seconds"),
-                               "n_training_nights": len(v.info.get("training_nights", [])),
-                               "n_held_out_nights": metrics.get("n_nights"), "threshold": v.info.get("threshold")}
+                               "n_training_nights": len(v.metadata.training_nights),
+                               "n_held_out_nights": metrics.n_nights, "threshold": v.metadata.threshold}
         for name in VERSION_METRICS:
-            stats = metrics.get(name) or {}
-            row[f"{name}_mean"] = stats.get("mean")
-            row[f"{name}_sd"] = stats.get("sd")
+            stats = metrics.by_metric.get(name)
+            row[f"{name}_mean"] = None if stats is None else stats.mean
+            row[f"{name}_sd"] = None if stats is None else stats.sd
         rows.append(row)
     columns = ["version", "kind", "status", "created_at", "n_training_nights", "n_held_out_nights", "threshold",
                *(f"{m}_{s}" for m in VERSION_METRICS for s in ("mean", "sd"))]

@@ -16,7 +16,7 @@ from ..results import reports
 from ..store.db import session_scope
 from ..errors import Unprocessable
 from ..jobs.queue import JobInfo
-from ..store.registry import ParticipantInfo
+from ..store.registry import ParticipantSummary
 from ..store.versions import VersionInfo
 from .participant_view import COMPARISON_METHODS, last_job
 
@@ -38,7 +38,7 @@ class StudyView:
 
     Attributes
     ----------
-    participants : list of ParticipantInfo
+    participants : list of ParticipantSummary
         Every participant, by id.
     pooled_versions : list of VersionInfo
         The study's pooled model versions, newest first.
@@ -49,7 +49,7 @@ class StudyView:
     """
 
     study_id: str
-    participants: list[ParticipantInfo]
+    participants: list[ParticipantSummary]
     pooled_versions: list[VersionInfo]
     comparison: dict[str, Any] | None = None
     comparison_unavailable: str | None = None
@@ -121,8 +121,8 @@ def methods_with_pairs(comparison: dict[str, Any] | None) -> list[str]:
     return [m for m in TABLE_METHODS if counts.get((m, "tst_min"), 0) > 0]
 
 
-def _all_participants(session: Session, study_id: str) -> list[ParticipantInfo]:
-    out: list[ParticipantInfo] = []
+def _all_participants(session: Session, study_id: str) -> list[ParticipantSummary]:
+    out: list[ParticipantSummary] = []
     while True:
         page, total = registry.list_participants(session, study_id=study_id, limit=500, offset=len(out))
         out += page

@@ -123,7 +123,7 @@ def _registry_intact(factory) -> list[tuple[int, bool, str | None]]:
             info = versions.get_version(session, study=session.get(db.Study, row.study_pk),
                                         participant=session.get(db.Participant, row.participant_pk),
                                         version=row.version)
-            assert versions.load_model(session, info).threshold_ == info.info["threshold"]
+            assert versions.load_model(session, info).threshold_ == info.metadata.threshold
             out.append((row.version, row.is_active, row.job_id))
     return out
 

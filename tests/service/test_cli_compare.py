@@ -50,4 +50,4 @@ def test_compare_json_holds_every_participant_and_the_rules_figures(tmp_path: Pa
 
 def test_compare_rejects_a_missing_folder(tmp_path: Path) -> None:
     out = _invoke(str(tmp_path / "nope"))
-    assert out.exit_code == 1
+    assert out.exit_code == 1 and "not_a_directory" in out.output and "Traceback" not in out.output

@@ -40,6 +40,24 @@ def test_score_unknown_method_exit_1() -> None:
     assert out.returncode == 1 and "unknown_method" in out.stderr
 
 
+def test_score_invalid_file_exit_1_lists_every_problem(tmp_path: Path) -> None:
+    bad = tmp_path / "bad.csv"
+    bad.write_text("time,counts\n2031-03-02T22:00:00+00:00,1\n2031-03-02T22:00:30+00:00,-4\n")
+    out = _run("score", str(bad))
+    assert out.returncode == 1 and "invalid_night" in out.stderr and "Traceback" not in out.stderr
+    assert "negative_count" in out.stderr and "too_short" in out.stderr and "row 3" in out.stderr
+
+
+def test_agree_without_reference_labels_exit_1(tmp_path: Path) -> None:
+    night = read_night(sorted((DEMO / "GW-01").glob("*.json"))[0])
+    unlabelled = tmp_path / "P" / "n.json"
+    unlabelled.parent.mkdir()
+    unlabelled.write_text(json.dumps({"epoch_seconds": night.epoch_seconds, "start": night.start.isoformat(),
+                                      "counts": night.counts.tolist()}))
+    out = _run("agree", str(unlabelled))
+    assert out.returncode == 1 and "no_reference" in out.stderr
+
+
 def test_agree_reports_pooled_metrics_and_bland_altman() -> None:
     files = sorted((DEMO / "GW-05").glob("*.*"))
     out = _run("agree", *map(str, files), "--json")

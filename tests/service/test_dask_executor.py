@@ -36,7 +36,7 @@ def _version_info(factory, version: int) -> dict:
     with db.session_scope(factory) as session:
         study = find_study(session, "s1")
         return versions.get_version(session, study=study, participant=find_participant(session, study, "P-01"),
-                                    version=version).info
+                                    version=version).metadata.to_json()
 
 
 def test_training_on_a_dask_cluster_matches_a_local_run(http, study, admin, settings, factory) -> None:

@@ -239,7 +239,7 @@ def test_postgres_worker_processes_share_the_queue_and_a_killed_one_loses_nothin
                 assert row.is_active and row.version == 1 and row.booster
                 info = versions.get_version(session, study=session.get(db.Study, row.study_pk),
                                             participant=session.get(db.Participant, row.participant_pk), version=1)
-                assert versions.load_model(session, info).threshold_ == info.info["threshold"]
+                assert versions.load_model(session, info).threshold_ == info.metadata.threshold
     finally:
         stop_worker_processes(procs, timeout_s=10)
         engine.dispose()

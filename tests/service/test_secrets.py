@@ -124,3 +124,21 @@ def test_error_responses_carry_no_traceback_or_sql(settings, server, http, admin
     for r in provoked:
         assert r.status_code >= 400 and r.headers["content-type"].startswith("application/problem+json"), r.text
         assert not [leak for leak in LEAKS if leak in r.text], r.text
+
+
+def test_token_cache_forgets_a_token_after_its_time_and_keeps_no_token_text() -> None:
+    import time
+
+    from service.store.tokens import Principal, Role, TokenCache
+
+    token = "nb_0123456789ab_" + "s" * 43
+    principal = Principal(token_id="0123456789ab", role=Role.analyst, study_id="s1")
+    cache = TokenCache(0.2, max_entries=2)
+    cache.put(token, principal)
+    assert cache.get(token) == principal and cache.get(token + "x") is None
+    assert token not in repr(vars(cache)) and "s" * 43 not in repr(vars(cache))  # keyed by SHA-256 only
+    time.sleep(0.3)
+    assert cache.get(token) is None  # a revocation takes effect within ttl_s
+    disabled = TokenCache(0)
+    disabled.put(token, principal)
+    assert disabled.get(token) is None

@@ -56,17 +56,19 @@ def test_figures_are_reproducible_byte_for_byte() -> None:
 
 
 def test_model_card_markdown_says_what_the_json_says() -> None:
-    from service.ui.cards import model_card, model_card_markdown
+    from service.store.metadata import ModelMetadata
     from service.store.versions import VersionInfo
+    from service.ui.cards import model_card, model_card_markdown
 
     info = {"metrics": {"n_nights": 3, "balanced_accuracy": {"mean": 0.8123, "sd": 0.0456},
                         "specificity": {"mean": 0.7011, "sd": None}},
             "threshold": 0.4321, "training_nights": [{"participant_id": "P-01", "night_id": "ab12", "label": "n1"}],
-            "feature_set_version": "f1", "hyperparameters": {"max_depth": 3}, "library_versions": {"xgboost": "3"},
-            "choice": {"method": "personal", "reason": "higher held-out balanced accuracy"}}
+            "feature_set_version": "f1", "hyperparameters": {"max_depth": 3}, "library_versions": {"xgboost": "3"}}
     version = VersionInfo(pk=1, uid="u", kind="personal", version=2, active=True,
-                          created_at=datetime(2031, 3, 2, tzinfo=UTC), job_id="j", info=info)
-    card = model_card(version, study_id="s1", participant_id="P-01")
+                          created_at=datetime(2031, 3, 2, tzinfo=UTC), job_id="j",
+                          metadata=ModelMetadata.from_json(info))
+    card = model_card(version, study_id="s1", participant_id="P-01",
+                      choice={"method": "personal", "reason": "higher held-out balanced accuracy"})
     text = model_card_markdown(card)
     assert card["threshold"]["p_sleep"] == 0.4321 and "P(sleep) ≥ 0.432" in text
     assert "| balanced accuracy | 0.812 | 0.046 |" in text and "| specificity | 0.701 | – |" in text

@@ -2,15 +2,18 @@
 
 from __future__ import annotations
 
+import json
+
 import pytest
 
 
 def _add(session, study, participant, score):
     from service.store import versions
+    from service.store.metadata import ModelMetadata, Selection
 
-    info = {"selection": {"metric": "balanced_accuracy", "value": score}}
+    metadata = ModelMetadata(selection=Selection(metric="balanced_accuracy", value=score))
     return versions.add_version(session, study=study, participant=participant, booster=b"raw", model_meta={},
-                                info=info, job_id=None, actor="test")
+                                metadata=metadata, job_id=None, actor="test")
 
 
 @pytest.fixture
@@ -60,3 +63,67 @@ def test_activation_rolls_back_and_is_audited(owners) -> None:
         assert entry.actor == "admin-token" and entry.detail == {"version": 1, "previous_active": 2}
         with pytest.raises(NotFound, match="no model version 7"):
             versions.activate_version(session, study=study, participant=p, version=7, actor="x")
+
+
+#: A pooled version's ``info`` column as the service stored it before metadata was typed (keys as
+#: written by the training job then, plus one no reader knows).
+_STORED_POOLED_INFO = {
+    "metrics": {"n_nights": 4, "balanced_accuracy": {"mean": 0.75, "sd": 0.05}, "auc": {"mean": None, "sd": None}},
+    "selection": {"metric": "balanced_accuracy", "value": 0.75},
+    "training_nights": [{"participant_id": "p", "night_id": "abc", "content_hash": "abc" * 20, "label": "n1"}],
+    "training_hashes": ["abc" * 20], "feature_set_version": "f-30s", "hyperparameters": {"max_depth": 3},
+    "threshold": 0.42, "library_versions": {"xgboost": "3.2.0"}, "config": {"n_trials": 2, "seed": 0},
+    "night_metrics": [{"participant_id": "p", "night_id": "abc", "method": "pooled", "balanced_accuracy": 0.75}],
+    "offset": None, "participants": ["p"], "offsets": {"p": -0.3}, "offset_shrinkage": 0.5,
+    "descriptors": {"p": {"median_count": 12.0}}, "retired_key": {"anything": 1},
+}
+
+
+def test_metadata_of_rows_stored_before_reads_as_attributes(owners) -> None:
+    from service.store import db, registry, versions
+
+    with db.session_scope(owners, write=True) as session:
+        study = registry.find_study(session, "s")
+        session.add(db.ModelVersion(uid="0" * 32, study_pk=study.pk, participant_pk=None, scope="pooled", kind="pooled",
+                                    version=1, is_active=True, booster=b"raw", model_meta={},
+                                    info=_STORED_POOLED_INFO, created_at=db.utcnow()))
+    with db.session_scope(owners) as session:
+        meta = versions.get_version(session, study=registry.find_study(session, "s"), participant=None,
+                                    version=1).metadata
+    assert meta.metrics.n_nights == 4 and meta.metrics.mean("balanced_accuracy") == 0.75
+    assert meta.metrics.mean("auc") is None and meta.selection_score == 0.75 and meta.threshold == 0.42
+    assert meta.training_nights[0].label == "n1" and meta.training_hashes == ("abc" * 20,)
+    assert meta.offset_of("p") == -0.3 and meta.offset_of("someone-else") == 0.0
+    assert meta.participants == ("p",) and meta.descriptors["p"] == {"median_count": 12.0}
+    # the stored form keeps its keys: what is written reads back the same (JSON, as the column holds it)
+    assert json.loads(json.dumps(meta.to_json())) == {k: v for k, v in _STORED_POOLED_INFO.items()
+                                                      if k != "retired_key"} | {"metrics_with_offset": None}
+
+
+def test_metadata_missing_keys_take_their_defaults() -> None:
+    from service.store.metadata import ModelMetadata
+
+    meta = ModelMetadata.from_json({"selection": {"metric": "balanced_accuracy", "value": None}})
+    assert meta.selection_score is None and meta.threshold is None and meta.training_nights == ()
+    assert meta.metrics.n_nights == 0 and meta.metrics.as_dict() == {"n_nights": 0}
+    assert ModelMetadata.from_json(None) == ModelMetadata()
+
+
+def test_lookups_return_snapshots_and_changes_go_through_the_store(owners) -> None:
+    import dataclasses
+
+    from service.store import db, registry
+
+    with db.session_scope(owners, write=True) as session:
+        study = registry.find_study(session, "s")
+        p = registry.find_participant(session, study, "p")
+        assert not isinstance(p, db.Base) and not isinstance(study, db.Base)
+        with pytest.raises(dataclasses.FrozenInstanceError):
+            p.chosen_method = "personal"  # type: ignore[misc]
+        changed = registry.record_choice(session, participant=p, method="pooled",
+                                         choice={"method": "pooled", "reason": "test"})
+        assert changed.chosen_method == "pooled" and p.chosen_method is None
+    with db.session_scope(owners) as session:
+        again = registry.find_participant(session, registry.find_study(session, "s"), "p")
+        assert (again.chosen_method, again.choice) == ("pooled", {"method": "pooled", "reason": "test"})
+        assert [q.participant_id for q in registry.study_participants(session, study=study)] == ["p"]

@@ -9,7 +9,7 @@ from fastapi.responses import PlainTextResponse
 from sqlalchemy import text
 
 from ...jobs.queue import count_jobs_by_state
-from ...telemetry import render_prometheus
+from ...telemetry import METRICS_MEDIA_TYPE, Metrics
 from ...store.tokens import Principal, Role
 from ..deps import ReadSession, require_lab_role
 
@@ -29,6 +29,6 @@ def healthz(session: ReadSession) -> dict[str, str]:
             responses={200: {"content": {"text/plain": {"schema": {"type": "string"}}}}})
 def metrics(request: Request, session: ReadSession,
             _: Annotated[Principal, Depends(require_lab_role(Role.ingest))]) -> PlainTextResponse:
-    """Prometheus text: requests, latencies (this process) and jobs by state."""
-    body = render_prometheus(request.app.state.metrics, jobs_by_state=count_jobs_by_state(session))
-    return PlainTextResponse(body, media_type="text/plain; version=0.0.4")
+    """Prometheus text: requests and latencies (every HTTP worker process), and jobs by state."""
+    metrics: Metrics = request.app.state.metrics
+    return PlainTextResponse(metrics.render(jobs_by_state=count_jobs_by_state(session)), media_type=METRICS_MEDIA_TYPE)

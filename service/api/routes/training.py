@@ -6,6 +6,7 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Depends, Path
 from fastapi.responses import JSONResponse
+from sqlalchemy.orm import Session
 
 from ...jobs import queue as jobs
 from ...store import registry, versions
@@ -92,16 +93,16 @@ def cancel_job(job_id: JobPath, factory: FactoryDep, principal: AnalystDep) -> A
 
 
 def _version_out(v: versions.VersionInfo) -> ModelVersionOut:
-    info = v.info
+    meta = v.metadata
     return ModelVersionOut(
         version=v.version, kind=v.kind, active=v.active, status=v.status, created_at=v.created_at, job_id=v.job_id,  # type: ignore[arg-type]
-        n_training_nights=len(info.get("training_nights", [])), metrics=info.get("metrics", {}),
-        threshold=info.get("threshold"), offset=info.get("offset"), feature_set_version=info.get("feature_set_version"),
-        hyperparameters=info.get("hyperparameters", {}), library_versions=info.get("library_versions", {}),
-        training_nights=info.get("training_nights", []))
+        n_training_nights=len(meta.training_nights), metrics=meta.metrics.as_dict(), threshold=meta.threshold,
+        offset=meta.offset, feature_set_version=meta.feature_set_version, hyperparameters=meta.hyperparameters,
+        library_versions=meta.library_versions, training_nights=[n.model_dump() for n in meta.training_nights])
 
 
-def _owner(session: Any, study_id: str, pid: str | None) -> tuple[Any, Any]:
+def _owner(session: Session, study_id: str,
+           pid: str | None) -> tuple[registry.StudyInfo, registry.ParticipantInfo | None]:
     study = registry.find_study(session, study_id)
     return study, None if pid is None else registry.find_participant(session, study, pid)
 
@@ -119,6 +120,7 @@ def activate_personal_model(access: AdminAccess, pid: ParticipantPath, version: 
     """Make a personal model version the active one (promotion or rollback; admin)."""
     with session_scope(factory, write=True) as session:
         study, participant = _owner(session, access.study_id, pid)
+        assert participant is not None  # pid names one
         out = versions.activate_version(session, study=study, participant=participant, version=version,
                                         actor=access.actor)
         refresh_choices(session, study=study, participants=[participant])

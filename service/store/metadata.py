@@ -1,0 +1,147 @@
+"""Typed metadata of a stored model version, and the one place that knows its JSON form.
+
+A version's metadata is written once, when the version is stored, and never changes. It lives as
+JSON in the ``model_versions.info`` column; :meth:`ModelMetadata.to_json` and
+:meth:`ModelMetadata.from_json` are the only code that writes or reads that form, with the JSON
+keys named like the attributes. Reading is tolerant: keys missing from a stored row take their
+defaults and unknown keys are ignored, so rows of earlier releases read without a migration.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field, model_serializer, model_validator
+
+__all__ = ["HeldOutFigures", "MetricSummary", "ModelMetadata", "Selection", "TrainingNight"]
+
+
+class _Record(BaseModel):
+    model_config = ConfigDict(frozen=True, extra="ignore")
+
+
+class MetricSummary(_Record):
+    """Mean and SD (ddof=1) over held-out nights of one epoch metric; None where undefined."""
+
+    mean: float | None = None
+    sd: float | None = None
+
+
+class HeldOutFigures(_Record):
+    """Held-out validation figures: the nights compared and every epoch metric's mean and SD.
+
+    Stored flat, ``{"n_nights": 5, "balanced_accuracy": {"mean": 0.81, "sd": 0.04}, ...}``, which
+    is also the form of :meth:`as_dict` (the API's ``metrics``).
+    """
+
+    n_nights: int = 0
+    by_metric: dict[str, MetricSummary] = Field(default_factory=dict)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _unflatten(cls, data: Any) -> Any:
+        if isinstance(data, Mapping) and "by_metric" not in data:
+            return {"n_nights": data.get("n_nights") or 0,
+                    "by_metric": {k: v for k, v in data.items() if k != "n_nights" and isinstance(v, Mapping)}}
+        return data
+
+    @model_serializer(mode="plain")
+    def _flatten(self) -> dict[str, Any]:
+        return {"n_nights": self.n_nights, **{k: {"mean": v.mean, "sd": v.sd} for k, v in self.by_metric.items()}}
+
+    def mean(self, metric: str) -> float | None:
+        """Mean over held-out nights of ``metric`` (None if not computed)."""
+        found = self.by_metric.get(metric)
+        return None if found is None else found.mean
+
+    def as_dict(self) -> dict[str, Any]:
+        """The flat JSON form (a new dict)."""
+        return self._flatten()
+
+
+class Selection(_Record):
+    """The held-out figure that decides promotion ("higher is better") and its value."""
+
+    metric: str
+    value: float | None = None
+
+
+class TrainingNight(_Record):
+    """A night a model was trained on."""
+
+    participant_id: str
+    night_id: str
+    content_hash: str = ""
+    label: str | None = None
+
+
+class ModelMetadata(_Record):
+    """What the registry records about a model version besides its bytes.
+
+    Attributes
+    ----------
+    metrics : HeldOutFigures
+        Held-out validation figures of the model (pooled models: without participant offset).
+    selection : Selection or None
+        The figure the promotion rule compares.
+    training_nights : tuple of TrainingNight
+    training_hashes : tuple of str
+        Content hashes of the training nights.
+    feature_set_version : str or None
+    hyperparameters : dict
+    threshold : float or None
+        Sleep probability at or above which an epoch is called sleep.
+    library_versions : dict of str to str
+    config : dict
+        The training options that shaped the model (trials, seed, choice policy, ...).
+    night_metrics : tuple of dict
+        One record per held-out night and method: ids, ``method`` and every epoch metric.
+    offset : float or None
+        Log-odds offset built into the model (None: none).
+    metrics_with_offset : HeldOutFigures or None
+        Pooled models: held-out figures with each participant's offset.
+    participants : tuple of str
+        Pooled models: participants whose nights the model was trained on.
+    offsets : dict of str to float
+        Pooled models: shrunken log-odds offset per participant.
+    offset_shrinkage : float or None
+        Pooled models: shrinkage applied to the offsets.
+    descriptors : dict of str to dict
+        Pooled models: the participant descriptors used in training, per participant.
+    """
+
+    metrics: HeldOutFigures = Field(default_factory=HeldOutFigures)
+    selection: Selection | None = None
+    training_nights: tuple[TrainingNight, ...] = ()
+    training_hashes: tuple[str, ...] = ()
+    feature_set_version: str | None = None
+    hyperparameters: dict[str, Any] = Field(default_factory=dict)
+    threshold: float | None = None
+    library_versions: dict[str, str] = Field(default_factory=dict)
+    config: dict[str, Any] = Field(default_factory=dict)
+    night_metrics: tuple[dict[str, Any], ...] = ()
+    offset: float | None = None
+    metrics_with_offset: HeldOutFigures | None = None
+    participants: tuple[str, ...] = ()
+    offsets: dict[str, float] = Field(default_factory=dict)
+    offset_shrinkage: float | None = None
+    descriptors: dict[str, dict[str, float | None]] = Field(default_factory=dict)
+
+    @property
+    def selection_score(self) -> float | None:
+        """The value the promotion rule compares (None if there is none)."""
+        return None if self.selection is None else self.selection.value
+
+    def offset_of(self, participant_id: str) -> float:
+        """A participant's offset, log-odds (0 for a participant the model has none for)."""
+        return float(self.offsets.get(participant_id, 0.0))
+
+    def to_json(self) -> dict[str, Any]:
+        """The stored JSON form."""
+        return self.model_dump(mode="json")
+
+    @classmethod
+    def from_json(cls, data: Mapping[str, Any] | None) -> ModelMetadata:
+        """Read the stored JSON form (missing keys take their defaults, unknown keys are ignored)."""
+        return cls.model_validate(dict(data or {}))
