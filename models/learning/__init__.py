@@ -17,12 +17,29 @@ from .classifier import (
     Projection,
     SleepModel,
 )
-from .offset import (
+from .config import (
+    CHOICE_POLICIES,
     DEFAULT_SHRINKAGE_GRID,
+    InvalidTrainingConfigError,
+    POOLED_PARAMS,
+    TrainingConfig,
+    TrainingDataError,
+)
+from .descriptors import (
+    DESCRIPTOR_NAMES,
+    participant_descriptors,
+)
+from .held_out import (
+    HeldOutNight,
+    night_metrics_table,
+    summary_table,
+)
+from .offset import (
     ShrinkageChoice,
     choose_shrinkage,
     estimate_offset,
     offset_log_likelihood,
+    participant_offset,
 )
 from .personal import (
     PersonalResult,
@@ -30,7 +47,6 @@ from .personal import (
 )
 from .pooled import (
     PooledResult,
-    participant_offset,
     train_pooled,
 )
 from .splits import (
@@ -52,15 +68,8 @@ from .tasks import (
     TrainingCancelled,
     run_tasks,
 )
-from .training import (
-    CHOICE_POLICIES,
-    DESCRIPTOR_NAMES,
-    HeldOutNight,
-    InvalidTrainingConfigError,
-    POOLED_PARAMS,
-    TrainingConfig,
-    TrainingDataError,
-    participant_descriptors,
+from .threshold import (
+    youden_threshold,
 )
 from .tuning import (
     PCA_CHOICES,
@@ -69,7 +78,6 @@ from .tuning import (
     booster_params,
     suggest_hyperparameters,
     tune_and_fit,
-    youden_threshold,
 )
 
 __all__ = [
@@ -112,12 +120,14 @@ __all__ = [
     "load_model",
     "model_from_bytes",
     "model_to_bytes",
+    "night_metrics_table",
     "offset_log_likelihood",
     "participant_descriptors",
     "participant_offset",
     "run_tasks",
     "save_model",
     "suggest_hyperparameters",
+    "summary_table",
     "train_personal",
     "train_pooled",
     "tune_and_fit",

@@ -21,7 +21,8 @@ from sklearn.preprocessing import StandardScaler
 
 from ..features.matrix import FeatureConfig, FeatureMatrix, FeatureSetMismatchError, check_feature_set
 from ..nights.night import Night
-from .training import night_features, participant_descriptors
+from .descriptors import participant_descriptors
+from .rows import night_features
 
 __all__ = ["ModelKind", "Projection", "SleepModel"]
 
@@ -190,7 +191,7 @@ class SleepModel:
         offset : float, default=0.0
             Participant offset in log-odds, added to the margin (see :mod:`models.learning.offset`).
         descriptors : mapping of str to float, default=None
-            Pooled models: the participant's :func:`~models.learning.training.participant_descriptors`
+            Pooled models: the participant's :func:`~models.learning.descriptors.participant_descriptors`
             (over all their nights). None computes them from this night alone.
         features : FeatureMatrix, default=None
             Precomputed features of ``night``; computed with ``feature_config_`` when None.

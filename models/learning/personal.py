@@ -21,22 +21,14 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .artifacts import library_versions
-from .classifier import SleepModel
 from ..features.cache import FeatureCache
 from ..nights.night import Night
+from .artifacts import library_versions
+from .classifier import SleepModel
+from .config import TrainingConfig, TrainingDataError
+from .held_out import HeldOutNight, night_metrics_table, summary_table
+from .rows import NightRows, labelled_nights, prepare_nights, study_seed
 from .tasks import Progress, Reporter, run_tasks
-from .training import (
-    HeldOutNight,
-    NightRows,
-    TrainingConfig,
-    TrainingDataError,
-    labelled_nights,
-    night_metrics_table,
-    prepare_nights,
-    study_seed,
-    summary_table,
-)
 from .tuning import TunedPipeline, tune_and_fit
 
 __all__ = ["PersonalResult", "train_personal"]

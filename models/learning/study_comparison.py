@@ -40,7 +40,9 @@ from .personal import PersonalResult, train_personal
 from .pooled import PooledResult, train_pooled
 from ..scoring.rules import score_with_rule
 from .tasks import Progress
-from .training import HeldOutNight, TrainingConfig, labelled_nights
+from .config import TrainingConfig
+from .held_out import HeldOutNight
+from .rows import labelled_nights
 
 __all__ = ["COMPARED_RULES", "ERROR_PARAMETERS", "MODEL_METHODS", "StudyComparison", "choose_method", "compare_study"]
 

@@ -18,7 +18,8 @@ from models.nights.json_io import night_to_json
 from models.nights.night import Night
 from models.learning.pooled import train_pooled
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.training import TrainingConfig, night_features
+from models.learning.config import TrainingConfig
+from models.learning.rows import night_features
 
 ROOT = Path(__file__).resolve().parents[3]
 

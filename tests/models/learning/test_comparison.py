@@ -11,7 +11,7 @@ import pytest
 from models.agreement.bland_altman import NightRecord, bland_altman, compare_rules_with_reference
 from models.learning.study_comparison import COMPARED_RULES, MODEL_METHODS, choose_method, compare_study
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.training import TrainingConfig
+from models.learning.config import TrainingConfig
 
 CONFIG = TrainingConfig(n_trials=2, max_rounds=50, pooled_folds=3)
 

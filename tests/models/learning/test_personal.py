@@ -12,7 +12,7 @@ from sklearn.metrics import roc_auc_score
 from models.nights.night import Night
 from models.learning.personal import train_personal
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.training import TrainingConfig, TrainingDataError
+from models.learning.config import TrainingConfig, TrainingDataError
 
 CONFIG = TrainingConfig(n_trials=3, max_rounds=60)
 

@@ -8,7 +8,8 @@ import pytest
 from models.nights.night import Night
 from models.learning.pooled import train_pooled
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.training import DESCRIPTOR_NAMES, TrainingConfig, TrainingDataError, participant_descriptors
+from models.learning.config import TrainingConfig, TrainingDataError
+from models.learning.descriptors import DESCRIPTOR_NAMES, participant_descriptors
 
 CONFIG = TrainingConfig(pooled_folds=3, max_rounds=80)
 
