@@ -1,8 +1,8 @@
 """The fitted sleep/wake model: features -> optional standardise + PCA -> XGBoost -> threshold.
 
 A :class:`SleepModel` is built by :func:`models.learning.personal.train_personal` or
-:func:`models.learning.pooled.train_pooled` and restored by :meth:`SleepModel.from_bytes`; it is never
-pickled. Prediction always goes through the same numpy and XGBoost calls, so a restored model
+:func:`models.learning.pooled.train_pooled`, saved and restored by :mod:`models.learning.artifacts`; it
+is never pickled. Prediction always goes through the same numpy and XGBoost calls, so a restored model
 gives bit-identical probabilities.
 """
 
@@ -222,17 +222,3 @@ class SleepModel:
         """Sleep (1) / wake (0) per epoch at ``threshold_``, shape (n_epochs,), int8."""
         p = self.predict_proba(night, offset=offset, descriptors=descriptors, features=features)
         return (p >= self.threshold_).astype(np.int8)
-
-    # ---- storage --------------------------------------------------------------------------------
-    def to_bytes(self) -> tuple[bytes, dict[str, Any]]:
-        """XGBoost UBJSON booster bytes and a JSON-able metadata dict (see :mod:`models.learning.artifacts`)."""
-        from .artifacts import model_to_bytes
-
-        return model_to_bytes(self)
-
-    @classmethod
-    def from_bytes(cls, booster: bytes, metadata: Mapping[str, Any]) -> SleepModel:
-        """Restore a model saved by :meth:`to_bytes` (no pickle)."""
-        from .artifacts import model_from_bytes
-
-        return model_from_bytes(booster, metadata)

@@ -22,7 +22,15 @@ import pandas as pd
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import EPOCH_METRIC_NAMES, Night, TrainingConfig, choose_method, train_personal, train_pooled
+from models import (
+    EPOCH_METRIC_NAMES,
+    Night,
+    TrainingConfig,
+    choose_method,
+    model_to_bytes,
+    train_personal,
+    train_pooled,
+)
 
 from ..store import db, versions
 from ..store.codec import encode_held_out
@@ -159,7 +167,7 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
         nights = load_nights(session, participant=participant, labelled_only=True)
     progress(0, 1, "personal: loading nights")
     result = compute(train_personal, {"nights": nights, "config": config}, progress)
-    booster, meta = result.model.to_bytes()
+    booster, meta = model_to_bytes(result.model)
     info = _base_info(result.model, nights, config, _summary(result.summary))
     info["night_metrics"] = _records(result.night_metrics)
     info["offset"] = None
@@ -184,7 +192,7 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
             select(db.Participant).where(db.Participant.study_pk == study.pk).order_by(db.Participant.participant_id))}
     progress(0, 1, "pooled: loading nights")
     result = compute(train_pooled, {"nights": by_participant, "config": config}, progress)
-    booster, meta = result.model.to_bytes()
+    booster, meta = model_to_bytes(result.model)
     all_nights = [n for nights in by_participant.values() for n in nights]
     held = result.night_metrics
     by_method = set(result.summary.index.get_level_values(0))

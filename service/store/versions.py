@@ -23,7 +23,7 @@ from typing import Any
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
-from models import HeldOutNight, SleepModel
+from models import HeldOutNight, SleepModel, model_from_bytes
 
 from . import db
 from .audit import record_audit
@@ -103,7 +103,7 @@ def add_version(session: Session, *, study: db.Study, participant: db.Participan
     booster : bytes
         XGBoost UBJSON bytes.
     model_meta : dict
-        Metadata from :meth:`models.SleepModel.to_bytes`.
+        Metadata from :func:`models.model_to_bytes`.
     info : dict
         Registry record; ``info["selection"]["value"]`` is the held-out balanced accuracy used by
         the promotion rule.
@@ -214,7 +214,7 @@ def load_model(session: Session, version: VersionInfo) -> SleepModel:
     row = session.get(db.ModelVersion, version.pk)
     if row is None:
         raise NotFound(f"model version {version.version} was removed")
-    model = SleepModel.from_bytes(row.booster, row.model_meta)
+    model = model_from_bytes(row.booster, row.model_meta)
     with _CACHE_LOCK:
         _CACHE[version.uid] = model
         while len(_CACHE) > _CACHE_SIZE:
