@@ -2,9 +2,11 @@
 
 Nested validation, so that nothing about a held-out night reaches its prediction:
 
-- outer loop, leave-one-night-out: each labelled night is held out once; a full search
-  (:func:`models.learning.tuning.tune_and_fit`: forward-chained inner splits, early stopping, threshold)
-  runs on the *other* nights and its refitted model predicts the held-out night;
+- outer loop, leave-one-night-out (``SPLITTERS["leave-one-night-out"]``: scikit-learn's
+  ``LeaveOneGroupOut`` with the nights as groups): each labelled night is held out once, in
+  chronological order; a full search (:func:`models.learning.tuning.tune_and_fit`:
+  forward-chained inner splits, early stopping, threshold) runs on the *other* nights and its
+  refitted model predicts the held-out night;
 - final model: the same search on all labelled nights, refitted on all of them.
 
 With ``n`` labelled nights that is ``n + 1`` independent studies; they run on ``n_jobs``
@@ -28,6 +30,7 @@ from .classifier import SleepModel
 from .config import TrainingConfig, TrainingDataError
 from .held_out import HeldOutNight, night_metrics_table, summary_table
 from .rows import NightRows, labelled_nights, prepare_nights, study_seed
+from .splits import SPLITTERS
 from .tasks import Progress, Reporter, run_tasks
 from .tuning import TunedPipeline, tune_and_fit
 
@@ -126,11 +129,15 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     rows = _labelled(nights, config, feature_cache)
     n = len(rows)
     per_study = config.n_trials + 1
+    # one entry per night, grouped by its chronological rank: split k holds out the k-th night
+    ranks = np.arange(n)
+    outer = list(SPLITTERS["leave-one-night-out"]().split(ranks, groups=ranks))
 
     def outer_task(k: int) -> Any:
         def run(reporter: Reporter) -> tuple[HeldOutNight, dict[str, Any]]:
-            held = rows[k]
-            others = rows[:k] + rows[k + 1:]
+            train_idx, (held_idx,) = outer[k]
+            held = rows[held_idx]
+            others = [rows[i] for i in train_idx]
             seed = study_seed(config.seed, k + 1)
             model = _model(tune_and_fit(others, config=config, seed=seed, reporter=reporter,
                                         stage=f"personal: night {k + 1}/{n} held out"), others, config, seed)
@@ -147,13 +154,13 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
         pipe = tune_and_fit(rows, config=config, seed=seed, reporter=reporter, stage="personal: final model")
         return _model(pipe, rows, config, seed)
 
-    results = run_tasks([final_task, *(outer_task(k) for k in range(n))], n_jobs=config.n_jobs,
+    results = run_tasks([final_task, *(outer_task(k) for k in range(len(outer)))], n_jobs=config.n_jobs,
                         total=(n + 1) * per_study, progress=progress)
     model: SleepModel = results[0]
-    outer: list[HeldOutNight] = [held for held, _ in results[1:]]
-    night_metrics = night_metrics_table(outer)
+    held_out: list[HeldOutNight] = [held for held, _ in results[1:]]
+    night_metrics = night_metrics_table(held_out)
     trials = pd.DataFrame([row for _, row in results[1:]] + [_trial_row("final", model)])
-    return PersonalResult(model=model, outer=outer, night_metrics=night_metrics,
+    return PersonalResult(model=model, outer=held_out, night_metrics=night_metrics,
                           summary=summary_table(night_metrics), best_params=dict(model.params_), trials=trials)
 
 
