@@ -29,6 +29,9 @@ from .features import (
     FeatureInputError,
     FeatureMatrix,
     FeatureSetMismatchError,
+    FeatureSource,
+    night_features,
+    PrecomputedFeatures,
 )
 from .learning import (
     CHOICE_POLICIES,
@@ -139,6 +142,7 @@ __all__ = [
     "FeatureInputError",
     "FeatureMatrix",
     "FeatureSetMismatchError",
+    "FeatureSource",
     "ForwardChainedSplit",
     "HeldOutNight",
     "InvalidModelArtifactError",
@@ -150,6 +154,7 @@ __all__ = [
     "MODEL_METHODS",
     "model_to_bytes",
     "Night",
+    "night_features",
     "night_from_csv",
     "night_from_json",
     "night_from_parquet",
@@ -164,6 +169,7 @@ __all__ = [
     "participant_descriptors",
     "participant_offset",
     "PersonalResult",
+    "PrecomputedFeatures",
     "PooledResult",
     "Problem",
     "Progress",

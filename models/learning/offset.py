@@ -43,6 +43,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.special import expit
 
 from ..errors import NightbankError
+from ..features.source import FeatureSource
 from ..nights.night import Night
 from .classifier import SleepModel
 from .config import DEFAULT_SHRINKAGE_GRID, TrainingConfig
@@ -252,8 +253,8 @@ def choose_shrinkage(nights: Mapping[str, Sequence[tuple[ArrayLike, ArrayLike]]]
 
 
 def participant_offset(model: SleepModel, nights: Sequence[Night], *, shrinkage: float,
-                       config: TrainingConfig = TrainingConfig(),
-                       descriptors: Mapping[str, float] | None = None) -> float:
+                       config: TrainingConfig = TrainingConfig(), descriptors: Mapping[str, float] | None = None,
+                       feature_cache: FeatureSource | None = None) -> float:
     """Offset of a participant the pooled ``model`` never saw, from their labelled nights.
 
     Parameters
@@ -268,6 +269,9 @@ def participant_offset(model: SleepModel, nights: Sequence[Night], *, shrinkage:
     config : TrainingConfig, default=TrainingConfig()
         Only ``movement_time`` is used (reference binarisation).
     descriptors : mapping, default=None
+        The participant's descriptors (:func:`~models.learning.descriptors.participant_descriptors`).
+    feature_cache : FeatureSource, default=None
+        Where night features are looked up (:mod:`models.features.source`); None computes them.
 
     Returns
     -------
@@ -281,7 +285,8 @@ def participant_offset(model: SleepModel, nights: Sequence[Night], *, shrinkage:
         if ref is None:
             continue
         bed = slice(*night.in_bed)
-        margins.append(model.decision_function(night, descriptors=descriptors)[bed] + model.offset_baseline_)
+        margin = model.decision_function(night, descriptors=descriptors, feature_cache=feature_cache)
+        margins.append(margin[bed] + model.offset_baseline_)
         refs.append(ref[bed])
     if not margins:
         return 0.0

@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..features.cache import FeatureCache
+from ..features.source import FeatureSource
 from ..nights.night import Night
 from .artifacts import library_versions
 from .classifier import SleepModel
@@ -87,12 +87,12 @@ def _model(pipe: TunedPipeline, nights: Sequence[NightRows], config: TrainingCon
         info={"seed": seed, "inner_auc": pipe.best_value, "tuning": pipe.trials, "libraries": library_versions()})
 
 
-def _labelled(nights: Sequence[Night], config: TrainingConfig, cache: FeatureCache | None) -> list[NightRows]:
+def _labelled(nights: Sequence[Night], config: TrainingConfig, source: FeatureSource | None) -> list[NightRows]:
     owners = sorted({n.participant_id for n in nights})
     if len(owners) > 1:
         raise TrainingDataError(f"a personal model takes one participant's nights, got {owners}",
                                 code="mixed_participants")
-    rows = prepare_nights(labelled_nights(nights, config), config, cache=cache)
+    rows = prepare_nights(labelled_nights(nights, config), config, feature_cache=source)
     if len(rows) < config.min_personal_nights:
         raise TrainingDataError(
             f"a personal model needs {config.min_personal_nights} labelled nights, got {len(rows)}",
@@ -101,7 +101,7 @@ def _labelled(nights: Sequence[Night], config: TrainingConfig, cache: FeatureCac
 
 
 def train_personal(nights: Sequence[Night], *, config: TrainingConfig = TrainingConfig(),
-                   progress: Progress | None = None, feature_cache: FeatureCache | None = None) -> PersonalResult:
+                   progress: Progress | None = None, feature_cache: FeatureSource | None = None) -> PersonalResult:
     """Tune, evaluate (nested) and train a participant's personal model.
 
     Parameters
@@ -112,8 +112,9 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     progress : callable, default=None
         ``progress(done, total, stage)`` after every trial and fit, called in the caller's
         thread; if it raises, training stops and the exception propagates.
-    feature_cache : FeatureCache, default=None
-        Where night features are looked up and stored; None = the process-wide default.
+    feature_cache : FeatureSource, default=None
+        Where night features are looked up and misses kept (:mod:`models.features.source`);
+        None = a :class:`~models.features.cache.FeatureCache` for this call only.
 
     Returns
     -------

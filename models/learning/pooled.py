@@ -37,7 +37,7 @@ from numpy.typing import NDArray
 from scipy.special import expit
 from sklearn.model_selection import GroupKFold, GroupShuffleSplit
 
-from ..features.cache import FeatureCache
+from ..features.source import FeatureSource
 from ..nights.night import Night
 from .artifacts import library_versions
 from .classifier import SleepModel
@@ -205,7 +205,7 @@ def _offset_held_out(held: list[HeldOutNight], rows: list[NightRows], pairs: lis
 
 
 def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfig = TrainingConfig(),
-                 progress: Progress | None = None, feature_cache: FeatureCache | None = None) -> PooledResult:
+                 progress: Progress | None = None, feature_cache: FeatureSource | None = None) -> PooledResult:
     """Train the pooled model, evaluate it leave-participants-out and estimate participant offsets.
 
     Parameters
@@ -217,8 +217,9 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     progress : callable, default=None
         ``progress(done, total, stage)`` after each night's features and each fit, called in the
         caller's thread; if it raises, training stops and the exception propagates.
-    feature_cache : FeatureCache, default=None
-        Where night features are looked up and stored; None = the process-wide default.
+    feature_cache : FeatureSource, default=None
+        Where night features are looked up and misses kept (:mod:`models.features.source`);
+        None = a :class:`~models.features.cache.FeatureCache` for this call only.
 
     Returns
     -------
@@ -242,7 +243,7 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     n_folds = min(config.pooled_folds, n_labelled_pids)
     total = len(flat) + n_folds + 1
     data: dict[str, list[NightRows]] = {pid: [] for pid in pids}
-    for done, r in enumerate(iter_prepared(flat, config, cache=feature_cache, n_jobs=config.n_jobs), start=1):
+    for done, r in enumerate(iter_prepared(flat, config, feature_cache=feature_cache, n_jobs=config.n_jobs), start=1):
         data[r.night.participant_id].append(r)
         if progress is not None:
             progress(done, total, "pooled: features")

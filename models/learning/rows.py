@@ -11,67 +11,15 @@ from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from joblib import Parallel, delayed
 from numpy.typing import NDArray
 
 from ..features.cache import FeatureCache
-from ..features.matrix import FeatureConfig, FeatureMatrix, compute_features
+from ..features.matrix import FeatureMatrix
+from ..features.source import FeatureSource
 from ..nights.night import Night
 from .config import TrainingConfig, TrainingDataError
 
-__all__ = ["NightRows", "iter_night_features", "iter_prepared", "labelled_nights", "night_features",
-           "prepare_nights", "study_seed"]
-
-#: In-memory feature cache shared by training and prediction in this process (256 MB LRU).
-DEFAULT_FEATURE_CACHE = FeatureCache()
-
-
-def _compute(night: Night, config: FeatureConfig) -> FeatureMatrix:
-    first, stop = night.in_bed
-    return compute_features(night.counts, night.epoch_seconds, config=config, lights_off_epoch=first,
-                            lights_on_epoch=stop)
-
-
-def night_features(night: Night, config: FeatureConfig, *, cache: FeatureCache | None = None) -> FeatureMatrix:
-    """Features of the whole night (lights indices from ``night.in_bed``), through a cache.
-
-    Parameters
-    ----------
-    night : Night
-    config : FeatureConfig
-    cache : FeatureCache, default=None
-        None uses :data:`DEFAULT_FEATURE_CACHE`, shared by every training call in the process.
-
-    Returns
-    -------
-    FeatureMatrix
-        Shape (n_epochs, n_features).
-    """
-    store = DEFAULT_FEATURE_CACHE if cache is None else cache
-    return store.get_or_compute(night.content_hash, config.version_for(night.epoch_seconds), lambda: _compute(night, config))
-
-
-def iter_night_features(nights: Sequence[Night], config: FeatureConfig, *, cache: FeatureCache | None = None,
-                        n_jobs: int = 1) -> Iterator[FeatureMatrix]:
-    """Features of each night, in order; cache misses computed on ``n_jobs`` processes.
-
-    Feature code is numpy on short arrays and holds the GIL most of the time, so threads do not
-    speed it up; with ``n_jobs > 1`` and several misses, joblib worker processes compute them.
-    Every computed matrix is stored in the cache.
-    """
-    store = DEFAULT_FEATURE_CACHE if cache is None else cache
-    found = [store.get(n.content_hash, config.version_for(n.epoch_seconds)) for n in nights]
-    missing = [n for n, f in zip(nights, found, strict=True) if f is None]
-    if n_jobs > 1 and len(missing) > 1:
-        computed: Iterator[FeatureMatrix] = iter(Parallel(n_jobs=n_jobs, return_as="generator")(
-            delayed(_compute)(n, config) for n in missing))
-    else:
-        computed = (_compute(n, config) for n in missing)
-    for night, features in zip(nights, found, strict=True):
-        if features is None:
-            features = next(computed)
-            store.put(night.content_hash, features.version, features)
-        yield features
+__all__ = ["NightRows", "iter_prepared", "labelled_nights", "prepare_nights", "study_seed"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -109,9 +57,19 @@ def labelled_nights(nights: Sequence[Night], config: TrainingConfig) -> list[Nig
     return sorted(out, key=lambda n: n.start)
 
 
-def iter_prepared(nights: Sequence[Night], config: TrainingConfig, *, cache: FeatureCache | None = None,
+def iter_prepared(nights: Sequence[Night], config: TrainingConfig, *, feature_cache: FeatureSource | None = None,
                   n_jobs: int = 1) -> Iterator[NightRows]:
-    """Features (through ``cache``) and training rows of each night, in the given order.
+    """Features and training rows of each night, in the given order.
+
+    Parameters
+    ----------
+    nights : sequence of Night
+    config : TrainingConfig
+    feature_cache : FeatureSource, default=None
+        Where the features are looked up and misses kept; None = a :class:`FeatureCache` for
+        this call only.
+    n_jobs : int, default=1
+        Processes computing missing features (:meth:`FeatureSource.features_of`).
 
     Raises
     ------
@@ -122,7 +80,8 @@ def iter_prepared(nights: Sequence[Night], config: TrainingConfig, *, cache: Fea
     if len(lengths) > 1:
         raise TrainingDataError(f"nights mix epoch lengths {lengths} s; aggregate them to one length first",
                                 code="mixed_epoch_lengths")
-    features_of = iter_night_features(nights, config.features, cache=cache, n_jobs=n_jobs)
+    source = FeatureCache() if feature_cache is None else feature_cache
+    features_of = source.features_of(nights, config.features, n_jobs=n_jobs)
     for night, features in zip(nights, features_of, strict=True):
         ref = night.reference_sleep(movement_time=config.movement_time)
         first, stop = night.in_bed
@@ -131,9 +90,9 @@ def iter_prepared(nights: Sequence[Night], config: TrainingConfig, *, cache: Fea
 
 
 def prepare_nights(nights: Sequence[Night], config: TrainingConfig, *,
-                   cache: FeatureCache | None = None) -> list[NightRows]:
-    """:func:`iter_prepared` as a list, features computed in this process."""
-    return list(iter_prepared(nights, config, cache=cache))
+                   feature_cache: FeatureSource | None = None) -> list[NightRows]:
+    """:func:`iter_prepared` as a list, missing features computed in this process."""
+    return list(iter_prepared(nights, config, feature_cache=feature_cache))
 
 
 def study_seed(seed: int, *keys: int) -> int:

@@ -33,6 +33,7 @@ import pandas as pd
 
 from ..agreement.bland_altman import REFERENCE, bland_altman_table
 from ..features.cache import FeatureCache
+from ..features.source import FeatureSource
 from ..agreement.epoch_metrics import ALWAYS_SLEEP, ScoredNight, agreement_table, always_sleep
 from ..nights.night import Night
 from ..scoring.parameters import PARAMETER_NAMES, sleep_parameters
@@ -160,7 +161,7 @@ def _sides(night: Night, config: TrainingConfig, models: Mapping[str, HeldOutNig
 def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfig = TrainingConfig(),
                   progress: Progress | None = None, rule_options: Mapping[str, Mapping[str, Any]] | None = None,
                   parameter_options: Mapping[str, Any] | None = None,
-                  feature_cache: FeatureCache | None = None) -> StudyComparison:
+                  feature_cache: FeatureSource | None = None) -> StudyComparison:
     """Train every model of a study and compare all methods on held-out nights.
 
     Parameters
@@ -174,8 +175,9 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
         Options per rule, e.g. ``{"count-threshold": {"threshold": 20}}``.
     parameter_options : mapping, default=None
         Keyword options of :func:`models.scoring.parameters.sleep_parameters` (same for every method).
-    feature_cache : FeatureCache, default=None
-        Night features are computed once and shared by all models; None = the process-wide cache.
+    feature_cache : FeatureSource, default=None
+        Night features are computed once and shared by all models; None = a
+        :class:`~models.features.cache.FeatureCache` for this comparison only.
 
     Returns
     -------
@@ -187,6 +189,7 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
         As :func:`~models.learning.pooled.train_pooled` (fewer than three labelled participants, ...).
     """
     rule_options, parameter_options = dict(rule_options or {}), dict(parameter_options or {})
+    feature_cache = FeatureCache() if feature_cache is None else feature_cache
     pids = sorted(nights)
     labelled = {pid: labelled_nights(list(nights[pid]), config) for pid in pids}
     personal_pids = [pid for pid in pids if len(labelled[pid]) >= config.min_personal_nights]

@@ -1,4 +1,4 @@
-"""Training rows: labelled nights, whole-night features through the cache, scored in-bed epochs."""
+"""Training rows: labelled nights, whole-night features, scored in-bed epochs."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ import pandas as pd
 from models.features.cache import FeatureCache
 from models.features.matrix import compute_features
 from models.learning.config import TrainingConfig
-from models.learning.rows import labelled_nights, night_features, prepare_nights
+from models.learning.rows import labelled_nights, prepare_nights
 from models.nights.night import Night
 
 
@@ -29,14 +29,7 @@ def test_labelled_nights_need_a_scored_in_bed_epoch_and_come_in_time_order() -> 
 
 def test_training_rows_are_scored_in_bed_epochs_of_whole_night_features() -> None:
     night = _night(["W"] * 10 + ["N2", "?"] * 15, lights_off_s=120)  # in bed from epoch 4
-    (rows,) = prepare_nights([night], TrainingConfig(), cache=FeatureCache())
+    (rows,) = prepare_nights([night], TrainingConfig(), feature_cache=FeatureCache())
     assert rows.rows.tolist() == [4, 5, 6, 7, 8, 9] + list(range(10, 40, 2))
     expected = compute_features(night.counts, 30, lights_off_epoch=4, lights_on_epoch=40)
     np.testing.assert_array_equal(rows.features.values, expected.values)
-
-
-def test_night_features_are_computed_once_per_cache() -> None:
-    cache, night = FeatureCache(), _night(["N2"] * 40)
-    first = night_features(night, TrainingConfig().features, cache=cache)
-    assert night_features(night, TrainingConfig().features, cache=cache) is first and len(cache) == 1
-    assert first.version == cache.get(night.content_hash, first.version).version
