@@ -25,6 +25,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from models import (
     EPOCH_METRIC_NAMES,
     Night,
+    Progress,
     TrainingConfig,
     choose_method,
     model_to_bytes,
@@ -42,7 +43,6 @@ from ..store.registry import find_participant, find_study, load_nights
 
 __all__ = ["Compute", "check_trainable", "compute_here", "queue_training", "refresh_choices", "run_training_job"]
 
-Progress = Callable[[int, int, str], None]
 #: compute(function, kwargs, progress) -> function(**kwargs) computed here or elsewhere; ``progress``
 #: must be called as work advances (it raises to stop the job)
 Compute = Callable[[Callable[..., Any], dict[str, Any], Progress], Any]
