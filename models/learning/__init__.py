@@ -1,4 +1,4 @@
-"""Sleep/wake models: splits, tuning, thresholds, the classifier and its artifacts, personal and pooled training, offsets and the study comparison."""
+"""Sleep/wake models: settings, training rows, splits, tuning, the threshold, the classifier and its artifacts, personal and pooled training, offsets, held-out figures and the study comparison."""
 
 from __future__ import annotations
 
