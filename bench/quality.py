@@ -41,7 +41,7 @@ from models.learning.study_comparison import COMPARED_RULES, compare_study  # no
 from models.simulation.demo_study import demo_nights  # noqa: E402
 from models.learning.offset import estimate_offset  # noqa: E402
 from models.simulation.simulator import CohortSpec, simulate_cohort  # noqa: E402
-from models.learning.training import TrainingConfig  # noqa: E402
+from models.learning.config import TrainingConfig  # noqa: E402
 
 METHODS = ("personal", "pooled", "pooled+offset", *COMPARED_RULES, "always-sleep")
 

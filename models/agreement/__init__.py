@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from .bland_altman import (
     BLAND_ALTMAN_PARAMETERS,
-    BlandAltman,
     REFERENCE,
+    BlandAltman,
     bland_altman,
     bland_altman_table,
 )

@@ -1,4 +1,4 @@
-"""Per-epoch features: sliding windows, summaries, dynamics, entropies, context, the feature matrix and its cache."""
+"""Per-epoch features: sliding windows, summaries, dynamics, entropies, context, the feature matrix and its sources."""
 
 from __future__ import annotations
 
@@ -36,6 +36,11 @@ from .matrix import (
     check_feature_set,
     compute_features,
 )
+from .source import (
+    FeatureSource,
+    PrecomputedFeatures,
+    night_features,
+)
 from .summaries import (
     SHARE_STATISTICS,
     SUMMARY_STATISTICS,
@@ -58,6 +63,8 @@ __all__ = [
     "FeatureInputError",
     "FeatureMatrix",
     "FeatureSetMismatchError",
+    "FeatureSource",
+    "PrecomputedFeatures",
     "SHARE_STATISTICS",
     "SUMMARY_STATISTICS",
     "check_feature_set",
@@ -71,6 +78,7 @@ __all__ = [
     "max_level_shift",
     "max_var_shift",
     "movement_context",
+    "night_features",
     "night_normalisers",
     "night_scale",
     "permutation_entropy",

@@ -17,16 +17,33 @@ from .classifier import (
     Projection,
     SleepModel,
 )
+from .config import (
+    CHOICE_POLICIES,
+    DEFAULT_SHRINKAGE_GRID,
+    POOLED_PARAMS,
+    InvalidTrainingConfigError,
+    TrainingConfig,
+    TrainingDataError,
+)
+from .descriptors import (
+    DESCRIPTOR_NAMES,
+    participant_descriptors,
+)
+from .held_out import (
+    HeldOutNight,
+    night_metrics_table,
+    summary_table,
+)
 from .method_choice import (
     MODEL_METHODS,
     choose_method,
 )
 from .offset import (
-    DEFAULT_SHRINKAGE_GRID,
     ShrinkageChoice,
     choose_shrinkage,
     estimate_offset,
     offset_log_likelihood,
+    participant_offset,
 )
 from .personal import (
     PersonalResult,
@@ -34,12 +51,18 @@ from .personal import (
 )
 from .pooled import (
     PooledResult,
-    participant_offset,
     train_pooled,
 )
+from .rows import (
+    NightRows,
+    iter_prepared,
+    labelled_nights,
+    prepare_nights,
+    study_seed,
+)
 from .splits import (
-    ForwardChainedSplit,
     SPLITTERS,
+    ForwardChainedSplit,
     TooFewNightsError,
 )
 from .study_comparison import (
@@ -54,24 +77,16 @@ from .tasks import (
     TrainingCancelled,
     run_tasks,
 )
-from .training import (
-    CHOICE_POLICIES,
-    DESCRIPTOR_NAMES,
-    HeldOutNight,
-    InvalidTrainingConfigError,
-    POOLED_PARAMS,
-    TrainingConfig,
-    TrainingDataError,
-    participant_descriptors,
+from .threshold import (
+    youden_threshold,
 )
 from .tuning import (
     PCA_CHOICES,
-    TunedPipeline,
     WARM_START,
+    TunedPipeline,
     booster_params,
     suggest_hyperparameters,
     tune_and_fit,
-    youden_threshold,
 )
 
 __all__ = [
@@ -87,6 +102,7 @@ __all__ = [
     "InvalidTrainingConfigError",
     "MODEL_METHODS",
     "ModelKind",
+    "NightRows",
     "PCA_CHOICES",
     "POOLED_PARAMS",
     "PersonalResult",
@@ -110,16 +126,22 @@ __all__ = [
     "compare_study",
     "estimate_offset",
     "held_out_comparison",
+    "iter_prepared",
+    "labelled_nights",
     "library_versions",
     "load_model",
     "model_from_bytes",
     "model_to_bytes",
+    "night_metrics_table",
     "offset_log_likelihood",
     "participant_descriptors",
     "participant_offset",
+    "prepare_nights",
     "run_tasks",
     "save_model",
+    "study_seed",
     "suggest_hyperparameters",
+    "summary_table",
     "train_personal",
     "train_pooled",
     "tune_and_fit",

@@ -1,8 +1,8 @@
 """The fitted sleep/wake model: features -> optional standardise + PCA -> XGBoost -> threshold.
 
 A :class:`SleepModel` is built by :func:`models.learning.personal.train_personal` or
-:func:`models.learning.pooled.train_pooled` and restored by :meth:`SleepModel.from_bytes`; it is never
-pickled. Prediction always goes through the same numpy and XGBoost calls, so a restored model
+:func:`models.learning.pooled.train_pooled`, saved and restored by :mod:`models.learning.artifacts`; it
+is never pickled. Prediction always goes through the same numpy and XGBoost calls, so a restored model
 gives bit-identical probabilities.
 """
 
@@ -20,8 +20,9 @@ from sklearn.decomposition import PCA
 from sklearn.preprocessing import StandardScaler
 
 from ..features.matrix import FeatureConfig, FeatureMatrix, FeatureSetMismatchError, check_feature_set
+from ..features.source import FeatureSource, night_features
 from ..nights.night import Night
-from .training import night_features, participant_descriptors
+from .descriptors import participant_descriptors
 
 __all__ = ["ModelKind", "Projection", "SleepModel"]
 
@@ -181,7 +182,8 @@ class SleepModel:
 
     # ---- prediction -----------------------------------------------------------------------------
     def decision_function(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
-                          features: FeatureMatrix | None = None) -> NDArray[np.float64]:
+                          features: FeatureMatrix | None = None,
+                          feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
         """Log-odds of sleep per epoch, plus ``offset``.
 
         Parameters
@@ -190,10 +192,13 @@ class SleepModel:
         offset : float, default=0.0
             Participant offset in log-odds, added to the margin (see :mod:`models.learning.offset`).
         descriptors : mapping of str to float, default=None
-            Pooled models: the participant's :func:`~models.learning.training.participant_descriptors`
+            Pooled models: the participant's :func:`~models.learning.descriptors.participant_descriptors`
             (over all their nights). None computes them from this night alone.
         features : FeatureMatrix, default=None
-            Precomputed features of ``night``; computed with ``feature_config_`` when None.
+            Precomputed features of ``night``; when None they come from ``feature_cache``.
+        feature_cache : FeatureSource, default=None
+            Where the night's features (``feature_config_``) are looked up, and kept when
+            computed; None computes them (:func:`models.features.source.night_features`).
 
         Returns
         -------
@@ -206,32 +211,22 @@ class SleepModel:
             set (other configuration, code revision or epoch length).
         """
         if features is None:
-            features = night_features(night, self.feature_config_)
+            features = (night_features(night, self.feature_config_) if feature_cache is None
+                        else feature_cache.features(night, self.feature_config_))
         if self.descriptor_names_ and descriptors is None:
             descriptors = participant_descriptors([night])
         return self.margin_from_matrix(self.design_matrix(features, descriptors)) + float(offset)
 
     def predict_proba(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
-                      features: FeatureMatrix | None = None) -> NDArray[np.float64]:
+                      features: FeatureMatrix | None = None,
+                      feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
         """Probability of sleep per epoch, shape (n_epochs,), float64 (see :meth:`decision_function`)."""
-        return expit(self.decision_function(night, offset=offset, descriptors=descriptors, features=features))
+        return expit(self.decision_function(night, offset=offset, descriptors=descriptors, features=features,
+                                            feature_cache=feature_cache))
 
     def predict(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
-                features: FeatureMatrix | None = None) -> NDArray[np.int8]:
+                features: FeatureMatrix | None = None, feature_cache: FeatureSource | None = None) -> NDArray[np.int8]:
         """Sleep (1) / wake (0) per epoch at ``threshold_``, shape (n_epochs,), int8."""
-        p = self.predict_proba(night, offset=offset, descriptors=descriptors, features=features)
+        p = self.predict_proba(night, offset=offset, descriptors=descriptors, features=features,
+                               feature_cache=feature_cache)
         return (p >= self.threshold_).astype(np.int8)
-
-    # ---- storage --------------------------------------------------------------------------------
-    def to_bytes(self) -> tuple[bytes, dict[str, Any]]:
-        """XGBoost UBJSON booster bytes and a JSON-able metadata dict (see :mod:`models.learning.artifacts`)."""
-        from .artifacts import model_to_bytes
-
-        return model_to_bytes(self)
-
-    @classmethod
-    def from_bytes(cls, booster: bytes, metadata: Mapping[str, Any]) -> SleepModel:
-        """Restore a model saved by :meth:`to_bytes` (no pickle)."""
-        from .artifacts import model_from_bytes
-
-        return model_from_bytes(booster, metadata)

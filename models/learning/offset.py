@@ -43,11 +43,14 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.special import expit
 
 from ..errors import NightbankError
+from ..features.source import FeatureSource
+from ..nights.night import Night
+from .classifier import SleepModel
+from .config import DEFAULT_SHRINKAGE_GRID, TrainingConfig
+from .descriptors import participant_descriptors
 
-__all__ = ["DEFAULT_SHRINKAGE_GRID", "ShrinkageChoice", "choose_shrinkage", "estimate_offset", "offset_log_likelihood"]
+__all__ = ["ShrinkageChoice", "choose_shrinkage", "estimate_offset", "offset_log_likelihood", "participant_offset"]
 
-#: Candidate penalties (precision of the offset prior, in units of per-epoch log-likelihood).
-DEFAULT_SHRINKAGE_GRID: tuple[float, ...] = tuple(float(v) for v in np.geomspace(0.1, 1e5, 19))
 _MAX_STEP = 4.0
 _BOUND = 30.0
 
@@ -247,3 +250,44 @@ def choose_shrinkage(nights: Mapping[str, Sequence[tuple[ArrayLike, ArrayLike]]]
         return ShrinkageChoice(float(penalties[-1]), tuple(penalties.tolist()), tuple(ll.tolist()), {})
     ll = np.sum([np.asarray(v) for v in per.values()], axis=0)
     return ShrinkageChoice(float(penalties[_best(ll)]), tuple(penalties.tolist()), tuple(float(v) for v in ll), per)
+
+
+def participant_offset(model: SleepModel, nights: Sequence[Night], *, shrinkage: float,
+                       config: TrainingConfig = TrainingConfig(), descriptors: Mapping[str, float] | None = None,
+                       feature_cache: FeatureSource | None = None) -> float:
+    """Offset of a participant the pooled ``model`` never saw, from their labelled nights.
+
+    Parameters
+    ----------
+    model : SleepModel
+        A pooled model.
+    nights : sequence of Night
+        The participant's nights; labelled in-bed epochs are used, all nights give the
+        descriptors when ``descriptors`` is None.
+    shrinkage : float
+        Penalty, e.g. :attr:`PooledResult.shrinkage`.
+    config : TrainingConfig, default=TrainingConfig()
+        Only ``movement_time`` is used (reference binarisation).
+    descriptors : mapping, default=None
+        The participant's descriptors (:func:`~models.learning.descriptors.participant_descriptors`).
+    feature_cache : FeatureSource, default=None
+        Where night features are looked up (:mod:`models.features.source`); None computes them.
+
+    Returns
+    -------
+    float
+        Log-odds offset (0.0 without labelled epochs).
+    """
+    descriptors = descriptors or participant_descriptors(list(nights))
+    margins, refs = [], []
+    for night in nights:
+        ref = night.reference_sleep(movement_time=config.movement_time)
+        if ref is None:
+            continue
+        bed = slice(*night.in_bed)
+        margin = model.decision_function(night, descriptors=descriptors, feature_cache=feature_cache)
+        margins.append(margin[bed] + model.offset_baseline_)
+        refs.append(ref[bed])
+    if not margins:
+        return 0.0
+    return estimate_offset(np.concatenate(margins), np.concatenate(refs), shrinkage=shrinkage)

@@ -2,9 +2,11 @@
 
 Nested validation, so that nothing about a held-out night reaches its prediction:
 
-- outer loop, leave-one-night-out: each labelled night is held out once; a full search
-  (:func:`models.learning.tuning.tune_and_fit`: forward-chained inner splits, early stopping, threshold)
-  runs on the *other* nights and its refitted model predicts the held-out night;
+- outer loop, leave-one-night-out (``SPLITTERS["leave-one-night-out"]``: scikit-learn's
+  ``LeaveOneGroupOut`` with the nights as groups): each labelled night is held out once, in
+  chronological order; a full search (:func:`models.learning.tuning.tune_and_fit`:
+  forward-chained inner splits, early stopping, threshold) runs on the *other* nights and its
+  refitted model predicts the held-out night;
 - final model: the same search on all labelled nights, refitted on all of them.
 
 With ``n`` labelled nights that is ``n + 1`` independent studies; they run on ``n_jobs``
@@ -21,22 +23,15 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..features.source import FeatureSource
+from ..nights.night import Night
 from .artifacts import library_versions
 from .classifier import SleepModel
-from ..features.cache import FeatureCache
-from ..nights.night import Night
+from .config import TrainingConfig, TrainingDataError
+from .held_out import HeldOutNight, night_metrics_table, summary_table
+from .rows import NightRows, labelled_nights, prepare_nights, study_seed
+from .splits import SPLITTERS
 from .tasks import Progress, Reporter, run_tasks
-from .training import (
-    HeldOutNight,
-    NightRows,
-    TrainingConfig,
-    TrainingDataError,
-    labelled_nights,
-    night_metrics_table,
-    prepare_nights,
-    study_seed,
-    summary_table,
-)
 from .tuning import TunedPipeline, tune_and_fit
 
 __all__ = ["PersonalResult", "train_personal"]
@@ -92,12 +87,12 @@ def _model(pipe: TunedPipeline, nights: Sequence[NightRows], config: TrainingCon
         info={"seed": seed, "inner_auc": pipe.best_value, "tuning": pipe.trials, "libraries": library_versions()})
 
 
-def _labelled(nights: Sequence[Night], config: TrainingConfig, cache: FeatureCache | None) -> list[NightRows]:
+def _labelled(nights: Sequence[Night], config: TrainingConfig, source: FeatureSource | None) -> list[NightRows]:
     owners = sorted({n.participant_id for n in nights})
     if len(owners) > 1:
         raise TrainingDataError(f"a personal model takes one participant's nights, got {owners}",
                                 code="mixed_participants")
-    rows = prepare_nights(labelled_nights(nights, config), config, cache=cache)
+    rows = prepare_nights(labelled_nights(nights, config), config, feature_cache=source)
     if len(rows) < config.min_personal_nights:
         raise TrainingDataError(
             f"a personal model needs {config.min_personal_nights} labelled nights, got {len(rows)}",
@@ -106,7 +101,7 @@ def _labelled(nights: Sequence[Night], config: TrainingConfig, cache: FeatureCac
 
 
 def train_personal(nights: Sequence[Night], *, config: TrainingConfig = TrainingConfig(),
-                   progress: Progress | None = None, feature_cache: FeatureCache | None = None) -> PersonalResult:
+                   progress: Progress | None = None, feature_cache: FeatureSource | None = None) -> PersonalResult:
     """Tune, evaluate (nested) and train a participant's personal model.
 
     Parameters
@@ -117,8 +112,9 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     progress : callable, default=None
         ``progress(done, total, stage)`` after every trial and fit, called in the caller's
         thread; if it raises, training stops and the exception propagates.
-    feature_cache : FeatureCache, default=None
-        Where night features are looked up and stored; None = the process-wide default.
+    feature_cache : FeatureSource, default=None
+        Where night features are looked up and misses kept (:mod:`models.features.source`);
+        None = a :class:`~models.features.cache.FeatureCache` for this call only.
 
     Returns
     -------
@@ -134,11 +130,15 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     rows = _labelled(nights, config, feature_cache)
     n = len(rows)
     per_study = config.n_trials + 1
+    # one entry per night, grouped by its chronological rank: split k holds out the k-th night
+    ranks = np.arange(n)
+    outer = list(SPLITTERS["leave-one-night-out"]().split(ranks, groups=ranks))
 
     def outer_task(k: int) -> Any:
         def run(reporter: Reporter) -> tuple[HeldOutNight, dict[str, Any]]:
-            held = rows[k]
-            others = rows[:k] + rows[k + 1:]
+            train_idx, (held_idx,) = outer[k]
+            held = rows[held_idx]
+            others = [rows[i] for i in train_idx]
             seed = study_seed(config.seed, k + 1)
             model = _model(tune_and_fit(others, config=config, seed=seed, reporter=reporter,
                                         stage=f"personal: night {k + 1}/{n} held out"), others, config, seed)
@@ -155,13 +155,13 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
         pipe = tune_and_fit(rows, config=config, seed=seed, reporter=reporter, stage="personal: final model")
         return _model(pipe, rows, config, seed)
 
-    results = run_tasks([final_task, *(outer_task(k) for k in range(n))], n_jobs=config.n_jobs,
+    results = run_tasks([final_task, *(outer_task(k) for k in range(len(outer)))], n_jobs=config.n_jobs,
                         total=(n + 1) * per_study, progress=progress)
     model: SleepModel = results[0]
-    outer: list[HeldOutNight] = [held for held, _ in results[1:]]
-    night_metrics = night_metrics_table(outer)
+    held_out: list[HeldOutNight] = [held for held, _ in results[1:]]
+    night_metrics = night_metrics_table(held_out)
     trials = pd.DataFrame([row for _, row in results[1:]] + [_trial_row("final", model)])
-    return PersonalResult(model=model, outer=outer, night_metrics=night_metrics,
+    return PersonalResult(model=model, outer=held_out, night_metrics=night_metrics,
                           summary=summary_table(night_metrics), best_params=dict(model.params_), trials=trials)
 
 

@@ -1,7 +1,7 @@
 """Pooled model: every participant's labelled nights, evaluated leave-participants-out, with offsets.
 
 Inputs per epoch are the night's features plus the participant's label-free descriptors
-(:func:`~models.learning.training.participant_descriptors`, over all their nights, labelled or not).
+(:func:`~models.learning.descriptors.participant_descriptors`, over all their nights, labelled or not).
 
 Hyperparameters are fixed (``TrainingConfig.pooled_params``: depth 6, learning rate 0.1, min
 child weight 5, 80% rows and 70% features per tree, L2 1, ``class_balance`` 0.5, no PCA) rather
@@ -37,29 +37,20 @@ from numpy.typing import NDArray
 from scipy.special import expit
 from sklearn.model_selection import GroupKFold, GroupShuffleSplit
 
+from ..features.source import FeatureSource
+from ..nights.night import Night
 from .artifacts import library_versions
 from .classifier import SleepModel
-from ..features.cache import FeatureCache
-from ..nights.night import Night
+from .config import POOLED_PARAMS, TrainingConfig, TrainingDataError
+from .descriptors import DESCRIPTOR_NAMES, participant_descriptors
+from .held_out import HeldOutNight, night_metrics_table, summary_table
 from .offset import ShrinkageChoice, choose_shrinkage, estimate_offset
+from .rows import NightRows, iter_prepared, labelled_nights, study_seed
 from .tasks import Progress, Reporter, run_tasks
-from .training import (
-    DESCRIPTOR_NAMES,
-    POOLED_PARAMS,
-    HeldOutNight,
-    NightRows,
-    TrainingConfig,
-    TrainingDataError,
-    iter_prepared,
-    labelled_nights,
-    night_metrics_table,
-    participant_descriptors,
-    study_seed,
-    summary_table,
-)
-from .tuning import booster_params, youden_threshold
+from .threshold import youden_threshold
+from .tuning import booster_params
 
-__all__ = ["PooledResult", "participant_offset", "train_pooled"]
+__all__ = ["PooledResult", "train_pooled"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -214,7 +205,7 @@ def _offset_held_out(held: list[HeldOutNight], rows: list[NightRows], pairs: lis
 
 
 def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfig = TrainingConfig(),
-                 progress: Progress | None = None, feature_cache: FeatureCache | None = None) -> PooledResult:
+                 progress: Progress | None = None, feature_cache: FeatureSource | None = None) -> PooledResult:
     """Train the pooled model, evaluate it leave-participants-out and estimate participant offsets.
 
     Parameters
@@ -226,8 +217,9 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     progress : callable, default=None
         ``progress(done, total, stage)`` after each night's features and each fit, called in the
         caller's thread; if it raises, training stops and the exception propagates.
-    feature_cache : FeatureCache, default=None
-        Where night features are looked up and stored; None = the process-wide default.
+    feature_cache : FeatureSource, default=None
+        Where night features are looked up and misses kept (:mod:`models.features.source`);
+        None = a :class:`~models.features.cache.FeatureCache` for this call only.
 
     Returns
     -------
@@ -251,7 +243,7 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     n_folds = min(config.pooled_folds, n_labelled_pids)
     total = len(flat) + n_folds + 1
     data: dict[str, list[NightRows]] = {pid: [] for pid in pids}
-    for done, r in enumerate(iter_prepared(flat, config, cache=feature_cache, n_jobs=config.n_jobs), start=1):
+    for done, r in enumerate(iter_prepared(flat, config, feature_cache=feature_cache, n_jobs=config.n_jobs), start=1):
         data[r.night.participant_id].append(r)
         if progress is not None:
             progress(done, total, "pooled: features")
@@ -290,40 +282,3 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     return PooledResult(model=final, held_out=held_out, offsets=offsets, shrinkage=search.shrinkage,
                         shrinkage_search=search, offset_held_out=offset_held_out, descriptors=descriptors,
                         folds=fold_of, baselines=baselines, night_metrics=night_metrics, summary=summary)
-
-
-def participant_offset(model: SleepModel, nights: Sequence[Night], *, shrinkage: float,
-                       config: TrainingConfig = TrainingConfig(),
-                       descriptors: Mapping[str, float] | None = None) -> float:
-    """Offset of a participant the pooled ``model`` never saw, from their labelled nights.
-
-    Parameters
-    ----------
-    model : SleepModel
-        A pooled model.
-    nights : sequence of Night
-        The participant's nights; labelled in-bed epochs are used, all nights give the
-        descriptors when ``descriptors`` is None.
-    shrinkage : float
-        Penalty, e.g. :attr:`PooledResult.shrinkage`.
-    config : TrainingConfig, default=TrainingConfig()
-        Only ``movement_time`` is used (reference binarisation).
-    descriptors : mapping, default=None
-
-    Returns
-    -------
-    float
-        Log-odds offset (0.0 without labelled epochs).
-    """
-    descriptors = descriptors or participant_descriptors(list(nights))
-    margins, refs = [], []
-    for night in nights:
-        ref = night.reference_sleep(movement_time=config.movement_time)
-        if ref is None:
-            continue
-        bed = slice(*night.in_bed)
-        margins.append(model.decision_function(night, descriptors=descriptors)[bed] + model.offset_baseline_)
-        refs.append(ref[bed])
-    if not margins:
-        return 0.0
-    return estimate_offset(np.concatenate(margins), np.concatenate(refs), shrinkage=shrinkage)

@@ -35,6 +35,7 @@ from numpy.typing import ArrayLike
 from ..agreement.comparison import NightComparison, compare_night, comparison_tables
 from ..agreement.epoch_metrics import ALWAYS_SLEEP, always_sleep
 from ..features.cache import FeatureCache
+from ..features.source import FeatureSource
 from ..nights.night import MovementTimePolicy, Night
 from ..records import json_records
 from ..scoring.rules import score_with_rule
@@ -42,7 +43,9 @@ from .method_choice import MODEL_METHODS, choose_method
 from .personal import PersonalResult, train_personal
 from .pooled import PooledResult, train_pooled
 from .tasks import Progress
-from .training import HeldOutNight, TrainingConfig, TrainingDataError, labelled_nights
+from .config import TrainingConfig, TrainingDataError
+from .held_out import HeldOutNight
+from .rows import labelled_nights
 
 __all__ = ["COMPARED_RULES", "StudyComparison", "compare_study", "held_out_comparison"]
 
@@ -167,7 +170,7 @@ def held_out_comparison(night: Night, held_out: Mapping[str, HeldOutNight], *, p
 def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfig = TrainingConfig(),
                   progress: Progress | None = None, rule_options: Mapping[str, Mapping[str, Any]] | None = None,
                   parameter_options: Mapping[str, Any] | None = None,
-                  feature_cache: FeatureCache | None = None) -> StudyComparison:
+                  feature_cache: FeatureSource | None = None) -> StudyComparison:
     """Train every model of a study and compare all methods on held-out nights.
 
     Parameters
@@ -181,8 +184,9 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
         Options per rule, e.g. ``{"count-threshold": {"threshold": 20}}``.
     parameter_options : mapping, default=None
         Keyword options of :func:`models.scoring.parameters.sleep_parameters` (same for every method).
-    feature_cache : FeatureCache, default=None
-        Night features are computed once and shared by all models; None = the process-wide cache.
+    feature_cache : FeatureSource, default=None
+        Night features are computed once and shared by all models; None = a
+        :class:`~models.features.cache.FeatureCache` for this comparison only.
 
     Returns
     -------
@@ -193,6 +197,7 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
     TrainingDataError
         As :func:`~models.learning.pooled.train_pooled` (fewer than three labelled participants, ...).
     """
+    feature_cache = FeatureCache() if feature_cache is None else feature_cache
     pids = sorted(nights)
     labelled = {pid: labelled_nights(list(nights[pid]), config) for pid in pids}
     personal_pids = [pid for pid in pids if len(labelled[pid]) >= config.min_personal_nights]

@@ -50,15 +50,17 @@ import numpy as np
 import optuna
 import xgboost as xgb
 from numpy.typing import NDArray
-from sklearn.metrics import roc_auc_score, roc_curve
+from sklearn.metrics import roc_auc_score
 
 from .classifier import Projection
+from .config import TrainingConfig
+from .rows import NightRows
 from .splits import ForwardChainedSplit
 from .tasks import Reporter
-from .training import NightRows, TrainingConfig
+from .threshold import youden_threshold
 
 __all__ = ["PCA_CHOICES", "TunedPipeline", "WARM_START", "booster_params", "suggest_hyperparameters",
-           "tune_and_fit", "youden_threshold"]
+           "tune_and_fit"]
 
 #: PCA settings searched: 0.0 = off, else the share of variance kept.
 PCA_CHOICES: tuple[float, ...] = (0.0, 0.90, 0.95, 0.99)
@@ -98,42 +100,6 @@ def booster_params(hyperparameters: Mapping[str, float], *, y: NDArray[np.float6
         "colsample_bytree": float(hp["colsample_bytree"]), "lambda": float(hp["reg_lambda"]),
         "alpha": float(hp["reg_alpha"]), "scale_pos_weight": ratio ** float(hp["class_balance"]),
     }
-
-
-def youden_threshold(y: NDArray[np.float64], p: NDArray[np.float64], *, min_sensitivity: float = 0.0) -> float:
-    """Probability threshold maximising Youden's J = sensitivity + specificity - 1.
-
-    Uses :func:`sklearn.metrics.roc_curve` (sleep = positive); an epoch is called sleep when
-    ``p >= threshold``. Only thresholds whose sensitivity is at least ``min_sensitivity`` compete
-    (the point calling everything sleep always qualifies); among equal J the highest threshold
-    wins. Returns 0.5 when ``y`` holds a single class.
-
-    Parameters
-    ----------
-    y : ndarray of shape (n_epochs,)
-        1 = sleep, 0 = wake.
-    p : ndarray of shape (n_epochs,)
-        Probability of sleep.
-    min_sensitivity : float, default=0.0
-        Sensitivity floor; 0 is plain Youden's J (maximum balanced accuracy).
-
-    Returns
-    -------
-    float
-
-    Examples
-    --------
-    >>> y, p = np.array([0, 0, 1, 1.0]), np.array([0.1, 0.4, 0.35, 0.8])
-    >>> youden_threshold(y, p), youden_threshold(y, p, min_sensitivity=0.9)
-    (0.8, 0.35)
-    """
-    y = np.asarray(y, dtype=np.float64)
-    if np.unique(y).size < 2:
-        return 0.5
-    fpr, tpr, thresholds = roc_curve(y, p)
-    # the first point is the "nothing called sleep" corner (threshold inf)
-    j = np.where(tpr >= min_sensitivity, tpr - fpr, -np.inf)[1:]
-    return float(thresholds[1:][int(np.argmax(j))])
 
 
 @dataclass(frozen=True, eq=False)

@@ -3,14 +3,21 @@
 from __future__ import annotations
 
 from .checks import (
+    CodedLabels,
     NightOptions,
     QCConfig,
     QCFlag,
     quality_flags,
+    runs_of,
     validate_night_fields,
 )
 from .decoding import (
     COLUMN_ALIASES,
+    META_LINE,
+    decode_text,
+    finish_night,
+    metadata_fields,
+    parse_time,
 )
 from .formats import (
     FORMATS,
@@ -22,11 +29,11 @@ from .json_io import (
     night_to_json,
 )
 from .night import (
-    MovementTimePolicy,
-    Night,
     STAGE_CODES,
     SUPPORTED_EPOCH_SECONDS,
     UNSCORED_CODES,
+    MovementTimePolicy,
+    Night,
     canonical_stage,
     stages_to_sleep,
 )
@@ -43,7 +50,9 @@ from .tabular import (
 
 __all__ = [
     "COLUMN_ALIASES",
+    "CodedLabels",
     "FORMATS",
+    "META_LINE",
     "MovementTimePolicy",
     "Night",
     "NightOptions",
@@ -54,16 +63,21 @@ __all__ = [
     "UNSCORED_CODES",
     "aggregate_epochs",
     "canonical_stage",
+    "decode_text",
     "detect_format",
+    "finish_night",
     "majority_stage",
+    "metadata_fields",
     "night_from_csv",
     "night_from_json",
     "night_from_parquet",
     "night_to_csv",
     "night_to_json",
     "night_to_parquet",
+    "parse_time",
     "quality_flags",
     "read_night",
+    "runs_of",
     "stages_to_sleep",
     "validate_night_fields",
 ]

@@ -11,7 +11,7 @@ While the task runs, the worker reports a ``running on the Dask cluster`` stage 
 ``poll_s``; a cancelled job or a lost lease cancels the task (a task already running keeps its
 Dask worker busy until it ends, since Dask does not interrupt running tasks; its result is
 dropped). If the scheduler cannot be reached (at connection or while the task runs),
-:class:`~service.jobs.workers.ExecutorUnavailable` puts the job back in the queue with a status naming
+:class:`~service.jobs.executor.ExecutorUnavailable` puts the job back in the queue with a status naming
 the scheduler, and the worker retries later. Dask's workers need nightbank installed (they import
 :mod:`models` to run the task).
 """
@@ -25,10 +25,12 @@ from typing import Any
 
 from sqlalchemy.orm import Session, sessionmaker
 
+from models import Progress
+
 from ..config import Settings
+from .executor import ExecutorUnavailable, JobExecutor
 from .queue import JobInfo
-from .training import Progress, run_training_job
-from .workers import ExecutorUnavailable, JobExecutor, ProgressCallback
+from .training import Compute, run_training_job
 
 __all__ = ["DaskExecutor"]
 
@@ -88,7 +90,7 @@ class DaskExecutor(JobExecutor):
                 log.debug("closing the Dask client failed", exc_info=True)
             self._client = None
 
-    def _compute(self, job: JobInfo) -> Callable[[Callable[..., Any], dict[str, Any], Progress], Any]:
+    def _compute(self, job: JobInfo) -> Compute:
         from distributed.client import FutureCancelledError
 
         client = self.client()
@@ -111,6 +113,6 @@ class DaskExecutor(JobExecutor):
 
         return compute
 
-    def run(self, job: JobInfo, *, progress: ProgressCallback) -> dict[str, Any]:
+    def run(self, job: JobInfo, *, progress: Progress) -> dict[str, Any]:
         return run_training_job(job, factory=self.factory, settings=self.settings, progress=progress,
                                 compute=self._compute(job))

@@ -4,8 +4,13 @@ The worker calls :func:`run_training_job`; the science (tuning, nested validatio
 personal-versus-pooled choice) is all in :mod:`models`. This module only moves data between the
 database and those functions and writes the registry record of the new version.
 
+Training gets its night features from the database (:mod:`service.store.features`): the stored
+matrices are loaded in bulk and the missing ones computed here and stored, before the training
+call, which receives them as a :class:`models.PrecomputedFeatures` source and computes none.
+
 The training call itself goes through a :data:`Compute` function: :func:`compute_here` runs it in
-this process; an executor may run it elsewhere (a Dask cluster). The version is stored only if
+this process; an executor may run it elsewhere (a Dask cluster, where the features travel with
+the nights in the call's arguments). The version is stored only if
 the job is still held by the same claim (``attempts`` unchanged), so a worker whose lease was
 taken over never adds a version; the version row holds its bytes, written in one transaction.
 A job that already stored its version (its worker died before recording the outcome) returns
@@ -22,7 +27,18 @@ import pandas as pd
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import EPOCH_METRIC_NAMES, Night, TrainingConfig, choose_method, train_personal, train_pooled
+from models import (
+    EPOCH_METRIC_NAMES,
+    FeatureConfig,
+    Night,
+    PrecomputedFeatures,
+    Progress,
+    TrainingConfig,
+    choose_method,
+    model_to_bytes,
+    train_personal,
+    train_pooled,
+)
 
 from ..store import db, versions
 from ..store.codec import encode_held_out
@@ -30,13 +46,13 @@ from ..config import Settings
 from ..errors import Conflict, NotFound, Unprocessable
 from ..store.db import session_scope
 from ..store.metadata import HeldOutFigures, MetricSummary, ModelMetadata, Selection, TrainingNight
+from ..store.features import load_features_of, store_features
 from .queue import JobInfo, enqueue_job
 from ..store.registry import (ParticipantInfo, StudyInfo, find_participant, find_study, load_nights, record_choice,
                               study_participants)
 
 __all__ = ["Compute", "check_trainable", "compute_here", "queue_training", "refresh_choices", "run_training_job"]
 
-Progress = Callable[[int, int, str], None]
 #: compute(function, kwargs, progress) -> function(**kwargs) computed here or elsewhere; ``progress``
 #: must be called as work advances (it raises to stop the job)
 Compute = Callable[[Callable[..., Any], dict[str, Any], Progress], Any]
@@ -153,6 +169,45 @@ def _metadata(model: Any, nights: Sequence[Night], config: TrainingConfig, metri
     )
 
 
+def _night_pks(session: Session, *, study_pk: int, nights: Sequence[Night]) -> list[int]:
+    """Database keys of ``nights`` (of the study), in order."""
+    pk_of = {(pid, content_hash): pk for pk, pid, content_hash in session.execute(
+        select(db.Night.pk, db.Participant.participant_id, db.Night.content_hash)
+        .join(db.Participant, db.Participant.pk == db.Night.participant_pk)
+        .where(db.Participant.study_pk == study_pk))}
+    return [pk_of[(n.participant_id, n.content_hash)] for n in nights]
+
+
+def _training_features(factory: sessionmaker[Session], nights: Sequence[Night], night_pks: Sequence[int], *,
+                       config: FeatureConfig, n_jobs: int, progress: Progress, stage: str) -> PrecomputedFeatures:
+    """Features of ``nights`` for training: the stored ones, and the missing ones computed here and stored.
+
+    Parameters
+    ----------
+    nights : sequence of Night
+        The nights training computes features of (the labelled ones).
+    night_pks : sequence of int
+        Their database keys, in the same order.
+    config : FeatureConfig
+    n_jobs : int
+        Processes computing missing features.
+    progress : callable
+        Called after each computed night (it raises to stop the job).
+    stage : str
+        Progress label.
+    """
+    with db.session_scope(factory) as session:
+        stored = load_features_of(session, night_pks=night_pks, config=config)
+    source = PrecomputedFeatures({n.content_hash: stored[pk] for n, pk in zip(nights, night_pks, strict=True)
+                                  if pk in stored})
+    missing = [(n, pk) for n, pk in zip(nights, night_pks, strict=True) if source.lookup(n, config) is None]
+    computed = source.features_of([n for n, _ in missing], config, n_jobs=n_jobs)
+    for done, ((_, pk), features) in enumerate(zip(missing, computed, strict=True), start=1):
+        store_features(factory, night_pk=pk, config=config, features=features)
+        progress(done, len(missing), stage)
+    return source
+
+
 def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
                   progress: Progress, compute: Compute) -> dict[str, Any]:
     config = _config(job, settings)
@@ -161,9 +216,12 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
         study = find_study(session, job.study_id)
         participant = find_participant(session, study, job.participant_id)
         nights = load_nights(session, participant=participant, labelled_only=True)
+        night_pks = _night_pks(session, study_pk=study.pk, nights=nights)
     progress(0, 1, "personal: loading nights")
-    result = compute(train_personal, {"nights": nights, "config": config}, progress)
-    booster, meta = result.model.to_bytes()
+    features = _training_features(factory, nights, night_pks, config=config.features, n_jobs=config.n_jobs,
+                                  progress=progress, stage="personal: night features")
+    result = compute(train_personal, {"nights": nights, "config": config, "feature_cache": features}, progress)
+    booster, meta = model_to_bytes(result.model)
     metadata = _metadata(result.model, nights, config, _summary(result.summary),
                          night_metrics=tuple(_records(result.night_metrics)))
     with db.session_scope(factory, write=True) as session:
@@ -185,9 +243,13 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
         study = find_study(session, job.study_id)
         by_participant = {p.participant_id: load_nights(session, participant=p)
                           for p in study_participants(session, study=study)}
+        labelled = [n for nights in by_participant.values() for n in nights if n.reference is not None]
+        night_pks = _night_pks(session, study_pk=study.pk, nights=labelled)
     progress(0, 1, "pooled: loading nights")
-    result = compute(train_pooled, {"nights": by_participant, "config": config}, progress)
-    booster, meta = result.model.to_bytes()
+    features = _training_features(factory, labelled, night_pks, config=config.features, n_jobs=config.n_jobs,
+                                  progress=progress, stage="pooled: night features")
+    result = compute(train_pooled, {"nights": by_participant, "config": config, "feature_cache": features}, progress)
+    booster, meta = model_to_bytes(result.model)
     all_nights = [n for nights in by_participant.values() for n in nights]
     held = result.night_metrics
     by_method = set(result.summary.index.get_level_values(0))

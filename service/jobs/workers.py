@@ -1,16 +1,16 @@
 """Training workers: processes that take jobs from the database queue and run them.
 
 A :class:`Worker` claims a job (:mod:`service.jobs.queue`), keeps its lease alive from a heartbeat
-thread, hands it to a :class:`JobExecutor` with a progress callback, and records the outcome.
+thread, hands it to a :class:`~service.jobs.executor.JobExecutor` with a progress callback, and
+records the outcome.
 The callback raises :class:`JobStopped` when the job is cancelled, the lease is lost or the
 worker is shutting down; training stops at its next progress step. On shutdown the job goes back
 to the queue and restarts from the beginning on the next worker.
 
-:class:`LocalExecutor` runs the training in the worker process;
-:class:`service.jobs.dask_executor.DaskExecutor` submits it to a Dask cluster (``Settings.executor``,
-see :func:`make_executor`). An executor that cannot run jobs right now (its cluster is unreachable)
-raises :class:`ExecutorUnavailable`: the job goes back to the queue, unchanged but for a status
-saying why it waits, and the worker pauses before claiming again.
+The executor (:mod:`service.jobs.executor`) is the one ``Settings.executor`` names
+(:func:`make_executor`). One that cannot run jobs right now (its cluster is unreachable) raises
+:class:`~service.jobs.executor.ExecutorUnavailable`: the job goes back to the queue, unchanged
+but for a status saying why it waits, and the worker pauses before claiming again.
 
 ``nightbank serve`` starts ``Settings.job_workers`` worker processes; ``nightbank worker`` runs
 one more in the foreground, on the same or another machine sharing the database.
@@ -18,7 +18,6 @@ one more in the foreground, on the same or another machine sharing the database.
 
 from __future__ import annotations
 
-import abc
 import logging
 import os
 import signal
@@ -28,7 +27,6 @@ import sys
 import threading
 import time
 import uuid
-from collections.abc import Callable
 from typing import Any
 
 from sqlalchemy.orm import Session, sessionmaker
@@ -37,15 +35,13 @@ from models import NightbankError
 
 from ..store import db
 from ..config import Settings
+from .executor import ExecutorUnavailable, JobExecutor, LocalExecutor
 from .queue import JobInfo, JobState, claim_job, finish_job, heartbeat, release_job, report_progress
 
-__all__ = ["ExecutorUnavailable", "JobExecutor", "JobStopped", "LocalExecutor", "ProgressCallback", "Worker",
-           "make_executor", "start_worker_processes", "stop_worker_processes"]
+__all__ = ["JobStopped", "Worker", "make_executor", "settings_env", "start_worker_processes",
+           "stop_worker_processes"]
 
 log = logging.getLogger("nightbank.worker")
-
-#: progress(done, total, stage): called by the executor as training advances
-ProgressCallback = Callable[[int, int, str], None]
 
 
 class JobStopped(Exception):  # noqa: N818  (a signal, not an error)
@@ -56,40 +52,10 @@ class JobStopped(Exception):  # noqa: N818  (a signal, not an error)
         self.reason = reason
 
 
-class ExecutorUnavailable(Exception):  # noqa: N818  (a condition to wait out, not a job error)
-    """The executor cannot run jobs now; the message is shown as the status of the waiting job."""
-
-
-class JobExecutor(abc.ABC):
-    """Runs one claimed job to completion."""
-
-    @abc.abstractmethod
-    def run(self, job: JobInfo, *, progress: ProgressCallback) -> dict[str, Any]:
-        """Run ``job`` and return its JSON result (``{"model_version": n, ...}``).
-
-        Must call ``progress`` as work advances and let :class:`JobStopped` propagate.
-        Raises :class:`ExecutorUnavailable` to put the job back in the queue, any other
-        exception to fail the job; its message becomes the job's error.
-        """
-
-
-class LocalExecutor(JobExecutor):
-    """Runs the training in this process (see :mod:`service.jobs.training`)."""
-
-    def __init__(self, settings: Settings, factory: sessionmaker[Session]) -> None:
-        self.settings = settings
-        self.factory = factory
-
-    def run(self, job: JobInfo, *, progress: ProgressCallback) -> dict[str, Any]:
-        from .training import run_training_job
-
-        return run_training_job(job, factory=self.factory, settings=self.settings, progress=progress)
-
-
 def make_executor(settings: Settings, factory: sessionmaker[Session]) -> JobExecutor:
     """The executor ``settings.executor`` names (``local`` or ``dask``)."""
     if settings.executor == "dask":
-        from .dask_executor import DaskExecutor
+        from .dask_executor import DaskExecutor  # dask is an optional extra
 
         return DaskExecutor(settings, factory)
     return LocalExecutor(settings, factory)
@@ -277,7 +243,7 @@ def main() -> None:
 
 
 if __name__ == "__main__":
-    # run the importable module's main, so classes other modules import (ExecutorUnavailable) are the same
+    # run the importable module's main, so there is one copy of its classes however the process started
     from service.jobs.workers import main as run_worker
 
     run_worker()

@@ -42,6 +42,7 @@ from models import (
     Night,
     compare_night,
     json_record,
+    night_features,
     participant_descriptors,
     score_with_rule,
     sleep_parameters,
@@ -51,7 +52,7 @@ from ..store import db, versions
 from ..store.cachewriter import CacheWriter
 from ..store.codec import night_from_row
 from ..errors import BadRequest, NotFound, Unprocessable
-from ..store.features import features_row, load_features, night_features
+from ..store.features import features_row, load_features
 from ..store.registry import find_participant, find_study
 
 __all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]

@@ -1,12 +1,13 @@
-"""Stored feature matrices: computed once per night and feature configuration, reused by scoring.
+"""Stored feature matrices: computed once per night and feature configuration, reused by training and scoring.
 
-Computing a night's features is the costly part of scoring it with a model. Features depend only
-on the night's content and the feature configuration, so they are stored (zlib-compressed
-float32, ``night_features`` table, deleted with the night) the first time they are computed:
+Computing a night's features is the costly part of training on it or scoring it with a model.
+Features depend only on the night's content and the feature configuration, so they are stored
+(zlib-compressed float32, ``night_features`` table, deleted with the night) the first time they
+are computed with :func:`models.night_features`:
 
 - by idle training workers, right after nights arrive (:func:`warm_features`), for the default
   configuration of :class:`models.TrainingConfig` and the configurations of active models;
-- otherwise by the first scoring that needs them.
+- otherwise by the first training (:mod:`service.jobs.training`) or scoring that needs them.
 
 The stored matrix carries its feature-set version and names; models check both before use.
 """
@@ -14,6 +15,7 @@ The stored matrix carries its feature-set version and names; models check both b
 from __future__ import annotations
 
 import zlib
+from collections.abc import Iterable
 from typing import Any
 
 import numpy as np
@@ -21,29 +23,39 @@ from sqlalchemy import and_, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import FeatureConfig, FeatureMatrix, Night, NightbankError, TrainingConfig, compute_features
+from models import FeatureConfig, FeatureMatrix, NightbankError, TrainingConfig, night_features
 
 from . import db
 from .codec import night_from_row
 
-__all__ = ["features_row", "load_features", "night_features", "store_features", "warm_features"]
+__all__ = ["features_row", "load_features", "load_features_of", "store_features", "warm_features"]
+
+#: Night keys per ``IN (...)`` query when loading in bulk (well under SQLite's variable limit).
+_CHUNK = 500
 
 
-def night_features(night: Night, config: FeatureConfig) -> FeatureMatrix:
-    """Features of the whole night with its in-bed interval (as the models compute them)."""
-    first, stop = night.in_bed
-    return compute_features(night.counts, night.epoch_seconds, config=config, lights_off_epoch=first,
-                            lights_on_epoch=stop)
+def _matrix(row: db.NightFeatures) -> FeatureMatrix:
+    values = np.frombuffer(zlib.decompress(row.matrix), dtype="<f4").reshape(row.n_epochs, len(row.names))
+    return FeatureMatrix(values, tuple(row.names), row.version)
 
 
 def load_features(session: Session, *, night_pk: int, config: FeatureConfig) -> FeatureMatrix | None:
     """The stored matrix of a night for ``config``, or None."""
     row = session.scalar(select(db.NightFeatures).where(db.NightFeatures.night_pk == night_pk,
                                                         db.NightFeatures.config_version == config.version))
-    if row is None:
-        return None
-    values = np.frombuffer(zlib.decompress(row.matrix), dtype="<f4").reshape(row.n_epochs, len(row.names))
-    return FeatureMatrix(values, tuple(row.names), row.version)
+    return None if row is None else _matrix(row)
+
+
+def load_features_of(session: Session, *, night_pks: Iterable[int], config: FeatureConfig) -> dict[int, FeatureMatrix]:
+    """The stored matrices of several nights for ``config``: night pk -> matrix (nights without one left out)."""
+    pks = sorted(set(night_pks))
+    found: dict[int, FeatureMatrix] = {}
+    for start in range(0, len(pks), _CHUNK):
+        rows = session.scalars(select(db.NightFeatures).where(
+            db.NightFeatures.night_pk.in_(pks[start:start + _CHUNK]),
+            db.NightFeatures.config_version == config.version))
+        found.update((row.night_pk, _matrix(row)) for row in rows)
+    return found
 
 
 def features_row(*, night_pk: int, config: FeatureConfig, features: FeatureMatrix) -> db.NightFeatures:

@@ -24,7 +24,7 @@ from cachetools import LRUCache, cached
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
-from models import HeldOutNight, SleepModel
+from models import HeldOutNight, SleepModel, model_from_bytes
 
 from . import db
 from .audit import record_audit
@@ -100,7 +100,7 @@ def add_version(session: Session, *, study: StudyInfo, participant: ParticipantI
     booster : bytes
         XGBoost UBJSON bytes.
     model_meta : dict
-        Metadata from :meth:`models.SleepModel.to_bytes`.
+        Metadata from :func:`models.model_to_bytes`.
     metadata : ModelMetadata
         Registry record; ``metadata.selection.value`` (the held-out balanced accuracy) is what the
         promotion rule compares.
@@ -207,4 +207,4 @@ def load_model(session: Session, version: VersionInfo) -> SleepModel:
     row = session.get(db.ModelVersion, version.pk)
     if row is None:
         raise NotFound(f"model version {version.version} was removed")
-    return SleepModel.from_bytes(row.booster, row.model_meta)
+    return model_from_bytes(row.booster, row.model_meta)

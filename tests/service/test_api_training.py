@@ -256,3 +256,52 @@ def test_pooled_training_then_scoring_with_offset_and_auto(http, study, admin, m
     a, b = np.array(plain["p_sleep"]), np.array(shifted["p_sleep"])
     inner = (a > 0.01) & (a < 0.99) & (b > 0.01) & (b < 0.99)
     np.testing.assert_allclose(logit(b[inner]) - logit(a[inner]), shifted["offset"], atol=2e-3)
+
+
+def test_training_jobs_train_on_the_stored_night_features(http, study, admin, settings, factory) -> None:
+    from sqlalchemy import delete, select
+
+    from models import FeatureMatrix, TrainingConfig, night_features
+    from service.jobs.queue import JobState, claim_job, finish_job
+    from service.jobs.training import run_training_job
+    from service.store import db
+    from service.store.codec import night_from_row
+    from service.store.features import features_row, load_features_of
+
+    config = TrainingConfig().features
+    _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+
+    def train() -> list[dict]:
+        job_id = _train(http, admin, study, "P-01", n_trials=2, seed=0).json()["job_id"]
+        job = claim_job(factory, worker_id="here", lease_s=60, max_attempts=3)
+        assert job.job_id == job_id
+        result = run_training_job(job, factory=factory, settings=settings, progress=lambda *_: None)
+        assert finish_job(factory, job_id, worker_id="here", state=JobState.succeeded, result=result)
+        with db.session_scope(factory) as session:
+            return session.scalar(select(db.ModelVersion.info).where(
+                db.ModelVersion.version == result["model_version"]))[
+                "night_metrics"]
+
+    def stored() -> dict[int, FeatureMatrix]:
+        with db.session_scope(factory) as session:
+            return load_features_of(session, night_pks=session.scalars(select(db.Night.pk)), config=config)
+
+    assert stored() == {}
+    first = train()  # computes the features and stores them
+    with db.session_scope(factory) as session:
+        nights = {row.pk: night_from_row(row, participant_id="P-01") for row in session.scalars(select(db.Night))}
+    kept = stored()
+    assert set(kept) == set(nights)
+    for pk, features in kept.items():  # reference: the models' own feature computation, run directly
+        np.testing.assert_array_equal(features.values, night_features(nights[pk], config).values)
+    assert train() == first  # the stored float32 matrices give the same model as computed ones
+
+    # store recognisably different matrices (epochs in reverse order): the next training must use them
+    with db.session_scope(factory, write=True) as session:
+        session.execute(delete(db.NightFeatures))
+        for pk, f in kept.items():
+            session.add(features_row(night_pk=pk, config=config,
+                                     features=FeatureMatrix(f.values[::-1], f.names, f.version)))
+    assert train() != first
+    for pk, features in stored().items():  # not recomputed or overwritten either
+        np.testing.assert_array_equal(features.values, kept[pk].values[::-1])

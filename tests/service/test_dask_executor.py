@@ -44,7 +44,8 @@ def test_training_on_a_dask_cluster_matches_a_local_run(http, study, admin, sett
 
     from service.store.db import session_scope
     from service.jobs.queue import get_job
-    from service.jobs.workers import LocalExecutor, Worker
+    from service.jobs.executor import LocalExecutor
+    from service.jobs.workers import Worker
 
     job_on_dask = _load_and_train(http, admin, study, seed=3)
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",

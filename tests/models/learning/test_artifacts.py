@@ -11,14 +11,15 @@ import numpy as np
 import pytest
 import xgboost as xgb
 
-from models.learning.artifacts import InvalidModelArtifactError, load_model, model_from_bytes, save_model
+from models.learning.artifacts import InvalidModelArtifactError, load_model, model_from_bytes, model_to_bytes, save_model
 from models.learning.classifier import Projection, SleepModel
 from models.features.matrix import FeatureConfig, FeatureSetMismatchError
+from models.features.source import night_features
 from models.nights.json_io import night_to_json
 from models.nights.night import Night
 from models.learning.pooled import train_pooled
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.training import TrainingConfig, night_features
+from models.learning.config import TrainingConfig
 
 ROOT = Path(__file__).resolve().parents[3]
 
@@ -58,10 +59,10 @@ def pooled_model(nights) -> SleepModel:
 @pytest.mark.parametrize("which", ["personal_with_pca", "pooled_model"])
 def test_round_trip_gives_identical_predictions(which: str, request: pytest.FixtureRequest, nights) -> None:
     model: SleepModel = request.getfixturevalue(which)
-    raw, metadata = model.to_bytes()
+    raw, metadata = model_to_bytes(model)
     assert isinstance(raw, bytes) and raw[:1] == b"{"  # UBJSON object, not a pickle stream
     assert json.loads(json.dumps(metadata)) == metadata  # plain JSON
-    restored = SleepModel.from_bytes(raw, metadata)
+    restored = model_from_bytes(raw, metadata)
     for night in nights[:3]:
         np.testing.assert_array_equal(restored.predict_proba(night, offset=-0.4),
                                       model.predict_proba(night, offset=-0.4))
@@ -69,7 +70,7 @@ def test_round_trip_gives_identical_predictions(which: str, request: pytest.Fixt
     assert restored.threshold_ == model.threshold_ and restored.params_ == model.params_
     assert restored.feature_version_ == model.feature_version_ and restored.kind_ == model.kind_
     assert restored.training_nights_ == model.training_nights_
-    assert restored.to_bytes() == (raw, metadata)
+    assert model_to_bytes(restored) == (raw, metadata)
 
 
 def test_model_loads_in_a_fresh_process_with_identical_predictions(personal_with_pca, nights, tmp_path) -> None:
@@ -91,7 +92,7 @@ def test_model_loads_in_a_fresh_process_with_identical_predictions(personal_with
 
 
 def test_model_refuses_features_of_another_feature_set(personal_with_pca, nights) -> None:
-    raw, metadata = personal_with_pca.to_bytes()
+    raw, metadata = model_to_bytes(personal_with_pca)
     metadata["feature_set"]["version"] = "fs0-0000000000000000-30s"
     with pytest.raises(FeatureSetMismatchError) as info:
         model_from_bytes(raw, metadata).predict_proba(nights[0])
@@ -110,14 +111,14 @@ def test_pooled_model_needs_its_descriptors(pooled_model, nights) -> None:
 
 @pytest.mark.parametrize("change", [{"format": "something-else"}, {"format_version": 99}])
 def test_unknown_formats_are_refused(personal_with_pca, change: dict) -> None:
-    raw, metadata = personal_with_pca.to_bytes()
+    raw, metadata = model_to_bytes(personal_with_pca)
     with pytest.raises(InvalidModelArtifactError) as info:
         model_from_bytes(raw, metadata | change)
     assert info.value.code == "invalid_model_artifact"
 
 
 def test_corrupt_bytes_and_missing_files_are_refused(personal_with_pca, tmp_path) -> None:
-    raw, metadata = personal_with_pca.to_bytes()
+    raw, metadata = model_to_bytes(personal_with_pca)
     with pytest.raises(InvalidModelArtifactError):
         model_from_bytes(raw[: len(raw) // 3], metadata)
     with pytest.raises(InvalidModelArtifactError):

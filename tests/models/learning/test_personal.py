@@ -9,10 +9,11 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_auc_score
 
+from models.learning.artifacts import model_to_bytes
 from models.nights.night import Night
 from models.learning.personal import train_personal
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.training import TrainingConfig, TrainingDataError
+from models.learning.config import TrainingConfig, TrainingDataError
 
 CONFIG = TrainingConfig(n_trials=3, max_rounds=60)
 
@@ -65,8 +66,8 @@ def test_held_out_night_labels_never_reach_its_prediction(result, nights) -> Non
 
 def test_same_data_and_seed_give_identical_bytes_whatever_n_jobs(result, nights) -> None:
     again = train_personal(nights, config=TrainingConfig(n_trials=3, max_rounds=60, n_jobs=2))
-    raw_a, meta_a = result.model.to_bytes()
-    raw_b, meta_b = again.model.to_bytes()
+    raw_a, meta_a = model_to_bytes(result.model)
+    raw_b, meta_b = model_to_bytes(again.model)
     assert raw_a == raw_b and meta_a == meta_b
     pd.testing.assert_frame_equal(result.night_metrics, again.night_metrics)
 

@@ -5,10 +5,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from models.learning.artifacts import model_to_bytes
 from models.nights.night import Night
 from models.learning.pooled import train_pooled
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.training import DESCRIPTOR_NAMES, TrainingConfig, TrainingDataError, participant_descriptors
+from models.learning.config import TrainingConfig, TrainingDataError
+from models.learning.descriptors import DESCRIPTOR_NAMES, participant_descriptors
 
 CONFIG = TrainingConfig(pooled_folds=3, max_rounds=80)
 
@@ -60,12 +62,12 @@ def test_a_participants_labels_never_reach_their_held_out_predictions(result, co
         np.testing.assert_array_equal(a.p_sleep, b.p_sleep)
         assert a.threshold == b.threshold
     # the flipped labels did change the final model, which trains on everybody
-    assert result.model.to_bytes()[0] != other.model.to_bytes()[0]
+    assert model_to_bytes(result.model)[0] != model_to_bytes(other.model)[0]
 
 
 def test_pooled_is_reproducible(result, cohort) -> None:
     again = train_pooled(cohort, config=CONFIG)
-    assert again.model.to_bytes() == result.model.to_bytes()
+    assert model_to_bytes(again.model) == model_to_bytes(result.model)
     assert again.offsets == result.offsets and again.shrinkage == result.shrinkage
 
 

@@ -1,0 +1,35 @@
+"""Training rows: labelled nights, whole-night features, scored in-bed epochs."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from models.features.cache import FeatureCache
+from models.features.matrix import compute_features
+from models.learning.config import TrainingConfig
+from models.learning.rows import labelled_nights, prepare_nights
+from models.nights.night import Night
+
+
+def _night(reference: list[str] | None, *, day: int = 0, lights_off_s: int | None = None) -> Night:
+    start = pd.Timestamp("2031-03-02 22:00", tz="UTC") + pd.Timedelta(days=day)
+    n = 40 if reference is None else len(reference)
+    counts = np.random.default_rng(day).poisson(3.0, n).astype(float)
+    return Night("P", start, 30, counts, reference=None if reference is None else np.array(reference),
+                 lights_off=None if lights_off_s is None else start + pd.Timedelta(seconds=lights_off_s))
+
+
+def test_labelled_nights_need_a_scored_in_bed_epoch_and_come_in_time_order() -> None:
+    late = _night(["W"] * 10 + ["N2"] * 30, day=2)
+    early = _night(["N2"] * 40, day=1)
+    unscored_in_bed = _night(["W"] * 10 + ["?"] * 30, day=0, lights_off_s=300)
+    assert labelled_nights([late, _night(None), unscored_in_bed, early], TrainingConfig()) == [early, late]
+
+
+def test_training_rows_are_scored_in_bed_epochs_of_whole_night_features() -> None:
+    night = _night(["W"] * 10 + ["N2", "?"] * 15, lights_off_s=120)  # in bed from epoch 4
+    (rows,) = prepare_nights([night], TrainingConfig(), feature_cache=FeatureCache())
+    assert rows.rows.tolist() == [4, 5, 6, 7, 8, 9] + list(range(10, 40, 2))
+    expected = compute_features(night.counts, 30, lights_off_epoch=4, lights_on_epoch=40)
+    np.testing.assert_array_equal(rows.features.values, expected.values)
