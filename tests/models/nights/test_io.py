@@ -7,8 +7,8 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-
 from factories import make_night, night_json
+
 from models import (
     InvalidNightError,
     Night,
@@ -56,8 +56,9 @@ def test_json_csv_parquet_chain() -> None:
 
 def test_csv_semicolon_decimal_comma_naive_times_with_tz() -> None:
     night = make_night(240, stages=False)
+    local_times = night.epoch_times().tz_convert("Europe/Berlin")
     rows = ["Zeit;Activity"] + [f"{t.strftime('%Y-%m-%dT%H:%M:%S')};{c:.1f}".replace(".", ",")
-                                for t, c in zip(night.epoch_times().tz_convert("Europe/Berlin"), night.counts)]
+                                for t, c in zip(local_times, night.counts, strict=True)]
     back = night_from_csv("\n".join(rows), options=NightOptions(tz="Europe/Berlin", time_column="Zeit"))
     assert back.content_hash == night.content_hash
 

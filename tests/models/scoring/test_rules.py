@@ -18,8 +18,14 @@ from hypothesis.extra.numpy import arrays
 
 from models.errors import NightbankError
 from models.scoring.rescoring import UnsupportedEpochLengthError, webster_rescore
-from models.scoring.rules import (METHOD_IDS, RULES, InvalidRuleOptionError, UnknownMethodError, continuous_scores,
-                          score_with_rule)
+from models.scoring.rules import (
+    METHOD_IDS,
+    RULES,
+    InvalidRuleOptionError,
+    UnknownMethodError,
+    continuous_scores,
+    score_with_rule,
+)
 
 
 def _rule(counts, epoch_seconds, method, **options):
