@@ -22,11 +22,11 @@ from .json_io import (
     night_to_json,
 )
 from .night import (
-    MovementTimePolicy,
-    Night,
     STAGE_CODES,
     SUPPORTED_EPOCH_SECONDS,
     UNSCORED_CODES,
+    MovementTimePolicy,
+    Night,
     canonical_stage,
     stages_to_sleep,
 )

@@ -3,17 +3,17 @@
 from __future__ import annotations
 
 from .parameters import (
-    InvalidInBedIntervalError,
     PARAMETER_NAMES,
+    InvalidInBedIntervalError,
     SleepParameters,
     WasoEnd,
     sleep_parameters,
 )
 from .rescoring import (
-    InvalidSleepVectorError,
-    UnsupportedEpochLengthError,
     WEBSTER_AFTER_WAKE_MIN,
     WEBSTER_ISLAND_MIN,
+    InvalidSleepVectorError,
+    UnsupportedEpochLengthError,
     as_sleep_vector,
     check_epoch_seconds,
     run_lengths,
@@ -22,12 +22,12 @@ from .rescoring import (
 from .rules import (
     COLE_KRIPKE_COEFFICIENTS,
     COUNT_THRESHOLD_WEIGHTS,
+    METHOD_IDS,
+    RULES,
     ColeKripke,
     CountRule,
     CountThreshold,
     InvalidRuleOptionError,
-    METHOD_IDS,
-    RULES,
     RuleScoring,
     Sadeh,
     UnknownMethodError,

@@ -27,7 +27,7 @@ from __future__ import annotations
 
 import abc
 from dataclasses import dataclass
-from typing import Any, ClassVar
+from typing import ClassVar
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -272,7 +272,7 @@ def _clean_counts(counts: ArrayLike, count_scale: float) -> NDArray[np.float64]:
     return clean * count_scale if count_scale != 1.0 else clean
 
 
-def _make_rule(base: str, options: dict[str, Any]) -> CountRule:
+def _make_rule(base: str, options: dict[str, float | str]) -> CountRule:
     try:
         return RULES[base](**options)
     except TypeError as exc:
@@ -280,7 +280,7 @@ def _make_rule(base: str, options: dict[str, Any]) -> CountRule:
 
 
 def score_with_rule(counts: ArrayLike, epoch_seconds: int, method: str, *, count_scale: float = 1.0,
-                    **rule_options: Any) -> RuleScoring:
+                    **rule_options: float | str) -> RuleScoring:
     """Score a recording with one classical method.
 
     Parameters
