@@ -3,14 +3,12 @@
 from __future__ import annotations
 
 from .checks import (
+    CodedLabels,
     NightOptions,
     QCConfig,
     QCFlag,
     quality_flags,
     validate_night_fields,
-)
-from .decoding import (
-    COLUMN_ALIASES,
 )
 from .formats import (
     FORMATS,
@@ -35,6 +33,7 @@ from .resample import (
     majority_stage,
 )
 from .tabular import (
+    COLUMN_ALIASES,
     night_from_csv,
     night_from_parquet,
     night_to_csv,
@@ -43,6 +42,7 @@ from .tabular import (
 
 __all__ = [
     "COLUMN_ALIASES",
+    "CodedLabels",
     "FORMATS",
     "MovementTimePolicy",
     "Night",

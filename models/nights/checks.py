@@ -19,15 +19,7 @@ from numpy.typing import ArrayLike, NDArray
 from ..errors import InvalidNightError, Problem
 from .night import SUPPORTED_EPOCH_SECONDS, MovementTimePolicy, Night, canonical_stage
 
-__all__ = [
-    "CodedLabels",
-    "NightOptions",
-    "QCConfig",
-    "QCFlag",
-    "validate_night_fields",
-    "quality_flags",
-    "runs_of",
-]
+__all__ = ["CodedLabels", "NightOptions", "QCConfig", "QCFlag", "quality_flags", "validate_night_fields"]
 
 MAX_LISTED = 5  # offending values / locations quoted in one message
 
@@ -54,7 +46,7 @@ class NightOptions:
     aggregate_to : int, optional
         Sum epochs into this longer length (30 or 60 s) after reading.
     time_column, counts_column, reference_column : str, optional
-        Explicit column names; by default found through :data:`models.nights.decoding.COLUMN_ALIASES`.
+        Explicit column names; by default found through :data:`models.nights.tabular.COLUMN_ALIASES`.
     """
 
     min_hours: float = 1.0
@@ -118,7 +110,7 @@ class QCFlag:
         }
 
 
-def runs_of(mask: ArrayLike) -> NDArray[np.intp]:
+def _runs_of(mask: ArrayLike) -> NDArray[np.intp]:
     """Runs of True in a boolean vector.
 
     Returns
@@ -132,8 +124,8 @@ def runs_of(mask: ArrayLike) -> NDArray[np.intp]:
 
 
 def _ranges(mask: ArrayLike) -> list[tuple[int, int]]:
-    """:func:`runs_of` as a list of ``(start, stop)`` pairs of Python ints."""
-    return [(int(a), int(b)) for a, b in runs_of(mask)]
+    """:func:`_runs_of` as a list of ``(start, stop)`` pairs of Python ints."""
+    return [(int(a), int(b)) for a, b in _runs_of(mask)]
 
 
 def _first(idx: NDArray[np.intp]) -> list[int]:
@@ -359,7 +351,7 @@ def quality_flags(night: Night, *, config: QCConfig = QCConfig()) -> list[QCFlag
                                      "limit": limit}))
     same = np.concatenate(([False], (counts[1:] == counts[:-1]) & (counts[1:] > 0)))
     stuck: list[tuple[int, int]] = []
-    for a, b in runs_of(same):  # a run of k equal pairs is k+1 equal values starting at a-1
+    for a, b in _runs_of(same):  # a run of k equal pairs is k+1 equal values starting at a-1
         if b - a + 1 >= config.stuck_run:
             stuck.append((int(a - 1), int(b)))
     if stuck:

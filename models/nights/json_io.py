@@ -8,8 +8,8 @@ from typing import Any, cast
 import numpy as np
 
 from ..errors import InvalidNightError, Problem
+from ._decoding import decode_text, finish_night, metadata_fields, parse_time
 from .checks import NightOptions, validate_night_fields
-from .decoding import decode_text, finish_night, metadata_fields, parse_time
 from .night import Night
 
 __all__ = ["night_from_json", "night_to_json"]

@@ -35,11 +35,11 @@ import pandas as pd
 from numpy.typing import NDArray
 
 __all__ = [
-    "Night",
-    "SUPPORTED_EPOCH_SECONDS",
-    "STAGE_CODES",
-    "UNSCORED_CODES",
     "MovementTimePolicy",
+    "Night",
+    "STAGE_CODES",
+    "SUPPORTED_EPOCH_SECONDS",
+    "UNSCORED_CODES",
     "canonical_stage",
     "stages_to_sleep",
 ]

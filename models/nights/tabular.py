@@ -14,14 +14,21 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..errors import InvalidNightError, Problem
+from ._decoding import META_LINE, decode_text, finish_night, metadata_fields
 from .checks import MAX_LISTED, CodedLabels, NightOptions, validate_night_fields
-from .decoding import COLUMN_ALIASES, META_LINE, decode_text, finish_night, metadata_fields
 from .night import Night
 
 if TYPE_CHECKING:  # pyarrow has no type information: these names stand for what the values are
     import pyarrow as pa
 
-__all__ = ["night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
+__all__ = ["COLUMN_ALIASES", "night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
+
+#: accepted header names per role, compared case-insensitively after stripping blanks
+COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
+    "time": ("time", "timestamp", "datetime", "date_time", "epoch_start", "start"),
+    "counts": ("counts", "count", "activity", "activity_counts", "movement"),
+    "reference": ("reference", "stage", "stages", "sleep_stage", "psg", "psg_stage", "label"),
+}
 
 _DELIMITERS = (",", ";", "\t")
 

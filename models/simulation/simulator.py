@@ -25,7 +25,7 @@ from numpy.typing import NDArray
 
 from ..nights.night import Night
 
-__all__ = ["CohortSpec", "SimulatedNight", "simulate_cohort", "simulate_night", "PersonTraits"]
+__all__ = ["CohortSpec", "PersonTraits", "SimulatedNight", "simulate_cohort", "simulate_night"]
 
 EPOCH_SECONDS = 30
 _PER_MIN = 60 // EPOCH_SECONDS

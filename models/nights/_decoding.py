@@ -1,4 +1,4 @@
-"""Shared pieces of the night readers: text decoding, timestamps, metadata fields and column aliases."""
+"""What the night readers share: text decoding, timestamps and metadata fields (private to the package)."""
 
 from __future__ import annotations
 
@@ -13,15 +13,8 @@ from .checks import NightOptions
 from .night import Night
 from .resample import aggregate_epochs
 
-__all__ = ["COLUMN_ALIASES", "META_LINE", "NightMetadata", "decode_text", "finish_night", "metadata_fields",
-           "parse_time"]
+__all__ = ["META_LINE", "NightMetadata", "decode_text", "finish_night", "metadata_fields", "parse_time"]
 
-#: accepted header names per role, compared case-insensitively after stripping blanks
-COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
-    "time": ("time", "timestamp", "datetime", "date_time", "epoch_start", "start"),
-    "counts": ("counts", "count", "activity", "activity_counts", "movement"),
-    "reference": ("reference", "stage", "stages", "sleep_stage", "psg", "psg_stage", "label"),
-}
 #: an optional leading ``# key: value`` line of a CSV file
 META_LINE = re.compile(r"^#\s*([A-Za-z_]+)\s*:\s*(.*?)\s*$")
 
