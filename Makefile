@@ -5,7 +5,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 EXTRAS ?= test,postgres,dask
 
-.PHONY: install demo test bench serve lock clean
+.PHONY: install demo test lint bench serve lock clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -24,6 +24,11 @@ demo: install
 test: install
 	$(BIN)/python -m pytest -q
 
+# static checks: ruff (pyflakes, pycodestyle, isort, bugbear, pyupgrade) and mypy; settings in pyproject.toml
+lint: install
+	$(BIN)/ruff check .
+	$(BIN)/mypy
+
 bench: install
 	@for b in bench/[!_]*.py; do echo "== $$b"; $(BIN)/python $$b || exit 1; done
 
@@ -35,4 +40,4 @@ lock: install
 	( echo "# Versions installed and tested together (pip install -c constraints.txt). Regenerate with: make lock"; $(BIN)/python -m pip freeze --exclude-editable | grep -v "^nightbank" ) > constraints.txt
 
 clean:
-	rm -rf $(VENV) var .pytest_cache
+	rm -rf $(VENV) var .pytest_cache .mypy_cache .ruff_cache

@@ -37,11 +37,11 @@ from sklearn.metrics import balanced_accuracy_score
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
+from models.learning.config import TrainingConfig  # noqa: E402
+from models.learning.offset import estimate_offset  # noqa: E402
 from models.learning.study_comparison import COMPARED_RULES, compare_study  # noqa: E402
 from models.simulation.demo_study import demo_nights  # noqa: E402
-from models.learning.offset import estimate_offset  # noqa: E402
 from models.simulation.simulator import CohortSpec, simulate_cohort  # noqa: E402
-from models.learning.config import TrainingConfig  # noqa: E402
 
 METHODS = ("personal", "pooled", "pooled+offset", *COMPARED_RULES, "always-sleep")
 

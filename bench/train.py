@@ -24,9 +24,9 @@ GOALS = {"personal_s": 60.0, "pooled_s": 180.0, "pooled_peak_rss_mb": 4096.0}
 
 
 def _personal() -> dict[str, float]:
+    from models.learning.config import TrainingConfig
     from models.learning.personal import train_personal
     from models.simulation.simulator import CohortSpec, simulate_cohort
-    from models.learning.config import TrainingConfig
 
     sims = simulate_cohort(CohortSpec(n_participants=1, nights_min=7, nights_max=7, labelled_share=1.0,
                                       few_labels_participants=0, artefacts=False, id_prefix="TB"), seed=101)
@@ -41,9 +41,9 @@ def _personal() -> dict[str, float]:
 
 
 def _pooled() -> dict[str, float]:
+    from models.learning.config import TrainingConfig
     from models.learning.pooled import train_pooled
     from models.simulation.simulator import CohortSpec, simulate_cohort
-    from models.learning.config import TrainingConfig
 
     sims = simulate_cohort(CohortSpec(n_participants=100, nights_min=7, nights_max=7, labelled_share=1.0,
                                       few_labels_participants=0, artefacts=False, id_prefix="PB"), seed=102)

@@ -17,7 +17,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-__all__ = ["NightbankError", "InvalidNightError", "NotFittedError", "Problem"]
+__all__ = ["InvalidNightError", "NightbankError", "NotFittedError", "Problem"]
 
 
 class NightbankError(ValueError):

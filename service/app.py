@@ -12,15 +12,15 @@ from contextlib import asynccontextmanager
 from fastapi import FastAPI
 from fastapi.routing import APIRoute
 
-from .store import db
 from .api.problems import PROBLEM_RESPONSES, install_problem_handlers
 from .api.routes import nights, reports, studies, system, tokens, training
 from .api.schemas import Problem
-from .store.cachewriter import CacheWriter
 from .config import Settings, get_settings
+from .store import db
+from .store.cachewriter import CacheWriter
 from .store.schema import check_schema
-from .telemetry import Metrics, RequestTelemetry
 from .store.tokens import TokenCache
+from .telemetry import Metrics, RequestTelemetry
 from .ui import mount_ui
 
 __all__ = ["app_from_env", "create_app"]

@@ -34,8 +34,14 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from sklearn.metrics import (accuracy_score, balanced_accuracy_score, cohen_kappa_score, matthews_corrcoef,
-                             precision_recall_fscore_support, roc_auc_score)
+from sklearn.metrics import (
+    accuracy_score,
+    balanced_accuracy_score,
+    cohen_kappa_score,
+    matthews_corrcoef,
+    precision_recall_fscore_support,
+    roc_auc_score,
+)
 
 from ..scoring.rescoring import InvalidSleepVectorError, as_sleep_vector
 

@@ -170,11 +170,11 @@ def rule_scores(counts: FloatArray, epoch_seconds: float) -> dict[str, FloatArra
     dict of str to ndarray of float64, shape (n_epochs,)
         Keyed ``rule_<score name>`` in sorted order.
     """
-    from ..scoring.rules import continuous_scores  # imported here: rules is an optional family
+    from ..scoring.rescoring import check_epoch_seconds  # imported here: rules is an optional family
+    from ..scoring.rules import continuous_scores
 
-    seconds = int(epoch_seconds) if float(epoch_seconds).is_integer() else epoch_seconds
     missing = np.isnan(counts)
-    scores = continuous_scores(counts, seconds)  # type: ignore[arg-type]
+    scores = continuous_scores(counts, check_epoch_seconds(epoch_seconds))
     out = {}
     for key in sorted(scores):
         values = np.array(scores[key], dtype=np.float64)

@@ -45,7 +45,8 @@ def _max_shift(stat: FloatArray, windows: CentredWindows, width: int) -> FloatAr
     # window c allows starts c - h .. c + h - 2w + 1; starts outside 0..n-2w are NaN
     padded = np.full(n + span - 1, np.nan)
     padded[h:h + diff.shape[0]] = diff
-    return np.fmax.reduce(sliding_window_view(padded, span), axis=1)
+    largest: FloatArray = np.fmax.reduce(sliding_window_view(padded, span), axis=1)
+    return largest
 
 
 def max_level_shift(windows: CentredWindows, *, width: int) -> FloatArray:
@@ -103,7 +104,8 @@ def _tile_spread(stat: FloatArray, windows: CentredWindows, width: int) -> Float
     shifted = np.where(defined, vals - low[:, None], 0.0).sum(axis=1)
     mean = low + np.divide(shifted, k, out=np.full(k.shape, np.nan), where=k > 0)
     ss = np.square(np.where(defined, vals - mean[:, None], 0.0)).sum(axis=1)
-    return np.divide(ss, k - 1, out=np.full(k.shape, np.nan), where=k > 1)
+    variance: FloatArray = np.divide(ss, k - 1, out=np.full(k.shape, np.nan), where=k > 1)
+    return variance
 
 
 def _tiles(windows: CentredWindows, width: int, *, power: int, use_var: bool) -> FloatArray:
@@ -114,7 +116,8 @@ def _tiles(windows: CentredWindows, width: int, *, power: int, use_var: bool) ->
     spread = _tile_spread(var if use_var else mean, windows, width)
     sd = np.sqrt(windows.variance(ddof=1))
     # a constant window's tiles have identical means and zero variances, so spread is exactly 0
-    return spread / np.where(sd > 0, sd, 1.0) ** power
+    scaled: FloatArray = spread / np.where(sd > 0, sd, 1.0) ** power
+    return scaled
 
 
 def lumpiness(windows: CentredWindows, *, width: int) -> FloatArray:
@@ -257,4 +260,5 @@ def lag1_autocorrelation(windows: CentredWindows) -> FloatArray:
     dev = windows.deviations
     num = np.einsum("ij,ij->i", dev[:, 1:], dev[:, :-1])
     ok = windows.any_observed & ~windows.is_constant
-    return np.divide(num, windows.sum_squares, out=np.full(num.shape, np.nan), where=ok)
+    autocorrelation: FloatArray = np.divide(num, windows.sum_squares, out=np.full(num.shape, np.nan), where=ok)
+    return autocorrelation

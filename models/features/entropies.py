@@ -48,7 +48,8 @@ def _pair_matches(values: FloatArray, usable: NDArray[np.bool_], max_lag: int, o
     if backward:  # row j: y[j - max_lag] .. y[j]; |y[j] - y[j - d]| for d = 1..max_lag
         lagged = sliding_window_view(np.concatenate([nan, values, tail]), max_lag + 1)
         close = lagged[:, max_lag - 1::-1] - lagged[:, max_lag:]
-        partner = sliding_window_view(np.concatenate([np.zeros(max_lag, bool), usable]), max_lag + 1)[:, max_lag - 1::-1]
+        padded = np.concatenate([np.zeros(max_lag, bool), usable])
+        partner = sliding_window_view(padded, max_lag + 1)[:, max_lag - 1::-1]
     else:  # row i: y[i] .. y[i + max_lag]; |y[i] - y[i + d]|
         lagged = sliding_window_view(np.concatenate([values, nan, tail]), max_lag + 1)
         close = lagged[:, 1:] - lagged[:, :1]
@@ -121,7 +122,8 @@ def sample_entropy(values: FloatArray, half_widths: tuple[int, ...], *, order: i
     if max_lag < 1:
         return out
     observed = ~np.isnan(y)
-    usable = sliding_window_view(np.concatenate([observed, np.zeros(m, dtype=bool)]), m + 1).all(axis=1)
+    usable: NDArray[np.bool_] = np.all(sliding_window_view(np.concatenate([observed, np.zeros(m, dtype=bool)]), m + 1),
+                                       axis=1)
     fwd_b, fwd_a = (_lag_prefix(x) for x in _pair_matches(y, usable, max_lag, m, tolerance, backward=False))
     bwd_b, bwd_a = (_lag_prefix(x) for x in _pair_matches(y, usable, max_lag, m, tolerance, backward=True))
     n_usable = np.zeros(n + 1, dtype=np.int64)
@@ -182,7 +184,7 @@ def permutation_entropy(values: FloatArray, half_widths: tuple[int, ...], *, ord
     embedded = sliding_window_view(y, m)
     ranks = np.argsort(embedded, axis=1, kind="stable")
     pattern = _pattern_table(m)[ranks @ (m ** np.arange(m))]
-    complete = ~np.isnan(embedded).any(axis=1)
+    complete: NDArray[np.bool_] = ~np.any(np.isnan(embedded), axis=1)
     onehot = (pattern[:, None] == np.arange(factorial(m))[None, :]) & complete[:, None]
     cum = _cumulative(onehot)
     for col, h in enumerate(half_widths):

@@ -54,6 +54,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from ..errors import NightbankError
 from .context import (
     lag_features,
     movement_context,
@@ -72,7 +73,6 @@ from .dynamics import (
     stability,
 )
 from .entropies import permutation_entropy, sample_entropy, spectral_entropy
-from ..errors import NightbankError
 from .summaries import (
     SHARE_STATISTICS,
     SUMMARY_STATISTICS,
@@ -187,7 +187,8 @@ class FeatureConfig:
         unknown = sorted(set(data) - set(cls.__dataclass_fields__))
         if unknown:
             raise FeatureInputError(f"unknown feature configuration keys: {unknown}")
-        return cls(**{k: tuple(v) if isinstance(v, list) else v for k, v in data.items()})
+        fields: dict[str, Any] = {k: tuple(v) if isinstance(v, list) else v for k, v in data.items()}
+        return cls(**fields)
 
 
 @dataclass(frozen=True, eq=False)
@@ -260,7 +261,8 @@ def _window_names(config: FeatureConfig) -> list[str]:
     return names
 
 
-def _window_columns(counts: NDArray[np.float64], epoch_seconds: float, config: FeatureConfig) -> list[NDArray[np.float64]]:
+def _window_columns(counts: NDArray[np.float64], epoch_seconds: float,
+                    config: FeatureConfig) -> list[NDArray[np.float64]]:
     """Window-family columns for one segment of a night, in :func:`_window_names` order."""
     logs = np.log1p(counts)
     half_widths = tuple(half_width_epochs(m, epoch_seconds) for m in config.windows_min)

@@ -87,7 +87,8 @@ class FeatureSource(abc.ABC):
             self.keep(night, found)
         return found
 
-    def features_of(self, nights: Sequence[Night], config: FeatureConfig, *, n_jobs: int = 1) -> Iterator[FeatureMatrix]:
+    def features_of(self, nights: Sequence[Night], config: FeatureConfig, *,
+                    n_jobs: int = 1) -> Iterator[FeatureMatrix]:
         """The features of each night, in order; misses computed on ``n_jobs`` processes and kept.
 
         Feature code is numpy on short arrays and holds the GIL most of the time, so threads do not

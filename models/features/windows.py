@@ -176,7 +176,8 @@ class CentredWindows:
     @cached_property
     def observed(self) -> NDArray[np.bool_]:
         """Boolean mask of observed positions, shape (n_epochs, width)."""
-        return ~np.isnan(self.rows)
+        mask: NDArray[np.bool_] = ~np.isnan(self.rows)
+        return mask
 
     @cached_property
     def n_observed(self) -> IntArray:
@@ -207,7 +208,8 @@ class CentredWindows:
     @cached_property
     def is_constant(self) -> NDArray[np.bool_]:
         """Windows whose observed values are all equal (including single-value windows)."""
-        return self.any_observed & (self.minimum == self.maximum)
+        constant: NDArray[np.bool_] = self.any_observed & (self.minimum == self.maximum)
+        return constant
 
     def quantile(self, q: float) -> FloatArray:
         """Quantile ``q`` (0..1) of each window's observed values, numpy's default ``'linear'`` method.
@@ -255,9 +257,11 @@ class CentredWindows:
     def sum_squares(self) -> FloatArray:
         """Sum of squared deviations from the mean, shape (n_epochs,); exactly 0 if constant."""
         dev = self.deviations
-        return np.einsum("ij,ij->i", dev, dev)
+        squares: FloatArray = np.einsum("ij,ij->i", dev, dev)
+        return squares
 
     def variance(self, *, ddof: int = 0) -> FloatArray:
         """Variance of the observed values with ``ddof`` (NaN when ``k <= ddof``), exact 0 if constant."""
         k = self.n_observed
-        return np.divide(self.sum_squares, k - ddof, out=np.full(k.shape, np.nan), where=k > ddof)
+        variance: FloatArray = np.divide(self.sum_squares, k - ddof, out=np.full(k.shape, np.nan), where=k > ddof)
+        return variance

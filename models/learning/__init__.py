@@ -1,4 +1,8 @@
-"""Sleep/wake models: splits, tuning, thresholds, the classifier and its artifacts, personal and pooled training, offsets, the method choice and the study comparison."""
+"""Sleep/wake models: training, evaluation, the classifier and its artifacts, offsets and the method choice.
+
+Settings and training rows, splits, tuning and the threshold, personal and pooled training, held-out
+figures, participant offsets, the method choice and the study comparison.
+"""
 
 from __future__ import annotations
 

@@ -27,9 +27,9 @@ from typing import Any
 
 import xgboost as xgb
 
-from .classifier import Projection, SleepModel
 from ..errors import NightbankError
 from ..features.matrix import FeatureConfig
+from .classifier import Projection, SleepModel
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "InvalidModelArtifactError", "library_versions", "load_model",
            "model_from_bytes", "model_to_bytes", "save_model"]

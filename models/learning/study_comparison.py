@@ -39,13 +39,13 @@ from ..features.source import FeatureSource
 from ..nights.night import MovementTimePolicy, Night
 from ..records import json_records
 from ..scoring.rules import score_with_rule
+from .config import TrainingConfig, TrainingDataError
+from .held_out import HeldOutNight
 from .method_choice import MODEL_METHODS, choose_method
 from .personal import PersonalResult, train_personal
 from .pooled import PooledResult, train_pooled
-from .tasks import Progress
-from .config import TrainingConfig, TrainingDataError
-from .held_out import HeldOutNight
 from .rows import labelled_nights
+from .tasks import Progress
 
 __all__ = ["COMPARED_RULES", "StudyComparison", "compare_study", "held_out_comparison"]
 

@@ -8,16 +8,7 @@ from .checks import (
     QCConfig,
     QCFlag,
     quality_flags,
-    runs_of,
     validate_night_fields,
-)
-from .decoding import (
-    COLUMN_ALIASES,
-    META_LINE,
-    decode_text,
-    finish_night,
-    metadata_fields,
-    parse_time,
 )
 from .formats import (
     FORMATS,
@@ -42,6 +33,7 @@ from .resample import (
     majority_stage,
 )
 from .tabular import (
+    COLUMN_ALIASES,
     night_from_csv,
     night_from_parquet,
     night_to_csv,
@@ -52,7 +44,6 @@ __all__ = [
     "COLUMN_ALIASES",
     "CodedLabels",
     "FORMATS",
-    "META_LINE",
     "MovementTimePolicy",
     "Night",
     "NightOptions",
@@ -63,21 +54,16 @@ __all__ = [
     "UNSCORED_CODES",
     "aggregate_epochs",
     "canonical_stage",
-    "decode_text",
     "detect_format",
-    "finish_night",
     "majority_stage",
-    "metadata_fields",
     "night_from_csv",
     "night_from_json",
     "night_from_parquet",
     "night_to_csv",
     "night_to_json",
     "night_to_parquet",
-    "parse_time",
     "quality_flags",
     "read_night",
-    "runs_of",
     "stages_to_sleep",
     "validate_night_fields",
 ]

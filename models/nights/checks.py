@@ -8,25 +8,18 @@ changes its data.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Collection, Iterator, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike, NDArray
 
 from ..errors import InvalidNightError, Problem
 from .night import SUPPORTED_EPOCH_SECONDS, MovementTimePolicy, Night, canonical_stage
 
-__all__ = [
-    "CodedLabels",
-    "NightOptions",
-    "QCConfig",
-    "QCFlag",
-    "validate_night_fields",
-    "quality_flags",
-    "runs_of",
-]
+__all__ = ["CodedLabels", "NightOptions", "QCConfig", "QCFlag", "quality_flags", "validate_night_fields"]
 
 MAX_LISTED = 5  # offending values / locations quoted in one message
 
@@ -53,7 +46,7 @@ class NightOptions:
     aggregate_to : int, optional
         Sum epochs into this longer length (30 or 60 s) after reading.
     time_column, counts_column, reference_column : str, optional
-        Explicit column names; by default found through :data:`models.nights.decoding.COLUMN_ALIASES`.
+        Explicit column names; by default found through :data:`models.nights.tabular.COLUMN_ALIASES`.
     """
 
     min_hours: float = 1.0
@@ -101,7 +94,7 @@ class QCFlag:
     code: str
     message: str
     ranges: list[tuple[int, int]] = field(default_factory=list)
-    threshold: dict[str, Any] = field(default_factory=dict)
+    threshold: dict[str, float] = field(default_factory=dict)
 
     @property
     def n_epochs(self) -> int:
@@ -117,12 +110,12 @@ class QCFlag:
         }
 
 
-def runs_of(mask: np.ndarray) -> np.ndarray:
+def _runs_of(mask: ArrayLike) -> NDArray[np.intp]:
     """Runs of True in a boolean vector.
 
     Returns
     -------
-    runs : ndarray of int64, shape (n_runs, 2)
+    runs : ndarray of intp, shape (n_runs, 2)
         ``[start, stop)`` epoch indices of each run.
     """
     m = np.concatenate(([False], np.asarray(mask, dtype=bool), [False]))
@@ -130,11 +123,17 @@ def runs_of(mask: np.ndarray) -> np.ndarray:
     return edges.reshape(-1, 2)
 
 
-def _first(idx: np.ndarray) -> list[int]:
+def _ranges(mask: ArrayLike) -> list[tuple[int, int]]:
+    """:func:`_runs_of` as a list of ``(start, stop)`` pairs of Python ints."""
+    return [(int(a), int(b)) for a, b in _runs_of(mask)]
+
+
+def _first(idx: NDArray[np.intp]) -> list[int]:
     return [int(i) for i in idx[:MAX_LISTED]]
 
 
-def _counts_problems(counts: Any, field_name: str, allow_missing: bool) -> tuple[np.ndarray | None, list[Problem]]:
+def _counts_problems(counts: Collection[object], field_name: str,
+                     allow_missing: bool) -> tuple[NDArray[np.float64] | None, list[Problem]]:
     """Convert counts to float64 and list every defect (types, NaN/inf, negatives).
 
     With ``allow_missing`` NaN marks a missing epoch (gap filling) and is accepted.
@@ -179,18 +178,18 @@ def _counts_problems(counts: Any, field_name: str, allow_missing: bool) -> tuple
 class CodedLabels:
     """Reference labels as integer codes into a list of categories (code -1 = missing/unscored)."""
 
-    codes: np.ndarray
-    categories: list[Any]
+    codes: NDArray[np.signedinteger[Any]]
+    categories: list[object]
 
     def __len__(self) -> int:
         return int(self.codes.shape[0])
 
-    def __iter__(self):
+    def __iter__(self) -> Iterator[object]:
         cats = np.asarray([*self.categories, ""], dtype=object)
         return iter(cats[self.codes].tolist())
 
 
-def _label_key(value: Any) -> str:
+def _label_key(value: object) -> str:
     """Text form of one reference label; non-label types get a key no stage code matches."""
     if isinstance(value, str):
         return value
@@ -201,7 +200,8 @@ def _label_key(value: Any) -> str:
     return f"<{type(value).__name__}: {value!r}>"
 
 
-def _reference_problems(reference: Any, n_epochs: int) -> tuple[np.ndarray | None, list[Problem]]:
+def _reference_problems(reference: Sequence[object] | CodedLabels,
+                        n_epochs: int) -> tuple[NDArray[np.str_] | None, list[Problem]]:
     """Canonical stage codes (n_epochs,) or the problems; ``reference`` may be :class:`CodedLabels`."""
     if len(reference) != n_epochs:
         return None, [Problem(
@@ -218,9 +218,10 @@ def _reference_problems(reference: Any, n_epochs: int) -> tuple[np.ndarray | Non
     else:
         seq = list(reference)
         keys = np.asarray(seq if set(map(type, seq)) <= {str} else [_label_key(v) for v in seq], dtype=object)
-        inverse, uniq = pd.factorize(keys)
+        inverse, uniq_keys = pd.factorize(keys)
+        uniq = [str(u) for u in uniq_keys]
     mapped = [None if u.startswith("<") else canonical_stage(u) for u in uniq]
-    unknown = [str(u) for u, m in zip(uniq, mapped) if m is None]
+    unknown = [str(u) for u, m in zip(uniq, mapped, strict=True) if m is None]
     if unknown:
         bad = np.flatnonzero(np.isin(np.asarray(uniq, dtype=object)[inverse], unknown))
         return None, [Problem(
@@ -236,9 +237,9 @@ def validate_night_fields(
     *,
     participant_id: str,
     start: pd.Timestamp | None,
-    epoch_seconds: Any,
-    counts: Any,
-    reference: Sequence[Any] | None = None,
+    epoch_seconds: object,
+    counts: Collection[object] | None,
+    reference: Sequence[object] | CodedLabels | None = None,
     lights_off: pd.Timestamp | None = None,
     lights_on: pd.Timestamp | None = None,
     label: str | None = None,
@@ -267,18 +268,16 @@ def validate_night_fields(
         With the complete list of problems.
     """
     problems = list(problems or [])
-    if epoch_seconds is None:  # the reader could not establish it and already said why
-        epoch_ok = False
-    elif not isinstance(epoch_seconds, (int, np.integer)) or isinstance(epoch_seconds, bool) \
-            or int(epoch_seconds) not in SUPPORTED_EPOCH_SECONDS:
+    seconds: int | None = None  # the epoch length once accepted
+    if isinstance(epoch_seconds, (int, np.integer)) and not isinstance(epoch_seconds, bool) \
+            and int(epoch_seconds) in SUPPORTED_EPOCH_SECONDS:
+        seconds = int(epoch_seconds)
+    elif epoch_seconds is not None:  # None: the reader could not establish it and already said why
         problems.append(Problem(
             "unsupported_epoch_length",
             f"epoch length {epoch_seconds!r} s is not supported; use one of {list(SUPPORTED_EPOCH_SECONDS)} s",
             {"field": "epoch_seconds", "values": [repr(epoch_seconds)]},
         ))
-        epoch_ok = False
-    else:
-        epoch_ok = True
     if counts is None:  # the reader could not find counts and already said why
         raise InvalidNightError(problems, source=source)
     n = len(counts)
@@ -291,8 +290,8 @@ def validate_night_fields(
     problems += count_problems
     if n == 0:
         problems.append(Problem("empty_recording", "the recording has no epochs", {"field": "counts"}))
-    elif epoch_ok:
-        hours = n * int(epoch_seconds) / 3600
+    elif seconds is not None:
+        hours = n * seconds / 3600
         if hours < options.min_hours:
             problems.append(Problem(
                 "too_short", f"recording lasts {hours:.2f} h, shorter than the minimum {options.min_hours:g} h",
@@ -305,8 +304,8 @@ def validate_night_fields(
     if reference is not None:
         canon, ref_problems = _reference_problems(reference, n)
         problems += ref_problems
-    if start is not None and epoch_ok:
-        end = start + pd.Timedelta(seconds=int(epoch_seconds) * n)
+    if start is not None and seconds is not None:
+        end = start + pd.Timedelta(seconds=seconds * n)
         for name, ts in (("lights_off", lights_off), ("lights_on", lights_on)):
             if ts is not None and not (start <= ts <= end):
                 problems.append(Problem(
@@ -317,9 +316,9 @@ def validate_night_fields(
             problems.append(Problem(
                 "lights_order", f"lights_off {lights_off.isoformat()} is not before lights_on {lights_on.isoformat()}",
                 {"field": "lights_off", "time": lights_off.isoformat()}))
-    if problems or start is None:
+    if problems or start is None or seconds is None or values is None:
         raise InvalidNightError(problems, source=source)
-    return Night(participant_id=participant_id, start=start, epoch_seconds=int(epoch_seconds), counts=values,
+    return Night(participant_id=participant_id, start=start, epoch_seconds=seconds, counts=values,
                  reference=canon, lights_off=lights_off, lights_on=lights_on, label=label)
 
 
@@ -335,9 +334,8 @@ def quality_flags(night: Night, *, config: QCConfig = QCConfig()) -> list[QCFlag
     flags: list[QCFlag] = []
     counts = night.counts
     epoch_min = night.epoch_seconds / 60
-    zero_runs = runs_of(counts == 0)
     min_epochs = int(np.ceil(config.off_wrist_min / epoch_min - 1e-9))
-    long_zero = [tuple(map(int, r)) for r in zero_runs if r[1] - r[0] >= min_epochs]
+    long_zero = [(a, b) for a, b in _ranges(counts == 0) if b - a >= min_epochs]
     if long_zero:
         total = sum(b - a for a, b in long_zero) * epoch_min
         flags.append(QCFlag("off_wrist", f"{len(long_zero)} run(s) of exact zeros of >= {config.off_wrist_min:g} min "
@@ -346,20 +344,20 @@ def quality_flags(night: Night, *, config: QCConfig = QCConfig()) -> list[QCFlag
     finite = counts[np.isfinite(counts)]
     q99 = float(np.quantile(finite, 0.99)) if finite.size else 0.0
     limit = min(config.spike_ceiling, config.spike_factor * q99) if q99 > 0 else config.spike_ceiling
-    spikes = [tuple(map(int, r)) for r in runs_of(counts > limit)]
+    spikes = _ranges(counts > limit)
     if spikes:
         flags.append(QCFlag("spike", f"{sum(b - a for a, b in spikes)} epoch(s) above {limit:g} counts",
                             spikes, {"spike_ceiling": config.spike_ceiling, "spike_factor": config.spike_factor,
                                      "limit": limit}))
     same = np.concatenate(([False], (counts[1:] == counts[:-1]) & (counts[1:] > 0)))
-    stuck = []
-    for a, b in runs_of(same):  # a run of k equal pairs is k+1 equal values starting at a-1
+    stuck: list[tuple[int, int]] = []
+    for a, b in _runs_of(same):  # a run of k equal pairs is k+1 equal values starting at a-1
         if b - a + 1 >= config.stuck_run:
             stuck.append((int(a - 1), int(b)))
     if stuck:
         flags.append(QCFlag("stuck_sensor", f"{len(stuck)} run(s) of >= {config.stuck_run} identical non-zero counts",
                             stuck, {"stuck_run": config.stuck_run}))
-    missing = [tuple(map(int, r)) for r in runs_of(night.missing)]
+    missing = _ranges(night.missing)
     if missing:
         flags.append(QCFlag("missing_epochs", f"{sum(b - a for a, b in missing)} epoch(s) were filled as missing",
                             missing, {}))
@@ -369,10 +367,10 @@ def quality_flags(night: Night, *, config: QCConfig = QCConfig()) -> list[QCFlag
         if pct > config.unscored_max_pct:
             flags.append(QCFlag("low_reference_coverage",
                                 f"{pct:.1f}% of reference epochs are unscored (limit {config.unscored_max_pct:g}%)",
-                                [tuple(map(int, r)) for r in runs_of(unscored)],
+                                _ranges(unscored),
                                 {"unscored_max_pct": config.unscored_max_pct}))
         mt = night.reference == "MT"
         if mt.any():
             flags.append(QCFlag("movement_time", f"{int(mt.sum())} movement-time epoch(s) in the reference",
-                                [tuple(map(int, r)) for r in runs_of(mt)], {}))
+                                _ranges(mt), {}))
     return flags

@@ -3,13 +3,13 @@
 from __future__ import annotations
 
 import json
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
 from ..errors import InvalidNightError, Problem
+from ._decoding import decode_text, finish_night, metadata_fields, parse_time
 from .checks import NightOptions, validate_night_fields
-from .decoding import decode_text, finish_night, metadata_fields, parse_time
 from .night import Night
 
 __all__ = ["night_from_json", "night_to_json"]
@@ -17,11 +17,12 @@ __all__ = ["night_from_json", "night_to_json"]
 _JSON_FIELDS = {"epoch_seconds", "start", "counts", "reference", "lights_off", "lights_on", "label"}
 
 
-def night_from_json(data: bytes | str | dict, *, participant_id: str = "", options: NightOptions = NightOptions(),
-                    source: str | None = None) -> Night:
+def night_from_json(data: bytes | str | dict[str, object], *, participant_id: str = "",
+                    options: NightOptions = NightOptions(), source: str | None = None) -> Night:
     """Night from nightbank JSON (bytes, text or an already decoded object)."""
+    obj: object
     if isinstance(data, dict):
-        obj: Any = data
+        obj = data
     else:
         text = decode_text(data, source)
         if not text.strip():
@@ -35,6 +36,7 @@ def night_from_json(data: bytes | str | dict, *, participant_id: str = "", optio
     if not isinstance(obj, dict):
         raise InvalidNightError([Problem("malformed_json", f"the top level must be an object, got "
                                          f"{type(obj).__name__}", {"field": "$"})], source=source)
+    obj = cast(dict[str, object], obj)  # JSON object keys are text
     problems: list[Problem] = []
     for key in sorted(set(obj) - _JSON_FIELDS):
         problems.append(Problem("unknown_field", f"unknown field {key!r}; allowed: {sorted(_JSON_FIELDS)}",

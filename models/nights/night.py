@@ -32,13 +32,14 @@ from typing import Literal
 
 import numpy as np
 import pandas as pd
+from numpy.typing import NDArray
 
 __all__ = [
-    "Night",
-    "SUPPORTED_EPOCH_SECONDS",
-    "STAGE_CODES",
-    "UNSCORED_CODES",
     "MovementTimePolicy",
+    "Night",
+    "STAGE_CODES",
+    "SUPPORTED_EPOCH_SECONDS",
+    "UNSCORED_CODES",
     "canonical_stage",
     "stages_to_sleep",
 ]
@@ -46,7 +47,7 @@ __all__ = [
 SUPPORTED_EPOCH_SECONDS: tuple[int, ...] = (15, 30, 60)
 
 #: canonical code -> 1 (sleep), 0 (wake), None (unscored) or "MT" (policy decides)
-STAGE_CODES: dict[str, object] = {
+STAGE_CODES: dict[str, int | str | None] = {
     "W": 0, "0": 0,
     "N1": 1, "N2": 1, "N3": 1, "R": 1,
     "S1": 1, "S2": 1, "S3": 1, "S4": 1, "REM": 1,
@@ -79,7 +80,8 @@ def canonical_stage(code: object) -> str | None:
     return text if text in STAGE_CODES else None
 
 
-def stages_to_sleep(stages: np.ndarray, *, movement_time: MovementTimePolicy = "wake") -> np.ndarray:
+def stages_to_sleep(stages: NDArray[np.str_], *,
+                    movement_time: MovementTimePolicy = "wake") -> NDArray[np.float64]:
     """Map canonical stage codes to sleep (1.0), wake (0.0) or excluded (NaN).
 
     Parameters
@@ -125,8 +127,8 @@ class Night:
     participant_id: str
     start: pd.Timestamp
     epoch_seconds: int
-    counts: np.ndarray
-    reference: np.ndarray | None = None
+    counts: NDArray[np.float64]
+    reference: NDArray[np.str_] | None = None
     lights_off: pd.Timestamp | None = None
     lights_on: pd.Timestamp | None = None
     label: str | None = None
@@ -157,7 +159,7 @@ class Night:
         return self.n_epochs * self.epoch_seconds / 3600.0
 
     @property
-    def missing(self) -> np.ndarray:
+    def missing(self) -> NDArray[np.bool_]:
         """Boolean mask, shape (n_epochs,): epochs added by gap filling (counts are NaN)."""
         return np.isnan(self.counts)
 
@@ -196,7 +198,7 @@ class Night:
         """Start time of every epoch, shape (n_epochs,)."""
         return pd.date_range(self.start, periods=self.n_epochs, freq=pd.Timedelta(seconds=self.epoch_seconds))
 
-    def reference_sleep(self, *, movement_time: MovementTimePolicy = "wake") -> np.ndarray | None:
+    def reference_sleep(self, *, movement_time: MovementTimePolicy = "wake") -> NDArray[np.float64] | None:
         """Reference as sleep (1.0) / wake (0.0) / excluded (NaN), or None without reference."""
         if self.reference is None:
             return None

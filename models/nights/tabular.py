@@ -5,17 +5,30 @@ from __future__ import annotations
 import io
 import json
 import re
-from typing import Any
+from collections.abc import Mapping
+from datetime import tzinfo
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
+from numpy.typing import NDArray
 
-from .checks import MAX_LISTED, CodedLabels, NightOptions, validate_night_fields
 from ..errors import InvalidNightError, Problem
-from .decoding import COLUMN_ALIASES, META_LINE, decode_text, finish_night, metadata_fields
+from ._decoding import META_LINE, decode_text, finish_night, metadata_fields
+from .checks import MAX_LISTED, CodedLabels, NightOptions, validate_night_fields
 from .night import Night
 
-__all__ = ["night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
+if TYPE_CHECKING:  # pyarrow has no type information: these names stand for what the values are
+    import pyarrow as pa
+
+__all__ = ["COLUMN_ALIASES", "night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
+
+#: accepted header names per role, compared case-insensitively after stripping blanks
+COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
+    "time": ("time", "timestamp", "datetime", "date_time", "epoch_start", "start"),
+    "counts": ("counts", "count", "activity", "activity_counts", "movement"),
+    "reference": ("reference", "stage", "stages", "sleep_stage", "psg", "psg_stage", "label"),
+}
 
 _DELIMITERS = (",", ";", "\t")
 
@@ -40,7 +53,8 @@ def _find_columns(columns: list[str], options: NightOptions, problems: list[Prob
     return found
 
 
-def _times_to_utc(col: Any, tz: str | None, row0: int, problems: list[Problem]) -> tuple[np.ndarray, Any] | None:
+def _times_to_utc(col: pa.Array, tz: str | None, row0: int,
+                  problems: list[Problem]) -> tuple[NDArray[np.int64], tzinfo | None] | None:
     """Time column (Arrow) -> (int64 UTC nanoseconds, tzinfo of the first epoch)."""
     import pyarrow as pa
 
@@ -80,8 +94,8 @@ def _times_to_utc(col: Any, tz: str | None, row0: int, problems: list[Problem]) 
     return local.tz_convert("UTC").as_unit("ns").asi8, local[0].tzinfo
 
 
-def _regular_epochs(utc_ns: np.ndarray, row0: int, fill_gaps: bool,
-                    problems: list[Problem]) -> tuple[int, np.ndarray] | None:
+def _regular_epochs(utc_ns: NDArray[np.int64], row0: int, fill_gaps: bool,
+                    problems: list[Problem]) -> tuple[int, NDArray[np.int64]] | None:
     """Epoch length (s) and each row's epoch index; records spacing problems."""
     if utc_ns.size < 2:
         problems.append(Problem("too_short", "a CSV night needs at least two rows to infer the epoch length",
@@ -126,8 +140,8 @@ def _regular_epochs(utc_ns: np.ndarray, row0: int, fill_gaps: bool,
     return epoch_ns // 1_000_000_000, (utc_ns - utc_ns[0]) // epoch_ns
 
 
-def _night_from_table(table: Any, meta: dict[str, Any], *, participant_id: str, options: NightOptions,
-                      source: str | None, row0: int, first_tz: Any) -> Night:
+def _night_from_table(table: pa.Table, meta: Mapping[str, object], *, participant_id: str, options: NightOptions,
+                      source: str | None, row0: int, first_tz: tzinfo | str | None) -> Night:
     """Night from an Arrow table with time / counts / reference columns.
 
     ``row0`` is the file line of the first data row (0 for Parquet, which has no lines);
@@ -168,7 +182,7 @@ def _night_from_table(table: Any, meta: dict[str, Any], *, participant_id: str, 
                                 f"{row0 + empty[0]}", {"field": cols["counts"], "row": int(row0 + empty[0]),
                                                        "epoch": int(empty[0])}))
         counts[empty] = 0.0
-    reference = None
+    reference: CodedLabels | list[object] | None = None
     if cols["reference"] is not None:
         ref_col = table.column(cols["reference"]).combine_chunks()
         if not pa.types.is_dictionary(ref_col.type):
@@ -176,7 +190,7 @@ def _night_from_table(table: Any, meta: dict[str, Any], *, participant_id: str, 
         reference = CodedLabels(ref_col.indices.fill_null(-1).to_numpy(zero_copy_only=False),
                                 ref_col.dictionary.to_pylist())
     start = epoch_seconds = None
-    if grid is not None:
+    if grid is not None and times is not None:
         epoch_seconds, index = grid
         start = pd.Timestamp(times[0][0], tz="UTC").tz_convert(times[1] or first_tz or "UTC")
         if index[-1] + 1 != len(index):  # fill whole-epoch gaps with missing epochs (fill_gaps only)
@@ -200,7 +214,7 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
     import pyarrow as pa
 
     text = decode_text(data, source)
-    meta: dict[str, Any] = {}
+    meta: dict[str, str] = {}
     pos = 0
     n_meta = 0
     while text.startswith("#", pos):
@@ -263,7 +277,7 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
         raise
 
 
-def _read_arrow_csv(buffer: Any, sep: str, decimal: str, column_types: dict[str, Any]) -> Any:
+def _read_arrow_csv(buffer: pa.Buffer, sep: str, decimal: str, column_types: dict[str, pa.DataType]) -> pa.Table:
     import pyarrow.csv as pacsv
 
     return pacsv.read_csv(

@@ -27,7 +27,7 @@ from __future__ import annotations
 
 import abc
 from dataclasses import dataclass
-from typing import Any, ClassVar
+from typing import ClassVar
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -223,8 +223,9 @@ class CountThreshold(CountRule):
     """Weighted count-threshold rule (Oakley 1997 technical report; all from memory).
 
     ``TA[t] = sum_k w_k * A[t+k]`` over a short centred window of native epochs; sleep if
-    ``TA <= threshold``, wake otherwise. The score is ``threshold - TA`` (sleep exactly when the
-    score is >= 0).
+    ``TA <= threshold``, wake otherwise (decided exactly for whole-number counts, although the
+    weights 1/25 and 1/5 have no exact binary form). The score is ``threshold - TA`` (sleep
+    exactly when the score is >= 0).
 
     Parameters
     ----------
@@ -249,11 +250,13 @@ class CountThreshold(CountRule):
         self.convention = convention
 
     def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
-        weights = np.asarray(COUNT_THRESHOLD_WEIGHTS[(self.convention, epoch_seconds)])
-        half = weights.size // 2  # weights are symmetric, so convolution = correlation
-        ta = np.convolve(counts, weights)[half:half + counts.size]
-        score = self.threshold - ta
-        return (score >= 0).astype(np.int8), score
+        # every weight is a multiple of 1/25: the sum with whole-number weights 25 * w is exact for whole
+        # counts, so an epoch with TA equal to the threshold is sleep, not left to rounding
+        weights_25 = np.round(np.asarray(COUNT_THRESHOLD_WEIGHTS[(self.convention, epoch_seconds)]) * 25.0)
+        half = weights_25.size // 2  # weights are symmetric, so convolution = correlation
+        ta_25 = np.convolve(counts, weights_25)[half:half + counts.size]
+        score = self.threshold - ta_25 / 25.0
+        return (ta_25 <= self.threshold * 25.0).astype(np.int8), score
 
 
 #: Registry of count rules keyed by base method id.
@@ -272,7 +275,7 @@ def _clean_counts(counts: ArrayLike, count_scale: float) -> NDArray[np.float64]:
     return clean * count_scale if count_scale != 1.0 else clean
 
 
-def _make_rule(base: str, options: dict[str, Any]) -> CountRule:
+def _make_rule(base: str, options: dict[str, float | str]) -> CountRule:
     try:
         return RULES[base](**options)
     except TypeError as exc:
@@ -280,7 +283,7 @@ def _make_rule(base: str, options: dict[str, Any]) -> CountRule:
 
 
 def score_with_rule(counts: ArrayLike, epoch_seconds: int, method: str, *, count_scale: float = 1.0,
-                    **rule_options: Any) -> RuleScoring:
+                    **rule_options: float | str) -> RuleScoring:
     """Score a recording with one classical method.
 
     Parameters

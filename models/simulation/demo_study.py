@@ -12,11 +12,12 @@ import json
 from pathlib import Path
 
 import numpy as np
+from numpy.typing import NDArray
 
 from ..nights.json_io import night_to_json
 from ..nights.night import Night
-from .simulator import CohortSpec, SimulatedNight, simulate_cohort
 from ..nights.tabular import night_to_csv
+from .simulator import CohortSpec, SimulatedNight, simulate_cohort
 
 __all__ = ["DEMO_SEED", "DEMO_STUDY_ID", "demo_nights", "write_demo_study"]
 
@@ -25,7 +26,7 @@ DEMO_STUDY_ID = "gullwing"
 _RK = {"W": "W", "N1": "S1", "N2": "S2", "R": "REM"}
 
 
-def _with_reference(night: Night, reference: np.ndarray) -> Night:
+def _with_reference(night: Night, reference: NDArray[np.str_]) -> Night:
     return Night(participant_id=night.participant_id, start=night.start, epoch_seconds=night.epoch_seconds,
                  counts=night.counts, reference=reference, lights_off=night.lights_off, lights_on=night.lights_on,
                  label=night.label)

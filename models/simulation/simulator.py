@@ -21,10 +21,11 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
+from numpy.typing import NDArray
 
 from ..nights.night import Night
 
-__all__ = ["CohortSpec", "SimulatedNight", "simulate_cohort", "simulate_night", "PersonTraits"]
+__all__ = ["CohortSpec", "PersonTraits", "SimulatedNight", "simulate_cohort", "simulate_night"]
 
 EPOCH_SECONDS = 30
 _PER_MIN = 60 // EPOCH_SECONDS
@@ -91,7 +92,7 @@ class SimulatedNight:
     """A simulated night; ``night.reference`` is None when the night is not labelled."""
 
     night: Night
-    stages: np.ndarray = field(repr=False)  # true stages, kept even for unlabelled nights
+    stages: NDArray[np.str_] = field(repr=False)  # true stages, kept even for unlabelled nights
     traits: PersonTraits = field(repr=False)
     day_sleep: bool = False
 
@@ -108,7 +109,7 @@ def _traits(rng: np.random.Generator, spread: float) -> PersonTraits:
     )
 
 
-def _sleep_stages(rng: np.random.Generator, n: int) -> np.ndarray:
+def _sleep_stages(rng: np.random.Generator, n: int) -> NDArray[np.str_]:
     """Cyclic N1/N2/N3/R architecture over ``n`` epochs (no wake)."""
     out: list[str] = []
     cycle = 0
@@ -140,8 +141,8 @@ def simulate_night(rng: np.random.Generator, traits: PersonTraits, *, participan
     # awakenings: arousal movement, then quiet wake for the rest of the bout
     for _ in range(rng.poisson(traits.awakenings_mean)):
         kind = rng.random()
-        length = (rng.integers(1, 4) if kind < 0.55 else
-                  rng.integers(4, 20) if kind < 0.88 else rng.integers(20, 70))
+        length = int(rng.integers(1, 4) if kind < 0.55 else
+                     rng.integers(4, 20) if kind < 0.88 else rng.integers(20, 70))
         at = int(rng.integers(10 * _PER_MIN, max(10 * _PER_MIN + 1, body - length)))
         sleep[at: at + length] = "W"
         sleep_state[at: at + length] = "quiet"

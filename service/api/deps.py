@@ -20,8 +20,8 @@ from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy.orm import Session, sessionmaker
 
 from ..config import Settings
-from ..store.db import session_scope
 from ..errors import Forbidden, NotFound, Unauthorized
+from ..store.db import session_scope
 from ..store.registry import ID_PATTERN
 from ..store.tokens import Principal, Role, TokenCache, verify_token
 

@@ -9,42 +9,15 @@ settings or options (as for click's usage errors).
 
 from __future__ import annotations
 
-from typing import Any
-
-import typer
-from typer.core import TyperGroup
-
-from models import NightbankError
-
-from .console import exit_code_of, report_error
+from .application import CommandGroup, app
 
 __all__ = ["CommandGroup", "app"]
 
-
-class CommandGroup(TyperGroup):
-    """The command group of ``nightbank``: turns a nightbank error into a message and its exit code."""
-
-    def invoke(self, ctx: Any) -> Any:  # ctx: the click context of typer's own click
-        try:
-            return super().invoke(ctx)
-        except NightbankError as exc:
-            report_error(exc)
-            raise typer.Exit(exit_code_of(exc)) from None
-
-
-app = typer.Typer(
-    name="nightbank",
-    cls=CommandGroup,
-    no_args_is_help=True,
-    add_completion=False,
-    help="nightbank: sleep/wake scoring of actigraphy nights calibrated on PSG (research software, "
-         "not for diagnosis).",
-)
-
-from . import data as _data  # noqa: E402,F401  (registers commands, listed in this order)
-from . import demo as _demo  # noqa: E402,F401
-from . import remote as _remote  # noqa: E402,F401
-from . import server as _server  # noqa: E402,F401
-from . import tokens as _tokens  # noqa: E402,F401
-from . import scoring as _scoring  # noqa: E402,F401
-from . import compare as _compare  # noqa: E402,F401
+# each command module registers its commands on ``app`` when imported, in this order
+from . import data as _data  # noqa: E402, F401, I001
+from . import demo as _demo  # noqa: E402, F401
+from . import remote as _remote  # noqa: E402, F401
+from . import server as _server  # noqa: E402, F401
+from . import tokens as _tokens  # noqa: E402, F401
+from . import scoring as _scoring  # noqa: E402, F401
+from . import compare as _compare  # noqa: E402, F401

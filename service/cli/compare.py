@@ -13,8 +13,8 @@ from rich.table import Table
 
 from models import Night, NightOptions, TrainingConfig, compare_study, read_night
 
-from . import app
 from ..errors import BadRequest, Unprocessable
+from .application import app
 from .console import FillGapsOption, JsonOption, TzOption, console, err_console
 
 __all__ = ["compare", "read_study"]

@@ -11,8 +11,8 @@ from rich.table import Table
 
 from models import InvalidNightError, NightOptions, quality_flags, read_night
 
-from . import app
 from ..errors import Incomplete
+from .application import app
 from .console import FillGapsOption, JsonOption, TzOption, console
 
 __all__ = ["check", "night_summary"]
@@ -85,5 +85,7 @@ def _print_check(results: list[dict[str, Any]]) -> None:
         if not r["valid"]:
             console.print(f"[bold red]{r['file']}[/bold red] is invalid:")
             for p in r["problems"]:
-                where = ", ".join(f"{k} {v}" for k, v in p["location"].items() if k in ("row", "epoch", "field", "time"))
-                console.print(f"  [red]{p['code']}[/red]: {p['message']}" + (f"  [dim]({where})[/dim]" if where else ""))
+                where = ", ".join(f"{k} {v}" for k, v in p["location"].items()
+                                  if k in ("row", "epoch", "field", "time"))
+                console.print(f"  [red]{p['code']}[/red]: {p['message']}"
+                              + (f"  [dim]({where})[/dim]" if where else ""))

@@ -21,7 +21,7 @@ from rich.table import Table
 
 from models import DEMO_STUDY_ID, read_night, write_demo_study
 
-from . import app
+from .application import app
 from .console import console
 from .data import night_summary
 from .remote import push_folder, train_and_wait
@@ -147,10 +147,10 @@ def demo(
 ) -> None:
     """Run nightbank on the simulated demo study (set DEMO_EXIT=1 to finish without serving)."""
     from ..client import NightbankClient
+    from ..jobs.workers import settings_env, start_worker_processes, stop_worker_processes
     from ..store.db import make_engine, make_session_factory, session_scope
     from ..store.schema import upgrade
     from ..store.tokens import create_token
-    from ..jobs.workers import settings_env, start_worker_processes, stop_worker_processes
     from .server import configure_logging
 
     console.rule(f"[bold]nightbank demo[/bold] — {SIMULATED}")

@@ -13,8 +13,8 @@ from rich.table import Table
 
 from models import InvalidNightError, NightbankError
 
-from . import app
 from ..errors import Incomplete
+from .application import app
 from .console import TzOption, console
 
 __all__ = ["NIGHT_SUFFIXES", "night_files", "progress_bar", "push_folder", "train_and_wait"]

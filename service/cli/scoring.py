@@ -23,8 +23,8 @@ from models import (
     sleep_parameters,
 )
 
-from . import app
 from ..errors import Unprocessable
+from .application import app
 from .console import FillGapsOption, JsonOption, TzOption, console, err_console
 
 __all__ = ["agree", "score"]

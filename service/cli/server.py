@@ -9,8 +9,8 @@ from typing import Annotated, Any
 
 import typer
 
-from . import app
 from ..errors import InvalidSettings
+from .application import app
 from .console import console
 
 __all__ = ["DaskSchedulerOption", "DbOption", "ExecutorOption", "configure_logging", "local_settings"]
@@ -96,9 +96,9 @@ def serve(
     import uvicorn
 
     from ..config import get_settings
+    from ..jobs.workers import settings_env, start_worker_processes, stop_worker_processes
     from ..store.db import make_engine
     from ..store.schema import check_schema, upgrade
-    from ..jobs.workers import settings_env, start_worker_processes, stop_worker_processes
     from ..telemetry import multiprocess_folder
 
     settings = local_settings(host=host, port=port, db=db, workers=workers, job_workers=job_workers,
@@ -134,9 +134,9 @@ def worker(db: DbOption = None, executor: ExecutorOption = None, dask_scheduler:
     """Run one more training worker in the foreground (same database as the server, any machine)."""
     import signal
 
+    from ..jobs.workers import Worker
     from ..store.db import make_engine, make_session_factory
     from ..store.schema import check_schema
-    from ..jobs.workers import Worker
 
     settings = local_settings(db=db, executor=executor, dask_scheduler=dask_scheduler)
     configure_logging(settings.log_level)

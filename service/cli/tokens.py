@@ -7,7 +7,7 @@ from typing import Annotated, Any
 import typer
 from rich.table import Table
 
-from . import app
+from .application import app
 from .console import console
 from .server import DbOption, local_settings
 

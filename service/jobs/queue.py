@@ -36,9 +36,9 @@ from sqlalchemy import func, or_, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
+from ..errors import Conflict, NotFound
 from ..store import db
 from ..store.audit import record_audit
-from ..errors import Conflict, NotFound
 
 __all__ = [
     "Claimer",

@@ -40,16 +40,23 @@ from models import (
     train_pooled,
 )
 
-from ..store import db, versions
-from ..store.codec import encode_held_out
 from ..config import Settings
 from ..errors import Conflict, NotFound, Unprocessable
+from ..store import db, versions
+from ..store.codec import encode_held_out
 from ..store.db import session_scope
-from ..store.metadata import HeldOutFigures, MetricSummary, ModelMetadata, Selection, TrainingNight
 from ..store.features import load_features_of, store_features
+from ..store.metadata import HeldOutFigures, MetricSummary, ModelMetadata, Selection, TrainingNight
+from ..store.registry import (
+    ParticipantInfo,
+    StudyInfo,
+    find_participant,
+    find_study,
+    load_nights,
+    record_choice,
+    study_participants,
+)
 from .queue import JobInfo, enqueue_job
-from ..store.registry import (ParticipantInfo, StudyInfo, find_participant, find_study, load_nights, record_choice,
-                              study_participants)
 
 __all__ = ["Compute", "check_trainable", "compute_here", "queue_training", "refresh_choices", "run_training_job"]
 

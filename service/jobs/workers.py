@@ -33,8 +33,8 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import NightbankError
 
-from ..store import db
 from ..config import Settings
+from ..store import db
 from .executor import ExecutorUnavailable, JobExecutor, LocalExecutor
 from .queue import JobInfo, JobState, claim_job, finish_job, heartbeat, release_job, report_progress
 

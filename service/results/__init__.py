@@ -1,2 +1,6 @@
-"""Results of stored nights: scoring with a rule or a model version (:mod:`.scoring`), and the
-method-versus-reference comparisons and parameter export (:mod:`.reports`)."""
+"""Results of stored nights: scorings, comparisons with the reference and exports.
+
+:mod:`.scoring` scores a night with a rule or a model version; :mod:`.reports` holds the comparisons
+and the parameter export.
+"""
+

@@ -48,10 +48,10 @@ from models import (
     sleep_parameters,
 )
 
+from ..errors import BadRequest, NotFound, Unprocessable
 from ..store import db, versions
 from ..store.cachewriter import CacheWriter
 from ..store.codec import night_from_row
-from ..errors import BadRequest, NotFound, Unprocessable
 from ..store.features import features_row, load_features
 from ..store.registry import find_participant, find_study
 

@@ -1,2 +1,5 @@
-"""Storage: the database, its schema and migrations, and the registry of studies, nights, model versions,
-tokens and audit entries. Functions here return frozen snapshots; ORM rows stay inside this package."""
+"""Storage: database, schema and migrations, and the registry of studies, nights, versions, tokens and audit.
+
+Functions here return frozen snapshots; ORM rows stay inside this package.
+"""
+

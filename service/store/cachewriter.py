@@ -15,8 +15,8 @@ import threading
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
-from . import db
 from ..errors import StorageError
+from . import db
 
 __all__ = ["CacheWriter"]
 

@@ -10,8 +10,6 @@ from __future__ import annotations
 
 import dataclasses
 import re
-from dataclasses import dataclass
-from datetime import datetime
 from typing import Any
 
 from sqlalchemy import delete, func, select, update
@@ -19,10 +17,11 @@ from sqlalchemy.orm import Session
 
 from models import Night, quality_flags
 
+from ..errors import BadRequest, Conflict, NotFound
 from . import db, versions
 from .audit import record_audit
 from .codec import night_columns, night_from_row
-from ..errors import BadRequest, Conflict, NotFound
+from .snapshots import NightInfo, ParticipantInfo, ParticipantSummary, StudyInfo
 
 __all__ = [
     "ID_PATTERN",
@@ -49,64 +48,6 @@ __all__ = [
 #: Study and participant ids: letters, digits, ``.``, ``_`` and ``-``; 1 to 64 characters.
 ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$"
 _ID = re.compile(ID_PATTERN)
-
-
-@dataclass(frozen=True)
-class StudyInfo:
-    """A study; ``pk`` is its database key."""
-
-    study_id: str
-    name: str
-    created_at: datetime
-    pk: int
-
-
-@dataclass(frozen=True)
-class ParticipantInfo:
-    """A participant and the method their nights are scored with.
-
-    ``chosen_method`` is ``personal`` or ``pooled`` once a personal model was trained and
-    compared with the pooled one (None before); ``choice`` records why (``method``, ``reason``,
-    the versions compared, ``policy``). ``pk`` is the participant's database key.
-    """
-
-    participant_id: str
-    study_id: str
-    created_at: datetime
-    chosen_method: str | None
-    choice: dict[str, Any] | None
-    pk: int
-
-
-@dataclass(frozen=True)
-class ParticipantSummary(ParticipantInfo):
-    """A participant with the facts a lab needs to decide on (re)training.
-
-    ``untrained_labelled_nights`` counts labelled nights that the active personal model was not
-    trained on (all labelled nights without a personal model): a retrain would use them.
-    """
-
-    n_nights: int
-    n_labelled_nights: int
-    active_personal_version: int | None
-    untrained_labelled_nights: int
-
-
-@dataclass(frozen=True)
-class NightInfo:
-    night_id: str
-    participant_id: str
-    content_hash: str
-    label: str | None
-    start: str
-    epoch_seconds: int
-    n_epochs: int
-    lights_off: str | None
-    lights_on: str | None
-    labelled: bool
-    qc: list[dict[str, Any]]
-    source_format: str
-    created_at: datetime
 
 
 def _check_id(value: str, what: str) -> None:

@@ -30,9 +30,9 @@ from cachetools import TTLCache
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from ..errors import BadRequest, NotFound, Unauthorized
 from . import db
 from .audit import record_audit
-from ..errors import BadRequest, NotFound, Unauthorized
 
 __all__ = ["Principal", "Role", "TokenCache", "TokenInfo", "create_token", "list_tokens", "revoke_token",
            "verify_token"]

@@ -18,7 +18,7 @@ import threading
 import uuid
 from dataclasses import dataclass
 from datetime import datetime
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 from cachetools import LRUCache, cached
 from sqlalchemy import func, select, update
@@ -26,14 +26,12 @@ from sqlalchemy.orm import Session
 
 from models import HeldOutNight, SleepModel, model_from_bytes
 
+from ..errors import NotFound
 from . import db
 from .audit import record_audit
 from .codec import decode_held_out
 from .metadata import ModelMetadata
-from ..errors import NotFound
-
-if TYPE_CHECKING:
-    from .registry import ParticipantInfo, StudyInfo
+from .snapshots import ParticipantInfo, StudyInfo
 
 __all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_personal_versions",
            "active_version", "add_version", "get_version", "list_versions", "load_held_out", "load_model", "scope_of"]

@@ -33,8 +33,8 @@ from fastapi import Depends, Path, Request
 from fastapi.responses import Response
 from sqlalchemy.orm import Session, sessionmaker
 
-from ..store.db import session_scope
 from ..errors import Forbidden, NotFound, Unauthorized
+from ..store.db import session_scope
 from ..store.registry import ID_PATTERN
 from ..store.tokens import Principal, Role, verify_token
 

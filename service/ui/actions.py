@@ -13,12 +13,12 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Form, Path, Request
 from fastapi.responses import RedirectResponse
 
-from ..jobs import queue as jobs
 from ..api.deps import FactoryDep, SettingsDep
-from ..store.db import session_scope
 from ..errors import Forbidden, NotFound
-from ..store.tokens import Principal, Role
+from ..jobs import queue as jobs
 from ..jobs.training import queue_training
+from ..store.db import session_scope
+from ..store.tokens import Principal, Role
 from .access import UI_PREFIX, StudyPage, check_origin, page_principal
 from .pages import ParticipantPath
 

@@ -13,10 +13,10 @@ import pandas as pd
 from fastapi import APIRouter, Path, Query
 from fastapi.responses import Response
 
-from ..store import registry, versions
 from ..api.deps import FactoryDep
-from ..store.db import session_scope
 from ..errors import NotFound, Unprocessable
+from ..store import registry, versions
+from ..store.db import session_scope
 from ..store.tokens import Role
 from .access import StudyPage
 from .cards import model_card, model_card_markdown

@@ -16,11 +16,11 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import COMPARED_RULES, MODEL_METHODS, PARAMETER_NAMES, Night, compare_night
 
+from ..errors import BadRequest, Unprocessable
+from ..results.scoring import SCORING_METHODS, score_night
 from ..store import registry, versions
 from ..store.db import session_scope
-from ..errors import BadRequest, Unprocessable
 from ..store.registry import NightInfo
-from ..results.scoring import SCORING_METHODS, score_night
 from .figures import style_of
 from .night_figure import NightPanels
 

@@ -9,12 +9,12 @@ from fastapi import APIRouter, Depends, Form, Path, Query, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from sqlalchemy.orm import Session, sessionmaker
 
-from ..jobs import queue as jobs
-from ..store import registry
 from ..api.deps import FactoryDep
-from ..store.db import session_scope
 from ..errors import NotFound, Unauthorized
+from ..jobs import queue as jobs
 from ..jobs.queue import JobInfo
+from ..store import registry
+from ..store.db import session_scope
 from ..store.registry import StudyInfo
 from ..store.tokens import Principal
 from .access import (

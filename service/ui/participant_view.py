@@ -11,14 +11,14 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import ALWAYS_SLEEP, COMPARED_RULES, MODEL_METHODS
 
-from ..store import db, registry, versions
-from ..jobs import queue as jobs
-from ..results import reports
-from ..store.db import session_scope
 from ..errors import Unprocessable
+from ..jobs import queue as jobs
 from ..jobs.queue import JobInfo
-from ..store.registry import NightInfo
 from ..jobs.training import check_trainable
+from ..results import reports
+from ..store import db, registry, versions
+from ..store.db import session_scope
+from ..store.registry import NightInfo
 from ..store.versions import VersionInfo
 
 __all__ = ["COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "ParticipantView", "held_out_table",

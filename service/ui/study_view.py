@@ -11,11 +11,11 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import ALWAYS_SLEEP, REFERENCE
 
-from ..store import registry, versions
-from ..results import reports
-from ..store.db import session_scope
 from ..errors import Unprocessable
 from ..jobs.queue import JobInfo
+from ..results import reports
+from ..store import registry, versions
+from ..store.db import session_scope
 from ..store.registry import ParticipantSummary
 from ..store.versions import VersionInfo
 from .participant_view import COMPARISON_METHODS, last_job

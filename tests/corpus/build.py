@@ -28,7 +28,8 @@ def _good() -> dict:
 def _csv_rows(times=None, counts=None, sep=",", header="time,counts") -> str:
     times = pd.date_range(START, periods=N, freq="30s") if times is None else times
     counts = np.random.default_rng(12).poisson(5, len(times)).tolist() if counts is None else counts
-    return header.replace(",", sep) + "\n" + "\n".join(f"{t.isoformat()}{sep}{c}" for t, c in zip(times, counts)) + "\n"
+    rows = (f"{t.isoformat()}{sep}{c}" for t, c in zip(times, counts, strict=True))
+    return header.replace(",", sep) + "\n" + "\n".join(rows) + "\n"
 
 
 def _json(obj) -> bytes:

@@ -22,10 +22,10 @@ def trained(tmp_path_factory):
     """A study with three participants of three labelled nights and one unlabelled night each; pooled
     model and P-01's personal model trained."""
     from service.config import Settings
+    from service.jobs.workers import stop_worker_processes
     from service.store.db import make_engine, make_session_factory, session_scope
     from service.store.schema import upgrade
     from service.store.tokens import create_token
-    from service.jobs.workers import stop_worker_processes
 
     path = tmp_path_factory.mktemp("reports") / "nightbank.db"
     settings = Settings(db=f"sqlite:///{path}", port=free_port(), lease_s=5, heartbeat_s=0.5, poll_s=0.2, n_trials=2)

@@ -60,9 +60,9 @@ def test_sigkill_mid_upload_keeps_every_acknowledged_night_whole(tmp_path: Path)
     from sqlalchemy import select
 
     from models import night_to_json
+    from service.config import Settings
     from service.store import db
     from service.store.codec import night_from_row
-    from service.config import Settings
     from service.store.tokens import create_token
 
     db_url = f"sqlite:///{tmp_path / 'nightbank.db'}"

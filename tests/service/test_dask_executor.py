@@ -42,10 +42,10 @@ def _version_info(factory, version: int) -> dict:
 def test_training_on_a_dask_cluster_matches_a_local_run(http, study, admin, settings, factory) -> None:
     from distributed import Client, LocalCluster, get_task_stream
 
-    from service.store.db import session_scope
-    from service.jobs.queue import get_job
     from service.jobs.executor import LocalExecutor
+    from service.jobs.queue import get_job
     from service.jobs.workers import Worker
+    from service.store.db import session_scope
 
     job_on_dask = _load_and_train(http, admin, study, seed=3)
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
@@ -84,9 +84,9 @@ def test_cancelling_a_job_running_on_dask_stops_it_and_stores_nothing(http, stud
 
     from distributed import LocalCluster
 
-    from service.store.db import session_scope
     from service.jobs.queue import cancel_job, get_job
     from service.jobs.workers import Worker
+    from service.store.db import session_scope
 
     for body in cohort_bodies(n_participants=1, nights=3)["P-01"]:
         http.post(f"/v1/studies/{study}/participants/P-01/nights", json=body, headers=admin)

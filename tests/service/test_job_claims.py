@@ -30,8 +30,8 @@ def _migrated(url: str):
 
 def _queue(settings, n_jobs: int) -> list[str]:
     """``n_jobs`` queued personal trainings, one per participant of one study."""
-    from service.store import db
     from service.jobs.queue import enqueue_job
+    from service.store import db
 
     engine = db.make_engine(settings)
     factory = db.make_session_factory(engine)
@@ -54,8 +54,8 @@ def _race(settings, *, n_claimers: int, lease_s: float, claimer=None) -> list[tu
 
     Returns (job_id, worker_id, attempts) of every successful claim.
     """
-    from service.store import db
     from service.jobs.queue import claim_job
+    from service.store import db
 
     claims: list[tuple[str, str, int]] = []
     errors: list[BaseException] = []
@@ -134,8 +134,8 @@ def test_postgres_claimers_take_each_job_exactly_once_and_expired_leases_once_mo
 def test_postgres_claim_skips_a_row_another_transaction_holds_instead_of_waiting(pg_url) -> None:
     from sqlalchemy import select, text
 
-    from service.store import db
     from service.jobs.queue import SkipLockedClaimer
+    from service.store import db
 
     settings = _migrated(pg_url)
     first, second = _queue(settings, 2)
@@ -186,9 +186,9 @@ def test_postgres_worker_processes_share_the_queue_and_a_killed_one_loses_nothin
     from harness import LiveServer, bearer, cohort_bodies, free_port, wait_for, worker_env
     from sqlalchemy import select
 
+    from service.jobs.workers import stop_worker_processes
     from service.store import db, versions
     from service.store.tokens import create_token
-    from service.jobs.workers import stop_worker_processes
 
     settings = _migrated(pg_url).model_copy(update={"port": free_port(), "lease_s": 3.0, "heartbeat_s": 0.5,
                                                      "poll_s": 0.2, "token_cache_s": 0.0})

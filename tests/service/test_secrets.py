@@ -45,8 +45,8 @@ def test_tokens_are_stored_only_as_salted_hashes(settings, http, admin, make_tok
 @pytest.mark.parametrize("kind", ["wrong secret", "unknown id", "malformed"])
 def test_token_check_compares_in_constant_time(factory, make_token, monkeypatch, kind) -> None:
     """Every verification, including unknown and malformed tokens, goes through hmac.compare_digest."""
-    from service.store.db import session_scope
     from service.errors import Unauthorized
+    from service.store.db import session_scope
     from service.store.tokens import verify_token
 
     token = make_token("admin")

@@ -48,9 +48,9 @@ def test_versions_are_numbered_per_scope_and_promoted_only_when_not_worse(owners
 
 
 def test_activation_rolls_back_and_is_audited(owners) -> None:
+    from service.errors import NotFound
     from service.store import db, registry, versions
     from service.store.audit import list_audit
-    from service.errors import NotFound
 
     with db.session_scope(owners, write=True) as session:
         study = registry.find_study(session, "s")

@@ -126,10 +126,10 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Site]:
     import httpx
 
     from service.config import Settings
+    from service.jobs.workers import start_worker_processes, stop_worker_processes
     from service.store.db import make_engine, make_session_factory, session_scope
     from service.store.schema import upgrade
     from service.store.tokens import create_token
-    from service.jobs.workers import start_worker_processes, stop_worker_processes
 
     folder = tmp_path_factory.mktemp("ui")
     settings = Settings(db=f"sqlite:///{folder / 'nightbank.db'}", port=free_port(), lease_s=30.0, heartbeat_s=1.0,

@@ -11,10 +11,10 @@ from sqlalchemy.exc import IntegrityError
 
 from models import Night, NightOptions, night_from_csv, night_from_json, night_from_parquet
 
-from ...store import registry
-from ...store.db import session_scope
 from ...errors import PayloadTooLarge, UnsupportedMediaType
 from ...results.scoring import SCORING_METHODS, score_night
+from ...store import registry
+from ...store.db import session_scope
 from ...store.tokens import Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, study_access
 from ..problems import problem_responses

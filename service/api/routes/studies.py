@@ -6,9 +6,9 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Path, Query
 
+from ...errors import Forbidden
 from ...store import registry
 from ...store.db import session_scope
-from ...errors import Forbidden
 from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses

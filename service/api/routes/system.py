@@ -9,8 +9,8 @@ from fastapi.responses import PlainTextResponse
 from sqlalchemy import text
 
 from ...jobs.queue import count_jobs_by_state
-from ...telemetry import METRICS_MEDIA_TYPE, Metrics
 from ...store.tokens import Principal, Role
+from ...telemetry import METRICS_MEDIA_TYPE, Metrics
 from ..deps import ReadSession, require_lab_role
 
 __all__ = ["router"]

@@ -6,9 +6,9 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Path
 
+from ...errors import Forbidden
 from ...store import tokens
 from ...store.db import session_scope
-from ...errors import Forbidden
 from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, require_lab_role
 from ..schemas import TokenCreated, TokenIn, TokenOut

@@ -8,13 +8,13 @@ from fastapi import APIRouter, Body, Depends, Path
 from fastapi.responses import JSONResponse
 from sqlalchemy.orm import Session
 
+from ...errors import NotFound
 from ...jobs import queue as jobs
+from ...jobs.queue import JobInfo
+from ...jobs.training import queue_training, refresh_choices
 from ...store import registry, versions
 from ...store.db import session_scope
-from ...errors import NotFound
-from ...jobs.queue import JobInfo
 from ...store.tokens import Principal, Role
-from ...jobs.training import queue_training, refresh_choices
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
 from ..schemas import JobAccepted, JobOut, ModelVersionOut, Progress, TrainingIn

@@ -17,8 +17,8 @@ import statsmodels.api as sm
 from statsmodels.graphics.agreement import mean_diff_plot
 
 from models.agreement.bland_altman import BLAND_ALTMAN_PARAMETERS, REFERENCE, bland_altman, bland_altman_table
-from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference
 from models.agreement.epoch_metrics import ALWAYS_SLEEP, EPOCH_METRIC_NAMES, epoch_agreement
+from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference
 from models.scoring.parameters import PARAMETER_NAMES, sleep_parameters
 from models.scoring.rescoring import InvalidSleepVectorError
 from models.scoring.rules import METHOD_IDS, score_with_rule

@@ -14,8 +14,14 @@ import pandas as pd
 import pytest
 from sklearn import metrics as skm
 
-from models.agreement.epoch_metrics import (ALWAYS_SLEEP, EPOCH_METRIC_NAMES, ScoredNight, agreement_table, always_sleep,
-                            epoch_agreement)
+from models.agreement.epoch_metrics import (
+    ALWAYS_SLEEP,
+    EPOCH_METRIC_NAMES,
+    ScoredNight,
+    agreement_table,
+    always_sleep,
+    epoch_agreement,
+)
 from models.scoring.rescoring import InvalidSleepVectorError
 
 

@@ -107,14 +107,14 @@ def test_features_take_no_reference_labels():
 
 # ---- windows in minutes, missing epochs ------------------------------------------------------
 
-@pytest.mark.parametrize("epoch_seconds", [15, 30, 60])
-def test_windows_span_the_same_minutes_at_every_epoch_length(epoch_seconds):
+@pytest.mark.parametrize(("epoch_seconds", "minutes", "width"), [
+    # hand computation: a window of m minutes spans m * 60 / epoch_seconds epochs plus the centre epoch
+    (15, 10, 41), (15, 90, 361), (30, 10, 21), (30, 90, 181), (60, 10, 11), (60, 90, 91),
+])
+def test_windows_span_the_same_minutes_at_every_epoch_length(epoch_seconds, minutes, width):
     fm = compute_features(_night(400), epoch_seconds, config=WINDOW_ONLY)
-    for minutes in (10, 90):
-        h = half_width_epochs(minutes, epoch_seconds)
-        # hand computation: at the first epoch only the h + 1 epochs at and after it are available
-        assert _column(fm, f"coverage_{minutes}m")[0] == pytest.approx((h + 1) / (2 * h + 1))
-        assert h == round(minutes * 60 / epoch_seconds / 2)
+    # at the first epoch only the centre and the (width - 1) / 2 epochs after it lie in the recording
+    assert _column(fm, f"coverage_{minutes}m")[0] == pytest.approx(((width - 1) / 2 + 1) / width)
 
 
 def test_missing_epochs_do_not_look_like_stillness():

@@ -11,15 +11,21 @@ import numpy as np
 import pytest
 import xgboost as xgb
 
-from models.learning.artifacts import InvalidModelArtifactError, load_model, model_from_bytes, model_to_bytes, save_model
-from models.learning.classifier import Projection, SleepModel
 from models.features.matrix import FeatureConfig, FeatureSetMismatchError
 from models.features.source import night_features
+from models.learning.artifacts import (
+    InvalidModelArtifactError,
+    load_model,
+    model_from_bytes,
+    model_to_bytes,
+    save_model,
+)
+from models.learning.classifier import Projection, SleepModel
+from models.learning.config import TrainingConfig
+from models.learning.pooled import train_pooled
 from models.nights.json_io import night_to_json
 from models.nights.night import Night
-from models.learning.pooled import train_pooled
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.config import TrainingConfig
 
 ROOT = Path(__file__).resolve().parents[3]
 

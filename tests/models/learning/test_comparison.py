@@ -10,10 +10,10 @@ import pytest
 
 from models.agreement.bland_altman import bland_altman
 from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference
+from models.learning.config import TrainingConfig
 from models.learning.method_choice import MODEL_METHODS, choose_method
 from models.learning.study_comparison import COMPARED_RULES, compare_study
 from models.simulation.simulator import CohortSpec, simulate_cohort
-from models.learning.config import TrainingConfig
 
 CONFIG = TrainingConfig(n_trials=2, max_rounds=50, pooled_folds=3)
 

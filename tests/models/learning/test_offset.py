@@ -8,13 +8,13 @@ import pytest
 from scipy.optimize import minimize_scalar
 from scipy.special import expit
 
-from models.errors import NightbankError
 from models.agreement.epoch_metrics import epoch_agreement
+from models.errors import NightbankError
+from models.learning.config import TrainingConfig
+from models.learning.descriptors import participant_descriptors
 from models.learning.offset import choose_shrinkage, estimate_offset, offset_log_likelihood, participant_offset
 from models.learning.pooled import train_pooled
 from models.simulation.simulator import CohortSpec, PersonTraits, simulate_cohort, simulate_night
-from models.learning.config import TrainingConfig
-from models.learning.descriptors import participant_descriptors
 
 
 def _balanced_weights(y: np.ndarray) -> np.ndarray:

@@ -10,10 +10,10 @@ import pytest
 from sklearn.metrics import roc_auc_score
 
 from models.learning.artifacts import model_to_bytes
-from models.nights.night import Night
-from models.learning.personal import train_personal
-from models.simulation.simulator import CohortSpec, simulate_cohort
 from models.learning.config import TrainingConfig, TrainingDataError
+from models.learning.personal import train_personal
+from models.nights.night import Night
+from models.simulation.simulator import CohortSpec, simulate_cohort
 
 CONFIG = TrainingConfig(n_trials=3, max_rounds=60)
 

@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 
 from models.learning.artifacts import model_to_bytes
-from models.nights.night import Night
-from models.learning.pooled import train_pooled
-from models.simulation.simulator import CohortSpec, simulate_cohort
 from models.learning.config import TrainingConfig, TrainingDataError
 from models.learning.descriptors import DESCRIPTOR_NAMES, participant_descriptors
+from models.learning.pooled import train_pooled
+from models.nights.night import Night
+from models.simulation.simulator import CohortSpec, simulate_cohort
 
 CONFIG = TrainingConfig(pooled_folds=3, max_rounds=80)
 

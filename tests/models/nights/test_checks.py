@@ -7,8 +7,8 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-
 from factories import make_night, night_json
+
 from models import (
     InvalidNightError,
     Night,

@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+import io
 import json
 
 import numpy as np
 import pandas as pd
 import pytest
-
 from factories import make_night, night_json
+
 from models import (
     InvalidNightError,
     Night,
@@ -56,8 +57,9 @@ def test_json_csv_parquet_chain() -> None:
 
 def test_csv_semicolon_decimal_comma_naive_times_with_tz() -> None:
     night = make_night(240, stages=False)
+    local_times = night.epoch_times().tz_convert("Europe/Berlin")
     rows = ["Zeit;Activity"] + [f"{t.strftime('%Y-%m-%dT%H:%M:%S')};{c:.1f}".replace(".", ",")
-                                for t, c in zip(night.epoch_times().tz_convert("Europe/Berlin"), night.counts)]
+                                for t, c in zip(local_times, night.counts, strict=True)]
     back = night_from_csv("\n".join(rows), options=NightOptions(tz="Europe/Berlin", time_column="Zeit"))
     assert back.content_hash == night.content_hash
 
@@ -135,3 +137,30 @@ def test_json_null_counts_with_fill_gaps() -> None:
         night_from_json(obj)
     night = night_from_json(obj, options=NightOptions(fill_gaps=True))
     assert night.missing[10] and night.missing.sum() == 1
+
+
+def test_csv_written_by_pandas() -> None:
+    # pandas writes the file (not our writer): ISO times with offsets, integer counts, AASM labels
+    times = pd.date_range("2031-03-02T22:41:00+01:00", periods=240, freq="30s")
+    rng = np.random.default_rng(5)
+    frame = pd.DataFrame({"timestamp": times.map(lambda t: t.isoformat()), "activity": rng.poisson(6, 240),
+                          "stage": rng.choice(["W", "N1", "N2", "N3", "R"], 240)})
+    night = night_from_csv(frame.to_csv(index=False))
+    assert night.start == times[0] and night.epoch_seconds == 30 and night.n_epochs == 240
+    np.testing.assert_array_equal(night.counts, frame["activity"].to_numpy(dtype=float))
+    np.testing.assert_array_equal(night.reference, frame["stage"].to_numpy(dtype=str))
+
+
+def test_parquet_written_by_pyarrow() -> None:
+    # pyarrow writes the file (not our writer): a timestamp column in a named zone, int64 counts
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    times = pd.date_range("2031-03-02T22:00:00", periods=180, freq="60s", tz="Europe/Berlin")
+    counts = np.random.default_rng(6).poisson(30, 180)
+    table = pa.table({"time": pa.array(times), "counts": pa.array(counts, type=pa.int64())})
+    buffer = io.BytesIO()
+    pq.write_table(table, buffer)
+    night = night_from_parquet(buffer.getvalue())
+    assert night.start == times[0] and night.epoch_seconds == 60 and night.reference is None
+    np.testing.assert_array_equal(night.counts, counts.astype(float))

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-
 from factories import make_night
+
 from models import Night, canonical_stage, stages_to_sleep
 
 

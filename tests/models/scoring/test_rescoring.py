@@ -14,8 +14,13 @@ from hypothesis import given
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from models.scoring.rescoring import (InvalidSleepVectorError, UnsupportedEpochLengthError, as_sleep_vector, run_lengths,
-                              webster_rescore)
+from models.scoring.rescoring import (
+    InvalidSleepVectorError,
+    UnsupportedEpochLengthError,
+    as_sleep_vector,
+    run_lengths,
+    webster_rescore,
+)
 
 
 def _seq(*runs: tuple[str, int], epoch_seconds: int) -> np.ndarray:

@@ -1,9 +1,10 @@
-"""Shared pieces of the night readers: text decoding, timestamps, metadata fields and column aliases."""
+"""What the night readers share: text decoding, timestamps and metadata fields (private to the package)."""
 
 from __future__ import annotations
 
 import re
-from typing import Any
+from collections.abc import Mapping
+from typing import TypedDict
 
 import pandas as pd
 
@@ -12,14 +13,8 @@ from .checks import NightOptions
 from .night import Night
 from .resample import aggregate_epochs
 
-__all__ = ["COLUMN_ALIASES", "META_LINE", "decode_text", "finish_night", "metadata_fields", "parse_time"]
+__all__ = ["META_LINE", "NightMetadata", "decode_text", "finish_night", "metadata_fields", "parse_time"]
 
-#: accepted header names per role, compared case-insensitively after stripping blanks
-COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
-    "time": ("time", "timestamp", "datetime", "date_time", "epoch_start", "start"),
-    "counts": ("counts", "count", "activity", "activity_counts", "movement"),
-    "reference": ("reference", "stage", "stages", "sleep_stage", "psg", "psg_stage", "label"),
-}
 #: an optional leading ``# key: value`` line of a CSV file
 META_LINE = re.compile(r"^#\s*([A-Za-z_]+)\s*:\s*(.*?)\s*$")
 
@@ -39,7 +34,15 @@ def decode_text(data: bytes | str, source: str | None) -> str:
                                          f"(line {line}) cannot be decoded", {"row": line})], source=source) from None
 
 
-def parse_time(value: Any, field: str, tz: str | None, problems: list[Problem]) -> pd.Timestamp | None:
+class NightMetadata(TypedDict, total=False):
+    """The metadata fields of a night as keyword arguments of :func:`~models.nights.checks.validate_night_fields`."""
+
+    lights_off: pd.Timestamp | None
+    lights_on: pd.Timestamp | None
+    label: str | None
+
+
+def parse_time(value: object, field: str, tz: str | None, problems: list[Problem]) -> pd.Timestamp | None:
     """An ISO 8601 time, localised with ``tz`` when it has no offset; None (and a problem) when invalid."""
     if not isinstance(value, str):
         problems.append(Problem("invalid_timestamp", f"{field} must be an ISO 8601 text, got {value!r}",
@@ -50,7 +53,7 @@ def parse_time(value: Any, field: str, tz: str | None, problems: list[Problem]) 
     except (ValueError, TypeError):
         problems.append(Problem("invalid_timestamp", f"{field} {value!r} is not an ISO 8601 time", {"field": field}))
         return None
-    if ts is pd.NaT:
+    if pd.isna(ts):
         problems.append(Problem("invalid_timestamp", f"{field} {value!r} is not a time", {"field": field}))
         return None
     if ts.tzinfo is None:
@@ -67,12 +70,13 @@ def parse_time(value: Any, field: str, tz: str | None, problems: list[Problem]) 
     return ts
 
 
-def metadata_fields(meta: dict[str, Any], tz: str | None, problems: list[Problem]) -> dict[str, Any]:
+def metadata_fields(meta: Mapping[str, object], tz: str | None, problems: list[Problem]) -> NightMetadata:
     """``lights_off``, ``lights_on`` and ``label`` of a night from its metadata, checked."""
-    out: dict[str, Any] = {}
-    for key in ("lights_off", "lights_on"):
-        if meta.get(key) not in (None, ""):
-            out[key] = parse_time(meta[key], key, tz, problems)
+    out = NightMetadata()
+    if meta.get("lights_off") not in (None, ""):
+        out["lights_off"] = parse_time(meta["lights_off"], "lights_off", tz, problems)
+    if meta.get("lights_on") not in (None, ""):
+        out["lights_on"] = parse_time(meta["lights_on"], "lights_on", tz, problems)
     label = meta.get("label")
     if label is not None and not isinstance(label, str):
         problems.append(Problem("invalid_field", f"label must be text, got {type(label).__name__}",
@@ -84,4 +88,6 @@ def metadata_fields(meta: dict[str, Any], tz: str | None, problems: list[Problem
 
 def finish_night(night: Night, options: NightOptions) -> Night:
     """The night aggregated to ``options.aggregate_to`` when that is set and differs."""
-    return night if options.aggregate_to in (None, night.epoch_seconds) else aggregate_epochs(night, options.aggregate_to)
+    if options.aggregate_to in (None, night.epoch_seconds):
+        return night
+    return aggregate_epochs(night, options.aggregate_to)
