@@ -63,8 +63,7 @@ def problem_error(response: httpx.Response) -> NightbankError:
                                  for p in problem.get("problems") or []])
     else:
         exc = _BY_STATUS.get(response.status_code, ServiceError)(detail, code=code)
-    exc.problem = problem  # type: ignore[attr-defined]
-    exc.status = response.status_code  # type: ignore[attr-defined]
+    vars(exc).update(problem=problem, status=response.status_code)  # the server's problem details, kept as sent
     return exc
 
 

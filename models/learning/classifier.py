@@ -221,8 +221,9 @@ class SleepModel:
                       features: FeatureMatrix | None = None,
                       feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
         """Probability of sleep per epoch, shape (n_epochs,), float64 (see :meth:`decision_function`)."""
-        return expit(self.decision_function(night, offset=offset, descriptors=descriptors, features=features,
-                                            feature_cache=feature_cache))
+        margin = self.decision_function(night, offset=offset, descriptors=descriptors, features=features,
+                                        feature_cache=feature_cache)
+        return np.asarray(expit(margin), dtype=np.float64)
 
     def predict(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
                 features: FeatureMatrix | None = None, feature_cache: FeatureSource | None = None) -> NDArray[np.int8]:

@@ -192,7 +192,8 @@ def _margins(held: list[HeldOutNight], rows: list[NightRows], baseline: float) -
             for h, r in zip(held, rows, strict=True)]
 
 
-def _offset_held_out(held: list[HeldOutNight], rows: list[NightRows], pairs: list[tuple[NDArray[np.float64], ...]],
+def _offset_held_out(held: list[HeldOutNight], rows: list[NightRows],
+                     pairs: list[tuple[NDArray[np.float64], NDArray[np.float64]]],
                      model: SleepModel, shrinkage: float) -> list[HeldOutNight]:
     """``pooled+offset`` for each labelled night: offset fitted on the participant's other nights."""
     out = []
@@ -249,7 +250,7 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
             progress(done, total, "pooled: features")
     prepared = [r for pid in pids for r in data[pid]]
     rows = _Rows(data, descriptors)
-    meta = {"feature_names": prepared[0].features.names, "feature_version": prepared[0].features.version}
+    feature_names, feature_version = tuple(prepared[0].features.names), prepared[0].features.version
     folds = list(GroupKFold(n_splits=n_folds).split(rows.X, rows.y, rows.groups))
     fold_of = {rows.participants[g]: k for k, (_, test) in enumerate(folds) for g in np.unique(rows.groups[test])}
 
@@ -259,7 +260,8 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
             training = tuple(r.night.content_hash for pid in pids for r in data[pid]
                              if k < 0 or fold_of.get(pid) != k)
             model = _fit(rows, train_idx, config=config, seed=study_seed(config.seed, 1000 + k + 1),
-                         training_nights=training, reporter=reporter, **meta)
+                         training_nights=training, reporter=reporter,
+                         feature_names=feature_names, feature_version=feature_version)
             reporter.tick("pooled: final model" if k < 0 else f"pooled: fold {k + 1}/{n_folds}")
             return model
         return run

@@ -38,7 +38,7 @@ class TooFewNightsError(NightbankError):
     code = "too_few_nights"
 
 
-class ForwardChainedSplit(BaseCrossValidator):
+class ForwardChainedSplit(BaseCrossValidator):  # type: ignore[misc]  # scikit-learn ships no types
     """Expanding-window splits over nights in chronological order.
 
     With nights ``g_0 < g_1 < ... < g_{n-1}`` (sorted group values), split ``k`` trains on

@@ -223,12 +223,13 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
     params = booster_params(hp, y=data.y, config=config, seed=seed)
     booster = xgb.train(params, xgb.QuantileDMatrix(X_all, data.y, max_bin=config.max_bin, nthread=1), n_rounds)
     reporter.tick(stage)
+    best_value = float("nan") if best.value is None else float(best.value)
     states = [t.state for t in study.trials]
     trials = {"n_trials": len(states), "n_complete": states.count(optuna.trial.TrialState.COMPLETE),
               "n_pruned": states.count(optuna.trial.TrialState.PRUNED), "best_trial": best.number,
-              "best_value": float(best.value), "n_inner_splits": len(data.splits)}
+              "best_value": best_value, "n_inner_splits": len(data.splits)}
     hyperparameters = hp | {"n_rounds": n_rounds, "scale_pos_weight": params["scale_pos_weight"]}
     return TunedPipeline(booster=booster, projection=projection, hyperparameters=hyperparameters,
                          threshold=youden_threshold(y_inner, p_inner, min_sensitivity=config.min_sensitivity),
                          n_rounds=n_rounds,
-                         best_value=float(best.value), trials=trials)
+                         best_value=best_value, trials=trials)

@@ -10,7 +10,7 @@ Access rules, checked in this order for routes under ``/v1/studies/{study}``:
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterator
+from collections.abc import Awaitable, Callable, Iterator
 from dataclasses import dataclass
 from typing import Annotated
 
@@ -90,7 +90,7 @@ class StudyAccess:
         return self.principal.token_id
 
 
-def study_access(role: Role) -> Callable[..., StudyAccess]:
+def study_access(role: Role) -> Callable[..., Awaitable[StudyAccess]]:
     """Dependency for routes under ``/v1/studies/{study}`` needing at least ``role``."""
 
     async def dependency(principal: PrincipalDep,
@@ -104,7 +104,7 @@ def study_access(role: Role) -> Callable[..., StudyAccess]:
     return dependency
 
 
-def require_lab_role(role: Role) -> Callable[..., Principal]:
+def require_lab_role(role: Role) -> Callable[..., Awaitable[Principal]]:
     """Dependency for routes outside one study's path needing at least ``role``."""
 
     async def dependency(principal: PrincipalDep) -> Principal:

@@ -77,8 +77,8 @@ async def _nightbank_error(request: Request, exc: Exception) -> JSONResponse:
 async def _validation_error(request: Request, exc: Exception) -> JSONResponse:
     assert isinstance(exc, RequestValidationError)
     errors = jsonable_encoder(exc.errors())
-    problems = [{"code": str(e.get("type", "invalid")), "message": str(e.get("msg", "")),
-                 "location": _location(e.get("loc", ()))} for e in errors]
+    problems: list[dict[str, Any]] = [{"code": str(e.get("type", "invalid")), "message": str(e.get("msg", "")),
+                                       "location": _location(e.get("loc", ()))} for e in errors]
     detail = f"the request has {len(problems)} problem(s): " + "; ".join(
         f"{p['location'].get('field', '?')}: {p['message']}" for p in problems[:3])
     return problem_response(request, status=422, code="invalid_request", detail=detail, problems=problems)

@@ -9,7 +9,7 @@ from typing import Annotated, Any
 import typer
 from rich.table import Table
 
-from models import InvalidNightError, NightOptions, quality_flags, read_night
+from models import InvalidNightError, NightOptions, Problem, quality_flags, read_night
 
 from ..errors import Incomplete
 from .application import app
@@ -64,8 +64,7 @@ def check(
         raise Incomplete(f"{invalid} of {len(results)} file(s) are invalid", code="invalid_files")
 
 
-def _missing(path: Path):
-    from models import Problem
+def _missing(path: Path) -> Problem:
     return Problem("file_not_found", f"no such file: {path}", {"field": str(path)})
 
 

@@ -149,7 +149,7 @@ def _summary(table: pd.DataFrame) -> HeldOutFigures:
 
 
 def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
-    return [{k: (_finite(v) if isinstance(v, float) else v) for k, v in row.items()}
+    return [{str(k): (_finite(v) if isinstance(v, float) else v) for k, v in row.items()}
             for row in frame.to_dict(orient="records")]
 
 

@@ -23,8 +23,10 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 import threading
 import zlib
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -53,7 +55,8 @@ from ..store import db, versions
 from ..store.cachewriter import CacheWriter
 from ..store.codec import night_from_row
 from ..store.features import features_row, load_features
-from ..store.registry import find_participant, find_study
+from ..store.registry import find_participant, find_study, participant_snapshot, study_snapshot
+from ..store.snapshots import ParticipantInfo, StudyInfo
 
 __all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
 
@@ -66,7 +69,7 @@ class _Resolved:
     version: versions.VersionInfo | None
 
 
-def resolve_method(session: Session, *, study: db.Study, participant: db.Participant, method: str,
+def resolve_method(session: Session, *, study: StudyInfo, participant: ParticipantInfo, method: str,
                    version: int | None) -> _Resolved:
     """The concrete method and model version a request means.
 
@@ -102,7 +105,7 @@ _DESCRIPTORS: LRUCache[tuple[int, str], dict[str, float]] = LRUCache(maxsize=102
 _DESCRIPTORS_LOCK = threading.Lock()
 
 
-def _descriptors(session: Session, participant: db.Participant) -> dict[str, float]:
+def _descriptors(session: Session, participant: ParticipantInfo) -> dict[str, float]:
     """Participant descriptors over all their nights (cached per set of nights)."""
     hashes = sorted(session.scalars(select(db.Night.content_hash).where(db.Night.participant_pk == participant.pk)))
     key = (participant.pk, hashlib.sha1("".join(hashes).encode()).hexdigest())
@@ -205,9 +208,12 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         if found is None:
             find_participant(session, find_study(session, study_id), participant_id)  # names what is missing
             raise NotFound(f"no night {night_id!r} for participant {participant_id!r}")
-        row, participant, study = found
+        row, participant_row, study_row = found
+        study = study_snapshot(study_row)
+        participant = participant_snapshot(participant_row, study.study_id)
         resolved = resolve_method(session, study=study, participant=participant, method=method, version=version)
-        offset, descriptors, model = 0.0, None, None
+        offset, model = 0.0, None
+        descriptors: Mapping[str, float | None] | None = None
         if resolved.version is None:
             key = resolved.method
         else:
@@ -230,8 +236,10 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         features = night_features(night, model.feature_config_)
         _save(factory, writer, features_row(night_pk=night_pk, config=model.feature_config_, features=features))
     number = None if resolved.version is None else resolved.version.version
+    # stored descriptors keep a missing value as None (JSON); the model reads it as NaN
+    numeric = None if descriptors is None else {k: math.nan if v is None else v for k, v in descriptors.items()}
     result = compute_scoring(night, method=resolved.method, model=model, version=number,
-                             offset=offset, descriptors=descriptors, features=features)
+                             offset=offset, descriptors=numeric, features=features)
     body = json.dumps(result, separators=(",", ":"), allow_nan=False).encode()
     _save(factory, writer, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
                                       else resolved.version.pk, cache_key=key, night_hash=night_hash,

@@ -96,7 +96,7 @@ def encode_held_out(nights: Sequence[HeldOutNight]) -> bytes:
             if value is not None:
                 arrays[f"{i}.{name}"] = np.asarray(value)
     buffer = io.BytesIO()
-    np.savez_compressed(buffer, **arrays)
+    np.savez_compressed(buffer, **arrays)  # type: ignore[arg-type]  # the stub reads the names as options
     return buffer.getvalue()
 
 
@@ -106,7 +106,8 @@ def decode_held_out(blob: bytes) -> list[HeldOutNight]:
         meta = json.loads(archive["meta"].tobytes())
         out = []
         for i, m in enumerate(meta):
-            arrays = {name: archive[f"{i}.{name}"] if f"{i}.{name}" in archive else None for name in _ARRAYS}
+            arrays: dict[str, Any] = {name: archive[f"{i}.{name}"] if f"{i}.{name}" in archive else None
+                                      for name in _ARRAYS}
             out.append(HeldOutNight(participant_id=m["participant_id"], night_hash=m["night_hash"], label=m["label"],
                                     method=m["method"], in_bed=(m["in_bed"][0], m["in_bed"][1]),
                                     threshold=m["threshold"], offset=m["offset"], **arrays))

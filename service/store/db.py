@@ -325,7 +325,8 @@ def session_scope(factory: sessionmaker[Session], *, write: bool = False) -> Ite
         If the database fails (other than a constraint violation, re-raised as
         :class:`sqlalchemy.exc.IntegrityError` for the caller to interpret).
     """
-    lock = _WRITE_LOCKS.get(factory.kw.get("bind")) if write else None
+    bind = factory.kw.get("bind")
+    lock = _WRITE_LOCKS.get(bind) if write and bind is not None else None
     if lock is not None:
         lock.acquire()
     session = factory()

@@ -41,8 +41,10 @@ __all__ = [
     "load_night",
     "load_nights",
     "night_values",
+    "participant_snapshot",
     "record_choice",
     "study_participants",
+    "study_snapshot",
 ]
 
 #: Study and participant ids: letters, digits, ``.``, ``_`` and ``-``; 1 to 64 characters.
@@ -63,11 +65,13 @@ def _night_info(row: db.Night, participant_id: str) -> NightInfo:
                      source_format=row.source_format, created_at=row.created_at)
 
 
-def _study_info(row: db.Study) -> StudyInfo:
+def study_snapshot(row: db.Study) -> StudyInfo:
+    """The snapshot of a study row (for store queries that join rows themselves)."""
     return StudyInfo(study_id=row.study_id, name=row.name, created_at=row.created_at, pk=row.pk)
 
 
-def _participant_info(row: db.Participant, study_id: str) -> ParticipantInfo:
+def participant_snapshot(row: db.Participant, study_id: str) -> ParticipantInfo:
+    """The snapshot of a participant row of study ``study_id``."""
     return ParticipantInfo(participant_id=row.participant_id, study_id=study_id, created_at=row.created_at,
                            chosen_method=row.chosen_method, choice=None if row.choice is None else dict(row.choice),
                            pk=row.pk)
@@ -84,7 +88,7 @@ def find_study(session: Session, study_id: str) -> StudyInfo:
     row = session.scalar(select(db.Study).where(db.Study.study_id == study_id))
     if row is None:
         raise NotFound(f"no study {study_id!r}")
-    return _study_info(row)
+    return study_snapshot(row)
 
 
 def find_participant(session: Session, study: StudyInfo, participant_id: str) -> ParticipantInfo:
@@ -99,14 +103,14 @@ def find_participant(session: Session, study: StudyInfo, participant_id: str) ->
                                                       db.Participant.participant_id == participant_id))
     if row is None:
         raise NotFound(f"no participant {participant_id!r} in study {study.study_id!r}")
-    return _participant_info(row, study.study_id)
+    return participant_snapshot(row, study.study_id)
 
 
 def study_participants(session: Session, *, study: StudyInfo) -> list[ParticipantInfo]:
     """Every participant of ``study``, ordered by id."""
     rows = session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)
                            .order_by(db.Participant.participant_id))
-    return [_participant_info(row, study.study_id) for row in rows]
+    return [participant_snapshot(row, study.study_id) for row in rows]
 
 
 def record_choice(session: Session, *, participant: ParticipantInfo, method: str | None,
@@ -134,7 +138,7 @@ def create_study(session: Session, *, study_id: str, name: str, actor: str) -> S
     session.add(row)
     record_audit(session, actor=actor, action="study.create", study_id=study_id, subject=study_id)
     session.flush()
-    return _study_info(row)
+    return study_snapshot(row)
 
 
 def list_studies(session: Session, *, study_id: str | None = None) -> list[StudyInfo]:
@@ -142,7 +146,7 @@ def list_studies(session: Session, *, study_id: str | None = None) -> list[Study
     query = select(db.Study).order_by(db.Study.study_id)
     if study_id is not None:
         query = query.where(db.Study.study_id == study_id)
-    return [_study_info(s) for s in session.scalars(query)]
+    return [study_snapshot(s) for s in session.scalars(query)]
 
 
 def list_participants(session: Session, *, study_id: str, limit: int = 100,
@@ -166,7 +170,7 @@ def list_participants(session: Session, *, study_id: str, limit: int = 100,
         version = active.get(p.pk)
         trained = set() if version is None else set(version.metadata.training_hashes)
         out.append(ParticipantSummary(
-            **vars(_participant_info(p, study_id)), n_nights=len(nights[p.pk]), n_labelled_nights=len(labelled),
+            **vars(participant_snapshot(p, study_id)), n_nights=len(nights[p.pk]), n_labelled_nights=len(labelled),
             active_personal_version=None if version is None else version.version,
             untrained_labelled_nights=len(labelled - trained)))
     return out, int(total)

@@ -20,7 +20,7 @@ def _num(value: Any, digits: int) -> str:
 
 def held_out_alt(summary: pd.DataFrame, n_nights: int) -> str:
     """Held-out nights plot: what is drawn, and each method's mean balanced accuracy and specificity."""
-    means = "; ".join(f"{style_of(r.method).label} {_num(r.balanced_accuracy_mean, 3)} / "
+    means = "; ".join(f"{style_of(str(r.method)).label} {_num(r.balanced_accuracy_mean, 3)} / "
                       f"{_num(r.specificity_mean, 3)}" for r in summary.itertuples())
     return (f"Dot plot of balanced accuracy (left) and specificity (right) on each of {n_nights} held-out nights, "
             f"one marker shape per method. Mean balanced accuracy / specificity over nights: {means}.")

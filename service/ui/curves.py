@@ -90,6 +90,7 @@ def held_out_roc(factory: sessionmaker[Session], *, study_id: str, participant_i
         bed = slice(*night.in_bed)
         for method in COMPARED_RULES:
             score = score_with_rule(night.counts, night.epoch_seconds, method).score
+            assert score is not None  # every compared rule has a continuous score
             by_method.setdefault(method, []).append((reference[bed], score[bed]))
     curves = [_curve(m, by_method.get(m, [])) for m in (*MODEL_METHODS, *COMPARED_RULES)]
     return [c for c in curves if c is not None]

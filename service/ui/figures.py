@@ -18,7 +18,7 @@ import io
 import threading
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, cast
 
 import matplotlib as mpl
 import numpy as np
@@ -125,7 +125,7 @@ def render(draw: Callable[..., None], /, *args: Any, fmt: str, size_in: tuple[fl
         The encoded figure.
     """
     buffer = io.BytesIO()
-    with _LOCK, mpl.rc_context(_STYLE):
+    with _LOCK, mpl.rc_context(cast(Any, _STYLE)):
         fig = Figure(figsize=size_in, layout="constrained")
         draw(fig, *args, **kwargs)
         metadata: dict[str, Any] = {"Date": None} if fmt == "svg" else {"Software": None}

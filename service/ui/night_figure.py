@@ -71,7 +71,7 @@ class NightPanels:
 def _edges(times: pd.DatetimeIndex, epoch_seconds: int) -> NDArray[np.float64]:
     """Matplotlib date numbers of the n + 1 epoch boundaries."""
     bounds = times.append(pd.DatetimeIndex([times[-1] + pd.Timedelta(seconds=epoch_seconds)]))
-    return np.asarray(mdates.date2num(bounds.tz_convert("UTC").tz_localize(None).to_pydatetime()))
+    return np.asarray(mdates.date2num(pd.DatetimeIndex(bounds).tz_convert("UTC").tz_localize(None).to_pydatetime()))
 
 
 def _shade(ax: Any, edges: NDArray[np.float64], mask: NDArray[np.bool_], **style: Any) -> None:

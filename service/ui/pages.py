@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from typing import Annotated, Any
 from urllib.parse import urlencode
 
 from fastapi import APIRouter, Depends, Form, Path, Query, Request
@@ -72,7 +72,7 @@ def study_info(factory: sessionmaker[Session], study_id: str) -> StudyInfo:
     return found[0]
 
 
-def _study_context(factory: sessionmaker[Session], access: PageAccess) -> dict[str, object]:
+def _study_context(factory: sessionmaker[Session], access: PageAccess) -> dict[str, Any]:
     study = study_info(factory, access.study_id)
     return {"study": study, "simulated": is_simulated(study.study_id, study.name), "analyse": access.can_analyse}
 
@@ -148,7 +148,7 @@ def study_page(request: Request, access: StudyPage, factory: FactoryDep, job: Jo
     context = _study_context(factory, access)
     view = load_study_view(factory, study_id=access.study_id, analyse=access.can_analyse)
     base = f"{UI_PREFIX}/studies/{access.study_id}"
-    comparison: dict[str, object] = {}
+    comparison: dict[str, Any] = {}
     if view.comparison is not None:
         comparison = {"summary_rows": records(method_summary_table(view.comparison)),
                       "bland_altman_rows": bland_altman_rows(view.comparison),
@@ -169,7 +169,7 @@ def participant_page(request: Request, access: StudyPage, pid: ParticipantPath, 
     context = _study_context(factory, access)
     view = load_participant_view(factory, study_id=access.study_id, participant_id=pid,
                                  analyse=access.can_analyse)
-    comparison: dict[str, object] = {}
+    comparison: dict[str, Any] = {}
     if view.comparison is not None:
         summary = method_summary_table(view.comparison)
         held = held_out_table(view.comparison, view.nights)

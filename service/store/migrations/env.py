@@ -6,9 +6,10 @@ OFF while migrating, so batch mode's table rebuilds (copy, drop, rename) cannot 
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Literal
 
 from alembic import context
+from alembic.autogenerate.api import AutogenContext
 from sqlalchemy import engine_from_config, pool
 
 from service.config import get_settings
@@ -22,7 +23,7 @@ def _url() -> str:
     return config.attributes.get("url") or config.get_main_option("sqlalchemy.url") or get_settings().db
 
 
-def _render_item(type_: str, obj: Any, autogen_context: Any) -> str | bool:
+def _render_item(type_: str, obj: Any, autogen_context: AutogenContext) -> str | Literal[False]:
     """Write the UTC datetime column type as a plain ``sa.DateTime()`` (migrations stand alone)."""
     if type_ == "type" and isinstance(obj, UTCDateTime):
         return "sa.DateTime()"
