@@ -133,7 +133,9 @@ def test_job_of_a_dead_worker_is_taken_over_after_the_lease(http, study, admin, 
     job_id = _train(http, admin, study, "P-01", n_trials=10).json()["job_id"]
     models_url = f"/v1/studies/{study}/participants/P-01/models"
     first = start_worker()
-    wait_for(lambda: (j := _job(http, admin, job_id))["state"] == "running" and j["progress"]["done"] > 0)
+    # the job first gathers the night features (a stage of its own), then trains: kill it while it trains
+    wait_for(lambda: (j := _job(http, admin, job_id))["state"] == "running" and j["progress"]["done"] > 0
+             and "night features" not in j["progress"]["stage"])
     os.kill(first.pid, signal.SIGKILL)  # mid-training: no chance to give the job back
     assert first.wait() == -signal.SIGKILL
     stuck = _job(http, admin, job_id)
