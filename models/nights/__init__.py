@@ -28,6 +28,12 @@ from .night import (
     canonical_stage,
     stages_to_sleep,
 )
+from .profiles import (
+    PROFILE_COLUMN_ROLES,
+    PROFILE_STAGE_TARGETS,
+    ImportProfile,
+    InvalidProfileError,
+)
 from .resample import (
     aggregate_epochs,
     majority_stage,
@@ -44,9 +50,13 @@ __all__ = [
     "COLUMN_ALIASES",
     "CodedLabels",
     "FORMATS",
+    "ImportProfile",
+    "InvalidProfileError",
     "MovementTimePolicy",
     "Night",
     "NightOptions",
+    "PROFILE_COLUMN_ROLES",
+    "PROFILE_STAGE_TARGETS",
     "QCConfig",
     "QCFlag",
     "STAGE_CODES",

@@ -103,7 +103,9 @@ def test_cancel_queued_and_running_jobs(http, study, admin, start_worker) -> Non
     running = _train(http, admin, study, "P-01", n_trials=500).json()
     assert running["created"] is True and running["job_id"] != queued
     start_worker()
-    wait_for(lambda: _job(http, admin, running["job_id"])["progress"]["done"] > 0)
+    # cancel while it trains, past its loading and night-feature stages (their own progress counts)
+    wait_for(lambda: (j := _job(http, admin, running["job_id"]))["progress"]["done"] > 0
+             and "held out" in j["progress"]["stage"])
     assert http.post(f"/v1/jobs/{running['job_id']}/cancel", headers=admin).status_code == 200
     job = wait_for(_finished(http, admin, running["job_id"]), timeout_s=60)
     assert job["state"] == "cancelled" and job["progress"]["done"] < job["progress"]["total"]
