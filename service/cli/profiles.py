@@ -118,7 +118,7 @@ def read_night_file(path: Path, *, participant_id: str, options: NightOptions,
         return read_night(path, participant_id=participant_id, options=options)
     if _reader_takes_profile():
         reader: Any = read_night
-        return reader(path, participant_id=participant_id, options=options, profile=profile)  # type: ignore[no-any-return]
+        return reader(path, participant_id=participant_id, options=options, profile=profile)
     _warn_profile_not_applied()
     return read_night(path, participant_id=participant_id, options=options)
 

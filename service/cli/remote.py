@@ -63,9 +63,9 @@ def _row(folder: Path, pid: str, path: Path) -> dict[str, Any]:
 
 
 def _error_problems(exc: NightbankError) -> list[dict[str, Any]]:
+    """The problems an error lists (each naming where it is), or the error itself when it lists none."""
     listed = [p.to_dict() for p in getattr(exc, "problems", None) or ()]
-    return listed if isinstance(exc, InvalidNightError) and listed else \
-        [{"code": exc.code, "message": exc.message, "location": {}}, *listed]
+    return listed or [{"code": exc.code, "message": exc.message, "location": {}}]
 
 
 def push_folder(client: Any, study: str, folder: Path, *, tz: str | None = None, jobs: int = 4,

@@ -250,12 +250,12 @@ def test_night_exclude_and_include(server, remote) -> None:
 def test_jobs_lists_the_queued_trainings(server, remote) -> None:
     _stored_night(server, remote)
     with _api(server, remote) as http:  # no worker runs: the job stays queued
-        job_id = http.post("/v1/studies/s/participants/P01/training", json={"n_trials": 2}).json()["job_id"]
+        job_id = http.post("/v1/studies/s/pooled/training", json={"n_trials": 2}).json()["job_id"]
         assert http.get(f"/v1/jobs/{job_id}").json()["state"] == "queued"
     listed = nb("jobs", "s", "--json", *remote)
     assert listed.returncode == 0, listed.stderr
     assert [(j["job_id"], j["state"], j["participant_id"]) for j in json.loads(listed.stdout)] == [
-        (job_id, "queued", "P01")]
+        (job_id, "queued", None)]
     table = nb("jobs", "s", "--state", "queued", *remote)
     assert job_id in table.stdout and "1 job(s)" in table.stdout
     assert "0 job(s)" in nb("jobs", "s", "--state", "running", *remote).stdout

@@ -183,7 +183,7 @@ def test_rename_participant(client) -> None:
 @needs_route("GET", "/v1/studies/{study}/jobs", query="state")
 def test_list_jobs_by_state(client) -> None:
     _stored(client)
-    job_id = client.train_personal("s1", "p1", n_trials=2)["job_id"]  # no worker runs: it stays queued
+    job_id = client.train_pooled("s1", n_trials=2)["job_id"]  # no worker runs: it stays queued
     assert [j["job_id"] for j in client.list_jobs("s1")] == [job_id]
     assert [j["job_id"] for j in client.list_jobs("s1", state="queued")] == [job_id]
     assert client.list_jobs("s1", state="succeeded") == []
