@@ -2,8 +2,16 @@
 
 Problem responses come back as the same typed errors the server raised: :class:`NotFound`,
 :class:`Forbidden`, :class:`Unauthorized`, :class:`Conflict`, :class:`Unprocessable`,
-:class:`~models.InvalidNightError` (with every problem) and so on. Each carries ``problem``, the
-server's problem details (``code``, ``detail``, ``problems``, ``request_id``), and ``status``.
+:class:`~models.InvalidNightError` and so on, with the server's ``code``. Each carries
+``problem``, the server's problem details as sent (``code``, ``detail``, ``problems``,
+``request_id``), ``status``, the HTTP status, and ``problems``, a list of :class:`models.Problem`
+objects (``code``, ``message``, ``location`` with ``field``, ``row``, ``epoch`` or ``time``), one per
+problem the server listed (empty when it listed none). An invalid night is an
+:class:`~models.InvalidNightError` whose ``problems`` name every defect and where it is; a night
+refused for what is stored already is a :class:`Conflict` with code ``duplicate_night`` or
+``overlapping_night``; a reference the server finds implausible is an :class:`Unprocessable` with
+code ``reference_implausible``. A server that cannot be reached gives a :class:`ServiceError` with
+code ``server_unreachable``.
 
 Examples
 --------
@@ -17,54 +25,35 @@ from __future__ import annotations
 
 import json
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
+from enum import Enum
 from pathlib import Path
-from typing import Any
+from typing import Any, Final, Literal
 
 import httpx
 
-from models import InvalidNightError, NightbankError, Problem
+from .client_errors import problem_error
+from .errors import BadRequest, ServiceError
 
-from .errors import (
-    BadRequest,
-    Conflict,
-    Forbidden,
-    NotFound,
-    PayloadTooLarge,
-    ServiceError,
-    StorageError,
-    Unauthorized,
-    Unprocessable,
-    UnsupportedMediaType,
-)
-
-__all__ = ["FORMAT_MEDIA_TYPES", "NightbankClient", "problem_error"]
+__all__ = ["FORMAT_MEDIA_TYPES", "KEEP", "NightbankClient", "problem_error"]
 
 #: night file format -> content type of the ingest request
 FORMAT_MEDIA_TYPES = {"json": "application/json", "csv": "text/csv", "parquet": "application/vnd.apache.parquet"}
-_BY_STATUS: dict[int, type[ServiceError]] = {
-    400: BadRequest, 401: Unauthorized, 403: Forbidden, 404: NotFound, 409: Conflict, 413: PayloadTooLarge,
-    415: UnsupportedMediaType, 422: Unprocessable, 503: StorageError,
-}
+#: the epoch length a study gets when none is given, seconds
+DEFAULT_EPOCH_SECONDS = 30
 
 
-def problem_error(response: httpx.Response) -> NightbankError:
-    """The typed error for a problem response (``problem`` and ``status`` attached)."""
-    try:
-        problem = response.json()
-        if not isinstance(problem, dict):
-            raise ValueError
-    except ValueError:
-        problem = {"code": "http_error", "detail": response.text[:300] or response.reason_phrase}
-    code, detail = str(problem.get("code", "http_error")), str(problem.get("detail", response.reason_phrase))
-    exc: NightbankError
-    if code == "invalid_night":
-        exc = InvalidNightError([Problem(p.get("code", ""), p.get("message", ""), p.get("location", {}))
-                                 for p in problem.get("problems") or []])
-    else:
-        exc = _BY_STATUS.get(response.status_code, ServiceError)(detail, code=code)
-    vars(exc).update(problem=problem, status=response.status_code)  # the server's problem details, kept as sent
-    return exc
+class _Keep(Enum):
+    KEEP = "keep"
+
+
+#: "leave this field as it is" in :meth:`NightbankClient.update_night` (None there clears a label)
+KEEP: Final = _Keep.KEEP
+
+
+def _flags(**flags: bool) -> dict[str, str]:
+    """Query parameters of the boolean options that are on (an option left off is not sent)."""
+    return {name: "true" for name, on in flags.items() if on}
 
 
 class NightbankClient:
@@ -98,7 +87,11 @@ class NightbankClient:
         self._http.close()
 
     def _request(self, method: str, url: str, **kwargs: Any) -> httpx.Response:
-        response = self._http.request(method, url, **kwargs)
+        try:
+            response = self._http.request(method, url, **kwargs)
+        except httpx.TransportError as exc:
+            raise ServiceError(f"cannot reach the server at {self.base_url}: {exc or type(exc).__name__}",
+                               code="server_unreachable") from None
         if response.is_error:
             raise problem_error(response)
         return response
@@ -110,16 +103,32 @@ class NightbankClient:
     def health(self) -> dict[str, Any]:
         return self._json("GET", "/healthz")
 
-    def create_study(self, study_id: str, name: str) -> dict[str, Any]:
-        return self._json("POST", "/v1/studies", json={"study_id": study_id, "name": name})
+    def create_study(self, study_id: str, name: str, *, epoch_seconds: int = DEFAULT_EPOCH_SECONDS) -> dict[str, Any]:
+        """Create a study.
+
+        Parameters
+        ----------
+        study_id : str
+            Letters, digits, ``_ . -``.
+        name : str
+            Display name.
+        epoch_seconds : int, default=30
+            Epoch length of the study's nights, seconds. Sent only when it is not the default, so a
+            server without the option still creates studies with 30-s epochs.
+        """
+        body: dict[str, Any] = {"study_id": study_id, "name": name}
+        if epoch_seconds != DEFAULT_EPOCH_SECONDS:
+            body["epoch_seconds"] = epoch_seconds
+        return self._json("POST", "/v1/studies", json=body)
 
     def list_studies(self) -> list[dict[str, Any]]:
         return self._json("GET", "/v1/studies")
 
-    def _pages(self, url: str, page_size: int = 500) -> Iterator[dict[str, Any]]:
+    def _pages(self, url: str, page_size: int = 500, params: Mapping[str, Any] | None = None
+               ) -> Iterator[dict[str, Any]]:
         offset = 0
         while True:
-            page = self._json("GET", url, params={"limit": page_size, "offset": offset})
+            page = self._json("GET", url, params={**(params or {}), "limit": page_size, "offset": offset})
             yield from page["data"]
             offset += len(page["data"])
             if not page["data"] or offset >= page["count"]:
@@ -131,27 +140,155 @@ class NightbankClient:
     def list_nights(self, study: str, participant: str) -> list[dict[str, Any]]:
         return list(self._pages(f"/v1/studies/{study}/participants/{participant}/nights"))
 
-    def get_night(self, study: str, participant: str, night_id: str) -> dict[str, Any]:
-        return self._json("GET", f"/v1/studies/{study}/participants/{participant}/nights/{night_id}")
+    def _night_url(self, study: str, participant: str, night_id: str) -> str:
+        return f"/v1/studies/{study}/participants/{participant}/nights/{night_id}"
+
+    def get_night(self, study: str, participant: str, night_id: str, *, epochs: bool = False) -> dict[str, Any]:
+        """A night's metadata, QC flags and state.
+
+        Parameters
+        ----------
+        epochs : bool, default=False
+            Also return the epochs: ``epoch_seconds``, ``counts`` (n_epochs,) and ``reference``
+            (n_epochs,) stage codes, or None for a night without reference.
+        """
+        params = _flags(epochs=epochs) or None
+        return self._json("GET", self._night_url(study, participant, night_id), params=params)
+
+    def delete_night(self, study: str, participant: str, night_id: str) -> dict[str, Any]:
+        """Remove one night with its derived data (features, cached scorings); returns the server's summary."""
+        return self._json("DELETE", self._night_url(study, participant, night_id))
+
+    def update_night(self, study: str, participant: str, night_id: str, *,
+                     label: str | None | Literal[_Keep.KEEP] = KEEP, excluded: bool | None = None) -> dict[str, Any]:
+        """Change a stored night's label or whether training leaves it out; returns the night.
+
+        Parameters
+        ----------
+        label : str or None, default=KEEP
+            New label; None removes the label; :data:`KEEP` leaves it as it is.
+        excluded : bool, optional
+            True leaves the night out of training, False takes it in again; None leaves it as it is.
+        """
+        body: dict[str, Any] = {}
+        if label is not KEEP:
+            body["label"] = label
+        if excluded is not None:
+            body["excluded"] = excluded
+        if not body:
+            raise BadRequest("give a label or excluded to change", code="nothing_to_change")
+        return self._json("PATCH", self._night_url(study, participant, night_id), json=body)
 
     def post_night(self, study: str, participant: str, data: bytes | dict[str, Any], *, fmt: str = "json",
-                   tz: str | None = None) -> dict[str, Any]:
-        """Store a night (``data``: JSON object, or file bytes in ``fmt``); ``created`` tells if it was new."""
-        content = json.dumps(data).encode() if isinstance(data, dict) else data
-        params = {"tz": tz} if tz else None
-        return self._json("POST", f"/v1/studies/{study}/participants/{participant}/nights", content=content,
-                          params=params, headers={"Content-Type": FORMAT_MEDIA_TYPES[fmt]})
+                   tz: str | None = None, profile: str | None = None, allow_duplicate: bool = False,
+                   allow_overlap: bool = False, accept_implausible: bool = False) -> dict[str, Any]:
+        """Store a night.
 
-    def push_file(self, study: str, participant: str, path: str | Path, *, tz: str | None = None) -> dict[str, Any]:
-        """Store a night file (format from its suffix: .json, .csv or .parquet)."""
+        Parameters
+        ----------
+        data : bytes or dict
+            A nightbank JSON object, or file bytes in ``fmt``.
+        fmt : {"json", "csv", "parquet"}, default="json"
+        tz : str, optional
+            IANA zone of times written without UTC offset.
+        profile : str, optional
+            Name of an import profile saved in the study, applied to the file.
+        allow_duplicate : bool, default=False
+            Store the night although the participant has a night of the same recording already
+            (otherwise: :class:`Conflict` with code ``duplicate_night``).
+        allow_overlap : bool, default=False
+            Store the night although its time overlaps a stored night of the participant
+            (otherwise: :class:`Conflict` with code ``overlapping_night``).
+        accept_implausible : bool, default=False
+            Store the night although its reference looks implausible (otherwise: :class:`Unprocessable`
+            with code ``reference_implausible``).
+
+        Returns
+        -------
+        answer : dict
+            ``night_id``, ``created`` (False when the same content was stored before), ``qc`` (flags)
+            and, from servers that report it, ``unused_columns`` (list of str).
+
+        Raises
+        ------
+        InvalidNightError
+            ``problems``: every defect, as :class:`models.Problem` objects naming where it is.
+        """
+        content = json.dumps(data).encode() if isinstance(data, dict) else data
+        params: dict[str, str] = {"tz": tz} if tz else {}
+        if profile:
+            params["profile"] = profile
+        params |= _flags(allow_duplicate=allow_duplicate, allow_overlap=allow_overlap,
+                         accept_implausible=accept_implausible)
+        return self._json("POST", f"/v1/studies/{study}/participants/{participant}/nights", content=content,
+                          params=params or None, headers={"Content-Type": FORMAT_MEDIA_TYPES[fmt]})
+
+    def push_file(self, study: str, participant: str, path: str | Path, *, tz: str | None = None,
+                  profile: str | None = None, allow_duplicate: bool = False, allow_overlap: bool = False,
+                  accept_implausible: bool = False) -> dict[str, Any]:
+        """Store a night file (format from its suffix: .json, .csv or .parquet); options as :meth:`post_night`."""
         path = Path(path)
         fmt = path.suffix.lower().lstrip(".")
         if fmt not in FORMAT_MEDIA_TYPES:
             raise BadRequest(f"{path.name}: unknown night file type {path.suffix!r}; use .json, .csv or .parquet")
-        return self.post_night(study, participant, path.read_bytes(), fmt=fmt, tz=tz)
+        return self.post_night(study, participant, path.read_bytes(), fmt=fmt, tz=tz, profile=profile,
+                               allow_duplicate=allow_duplicate, allow_overlap=allow_overlap,
+                               accept_implausible=accept_implausible)
+
+    def rename_participant(self, study: str, participant: str, to: str) -> dict[str, Any]:
+        """Give a participant a new id (nights, models and jobs follow); returns the server's answer."""
+        return self._json("POST", f"/v1/studies/{study}/participants/{participant}/rename", json={"to": to})
 
     def delete_participant(self, study: str, participant: str) -> dict[str, int]:
         return self._json("DELETE", f"/v1/studies/{study}/participants/{participant}")
+
+    # ---- import profiles --------------------------------------------------------------------
+    def create_profile(self, study: str, profile: Mapping[str, Any], *, replace: bool = False) -> dict[str, Any]:
+        """Save an import profile in a study.
+
+        Parameters
+        ----------
+        profile : dict
+            The profile's JSON form (:meth:`models.ImportProfile.to_dict`), ``name`` included.
+        replace : bool, default=False
+            Replace a saved profile of the same name (otherwise: :class:`Conflict`).
+        """
+        return self._json("POST", f"/v1/studies/{study}/import-profiles", json=dict(profile),
+                          params=_flags(replace=replace) or None)
+
+    def list_profiles(self, study: str) -> list[dict[str, Any]]:
+        """The study's saved import profiles (every page)."""
+        url = f"/v1/studies/{study}/import-profiles"
+        first = self._json("GET", url)
+        if isinstance(first, list):
+            return first
+        if len(first["data"]) >= first["count"]:
+            return list(first["data"])
+        return list(self._pages(url))
+
+    def get_profile(self, study: str, name: str) -> dict[str, Any]:
+        """One saved import profile (its JSON form)."""
+        return self._json("GET", f"/v1/studies/{study}/import-profiles/{name}")
+
+    def delete_profile(self, study: str, name: str) -> dict[str, Any]:
+        return self._json("DELETE", f"/v1/studies/{study}/import-profiles/{name}")
+
+    def guess_profile(self, study: str, data: bytes) -> dict[str, Any]:
+        """Propose an import profile for a CSV export.
+
+        Parameters
+        ----------
+        data : bytes
+            The file as it is.
+
+        Returns
+        -------
+        guess : dict
+            ``profile`` (JSON form), ``preview`` (the first rows as parsed with it), ``notes``
+            (list of str) and ``stage_codes_found`` (the reference's own codes).
+        """
+        return self._json("POST", f"/v1/studies/{study}/import-profiles/guess", content=data,
+                          headers={"Content-Type": "text/csv"})
 
     # ---- training and jobs ----------------------------------------------------------------
     @staticmethod
@@ -168,6 +305,16 @@ class NightbankClient:
 
     def get_job(self, job_id: str) -> dict[str, Any]:
         return self._json("GET", f"/v1/jobs/{job_id}")
+
+    def list_jobs(self, study: str, *, state: str | None = None) -> list[dict[str, Any]]:
+        """The study's jobs, every page.
+
+        Parameters
+        ----------
+        state : {"queued", "running", "succeeded", "failed", "cancelled"}, optional
+            Only jobs in this state; every job when None.
+        """
+        return list(self._pages(f"/v1/studies/{study}/jobs", params={"state": state} if state else None))
 
     def cancel_job(self, job_id: str) -> dict[str, Any]:
         return self._json("POST", f"/v1/jobs/{job_id}/cancel")

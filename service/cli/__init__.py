@@ -21,3 +21,5 @@ from . import server as _server  # noqa: E402, F401
 from . import tokens as _tokens  # noqa: E402, F401
 from . import scoring as _scoring  # noqa: E402, F401
 from . import compare as _compare  # noqa: E402, F401
+from . import manage as _manage  # noqa: E402, F401
+from . import profiles as _profiles  # noqa: E402, F401

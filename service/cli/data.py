@@ -9,11 +9,12 @@ from typing import Annotated, Any
 import typer
 from rich.table import Table
 
-from models import InvalidNightError, NightOptions, Problem, quality_flags, read_night
+from models import InvalidNightError, NightOptions, Problem, quality_flags
 
 from ..errors import Incomplete
 from .application import app
-from .console import FillGapsOption, JsonOption, TzOption, console
+from .console import DEFAULT_URL, FillGapsOption, JsonOption, ServerOption, TokenOption, TzOption, console, problem_line
+from .profiles import read_night_file, resolve_profile
 
 __all__ = ["check", "night_summary"]
 
@@ -42,17 +43,23 @@ def check(
     fill_gaps: FillGapsOption = False,
     aggregate_to: Annotated[int | None, typer.Option(help="Sum epochs into 30- or 60-s epochs.")] = None,
     movement_time: Annotated[str, typer.Option(help="R&K movement time as wake, sleep or exclude.")] = "wake",
+    profile: Annotated[str | None, typer.Option(
+        "--profile", help="Import profile: a JSON profile file, or the name of a profile saved in --study.")] = None,
+    study: Annotated[str | None, typer.Option("--study", help="Study whose saved profile --profile names.")] = None,
+    server: ServerOption = DEFAULT_URL,
+    token: TokenOption = "",
     as_json: JsonOption = False,
 ) -> None:
     """Validate night files and print their quality report (exit 1 if any file is invalid)."""
     options = NightOptions(tz=tz, fill_gaps=fill_gaps, aggregate_to=aggregate_to,
                            movement_time=movement_time)  # type: ignore[arg-type]
+    layout = None if profile is None else resolve_profile(profile, study=study, server=server, token=token)
     results: list[dict[str, Any]] = []
     for path in files:
         try:
             if not path.is_file():
                 raise InvalidNightError([_missing(path)], source=str(path))
-            night = read_night(path, participant_id=path.parent.name, options=options)
+            night = read_night_file(path, participant_id=path.parent.name, options=options, profile=layout)
             results.append({"file": str(path), "valid": True, **night_summary(night)})
         except InvalidNightError as exc:
             results.append({"file": str(path), "valid": False, "problems": [p.to_dict() for p in exc.problems]})
@@ -84,7 +91,4 @@ def _print_check(results: list[dict[str, Any]]) -> None:
         if not r["valid"]:
             console.print(f"[bold red]{r['file']}[/bold red] is invalid:")
             for p in r["problems"]:
-                where = ", ".join(f"{k} {v}" for k, v in p["location"].items()
-                                  if k in ("row", "epoch", "field", "time"))
-                console.print(f"  [red]{p['code']}[/red]: {p['message']}"
-                              + (f"  [dim]({where})[/dim]" if where else ""))
+                console.print(f"  {problem_line(p)}")

@@ -22,9 +22,9 @@ from rich.table import Table
 from models import DEMO_STUDY_ID, read_night, write_demo_study
 
 from .application import app
-from .console import console
+from .console import console, problem_line
 from .data import night_summary
-from .remote import push_folder, train_and_wait
+from .remote import STORED, push_folder, train_and_wait
 from .server import DbOption, local_settings
 
 __all__ = ["demo_files"]
@@ -200,12 +200,12 @@ def _run(client: Any, data_dir: Path, n_trials: int) -> None:
     except Conflict:
         console.print(f"study {DEMO_STUDY_ID} exists already; nights already stored are recognised")
     rows = push_folder(client, DEMO_STUDY_ID, data_dir / DEMO_STUDY_ID)
-    bad = [r for r in rows if r["status"] in ("invalid", "failed")]
+    bad = [r for r in rows if r["status"] not in STORED]
     stored = sum(r["status"] == "created" for r in rows)
     console.print(f"pushed {len(rows)} nights: {stored} new, {len(rows) - stored - len(bad)} stored before, "
                   f"{len(bad)} refused")
     for r in bad:
-        console.print(f"  [red]{r['file']}[/red]: {'; '.join(r['problems'])}")
+        console.print(f"  [red]{r['file']}[/red]: {'; '.join(problem_line(p) for p in r['problems'])}")
     console.rule("[bold]training[/bold] (held-out validation; personal models are compared with the pooled one)")
     jobs = train_and_wait(client, DEMO_STUDY_ID, [("pooled", None)], n_trials=n_trials)
     eligible = [p["participant_id"] for p in client.list_participants(DEMO_STUDY_ID) if p["n_labelled_nights"] >= 3]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import signal
 import subprocess
@@ -149,6 +150,20 @@ def test_push_train_and_export_commands(server, make_token, start_worker, tmp_pa
     trained = runner.invoke(app, ["train", "--study", "s", "--all", "--n-trials", "2", *common])
     assert trained.exit_code == 0, trained.output
     assert "pooled" in trained.output and "P-03" in trained.output
+    printed = dict(re.findall(r"^(pooled|P-0\d): job ([0-9a-f]{32})", trained.output, flags=re.MULTILINE))
+    assert sorted(printed) == ["P-01", "P-02", "P-03", "pooled"]
+    for label, job_id in printed.items():  # each printed id is a finished job of that target on the server
+        job = httpx.get(f"{server.url}/v1/jobs/{job_id}", headers=bearer(token)).json()
+        assert job["state"] == "succeeded" and job["participant_id"] == (None if label == "pooled" else label)
+    for owner, path in ((None, "pooled"), ("P-02", "participants/P-02")):
+        stored = httpx.get(f"{server.url}/v1/studies/s/{path}/models", headers=bearer(token)).json()
+        args = ["models", "s", *common] + (["--participant", owner] if owner else [])
+        listed = runner.invoke(app, [*args, "--json"])
+        assert listed.exit_code == 0 and json.loads(listed.output) == stored
+        table = runner.invoke(app, args, env={"COLUMNS": "250"})
+        assert table.exit_code == 0 and "active" in table.output
+        assert {int(v) for v in re.findall(r"^│\s+(\d+) │", table.output, flags=re.MULTILINE)} == {
+            v["version"] for v in stored}
     out = tmp_path / "parameters.csv"
     exported = runner.invoke(app, ["export", "--study", "s", "-o", str(out), *common])
     assert exported.exit_code == 0 and out.read_text().startswith("study_id,participant_id")
