@@ -106,7 +106,7 @@ class SleepModel:
         thresholds meeting ``TrainingConfig.min_sensitivity``.
     feature_config_ : FeatureConfig
     feature_version_ : str
-        Version of the feature set, e.g. ``fs1-...-30s`` (includes the epoch length).
+        Version of the feature set, e.g. ``fs2-...-30s`` (includes the epoch length).
     feature_names_ : tuple of str
         Feature names, in column order.
     descriptor_names_ : tuple of str

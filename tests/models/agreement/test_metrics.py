@@ -145,7 +145,7 @@ def test_auc_needs_finite_scores():
 
 
 @pytest.mark.parametrize(("ref", "pred", "score"), [
-    ([1, 0], [1, 0, 1], None), ([1, 0], [1, 0], [0.1]), ([1, 0], [1, np.nan], None), ([1, 2], [1, 0], None)])
+    ([1, 0], [1, 0, 1], None), ([1, 0], [1, 0], [0.1]), ([1, 0], [1, 0.5], None), ([1, 2], [1, 0], None)])
 def test_invalid_inputs(ref, pred, score):
     with pytest.raises(InvalidSleepVectorError) as info:
         epoch_agreement(ref, pred, score=score)
@@ -169,9 +169,9 @@ def _nights():
 def test_agreement_table_levels_are_labelled_and_consistent():
     nights = _nights()
     table = agreement_table(nights)
-    assert list(table.columns[:8]) == ["level", "method", "participant_id", "night_id", "statistic", "n_nights",
-                                       "n_epochs", "excluded_epochs"]
-    assert list(table.columns[8:]) == list(EPOCH_METRIC_NAMES)
+    assert list(table.columns[:9]) == ["level", "method", "participant_id", "night_id", "statistic", "n_nights",
+                                       "n_epochs", "excluded_epochs", "unscored_epochs"]
+    assert list(table.columns[9:]) == list(EPOCH_METRIC_NAMES)
     night = table[table.level == "night"]
     assert len(night) == 12 and set(night.statistic) == {"value"}
     participant = table[table.level == "participant"].set_index(["method", "participant_id", "statistic"])
