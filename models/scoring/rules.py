@@ -53,6 +53,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from ..errors import NightbankError
+from ._windows import calls_of, clean_counts, minute_counts, present_weight, to_epochs, window_sum
 from .rescoring import check_epoch_seconds, webster_rescore
 
 __all__ = [
@@ -132,51 +133,6 @@ class RuleScoring:
         return np.isnan(self.sleep)
 
 
-def _minute_counts(counts: NDArray[np.float64], missing: NDArray[np.bool_],
-                   epoch_seconds: int) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
-    """Sum epochs into minutes: ``(minute counts, minute missing)``.
-
-    A trailing partial minute is completed with (present) zeros; a minute with some missing
-    epochs is its present epochs' sum scaled to the whole minute; a minute with no present epoch
-    is missing (count 0). ``counts`` holds 0 at missing epochs.
-    """
-    per_min = 60 // epoch_seconds
-    if per_min == 1:
-        return counts, missing
-    short = -counts.size % per_min
-    full = np.concatenate((counts, np.zeros(short))) if short else counts
-    total = full[0::per_min].copy()
-    for offset in range(1, per_min):  # at most 4 strided slices, not a loop over epochs
-        total += full[offset::per_min]
-    if not missing.any():
-        return total, np.zeros(total.size, dtype=bool)
-    n_missing = np.concatenate((missing, np.zeros(short, dtype=bool))).reshape(-1, per_min).sum(axis=1)
-    partial = (n_missing > 0) & (n_missing < per_min)
-    total[partial] *= per_min / (per_min - n_missing[partial])
-    return total, n_missing == per_min
-
-
-def _to_epochs(per_minute: NDArray[np.float64], epoch_seconds: int, n_epochs: int) -> NDArray[np.float64]:
-    per_min = 60 // epoch_seconds
-    return per_minute if per_min == 1 else np.repeat(per_minute, per_min)[:n_epochs]
-
-
-def _window_sum(x: NDArray[np.float64], before: int, after: int) -> NDArray[np.float64]:
-    """Sum of ``x[t-before .. t+after]`` for every t, values outside ``x`` counting as zero."""
-    return np.convolve(x, np.ones(before + after + 1), mode="full")[after:after + x.size]
-
-
-def _present_weight(missing: NDArray[np.bool_], weights: NDArray[np.float64], before: int) -> NDArray[np.float64]:
-    """Per position, the summed weights of the window's present values (positions outside count as present).
-
-    ``weights[j]`` applies to offset ``j - before``; the result is ``sum(weights)`` where no value of the
-    window is missing.
-    """
-    n = missing.size
-    lost = np.convolve(missing.astype(np.float64), weights[::-1], mode="full")[weights.size - 1 - before:][:n]
-    return float(weights.sum()) - lost
-
-
 class CountRule(abc.ABC):
     """A classical count rule.
 
@@ -242,15 +198,15 @@ class ColeKripke(CountRule):
               missing: NDArray[np.bool_] | None = None) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         scale, weights = COLE_KRIPKE_COEFFICIENTS[self.coefficients]
         missing = np.zeros(counts.size, dtype=bool) if missing is None else missing
-        minutes, minute_missing = _minute_counts(counts, missing, epoch_seconds)
+        minutes, minute_missing = minute_counts(counts, missing, epoch_seconds)
         w = np.asarray(weights, dtype=np.float64)
         padded = np.concatenate((np.zeros(4), minutes, np.zeros(2)))
         d = scale * np.correlate(padded, w, mode="valid")
         if minute_missing.any():  # weights renormalised over the present minutes
-            present = _present_weight(minute_missing, w, before=4)
+            present = present_weight(minute_missing, w, before=4)
             d = np.divide(d * w.sum(), present, out=np.full_like(d, np.nan), where=present > 0)
-        score = _to_epochs(1.0 - d, epoch_seconds, counts.size)
-        return _calls(score > 0, score, missing)
+        score = to_epochs(1.0 - d, epoch_seconds, counts.size)
+        return calls_of(score > 0, score, missing)
 
 
 class Sadeh(CountRule):
@@ -270,21 +226,21 @@ class Sadeh(CountRule):
     def apply(self, counts: NDArray[np.float64], epoch_seconds: int, *,
               missing: NDArray[np.bool_] | None = None) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         missing = np.zeros(counts.size, dtype=bool) if missing is None else missing
-        a, minute_missing = _minute_counts(counts, missing, epoch_seconds)
+        a, minute_missing = minute_counts(counts, missing, epoch_seconds)
         lost = minute_missing.astype(np.float64)
-        n_centred = 11.0 - _window_sum(lost, 5, 5)  # present minutes of t-5 .. t+5 (11 without missing ones)
-        n_trailing = 6.0 - _window_sum(lost, 5, 0)  # present minutes of t-5 .. t (6 without missing ones)
+        n_centred = 11.0 - window_sum(lost, 5, 5)  # present minutes of t-5 .. t+5 (11 without missing ones)
+        n_trailing = 6.0 - window_sum(lost, 5, 0)  # present minutes of t-5 .. t (6 without missing ones)
         nat_minutes = (a >= 50) & (a < 100) & ~minute_missing
         with np.errstate(divide="ignore", invalid="ignore"):  # a minute without present neighbours is missing
-            mean = _window_sum(a, 5, 5) / n_centred
-            nat = _window_sum(nat_minutes.astype(np.float64), 5, 5)
+            mean = window_sum(a, 5, 5) / n_centred
+            nat = window_sum(nat_minutes.astype(np.float64), 5, 5)
             nat = np.where(n_centred == 11.0, nat, nat * 11.0 / n_centred)
-            s1, s2 = _window_sum(a, 5, 0), _window_sum(a * a, 5, 0)  # trailing sums of the present minutes
+            s1, s2 = window_sum(a, 5, 0), window_sum(a * a, 5, 0)  # trailing sums of the present minutes
             sd = np.where(n_trailing >= 2.0,
                           np.sqrt(np.maximum(s2 - s1 * s1 / n_trailing, 0.0) / (n_trailing - 1.0)), 0.0)
         ps = 7.601 - 0.065 * mean - 1.08 * nat - 0.056 * sd - 0.703 * np.log1p(a)
-        score = _to_epochs(ps, epoch_seconds, counts.size)
-        return _calls(score >= 0, score, missing)
+        score = to_epochs(ps, epoch_seconds, counts.size)
+        return calls_of(score >= 0, score, missing)
 
 
 class CountThreshold(CountRule):
@@ -326,26 +282,16 @@ class CountThreshold(CountRule):
         ta_25 = np.convolve(counts, weights_25)[half:half + counts.size]
         sleep = ta_25 <= self.threshold * 25.0
         if missing is None or not missing.any():
-            return _calls(sleep, self.threshold - ta_25 / 25.0, missing)
+            return calls_of(sleep, self.threshold - ta_25 / 25.0, missing)
         # weights renormalised over the present epochs: TA = ta * total / present; compared as
         # ta * total <= threshold * present, exact in whole numbers for whole counts
         total_25 = float(weights_25.sum())
-        present_25 = _present_weight(missing, weights_25, before=half)
+        present_25 = present_weight(missing, weights_25, before=half)
         renormalised = present_25 < total_25
         with np.errstate(divide="ignore", invalid="ignore"):
             ta = np.where(renormalised, ta_25 * total_25 / present_25, ta_25) / 25.0
         sleep = np.where(renormalised, ta_25 * total_25 <= self.threshold * 25.0 * present_25, sleep)
-        return _calls(sleep, self.threshold - ta, missing)
-
-
-def _calls(sleep: NDArray[np.bool_], score: NDArray[np.float64],
-           missing: NDArray[np.bool_] | None) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Calls as float64 (1.0 sleep, 0.0 wake) and the score, both NaN at missing epochs."""
-    calls = sleep.astype(np.float64)
-    if missing is not None and missing.any():
-        calls[missing] = np.nan
-        score = np.where(missing, np.nan, score)
-    return calls, score
+        return calls_of(sleep, self.threshold - ta, missing)
 
 
 #: Registry of count rules keyed by base method id.
@@ -354,16 +300,10 @@ RULES: dict[str, type[CountRule]] = {rule.method_id: rule for rule in (ColeKripk
 METHOD_IDS: tuple[str, ...] = tuple(m for base in RULES for m in (base, base + WEBSTER_SUFFIX))
 
 
-def _clean_counts(counts: ArrayLike, count_scale: float) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
-    """``(counts, missing)``: scaled counts (0 where missing or negative) and the missing (non-finite) epochs."""
-    a = np.asarray(counts, dtype=np.float64)
-    if a.ndim != 1:
-        raise NightbankError(f"counts must be 1-D, got shape {a.shape}", code="invalid_counts")
+def _clean(counts: ArrayLike, count_scale: float) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
     if not np.isfinite(count_scale) or count_scale <= 0:
         raise InvalidRuleOptionError(f"count_scale must be a positive number, got {count_scale!r}")
-    missing = ~np.isfinite(a)
-    clean = np.where(~missing & (a > 0), a, 0.0)
-    return (clean * count_scale if count_scale != 1.0 else clean), missing
+    return clean_counts(counts, count_scale)
 
 
 def _make_rule(base: str, options: dict[str, float | str]) -> CountRule:
@@ -417,7 +357,7 @@ def score_with_rule(counts: ArrayLike, epoch_seconds: int, method: str, *, count
         raise UnknownMethodError(f"unknown method {method!r}; valid methods: {', '.join(METHOD_IDS)}")
     epoch_seconds = check_epoch_seconds(epoch_seconds)
     rule = _make_rule(base, rule_options)
-    clean, missing = _clean_counts(counts, count_scale)
+    clean, missing = _clean(counts, count_scale)
     if clean.size == 0:
         return RuleScoring(sleep=np.zeros(0), score=np.zeros(0), method=method)
     sleep, score = rule.apply(clean, epoch_seconds, missing=missing)
@@ -444,7 +384,7 @@ def continuous_scores(counts: ArrayLike, epoch_seconds: int, *,
         ``count_threshold_score``); higher = more likely sleep; NaN at missing epochs.
     """
     epoch_seconds = check_epoch_seconds(epoch_seconds)
-    clean, missing = _clean_counts(counts, count_scale)
+    clean, missing = _clean(counts, count_scale)
     if clean.size == 0:
         return {rule.score_name: np.zeros(0) for rule in RULES.values()}
     return {rule.score_name: rule().apply(clean, epoch_seconds, missing=missing)[1] for rule in RULES.values()}
