@@ -10,6 +10,8 @@ from numpy.typing import ArrayLike, NDArray
 
 from ..errors import NightbankError
 
+__all__ = ["calls_of", "clean_counts", "minute_counts", "present_weight", "to_epochs", "window_sum"]
+
 
 def clean_counts(counts: ArrayLike, count_scale: float) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
     """``(counts, missing)``: scaled counts (0 where missing or negative) and the missing (non-finite) epochs.
