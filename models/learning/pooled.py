@@ -183,6 +183,7 @@ def _fit(rows: _Rows, train_idx: NDArray[np.intp], *, config: TrainingConfig, se
         n_rounds=n_rounds, descriptor_names=DESCRIPTOR_NAMES, training_nights=training_nights,
         info={"seed": seed, "n_fit_participants": int(np.unique(rows.owners[fit_idx]).size),
               "n_validation_participants": int(np.unique(rows.owners[val_idx]).size),
+              "validation_participants": [rows.participants[o] for o in np.unique(rows.owners[val_idx])],
               "libraries": library_versions()})
 
 

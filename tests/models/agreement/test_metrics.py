@@ -134,6 +134,19 @@ def test_nan_reference_epochs_are_excluded_and_counted():
     assert (got["n_epochs"], got["excluded_epochs"]) == (4, 2)
 
 
+def test_unscored_predicted_epochs_are_excluded_and_counted():
+    # a method leaves epochs without counts unscored (NaN): they leave the confusion, whatever the reference says
+    y = np.array([1, np.nan, 0, 1, 0, 1, 0, 1])
+    p = np.array([1, 0, np.nan, 0, np.nan, 1, 0, np.nan])
+    s = np.array([0.9, 0.2, np.nan, 0.4, np.nan, 0.8, 0.1, np.nan])
+    got = epoch_agreement(y, p, score=s)
+    keep = ~np.isnan(y) & ~np.isnan(p)
+    expected = _sklearn(y[keep].astype(int), p[keep].astype(int), s[keep])  # scikit-learn on the compared epochs
+    for name, value in expected.items():
+        assert got[name] == pytest.approx(value), name
+    assert (got["n_epochs"], got["excluded_epochs"], got["unscored_epochs"]) == (4, 4, 3)
+
+
 def test_everything_excluded_gives_nan_without_warning():
     got = _no_warning_agreement([np.nan, np.nan], [1, 0])
     assert _nan_names(got) == set(EPOCH_METRIC_NAMES) and got["n_epochs"] == 0
