@@ -7,12 +7,15 @@ row belongs to, so a night is never cut in two: all its epochs fall on the same 
 =========================  ==================================  =====================================
 registry key               class                               groups
 =========================  ==================================  =====================================
-``leave-one-night-out``    :class:`sklearn.model_selection.    night of each epoch; every night is
-                           LeaveOneGroupOut`                   held out once (outer loop, personal)
-``forward-chained``        :class:`ForwardChainedSplit`        night of each epoch, values sorting
-                                                               in chronological order (inner loop)
-``leave-participants-out`` :class:`sklearn.model_selection.    participant of each epoch; k folds of
-                           GroupKFold`                         whole participants (pooled model)
+``leave-one-night-out``    :class:`sklearn.model_selection.    night group of each epoch
+                           LeaveOneGroupOut`                   (:func:`fold_groups`); every group is
+                                                               held out once (outer loop, personal)
+``forward-chained``        :class:`ForwardChainedSplit`        night group of each epoch, values
+                                                               sorting in chronological order
+                                                               (inner loop)
+``leave-participants-out`` :class:`sklearn.model_selection.    participant group of each epoch
+                           GroupKFold`                         (:func:`participant_groups`); k folds
+                                                               of whole groups (pooled model)
 =========================  ==================================  =====================================
 
 The two scikit-learn classes are used as they are; :data:`SPLITTERS` names all three.
