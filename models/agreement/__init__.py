@@ -19,6 +19,7 @@ from .comparison import (
 )
 from .epoch_metrics import (
     ALWAYS_SLEEP,
+    EPOCH_COUNT_NAMES,
     EPOCH_METRIC_NAMES,
     ScoredNight,
     agreement_table,
@@ -35,6 +36,7 @@ __all__ = [
     "BLAND_ALTMAN_PARAMETERS",
     "BlandAltman",
     "ComparisonTables",
+    "EPOCH_COUNT_NAMES",
     "EPOCH_METRIC_NAMES",
     "ERROR_PARAMETERS",
     "NightComparison",

@@ -6,11 +6,16 @@ so a parameter or a metric means the same thing in all of them:
 
 - every method scores the whole recording (its windows see the epochs around lights-off and
   lights-on); the comparison uses the in-bed epochs only;
+- an epoch is *unscored by the methods* when its counts are missing (``missing``) or any
+  method left it unscored (NaN call); every method's calls are masked there, so all methods of
+  a night are compared on the same epochs (the always-sleep baseline included);
 - epoch metrics (:func:`models.agreement.epoch_metrics.epoch_agreement`) are computed on the
-  in-bed epochs, the reference's unscored epochs dropped;
+  in-bed epochs, the reference's unscored epochs and the epochs unscored by the methods dropped
+  (the latter counted in ``unscored_epochs``);
 - sleep parameters (:func:`models.scoring.parameters.sleep_parameters`) of the reference and of
-  each method are computed with the reference's unscored epochs masked on both sides, so both
-  sides of a difference cover the same epochs, with the same ``parameter_options``;
+  each method are computed with both kinds of unscored epoch masked on both sides, so both
+  sides of a difference cover the same epochs (``unscored_epochs`` is the same on both sides),
+  with the same ``parameter_options``;
 - differences are method - reference.
 """
 
@@ -50,16 +55,19 @@ class NightComparison:
     label : str or None
         The lab's own name for the night.
     reference_parameters : SleepParameters
-        The reference's sleep parameters over the in-bed epochs (minutes, percent, counts).
+        The reference's sleep parameters over the in-bed epochs (minutes, percent, counts), the
+        epochs unscored by the methods masked.
     parameters : dict of str to SleepParameters
-        Per method, its sleep parameters with the reference's unscored epochs masked.
+        Per method, its sleep parameters with the reference's unscored epochs (and those unscored
+        by the methods) masked.
     differences : dict of str to dict of str to float
         Per method, method - reference for :data:`~models.agreement.bland_altman.BLAND_ALTMAN_PARAMETERS`
         (the parameter's unit; NaN where either side is undefined).
     epoch_metrics : dict of str to dict of str to float
         Per method, :func:`~models.agreement.epoch_metrics.epoch_agreement` on the in-bed epochs.
     scored : list of ScoredNight
-        Per method, its in-bed calls and score next to the in-bed reference (for
+        Per method, its in-bed calls (NaN where unscored by the methods) and score next to the
+        in-bed reference (for
         :func:`~models.agreement.epoch_metrics.agreement_table`).
     """
 
@@ -76,7 +84,8 @@ class NightComparison:
 def compare_night(reference: ArrayLike, sides: Mapping[str, tuple[ArrayLike, ArrayLike | None]], *,
                   epoch_seconds: int, lights_off_idx: int = 0, lights_on_idx: int | None = None,
                   parameter_options: Mapping[str, Any] | None = None, participant_id: str = "",
-                  night_id: str = "", label: str | None = None) -> NightComparison:
+                  night_id: str = "", label: str | None = None,
+                  missing: ArrayLike | None = None) -> NightComparison:
     """Compare every method of one night with its reference.
 
     Parameters
@@ -84,9 +93,9 @@ def compare_night(reference: ArrayLike, sides: Mapping[str, tuple[ArrayLike, Arr
     reference : array-like of shape (n_epochs,)
         Reference labels of the whole recording: 1 = sleep, 0 = wake, NaN = unscored.
     sides : mapping of str to (sleep, score)
-        Per method (in table order): ``sleep`` of shape (n_epochs,), 1 = sleep, 0 = wake, over
-        the whole recording, and ``score`` of shape (n_epochs,) (higher = more likely sleep, for
-        ROC AUC) or None. May be empty (the reference's parameters only).
+        Per method (in table order): ``sleep`` of shape (n_epochs,), 1 = sleep, 0 = wake, NaN =
+        unscored, over the whole recording, and ``score`` of shape (n_epochs,) (higher = more
+        likely sleep, for ROC AUC) or None. May be empty (the reference's parameters only).
     epoch_seconds : {15, 30, 60}
         Epoch length in seconds.
     lights_off_idx : int, default=0
@@ -100,6 +109,10 @@ def compare_night(reference: ArrayLike, sides: Mapping[str, tuple[ArrayLike, Arr
         Name the night in :func:`comparison_tables`.
     label : str or None, default=None
         The lab's own name for the night, kept beside ``night_id``.
+    missing : array-like of bool, shape (n_epochs,), default=None
+        Epochs without counts (:attr:`Night.missing <models.nights.night.Night.missing>`): no
+        method can score them, so they are masked for the reference too, also when ``sides`` is
+        empty. None = only the methods' own NaN calls mark such epochs.
 
     Returns
     -------
@@ -108,8 +121,8 @@ def compare_night(reference: ArrayLike, sides: Mapping[str, tuple[ArrayLike, Arr
     Raises
     ------
     InvalidSleepVectorError
-        If a method's calls or score differ in length from the reference, or the calls hold other
-        values than 0/1 (NaN only where the reference is unscored).
+        If a method's calls or score or ``missing`` differ in length from the reference, or the
+        calls hold other values than 0, 1 and NaN.
     InvalidInBedIntervalError, UnsupportedEpochLengthError, NightbankError
         As :func:`~models.scoring.parameters.sleep_parameters` (bad in-bed interval, epoch length
         or parameter option).
@@ -121,25 +134,35 @@ def compare_night(reference: ArrayLike, sides: Mapping[str, tuple[ArrayLike, Arr
         return sleep_parameters(sleep, epoch_seconds, lights_off_idx=lights_off_idx, lights_on_idx=lights_on_idx,
                                 **options)
 
-    reference_parameters = parameters_of(ref)  # checks the in-bed interval before it is used below
-    bed = slice(lights_off_idx, ref.size if lights_on_idx is None else lights_on_idx)
-    unscored = np.isnan(ref)
-    parameters: dict[str, SleepParameters] = {}
-    differences: dict[str, dict[str, float]] = {}
-    epoch_metrics: dict[str, dict[str, float]] = {}
-    scored: list[ScoredNight] = []
+    checked: dict[str, tuple[NDArray[np.float64], NDArray[np.float64] | None]] = {}
     for method, (sleep, score) in sides.items():
         calls = as_sleep_vector(sleep, name=method)
         scores = None if score is None else np.asarray(score, dtype=np.float64)
         if calls.size != ref.size or (scores is not None and scores.shape != ref.shape):
             raise InvalidSleepVectorError(f"night {night_id!r}, method {method!r}: calls and score must cover the "
                                           f"{ref.size} epochs of the reference, got {calls.size}")
+        checked[method] = (calls, scores)
+    no_call = np.zeros(ref.size, dtype=bool) if missing is None else np.asarray(missing, dtype=bool)
+    if no_call.shape != ref.shape:
+        raise InvalidSleepVectorError(f"night {night_id!r}: missing must cover the {ref.size} epochs of the "
+                                      f"reference, got shape {no_call.shape}")
+    for calls, _ in checked.values():
+        no_call = no_call | np.isnan(calls)
+    unscored = np.isnan(ref) | no_call
+    reference_parameters = parameters_of(np.where(unscored, np.nan, ref))  # checks the in-bed interval first
+    bed = slice(lights_off_idx, ref.size if lights_on_idx is None else lights_on_idx)
+    parameters: dict[str, SleepParameters] = {}
+    differences: dict[str, dict[str, float]] = {}
+    epoch_metrics: dict[str, dict[str, float]] = {}
+    scored: list[ScoredNight] = []
+    for method, (calls, scores) in checked.items():
         own = parameters_of(np.where(unscored, np.nan, calls))
         parameters[method] = own
         differences[method] = {name: getattr(own, name) - getattr(reference_parameters, name)
                                for name in BLAND_ALTMAN_PARAMETERS}
         night = ScoredNight(participant_id=participant_id, night_id=night_id, method=method, reference=ref[bed],
-                            predicted=calls[bed], score=None if scores is None else scores[bed])
+                            predicted=np.where(no_call, np.nan, calls)[bed],
+                            score=None if scores is None else scores[bed])
         epoch_metrics[method] = epoch_agreement(night.reference, night.predicted, score=night.score)
         scored.append(night)
     return NightComparison(participant_id=participant_id, night_id=night_id, label=label,

@@ -1,7 +1,9 @@
 """Epoch-by-epoch agreement between a reference and a predicted sleep/wake sequence.
 
-Sleep is the positive class (1 = sleep, 0 = wake). Reference epochs that are NaN (unscored,
-excluded) are dropped before anything is computed and counted in ``excluded_epochs``.
+Sleep is the positive class (1 = sleep, 0 = wake). Epochs that are NaN in the reference
+(unscored, excluded) or in the prediction (unscored by the method, e.g. missing counts) are
+dropped before anything is computed: ``n_epochs`` counts the compared epochs,
+``excluded_epochs`` the dropped ones and ``unscored_epochs`` those the prediction left unscored.
 The metrics come from scikit-learn; where a metric is undefined for the data at hand it is
 NaN, never a warning:
 
@@ -45,7 +47,8 @@ from sklearn.metrics import (
 
 from ..scoring.rescoring import InvalidSleepVectorError, as_sleep_vector
 
-__all__ = ["ALWAYS_SLEEP", "EPOCH_METRIC_NAMES", "ScoredNight", "agreement_table", "always_sleep", "epoch_agreement"]
+__all__ = ["ALWAYS_SLEEP", "EPOCH_COUNT_NAMES", "EPOCH_METRIC_NAMES", "ScoredNight", "agreement_table", "always_sleep",
+           "epoch_agreement"]
 
 #: Method label of the "always sleep" baseline.
 ALWAYS_SLEEP = "always-sleep"
@@ -54,6 +57,8 @@ EPOCH_METRIC_NAMES: tuple[str, ...] = (
     "sensitivity", "specificity", "ppv", "npv", "accuracy", "balanced_accuracy",
     "f1_sleep", "f1_wake", "kappa", "pabak", "mcc", "auc",
 )
+#: Epoch counts reported beside the metrics, in column order.
+EPOCH_COUNT_NAMES: tuple[str, ...] = ("n_epochs", "excluded_epochs", "unscored_epochs")
 _LABELS = [0, 1]
 
 
@@ -80,20 +85,21 @@ def epoch_agreement(reference: ArrayLike, predicted: ArrayLike, *,
     reference : array-like of shape (n_epochs,)
         Reference labels: 1 = sleep, 0 = wake, NaN = excluded.
     predicted : array-like of shape (n_epochs,)
-        Predicted labels, 1 = sleep, 0 = wake (NaN only where the reference is NaN).
+        Predicted labels, 1 = sleep, 0 = wake, NaN = unscored (excluded).
     score : array-like of shape (n_epochs,), default=None
-        Continuous score, higher = more likely sleep, for ROC AUC.
+        Continuous score, higher = more likely sleep, for ROC AUC (read on the compared epochs
+        only).
 
     Returns
     -------
     metrics : dict of str to float
-        ``n_epochs`` (compared), ``excluded_epochs`` and every name in :data:`EPOCH_METRIC_NAMES`.
+        ``n_epochs`` (compared: scored on both sides), ``excluded_epochs`` (the others),
+        ``unscored_epochs`` (NaN in the prediction) and every name in :data:`EPOCH_METRIC_NAMES`.
 
     Raises
     ------
     InvalidSleepVectorError
-        If the inputs differ in length, hold values other than 0/1 (NaN in the reference), or the
-        prediction is NaN where the reference is scored.
+        If the inputs differ in length or hold values other than 0, 1 and NaN.
 
     Examples
     --------
@@ -107,12 +113,11 @@ def epoch_agreement(reference: ArrayLike, predicted: ArrayLike, *,
     if pred.shape != ref.shape or (scores is not None and scores.shape != ref.shape):
         raise InvalidSleepVectorError(
             f"reference ({ref.size}), predicted ({pred.size}) and score must have the same length")
-    keep = ~np.isnan(ref)
-    y, p = ref[keep].astype(np.int8), pred[keep]
-    if np.isnan(p).any():
-        raise InvalidSleepVectorError("predicted is NaN on epochs where the reference is scored")
-    p = p.astype(np.int8)
-    out: dict[str, float] = {"n_epochs": float(y.size), "excluded_epochs": float(ref.size - y.size)}
+    unscored = np.isnan(pred)
+    keep = ~np.isnan(ref) & ~unscored
+    y, p = ref[keep].astype(np.int8), pred[keep].astype(np.int8)
+    out: dict[str, float] = {"n_epochs": float(y.size), "excluded_epochs": float(ref.size - y.size),
+                             "unscored_epochs": float(np.count_nonzero(unscored))}
     if y.size == 0:
         return out | dict.fromkeys(EPOCH_METRIC_NAMES, float("nan"))
     two_ref, two_pred = y.min() != y.max(), p.min() != p.max()
@@ -146,7 +151,7 @@ class ScoredNight:
     reference : ndarray of shape (n_epochs,)
         1 = sleep, 0 = wake, NaN = excluded.
     predicted : ndarray of shape (n_epochs,)
-        1 = sleep, 0 = wake.
+        1 = sleep, 0 = wake, NaN = unscored.
     score : ndarray of shape (n_epochs,) or None
         Continuous score, higher = more likely sleep.
     """
@@ -176,20 +181,22 @@ def agreement_table(nights: Iterable[ScoredNight], *,
     -------
     table : pandas.DataFrame
         Columns ``level``, ``method``, ``participant_id``, ``night_id``, ``statistic``,
-        ``n_nights``, ``n_epochs``, ``excluded_epochs`` and :data:`EPOCH_METRIC_NAMES`. Rows come
+        ``n_nights``, ``n_epochs``, ``excluded_epochs``, ``unscored_epochs`` and
+        :data:`EPOCH_METRIC_NAMES`. Rows come
         in three blocks (night, participant, pooled), each ordered by method (in order of first
         appearance) and then as the nights were given:
 
         - ``level="night"``, ``statistic="value"``: one row per method and night;
         - ``level="participant"``, ``statistic="mean"`` and ``"sd"``: mean and SD (ddof=1; NaN
-          for one night) across that participant's nights, NaN nights skipped; ``n_epochs``
-          and ``excluded_epochs`` are totals;
+          for one night) across that participant's nights, NaN nights skipped; ``n_epochs``,
+          ``excluded_epochs`` and ``unscored_epochs`` are totals;
         - ``level="pooled"``, ``statistic="value"``: one confusion over all epochs of all nights
           of the method (AUC only if every night has a score).
     """
     nights = list(nights)
     id_cols = ["level", "method", "participant_id", "night_id", "statistic", "n_nights"]
-    columns = id_cols + ["n_epochs", "excluded_epochs", *EPOCH_METRIC_NAMES]
+    counts = list(EPOCH_COUNT_NAMES)
+    columns = id_cols + [*counts, *EPOCH_METRIC_NAMES]
     if not nights:
         return pd.DataFrame(columns=columns)
     if night_metrics is None:
@@ -202,9 +209,9 @@ def agreement_table(nights: Iterable[ScoredNight], *,
     night_rows = night_rows.sort_values("method", key=lambda col: col.map(order), kind="stable", ignore_index=True)
     grouped = night_rows.groupby(["method", "participant_id"], sort=False)
     metrics = grouped[list(EPOCH_METRIC_NAMES)]
-    totals = grouped[["n_epochs", "excluded_epochs"]].sum()
-    counts = grouped.size().rename("n_nights")
-    blocks = [values.join(totals).join(counts).reset_index().assign(
+    totals = grouped[counts].sum()
+    n_nights = grouped.size().rename("n_nights")
+    blocks = [values.join(totals).join(n_nights).reset_index().assign(
         level="participant", night_id=None, statistic=statistic)
         for statistic, values in (("mean", metrics.mean()), ("sd", metrics.std(ddof=1)))]
     participant_rows = pd.concat(blocks).sort_index(kind="stable")  # mean then sd for each participant
@@ -218,6 +225,5 @@ def agreement_table(nights: Iterable[ScoredNight], *,
             np.concatenate([np.asarray(n.predicted, dtype=np.float64) for n in mine]),
             score=np.concatenate([np.asarray(n.score) for n in mine]) if with_score else None))
     table = pd.concat([night_rows, participant_rows, pd.DataFrame(pooled)], ignore_index=True)
-    table[["n_nights", "n_epochs", "excluded_epochs"]] = table[["n_nights", "n_epochs", "excluded_epochs"]].astype(
-        np.int64)
+    table[["n_nights", *counts]] = table[["n_nights", *counts]].astype(np.int64)
     return table[columns]

@@ -86,9 +86,10 @@ def compare_rules_with_reference(
 
     Each rule scores the whole recording (so its windows see the epochs around lights-off and
     lights-on); every comparison uses the in-bed epochs only. The always-sleep baseline is
-    always included, right after the reference. A method's parameters are computed with the
-    reference's unscored epochs masked out too, so both sides of a difference cover the same
-    epochs.
+    always included, right after the reference. Epochs with missing counts are unscored by every
+    rule; they and the reference's unscored epochs are masked on both sides of every parameter
+    difference and left out of the epoch metrics (:func:`~models.agreement.comparison.compare_night`),
+    so every side covers the same epochs.
 
     Parameters
     ----------
@@ -126,5 +127,6 @@ def compare_rules_with_reference(
             reference, _sides(night, reference, methods, count_scale, rule_options),
             epoch_seconds=night.epoch_seconds, lights_off_idx=night.lights_off_idx,
             lights_on_idx=night.lights_on_idx, parameter_options=parameter_options,
-            participant_id=night.participant_id, night_id=night.night_id, label=night.label))
+            participant_id=night.participant_id, night_id=night.night_id, label=night.label,
+            missing=~np.isfinite(np.asarray(night.counts, dtype=np.float64))))
     return comparison_tables(compared)

@@ -156,8 +156,8 @@ def rule_scores(counts: FloatArray, epoch_seconds: float) -> dict[str, FloatArra
     """Continuous scores of the classical count rules (higher = more likely sleep), one per rule.
 
     Calls :func:`models.scoring.rules.continuous_scores` (Cole-Kripke, Sadeh, weighted count threshold,
-    with default options). The rules treat missing counts as 0 inside their windows; the score of
-    a missing epoch itself is set to NaN here.
+    with default options). The rules leave missing counts out of their windows (weights
+    renormalised over the present epochs) and give a missing epoch itself a NaN score.
 
     Parameters
     ----------

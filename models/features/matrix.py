@@ -23,7 +23,7 @@ Feature families (``FeatureConfig.families``), in column order:
     ``since_lights_off_min``, ``to_lights_on_min``, ``since_move_min``, ``to_move_min``,
     ``still_run_min``.
 ``rules``
-    ``rule_<name>``: the classical count rules' continuous scores.
+    ``rule_<name>``: the classical count rules' continuous scores (NaN at missing epochs).
 ``night``
     ``night_p<q>``: the night's count quantiles on every row.
 
@@ -87,7 +87,8 @@ __all__ = [
 ]
 
 #: Revision of the feature code; part of every version string. Bump when any value changes.
-FEATURE_REVISION = 1
+#: 2: the ``rules`` family leaves missing epochs out of the rules' windows instead of reading them as 0.
+FEATURE_REVISION = 2
 #: Every feature family, in column order.
 FAMILIES: tuple[str, ...] = ("summary", "dynamics", "lags", "context", "rules", "night")
 DYNAMIC_STATISTICS: tuple[str, ...] = (
@@ -201,7 +202,7 @@ class FeatureMatrix:
         Read-only; NaN where a feature is undefined.
     names : tuple of str, length n_features
     version : str
-        ``<FeatureConfig.version>-<epoch_seconds>s``, e.g. ``fs1-0123456789abcdef-30s``.
+        ``<FeatureConfig.version>-<epoch_seconds>s``, e.g. ``fs2-0123456789abcdef-30s``.
     """
 
     values: NDArray[np.float32]

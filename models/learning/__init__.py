@@ -51,6 +51,7 @@ from .offset import (
 )
 from .personal import (
     PersonalResult,
+    personal_studies,
     train_personal,
 )
 from .pooled import (
@@ -68,6 +69,8 @@ from .splits import (
     SPLITTERS,
     ForwardChainedSplit,
     TooFewNightsError,
+    fold_groups,
+    participant_groups,
 )
 from .study_comparison import (
     COMPARED_RULES,
@@ -129,6 +132,7 @@ __all__ = [
     "choose_shrinkage",
     "compare_study",
     "estimate_offset",
+    "fold_groups",
     "held_out_comparison",
     "iter_prepared",
     "labelled_nights",
@@ -139,7 +143,9 @@ __all__ = [
     "night_metrics_table",
     "offset_log_likelihood",
     "participant_descriptors",
+    "participant_groups",
     "participant_offset",
+    "personal_studies",
     "prepare_nights",
     "run_tasks",
     "save_model",

@@ -4,6 +4,11 @@ A :class:`SleepModel` is built by :func:`models.learning.personal.train_personal
 :func:`models.learning.pooled.train_pooled`, saved and restored by :mod:`models.learning.artifacts`; it
 is never pickled. Prediction always goes through the same numpy and XGBoost calls, so a restored model
 gives bit-identical probabilities.
+
+Missing epochs (NaN counts, :attr:`Night.missing <models.nights.night.Night.missing>`) are never
+trained on (:mod:`models.learning.rows`) and never predicted: their margin, probability and call
+are NaN (unscored). XGBoost would route the NaN features of such an epoch down its default
+branches and return a number that looks like a prediction; it is discarded.
 """
 
 from __future__ import annotations
@@ -106,7 +111,7 @@ class SleepModel:
         thresholds meeting ``TrainingConfig.min_sensitivity``.
     feature_config_ : FeatureConfig
     feature_version_ : str
-        Version of the feature set, e.g. ``fs1-...-30s`` (includes the epoch length).
+        Version of the feature set, e.g. ``fs2-...-30s`` (includes the epoch length).
     feature_names_ : tuple of str
         Feature names, in column order.
     descriptor_names_ : tuple of str
@@ -203,6 +208,7 @@ class SleepModel:
         Returns
         -------
         margin : ndarray of float64, shape (n_epochs,)
+            NaN at missing epochs (unscored).
 
         Raises
         ------
@@ -215,19 +221,45 @@ class SleepModel:
                         else feature_cache.features(night, self.feature_config_))
         if self.descriptor_names_ and descriptors is None:
             descriptors = participant_descriptors([night])
-        return self.margin_from_matrix(self.design_matrix(features, descriptors)) + float(offset)
+        margin = self.margin_from_matrix(self.design_matrix(features, descriptors)) + float(offset)
+        missing = night.missing
+        if missing.shape == margin.shape and missing.any():
+            margin[missing] = np.nan
+        return margin
 
     def predict_proba(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
                       features: FeatureMatrix | None = None,
                       feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
-        """Probability of sleep per epoch, shape (n_epochs,), float64 (see :meth:`decision_function`)."""
+        """Probability of sleep per epoch, shape (n_epochs,), float64, NaN at missing epochs (see
+        :meth:`decision_function`)."""
         margin = self.decision_function(night, offset=offset, descriptors=descriptors, features=features,
                                         feature_cache=feature_cache)
         return np.asarray(expit(margin), dtype=np.float64)
 
     def predict(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
-                features: FeatureMatrix | None = None, feature_cache: FeatureSource | None = None) -> NDArray[np.int8]:
-        """Sleep (1) / wake (0) per epoch at ``threshold_``, shape (n_epochs,), int8."""
+                features: FeatureMatrix | None = None,
+                feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
+        """Sleep (1.0) / wake (0.0) per epoch at ``threshold_``, NaN at missing epochs; shape (n_epochs,)."""
         p = self.predict_proba(night, offset=offset, descriptors=descriptors, features=features,
                                feature_cache=feature_cache)
-        return (p >= self.threshold_).astype(np.int8)
+        return self.calls(p)
+
+    def calls(self, p_sleep: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Calls at ``threshold_`` from probabilities of sleep.
+
+        Parameters
+        ----------
+        p_sleep : ndarray of float64, shape (n_epochs,)
+            As :meth:`predict_proba`; NaN = unscored.
+
+        Returns
+        -------
+        sleep : ndarray of float64, shape (n_epochs,)
+            1.0 where ``p_sleep >= threshold_``, 0.0 below, NaN where ``p_sleep`` is NaN.
+
+        Examples
+        --------
+        A model with threshold 0.6 calls ``[0.7, 0.2, nan]`` ``[1.0, 0.0, nan]``.
+        """
+        p = np.asarray(p_sleep, dtype=np.float64)
+        return np.where(np.isnan(p), np.nan, (p >= self.threshold_).astype(np.float64))

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ..agreement.epoch_metrics import EPOCH_METRIC_NAMES, epoch_agreement
+from ..agreement.epoch_metrics import EPOCH_COUNT_NAMES, EPOCH_METRIC_NAMES, epoch_agreement
 from .config import TrainingDataError
 
 __all__ = ["HeldOutNight", "night_metrics_table", "summary_table"]
@@ -29,9 +29,9 @@ class HeldOutNight:
     method : str
         ``"personal"``, ``"pooled"`` or ``"pooled+offset"``.
     p_sleep : ndarray of float64, shape (n_epochs,)
-        Probability of sleep for every epoch of the night.
-    sleep : ndarray of int8, shape (n_epochs,)
-        Calls (1 = sleep) at the model's threshold.
+        Probability of sleep for every epoch of the night, NaN at missing epochs (unscored).
+    sleep : ndarray of float64, shape (n_epochs,)
+        Calls at the model's threshold: 1.0 = sleep, 0.0 = wake, NaN at missing epochs.
     reference : ndarray of float64, shape (n_epochs,) or None
         1 = sleep, 0 = wake, NaN = unscored; None for an unlabelled night.
     in_bed : tuple of int
@@ -41,7 +41,8 @@ class HeldOutNight:
     offset : float, default=0.0
         Log-odds offset applied (pooled+offset only).
     margin : ndarray of float64, shape (n_epochs,) or None
-        Log-odds of sleep before the offset (pooled models; used to estimate offsets).
+        Log-odds of sleep before the offset (pooled models; used to estimate offsets), NaN at
+        missing epochs.
     """
 
     participant_id: str
@@ -49,7 +50,7 @@ class HeldOutNight:
     label: str | None
     method: str
     p_sleep: NDArray[np.float64] = field(repr=False)
-    sleep: NDArray[np.int8] = field(repr=False)
+    sleep: NDArray[np.float64] = field(repr=False)
     reference: NDArray[np.float64] | None = field(repr=False)
     in_bed: tuple[int, int]
     threshold: float
@@ -70,12 +71,16 @@ class HeldOutNight:
 
 
 def night_metrics_table(held_out: Sequence[HeldOutNight]) -> pd.DataFrame:
-    """One row per labelled held-out night: ids, ``n_epochs`` and :data:`EPOCH_METRIC_NAMES`."""
+    """One row per labelled held-out night: ids, the epoch counts and :data:`EPOCH_METRIC_NAMES`.
+
+    Epochs the model left unscored (missing counts) are excluded from the metrics and counted in
+    ``unscored_epochs`` (:func:`~models.agreement.epoch_metrics.epoch_agreement`).
+    """
     rows = [{"participant_id": h.participant_id, "night_id": h.night_id, "night_hash": h.night_hash,
              "method": h.method, "threshold": h.threshold, "offset": h.offset} | h.agreement()
             for h in held_out if h.reference is not None]
     return pd.DataFrame(rows, columns=["participant_id", "night_id", "night_hash", "method", "threshold", "offset",
-                                       "n_epochs", "excluded_epochs", *EPOCH_METRIC_NAMES])
+                                       *EPOCH_COUNT_NAMES, *EPOCH_METRIC_NAMES])
 
 
 def summary_table(night_metrics: pd.DataFrame) -> pd.DataFrame:

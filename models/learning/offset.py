@@ -188,23 +188,27 @@ class ShrinkageChoice:
     log_likelihood: tuple[float, ...]
     per_participant: dict[str, tuple[float, ...]] = field(repr=False)
 
-    def excluding(self, participant_id: str) -> float:
+    def excluding(self, participant_id: str, *, linked: Sequence[str] = ()) -> float:
         """The penalty chosen without ``participant_id``'s nights (for honest evaluation).
 
         Parameters
         ----------
         participant_id : str
+        linked : sequence of str, default=()
+            Participants whose nights are left out as well (those sharing a night with
+            ``participant_id``, :func:`models.learning.splits.participant_groups`).
 
         Returns
         -------
         float
         """
-        own = self.per_participant.get(participant_id)
-        if own is None:
+        left_out = [self.per_participant[p] for p in dict.fromkeys([participant_id, *linked])
+                    if p in self.per_participant]
+        if not left_out:
             return self.shrinkage
-        if len(self.per_participant) < 2:
+        if len(self.per_participant) <= len(left_out):
             return self.grid[-1]
-        return self.grid[_best(np.asarray(self.log_likelihood) - np.asarray(own))]
+        return self.grid[_best(np.asarray(self.log_likelihood) - np.sum(left_out, axis=0))]
 
     def to_dict(self) -> dict[str, object]:
         """JSON-able form."""
@@ -262,8 +266,8 @@ def participant_offset(model: SleepModel, nights: Sequence[Night], *, shrinkage:
     model : SleepModel
         A pooled model.
     nights : sequence of Night
-        The participant's nights; labelled in-bed epochs are used, all nights give the
-        descriptors when ``descriptors`` is None.
+        The participant's nights; labelled in-bed epochs with counts are used (missing epochs
+        have no margin), all nights give the descriptors when ``descriptors`` is None.
     shrinkage : float
         Penalty, e.g. :attr:`PooledResult.shrinkage`.
     config : TrainingConfig, default=TrainingConfig()
@@ -286,8 +290,8 @@ def participant_offset(model: SleepModel, nights: Sequence[Night], *, shrinkage:
             continue
         bed = slice(*night.in_bed)
         margin = model.decision_function(night, descriptors=descriptors, feature_cache=feature_cache)
-        margins.append(margin[bed] + model.offset_baseline_)
-        refs.append(ref[bed])
+        margins.append(np.nan_to_num(margin[bed], nan=0.0) + model.offset_baseline_)
+        refs.append(np.where(night.missing[bed], np.nan, ref[bed]))  # missing epochs are not predicted
     if not margins:
         return 0.0
     return estimate_offset(np.concatenate(margins), np.concatenate(refs), shrinkage=shrinkage)

@@ -3,15 +3,18 @@
 Nested validation, so that nothing about a held-out night reaches its prediction:
 
 - outer loop, leave-one-night-out (``SPLITTERS["leave-one-night-out"]``: scikit-learn's
-  ``LeaveOneGroupOut`` with the nights as groups): each labelled night is held out once, in
-  chronological order; a full search (:func:`models.learning.tuning.tune_and_fit`:
-  forward-chained inner splits, early stopping, threshold) runs on the *other* nights and its
-  refitted model predicts the held-out night;
+  ``LeaveOneGroupOut``) over *night groups* (:func:`models.learning.splits.fold_groups`: nights
+  overlapping in clock time, such as a shifted copy of a night, are one group): each group of
+  labelled nights is held out once, in chronological order; a full search
+  (:func:`models.learning.tuning.tune_and_fit`: forward-chained inner splits over whole
+  groups, early stopping, threshold) runs on the nights of the *other* groups and its refitted
+  model predicts every night of the held-out group;
 - final model: the same search on all labelled nights, refitted on all of them.
 
-With ``n`` labelled nights that is ``n + 1`` independent studies; they run on ``n_jobs``
-threads, each seeded from ``config.seed`` and its position, so results do not depend on
-``n_jobs``.
+With ``n`` groups of labelled nights (``n`` nights when none overlap) that is ``n + 1``
+independent studies; they run on ``n_jobs`` threads, each seeded from ``config.seed`` and its
+position, so results do not depend on ``n_jobs``. ``config.min_personal_nights`` counts
+groups: copies of a night are not independent nights.
 """
 
 from __future__ import annotations
@@ -30,11 +33,11 @@ from .classifier import SleepModel
 from .config import TrainingConfig, TrainingDataError
 from .held_out import HeldOutNight, night_metrics_table, summary_table
 from .rows import NightRows, labelled_nights, prepare_nights, study_seed
-from .splits import SPLITTERS
+from .splits import SPLITTERS, fold_groups
 from .tasks import Progress, Reporter, run_tasks
 from .tuning import TunedPipeline, tune_and_fit
 
-__all__ = ["PersonalResult", "train_personal"]
+__all__ = ["PersonalResult", "personal_studies", "train_personal"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -46,7 +49,8 @@ class PersonalResult:
     model : SleepModel
         Final model, trained on every labelled night.
     outer : list of HeldOutNight
-        One per labelled night (chronological), predicted by a model tuned and trained without it.
+        One per labelled night (chronological), predicted by a model tuned and trained without
+        it and without every night of its group (its overlapping copies).
     night_metrics : pandas.DataFrame
         Epoch-by-epoch metrics of each held-out night (in-bed epochs).
     summary : pandas.DataFrame
@@ -54,8 +58,9 @@ class PersonalResult:
     best_params : dict
         Hyperparameters of the final model.
     trials : pandas.DataFrame
-        One row per study (``study`` = held-out night id, or ``"final"``): trial counts, best
-        inner AUC, threshold, number of trees and chosen hyperparameters.
+        One row per study (``study`` = held-out night id, the ids of a group joined by ``"+"``,
+        or ``"final"``): trial counts, best inner AUC, threshold, number of trees and chosen
+        hyperparameters.
     """
 
     model: SleepModel
@@ -87,17 +92,39 @@ def _model(pipe: TunedPipeline, nights: Sequence[NightRows], config: TrainingCon
         info={"seed": seed, "inner_auc": pipe.best_value, "tuning": pipe.trials, "libraries": library_versions()})
 
 
+def personal_studies(nights: Sequence[Night], config: TrainingConfig = TrainingConfig()) -> int:
+    """Number of held-out studies of :func:`train_personal`: groups of labelled nights.
+
+    Parameters
+    ----------
+    nights : sequence of Night
+        One participant's nights.
+    config : TrainingConfig, default=TrainingConfig()
+        Only ``movement_time`` is used (which nights are labelled).
+
+    Returns
+    -------
+    int
+        Groups (:func:`~models.learning.splits.fold_groups`) of the labelled nights; this is
+        what ``config.min_personal_nights`` is compared with.
+    """
+    labelled = labelled_nights(nights, config)
+    return len(set(fold_groups(labelled))) if labelled else 0
+
+
 def _labelled(nights: Sequence[Night], config: TrainingConfig, source: FeatureSource | None) -> list[NightRows]:
     owners = sorted({n.participant_id for n in nights})
     if len(owners) > 1:
         raise TrainingDataError(f"a personal model takes one participant's nights, got {owners}",
                                 code="mixed_participants")
-    rows = prepare_nights(labelled_nights(nights, config), config, feature_cache=source)
-    if len(rows) < config.min_personal_nights:
+    labelled = labelled_nights(nights, config)
+    n_groups = len(set(fold_groups(labelled))) if labelled else 0
+    if n_groups < config.min_personal_nights:
+        copies = f" ({len(labelled)} nights, overlapping copies counted once)" if n_groups < len(labelled) else ""
         raise TrainingDataError(
-            f"a personal model needs {config.min_personal_nights} labelled nights, got {len(rows)}",
+            f"a personal model needs {config.min_personal_nights} labelled nights, got {n_groups}{copies}",
             code="too_few_labelled_nights")
-    return rows
+    return prepare_nights(labelled, config, feature_cache=source)
 
 
 def train_personal(nights: Sequence[Night], *, config: TrainingConfig = TrainingConfig(),
@@ -124,30 +151,26 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     ------
     TrainingDataError
         If the nights belong to several participants (code ``mixed_participants``), fewer than
-        ``config.min_personal_nights`` are labelled (``too_few_labelled_nights``) or they mix
-        epoch lengths (``mixed_epoch_lengths``).
+        ``config.min_personal_nights`` groups of nights are labelled (``too_few_labelled_nights``;
+        overlapping copies of a night count once) or they mix epoch lengths (``mixed_epoch_lengths``).
     """
     rows = _labelled(nights, config, feature_cache)
-    n = len(rows)
     per_study = config.n_trials + 1
-    # one entry per night, grouped by its chronological rank: split k holds out the k-th night
-    ranks = np.arange(n)
-    outer = list(SPLITTERS["leave-one-night-out"]().split(ranks, groups=ranks))
+    # one entry per night (chronological), grouped by its fold group: split k holds out the k-th group
+    groups = np.asarray(fold_groups([r.night for r in rows]))
+    outer = list(SPLITTERS["leave-one-night-out"]().split(groups, groups=groups))
+    n = len(outer)
 
     def outer_task(k: int) -> Any:
-        def run(reporter: Reporter) -> tuple[HeldOutNight, dict[str, Any]]:
-            train_idx, (held_idx,) = outer[k]
-            held = rows[held_idx]
+        def run(reporter: Reporter) -> tuple[list[tuple[int, HeldOutNight]], dict[str, Any]]:
+            train_idx, held_idx = outer[k]
             others = [rows[i] for i in train_idx]
             seed = study_seed(config.seed, k + 1)
+            what = "night" if held_idx.size == 1 else f"group of {held_idx.size} nights"
             model = _model(tune_and_fit(others, config=config, seed=seed, reporter=reporter,
-                                        stage=f"personal: night {k + 1}/{n} held out"), others, config, seed)
-            p = model.predict_proba(held.night, features=held.features)
-            out = HeldOutNight(participant_id=held.night.participant_id, night_hash=held.night.content_hash,
-                               label=held.night.label, method="personal", p_sleep=p,
-                               sleep=(p >= model.threshold_).astype(np.int8), reference=held.reference,
-                               in_bed=held.night.in_bed, threshold=model.threshold_)
-            return out, _trial_row(out.night_id, model)
+                                        stage=f"personal: {what} {k + 1}/{n} held out"), others, config, seed)
+            out = [(int(i), _held_out(model, rows[i])) for i in held_idx]
+            return out, _trial_row("+".join(h.night_id for _, h in out), model)
         return run
 
     def final_task(reporter: Reporter) -> SleepModel:
@@ -158,11 +181,18 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     results = run_tasks([final_task, *(outer_task(k) for k in range(len(outer)))], n_jobs=config.n_jobs,
                         total=(n + 1) * per_study, progress=progress)
     model: SleepModel = results[0]
-    held_out: list[HeldOutNight] = [held for held, _ in results[1:]]
+    held_out: list[HeldOutNight] = [h for _, h in sorted(pair for held, _ in results[1:] for pair in held)]
     night_metrics = night_metrics_table(held_out)
     trials = pd.DataFrame([row for _, row in results[1:]] + [_trial_row("final", model)])
     return PersonalResult(model=model, outer=held_out, night_metrics=night_metrics,
                           summary=summary_table(night_metrics), best_params=dict(model.params_), trials=trials)
+
+
+def _held_out(model: SleepModel, held: NightRows) -> HeldOutNight:
+    p = model.predict_proba(held.night, features=held.features)
+    return HeldOutNight(participant_id=held.night.participant_id, night_hash=held.night.content_hash,
+                        label=held.night.label, method="personal", p_sleep=p, sleep=model.calls(p),
+                        reference=held.reference, in_bed=held.night.in_bed, threshold=model.threshold_)
 
 
 def _trial_row(study: str, model: SleepModel) -> dict[str, Any]:

@@ -10,18 +10,23 @@ than a personal model, and a search would multiply the cost of the largest fits.
 the number of trees (early stopping) and the threshold, both on *validation participants*: a
 share ``pooled_validation_share`` of each fit's training participants, held back from that fit.
 
-Evaluation is leave-participants-out (GroupKFold over participants, ``pooled_folds`` folds):
-every participant's held-out predictions come from a fold model that never saw any of their
-nights, and whose early stopping and threshold never saw them either. The final model repeats
+Evaluation is leave-participants-out (GroupKFold over participant groups, ``pooled_folds``
+folds): every participant's held-out predictions come from a fold model that never saw any of
+their nights, and whose early stopping and threshold never saw them either. Participants that
+share a night (the same content stored under two ids,
+:func:`~models.learning.splits.participant_groups`) are one group: they fall in the same fold,
+and validation participants are held back as whole groups too. The final model repeats
 the procedure on all participants. Each fit trains on at most ``pooled_max_rows`` epochs (a
 uniform sample when there are more) through ``xgboost.QuantileDMatrix`` (compressed histogram
 input); fits and night features run on ``n_jobs`` threads.
 
 Offsets (:mod:`models.learning.offset`): the penalty is chosen from the held-out margins of participants
-with two or more labelled nights; each participant's offset is then estimated from all their
-held-out margins. ``pooled+offset`` held-out figures (``PooledResult.offset_held_out``) use, for
-each labelled night, an offset fitted on the participant's *other* nights with a penalty chosen
-without the participant (:meth:`~models.learning.offset.ShrinkageChoice.excluding`).
+with two or more labelled night groups (:func:`~models.learning.splits.fold_groups`: overlapping
+copies of a night are one group, scored and left out together); each participant's offset is then
+estimated from all their held-out margins. ``pooled+offset`` held-out figures
+(``PooledResult.offset_held_out``) use, for each labelled night, an offset fitted on the
+participant's nights *outside its group* with a penalty chosen without the participant and the
+participants linked to it (:meth:`~models.learning.offset.ShrinkageChoice.excluding`).
 """
 
 from __future__ import annotations
@@ -46,6 +51,7 @@ from .descriptors import DESCRIPTOR_NAMES, participant_descriptors
 from .held_out import HeldOutNight, night_metrics_table, summary_table
 from .offset import ShrinkageChoice, choose_shrinkage, estimate_offset
 from .rows import NightRows, iter_prepared, labelled_nights, study_seed
+from .splits import fold_groups, participant_groups
 from .tasks import Progress, Reporter, run_tasks
 from .threshold import youden_threshold
 from .tuning import booster_params
@@ -71,12 +77,12 @@ class PooledResult:
     shrinkage_search : ShrinkageChoice
         The penalty search (log-likelihood per candidate).
     offset_held_out : dict of str to list of HeldOutNight
-        Per participant with two or more labelled nights, ``pooled+offset`` predictions of each
-        labelled night (offset from the other nights).
+        Per participant with two or more labelled night groups, ``pooled+offset`` predictions of
+        each labelled night (offset from the nights outside its group).
     descriptors : dict of str to dict
         Per participant, the descriptors the model used.
     folds : dict of str to int
-        Outer fold of each participant with labelled nights.
+        Outer fold of each participant with labelled nights (linked participants share one).
     baselines : dict of str to float
         Per participant with labelled nights, the ``offset_baseline_`` of the fold model that
         predicted them (add it to their held-out margins to estimate offsets).
@@ -106,21 +112,27 @@ class PooledResult:
 
 
 class _Rows:
-    """Stacked pooled inputs: features + descriptors of every labelled in-bed epoch."""
+    """Stacked pooled inputs: features + descriptors of every labelled in-bed epoch.
 
-    def __init__(self, data: Mapping[str, list[NightRows]], descriptors: Mapping[str, Mapping[str, float]]) -> None:
+    ``owners`` holds each row's position in ``participants``, ``groups`` its participant group.
+    """
+
+    def __init__(self, data: Mapping[str, list[NightRows]], descriptors: Mapping[str, Mapping[str, float]],
+                 linked: Mapping[str, int]) -> None:
         self.participants = [pid for pid, rows in data.items() if any(r.labelled for r in rows)]
-        blocks, ys, groups = [], [], []
-        for g, pid in enumerate(self.participants):
+        blocks, ys, owners, groups = [], [], [], []
+        for k, pid in enumerate(self.participants):
             desc = np.array([descriptors[pid][n] for n in DESCRIPTOR_NAMES], dtype=np.float32)
             for r in data[pid]:
                 if r.labelled:
                     X = r.features.values[r.rows]
                     blocks.append(np.hstack([X, np.broadcast_to(desc, (X.shape[0], desc.size))]))
                     ys.append(r.reference[r.rows])  # type: ignore[index]
-                    groups.append(np.full(r.rows.size, g))
+                    owners.append(np.full(r.rows.size, k))
+                    groups.append(np.full(r.rows.size, linked[pid]))
         self.X = np.vstack(blocks)
         self.y = np.concatenate(ys)
+        self.owners = np.concatenate(owners)
         self.groups = np.concatenate(groups)
 
 
@@ -169,8 +181,9 @@ def _fit(rows: _Rows, train_idx: NDArray[np.intp], *, config: TrainingConfig, se
         feature_config=config.features, feature_version=feature_version, feature_names=feature_names,
         params=hp | {"n_rounds": n_rounds, "scale_pos_weight": params["scale_pos_weight"], "pca_variance": 0.0},
         n_rounds=n_rounds, descriptor_names=DESCRIPTOR_NAMES, training_nights=training_nights,
-        info={"seed": seed, "n_fit_participants": int(np.unique(rows.groups[fit_idx]).size),
-              "n_validation_participants": int(np.unique(rows.groups[val_idx]).size),
+        info={"seed": seed, "n_fit_participants": int(np.unique(rows.owners[fit_idx]).size),
+              "n_validation_participants": int(np.unique(rows.owners[val_idx]).size),
+              "validation_participants": [rows.participants[o] for o in np.unique(rows.owners[val_idx])],
               "libraries": library_versions()})
 
 
@@ -180,7 +193,7 @@ def _held_out(model: SleepModel, r: NightRows, descriptors: Mapping[str, float],
         margin = model.decision_function(r.night, descriptors=descriptors, features=r.features)
     p = expit(margin + offset)
     return HeldOutNight(participant_id=r.night.participant_id, night_hash=r.night.content_hash, label=r.night.label,
-                        method=method, p_sleep=p, sleep=(p >= model.threshold_).astype(np.int8),
+                        method=method, p_sleep=p, sleep=model.calls(p),
                         reference=r.reference, in_bed=r.night.in_bed, threshold=model.threshold_, offset=offset,
                         margin=margin)
 
@@ -192,13 +205,21 @@ def _margins(held: list[HeldOutNight], rows: list[NightRows], baseline: float) -
             for h, r in zip(held, rows, strict=True)]
 
 
+def _by_group(pairs: list[tuple[NDArray[np.float64], NDArray[np.float64]]],
+              groups: list[int]) -> list[tuple[NDArray[np.float64], NDArray[np.float64]]]:
+    """The nights' (margin, reference) pairs joined per night group, in order of first night."""
+    return [(np.concatenate([m for (m, _), g in zip(pairs, groups, strict=True) if g == group]),
+             np.concatenate([y for (_, y), g in zip(pairs, groups, strict=True) if g == group]))
+            for group in dict.fromkeys(groups)]
+
+
 def _offset_held_out(held: list[HeldOutNight], rows: list[NightRows],
-                     pairs: list[tuple[NDArray[np.float64], NDArray[np.float64]]],
+                     pairs: list[tuple[NDArray[np.float64], NDArray[np.float64]]], groups: list[int],
                      model: SleepModel, shrinkage: float) -> list[HeldOutNight]:
-    """``pooled+offset`` for each labelled night: offset fitted on the participant's other nights."""
+    """``pooled+offset`` for each labelled night: offset fitted on the participant's nights outside its group."""
     out = []
     for k, (h, r) in enumerate(zip(held, rows, strict=True)):
-        rest = [pair for i, pair in enumerate(pairs) if i != k]
+        rest = [pair for i, pair in enumerate(pairs) if groups[i] != groups[k]]
         b = estimate_offset(np.concatenate([m for m, _ in rest]), np.concatenate([y for _, y in rest]),
                             shrinkage=shrinkage)
         out.append(_held_out(model, r, {}, method="pooled+offset", offset=b, margin=h.margin))
@@ -229,19 +250,22 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     Raises
     ------
     TrainingDataError
-        If fewer than three participants have labelled nights (code ``too_few_participants``) or
-        the nights mix epoch lengths.
+        If fewer than three participants have labelled nights (code ``too_few_participants``;
+        participants sharing a night count once) or the nights mix epoch lengths.
     """
     pids = sorted(nights)
     descriptors = {pid: participant_descriptors(list(nights[pid])) for pid in pids}
     labelled = {pid: labelled_nights(list(nights[pid]), config) for pid in pids}
     flat = [n for pid in pids for n in labelled[pid]]
-    n_labelled_pids = sum(bool(v) for v in labelled.values())
-    if n_labelled_pids < 3:
+    linked = participant_groups({pid: labelled[pid] for pid in pids if labelled[pid]})
+    n_labelled_pids, n_groups = len(linked), len(set(linked.values()))
+    if n_groups < 3:
+        shared = f" ({n_labelled_pids} participants, those sharing a night counted once)" \
+            if n_groups < n_labelled_pids else ""
         raise TrainingDataError(
-            f"a pooled model needs labelled nights of at least 3 participants, got {n_labelled_pids}",
+            f"a pooled model needs labelled nights of at least 3 participants, got {n_groups}{shared}",
             code="too_few_participants")
-    n_folds = min(config.pooled_folds, n_labelled_pids)
+    n_folds = min(config.pooled_folds, n_groups)
     total = len(flat) + n_folds + 1
     data: dict[str, list[NightRows]] = {pid: [] for pid in pids}
     for done, r in enumerate(iter_prepared(flat, config, feature_cache=feature_cache, n_jobs=config.n_jobs), start=1):
@@ -249,10 +273,10 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
         if progress is not None:
             progress(done, total, "pooled: features")
     prepared = [r for pid in pids for r in data[pid]]
-    rows = _Rows(data, descriptors)
+    rows = _Rows(data, descriptors, linked)
     feature_names, feature_version = tuple(prepared[0].features.names), prepared[0].features.version
     folds = list(GroupKFold(n_splits=n_folds).split(rows.X, rows.y, rows.groups))
-    fold_of = {rows.participants[g]: k for k, (_, test) in enumerate(folds) for g in np.unique(rows.groups[test])}
+    fold_of = {rows.participants[o]: k for k, (_, test) in enumerate(folds) for o in np.unique(rows.owners[test])}
 
     def fit_task(k: int) -> Any:
         def run(reporter: Reporter) -> SleepModel:
@@ -272,12 +296,18 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     held_out = {pid: [_held_out(fitted[fold_of[pid]], r, descriptors[pid]) for r in data[pid]] for pid in pids}
     baselines = {pid: fitted[k].offset_baseline_ for pid, k in fold_of.items()}
     pairs = {pid: _margins(held_out[pid], data[pid], baselines[pid]) for pid in pids if data[pid]}
-    search = choose_shrinkage(pairs, grid=config.shrinkage_grid)
+    night_groups = {pid: fold_groups([r.night for r in data[pid]]) for pid in pairs}
+    grouped = {pid: _by_group(pairs[pid], night_groups[pid]) for pid in pairs}
+    search = choose_shrinkage(grouped, grid=config.shrinkage_grid)
     offsets = {pid: estimate_offset(np.concatenate([m for m, _ in pairs[pid]]),
                                     np.concatenate([y for _, y in pairs[pid]]), shrinkage=search.shrinkage)
                if pid in pairs else 0.0 for pid in pids}
-    offset_held_out = {pid: _offset_held_out(held_out[pid], data[pid], pairs[pid], fitted[fold_of[pid]],
-                                             search.excluding(pid)) for pid in pairs if len(pairs[pid]) >= 2}
+    def linked_to(pid: str) -> list[str]:
+        return [q for q in linked if q != pid and linked[q] == linked[pid]]
+
+    offset_held_out = {pid: _offset_held_out(held_out[pid], data[pid], pairs[pid], night_groups[pid],
+                                             fitted[fold_of[pid]], search.excluding(pid, linked=linked_to(pid)))
+                       for pid in pairs if len(grouped[pid]) >= 2}
     everything = [h for pid in pids for h in held_out[pid]] + [h for v in offset_held_out.values() for h in v]
     night_metrics = night_metrics_table(everything)
     summary = night_metrics.groupby("method", sort=False).apply(summary_table)

@@ -1,8 +1,9 @@
 """Training rows of nights: whole-night features, reference and the in-bed scored epochs, plus study seeds.
 
-Training rows are the in-bed epochs (``night.in_bed``) whose reference is scored; features are
-always computed on the whole night first and then sliced, so a window near lights-off still sees
-the epochs before it.
+Training rows are the in-bed epochs (``night.in_bed``) whose reference is scored and whose counts
+are present: a missing epoch (NaN counts) is never trained on, never validated on and never seen
+by a threshold or an offset, whatever its reference says. Features are always computed on the
+whole night first and then sliced, so a window near lights-off still sees the epochs before it.
 """
 
 from __future__ import annotations
@@ -34,7 +35,7 @@ class NightRows:
     reference : ndarray of float64, shape (n_epochs,) or None
         1 sleep, 0 wake, NaN unscored.
     rows : ndarray of int
-        In-bed epochs with a scored reference (empty for an unlabelled night).
+        In-bed epochs with a scored reference and present counts (empty for an unlabelled night).
     """
 
     night: Night
@@ -48,11 +49,12 @@ class NightRows:
 
 
 def labelled_nights(nights: Sequence[Night], config: TrainingConfig) -> list[Night]:
-    """Nights with at least one scored in-bed reference epoch, in chronological order."""
+    """Nights with at least one in-bed epoch that has a scored reference and counts, in chronological order."""
     out = []
     for night in nights:
         ref = night.reference_sleep(movement_time=config.movement_time)
-        if ref is not None and not np.isnan(ref[slice(*night.in_bed)]).all():
+        bed = slice(*night.in_bed)
+        if ref is not None and (~np.isnan(ref[bed]) & ~night.missing[bed]).any():
             out.append(night)
     return sorted(out, key=lambda n: n.start)
 
@@ -85,7 +87,8 @@ def iter_prepared(nights: Sequence[Night], config: TrainingConfig, *, feature_ca
     for night, features in zip(nights, features_of, strict=True):
         ref = night.reference_sleep(movement_time=config.movement_time)
         first, stop = night.in_bed
-        rows = np.zeros(0, dtype=np.intp) if ref is None else first + np.flatnonzero(~np.isnan(ref[first:stop]))
+        rows = (np.zeros(0, dtype=np.intp) if ref is None
+                else first + np.flatnonzero(~np.isnan(ref[first:stop]) & ~night.missing[first:stop]))
         yield NightRows(night=night, features=features, reference=ref, rows=rows)
 
 

@@ -6,10 +6,13 @@ For every labelled night the comparison holds, next to the PSG reference:
 method            where its predictions come from
 ================  ==========================================================================
 personal          the participant's own model, tuned and trained without that night
-                  (participants with ``min_personal_nights`` labelled nights or more)
-pooled            the pooled model of the fold that left the participant out
-pooled+offset     the same, shifted by an offset fitted on the participant's other labelled
-                  nights (participants with two labelled nights or more)
+                  (participants with ``min_personal_nights`` labelled night groups or more;
+                  overlapping copies of a night are one group, held out together)
+pooled            the pooled model of the fold that left the participant out (and every
+                  participant sharing a night with them)
+pooled+offset     the same, shifted by an offset fitted on the participant's labelled nights
+                  outside the night's group (participants with two labelled night groups
+                  or more)
 cole-kripke,      the classical rules with default options (:mod:`models.scoring.rules`)
 sadeh,
 count-threshold
@@ -18,7 +21,8 @@ always-sleep      the baseline that calls every epoch sleep
 
 Each night is compared with its reference by :func:`held_out_comparison` (the one comparison of
 :func:`models.agreement.comparison.compare_night`: epoch metrics on the in-bed epochs, sleep parameters
-with the reference's unscored epochs masked on both sides) and the nights are tabulated by
+with the reference's unscored epochs and the night's missing epochs masked on both sides; every
+method leaves missing epochs unscored) and the nights are tabulated by
 :func:`models.agreement.comparison.comparison_tables` (Bland-Altman across all nights).
 """
 
@@ -42,9 +46,10 @@ from ..scoring.rules import score_with_rule
 from .config import TrainingConfig, TrainingDataError
 from .held_out import HeldOutNight
 from .method_choice import MODEL_METHODS, choose_method
-from .personal import PersonalResult, train_personal
+from .personal import PersonalResult, personal_studies, train_personal
 from .pooled import PooledResult, train_pooled
 from .rows import labelled_nights
+from .splits import participant_groups
 from .tasks import Progress
 
 __all__ = ["COMPARED_RULES", "StudyComparison", "compare_study", "held_out_comparison"]
@@ -164,7 +169,7 @@ def held_out_comparison(night: Night, held_out: Mapping[str, HeldOutNight], *, p
                          epoch_seconds=night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop,
                          parameter_options=parameter_options,
                          participant_id=night.participant_id if participant_id is None else participant_id,
-                         night_id=night.night_id, label=night.label)
+                         night_id=night.night_id, label=night.label, missing=night.missing)
 
 
 def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfig = TrainingConfig(),
@@ -200,10 +205,12 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
     feature_cache = FeatureCache() if feature_cache is None else feature_cache
     pids = sorted(nights)
     labelled = {pid: labelled_nights(list(nights[pid]), config) for pid in pids}
-    personal_pids = [pid for pid in pids if len(labelled[pid]) >= config.min_personal_nights]
+    studies = {pid: personal_studies(list(nights[pid]), config) for pid in pids}
+    personal_pids = [pid for pid in pids if studies[pid] >= config.min_personal_nights]
     n_lab = sum(len(v) for v in labelled.values())
-    pooled_total = n_lab + min(config.pooled_folds, sum(bool(v) for v in labelled.values())) + 1
-    personal_totals = {pid: (len(labelled[pid]) + 1) * (config.n_trials + 1) for pid in personal_pids}
+    n_groups = len(set(participant_groups({pid: labelled[pid] for pid in pids if labelled[pid]}).values()))
+    pooled_total = n_lab + min(config.pooled_folds, n_groups) + 1
+    personal_totals = {pid: (studies[pid] + 1) * (config.n_trials + 1) for pid in personal_pids}
     stages = _Stages(progress, pooled_total + sum(personal_totals.values()))
     pooled = train_pooled(nights, config=config, progress=stages.part(pooled_total), feature_cache=feature_cache)
     personal = {pid: train_personal(nights[pid], config=config, progress=stages.part(personal_totals[pid]),
@@ -219,14 +226,14 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
                                          movement_time=config.movement_time, rule_options=rule_options,
                                          parameter_options=parameter_options) for night in labelled[pid]]
     tables = comparison_tables(compared)
-    participants, notes = _participants(pids, nights, labelled, pooled, tables.epoch_metrics, config)
+    participants, notes = _participants(pids, nights, labelled, studies, pooled, tables.epoch_metrics, config)
     return StudyComparison(epoch_metrics=tables.epoch_metrics, parameters=tables.parameters,
                            parameter_errors=tables.parameter_errors, bland_altman=tables.bland_altman,
                            participants=participants, personal=personal, pooled=pooled, notes=notes)
 
 
 def _participants(pids: list[str], nights: Mapping[str, Sequence[Night]], labelled: Mapping[str, list[Night]],
-                  pooled: PooledResult, epoch_metrics: pd.DataFrame,
+                  studies: Mapping[str, int], pooled: PooledResult, epoch_metrics: pd.DataFrame,
                   config: TrainingConfig) -> tuple[pd.DataFrame, list[str]]:
     night_rows = epoch_metrics[epoch_metrics["level"] == "night"]
     rows, notes = [], []
@@ -234,14 +241,16 @@ def _participants(pids: list[str], nights: Mapping[str, Sequence[Night]], labell
         mine = night_rows[night_rows["participant_id"] == pid]
         models = mine[mine["method"].isin(MODEL_METHODS)]
         method, reason = choose_method(models, policy=config.choice_policy)
-        n_lab = len(labelled[pid])
+        n_lab, n_groups = len(labelled[pid]), studies[pid]
+        copies = " (overlapping copies of a night counted once)" if n_groups < n_lab else ""
         if n_lab == 0:
             notes.append(f"{pid}: no labelled night, so no held-out figures; the pooled model applies with offset 0")
-        elif n_lab == 1:
-            notes.append(f"{pid}: 1 labelled night, so no held-out pooled+offset figure (the offset needs another "
-                         "labelled night to be scored on)")
-        if 0 < n_lab < config.min_personal_nights:
-            notes.append(f"{pid}: {n_lab} labelled night(s) < {config.min_personal_nights}, so no personal model")
+        elif n_groups == 1:
+            notes.append(f"{pid}: 1 labelled night{copies}, so no held-out pooled+offset figure (the offset needs "
+                         "another labelled night to be scored on)")
+        if 0 < n_groups < config.min_personal_nights:
+            notes.append(f"{pid}: {n_groups} labelled night(s){copies} < {config.min_personal_nights}, so no personal "
+                         "model")
         means = mine.groupby("method")["balanced_accuracy"].mean()
         rows.append({"participant_id": pid, "n_nights": len(nights[pid]), "n_labelled_nights": n_lab}
                     | {f"{m}_balanced_accuracy": float(means.get(m, np.nan)) for m in (*MODEL_METHODS, *COMPARED_RULES)}

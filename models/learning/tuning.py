@@ -29,7 +29,9 @@ inner split and Optuna's median pruner stops trials that fall below the median o
 trials at the same split (never before ``pruning_warmup_splits`` splits are done).
 
 Inner splits are :class:`~models.learning.splits.ForwardChainedSplit` over the nights in chronological
-order: train on the earliest nights, validate on the next. With two nights there is a single
+order: train on the earliest nights, validate on the next. The unit is a night group
+(:func:`~models.learning.splits.fold_groups`): nights overlapping in clock time are validated
+together and never train a model validated on one of them. With two nights there is a single
 split (train on the first, validate on the second): the trial score is that one AUC, pruning saves
 nothing (a trial below the median is only marked pruned), and the threshold comes from that one
 validation night.
@@ -55,7 +57,7 @@ from sklearn.metrics import roc_auc_score
 from .classifier import Projection
 from .config import TrainingConfig
 from .rows import NightRows
-from .splits import ForwardChainedSplit
+from .splits import ForwardChainedSplit, fold_groups
 from .tasks import Reporter
 from .threshold import youden_threshold
 
@@ -136,7 +138,9 @@ class _InnerData:
         order = sorted(range(len(nights)), key=lambda i: nights[i].night.start)
         self.X = np.vstack([nights[i].features.values[nights[i].rows] for i in order])
         self.y = np.concatenate([nights[i].reference[nights[i].rows] for i in order])  # type: ignore[index]
-        groups = np.concatenate([np.full(nights[i].rows.size, rank) for rank, i in enumerate(order)])
+        # group numbers follow each group's first night in start order, so they sort chronologically
+        rank = fold_groups([nights[i].night for i in order])
+        groups = np.concatenate([np.full(nights[i].rows.size, rank[k]) for k, i in enumerate(order)])
         self.splits = list(ForwardChainedSplit().split(self.X, self.y, groups))
         self.config = config
         self._cache: dict[tuple[int, float], tuple[xgb.QuantileDMatrix, xgb.DMatrix]] = {}

@@ -10,12 +10,21 @@ All durations are in minutes and all latencies are measured from lights-off. Epo
 
 Unscored epochs
 ---------------
-Epochs with NaN (unscored, artefact, excluded) inside the in-bed interval are skipped: they are
-counted in ``unscored_epochs`` and are neither sleep nor wake. TST and WASO count scored epochs
-only, the sleep-efficiency denominator is the *scored* time in bed, wake bouts and sleep runs
-are formed from the scored epochs in order (an unscored epoch neither ends nor splits a bout),
-while latencies and SPT are clock intervals (they include unscored epochs that fall inside
-them).
+Epochs with NaN inside the in-bed interval are *unscored*: an unscored reference epoch
+(artefact, "?"), an epoch a method could not score because its counts are missing (gap
+filling), or one masked so that both sides of a comparison cover the same epochs. They are
+counted in ``unscored_epochs`` and are neither sleep nor wake:
+
+- TST and WASO count scored epochs only, and the sleep-efficiency denominator is the *scored*
+  time in bed (``100 * TST / (time in bed - unscored time)``), so a night with a block of
+  unscored epochs has the TST, WASO and efficiency of the same night with that block cut out;
+- wake bouts and sleep runs are formed from the scored epochs in order: an unscored epoch
+  neither ends, splits nor creates a bout (wake, unscored, wake is one bout of two epochs), so
+  the awakening count, mean and longest awakening and the persistent-sleep run also equal those
+  of the night with the unscored epochs cut out;
+- latencies and SPT are clock intervals: SOL is the clock time from lights-off to the first
+  *scored* sleep epoch and SPT runs from it to the end of the last scored sleep epoch; unscored
+  epochs inside them count as time (they are not removed from the clock).
 """
 
 from __future__ import annotations
@@ -109,7 +118,8 @@ def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: in
     Parameters
     ----------
     sleep : array-like of shape (n_epochs,)
-        1 = sleep, 0 = wake, NaN = unscored (integer and bool arrays are accepted).
+        1 = sleep, 0 = wake, NaN = unscored (see "Unscored epochs" in the module docstring);
+        integer and bool arrays are accepted.
     epoch_seconds : {15, 30, 60}
         Epoch length in seconds.
     lights_off_idx : int, default=0

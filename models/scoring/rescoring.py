@@ -143,7 +143,7 @@ def run_lengths(values: NDArray[np.generic]) -> tuple[NDArray[np.intp], NDArray[
     return starts, lengths, values[starts]
 
 
-def webster_rescore(sleep: ArrayLike, epoch_seconds: int) -> NDArray[np.int8]:
+def webster_rescore(sleep: ArrayLike, epoch_seconds: int) -> NDArray[np.float64]:
     """Apply Webster's five rescoring rules to any sleep/wake sequence.
 
     Rules (Webster et al. 1982 as restated by Cole et al. 1992, from memory), in minutes:
@@ -157,20 +157,20 @@ def webster_rescore(sleep: ArrayLike, epoch_seconds: int) -> NDArray[np.int8]:
     Parameters
     ----------
     sleep : array-like of shape (n_epochs,)
-        1 = sleep, 0 = wake (no NaN).
+        1 = sleep, 0 = wake, NaN = unscored.
     epoch_seconds : {15, 30, 60}
         Epoch length; each duration above becomes ``minutes * 60 / epoch_seconds`` epochs
         (4 min = 8 epochs of 30 s).
 
     Returns
     -------
-    sleep : ndarray of int8, shape (n_epochs,)
-        The rescored sequence.
+    sleep : ndarray of float64, shape (n_epochs,)
+        The rescored sequence (1.0 / 0.0), NaN where the input is unscored.
 
     Raises
     ------
     InvalidSleepVectorError
-        If ``sleep`` holds anything other than 0/1.
+        If ``sleep`` holds anything other than 0, 1 or NaN.
     UnsupportedEpochLengthError
         If ``epoch_seconds`` is not 15, 30 or 60.
 
@@ -183,13 +183,31 @@ def webster_rescore(sleep: ArrayLike, epoch_seconds: int) -> NDArray[np.int8]:
     start or end of the recording has no wake on that side, so rules 4-5 do not apply to it.
     Where rules 1-3 overlap, the longest rescoring applies, capped at the sleep run's length.
 
+    Unscored epochs (NaN, e.g. missing counts) stay unscored and are skipped: the rules read the
+    runs of the *scored* epochs in order, so wake on both sides of an unscored stretch is one
+    wake run and an unscored stretch neither ends nor starts a run (the convention of
+    :func:`models.scoring.parameters.sleep_parameters`). The result equals rescoring the
+    sequence with its unscored epochs removed, then putting them back.
+
     Examples
     --------
     >>> webster_rescore([0, 0, 0, 0, 1, 1], 60).tolist()
-    [0, 0, 0, 0, 0, 1]
+    [0.0, 0.0, 0.0, 0.0, 0.0, 1.0]
+    >>> webster_rescore([0, 0, np.nan, 0, 0, 1, 1], 60).tolist()
+    [0.0, 0.0, nan, 0.0, 0.0, 0.0, 1.0]
     """
-    x = as_sleep_vector(sleep, allow_unscored=False).astype(np.int8)
+    values = as_sleep_vector(sleep, allow_unscored=True)
     per_min = 60 // check_epoch_seconds(epoch_seconds)
+    unscored = np.isnan(values)
+    if not unscored.any():
+        return _webster_scored(values.astype(np.int8), per_min).astype(np.float64)
+    out = np.full(values.size, np.nan)
+    out[~unscored] = _webster_scored(values[~unscored].astype(np.int8), per_min)
+    return out
+
+
+def _webster_scored(x: NDArray[np.int8], per_min: int) -> NDArray[np.int8]:
+    """Webster's rules on a sequence of scored epochs (0/1 only), ``per_min`` epochs per minute."""
     _, lengths, vals = run_lengths(x)
     if lengths.size < 2:
         return x

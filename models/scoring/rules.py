@@ -1,24 +1,44 @@
 """Classical count rules for sleep/wake scoring, behind one interface and one registry.
 
-Every rule maps activity counts (one value per epoch) to a per-epoch call (1 = sleep, 0 = wake,
-int8) and a continuous score oriented so that **higher = more likely sleep** (usable for ROC AUC
-and as a model input). Method ids: ``cole-kripke``, ``sadeh``, ``count-threshold``, each also
-with a ``+webster`` suffix (Webster rescoring of the calls, :func:`models.scoring.rescoring.webster_rescore`;
-the score is left unchanged).
+Every rule maps activity counts (one value per epoch) to a per-epoch call (1.0 = sleep, 0.0 =
+wake, NaN = unscored, float64) and a continuous score oriented so that **higher = more likely
+sleep** (usable for ROC AUC and as a model input; NaN where the call is unscored). Method ids:
+``cole-kripke``, ``sadeh``, ``count-threshold``, each also with a ``+webster`` suffix (Webster
+rescoring of the calls, :func:`models.scoring.rescoring.webster_rescore`; the score is left
+unchanged).
 
 Shared input handling
 ---------------------
-- Non-finite counts (NaN for missing or gap-filled epochs, and +/-inf) are treated as 0 counts,
-  and negative counts as 0; the rules never fail on them (the night checks report such epochs).
+- Missing epochs (NaN counts, as gap filling leaves them; +/-inf is treated the same way) are
+  **unscored**: their call and score are NaN, and Webster rescoring leaves them unscored.
+  Negative counts count as 0. The rules never fail on such values (the night checks report them).
 - ``count_scale`` multiplies the counts before any rule (a per-study factor to bring a device's
   counts to the scale the coefficients were fitted on; default 1).
 - Windows that run past either end of the recording see zero counts (zero-padding: common
   practice, from memory; the published descriptions leave edges unspecified).
 - Cole-Kripke and Sadeh are 1-minute rules: 15-s and 30-s counts are summed into minutes
   (minute k = epochs ``k*m .. k*m+m-1`` with ``m = 60 / epoch_seconds``, aligned on the first
-  epoch), scored, and each minute's call and score are copied back to its epochs. A trailing
-  partial minute is completed with zero counts, exactly like missing epochs.
+  epoch), scored, and each minute's call and score are copied back to its present epochs. A
+  trailing partial minute is completed with zero counts (as past the end of the recording).
 - The weighted count-threshold rule works on the native epochs with an explicit weight table.
+
+Windows over missing epochs
+---------------------------
+A present epoch is always scored, however many of its neighbours are missing; missing data
+are left out of its window, never read as zero counts (which would call them still, hence
+sleep). Our convention (common practice for weighted windows, no published source):
+
+- a minute with some missing epochs is estimated from its present epochs, their sum scaled to
+  the whole minute (``sum * m / n_present``); a minute with none is *missing*;
+- the weights of a window are renormalised over its present minutes (epochs, for the count
+  threshold): ``D = P * sum_present W_k A[t+k] * sum_all W / sum_present W`` for Cole-Kripke,
+  the same for the count threshold's ``TA``; Sadeh's MEAN and NAT are taken over the present
+  minutes and scaled to the 11-minute window (``MEAN = sum / n_present``,
+  ``NAT = 11 * n_nat / n_present``) and SD is the sample SD of the present minutes among
+  t-5 .. t (0 with fewer than two).
+
+The epoch itself is present, so its own minute always is and every window keeps at least one
+present value. On a recording without missing epochs every value is exactly as before.
 
 Add a rule by writing one :class:`CountRule` subclass and adding it to :data:`RULES`.
 """
@@ -33,6 +53,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from ..errors import NightbankError
+from ._windows import calls_of, clean_counts, minute_counts, present_weight, to_epochs, window_sum
 from .rescoring import check_epoch_seconds, webster_rescore
 
 __all__ = [
@@ -93,41 +114,23 @@ class RuleScoring:
 
     Attributes
     ----------
-    sleep : ndarray of int8, shape (n_epochs,)
-        1 = sleep, 0 = wake.
+    sleep : ndarray of float64, shape (n_epochs,)
+        1.0 = sleep, 0.0 = wake, NaN = unscored (a missing epoch).
     score : ndarray of float64, shape (n_epochs,), or None
-        The rule's continuous score, higher = more likely sleep (before any Webster rescoring);
-        None for a rule without one.
+        The rule's continuous score, higher = more likely sleep (before any Webster rescoring),
+        NaN where ``sleep`` is unscored; None for a rule without one.
     method : str
         The method id used, e.g. ``"cole-kripke+webster"``.
     """
 
-    sleep: NDArray[np.int8]
+    sleep: NDArray[np.float64]
     score: NDArray[np.float64] | None
     method: str
 
-
-def _minute_counts(counts: NDArray[np.float64], epoch_seconds: int) -> NDArray[np.float64]:
-    """Sum epochs into minutes; a trailing partial minute is completed with zeros."""
-    per_min = 60 // epoch_seconds
-    if per_min == 1:
-        return counts
-    short = -counts.size % per_min
-    full = np.concatenate((counts, np.zeros(short))) if short else counts
-    total = full[0::per_min].copy()
-    for offset in range(1, per_min):  # at most 4 strided slices, not a loop over epochs
-        total += full[offset::per_min]
-    return total
-
-
-def _to_epochs(per_minute: NDArray[np.float64], epoch_seconds: int, n_epochs: int) -> NDArray[np.float64]:
-    per_min = 60 // epoch_seconds
-    return per_minute if per_min == 1 else np.repeat(per_minute, per_min)[:n_epochs]
-
-
-def _window_sum(x: NDArray[np.float64], before: int, after: int) -> NDArray[np.float64]:
-    """Sum of ``x[t-before .. t+after]`` for every t, values outside ``x`` counting as zero."""
-    return np.convolve(x, np.ones(before + after + 1), mode="full")[after:after + x.size]
+    @property
+    def unscored(self) -> NDArray[np.bool_]:
+        """Boolean mask, shape (n_epochs,): epochs left unscored (missing counts)."""
+        return np.isnan(self.sleep)
 
 
 class CountRule(abc.ABC):
@@ -143,20 +146,26 @@ class CountRule(abc.ABC):
     score_name: ClassVar[str]
 
     @abc.abstractmethod
-    def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
+    def apply(self, counts: NDArray[np.float64], epoch_seconds: int, *,
+              missing: NDArray[np.bool_] | None = None) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         """Score clean counts.
 
         Parameters
         ----------
         counts : ndarray of float64, shape (n_epochs,)
-            Finite, non-negative counts per epoch, already multiplied by the count scale.
+            Finite, non-negative counts per epoch, already multiplied by the count scale (0 at
+            missing epochs).
         epoch_seconds : {15, 30, 60}
+        missing : ndarray of bool, shape (n_epochs,), default=None
+            Epochs without counts (see "Windows over missing epochs" in the module docstring);
+            None = every epoch present.
 
         Returns
         -------
-        sleep : ndarray of int8, shape (n_epochs,)
+        sleep : ndarray of float64, shape (n_epochs,)
+            1.0 = sleep, 0.0 = wake, NaN at missing epochs.
         score : ndarray of float64, shape (n_epochs,)
-            Higher = more likely sleep.
+            Higher = more likely sleep; NaN at missing epochs.
         """
 
 
@@ -185,13 +194,19 @@ class ColeKripke(CountRule):
                 f"unknown Cole-Kripke coefficient set {coefficients!r}; use one of {sorted(COLE_KRIPKE_COEFFICIENTS)}")
         self.coefficients = coefficients
 
-    def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
+    def apply(self, counts: NDArray[np.float64], epoch_seconds: int, *,
+              missing: NDArray[np.bool_] | None = None) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         scale, weights = COLE_KRIPKE_COEFFICIENTS[self.coefficients]
-        minutes = _minute_counts(counts, epoch_seconds)
+        missing = np.zeros(counts.size, dtype=bool) if missing is None else missing
+        minutes, minute_missing = minute_counts(counts, missing, epoch_seconds)
+        w = np.asarray(weights, dtype=np.float64)
         padded = np.concatenate((np.zeros(4), minutes, np.zeros(2)))
-        d = scale * np.correlate(padded, np.asarray(weights, dtype=np.float64), mode="valid")
-        score = _to_epochs(1.0 - d, epoch_seconds, counts.size)
-        return (score > 0).astype(np.int8), score
+        d = scale * np.correlate(padded, w, mode="valid")
+        if minute_missing.any():  # weights renormalised over the present minutes
+            present = present_weight(minute_missing, w, before=4)
+            d = np.divide(d * w.sum(), present, out=np.full_like(d, np.nan), where=present > 0)
+        score = to_epochs(1.0 - d, epoch_seconds, counts.size)
+        return calls_of(score > 0, score, missing)
 
 
 class Sadeh(CountRule):
@@ -208,15 +223,24 @@ class Sadeh(CountRule):
     method_id = "sadeh"
     score_name = "sadeh_score"
 
-    def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
-        a = _minute_counts(counts, epoch_seconds)
-        mean = _window_sum(a, 5, 5) / 11.0
-        nat = _window_sum(((a >= 50) & (a < 100)).astype(np.float64), 5, 5)
-        s1, s2 = _window_sum(a, 5, 0), _window_sum(a * a, 5, 0)  # trailing 6-minute sums
-        sd = np.sqrt(np.maximum(s2 - s1 * s1 / 6.0, 0.0) / 5.0)
+    def apply(self, counts: NDArray[np.float64], epoch_seconds: int, *,
+              missing: NDArray[np.bool_] | None = None) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        missing = np.zeros(counts.size, dtype=bool) if missing is None else missing
+        a, minute_missing = minute_counts(counts, missing, epoch_seconds)
+        lost = minute_missing.astype(np.float64)
+        n_centred = 11.0 - window_sum(lost, 5, 5)  # present minutes of t-5 .. t+5 (11 without missing ones)
+        n_trailing = 6.0 - window_sum(lost, 5, 0)  # present minutes of t-5 .. t (6 without missing ones)
+        nat_minutes = (a >= 50) & (a < 100) & ~minute_missing
+        with np.errstate(divide="ignore", invalid="ignore"):  # a minute without present neighbours is missing
+            mean = window_sum(a, 5, 5) / n_centred
+            nat = window_sum(nat_minutes.astype(np.float64), 5, 5)
+            nat = np.where(n_centred == 11.0, nat, nat * 11.0 / n_centred)
+            s1, s2 = window_sum(a, 5, 0), window_sum(a * a, 5, 0)  # trailing sums of the present minutes
+            sd = np.where(n_trailing >= 2.0,
+                          np.sqrt(np.maximum(s2 - s1 * s1 / n_trailing, 0.0) / (n_trailing - 1.0)), 0.0)
         ps = 7.601 - 0.065 * mean - 1.08 * nat - 0.056 * sd - 0.703 * np.log1p(a)
-        score = _to_epochs(ps, epoch_seconds, counts.size)
-        return (score >= 0).astype(np.int8), score
+        score = to_epochs(ps, epoch_seconds, counts.size)
+        return calls_of(score >= 0, score, missing)
 
 
 class CountThreshold(CountRule):
@@ -249,14 +273,25 @@ class CountThreshold(CountRule):
         self.threshold = float(threshold)
         self.convention = convention
 
-    def apply(self, counts: NDArray[np.float64], epoch_seconds: int) -> tuple[NDArray[np.int8], NDArray[np.float64]]:
+    def apply(self, counts: NDArray[np.float64], epoch_seconds: int, *,
+              missing: NDArray[np.bool_] | None = None) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         # every weight is a multiple of 1/25: the sum with whole-number weights 25 * w is exact for whole
         # counts, so an epoch with TA equal to the threshold is sleep, not left to rounding
         weights_25 = np.round(np.asarray(COUNT_THRESHOLD_WEIGHTS[(self.convention, epoch_seconds)]) * 25.0)
         half = weights_25.size // 2  # weights are symmetric, so convolution = correlation
         ta_25 = np.convolve(counts, weights_25)[half:half + counts.size]
-        score = self.threshold - ta_25 / 25.0
-        return (ta_25 <= self.threshold * 25.0).astype(np.int8), score
+        sleep = ta_25 <= self.threshold * 25.0
+        if missing is None or not missing.any():
+            return calls_of(sleep, self.threshold - ta_25 / 25.0, missing)
+        # weights renormalised over the present epochs: TA = ta * total / present; compared as
+        # ta * total <= threshold * present, exact in whole numbers for whole counts
+        total_25 = float(weights_25.sum())
+        present_25 = present_weight(missing, weights_25, before=half)
+        renormalised = present_25 < total_25
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ta = np.where(renormalised, ta_25 * total_25 / present_25, ta_25) / 25.0
+        sleep = np.where(renormalised, ta_25 * total_25 <= self.threshold * 25.0 * present_25, sleep)
+        return calls_of(sleep, self.threshold - ta, missing)
 
 
 #: Registry of count rules keyed by base method id.
@@ -265,14 +300,10 @@ RULES: dict[str, type[CountRule]] = {rule.method_id: rule for rule in (ColeKripk
 METHOD_IDS: tuple[str, ...] = tuple(m for base in RULES for m in (base, base + WEBSTER_SUFFIX))
 
 
-def _clean_counts(counts: ArrayLike, count_scale: float) -> NDArray[np.float64]:
-    a = np.asarray(counts, dtype=np.float64)
-    if a.ndim != 1:
-        raise NightbankError(f"counts must be 1-D, got shape {a.shape}", code="invalid_counts")
+def _clean(counts: ArrayLike, count_scale: float) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
     if not np.isfinite(count_scale) or count_scale <= 0:
         raise InvalidRuleOptionError(f"count_scale must be a positive number, got {count_scale!r}")
-    clean = np.where(np.isfinite(a) & (a > 0), a, 0.0)
-    return clean * count_scale if count_scale != 1.0 else clean
+    return clean_counts(counts, count_scale)
 
 
 def _make_rule(base: str, options: dict[str, float | str]) -> CountRule:
@@ -289,7 +320,7 @@ def score_with_rule(counts: ArrayLike, epoch_seconds: int, method: str, *, count
     Parameters
     ----------
     counts : array-like of shape (n_epochs,)
-        Activity counts per epoch; NaN (missing) and negative values count as 0.
+        Activity counts per epoch; NaN (missing) epochs are unscored, negative values count as 0.
     epoch_seconds : {15, 30, 60}
         Epoch length in seconds.
     method : str
@@ -302,7 +333,8 @@ def score_with_rule(counts: ArrayLike, epoch_seconds: int, method: str, *, count
     Returns
     -------
     RuleScoring
-        ``sleep`` (int8, 1 = sleep), ``score`` (higher = more likely sleep) and ``method``.
+        ``sleep`` (float64: 1 = sleep, 0 = wake, NaN = unscored), ``score`` (higher = more likely
+        sleep; NaN where unscored) and ``method``.
 
     Raises
     ------
@@ -316,17 +348,19 @@ def score_with_rule(counts: ArrayLike, epoch_seconds: int, method: str, *, count
     Examples
     --------
     >>> score_with_rule([0, 0, 500, 0, 0], 60, "count-threshold").sleep.tolist()
-    [1, 0, 0, 0, 1]
+    [1.0, 0.0, 0.0, 0.0, 1.0]
+    >>> score_with_rule([0, 0, float("nan"), 0, 0], 60, "count-threshold").sleep.tolist()
+    [1.0, 1.0, nan, 1.0, 1.0]
     """
     base, _, suffix = method.partition("+")
     if base not in RULES or suffix not in ("", WEBSTER_SUFFIX[1:]):
         raise UnknownMethodError(f"unknown method {method!r}; valid methods: {', '.join(METHOD_IDS)}")
     epoch_seconds = check_epoch_seconds(epoch_seconds)
     rule = _make_rule(base, rule_options)
-    clean = _clean_counts(counts, count_scale)
+    clean, missing = _clean(counts, count_scale)
     if clean.size == 0:
-        return RuleScoring(sleep=np.zeros(0, dtype=np.int8), score=np.zeros(0), method=method)
-    sleep, score = rule.apply(clean, epoch_seconds)
+        return RuleScoring(sleep=np.zeros(0), score=np.zeros(0), method=method)
+    sleep, score = rule.apply(clean, epoch_seconds, missing=missing)
     if suffix:
         sleep = webster_rescore(sleep, epoch_seconds)
     return RuleScoring(sleep=sleep, score=score, method=method)
@@ -339,7 +373,7 @@ def continuous_scores(counts: ArrayLike, epoch_seconds: int, *,
     Parameters
     ----------
     counts : array-like of shape (n_epochs,)
-        Activity counts per epoch; NaN and negative values count as 0.
+        Activity counts per epoch; NaN marks a missing epoch, negative values count as 0.
     epoch_seconds : {15, 30, 60}
     count_scale : float, default=1.0
 
@@ -347,10 +381,10 @@ def continuous_scores(counts: ArrayLike, epoch_seconds: int, *,
     -------
     scores : dict of str to ndarray of float64, shape (n_epochs,)
         Keyed by each rule's ``score_name`` (``cole_kripke_score``, ``sadeh_score``,
-        ``count_threshold_score``); higher = more likely sleep.
+        ``count_threshold_score``); higher = more likely sleep; NaN at missing epochs.
     """
     epoch_seconds = check_epoch_seconds(epoch_seconds)
-    clean = _clean_counts(counts, count_scale)
+    clean, missing = _clean(counts, count_scale)
     if clean.size == 0:
         return {rule.score_name: np.zeros(0) for rule in RULES.values()}
-    return {rule.score_name: rule().apply(clean, epoch_seconds)[1] for rule in RULES.values()}
+    return {rule.score_name: rule().apply(clean, epoch_seconds, missing=missing)[1] for rule in RULES.values()}

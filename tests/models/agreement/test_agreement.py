@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from sklearn.metrics import balanced_accuracy_score
 from statsmodels.graphics.agreement import mean_diff_plot
 
 from models.agreement.bland_altman import BLAND_ALTMAN_PARAMETERS, REFERENCE, bland_altman, bland_altman_table
@@ -192,3 +193,27 @@ def test_compare_rules_rejects_mismatched_lengths():
     night = NightRecord("p", "n", np.ones(10), np.zeros(9), 30)
     with pytest.raises(InvalidSleepVectorError):
         compare_rules_with_reference([night])
+
+
+def test_compare_rules_leaves_epochs_without_counts_out_of_every_method():
+    records = _records(seed=3)
+    night = records[0]
+    counts = night.counts.copy()
+    counts[200:230] = np.nan  # 30 epochs without counts, in bed
+    gapped = NightRecord(night.participant_id, night.night_id, night.reference, counts, 30,
+                         lights_off_idx=night.lights_off_idx, lights_on_idx=night.lights_on_idx)
+    report = compare_rules_with_reference([gapped], methods=["cole-kripke", "sadeh+webster"])
+    rows = report.epoch_metrics.query("level == 'night'").set_index("method")
+    bed = slice(night.lights_off_idx, night.lights_on_idx)
+    present = ~np.isnan(counts[bed]) & ~np.isnan(night.reference[bed])
+    assert (rows["n_epochs"] == present.sum()).all() and (rows["unscored_epochs"] == 30).all()
+    assert (rows["excluded_epochs"] == 34).all()  # 4 unscored by the reference, 30 without counts
+    # scikit-learn on the epochs both sides scored (sleep is the positive class)
+    scored = score_with_rule(counts, 30, "cole-kripke")
+    y, p = night.reference[bed][present].astype(int), scored.sleep[bed][present].astype(int)
+    assert rows.loc["cole-kripke", "balanced_accuracy"] == pytest.approx(balanced_accuracy_score(y, p))
+    params = report.parameters.set_index("method")
+    assert (params["unscored_epochs"] == 34).all()  # the same epochs on every side, the reference included
+    # TST of each side: its sleep epochs among the compared epochs x 0.5 min (AASM, Iber et al. 2007, from memory)
+    assert params.loc[REFERENCE, "tst_min"] == (night.reference[bed][present] == 1).sum() * 0.5
+    assert params.loc["cole-kripke", "tst_min"] == (scored.sleep[bed][present] == 1).sum() * 0.5

@@ -118,3 +118,59 @@ def test_bad_sides_and_intervals_are_refused() -> None:
         compare_night(reference, {"m": (np.ones(10), np.ones(8))}, epoch_seconds=30)
     with pytest.raises(InvalidInBedIntervalError):
         compare_night(reference, {"m": (np.ones(10), None)}, epoch_seconds=30, lights_off_idx=4, lights_on_idx=2)
+
+
+# ---------------------------------------------------------------------------------------------
+# Epochs without counts: no method scores them, so they leave every side of the comparison
+
+
+def _night_with_gap(seed: int):
+    reference, sleep, score = _random_night(seed)
+    missing = np.zeros(reference.size, dtype=bool)
+    missing[120:150] = True  # 30 epochs without counts, all in bed
+    calls = np.where(missing, NAN, sleep.astype(float))
+    return reference, calls, np.where(missing, NAN, score), missing
+
+
+def test_epoch_metrics_leave_out_missing_epochs_like_scikit_learn_on_the_present_ones() -> None:
+    reference, calls, score, missing = _night_with_gap(4)
+    first, stop = 20, 270
+    out = compare_night(reference, {"m": (calls, score), "always-sleep": (np.ones(reference.size), None)},
+                        epoch_seconds=30, lights_off_idx=first, lights_on_idx=stop)
+    bed = slice(first, stop)
+    ref_bed, calls_bed, score_bed, gap = reference[bed], calls[bed], score[bed], missing[bed]
+    keep = ~np.isnan(ref_bed) & ~gap  # scored by the reference and with counts
+    y, p = ref_bed[keep].astype(int), calls_bed[keep].astype(int)
+    m = out.epoch_metrics["m"]
+    assert m["n_epochs"] == keep.sum() and m["unscored_epochs"] == 30 and m["excluded_epochs"] == (~keep).sum()
+    assert m["balanced_accuracy"] == pytest.approx(balanced_accuracy_score(y, p))  # scikit-learn, present epochs
+    assert m["kappa"] == pytest.approx(cohen_kappa_score(y, p))
+    assert m["auc"] == pytest.approx(roc_auc_score(y, score_bed[keep]))
+    # the baseline calls every epoch sleep, but is compared on the same epochs as the method
+    base = out.epoch_metrics["always-sleep"]
+    assert base["n_epochs"] == m["n_epochs"] and base["unscored_epochs"] == 30
+    assert base["sensitivity"] == 1.0 and base["accuracy"] == pytest.approx(y.mean())
+
+
+def test_missing_epochs_are_masked_on_both_sides_of_the_parameters() -> None:
+    reference, calls, _, missing = _night_with_gap(5)
+    first, stop = 20, 270
+    out = compare_night(reference, {"m": (calls, None)}, epoch_seconds=30, lights_off_idx=first, lights_on_idx=stop)
+    alone = compare_night(reference, {}, epoch_seconds=30, lights_off_idx=first, lights_on_idx=stop, missing=missing)
+    # AASM TST (Iber et al. 2007, from memory): sleep epochs x 0.5 min, here over the reference epochs that are scored
+    # and have counts (pandas drops the NaN)
+    ref_bed = pd.Series(np.where(missing, NAN, reference)[first:stop]).dropna()
+    assert out.reference_parameters.tst_min == alone.reference_parameters.tst_min == (ref_bed == 1).sum() * 0.5
+    unscored = int((np.isnan(reference) | missing)[first:stop].sum())
+    assert out.reference_parameters.unscored_epochs == out.parameters["m"].unscored_epochs == unscored
+    own = pd.Series(calls[first:stop]).where(~np.isnan(reference[first:stop])).dropna()
+    assert out.parameters["m"].tst_min == (own == 1).sum() * 0.5
+    assert out.differences["m"]["tst_min"] == out.parameters["m"].tst_min - out.reference_parameters.tst_min
+    # without the mask the reference would also count its sleep inside the gap
+    unmasked = compare_night(reference, {}, epoch_seconds=30, lights_off_idx=first, lights_on_idx=stop)
+    assert unmasked.reference_parameters.tst_min > out.reference_parameters.tst_min
+
+
+def test_missing_must_cover_the_recording() -> None:
+    with pytest.raises(InvalidSleepVectorError):
+        compare_night(np.ones(10), {}, epoch_seconds=30, missing=np.zeros(9, dtype=bool))

@@ -134,6 +134,19 @@ def test_nan_reference_epochs_are_excluded_and_counted():
     assert (got["n_epochs"], got["excluded_epochs"]) == (4, 2)
 
 
+def test_unscored_predicted_epochs_are_excluded_and_counted():
+    # a method leaves epochs without counts unscored (NaN): they leave the confusion, whatever the reference says
+    y = np.array([1, np.nan, 0, 1, 0, 1, 0, 1])
+    p = np.array([1, 0, np.nan, 0, np.nan, 1, 0, np.nan])
+    s = np.array([0.9, 0.2, np.nan, 0.4, np.nan, 0.8, 0.1, np.nan])
+    got = epoch_agreement(y, p, score=s)
+    keep = ~np.isnan(y) & ~np.isnan(p)
+    expected = _sklearn(y[keep].astype(int), p[keep].astype(int), s[keep])  # scikit-learn on the compared epochs
+    for name, value in expected.items():
+        assert got[name] == pytest.approx(value), name
+    assert (got["n_epochs"], got["excluded_epochs"], got["unscored_epochs"]) == (4, 4, 3)
+
+
 def test_everything_excluded_gives_nan_without_warning():
     got = _no_warning_agreement([np.nan, np.nan], [1, 0])
     assert _nan_names(got) == set(EPOCH_METRIC_NAMES) and got["n_epochs"] == 0
@@ -145,7 +158,7 @@ def test_auc_needs_finite_scores():
 
 
 @pytest.mark.parametrize(("ref", "pred", "score"), [
-    ([1, 0], [1, 0, 1], None), ([1, 0], [1, 0], [0.1]), ([1, 0], [1, np.nan], None), ([1, 2], [1, 0], None)])
+    ([1, 0], [1, 0, 1], None), ([1, 0], [1, 0], [0.1]), ([1, 0], [1, 0.5], None), ([1, 2], [1, 0], None)])
 def test_invalid_inputs(ref, pred, score):
     with pytest.raises(InvalidSleepVectorError) as info:
         epoch_agreement(ref, pred, score=score)
@@ -169,9 +182,9 @@ def _nights():
 def test_agreement_table_levels_are_labelled_and_consistent():
     nights = _nights()
     table = agreement_table(nights)
-    assert list(table.columns[:8]) == ["level", "method", "participant_id", "night_id", "statistic", "n_nights",
-                                       "n_epochs", "excluded_epochs"]
-    assert list(table.columns[8:]) == list(EPOCH_METRIC_NAMES)
+    assert list(table.columns[:9]) == ["level", "method", "participant_id", "night_id", "statistic", "n_nights",
+                                       "n_epochs", "excluded_epochs", "unscored_epochs"]
+    assert list(table.columns[9:]) == list(EPOCH_METRIC_NAMES)
     night = table[table.level == "night"]
     assert len(night) == 12 and set(night.statistic) == {"value"}
     participant = table[table.level == "participant"].set_index(["method", "participant_id", "statistic"])

@@ -225,6 +225,27 @@ def test_rule_scores_are_the_rules_continuous_scores():
         np.testing.assert_array_equal(_column(fm, f"rule_{key}"), expected)
 
 
+def test_rule_scores_beside_a_gap_do_not_read_it_as_stillness():
+    # steady 30 counts per minute: Cole-Kripke wake (D = 1e-5 * 30 * 4035 > 1, Cole et al. 1992, from memory);
+    # read as zeros, the gap would pull the epochs beside it under the wake level
+    x = np.full(300, 15.0)
+    x[140:170] = np.nan
+    fm = compute_features(x, 30, config=FeatureConfig(families=("rules",)))
+    zeros = compute_features(np.nan_to_num(x), 30, config=FeatureConfig(families=("rules",)))
+    beside = [136, 137, 138, 139, 170, 171, 172, 173]
+    assert (_column(fm, "rule_cole_kripke_score")[beside] < 0).all()  # score = 1 - D: wake
+    assert (_column(zeros, "rule_cole_kripke_score")[beside] > 0).any()
+
+
+def test_a_missing_epochs_row_still_looks_predictable():
+    # window features of a missing epoch come from its observed neighbours, so its row is not all NaN and a
+    # booster would return a number for it: the models discard predictions of missing epochs themselves
+    x = _night(300, 5)
+    x[150] = np.nan
+    row = compute_features(x, 30).values[150]
+    assert np.isfinite(row).sum() > row.size // 2
+
+
 def test_night_normalisers_are_numpy_percentiles():
     x = _night(300, 6)
     x[:5] = np.nan

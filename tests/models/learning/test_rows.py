@@ -33,3 +33,16 @@ def test_training_rows_are_scored_in_bed_epochs_of_whole_night_features() -> Non
     assert rows.rows.tolist() == [4, 5, 6, 7, 8, 9] + list(range(10, 40, 2))
     expected = compute_features(night.counts, 30, lights_off_epoch=4, lights_on_epoch=40)
     np.testing.assert_array_equal(rows.features.values, expected.values)
+
+
+def test_training_rows_leave_out_epochs_without_counts() -> None:
+    night = _night(["W"] * 10 + ["N2"] * 30)
+    counts = night.counts.copy()
+    counts[[3, 12, 13, 14, 39]] = np.nan  # missing epochs, whatever their reference says
+    gapped = Night("P", night.start, 30, counts, reference=night.reference)
+    (rows,) = prepare_nights([gapped], TrainingConfig(), feature_cache=FeatureCache())
+    assert rows.rows.tolist() == [i for i in range(40) if i not in (3, 12, 13, 14, 39)]
+    # a night whose only scored epochs have no counts is not labelled
+    blank = np.where(np.arange(40) < 10, np.nan, counts)
+    only_missing_scored = Night("P", night.start, 30, blank, reference=np.array(["W"] * 10 + ["?"] * 30))
+    assert labelled_nights([only_missing_scored], TrainingConfig()) == []

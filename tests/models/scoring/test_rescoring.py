@@ -70,7 +70,7 @@ def test_webster_hand_made_sequences(name, epoch_seconds):
     expected = _seq(*after, epoch_seconds=epoch_seconds)
     result = webster_rescore(sleep, epoch_seconds)
     np.testing.assert_array_equal(result, expected)
-    assert result.dtype == np.int8
+    assert result.dtype == np.float64  # 1.0 / 0.0, NaN where unscored
 
 
 def test_webster_does_not_modify_its_input():
@@ -94,7 +94,7 @@ def test_webster_accepts_bool_and_float_sequences():
     np.testing.assert_array_equal(webster_rescore(sleep.astype(float), 60), expected)
 
 
-@pytest.mark.parametrize("bad", [[0, 1, np.nan], [0, 2, 1], [[0, 1]], ["S", "W"]])
+@pytest.mark.parametrize("bad", [[0, 1, 0.5], [0, 2, 1], [[0, 1]], ["S", "W"]])
 def test_webster_rejects_non_binary_sequences(bad):
     with pytest.raises(InvalidSleepVectorError) as info:
         webster_rescore(np.asarray(bad), 30)

@@ -77,7 +77,7 @@ def test_cole_kripke_single_burst_shows_each_weight():
     d = [350 * 200e-5, 508 * 200e-5, 1408 * 200e-5, 441 * 200e-5, 326 * 200e-5, 598 * 200e-5, 404 * 200e-5, 0.0]
     assert result.score == pytest.approx([1 - v for v in d])
     assert result.sleep.tolist() == [1, 0, 0, 1, 1, 0, 1, 1]  # wake where W * 200e-5 >= 1: 508, 1408, 598
-    assert result.sleep.dtype == np.int8
+    assert result.sleep.dtype == np.float64  # 1.0 / 0.0, NaN where unscored
 
 
 def test_cole_kripke_mean_1min_coefficients():
@@ -275,12 +275,14 @@ def test_count_threshold_exact_tie_is_sleep():
 
 
 @pytest.mark.parametrize("method", METHOD_IDS)
-def test_missing_and_negative_counts_count_as_zero(method):
+def test_negative_counts_count_as_zero_and_non_finite_counts_are_unscored(method):
     counts = np.array([0, 5, np.nan, 300, -4, np.inf, 20, 0, 0, 0, 0, 0, 0, 0])
-    cleaned = np.array([0, 5, 0, 300, 0, 0, 20, 0, 0, 0, 0, 0, 0, 0], dtype=float)
-    a, b = _rule(counts, 30, method), _rule(cleaned, 30, method)
+    a = _rule(counts, 30, method)
+    b = _rule(np.where(counts == -4, 0.0, counts), 30, method)
     np.testing.assert_array_equal(a.sleep, b.sleep)
-    np.testing.assert_allclose(a.score, b.score)
+    np.testing.assert_array_equal(a.score, b.score)
+    assert np.isnan(a.sleep[[2, 5]]).all() and np.isnan(a.score[[2, 5]]).all()
+    assert not np.isnan(np.delete(a.sleep, [2, 5])).any()
 
 
 @pytest.mark.parametrize("method", METHOD_IDS)
@@ -328,7 +330,9 @@ def test_more_activity_never_raises_linear_scores(base, extra):
 def test_rules_never_fail_on_arbitrary_counts(counts, epoch_seconds, method):
     result = _rule(counts, epoch_seconds, method)
     assert result.sleep.shape == result.score.shape == counts.shape
-    assert np.isfinite(result.score).all()
+    present = np.isfinite(counts)
+    assert np.isfinite(result.score[present]).all() and np.isin(result.sleep[present], [0.0, 1.0]).all()
+    assert np.isnan(result.score[~present]).all() and np.isnan(result.sleep[~present]).all()
 
 
 def test_continuous_scores_match_each_rule():
