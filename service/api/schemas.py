@@ -180,7 +180,7 @@ class ScoringOut(BaseModel):
     n_epochs: int
     in_bed: list[int] = Field(description="[first, stop) epoch indices of the in-bed interval")
     p_sleep: list[float | None] | None = Field(description="probability of sleep per epoch; null for rules")
-    sleep: list[int]
+    sleep: list[int | None] = Field(description="1 = sleep, 0 = wake, null = unscored (no counts)")
     parameters: dict[str, float | int | None]
     agreement: dict[str, Any] | None
     offset: float | None = Field(default=None, description="log-odds offset applied (model methods)")

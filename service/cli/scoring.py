@@ -60,8 +60,8 @@ def score(
     out: dict[str, Any] = {"file": str(file), "method": method, "epoch_seconds": night.epoch_seconds,
                            "start": night.start.isoformat(), "parameters": params}
     if epochs:
-        out["sleep"] = result.sleep.astype(int).tolist()
-        out["score"] = None if result.score is None else np.round(result.score, 6).tolist()
+        out["sleep"] = [None if np.isnan(v) else int(v) for v in result.sleep]  # None: unscored (no counts)
+        out["score"] = None if result.score is None else [_clean(v) for v in np.round(result.score, 6).tolist()]
     if as_json:
         console.print_json(json.dumps(out))
         return
@@ -75,7 +75,7 @@ def score(
     if epochs:
         times = night.epoch_times()
         for i, s in enumerate(out["sleep"]):
-            console.print(f"{times[i].isoformat()}\t{night.counts[i]:g}\t{'S' if s else 'W'}")
+            console.print(f"{times[i].isoformat()}\t{night.counts[i]:g}\t{'?' if s is None else 'S' if s else 'W'}")
 
 
 @app.command()

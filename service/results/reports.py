@@ -73,7 +73,7 @@ def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str
         if reference is not None and night.has_reference:
             first, stop = night.in_bed
             params = compare_night(reference, {}, epoch_seconds=night.epoch_seconds, lights_off_idx=first,
-                                   lights_on_idx=stop).reference_parameters.as_dict()
+                                   lights_on_idx=stop, missing=night.missing).reference_parameters.as_dict()
             rows.append(ids | {"method": "reference", "model_version": None}
                         | json_record({k: params[k] for k in PARAMETER_NAMES}))
         for method in EXPORT_METHODS:

@@ -61,6 +61,9 @@ from ..store.snapshots import ParticipantInfo, StudyInfo
 __all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
 
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
+#: part of every cache key: bump when a stored scoring body would now come out differently
+#: (2: epochs without counts are unscored, ``null``, instead of sleep or wake)
+SCORING_REVISION = "s2"
 
 
 @dataclass(frozen=True)
@@ -144,7 +147,7 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
     -------
     body : dict
         ``method``, ``model_version``, ``epoch_seconds``, ``start``, ``n_epochs``, ``in_bed``,
-        ``p_sleep`` (None for rules), ``sleep`` (1 = sleep), ``parameters`` over the in-bed
+        ``p_sleep`` (None for rules), ``sleep`` (1 = sleep, None = unscored: no counts), ``parameters`` over the in-bed
         epochs, ``agreement`` with the reference (None without one; the night's
         :func:`models.compare_night`: epoch metrics, the reference's parameters, and method -
         reference differences with the reference's unscored epochs masked) and, for models,
@@ -156,26 +159,26 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         sleep, p_sleep, score = rule.sleep, None, rule.score
     else:
         p_sleep = model.predict_proba(night, offset=offset, descriptors=descriptors, features=features)
-        sleep = (p_sleep >= model.threshold_).astype(np.int8)
+        sleep = model.calls(p_sleep)  # NaN (unscored) where the night has no counts
         score = p_sleep
     params = sleep_parameters(sleep, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop).as_dict()
     agreement = None
     reference = night.reference_sleep()
     if reference is not None and night.has_reference:
         compared = compare_night(reference, {method: (sleep, score)}, epoch_seconds=night.epoch_seconds,
-                                 lights_off_idx=first, lights_on_idx=stop)
+                                 lights_off_idx=first, lights_on_idx=stop, missing=night.missing)
         reference_parameters = compared.reference_parameters.as_dict()
         agreement = {
             "epochs": json_record(compared.epoch_metrics[method]),
             "reference_parameters": json_record({k: reference_parameters[k] for k in PARAMETER_NAMES}),
             "differences": json_record(compared.differences[method]),
         }
-    body = {
+    body: dict[str, Any] = {
         "method": method, "model_version": version,
         "epoch_seconds": int(night.epoch_seconds), "start": night.start.isoformat(), "n_epochs": night.n_epochs,
         "in_bed": [int(first), int(stop)],
-        "p_sleep": None if p_sleep is None else np.round(p_sleep, 5).tolist(),
-        "sleep": sleep.astype(int).tolist(),
+        "p_sleep": None if p_sleep is None else [None if math.isnan(v) else v for v in np.round(p_sleep, 5).tolist()],
+        "sleep": [None if math.isnan(v) else int(v) for v in np.asarray(sleep, dtype=np.float64).tolist()],
         "parameters": json_record(params),
         "agreement": agreement,
     }
@@ -215,7 +218,7 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         offset, model = 0.0, None
         descriptors: Mapping[str, float | None] | None = None
         if resolved.version is None:
-            key = resolved.method
+            key = f"{SCORING_REVISION}:{resolved.method}"
         else:
             model = versions.load_model(session, resolved.version)
             if resolved.method == "pooled+offset":
@@ -224,7 +227,7 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
                 descriptors = (resolved.version.metadata.descriptors.get(participant_id)
                                or _descriptors(session, participant))
             inputs = json.dumps([resolved.method, offset, descriptors], sort_keys=True)
-            key = f"m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
+            key = f"{SCORING_REVISION}:m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
         cached = session.scalar(select(db.Scoring.body).where(db.Scoring.night_pk == row.pk,
                                                               db.Scoring.cache_key == key))
         if cached is not None:

@@ -61,7 +61,7 @@ class NightPanels:
     in_bed: tuple[int, int]
     stages: NDArray[np.str_] | None = None
     method: str | None = None
-    sleep: NDArray[np.integer[Any]] | None = None
+    sleep: NDArray[np.float64] | None = None  # 1 sleep, 0 wake, NaN unscored
     p_sleep: NDArray[np.float64] | None = None
     threshold: float | None = None
     disagree: NDArray[np.bool_] | None = None
@@ -136,7 +136,7 @@ def draw_night(fig: Figure, panels: NightPanels) -> None:
             ax.axhline(panels.threshold, color=GREY, linestyle=":", linewidth=0.9,
                        label=f"threshold {panels.threshold:.2f}")
         if panels.sleep is not None:
-            called = panels.sleep.astype(bool)
+            called = panels.sleep == 1  # unscored epochs (NaN) are not called sleep
             ax.fill_between(edges, _CALL_STRIP[0], _CALL_STRIP[1], where=np.append(called, called[-1]),
                             step="post", color=OKABE_ITO["blue"], linewidth=0, label=f"{label}: called sleep")
             ax.fill_between(edges, _CALL_STRIP[0], _CALL_STRIP[1], where=~np.append(called, called[-1]),

@@ -124,7 +124,8 @@ class NightView:
         first, stop = self.night.in_bed
         in_bed = np.zeros(self.night.n_epochs, dtype=bool)
         in_bed[first:stop] = True
-        return in_bed & np.isfinite(ref) & (np.asarray(body["sleep"]) != np.nan_to_num(ref, nan=-1))
+        calls = _calls(body["sleep"])
+        return in_bed & np.isfinite(ref) & np.isfinite(calls) & (calls != np.nan_to_num(ref, nan=-1))
 
     def panels(self) -> NightPanels:
         """Data of the night figure."""
@@ -134,7 +135,7 @@ class NightView:
             times=self.night.epoch_times(), epoch_seconds=self.night.epoch_seconds, counts=self.night.counts,
             in_bed=self.night.in_bed, stages=self.night.reference if self.night.has_reference else None,
             method=self.shown if body is not None else None,
-            sleep=None if body is None else np.asarray(body["sleep"], dtype=np.int8),
+            sleep=None if body is None else _calls(body["sleep"]),
             p_sleep=None if body is None or body.get("p_sleep") is None else np.asarray(body["p_sleep"], dtype=float),
             threshold=threshold, disagree=self.disagreement(),
             qc=[(int(a), int(b), flag["code"]) for flag in self.info.qc for a, b in flag["ranges"]])
@@ -147,7 +148,7 @@ class NightView:
             return None
         first, stop = self.night.in_bed
         return compare_night(ref, {}, epoch_seconds=self.night.epoch_seconds, lights_off_idx=first,
-                             lights_on_idx=stop).reference_parameters.as_dict()
+                             lights_on_idx=stop, missing=self.night.missing).reference_parameters.as_dict()
 
     def parameter_table(self) -> pd.DataFrame:
         """Parameters side by side: one row per parameter, one column for the reference and each method."""
@@ -276,3 +277,8 @@ def load_night_view(factory: sessionmaker[Session], *, study_id: str, participan
         if outcomes[method].body is None:
             notice = f"{style_of(method).label}: not available — {outcomes[method].unavailable}."
     return NightView(info=info, night=night, requested=method, shown=shown, outcomes=outcomes, notice=notice)
+
+
+def _calls(sleep: list[int | None]) -> np.ndarray:
+    """Per-epoch calls of a scoring body as floats: 1 sleep, 0 wake, NaN unscored (no counts)."""
+    return np.array([np.nan if v is None else v for v in sleep], dtype=np.float64)

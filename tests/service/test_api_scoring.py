@@ -72,3 +72,31 @@ def test_scoring_errors(http, study, admin, make_token) -> None:
     assert _score(http, admin, study, "ab" * 10, method="sadeh").status_code == 404
     ingest = bearer(make_token("ingest", study))
     assert _score(http, ingest, study, night_id, method="sadeh").status_code == 403
+
+
+def test_epochs_without_counts_are_unscored_in_the_answer_and_the_night_page(http, study, admin) -> None:
+    from models import night_from_json, night_to_csv
+
+    night = night_from_json(night_json(480, seed=7))
+    lines = night_to_csv(night).splitlines()
+    header_at = next(i for i, line in enumerate(lines) if not line.startswith("#"))
+    gap = range(200, 230)  # 30 epochs without a row: filled as missing on request
+    kept = [line for i, line in enumerate(lines) if i - header_at - 1 not in gap]
+    r = http.post(f"/v1/studies/{study}/participants/p1/nights", content="\n".join(kept) + "\n",
+                  params={"fill_gaps": "true"}, headers={**admin, "content-type": "text/csv"})
+    assert r.status_code == 201, r.text
+    night_id = r.json()["night_id"]
+    out = _score(http, admin, study, night_id, method="cole-kripke").json()
+    calls = out["sleep"]
+    assert [i for i, v in enumerate(calls) if v is None] == list(gap)
+    # TST = sleep epochs x epoch length (AASM scoring manual definition); unscored epochs are not sleep
+    first, stop = out["in_bed"]
+    assert out["parameters"]["tst_min"] == pytest.approx(sum(v == 1 for v in calls[first:stop]) * 30 / 60)
+    assert out["agreement"]["epochs"]["unscored_epochs"] >= len(gap)
+    import httpx
+
+    cookies = {"nightbank_ui": admin["Authorization"].removeprefix("Bearer ")}
+    page = f"/ui/studies/{study}/participants/p1/nights/{night_id}"
+    with httpx.Client(base_url=http.base_url, cookies=cookies) as browser:
+        for path in (page, page + "/figure.svg"):
+            assert browser.get(path).status_code == 200, path
