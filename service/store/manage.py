@@ -110,8 +110,9 @@ def delete_night(session: Session, *, study_id: str, participant_id: str, night_
     features = _count(session, db.NightFeatures, db.NightFeatures.night_pk == night_pk)
     _delete_nights(session, [night_pk])
     marked = versions.mark_deleted_night(session, study=study, content_hash=content_hash, night_id=night_id)
-    ids = dict(session.execute(select(db.Participant.pk, db.Participant.participant_id).where(
-        db.Participant.pk.in_([m["participant_pk"] for m in marked if m["participant_pk"] is not None]))))
+    owners = [m["participant_pk"] for m in marked if m["participant_pk"] is not None]
+    ids = {pk: pid for pk, pid in session.execute(select(db.Participant.pk, db.Participant.participant_id)
+                                                  .where(db.Participant.pk.in_(owners)))}
     out = {"night_id": night_id, "scorings": scorings, "features": features,
            "marked_versions": [{"kind": m["kind"], "participant_id": ids.get(m["participant_pk"]),
                                 "version": m["version"]} for m in marked]}

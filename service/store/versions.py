@@ -119,8 +119,9 @@ def next_version_number(session: Session, *, study_pk: int, key: str, floor: int
 
 
 def _highest(session: Session, study_pk: int, scope: str) -> int:
-    return session.scalar(select(func.max(db.ModelVersion.version)).where(
-        db.ModelVersion.study_pk == study_pk, db.ModelVersion.scope == scope)) or 0
+    """The highest stored version number of the scope (0 without one; numbers set aside while renumbering are < 0)."""
+    return max(session.scalar(select(func.max(db.ModelVersion.version)).where(
+        db.ModelVersion.study_pk == study_pk, db.ModelVersion.scope == scope)) or 0, 0)
 
 
 def _stored_hashes(session: Session, study_pk: int, hashes: set[str]) -> set[str]:
