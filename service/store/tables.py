@@ -101,7 +101,8 @@ class Night(Base):
     __tablename__ = "nights"
     __table_args__ = (UniqueConstraint("participant_pk", "content_hash", name="uq_night_content"),
                       UniqueConstraint("participant_pk", "night_id", name="uq_night_id"),
-                      Index("ix_nights_participant_start", "participant_pk", "start_utc"))
+                      Index("ix_nights_participant_start", "participant_pk", "start_utc"),
+                      Index("ix_nights_content_hash", "content_hash"))
 
     pk: Mapped[int] = mapped_column(Integer, primary_key=True)
     participant_pk: Mapped[int] = mapped_column(ForeignKey("participants.pk", ondelete="CASCADE"))

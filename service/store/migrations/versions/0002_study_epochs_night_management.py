@@ -4,7 +4,8 @@ Upgrades a 0001 database in place, keeping every row:
 
 - ``studies.epoch_seconds`` (existing studies: 30 s);
 - ``nights.end_utc`` (computed from ``start_utc``, ``n_epochs`` and ``epoch_seconds``),
-  ``nights.source_epoch_seconds`` (NULL: stored as posted) and ``nights.excluded`` (false);
+  ``nights.source_epoch_seconds`` (NULL: stored as posted) and ``nights.excluded`` (false), and
+  an index on ``nights.content_hash`` (the study-wide duplicate check);
 - ``model_versions.trained_on_deleted_nights`` (NULL: none deleted);
 - ``version_counters``, started at the highest stored version number of each numbering key;
 - ``import_profiles`` (empty).
@@ -72,6 +73,7 @@ def upgrade() -> None:
     _fill_night_ends(op.get_bind())
     with op.batch_alter_table('nights', schema=None) as batch_op:
         batch_op.alter_column('end_utc', existing_type=sa.DateTime(), nullable=False)
+        batch_op.create_index('ix_nights_content_hash', ['content_hash'], unique=False)
 
     with op.batch_alter_table('model_versions', schema=None) as batch_op:
         batch_op.add_column(sa.Column('trained_on_deleted_nights', sa.JSON(), nullable=True))
@@ -106,6 +108,7 @@ def downgrade() -> None:
     with op.batch_alter_table('model_versions', schema=None) as batch_op:
         batch_op.drop_column('trained_on_deleted_nights')
     with op.batch_alter_table('nights', schema=None) as batch_op:
+        batch_op.drop_index('ix_nights_content_hash')
         batch_op.drop_column('excluded')
         batch_op.drop_column('source_epoch_seconds')
         batch_op.drop_column('end_utc')
