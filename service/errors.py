@@ -16,6 +16,9 @@ Hierarchy (HTTP status, command-line exit code)::
         │   └── Incomplete                  422  1  a command failed for some of its items
         └── StorageError                    503  1  the database refused or is unreachable
 
+An error may carry ``problems`` (:class:`models.Problem`, each naming where with its
+``location``), listed in the problem response like the problems of an invalid night.
+
 The HTTP layer turns every one of them into ``application/problem+json``; the command line
 prints the code and message and exits with ``exit_code`` (:mod:`service.cli`, one handler, as
 click does with its ``ClickException.exit_code``); :mod:`service.client` raises the same classes
@@ -24,7 +27,9 @@ from problem responses. No FastAPI import here.
 
 from __future__ import annotations
 
-from models import NightbankError
+from collections.abc import Sequence
+
+from models import NightbankError, Problem
 
 __all__ = [
     "BadRequest",
@@ -53,6 +58,10 @@ class ServiceError(NightbankError):
     code = "service_error"
     status = 400
     exit_code = DEFAULT_EXIT_CODE
+
+    def __init__(self, message: str, *, code: str | None = None, problems: Sequence[Problem] = ()) -> None:
+        super().__init__(message, code=code)
+        self.problems = list(problems)
 
 
 class BadRequest(ServiceError):

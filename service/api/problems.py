@@ -1,7 +1,8 @@
 """Every error becomes ``application/problem+json`` (RFC 9457) with a stable ``code``.
 
 - :class:`models.NightbankError` (and the service errors built on it): the error's ``status``
-  (422 for science errors), its ``code`` and message; invalid nights list every problem.
+  (422 for science errors), its ``code`` and message; an error with ``problems`` (invalid
+  nights, invalid import profiles, ...) lists every one with its location.
 - Request validation: 422, ``code="invalid_request"``, one problem per field with its location.
 - Unknown route or method: 404 / 405.
 - Anything else: 500 with a request id and no traceback, SQL or internal detail.
@@ -66,7 +67,9 @@ def _location(loc: tuple[Any, ...] | list[Any]) -> dict[str, Any]:
 async def _nightbank_error(request: Request, exc: Exception) -> JSONResponse:
     assert isinstance(exc, NightbankError)
     status = int(getattr(exc, "status", 422))
-    problems = [p.to_dict() for p in exc.problems] if isinstance(exc, InvalidNightError) else None
+    found = getattr(exc, "problems", None)
+    listed = isinstance(exc, InvalidNightError) or (isinstance(found, list) and bool(found))
+    problems = [p.to_dict() for p in found] if listed and found is not None else None
     headers = {"WWW-Authenticate": "Bearer"} if status == 401 else None
     if status >= 500:
         log.error("request failed: %s (%s)", exc.code, type(exc).__name__)

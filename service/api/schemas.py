@@ -10,9 +10,10 @@ from pydantic import BaseModel, ConfigDict, Field
 from ..store.registry import ID_PATTERN
 
 __all__ = [
-    "JobAccepted", "JobOut", "ModelVersionOut", "NightAccepted", "NightIn", "NightOut", "Page", "ParticipantOut",
-    "Problem", "ProblemItem", "Progress", "QCFlagOut", "ScoringOut", "StudyIn", "StudyOut", "TokenCreated",
-    "TokenIn", "TokenOut", "TrainingIn",
+    "ImportProfileOut", "JobAccepted", "JobOut", "MarkedVersion", "ModelVersionOut", "NightAccepted", "NightDeleted",
+    "NightDetailOut", "NightIn", "NightOut", "NightPatch", "Page", "ParticipantOut", "Problem", "ProblemItem",
+    "Progress", "QCFlagOut", "RenameIn", "RenameOut", "RenumberedVersion", "ScoringOut", "StudyIn", "StudyOut",
+    "TokenCreated", "TokenIn", "TokenOut", "TrainingIn",
 ]
 
 T = TypeVar("T")
@@ -57,12 +58,36 @@ class Page(BaseModel, Generic[T]):
 class StudyIn(_Strict):
     study_id: str = Field(pattern=ID_PATTERN, examples=["gullwing"])
     name: str = Field(min_length=1, max_length=200)
+    epoch_seconds: Literal[30, 60] = Field(
+        default=30, description="epoch length of the study's stored nights, fixed for the study; nights of a "
+                                "shorter length that divides it are summed into it at ingest, others refused")
 
 
 class StudyOut(BaseModel):
     study_id: str
     name: str
+    epoch_seconds: int = Field(description="epoch length of every stored night of the study, seconds")
     created_at: datetime
+
+
+class RenameIn(_Strict):
+    to: str = Field(pattern=ID_PATTERN, description="the new participant id; an existing participant is merged into",
+                    examples=["P01"])
+
+
+class RenumberedVersion(BaseModel):
+    previous_version: int
+    version: int
+
+
+class RenameOut(BaseModel):
+    participant_id: str = Field(description="the id the participant has now")
+    previous_id: str
+    merged: bool = Field(description="true when a participant of the new id existed and was merged into")
+    nights_moved: int
+    duplicates_dropped: int = Field(description="nights dropped because the target already had the same content")
+    personal_versions: list[RenumberedVersion] = Field(
+        description="personal model versions, renumbered after the target's numbers")
 
 
 class ParticipantOut(BaseModel):
@@ -103,6 +128,9 @@ class NightAccepted(BaseModel):
     night_id: str
     created: bool = Field(description="false when the same content was already stored")
     qc: list[QCFlagOut]
+    epoch_seconds: int | None = Field(default=None, description="epoch length as stored (the study's)")
+    source_epoch_seconds: int | None = Field(
+        default=None, description="posted epoch length when the night was aggregated to the study's; else null")
 
 
 class NightOut(BaseModel):
@@ -119,6 +147,39 @@ class NightOut(BaseModel):
     qc: list[QCFlagOut]
     source_format: str
     created_at: datetime
+    source_epoch_seconds: int | None = Field(
+        description="posted epoch length when the night was aggregated to the study's at ingest; null: as posted")
+    excluded: bool = Field(description="left out of personal and pooled training")
+
+
+class NightDetailOut(NightOut):
+    """A night's metadata; with ``epochs=true`` also its arrays (``counts``, ``reference``)."""
+
+    counts: list[float | None] | None = Field(
+        default=None, description="with epochs=true: counts per epoch of epoch_seconds; null for missing epochs")
+    reference: list[str] | None = Field(
+        default=None, description="with epochs=true: reference stage code per epoch; null for an unlabelled night")
+
+
+class NightPatch(_Strict):
+    """Changes to a stored night; a field left out is kept."""
+
+    label: str | None = Field(default=None, max_length=200, description="the lab's label; null clears it")
+    excluded: bool | None = Field(default=None, description="leave the night out of training; null: unchanged")
+
+
+class MarkedVersion(BaseModel):
+    kind: str
+    participant_id: str | None = Field(description="owner of a personal version; null for pooled")
+    version: int
+
+
+class NightDeleted(BaseModel):
+    night_id: str
+    scorings: int = Field(description="cached scorings removed")
+    features: int = Field(description="stored feature matrices removed")
+    marked_versions: list[MarkedVersion] = Field(
+        description="model versions trained on the night: kept, with the night in trained_on_deleted_nights")
 
 
 # ---- training, jobs and versions ------------------------------------------------------------
@@ -169,6 +230,16 @@ class ModelVersionOut(BaseModel):
     hyperparameters: dict[str, Any]
     library_versions: dict[str, str]
     training_nights: list[dict[str, Any]]
+    trained_on_deleted_nights: list[str] = Field(
+        default_factory=list, description="ids of training nights deleted since; the version stays usable")
+
+
+# ---- import profiles ------------------------------------------------------------------------
+class ImportProfileOut(BaseModel):
+    name: str
+    profile: dict[str, Any] = Field(description="the profile's JSON form (fields that differ from their defaults)")
+    created_at: datetime
+    created_by: str = Field(description="token id that saved it")
 
 
 # ---- scoring --------------------------------------------------------------------------------

@@ -54,6 +54,7 @@ __all__ = [
     "finish_job",
     "get_job",
     "heartbeat",
+    "list_jobs",
     "release_job",
     "report_progress",
 ]
@@ -163,6 +164,23 @@ def get_job(session: Session, job_id: str) -> JobInfo:
         If there is no such job.
     """
     return _info(session, _row(session, job_id))
+
+
+def list_jobs(session: Session, *, study_pk: int, state: JobState | None = None, limit: int = 100,
+              offset: int = 0) -> tuple[list[JobInfo], int]:
+    """One page of a study's jobs, newest first (optionally in one state), and the total count."""
+    where = [db.Job.study_pk == study_pk] + ([] if state is None else [db.Job.state == state.value])
+    total = session.scalar(select(func.count()).select_from(db.Job).where(*where)) or 0
+    rows = session.execute(select(db.Job, db.Study.study_id, db.Participant.participant_id)
+                           .join(db.Study, db.Study.pk == db.Job.study_pk)
+                           .outerjoin(db.Participant, db.Participant.pk == db.Job.participant_pk)
+                           .where(*where).order_by(db.Job.created_at.desc(), db.Job.pk.desc())
+                           .limit(limit).offset(offset))
+    return [JobInfo(job_id=row.job_id, kind=row.kind, study_id=study_id, participant_id=pid,
+                    state=JobState(row.state), done=row.progress_done, total=row.progress_total,
+                    stage=row.progress_stage, params=dict(row.params), result=row.result, error=row.error,
+                    attempts=row.attempts, cancel_requested=row.cancel_requested, created_at=row.created_at,
+                    started_at=row.started_at, finished_at=row.finished_at) for row, study_id, pid in rows], int(total)
 
 
 def cancel_job(session: Session, job_id: str, *, actor: str) -> JobInfo:

@@ -4,6 +4,10 @@ The worker calls :func:`run_training_job`; the science (tuning, nested validatio
 personal-versus-pooled choice) is all in :mod:`models`. This module only moves data between the
 database and those functions and writes the registry record of the new version.
 
+Nights excluded from training (``nights.excluded``, set through the API) are not loaded for
+either training; every version records the nights it was trained on (``training_nights`` with
+their content hashes), which is what marks a version when one of them is deleted later.
+
 Training gets its night features from the database (:mod:`service.store.features`): the stored
 matrices are loaded in bulk and the missing ones computed here and stored, before the training
 call, which receives them as a :class:`models.PrecomputedFeatures` source and computes none.
@@ -99,10 +103,10 @@ def check_trainable(session: Session, *, participant: ParticipantInfo) -> None:
     """
     needed = TrainingConfig().min_personal_nights
     have = session.scalar(select(func.count()).select_from(db.Night).where(
-        db.Night.participant_pk == participant.pk, db.Night.labelled)) or 0
+        db.Night.participant_pk == participant.pk, db.Night.labelled, db.Night.excluded.is_(False))) or 0
     if have < needed:
-        raise Unprocessable(f"a personal model needs {needed} labelled nights; participant "
-                            f"{participant.participant_id!r} has {have}", code="too_few_labelled_nights")
+        raise Unprocessable(f"a personal model needs {needed} labelled nights not excluded from training; "
+                            f"participant {participant.participant_id!r} has {have}", code="too_few_labelled_nights")
 
 
 def queue_training(factory: sessionmaker[Session], *, study_id: str, participant_id: str | None,
@@ -222,7 +226,7 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
     with db.session_scope(factory) as session:
         study = find_study(session, job.study_id)
         participant = find_participant(session, study, job.participant_id)
-        nights = load_nights(session, participant=participant, labelled_only=True)
+        nights = load_nights(session, participant=participant, labelled_only=True, include_excluded=False)
         night_pks = _night_pks(session, study_pk=study.pk, nights=nights)
     progress(0, 1, "personal: loading nights")
     features = _training_features(factory, nights, night_pks, config=config.features, n_jobs=config.n_jobs,
@@ -248,8 +252,9 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
     config = _config(job, settings)
     with db.session_scope(factory) as session:
         study = find_study(session, job.study_id)
-        by_participant = {p.participant_id: load_nights(session, participant=p)
-                          for p in study_participants(session, study=study)}
+        loaded = {p.participant_id: load_nights(session, participant=p, include_excluded=False)
+                  for p in study_participants(session, study=study)}
+        by_participant = {pid: nights for pid, nights in loaded.items() if nights}
         labelled = [n for nights in by_participant.values() for n in nights if n.reference is not None]
         night_pks = _night_pks(session, study_pk=study.pk, nights=labelled)
     progress(0, 1, "pooled: loading nights")

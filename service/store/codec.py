@@ -60,6 +60,7 @@ def night_columns(night: Night) -> dict[str, Any]:
         "label": night.label,
         "start": _iso(night.start),
         "start_utc": night.start.tz_convert("UTC").to_pydatetime(),
+        "end_utc": night.end.tz_convert("UTC").to_pydatetime(),
         "epoch_seconds": int(night.epoch_seconds),
         "n_epochs": night.n_epochs,
         "lights_off": _iso(night.lights_off),

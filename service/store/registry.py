@@ -1,36 +1,48 @@
 """Studies, participants and nights in the database; every function returns frozen snapshots.
 
 Functions never return ORM rows, so callers cannot change stored state by accident: a change is
-a function of this package (:func:`record_choice`, :func:`delete_participant`, ...). Snapshots
-carry the database key ``pk`` for the other store functions. Writes add an audit entry in the
-same transaction.
+a function of this package (:func:`record_choice`, :func:`ingest_night`, the functions of
+:mod:`service.store.manage`, ...). Snapshots carry the database key ``pk`` for the other store
+functions. Writes add an audit entry in the same transaction. Ingest and its checks are in
+:mod:`service.store.ingest` (re-exported here).
 """
 
 from __future__ import annotations
 
 import dataclasses
-import re
 from typing import Any
 
-from sqlalchemy import delete, func, select, update
+from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
-from models import Night, quality_flags
+from models import Night
 
-from ..errors import BadRequest, Conflict, NotFound
+from ..errors import Conflict, NotFound, Unprocessable
 from . import db, versions
 from .audit import record_audit
-from .codec import night_columns, night_from_row
-from .snapshots import NightInfo, ParticipantInfo, ParticipantSummary, StudyInfo
+from .codec import night_from_row
+from .ingest import STUDY_EPOCH_SECONDS, conform_epochs, ingest_night, night_values
+from .snapshots import (
+    ID_PATTERN,
+    NightInfo,
+    ParticipantInfo,
+    ParticipantSummary,
+    StudyInfo,
+    check_id,
+    night_snapshot,
+    participant_snapshot,
+    study_snapshot,
+)
 
 __all__ = [
     "ID_PATTERN",
     "NightInfo",
     "ParticipantInfo",
     "ParticipantSummary",
+    "STUDY_EPOCH_SECONDS",
     "StudyInfo",
+    "conform_epochs",
     "create_study",
-    "delete_participant",
     "find_participant",
     "find_study",
     "get_night",
@@ -46,35 +58,6 @@ __all__ = [
     "study_participants",
     "study_snapshot",
 ]
-
-#: Study and participant ids: letters, digits, ``.``, ``_`` and ``-``; 1 to 64 characters.
-ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$"
-_ID = re.compile(ID_PATTERN)
-
-
-def _check_id(value: str, what: str) -> None:
-    if not _ID.match(value):
-        raise BadRequest(f"{what} {value!r} is not valid: use 1-64 letters, digits, '.', '_' or '-' "
-                         "starting with a letter or digit")
-
-
-def _night_info(row: db.Night, participant_id: str) -> NightInfo:
-    return NightInfo(night_id=row.night_id, participant_id=participant_id, content_hash=row.content_hash,
-                     label=row.label, start=row.start, epoch_seconds=row.epoch_seconds, n_epochs=row.n_epochs,
-                     lights_off=row.lights_off, lights_on=row.lights_on, labelled=row.labelled, qc=list(row.qc),
-                     source_format=row.source_format, created_at=row.created_at)
-
-
-def study_snapshot(row: db.Study) -> StudyInfo:
-    """The snapshot of a study row (for store queries that join rows themselves)."""
-    return StudyInfo(study_id=row.study_id, name=row.name, created_at=row.created_at, pk=row.pk)
-
-
-def participant_snapshot(row: db.Participant, study_id: str) -> ParticipantInfo:
-    """The snapshot of a participant row of study ``study_id``."""
-    return ParticipantInfo(participant_id=row.participant_id, study_id=study_id, created_at=row.created_at,
-                           chosen_method=row.chosen_method, choice=None if row.choice is None else dict(row.choice),
-                           pk=row.pk)
 
 
 def find_study(session: Session, study_id: str) -> StudyInfo:
@@ -121,22 +104,34 @@ def record_choice(session: Session, *, participant: ParticipantInfo, method: str
     return dataclasses.replace(participant, chosen_method=method, choice=None if choice is None else dict(choice))
 
 
-def create_study(session: Session, *, study_id: str, name: str, actor: str) -> StudyInfo:
+def create_study(session: Session, *, study_id: str, name: str, actor: str, epoch_seconds: int = 30) -> StudyInfo:
     """Create a study.
+
+    Parameters
+    ----------
+    epoch_seconds : int, default=30
+        Epoch length of the study's stored nights, one of :data:`STUDY_EPOCH_SECONDS`; fixed
+        for the study's life (nights of a shorter length that divides it are aggregated at ingest).
 
     Raises
     ------
     BadRequest
         If ``study_id`` is not a valid id.
+    Unprocessable
+        If ``epoch_seconds`` is not a study epoch length (code ``unsupported_study_epoch``).
     Conflict
         If the study exists already.
     """
-    _check_id(study_id, "study id")
+    check_id(study_id, "study id")
+    if epoch_seconds not in STUDY_EPOCH_SECONDS:
+        raise Unprocessable(f"epoch_seconds {epoch_seconds!r} is not a study epoch length; use one of "
+                         f"{list(STUDY_EPOCH_SECONDS)}", code="unsupported_study_epoch")
     if session.scalar(select(db.Study.pk).where(db.Study.study_id == study_id)) is not None:
         raise Conflict(f"study {study_id!r} exists already")
-    row = db.Study(study_id=study_id, name=name, created_at=db.utcnow())
+    row = db.Study(study_id=study_id, name=name, epoch_seconds=epoch_seconds, created_at=db.utcnow())
     session.add(row)
-    record_audit(session, actor=actor, action="study.create", study_id=study_id, subject=study_id)
+    record_audit(session, actor=actor, action="study.create", study_id=study_id, subject=study_id,
+                 detail={"epoch_seconds": epoch_seconds})
     session.flush()
     return study_snapshot(row)
 
@@ -158,73 +153,23 @@ def list_participants(session: Session, *, study_id: str, limit: int = 100,
     rows = list(session.scalars(select(db.Participant).where(db.Participant.study_pk == study.pk)
                                 .order_by(db.Participant.participant_id).limit(limit).offset(offset)))
     pks = [p.pk for p in rows]
-    nights: dict[int, list[tuple[str, bool]]] = {pk: [] for pk in pks}
-    for pk, content_hash, has_labels in session.execute(
-            select(db.Night.participant_pk, db.Night.content_hash, db.Night.labelled)
+    nights: dict[int, list[tuple[str, bool, bool]]] = {pk: [] for pk in pks}
+    for pk, content_hash, has_labels, excluded in session.execute(
+            select(db.Night.participant_pk, db.Night.content_hash, db.Night.labelled, db.Night.excluded)
             .where(db.Night.participant_pk.in_(pks))):
-        nights[pk].append((content_hash, has_labels))
+        nights[pk].append((content_hash, has_labels, excluded))
     active = versions.active_personal_versions(session, participant_pks=pks)
     out = []
     for p in rows:
-        labelled = {h for h, is_labelled in nights[p.pk] if is_labelled}
+        labelled = {h for h, is_labelled, _ in nights[p.pk] if is_labelled}
+        trainable = {h for h, is_labelled, excluded in nights[p.pk] if is_labelled and not excluded}
         version = active.get(p.pk)
         trained = set() if version is None else set(version.metadata.training_hashes)
         out.append(ParticipantSummary(
             **vars(participant_snapshot(p, study_id)), n_nights=len(nights[p.pk]), n_labelled_nights=len(labelled),
             active_personal_version=None if version is None else version.version,
-            untrained_labelled_nights=len(labelled - trained)))
+            untrained_labelled_nights=len(trainable - trained)))
     return out, int(total)
-
-
-def night_values(night: Night, *, source_format: str) -> dict[str, Any]:
-    """Column values of a new ``nights`` row: encoded arrays and QC flags (no database access).
-
-    Computed before the write transaction so that the transaction stays short.
-    """
-    return {"qc": [f.to_dict() for f in quality_flags(night)], "source_format": source_format, **night_columns(night)}
-
-
-def ingest_night(session: Session, *, study_id: str, night: Night, source_format: str, actor: str,
-                 values: dict[str, Any] | None = None) -> tuple[NightInfo, bool]:
-    """Store a validated night; the participant is created with its first night.
-
-    Idempotent: a night with the same content hash as a stored night of the participant is not
-    stored again. ``values`` are the row values from :func:`night_values` (computed here if not
-    given).
-
-    Returns
-    -------
-    info : NightInfo
-    created : bool
-        False if the content was already stored (``info`` is then the stored night).
-
-    Raises
-    ------
-    NotFound
-        If the study does not exist.
-    """
-    _check_id(night.participant_id, "participant id")
-    study = find_study(session, study_id)
-    participant = session.scalar(select(db.Participant).where(db.Participant.study_pk == study.pk,
-                                                              db.Participant.participant_id == night.participant_id))
-    if participant is None:
-        participant = db.Participant(study_pk=study.pk, participant_id=night.participant_id, created_at=db.utcnow())
-        session.add(participant)
-        session.flush()
-        record_audit(session, actor=actor, action="participant.create", study_id=study_id,
-                     subject=night.participant_id)
-    else:
-        existing = session.scalar(select(db.Night).where(db.Night.participant_pk == participant.pk,
-                                                         db.Night.content_hash == night.content_hash))
-        if existing is not None:
-            return _night_info(existing, night.participant_id), False
-    values = values or night_values(night, source_format=source_format)
-    row = db.Night(participant_pk=participant.pk, created_at=db.utcnow(), **values)
-    session.add(row)
-    session.flush()
-    record_audit(session, actor=actor, action="night.create", study_id=study_id, subject=night.participant_id,
-                 detail={"night_id": row.night_id, "epochs": row.n_epochs, "labelled": row.labelled})
-    return _night_info(row, night.participant_id), True
 
 
 def list_nights(session: Session, *, study_id: str, participant_id: str, limit: int = 100,
@@ -236,7 +181,7 @@ def list_nights(session: Session, *, study_id: str, participant_id: str, limit: 
     columns = [c for c in db.Night.__table__.columns if c.name not in ("counts", "reference")]
     rows = session.execute(select(*columns).where(db.Night.participant_pk == participant.pk)
                            .order_by(db.Night.start_utc, db.Night.pk).limit(limit).offset(offset))
-    return [_night_info(row, participant_id) for row in rows], int(total)  # type: ignore[arg-type]
+    return [night_snapshot(row, participant_id) for row in rows], int(total)  # type: ignore[arg-type]
 
 
 def _night_row(session: Session, study_id: str, participant_id: str, night_id: str) -> db.Night:
@@ -256,53 +201,29 @@ def get_night(session: Session, *, study_id: str, participant_id: str, night_id:
     NotFound
         If the study, participant or night does not exist.
     """
-    return _night_info(_night_row(session, study_id, participant_id, night_id), participant_id)
+    return night_snapshot(_night_row(session, study_id, participant_id, night_id), participant_id)
 
 
 def load_night(session: Session, *, study_id: str, participant_id: str, night_id: str) -> tuple[NightInfo, Night]:
     """One stored night with its data, as a :class:`models.Night`."""
     row = _night_row(session, study_id, participant_id, night_id)
-    return _night_info(row, participant_id), night_from_row(row, participant_id=participant_id)
+    return night_snapshot(row, participant_id), night_from_row(row, participant_id=participant_id)
 
 
-def load_nights(session: Session, *, participant: ParticipantInfo, labelled_only: bool = False) -> list[Night]:
-    """A participant's nights in start order (only the labelled ones on request)."""
+def load_nights(session: Session, *, participant: ParticipantInfo, labelled_only: bool = False,
+                include_excluded: bool = True) -> list[Night]:
+    """A participant's nights in start order.
+
+    Parameters
+    ----------
+    labelled_only : bool, default=False
+        Only the labelled nights.
+    include_excluded : bool, default=True
+        Also the nights excluded from training (training passes False).
+    """
     query = select(db.Night).where(db.Night.participant_pk == participant.pk).order_by(db.Night.start_utc)
     if labelled_only:
         query = query.where(db.Night.labelled)
+    if not include_excluded:
+        query = query.where(db.Night.excluded.is_(False))
     return [night_from_row(row, participant_id=participant.participant_id) for row in session.scalars(query)]
-
-
-def delete_participant(session: Session, *, study_id: str, participant_id: str, actor: str) -> dict[str, int]:
-    """Remove a participant after consent withdrawal.
-
-    Deletes the participant's nights, cached scorings, personal model versions and training jobs,
-    and every pooled model version trained on their nights (those models hold information from
-    them). The audit log keeps a record of the deletion (participant id and the numbers removed).
-
-    Returns
-    -------
-    removed : dict
-        ``nights``, ``scorings``, ``personal_versions``, ``pooled_versions`` removed.
-    """
-    study = find_study(session, study_id)
-    participant = find_participant(session, study, participant_id)
-    night_pks = select(db.Night.pk).where(db.Night.participant_pk == participant.pk)
-    pooled = [v for v in versions.list_versions(session, study=study, participant=None)
-              if participant_id in v.metadata.participants]
-    removed = {
-        "nights": session.scalar(select(func.count()).select_from(db.Night)
-                                 .where(db.Night.participant_pk == participant.pk)) or 0,
-        "scorings": session.scalar(select(func.count()).select_from(db.Scoring)
-                                   .where(db.Scoring.night_pk.in_(night_pks))) or 0,
-        "personal_versions": session.scalar(select(func.count()).select_from(db.ModelVersion)
-                                            .where(db.ModelVersion.participant_pk == participant.pk)) or 0,
-        "pooled_versions": len(pooled),
-    }
-    for version in pooled:
-        session.execute(delete(db.ModelVersion).where(db.ModelVersion.pk == version.pk))
-    # foreign keys cascade to nights, scorings, personal versions and jobs
-    session.execute(delete(db.Participant).where(db.Participant.pk == participant.pk))
-    record_audit(session, actor=actor, action="participant.delete", study_id=study_id, subject=participant_id,
-                 detail={k: int(v) for k, v in removed.items()})
-    return {k: int(v) for k, v in removed.items()}

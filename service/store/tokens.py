@@ -8,9 +8,10 @@ comparison is constant-time (:func:`hmac.compare_digest`).
 
 Roles, each including the ones before it:
 
-- ``ingest``: posts nights and reads them;
-- ``analyst``: also scores, trains, compares and exports;
-- ``admin``: also creates studies, activates versions, deletes participants, manages tokens.
+- ``ingest``: posts nights, reads and corrects them (label, exclusion from training), saves import profiles;
+- ``analyst``: also scores, trains, lists jobs, compares and exports;
+- ``admin``: also creates studies, activates versions, deletes nights and participants, renames
+  participants, manages tokens.
 
 A token is scoped to one study, or lab-wide (admin only). A study-scoped token never sees another
 study: those requests get 404, like a missing resource.

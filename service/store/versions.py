@@ -1,10 +1,17 @@
 """The model registry: immutable, numbered versions of personal and pooled models.
 
 Versions are numbered per participant (personal) and per study (pooled), from 1, and never
-change once stored. Each holds the model bytes (XGBoost UBJSON plus JSON metadata; no pickle)
-and its metadata (:class:`~service.store.metadata.ModelMetadata`): training nights with their
-hashes, feature-set version, hyperparameters, threshold, offsets, held-out validation figures and
-library versions; the version row also names the job that made it.
+change once stored. A number is never given out twice: the last one of each numbering key
+(``pooled``, or ``personal:<participant id>``) is kept in ``version_counters`` and taken in the
+transaction that stores the version, so deleting a participant (and with it versions), or adding
+a participant again under the same id, never brings a number back. The one later change to a
+version is the list of its training nights deleted since (``trained_on_deleted_nights``); a
+participant rename moves personal versions to new numbers (:func:`move_personal_versions`).
+
+Each version holds the model bytes (XGBoost UBJSON plus JSON metadata; no pickle) and its
+metadata (:class:`~service.store.metadata.ModelMetadata`): training nights with their hashes,
+feature-set version, hyperparameters, threshold, offsets, held-out validation figures and library
+versions; the version row also names the job that made it.
 
 Promotion rule: a new version becomes active only if its held-out balanced accuracy is not worse
 than the active version's (or no version is active); otherwise it is kept as a candidate, which
@@ -21,7 +28,8 @@ from datetime import datetime
 from typing import Any
 
 from cachetools import LRUCache, cached
-from sqlalchemy import func, select, update
+from sqlalchemy import Table, case, func, select, update
+from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.orm import Session
 
 from models import HeldOutNight, SleepModel, model_from_bytes
@@ -34,7 +42,8 @@ from .metadata import ModelMetadata
 from .snapshots import ParticipantInfo, StudyInfo
 
 __all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_personal_versions",
-           "active_version", "add_version", "get_version", "list_versions", "load_held_out", "load_model", "scope_of"]
+           "active_version", "add_version", "counter_key", "get_version", "list_versions", "load_held_out",
+           "load_model", "mark_deleted_night", "move_personal_versions", "next_version_number", "scope_of"]
 
 POOLED_SCOPE = "pooled"
 #: Held-out metric that decides promotion ("higher is better").
@@ -53,6 +62,8 @@ class VersionInfo:
     created_at: datetime
     job_id: str | None
     metadata: ModelMetadata
+    #: night ids of the training nights no longer stored (deleted after, or while, the model trained)
+    trained_on_deleted_nights: tuple[str, ...] = ()
 
     @property
     def status(self) -> str:
@@ -64,8 +75,60 @@ class VersionInfo:
 
 
 def scope_of(participant: ParticipantInfo | None) -> str:
-    """Numbering scope: ``participant:<pk>`` or ``pooled``."""
+    """Scope of the version rows: ``participant:<pk>`` or ``pooled``."""
     return POOLED_SCOPE if participant is None else f"participant:{participant.pk}"
+
+
+def counter_key(participant_id: str | None) -> str:
+    """Numbering key of a scope: ``pooled``, or ``personal:<participant id>`` (outlives the participant row)."""
+    return POOLED_SCOPE if participant_id is None else f"personal:{participant_id}"
+
+
+def next_version_number(session: Session, *, study_pk: int, key: str, floor: int = 0) -> int:
+    """Take the next version number of ``key``: one more than the last given out (and than ``floor``).
+
+    One atomic upsert of the counter row in the caller's transaction: concurrent callers queue on
+    the row and get different numbers; a rolled-back transaction gives its number back unused.
+
+    Parameters
+    ----------
+    study_pk : int
+    key : str
+        From :func:`counter_key`.
+    floor : int, default=0
+        The highest number already stored in the scope (numbers stored before counters existed).
+    """
+    table = db.VersionCounter.__table__
+    assert isinstance(table, Table)
+    dialect = session.get_bind().dialect.name
+    if dialect in ("postgresql", "sqlite"):
+        insert = postgresql.insert if dialect == "postgresql" else sqlite.insert
+        bumped = case((table.c.last_version > floor, table.c.last_version), else_=floor) + 1
+        statement = (insert(table).values(study_pk=study_pk, key=key, last_version=floor + 1)
+                     .on_conflict_do_update(index_elements=["study_pk", "key"], set_={"last_version": bumped})
+                     .returning(table.c.last_version))
+        return int(session.execute(statement).scalar_one())
+    row = session.scalar(select(db.VersionCounter).where(db.VersionCounter.study_pk == study_pk,
+                                                         db.VersionCounter.key == key).with_for_update())
+    if row is None:
+        row = db.VersionCounter(study_pk=study_pk, key=key, last_version=floor)
+        session.add(row)
+    row.last_version = max(row.last_version, floor) + 1
+    session.flush()
+    return row.last_version
+
+
+def _highest(session: Session, study_pk: int, scope: str) -> int:
+    """The highest stored version number of the scope (0 without one; numbers set aside while renumbering are < 0)."""
+    return max(session.scalar(select(func.max(db.ModelVersion.version)).where(
+        db.ModelVersion.study_pk == study_pk, db.ModelVersion.scope == scope)) or 0, 0)
+
+
+def _stored_hashes(session: Session, study_pk: int, hashes: set[str]) -> set[str]:
+    """Those of ``hashes`` that some night of the study has."""
+    return set(session.scalars(select(db.Night.content_hash).join(
+        db.Participant, db.Participant.pk == db.Night.participant_pk).where(
+        db.Participant.study_pk == study_pk, db.Night.content_hash.in_(sorted(hashes)))))
 
 
 @cached(LRUCache(maxsize=256), key=lambda row: row.uid, lock=threading.Lock())
@@ -76,7 +139,8 @@ def _metadata(row: db.ModelVersion) -> ModelMetadata:
 
 def _info(row: db.ModelVersion) -> VersionInfo:
     return VersionInfo(pk=row.pk, uid=row.uid, kind=row.kind, version=row.version, active=row.is_active,
-                       created_at=row.created_at, job_id=row.job_id, metadata=_metadata(row))
+                       created_at=row.created_at, job_id=row.job_id, metadata=_metadata(row),
+                       trained_on_deleted_nights=tuple(row.trained_on_deleted_nights or ()))
 
 
 def _not_worse(new: float | None, old: float | None) -> bool:
@@ -112,11 +176,16 @@ def add_version(session: Session, *, study: StudyInfo, participant: ParticipantI
     Returns
     -------
     VersionInfo
-        ``active`` tells whether it was promoted.
+        ``active`` tells whether it was promoted; ``trained_on_deleted_nights`` lists training
+        nights deleted while the model trained.
     """
     scope = scope_of(participant)
-    number = (session.scalar(select(func.max(db.ModelVersion.version)).where(
-        db.ModelVersion.study_pk == study.pk, db.ModelVersion.scope == scope)) or 0) + 1
+    number = next_version_number(session, study_pk=study.pk,
+                                 key=counter_key(None if participant is None else participant.participant_id),
+                                 floor=_highest(session, study.pk, scope))
+    trained = {n.content_hash: n.night_id for n in metadata.training_nights if n.content_hash}
+    stored = _stored_hashes(session, study.pk, set(trained)) if trained else set()
+    gone = sorted(n for h, n in trained.items() if h not in stored)
     current = session.scalar(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
                                                            db.ModelVersion.scope == scope, db.ModelVersion.is_active))
     promote = _not_worse(metadata.selection_score, None if current is None else _metadata(current).selection_score)
@@ -127,7 +196,7 @@ def add_version(session: Session, *, study: StudyInfo, participant: ParticipantI
                           participant_pk=None if participant is None else participant.pk, scope=scope,
                           kind="pooled" if participant is None else "personal", version=number, is_active=promote,
                           booster=booster, model_meta=model_meta, info=metadata.to_json(), held_out=held_out,
-                          job_id=job_id, created_at=db.utcnow())
+                          job_id=job_id, trained_on_deleted_nights=gone or None, created_at=db.utcnow())
     session.add(row)
     session.flush()
     subject = POOLED_SCOPE if participant is None else participant.participant_id
@@ -206,3 +275,67 @@ def load_model(session: Session, version: VersionInfo) -> SleepModel:
     if row is None:
         raise NotFound(f"model version {version.version} was removed")
     return model_from_bytes(row.booster, row.model_meta)
+
+
+def mark_deleted_night(session: Session, *, study: StudyInfo, content_hash: str, night_id: str) -> list[dict[str, Any]]:
+    """Record on every version of the study trained on this content that the night was deleted.
+
+    Call after the night row is deleted: a version is marked only if no night of the study has
+    the content any more (another participant's copy keeps the training data stored). The
+    versions stay readable and usable.
+
+    Returns
+    -------
+    marked : list of dict
+        ``kind``, ``version`` and ``participant_pk`` (None for pooled) of each marked version.
+    """
+    if _stored_hashes(session, study.pk, {content_hash}):
+        return []
+    marked = []
+    for row in session.scalars(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk)
+                               .order_by(db.ModelVersion.pk)):
+        if content_hash in _metadata(row).training_hashes:
+            gone = list(row.trained_on_deleted_nights or [])
+            if night_id not in gone:
+                row.trained_on_deleted_nights = [*gone, night_id]
+            marked.append({"kind": row.kind, "version": row.version, "participant_pk": row.participant_pk})
+    session.flush()
+    return marked
+
+
+def move_personal_versions(session: Session, *, study: StudyInfo, source_pk: int, target_pk: int,
+                           target_id: str, keep_active: bool) -> dict[int, int]:
+    """Move a participant's personal versions to another participant row (or renumber them in place).
+
+    The versions keep their bytes, metadata and uid; they take new numbers from the target's
+    numbering key (``personal:<target_id>``), after every number it gave out, in their old order.
+
+    Parameters
+    ----------
+    source_pk, target_pk : int
+        Participant rows (equal when a participant is renamed in place).
+    target_id : str
+        The participant id the versions are numbered under from now on.
+    keep_active : bool
+        Keep the active flag (the target has no active version); else the moved versions become candidates.
+
+    Returns
+    -------
+    numbers : dict of int to int
+        Old version number -> new one.
+    """
+    rows = list(session.scalars(select(db.ModelVersion).where(db.ModelVersion.participant_pk == source_pk)
+                                .order_by(db.ModelVersion.version)))
+    old = {row.pk: row.version for row in rows}
+    for row in rows:  # out of the way of the unique (study, scope, version) while renumbering
+        row.version = -row.pk
+    session.flush()
+    scope, numbers = f"participant:{target_pk}", {}
+    for row in rows:
+        number = next_version_number(session, study_pk=study.pk, key=counter_key(target_id),
+                                     floor=_highest(session, study.pk, scope))
+        row.participant_pk, row.scope, row.version = target_pk, scope, number
+        row.is_active = row.is_active and keep_active
+        session.flush()
+        numbers[old[row.pk]] = number
+    return numbers

@@ -42,9 +42,12 @@ def test_same_content_as_csv_and_parquet_is_the_same_night(http, study, admin) -
     r_pq = http.post(_url(study), content=night_to_parquet(night),
                      headers=admin | {"content-type": "application/vnd.apache.parquet"})
     assert r_pq.status_code == 200 and r_pq.json()["night_id"] == r_csv.json()["night_id"]
-    # the same content under another participant is that participant's own night
-    assert http.post(_url(study, "p2"), content=night_to_csv(night).encode(),
-                     headers=admin | {"content-type": "text/csv; charset=utf-8"}).status_code == 201
+    # the same content under another participant is refused unless allowed, then it is that participant's own
+    csv_headers = admin | {"content-type": "text/csv; charset=utf-8"}
+    refused = http.post(_url(study, "p2"), content=night_to_csv(night).encode(), headers=csv_headers)
+    assert refused.status_code == 409 and refused.json()["code"] == "duplicate_night"
+    assert http.post(_url(study, "p2"), content=night_to_csv(night).encode(), headers=csv_headers,
+                     params={"allow_duplicate": "true"}).status_code == 201
 
 
 def test_naive_csv_times_need_the_tz_parameter(http, study, admin) -> None:

@@ -7,6 +7,8 @@ from harness import bearer
 
 
 def _post_night(http, headers, study: str, pid: str, seed: int = 0, **extra):
+    """A 2-h night starting on day ``seed`` after 2 March 2031, so that nights of one participant never overlap."""
+    extra.setdefault("start", f"2031-03-{2 + seed:02d}T22:41:00+01:00")
     return http.post(f"/v1/studies/{study}/participants/{pid}/nights", json=night_json(240, seed=seed, **extra),
                      headers=headers)
 

@@ -191,14 +191,12 @@ def test_a_taken_over_claim_stores_nothing_and_a_stored_version_is_not_trained_t
 
 
 def test_failed_job_records_a_readable_error(http, study, admin, start_worker) -> None:
-    bodies = cohort_bodies(n_participants=1, nights=3)["P-01"]
-    bodies[2] = {**bodies[2], "epoch_seconds": 60, "counts": bodies[2]["counts"][::2],
-                 "reference": bodies[2]["reference"][::2]}
-    _load(http, admin, study, {"P-01": bodies})
-    job_id = _train(http, admin, study, "P-01", n_trials=2).json()["job_id"]
+    # one participant: the pooled model needs labelled nights of three, so the job fails in the worker
+    _load(http, admin, study, cohort_bodies(n_participants=1, nights=3))
+    job_id = http.post(f"/v1/studies/{study}/pooled/training", json={"n_trials": 2}, headers=admin).json()["job_id"]
     start_worker()
     job = wait_for(_finished(http, admin, job_id))
-    assert job["state"] == "failed" and job["error"].startswith("mixed_epoch_lengths:")
+    assert job["state"] == "failed" and job["error"].startswith("too_few_participants:")
     assert "Traceback" not in job["error"]
 
 

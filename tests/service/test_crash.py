@@ -18,6 +18,7 @@ import sys
 import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
+from datetime import date
 from pathlib import Path
 
 import httpx
@@ -73,7 +74,9 @@ def test_sigkill_mid_upload_keeps_every_acknowledged_night_whole(tmp_path: Path)
     factory = db.make_session_factory(engine)
     with db.session_scope(factory, write=True) as session:
         headers = bearer(create_token(session, role="admin", actor="test")[1])
-    nights = [make_night(240, seed=i, participant_id=f"P{i % 10}") for i in range(N_NIGHTS)]
+    nights = [make_night(240, seed=i, participant_id=f"P{i % 10}",  # one night a day: a participant's never overlap
+                         start=f"{date.fromordinal(date(2031, 3, 2).toordinal() + i // 10)}T22:41:00+01:00")
+              for i in range(N_NIGHTS)]
     acknowledged: dict[str, str] = {}  # content hash -> participant id
     lock = threading.Lock()
     enough = threading.Event()

@@ -50,7 +50,7 @@ def _routes(app: Any):
 
 def _fill(path: str, world: dict[str, Any]) -> str:
     values = {"study": "s1", "pid": "P-01", "night_id": world["night_id"], "job_id": world["job_id"],
-              "version": "1", "token_id": world["token_id"]}
+              "version": "1", "token_id": world["token_id"], "name": "lab-export"}
     return re.sub(r"\{(\w+)\}", lambda m: str(values[m.group(1)]), path)
 
 

@@ -127,3 +127,103 @@ def test_lookups_return_snapshots_and_changes_go_through_the_store(owners) -> No
         again = registry.find_participant(session, registry.find_study(session, "s"), "p")
         assert (again.chosen_method, again.choice) == ("pooled", {"method": "pooled", "reason": "test"})
         assert [q.participant_id for q in registry.study_participants(session, study=study)] == ["p"]
+
+
+def test_numbers_are_not_given_out_again_after_a_participant_is_deleted(owners) -> None:
+    from factories import make_night
+
+    from service.store import db, manage, registry, versions
+    from service.store.metadata import ModelMetadata
+
+    with db.session_scope(owners, write=True) as session:
+        study = registry.find_study(session, "s")
+        p = registry.find_participant(session, study, "p")
+        assert [_add(session, study, p, 0.8).version for _ in range(3)] == [1, 2, 3]
+        pooled = versions.add_version(session, study=study, participant=None, booster=b"raw", model_meta={},
+                                      metadata=ModelMetadata(participants=("p",)), job_id=None, actor="test")
+        assert pooled.version == 1
+        manage.delete_participant(session, study_id="s", participant_id="p", actor="test")
+        registry.ingest_night(session, study_id="s", night=make_night(240, participant_id="p"), source_format="json",
+                              actor="test")
+        again = registry.find_participant(session, study, "p")  # a new row (SQLite may even give it the old key)
+        assert _add(session, study, again, 0.8).version == 4
+        assert versions.list_versions(session, study=study, participant=None) == []  # it was trained on p
+        assert _add(session, study, None, 0.8).version == 2
+
+
+def test_a_rolled_back_version_leaves_its_number_unused(owners) -> None:
+    from service.store import db, registry
+
+    with pytest.raises(RuntimeError), db.session_scope(owners, write=True) as session:
+        study = registry.find_study(session, "s")
+        assert _add(session, study, None, 0.8).version == 1
+        raise RuntimeError("the job failed after storing")
+    with db.session_scope(owners, write=True) as session:
+        assert _add(session, registry.find_study(session, "s"), None, 0.8).version == 1
+
+
+def test_a_deleted_night_marks_a_version_only_when_no_copy_is_stored(owners) -> None:
+    from factories import make_night
+
+    from service.store import db, manage, registry, versions
+    from service.store.metadata import ModelMetadata, TrainingNight
+
+    night = make_night(240, participant_id="q", seed=4, start="2031-05-02T22:41:00+01:00")
+    with db.session_scope(owners, write=True) as session:
+        for pid in ("q", "r"):
+            copy = make_night(240, participant_id=pid, seed=4, start="2031-05-02T22:41:00+01:00")
+            registry.ingest_night(session, study_id="s", night=copy, source_format="json", actor="test",
+                                  allow_duplicate=True)
+        study = registry.find_study(session, "s")
+        trained = TrainingNight(participant_id="q", night_id=night.night_id, content_hash=night.content_hash)
+        versions.add_version(session, study=study, participant=None, booster=b"raw", model_meta={},
+                             metadata=ModelMetadata(training_nights=(trained,), training_hashes=(night.content_hash,)),
+                             job_id=None, actor="test")
+        first = manage.delete_night(session, study_id="s", participant_id="q", night_id=night.night_id, actor="t")
+        assert first["marked_versions"] == []  # participant r still has the content
+        last = manage.delete_night(session, study_id="s", participant_id="r", night_id=night.night_id, actor="t")
+        assert last["marked_versions"] == [{"kind": "pooled", "participant_id": None, "version": 1}]
+        stored = versions.get_version(session, study=study, participant=None, version=1)
+        assert stored.trained_on_deleted_nights == (night.night_id,)
+        # a version stored after its training night was deleted is marked when it is stored
+        late = versions.add_version(session, study=study, participant=None, booster=b"raw", model_meta={},
+                                    metadata=ModelMetadata(training_nights=(trained,)), job_id=None, actor="test")
+        assert late.version == 2 and late.trained_on_deleted_nights == (night.night_id,)
+
+
+@pytest.mark.parametrize("backend", ["sqlite", pytest.param("postgres", marks=pytest.mark.postgres)])
+def test_concurrent_versions_of_one_scope_get_different_numbers(backend: str, tmp_path) -> None:
+    import threading
+    from contextlib import ExitStack
+
+    from service.config import Settings
+    from service.store import db, registry
+    from service.store.schema import upgrade
+
+    with ExitStack() as stack:
+        if backend == "sqlite":
+            url = f"sqlite:///{tmp_path / 'v.db'}"
+        else:
+            from pg_support import throwaway_database
+
+            url = stack.enter_context(throwaway_database())
+        settings = Settings(db=url)
+        upgrade(settings)
+        engine = db.make_engine(settings)
+        stack.callback(engine.dispose)
+        factory = db.make_session_factory(engine)
+        with db.session_scope(factory, write=True) as session:
+            registry.create_study(session, study_id="s", name="S", actor="test")
+        barrier, numbers = threading.Barrier(8), []
+
+        def add() -> None:
+            barrier.wait()
+            with db.session_scope(factory, write=True) as session:
+                numbers.append(_add(session, registry.find_study(session, "s"), None, 0.5).version)
+
+        threads = [threading.Thread(target=add) for _ in range(8)]
+        for t in threads:
+            t.start()
+        for t in threads:
+            t.join(60)
+        assert sorted(numbers) == list(range(1, 9))

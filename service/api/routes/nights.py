@@ -1,24 +1,29 @@
-"""Night ingest (JSON, CSV, Parquet), listings and metadata."""
+"""Night ingest (JSON, CSV, Parquet), listings, metadata and arrays, corrections and deletion.
+
+Roles: ingest for posting, reading and correcting nights (``PATCH``: label, exclusion from
+training); admin for deleting one.
+"""
 
 from __future__ import annotations
 
+import math
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Depends, Path, Query, Request, Response
+from fastapi import APIRouter, Body, Depends, Path, Query, Request, Response
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import IntegrityError
 
 from models import Night, NightOptions, night_from_csv, night_from_json, night_from_parquet
 
-from ...errors import PayloadTooLarge, UnsupportedMediaType
+from ...errors import Conflict, PayloadTooLarge, UnsupportedMediaType
 from ...results.scoring import SCORING_METHODS, score_night
-from ...store import registry
+from ...store import manage, registry
 from ...store.db import session_scope
 from ...store.tokens import Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, study_access
 from ..problems import problem_responses
-from ..schemas import NightAccepted, NightIn, NightOut, Page, ScoringOut
+from ..schemas import NightAccepted, NightDeleted, NightDetailOut, NightIn, NightOut, NightPatch, Page, ScoringOut
 from .studies import Limit, Offset, ParticipantPath
 
 __all__ = ["NIGHT_MEDIA_TYPES", "parse_night", "router"]
@@ -77,32 +82,59 @@ async def _read_body(request: Request, limit_bytes: int) -> bytes:
     return b"".join(chunks)
 
 
+_INGEST_DOC = """Store a night (JSON, CSV or Parquet); the participant is created with its first night.
+
+The night is stored at the study's epoch length: a night of a shorter length that divides it is
+aggregated (counts summed, reference by majority; `source_epoch_seconds` keeps the posted
+length); any other length is refused (422 `epoch_length_mismatch`). Posting the same content
+again to the same participant answers 200 with the stored night's id. Refused with 409:
+
+- `duplicate_night`: another participant of the study has the same content (the message names
+  them); `allow_duplicate=true` stores it anyway;
+- `overlapping_night`: the night overlaps in time, [start, end), a stored night of the
+  participant (the message names its id and label); `allow_overlap=true` stores it anyway;
+- `participant_id_case_clash`: a new participant id differs from a stored one only by case
+  (`p01` when `P01` exists; the message names the stored id). Ids are compared exactly
+  everywhere else, so use the stored spelling.
+"""
+
+
 @router.post("", status_code=201, response_model=NightAccepted, openapi_extra={"requestBody": _INGEST_BODY},
+             description=_INGEST_DOC,
              responses={200: {"model": NightAccepted, "description": "Same content stored before: its night id"},
-                        **problem_responses(413, 415)})
+                        **problem_responses(409, 413, 415)})
 async def post_night(request: Request, access: Annotated[StudyAccess, Depends(study_access(Role.ingest))],
                      pid: ParticipantPath, factory: FactoryDep, settings: SettingsDep,
                      tz: Annotated[str | None, Query(max_length=64, description="IANA zone for naive times")] = None,
                      fill_gaps: Annotated[bool, Query(description="accept whole-epoch gaps as missing")] = False,
+                     allow_duplicate: Annotated[bool, Query(
+                         description="store even if another participant has the same content")] = False,
+                     allow_overlap: Annotated[bool, Query(
+                         description="store even if it overlaps a stored night of the participant")] = False,
                      ) -> Any:
-    """Store a night (JSON, CSV or Parquet); the participant is created with its first night."""
     body = await _read_body(request, int(settings.max_body_mb * 2**20))
     media_type = request.headers.get("content-type", "").split(";")[0].strip().lower()
 
     def work() -> tuple[registry.NightInfo, bool]:
         night, fmt = parse_night(body, media_type=media_type, participant_id=pid, tz=tz, fill_gaps=fill_gaps)
-        values = registry.night_values(night, source_format=fmt)
+        with session_scope(factory) as session:
+            epoch_seconds = registry.find_study(session, access.study_id).epoch_seconds
+        night, source = registry.conform_epochs(night, epoch_seconds=epoch_seconds, study_id=access.study_id)
+        values = registry.night_values(night, source_format=fmt, source_epoch_seconds=source)
         for _ in range(3):  # a concurrent first night of the same participant may win the insert
             try:
                 with session_scope(factory, write=True) as session:
                     return registry.ingest_night(session, study_id=access.study_id, night=night, source_format=fmt,
-                                                 actor=access.actor, values=values)
+                                                 actor=access.actor, values=values, allow_duplicate=allow_duplicate,
+                                                 allow_overlap=allow_overlap)
             except IntegrityError:
                 continue
-        raise AssertionError("night insert lost three races")  # pragma: no cover
+        raise Conflict("the night could not be stored: concurrent changes to the participant won three times; "
+                       "post it again", code="concurrent_change")
 
     info, created = await run_in_threadpool(work)
-    out = NightAccepted(night_id=info.night_id, created=created, qc=info.qc)  # type: ignore[arg-type]
+    out = NightAccepted(night_id=info.night_id, created=created, qc=info.qc,  # type: ignore[arg-type]
+                        epoch_seconds=info.epoch_seconds, source_epoch_seconds=info.source_epoch_seconds)
     return JSONResponse(out.model_dump(mode="json"), status_code=201 if created else 200)
 
 
@@ -115,12 +147,55 @@ def list_nights(access: Annotated[StudyAccess, Depends(study_access(Role.ingest)
     return Page[NightOut](data=[NightOut(**vars(n)) for n in items], count=total, limit=limit, offset=offset)
 
 
-@router.get("/{night_id}", response_model=NightOut)
+def _json_counts(counts: Any) -> list[float | None]:
+    return [None if math.isnan(c) else float(c) for c in counts.tolist()]
+
+
+@router.get("/{night_id}", response_model=NightDetailOut, response_model_exclude_unset=True)
 def get_night(access: Annotated[StudyAccess, Depends(study_access(Role.ingest))], pid: ParticipantPath,
-              night_id: NightIdPath, session: ReadSession) -> Any:
-    """One night's metadata, QC flags and whether it is labelled."""
-    return NightOut(**vars(registry.get_night(session, study_id=access.study_id, participant_id=pid,
-                                              night_id=night_id)))
+              night_id: NightIdPath, session: ReadSession,
+              epochs: Annotated[bool, Query(description="also the arrays: counts and reference per epoch")] = False,
+              ) -> Any:
+    """One night's metadata, QC flags and whether it is labelled; with `epochs=true` also its arrays.
+
+    The arrays are the stored night's, at the study's epoch length (`epoch_seconds`): `counts`
+    (null where an epoch is missing) and `reference` (stage codes, null for an unlabelled night).
+    """
+    if not epochs:
+        return NightDetailOut(**vars(registry.get_night(session, study_id=access.study_id, participant_id=pid,
+                                                        night_id=night_id)))
+    info, night = registry.load_night(session, study_id=access.study_id, participant_id=pid, night_id=night_id)
+    return NightDetailOut(**vars(info), counts=_json_counts(night.counts),
+                          reference=None if night.reference is None else night.reference.tolist())
+
+
+@router.patch("/{night_id}", response_model=NightOut)
+def patch_night(access: Annotated[StudyAccess, Depends(study_access(Role.ingest))], pid: ParticipantPath,
+                night_id: NightIdPath, factory: FactoryDep, body: Annotated[NightPatch, Body()]) -> Any:
+    """Correct a night's label and/or exclude it from training (ingest role; audited).
+
+    `label` (null clears it) and `excluded` are each optional; a field left out is kept. An
+    excluded night stays stored, listed and scorable but is left out of personal and pooled
+    training (retrain to drop it from the models).
+    """
+    with session_scope(factory, write=True) as session:
+        info = manage.update_night(session, study_id=access.study_id, participant_id=pid, night_id=night_id,
+                                   actor=access.actor, set_label="label" in body.model_fields_set, label=body.label,
+                                   excluded=body.excluded)
+    return NightOut(**vars(info))
+
+
+@router.delete("/{night_id}", response_model=NightDeleted)
+def delete_night(access: Annotated[StudyAccess, Depends(study_access(Role.admin))], pid: ParticipantPath,
+                 night_id: NightIdPath, factory: FactoryDep) -> Any:
+    """Delete one night with its cached scorings and stored features (admin; audited).
+
+    Model versions trained on it are kept, readable and usable, and list the night's id in
+    `trained_on_deleted_nights`.
+    """
+    with session_scope(factory, write=True) as session:
+        return manage.delete_night(session, study_id=access.study_id, participant_id=pid, night_id=night_id,
+                                   actor=access.actor)
 
 
 @router.get("/{night_id}/scoring", response_model=ScoringOut,

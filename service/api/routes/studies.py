@@ -1,18 +1,20 @@
-"""Studies, participants and consent withdrawal."""
+"""Studies, participants, consent withdrawal and participant renames."""
 
 from __future__ import annotations
 
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Path, Query
+from sqlalchemy.exc import IntegrityError
 
-from ...errors import Forbidden
-from ...store import registry
+from ...errors import Conflict, Forbidden
+from ...jobs.training import refresh_choices
+from ...store import manage, registry
 from ...store.db import session_scope
 from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
-from ..schemas import Page, ParticipantOut, StudyIn, StudyOut
+from ..schemas import Page, ParticipantOut, RenameIn, RenameOut, StudyIn, StudyOut
 
 __all__ = ["ParticipantPath", "router"]
 
@@ -26,11 +28,16 @@ Offset = Annotated[int, Query(ge=0, le=10**9, description="items to skip")]
 @router.post("", status_code=201, response_model=StudyOut, responses=problem_responses(409))
 def create_study(body: StudyIn, factory: FactoryDep,
                  principal: Annotated[Principal, Depends(require_lab_role(Role.admin))]) -> Any:
-    """Create a study (admin; a study-scoped admin token may create its own study)."""
+    """Create a study (admin; a study-scoped admin token may create its own study).
+
+    `epoch_seconds` (30 or 60, default 30) is the epoch length every night of the study is stored
+    at; it cannot change later.
+    """
     if not principal.sees(body.study_id):
         raise Forbidden(f"this token is scoped to study {principal.study_id!r}")
     with session_scope(factory, write=True) as session:
-        return registry.create_study(session, study_id=body.study_id, name=body.name, actor=principal.token_id)
+        return registry.create_study(session, study_id=body.study_id, name=body.name, actor=principal.token_id,
+                                     epoch_seconds=body.epoch_seconds)
 
 
 @router.get("", response_model=list[StudyOut])
@@ -54,4 +61,29 @@ def delete_participant(access: Annotated[StudyAccess, Depends(study_access(Role.
                        factory: FactoryDep) -> Any:
     """Withdraw a participant: remove nights, models and cached scorings; keep an audit record (admin)."""
     with session_scope(factory, write=True) as session:
-        return registry.delete_participant(session, study_id=access.study_id, participant_id=pid, actor=access.actor)
+        return manage.delete_participant(session, study_id=access.study_id, participant_id=pid, actor=access.actor)
+
+
+@router.post("/{study}/participants/{pid}/rename", response_model=RenameOut, responses=problem_responses(409))
+def rename_participant(access: Annotated[StudyAccess, Depends(study_access(Role.admin))], pid: ParticipantPath,
+                       body: RenameIn, factory: FactoryDep) -> Any:
+    """Give a participant another id, merging it into the participant of that id if there is one (admin; audited).
+
+    Without a participant `to` the participant simply takes the new id. Otherwise its nights move
+    to `to`, except those whose content `to` already has: they are dropped as duplicates
+    (`duplicates_dropped`). Personal model versions stay readable under `to`: they get new
+    numbers after every number `to` has had (`personal_versions` maps them), as candidates when
+    `to` has an active version. Refused with 409 while a training of the participant is queued or
+    running (`training_in_progress`), and when `to` differs from another participant's id only by
+    case (`participant_id_case_clash`).
+    """
+    try:
+        with session_scope(factory, write=True) as session:
+            out = manage.rename_participant(session, study_id=access.study_id, participant_id=pid, to=body.to,
+                                            actor=access.actor)
+            study = registry.find_study(session, access.study_id)
+            refresh_choices(session, study=study, participants=[registry.find_participant(session, study, body.to)])
+            return out
+    except IntegrityError as exc:
+        raise Conflict(f"participant {pid!r} could not be renamed to {body.to!r}: a concurrent change conflicted; "
+                       "try again", code="concurrent_change") from exc

@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, Body, Depends, Path
+from fastapi import APIRouter, Body, Depends, Path, Query
 from fastapi.responses import JSONResponse
 from sqlalchemy.orm import Session
 
@@ -17,8 +17,8 @@ from ...store.db import session_scope
 from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
-from ..schemas import JobAccepted, JobOut, ModelVersionOut, Progress, TrainingIn
-from .studies import ParticipantPath
+from ..schemas import JobAccepted, JobOut, ModelVersionOut, Page, Progress, TrainingIn
+from .studies import Limit, Offset, ParticipantPath
 
 __all__ = ["router"]
 
@@ -84,6 +84,17 @@ def get_job(job_id: JobPath, session: ReadSession, principal: AnalystDep) -> Any
     return _job_out(_visible_job(session, job_id, principal))
 
 
+@router.get("/v1/studies/{study}/jobs", response_model=Page[JobOut])
+def list_jobs(access: AnalystAccess, session: ReadSession, limit: Limit = 100, offset: Offset = 0,
+              state: Annotated[Literal["queued", "running", "succeeded", "failed", "cancelled"] | None,
+                               Query(description="only jobs in this state")] = None) -> Any:
+    """The study's training jobs, newest first (analyst)."""
+    study = registry.find_study(session, access.study_id)
+    items, total = jobs.list_jobs(session, study_pk=study.pk, state=None if state is None else jobs.JobState(state),
+                                  limit=limit, offset=offset)
+    return Page[JobOut](data=[_job_out(j) for j in items], count=total, limit=limit, offset=offset)
+
+
 @router.post("/v1/jobs/{job_id}/cancel", response_model=JobOut)
 def cancel_job(job_id: JobPath, factory: FactoryDep, principal: AnalystDep) -> Any:
     """Cancel a job: at once when queued, at its next progress step when running."""
@@ -98,7 +109,8 @@ def _version_out(v: versions.VersionInfo) -> ModelVersionOut:
         version=v.version, kind=v.kind, active=v.active, status=v.status, created_at=v.created_at, job_id=v.job_id,  # type: ignore[arg-type]
         n_training_nights=len(meta.training_nights), metrics=meta.metrics.as_dict(), threshold=meta.threshold,
         offset=meta.offset, feature_set_version=meta.feature_set_version, hyperparameters=meta.hyperparameters,
-        library_versions=meta.library_versions, training_nights=[n.model_dump() for n in meta.training_nights])
+        library_versions=meta.library_versions, training_nights=[n.model_dump() for n in meta.training_nights],
+        trained_on_deleted_nights=list(v.trained_on_deleted_nights))
 
 
 def _owner(session: Session, study_id: str,

@@ -1,0 +1,230 @@
+"""Changes to stored participants and nights: withdrawal, night deletion and correction, participant renames.
+
+Every function runs in the caller's write transaction and adds an audit entry there, so a change
+is stored whole or not at all.
+
+- :func:`delete_participant` removes a participant after consent withdrawal, with every model
+  version that holds information from their nights.
+- :func:`delete_night` removes one night with its cached scorings and stored features; model
+  versions trained on it stay readable and usable and list it in ``trained_on_deleted_nights``.
+- :func:`update_night` corrects a night's label or excludes it from training.
+- :func:`rename_participant` gives a participant another id, merging it into the participant of
+  that id when there is one (see there for nights and model versions).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy import delete, func, select, update
+from sqlalchemy.orm import Session
+
+from ..errors import Conflict, NotFound, Unprocessable
+from . import db, versions
+from .audit import record_audit
+from .ingest import case_clash, lock_study
+from .registry import find_participant, find_study
+from .snapshots import NightInfo, check_id, night_snapshot, participant_snapshot, study_snapshot
+
+__all__ = ["delete_night", "delete_participant", "rename_participant", "update_night"]
+
+
+def _count(session: Session, table: type[db.Base], *where: Any) -> int:
+    return int(session.scalar(select(func.count()).select_from(table).where(*where)) or 0)
+
+
+def delete_participant(session: Session, *, study_id: str, participant_id: str, actor: str) -> dict[str, int]:
+    """Remove a participant after consent withdrawal.
+
+    Deletes the participant's nights, cached scorings, personal model versions and training jobs,
+    and every pooled model version trained on their nights (named in its participants, or trained
+    on content the participant has: those models hold information from them). The audit log keeps
+    a record of the deletion (participant id and the numbers removed). Version numbers are not
+    given out again (:mod:`service.store.versions`).
+
+    Returns
+    -------
+    removed : dict
+        ``nights``, ``scorings``, ``personal_versions``, ``pooled_versions`` removed.
+    """
+    study = find_study(session, study_id)
+    participant = find_participant(session, study, participant_id)
+    night_pks = select(db.Night.pk).where(db.Night.participant_pk == participant.pk)
+    hashes = set(session.scalars(select(db.Night.content_hash).where(db.Night.participant_pk == participant.pk)))
+    pooled = [v for v in versions.list_versions(session, study=study, participant=None)
+              if participant_id in v.metadata.participants or hashes & set(v.metadata.training_hashes)]
+    removed = {
+        "nights": len(hashes),
+        "scorings": _count(session, db.Scoring, db.Scoring.night_pk.in_(night_pks)),
+        "personal_versions": _count(session, db.ModelVersion, db.ModelVersion.participant_pk == participant.pk),
+        "pooled_versions": len(pooled),
+    }
+    for version in pooled:
+        session.execute(delete(db.ModelVersion).where(db.ModelVersion.pk == version.pk))
+    # foreign keys cascade to nights, scorings, features, personal versions and jobs
+    session.execute(delete(db.Participant).where(db.Participant.pk == participant.pk))
+    record_audit(session, actor=actor, action="participant.delete", study_id=study_id, subject=participant_id,
+                 detail=removed)
+    return removed
+
+
+def _delete_nights(session: Session, night_pks: list[int]) -> None:
+    """Delete nights with their derived rows (scorings, features), not relying on cascades alone."""
+    if night_pks:
+        session.execute(delete(db.Scoring).where(db.Scoring.night_pk.in_(night_pks)))
+        session.execute(delete(db.NightFeatures).where(db.NightFeatures.night_pk.in_(night_pks)))
+        session.execute(delete(db.Night).where(db.Night.pk.in_(night_pks)))
+
+
+def _night_row(session: Session, study_id: str, participant_id: str, night_id: str) -> db.Night:
+    participant = find_participant(session, find_study(session, study_id), participant_id)
+    row = session.scalar(select(db.Night).where(db.Night.participant_pk == participant.pk,
+                                                db.Night.night_id == night_id))
+    if row is None:
+        raise NotFound(f"no night {night_id!r} for participant {participant_id!r}")
+    return row
+
+
+def delete_night(session: Session, *, study_id: str, participant_id: str, night_id: str,
+                 actor: str) -> dict[str, Any]:
+    """Delete one night, its cached scorings and its stored feature matrices.
+
+    Model versions trained on the night are kept (readable, usable for scoring) and list its id
+    in ``trained_on_deleted_nights`` (:func:`service.store.versions.mark_deleted_night`).
+
+    Returns
+    -------
+    deleted : dict
+        ``night_id``, ``scorings`` and ``features`` removed, and ``marked_versions``: the
+        versions marked (``kind``, ``participant_id`` (None for pooled), ``version``).
+
+    Raises
+    ------
+    NotFound
+        If the study, participant or night does not exist.
+    """
+    study = find_study(session, study_id)
+    row = _night_row(session, study_id, participant_id, night_id)
+    night_pk, content_hash, label = row.pk, row.content_hash, row.label
+    scorings = _count(session, db.Scoring, db.Scoring.night_pk == night_pk)
+    features = _count(session, db.NightFeatures, db.NightFeatures.night_pk == night_pk)
+    _delete_nights(session, [night_pk])
+    marked = versions.mark_deleted_night(session, study=study, content_hash=content_hash, night_id=night_id)
+    owners = [m["participant_pk"] for m in marked if m["participant_pk"] is not None]
+    ids = {pk: pid for pk, pid in session.execute(select(db.Participant.pk, db.Participant.participant_id)
+                                                  .where(db.Participant.pk.in_(owners)))}
+    out = {"night_id": night_id, "scorings": scorings, "features": features,
+           "marked_versions": [{"kind": m["kind"], "participant_id": ids.get(m["participant_pk"]),
+                                "version": m["version"]} for m in marked]}
+    record_audit(session, actor=actor, action="night.delete", study_id=study_id, subject=participant_id,
+                 detail=out | {"label": label})
+    return out
+
+
+def update_night(session: Session, *, study_id: str, participant_id: str, night_id: str, actor: str,
+                 set_label: bool = False, label: str | None = None, excluded: bool | None = None) -> NightInfo:
+    """Correct a night's label and/or exclude it from (or include it again in) training.
+
+    Parameters
+    ----------
+    set_label : bool, default=False
+        Change the label to ``label`` (None clears it); otherwise the label is kept.
+    label : str or None, default=None
+    excluded : bool or None, default=None
+        Exclude the night from personal and pooled training (True) or include it again (False);
+        None keeps it as it is. An excluded night stays stored, listed and scorable.
+
+    Returns
+    -------
+    NightInfo
+        The night after the change (unchanged, and no audit entry, when nothing changes).
+    """
+    row = _night_row(session, study_id, participant_id, night_id)
+    changes: dict[str, Any] = {}
+    if set_label and label != row.label:
+        changes["label"] = label
+    if excluded is not None and bool(excluded) != bool(row.excluded):
+        changes["excluded"] = bool(excluded)
+    if changes:
+        before = {k: getattr(row, k) for k in changes}
+        for key, value in changes.items():
+            setattr(row, key, value)
+        session.flush()
+        record_audit(session, actor=actor, action="night.update", study_id=study_id, subject=participant_id,
+                     detail={"night_id": night_id, "before": before, "after": changes})
+    return night_snapshot(row, participant_id)
+
+
+def rename_participant(session: Session, *, study_id: str, participant_id: str, to: str,
+                       actor: str) -> dict[str, Any]:
+    """Give a participant the id ``to``, merging it into participant ``to`` when that one exists.
+
+    Without a participant ``to``, the participant keeps everything under the new id. Otherwise
+    its nights move to ``to``: a night whose content ``to`` already has is dropped as a duplicate
+    (counted in ``duplicates_dropped``), the others move with their stored features; finished
+    training jobs move too; then the old participant is removed. In both cases personal model
+    versions stay readable: they take new numbers under ``to`` after every number ``to`` has had
+    (``personal_versions`` maps old to new numbers), and are candidates if ``to`` has an active
+    version (else the active one stays active). Cached scorings of the moved nights are dropped
+    (they name version numbers and offsets of the old id). Pooled versions keep their records
+    under the old id: offsets learnt for it apply to ``to`` once the pooled model is trained again.
+
+    Returns
+    -------
+    renamed : dict
+        ``participant_id`` (``to``), ``previous_id``, ``merged`` (``to`` existed), ``nights_moved``,
+        ``duplicates_dropped`` and ``personal_versions`` (list of ``{"previous_version", "version"}``).
+
+    Raises
+    ------
+    BadRequest
+        If ``to`` is not a valid participant id.
+    Unprocessable
+        Code ``same_participant`` if ``to`` is the participant's own id.
+    Conflict
+        Code ``training_in_progress`` while a training of the participant is queued or running;
+        ``participant_id_case_clash`` if ``to`` differs from another participant's id only by case.
+    """
+    check_id(to, "participant id")
+    if to == participant_id:
+        raise Unprocessable(f"participant {participant_id!r} already has this id", code="same_participant")
+    study = study_snapshot(lock_study(session, study_id))
+    source = find_participant(session, study, participant_id)
+    job = session.scalar(select(db.Job.job_id).where(db.Job.participant_pk == source.pk,
+                                                     db.Job.active_key.is_not(None)).limit(1))
+    if job is not None:
+        raise Conflict(f"a training of participant {participant_id!r} is queued or running (job {job}); wait for it "
+                       "or cancel it, then rename", code="training_in_progress")
+    target_row = session.scalar(select(db.Participant).where(db.Participant.study_pk == study.pk,
+                                                             db.Participant.participant_id == to))
+    night_pks = list(session.scalars(select(db.Night.pk).where(db.Night.participant_pk == source.pk)))
+    dropped: list[int] = []
+    if target_row is None:
+        if (clash := case_clash(session, study_pk=study.pk, participant_id=to, ignore_pk=source.pk)) is not None:
+            raise Conflict(f"participant id {to!r} differs only by case from participant {clash!r} of study "
+                           f"{study_id!r}; rename to {clash!r} to merge", code="participant_id_case_clash")
+        numbers = versions.move_personal_versions(session, study=study, source_pk=source.pk, target_pk=source.pk,
+                                                  target_id=to, keep_active=True)
+        session.execute(update(db.Participant).where(db.Participant.pk == source.pk).values(participant_id=to))
+    else:
+        target = participant_snapshot(target_row, study.study_id)
+        have = set(session.scalars(select(db.Night.content_hash).where(db.Night.participant_pk == target.pk)))
+        for pk, content_hash in session.execute(select(db.Night.pk, db.Night.content_hash)
+                                                .where(db.Night.participant_pk == source.pk)):
+            (dropped if content_hash in have else []).append(pk)
+        _delete_nights(session, dropped)
+        session.execute(update(db.Night).where(db.Night.participant_pk == source.pk).values(participant_pk=target.pk))
+        keep_active = versions.active_version(session, study=study, participant=target) is None
+        numbers = versions.move_personal_versions(session, study=study, source_pk=source.pk, target_pk=target.pk,
+                                                  target_id=to, keep_active=keep_active)
+        session.execute(update(db.Job).where(db.Job.participant_pk == source.pk).values(participant_pk=target.pk))
+        session.execute(delete(db.Participant).where(db.Participant.pk == source.pk))
+    moved = [pk for pk in night_pks if pk not in set(dropped)]
+    if moved:
+        session.execute(delete(db.Scoring).where(db.Scoring.night_pk.in_(moved)))
+    out = {"participant_id": to, "previous_id": participant_id, "merged": target_row is not None,
+           "nights_moved": len(moved), "duplicates_dropped": len(dropped),
+           "personal_versions": [{"previous_version": old, "version": new} for old, new in numbers.items()]}
+    record_audit(session, actor=actor, action="participant.rename", study_id=study_id, subject=participant_id,
+                 detail=out)
+    return out
