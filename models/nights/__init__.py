@@ -5,10 +5,12 @@ from __future__ import annotations
 from .checks import (
     CodedLabels,
     NightOptions,
-    QCConfig,
-    QCFlag,
-    quality_flags,
     validate_night_fields,
+)
+from .columns import (
+    COLUMN_ALIASES,
+    REFERENCE_HINTS,
+    looks_like_reference,
 )
 from .formats import (
     FORMATS,
@@ -34,24 +36,37 @@ from .profiles import (
     ImportProfile,
     InvalidProfileError,
 )
+from .quality import (
+    QCConfig,
+    QCFlag,
+    quality_flags,
+)
 from .resample import (
     aggregate_epochs,
     majority_stage,
+    to_study_epoch,
 )
 from .tabular import (
-    COLUMN_ALIASES,
     night_from_csv,
     night_from_parquet,
     night_to_csv,
     night_to_parquet,
 )
+from .timestamps import (
+    EARLIEST_PLAUSIBLE_DATE,
+    ISO_8601_PATTERN,
+    LATEST_PLAUSIBLE_DATE,
+)
 
 __all__ = [
     "COLUMN_ALIASES",
     "CodedLabels",
+    "EARLIEST_PLAUSIBLE_DATE",
     "FORMATS",
+    "ISO_8601_PATTERN",
     "ImportProfile",
     "InvalidProfileError",
+    "LATEST_PLAUSIBLE_DATE",
     "MovementTimePolicy",
     "Night",
     "NightOptions",
@@ -59,12 +74,14 @@ __all__ = [
     "PROFILE_STAGE_TARGETS",
     "QCConfig",
     "QCFlag",
+    "REFERENCE_HINTS",
     "STAGE_CODES",
     "SUPPORTED_EPOCH_SECONDS",
     "UNSCORED_CODES",
     "aggregate_epochs",
     "canonical_stage",
     "detect_format",
+    "looks_like_reference",
     "majority_stage",
     "night_from_csv",
     "night_from_json",
@@ -75,5 +92,6 @@ __all__ = [
     "quality_flags",
     "read_night",
     "stages_to_sleep",
+    "to_study_epoch",
     "validate_night_fields",
 ]

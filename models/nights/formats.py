@@ -23,11 +23,13 @@ Every reader returns a valid :class:`~models.nights.night.Night` or raises
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 from .checks import NightOptions
 from .json_io import night_from_json
 from .night import Night
+from .profiles import ImportProfile
 from .tabular import night_from_csv, night_from_parquet
 
 __all__ = ["FORMATS", "detect_format", "read_night"]
@@ -48,10 +50,28 @@ def detect_format(name: str | None, data: bytes) -> str:
 
 
 def read_night(path: str | Path, *, participant_id: str = "", options: NightOptions = NightOptions(),
-               fmt: str | None = None) -> Night:
-    """Read one night file (format from ``fmt`` or the suffix/content)."""
+               fmt: str | None = None, profile: ImportProfile | None = None) -> Night:
+    """Read one night file (format from ``fmt`` or the suffix/content).
+
+    Parameters
+    ----------
+    path : str or Path
+    participant_id : str, default=""
+    options : NightOptions
+    fmt : {"json", "csv", "parquet"}, optional
+        Format; by default from the suffix, else the content.
+    profile : ImportProfile, optional
+        The export's layout, passed to the reader (see each reader for the fields that apply).
+
+    Returns
+    -------
+    Night
+        With :attr:`~models.nights.night.Night.source_name` the file's name and, when the file
+        gives no label, the file's stem as :attr:`~models.nights.night.Night.label`.
+    """
     path = Path(path)
     data = path.read_bytes()
     fmt = fmt or detect_format(path.name, data)
     reader = {"json": night_from_json, "csv": night_from_csv, "parquet": night_from_parquet}[fmt]
-    return reader(data, participant_id=participant_id, options=options, source=str(path))
+    night = reader(data, participant_id=participant_id, options=options, source=str(path), profile=profile)
+    return night if night.label is not None else replace(night, label=path.stem)
