@@ -30,6 +30,13 @@ from .night import (
     canonical_stage,
     stages_to_sleep,
 )
+from .profile_guess import (
+    DATE_FORMATS,
+    DATETIME_FORMATS,
+    TIME_OF_DAY_FORMATS,
+    ProfileGuess,
+    guess_profile,
+)
 from .profiles import (
     PROFILE_COLUMN_ROLES,
     PROFILE_STAGE_TARGETS,
@@ -61,6 +68,8 @@ from .timestamps import (
 __all__ = [
     "COLUMN_ALIASES",
     "CodedLabels",
+    "DATETIME_FORMATS",
+    "DATE_FORMATS",
     "EARLIEST_PLAUSIBLE_DATE",
     "FORMATS",
     "ISO_8601_PATTERN",
@@ -72,15 +81,18 @@ __all__ = [
     "NightOptions",
     "PROFILE_COLUMN_ROLES",
     "PROFILE_STAGE_TARGETS",
+    "ProfileGuess",
     "QCConfig",
     "QCFlag",
     "REFERENCE_HINTS",
     "STAGE_CODES",
     "SUPPORTED_EPOCH_SECONDS",
+    "TIME_OF_DAY_FORMATS",
     "UNSCORED_CODES",
     "aggregate_epochs",
     "canonical_stage",
     "detect_format",
+    "guess_profile",
     "looks_like_reference",
     "majority_stage",
     "night_from_csv",

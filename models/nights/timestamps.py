@@ -62,6 +62,22 @@ def has_zone(fmt: str) -> bool:
     return "%z" in fmt or "%Z" in fmt
 
 
+_DIGITS = {"m": r"\d{1,2}", "Y": r"\d{4}", "y": r"\d{2}", "H": r"\d{1,2}", "I": r"\d{1,2}", "M": r"\d{1,2}",
+           "S": r"\d{1,2}", "f": r"\d{1,9}", "j": r"\d{1,3}"}
+
+
+def _day_pattern(fmt: str) -> str:
+    """A regular expression (RE2) of texts written with ``fmt`` that captures the day of month as ``d``."""
+    out = ["^"]
+    for literal, directive in re.findall(r"([^%]*)(%.|$)", fmt):
+        out.extend(r"\s+" if part.isspace() else re.sub(r"([^\w\s])", r"\\\1", part)
+                   for part in re.split(r"(\s+)", literal) if part)
+        key = directive[1:]
+        out.append("" if not directive else "(?P<d>\\d{1,2})" if key == "d" else "%" if key == "%"
+                   else _DIGITS.get(key, ".+?"))
+    return "".join(out) + "$"
+
+
 def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
     """Times written with ``fmt``, as int64 nanoseconds (UTC when the format has ``%z``), :data:`NAT` if invalid.
 
@@ -75,6 +91,12 @@ def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
     Returns
     -------
     ns : ndarray of int64, shape (n,)
+
+    Notes
+    -----
+    Arrow's ``strptime`` reads a day of month past the month's end (31/02) as the following days
+    (03/03), where pandas refuses it; those results fall on days 1-3, so a row read as day 1-3 is
+    kept only when the day written is the day read. Every other doubtful row goes to pandas.
     """
     import pyarrow as pa
     import pyarrow.compute as pc
@@ -82,21 +104,24 @@ def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
     aware = has_zone(fmt)
     try:
         fast = pc.strptime(text, format=fmt, unit="ns", error_is_null=True)
-        ns = pc.fill_null(fast.cast(pa.int64()), NAT).to_numpy(zero_copy_only=False)
-        doubtful = (ns == NAT) | (ns < _FIRST)
+        ns = np.asarray(pc.fill_null(fast.cast(pa.int64()), NAT).to_numpy(zero_copy_only=False), dtype=np.int64)
+        doubtful = ns < _FIRST  # not read, or a year pandas may refuse (e.g. 31 for %Y)
         if "%d" in fmt:
-            doubtful |= pc.fill_null(pc.day(fast), 0).to_numpy(zero_copy_only=False) <= 3
+            early = np.flatnonzero(~doubtful & (pc.fill_null(pc.day(fast), 0).to_numpy(zero_copy_only=False) <= 3))
+            if early.size:
+                days = pc.extract_regex(pc.take(text, pa.array(early)), _day_pattern(fmt)).field("d")
+                written = pc.fill_null(pc.cast(days, pa.int64(), safe=False), -1).to_numpy(zero_copy_only=False)
+                read = pc.day(pc.take(fast, pa.array(early))).to_numpy(zero_copy_only=False)
+                doubtful[early[written != read]] = True
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError):  # a directive Arrow does not know
         ns = np.full(len(text), NAT, dtype=np.int64)
         doubtful = np.ones(len(text), dtype=bool)
-    ns = np.asarray(ns, dtype=np.int64)
     if doubtful.any():
         idx = np.flatnonzero(doubtful)
         values = pc.take(text, pa.array(idx)).to_pylist()
         exact = pd.DatetimeIndex(pd.to_datetime(values, format=fmt, exact=True, errors="coerce", utc=aware))
-        redo = exact.as_unit("ns").asi8
         ns = ns.copy()
-        ns[idx] = np.where(exact.isna(), NAT, redo)
+        ns[idx] = np.where(exact.isna(), NAT, exact.as_unit("ns").asi8)
     return ns
 
 
