@@ -2,14 +2,17 @@
 
 A reference whose codes were mapped with the wrong polarity (1 read as sleep where the lab wrote
 1 for wake), shifted or taken from the wrong column looks like a valid night, and would silently
-spoil every comparison and model trained on it. Three figures of the in-bed period expose it:
+spoil every comparison and model trained on it. Three figures expose it:
 
-* **sleep efficiency** of the reference (100 x reference sleep / scored in-bed epochs): healthy and
-  clinical nights alike rarely go below 40 % in a sleep laboratory;
-* **movement**: the actigraph moves more in reference wake than in reference sleep, so the mean
-  counts of reference-sleep epochs must not exceed (a multiple of) those of reference-wake epochs;
-* **a classical rule agrees**: Cole–Kripke's sleep/wake calls reach a balanced accuracy of about
-  0.6-0.8 against PSG; a value far below 0.5 means the reference runs against the movement.
+* **sleep efficiency** of the reference within the in-bed period (100 x reference sleep / scored
+  in-bed epochs): healthy and clinical nights alike rarely go below 40 % in a sleep laboratory;
+* **movement**, over the whole recording: the actigraph moves more in reference wake than in
+  reference sleep, so the mean counts of reference-sleep epochs must not exceed (a multiple of)
+  those of reference-wake epochs. The whole recording is used because quiet wake in bed alone can
+  move less than sleep with its postural shifts;
+* **a classical rule agrees**, over the whole recording: Cole–Kripke's sleep/wake calls reach a
+  balanced accuracy of about 0.6-0.8 against PSG; a value far below 0.5 means the reference runs
+  against the movement.
 
 A night fails when any figure crosses its threshold. A figure that cannot be computed (a reference
 without wake epochs has no wake mean and no balanced accuracy) is not held against the night.
@@ -79,9 +82,11 @@ class PlausibilityReport:
     sleep_efficiency_pct : float
         Reference sleep efficiency within the in-bed period, percent.
     mean_counts_sleep, mean_counts_wake : float
-        Mean counts per epoch in reference-sleep and reference-wake in-bed epochs (missing epochs left out).
+        Mean counts per epoch in reference-sleep and reference-wake epochs of the whole recording
+        (missing epochs left out).
     rule_balanced_accuracy : float
-        Balanced accuracy of the configured rule against the reference, in-bed epochs.
+        Balanced accuracy of the configured rule against the reference, scored epochs of the whole
+        recording.
     reasons : list of str
         One sentence per failed check; empty when plausible.
     """
@@ -137,10 +142,9 @@ def reference_plausibility(night: Night, *, config: PlausibilityConfig = Plausib
     if sleep is None or scored < config.min_scored_epochs:
         return PlausibilityReport(False, scored, nan, nan, nan, nan)
     params = sleep_parameters(sleep, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop)
-    ref, counts = sleep[first:stop], night.counts[first:stop]
-    mean_sleep, mean_wake = _mean(counts[ref == 1]), _mean(counts[ref == 0])
-    calls = score_with_rule(night.counts, night.epoch_seconds, config.rule).sleep[first:stop]
-    balanced = epoch_agreement(ref, calls)["balanced_accuracy"]
+    mean_sleep, mean_wake = _mean(night.counts[sleep == 1]), _mean(night.counts[sleep == 0])
+    calls = score_with_rule(night.counts, night.epoch_seconds, config.rule).sleep
+    balanced = epoch_agreement(sleep, calls)["balanced_accuracy"]
     reasons: list[str] = []
     se = float(params.sleep_efficiency_pct)
     if se < config.min_sleep_efficiency_pct:

@@ -32,11 +32,15 @@ __all__ = ["night_from_csv", "night_from_parquet", "night_to_csv", "night_to_par
 _DELIMITERS = (",", ";", "\t", "|")
 
 
-def _skip_lines(text: str, n: int) -> int:
-    """Position after the first ``n`` lines of ``text``."""
+def _skip_lines(text: str, n: int, meta: dict[str, str]) -> int:
+    """Position after the first ``n`` lines of ``text``; their ``# key: value`` lines go into ``meta``."""
     pos = 0
     for _ in range(n):
         nl = text.find("\n", pos)
+        if text.startswith("#", pos):
+            hit = META_LINE.match(text[pos: len(text) if nl < 0 else nl].rstrip("\r"))
+            if hit:
+                meta[hit.group(1).lower()] = hit.group(2)
         if nl < 0:
             return len(text)
         pos = nl + 1
@@ -72,8 +76,8 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
 
     text = decode_text(data, source, profile.encoding if profile is not None else "utf-8")
     skip = profile.skip_rows if profile is not None else 0
-    pos = _skip_lines(text, skip)
     meta: dict[str, str] = {}
+    pos = _skip_lines(text, skip, meta)
     n_pre = skip
     while text.startswith("#", pos):
         nl = text.find("\n", pos)
