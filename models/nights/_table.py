@@ -20,7 +20,9 @@ from .profiles import ImportProfile
 from .timestamps import (
     NAT,
     Quote,
+    arrow_ns,
     has_zone,
+    index_ns,
     invalid_problem,
     iso_invalid,
     localize,
@@ -54,10 +56,8 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
     quote: Quote | None = None
     if date_col is None and pa.types.is_timestamp(time_col.type) and time_col.null_count == 0:
         if time_col.type.tz is not None:
-            utc = time_col.cast(pa.timestamp("ns", tz="UTC")).cast(pa.int64()).to_numpy()
-            problems.extend(plausible_problems(utc, None, row0, field))
-            return utc, None
-        naive = time_col.cast(pa.timestamp("ns")).cast(pa.int64()).to_numpy()
+            return _plausible(arrow_ns(time_col), None, None, row0, field, problems)
+        naive = arrow_ns(time_col)
     else:
         text = text_of(time_col)
         if date_col is not None:
@@ -70,8 +70,7 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
                 problems.append(invalid_problem(bad, [quote(int(i)) for i in bad[:MAX_LISTED]], row0, field, fmt))
                 return None
             if has_zone(fmt):
-                problems.extend(plausible_problems(ns, quote, row0, field))
-                return ns, None
+                return _plausible(ns, None, quote, row0, field, problems)
             naive = ns
         else:
             series = pd.Series(text.to_pylist(), dtype=object)
@@ -82,25 +81,28 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
                 return None
             has_offset = offsets_of(series)
             if has_offset.all():
-                utc = pd.DatetimeIndex(parsed).as_unit("ns").asi8
-                problems.extend(plausible_problems(utc, quote, row0, field))
-                return utc, None
+                return _plausible(index_ns(pd.DatetimeIndex(parsed)), None, quote, row0, field, problems)
             if has_offset.any():
                 i = int(np.flatnonzero(~has_offset)[0] if has_offset[0] else np.flatnonzero(has_offset)[0])
                 problems.append(Problem("mixed_timezones", f"some times carry a UTC offset and others do not "
                                         f"(row {row0 + i})", {"field": field, "row": row0 + i, "epoch": i}))
                 return None
-            naive = pd.DatetimeIndex(pd.to_datetime(series, format="ISO8601")).as_unit("ns").asi8
+            naive = index_ns(pd.DatetimeIndex(pd.to_datetime(series, format="ISO8601")))
     if tz is None:
         first = quote(0) if quote is not None else pd.Timestamp(int(naive[0])).isoformat()
         problems.append(Problem("missing_timezone", f"times have no UTC offset (first {first!r}); add offsets "
                                 "or give the time zone (tz)", {"field": field, "row": row0, "epoch": 0}))
         return None
     placed = localize(naive, tz, quote, row0, field, problems)
-    if placed is None:
-        return None
-    problems.extend(plausible_problems(placed[0], quote, row0, field))
-    return placed
+    return None if placed is None else _plausible(*placed, quote, row0, field, problems)
+
+
+def _plausible(utc_ns: NDArray[np.int64], zone: tzinfo | None, quote: Quote | None, row0: int, field: str,
+               problems: list[Problem]) -> tuple[NDArray[np.int64], tzinfo | None] | None:
+    """The times and zone, or None when a time is implausible (the problem recorded)."""
+    found = plausible_problems(utc_ns, quote, row0, field)
+    problems.extend(found)
+    return None if found else (utc_ns, zone)
 
 
 def _shown(ns: int, zone: tzinfo | None) -> str:

@@ -46,7 +46,7 @@ _SAMPLE_ROWS = 5000  # data rows looked at
 _PREVIEW_ROWS = 5
 _DELIMITERS = (";", "\t", "|", ",")  # ties go to the earlier: a comma may be a decimal mark
 _DECIMAL_COMMA = re.compile(r"^-?\d+,\d+$")
-_NUMBER = re.compile(r"^-?\d+(?:[.,]\d+)?$")
+_NUMBER = {".": re.compile(r"^-?\d+(?:\.\d+)?$"), ",": re.compile(r"^-?\d+(?:,\d+)?$")}
 _COUNT_HINTS = ("count", "activ", "aktiv", "movement", "bewegung", "zcm", "pim")
 _RK = {"0": "W", "1": "N1", "2": "N2", "3": "N3", "4": "N3", "5": "R", "6": "?", "9": "?"}
 _WORDS = {
@@ -174,7 +174,7 @@ def _times(cols: dict[str, list[str]], notes: list[str]) -> tuple[dict[str, str]
 
 def _numeric(values: list[str], decimal: str) -> np.ndarray | None:
     present = [v for v in values if v != ""]
-    if not present or not all(_NUMBER.match(v) for v in present):
+    if not present or not all(_NUMBER[decimal].match(v) for v in present):
         return None
     return np.array([float(v.replace(",", ".")) if decimal == "," else float(v) for v in present])
 
@@ -247,6 +247,11 @@ def guess_profile(data: bytes, *, name: str = "guessed") -> ProfileGuess:
     Returns
     -------
     ProfileGuess
+
+    Raises
+    ------
+    InvalidProfileError
+        When ``name`` is not a valid profile name.
     """
     notes: list[str] = []
     text, encoding = _decode(data, notes)
@@ -256,7 +261,10 @@ def guess_profile(data: bytes, *, name: str = "guessed") -> ProfileGuess:
     if not lines:
         return ProfileGuess(ImportProfile(name=name, encoding=encoding), [], ["the file is empty"], [])
     sep, skip = _layout(lines)
-    rows = list(csv.reader(lines[skip: skip + _SAMPLE_ROWS + 1], delimiter=sep))
+    try:
+        rows = list(csv.reader(lines[skip: skip + _SAMPLE_ROWS + 1], delimiter=sep))
+    except csv.Error:  # stray carriage returns or NUL bytes: split plainly
+        rows = [line.split(sep) for line in lines[skip: skip + _SAMPLE_ROWS + 1]]
     header, body = rows[0], [r for r in rows[1:] if len(r) == len(rows[0])]
     cols = {h: [r[i].strip() for r in body] for i, h in enumerate(header) if h.strip()}
     values = [v for vs in cols.values() for v in vs]

@@ -47,6 +47,14 @@ def _skip_lines(text: str, n: int, meta: dict[str, str]) -> int:
     return pos
 
 
+def _cells(line: str, sep: str) -> list[str]:
+    """The fields of one line (quotes as the CSV reader takes them)."""
+    try:
+        return next(csv.reader([line], delimiter=sep), [])
+    except csv.Error:  # a stray carriage return or NUL: Arrow will name the line
+        return line.split(sep)
+
+
 def night_from_csv(data: bytes | str, *, participant_id: str = "", options: NightOptions = NightOptions(),
                    source: str | None = None, profile: ImportProfile | None = None) -> Night:
     """Night from CSV text (see :mod:`models.nights.formats`); parsed by Arrow's C++ CSV reader.
@@ -103,7 +111,7 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
     second_end = body.find("\n", header_end + 1)
     first_row = body[header_end + 1: len(body) if second_end < 0 else second_end].rstrip("\r")
     decimal = profile.decimal if profile is not None else ("," if sep != "," and "," in first_row else ".")
-    names = next(csv.reader([header], delimiter=sep))
+    names = _cells(header, sep)
     problems: list[Problem] = []
     roles = find_columns(names, options, profile, n_pre + 1, problems)
     if roles.time is None or roles.counts is None:
@@ -112,7 +120,7 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
     as_text = fmt is not None or roles.date is not None
     first_tz = None
     if not as_text:
-        cells = next(csv.reader([first_row], delimiter=sep), [])
+        cells = _cells(first_row, sep)
         at = names.index(roles.time)
         if at < len(cells):
             try:

@@ -45,6 +45,28 @@ ISO_8601_PATTERN = r"\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}(?::\d{2}(?:[.,]\d{1,9})?)?
 NAT = np.iinfo(np.int64).min  # pandas' NaT as int64
 _OFFSET_AT_END = re.compile(r"(?:Z|[+-]\d\d:?\d\d)$")
 _FIRST, _LAST = EARLIEST_PLAUSIBLE_DATE.value, LATEST_PLAUSIBLE_DATE.value
+# times far outside the plausible range are clipped to these (still implausible, but they fit int64 nanoseconds)
+_LOW, _HIGH = _FIRST - 3650 * 86_400 * 10**9, _LAST + 3650 * 86_400 * 10**9
+_PER_UNIT = {"s": 10**9, "ms": 10**6, "us": 10**3, "ns": 1}
+
+
+def index_ns(index: pd.DatetimeIndex) -> NDArray[np.int64]:
+    """Times as int64 nanoseconds (UTC for aware ones), :data:`NAT` for NaT; far-off times clipped."""
+    if index.unit == "ns":
+        return np.asarray(index.asi8, dtype=np.int64)
+    per = _PER_UNIT[index.unit]
+    raw = np.asarray(index.asi8, dtype=np.int64)
+    out = np.clip(raw, _LOW // per, _HIGH // per) * per
+    return np.where(index.isna(), NAT, out)
+
+
+def arrow_ns(col: pa.Array) -> NDArray[np.int64]:
+    """An Arrow timestamp column (no nulls) as int64 nanoseconds (UTC for aware ones); far-off times clipped."""
+    import pyarrow as pa
+
+    per = _PER_UNIT[col.type.unit]
+    raw = np.asarray(col.cast(pa.int64()).to_numpy(zero_copy_only=False), dtype=np.int64)
+    return raw if per == 1 else np.clip(raw, _LOW // per, _HIGH // per) * per
 
 
 def text_of(col: pa.Array) -> pa.Array:
@@ -121,7 +143,7 @@ def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
         values = pc.take(text, pa.array(idx)).to_pylist()
         exact = pd.DatetimeIndex(pd.to_datetime(values, format=fmt, exact=True, errors="coerce", utc=aware))
         ns = ns.copy()
-        ns[idx] = np.where(exact.isna(), NAT, exact.as_unit("ns").asi8)
+        ns[idx] = index_ns(exact)
     return ns
 
 
