@@ -59,14 +59,16 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
             return _plausible(arrow_ns(time_col), None, None, row0, field, problems)
         naive = arrow_ns(time_col)
     else:
-        text = text_of(time_col)
-        if date_col is not None:
-            text = pc.binary_join_element_wise(text_of(date_col), text, " ")
+        if date_col is None:
+            text = text_of(time_col)
+        else:  # one trim after joining: blanks inside read as the format's blank
+            text = text_of(pc.binary_join_element_wise(_as_text(date_col), _as_text(time_col), " "))
         quote = lambda i: str(text[i].as_py())  # noqa: E731
         if fmt is not None:
             ns = parse_with_format(text, fmt)
-            bad = np.flatnonzero(ns == NAT)
-            if bad.size:
+            invalid = ns == NAT
+            if invalid.any():
+                bad = np.flatnonzero(invalid)
                 problems.append(invalid_problem(bad, [quote(int(i)) for i in bad[:MAX_LISTED]], row0, field, fmt))
                 return None
             if has_zone(fmt):
@@ -97,6 +99,16 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
     return None if placed is None else _plausible(*placed, quote, row0, field, problems)
 
 
+def _as_text(col: pa.Array) -> pa.Array:
+    """A column as text, nulls as empty text."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if not pa.types.is_string(col.type):
+        col = col.cast(pa.string())
+    return pc.fill_null(col, "") if col.null_count else col
+
+
 def _plausible(utc_ns: NDArray[np.int64], zone: tzinfo | None, quote: Quote | None, row0: int, field: str,
                problems: list[Problem]) -> tuple[NDArray[np.int64], tzinfo | None] | None:
     """The times and zone, or None when a time is implausible (the problem recorded)."""
@@ -123,8 +135,9 @@ def regular_epochs(utc_ns: NDArray[np.int64], row0: int, fill_gaps: bool, zone: 
         positive = step_ns[step_ns > 0]
         epoch_ns = int(np.median(positive)) if positive.size else 0
     ok = True
-    for code, mask, what in (("duplicate_timestamp", step_ns == 0, "repeats the previous time"),
-                             ("time_not_increasing", step_ns < 0, "goes back in time")):
+    regular = (step_ns == epoch_ns).all()
+    for code, mask, what in () if regular else (("duplicate_timestamp", step_ns == 0, "repeats the previous time"),
+                                                ("time_not_increasing", step_ns < 0, "goes back in time")):
         idx = np.flatnonzero(mask) + 1
         if idx.size:
             ok = False
@@ -138,7 +151,7 @@ def regular_epochs(utc_ns: NDArray[np.int64], row0: int, fill_gaps: bool, zone: 
         problems.append(Problem("unsupported_epoch_length", f"rows are {epoch_ns / 1e9:g} s apart; epochs must be "
                                 "15, 30 or 60 s", {"field": field, "row": row0 + 1}))
         return None
-    irregular = np.flatnonzero(step_ns != epoch_ns) + 1
+    irregular = np.zeros(0, dtype=np.intp) if regular else np.flatnonzero(step_ns != epoch_ns) + 1
     if irregular.size:
         steps = step_ns[irregular - 1]
         if not (fill_gaps and (steps % epoch_ns == 0).all()):
@@ -170,8 +183,9 @@ def _counts(col: pa.Array, row0: int, field: str, fill_gaps: bool, problems: lis
                                      "values": raw.iloc[bad[:MAX_LISTED]].astype(str).tolist()}))
         counts = numeric.to_numpy(dtype=np.float64, na_value=np.nan).copy()
         counts[bad] = 0.0  # reported above; keep them out of the NaN check
-    empty = np.flatnonzero(np.isnan(counts))
-    if empty.size and not fill_gaps:
+    nan = np.isnan(counts)
+    if not fill_gaps and nan.any():
+        empty = np.flatnonzero(nan)
         problems.append(Problem("non_finite_count", f"{empty.size} count(s) are empty or NaN, first at row "
                                 f"{row0 + empty[0]}", {"field": field, "row": int(row0 + empty[0]),
                                                        "epoch": int(empty[0])}))

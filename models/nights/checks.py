@@ -94,14 +94,17 @@ def _counts_problems(counts: Collection[object], field_name: str,
                 {"field": field_name, "epoch": bad[0], "values": [repr(seq[i]) for i in bad[:MAX_LISTED]]},
             ))
             return None, problems
-    nonfinite = np.flatnonzero(np.isinf(values) if allow_missing else ~np.isfinite(values))
+    finite = np.isfinite(values)
+    nonfinite = np.zeros(0, dtype=np.intp) if finite.all() else \
+        np.flatnonzero(np.isinf(values) if allow_missing else ~finite)
     if nonfinite.size:
         problems.append(Problem(
             "non_finite_count",
             f"{nonfinite.size} count(s) are NaN or infinite, first at epoch {nonfinite[0]}",
             {"field": field_name, "epoch": int(nonfinite[0]), "epochs": _first(nonfinite)},
         ))
-    negative = np.flatnonzero(values < 0)
+    below = values < 0
+    negative = np.flatnonzero(below) if below.any() else np.zeros(0, dtype=np.intp)
     if negative.size:
         problems.append(Problem(
             "negative_count",

@@ -15,6 +15,7 @@ from __future__ import annotations
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import lru_cache
 
 from ..errors import Problem
 from .checks import NightOptions
@@ -36,12 +37,14 @@ _BLANKS = re.compile(r"[\s\-]+")
 _ROLES = ("time", "date", "counts", "reference")
 
 
+@lru_cache(maxsize=4096)  # the same headers come back file after file
 def header_key(name: str) -> str:
     """A header as compared with the aliases: lower case, trailing unit dropped, blanks as ``_``."""
     text = _UNIT.sub("", str(name).strip().lower()) or str(name).strip().lower()
     return _BLANKS.sub("_", text.strip())
 
 
+@lru_cache(maxsize=4096)
 def looks_like_reference(name: str) -> bool:
     """Whether a header names a reference-like column (any of :data:`REFERENCE_HINTS`)."""
     text = str(name).strip().lower()

@@ -20,7 +20,7 @@ from ..errors import InvalidNightError, Problem
 from ._decoding import META_LINE, decode_text
 from ._table import night_from_table
 from .checks import NightOptions
-from .columns import find_columns
+from .columns import ColumnRoles, find_columns
 from .night import Night
 from .profiles import ImportProfile
 
@@ -128,18 +128,8 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
             except (ValueError, TypeError):
                 pass
     tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
-    time_type = pa.string() if as_text else pa.timestamp("s") if tz is not None else pa.timestamp("s", tz="UTC")
-    fast_types = {roles.time: time_type, roles.counts: pa.float64(),
-                  roles.reference: pa.dictionary(pa.int32(), pa.string()), roles.date: pa.string()}
-    slow_types = {roles.time: pa.string(), roles.reference: pa.string(), roles.date: pa.string()}
-    used = roles.used()
-    buffer = pa.py_buffer(body.encode())
     try:
-        try:  # typed read first: the usual file converts without type inference
-            table = _read_arrow_csv(buffer, sep, decimal, {n: fast_types[n] for n in used}, used)
-        except pa.ArrowInvalid:  # something does not convert: read as found, so the checks can locate it
-            table = _read_arrow_csv(buffer, sep, decimal, {n: t for n, t in slow_types.items()
-                                                           if n is not None}, used)
+        table = _read_table(pa.py_buffer(body.encode()), sep, decimal, roles, as_text, tz)
     except pa.ArrowInvalid as exc:
         msg = str(exc).strip().splitlines()[0]
         hit = re.search(r"Row #(\d+)", msg)
@@ -157,18 +147,48 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
         raise
 
 
+def _read_table(buffer: pa.Buffer, sep: str, decimal: str, roles: ColumnRoles, as_text: bool,
+                tz: str | None) -> pa.Table:
+    """The used columns of a CSV body, typed when they convert, else as found (for the checks to locate).
+
+    ``as_text``: the times are read as text (a format or a date column is given).
+
+    Raises
+    ------
+    pyarrow.ArrowInvalid
+        When a line does not fit the header.
+    """
+    import pyarrow as pa
+
+    time_type = pa.string() if as_text else pa.timestamp("s") if tz is not None else pa.timestamp("s", tz="UTC")
+    fast = {roles.time: time_type, roles.counts: pa.float64(), roles.reference: pa.dictionary(pa.int32(), pa.string()),
+            roles.date: pa.string()}
+    used = roles.used()
+    try:  # typed read first: the usual file converts without type inference
+        return _read_arrow_csv(buffer, sep, decimal, {n: fast[n] for n in used}, used, stream=True)
+    except pa.ArrowInvalid:  # something does not convert: read as found, so the checks can locate it
+        slow = {roles.time: pa.string(), roles.reference: pa.string(), roles.date: pa.string()}
+        return _read_arrow_csv(buffer, sep, decimal, {n: t for n, t in slow.items() if n is not None}, used)
+
+
 def _read_arrow_csv(buffer: pa.Buffer, sep: str, decimal: str, column_types: dict[str, pa.DataType],
-                    columns: list[str]) -> pa.Table:
-    """The ``columns`` of a CSV body (header first), with the given types and the rest inferred."""
+                    columns: list[str], *, stream: bool = False) -> pa.Table:
+    """The ``columns`` of a CSV body (header first), with the given types and the rest inferred.
+
+    ``stream`` reads with Arrow's streaming reader, a little faster when every column's type is
+    given (it infers types from the first block only, so it is not used to infer them).
+    """
     import pyarrow.csv as pacsv
 
-    return pacsv.read_csv(
-        buffer,
-        read_options=pacsv.ReadOptions(use_threads=False),
-        parse_options=pacsv.ParseOptions(delimiter=sep),
-        convert_options=pacsv.ConvertOptions(decimal_point=decimal, strings_can_be_null=True,
-                                             column_types=column_types, include_columns=columns),
-    )
+    read_options = pacsv.ReadOptions(use_threads=False)
+    parse_options = pacsv.ParseOptions(delimiter=sep)
+    convert_options = pacsv.ConvertOptions(decimal_point=decimal, strings_can_be_null=True,
+                                           column_types=column_types, include_columns=columns)
+    if stream:
+        return pacsv.open_csv(buffer, read_options=read_options, parse_options=parse_options,
+                              convert_options=convert_options).read_all()
+    return pacsv.read_csv(buffer, read_options=read_options, parse_options=parse_options,
+                          convert_options=convert_options)
 
 
 def night_to_csv(night: Night) -> str:

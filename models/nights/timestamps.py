@@ -76,7 +76,7 @@ def text_of(col: pa.Array) -> pa.Array:
 
     if not pa.types.is_string(col.type):
         col = col.cast(pa.string())
-    return pc.utf8_trim_whitespace(pc.fill_null(col, ""))
+    return pc.utf8_trim_whitespace(pc.fill_null(col, "") if col.null_count else col)
 
 
 def has_zone(fmt: str) -> bool:
@@ -89,15 +89,29 @@ _DIGITS = {"m": r"\d{1,2}", "Y": r"\d{4}", "y": r"\d{2}", "H": r"\d{1,2}", "I": 
 
 
 def _day_pattern(fmt: str) -> str:
-    """A regular expression (RE2) of texts written with ``fmt`` that captures the day of month as ``d``."""
+    """A regular expression (RE2) of the start of texts written with ``fmt``, up to the day of month (group ``d``)."""
     out = ["^"]
     for literal, directive in re.findall(r"([^%]*)(%.|$)", fmt):
         out.extend(r"\s+" if part.isspace() else re.sub(r"([^\w\s])", r"\\\1", part)
                    for part in re.split(r"(\s+)", literal) if part)
         key = directive[1:]
-        out.append("" if not directive else "(?P<d>\\d{1,2})" if key == "d" else "%" if key == "%"
-                   else _DIGITS.get(key, ".+?"))
-    return "".join(out) + "$"
+        if key == "d":
+            return "".join(out) + r"(?P<d>\d{1,2})"
+        out.append("%" if key == "%" else _DIGITS.get(key, ".+?"))
+    return "".join(out)
+
+
+def _early_days(ns: NDArray[np.int64], last_day: int) -> bool:
+    """Whether some of the times (int64 ns) may fall on days 1..``last_day`` of a month.
+
+    Every time lies between the earliest and the latest, so when those two share a month and the
+    earliest is past ``last_day``, none can.
+    """
+    if ns.size == 0:
+        return False
+    ends = np.array([ns.min(), ns.max()]).view("M8[ns]")
+    months = ends.astype("M8[M]")
+    return bool(months[0] != months[1] or (ends[0].astype("M8[D]") - months[0]).astype(np.int64) + 1 <= last_day)
 
 
 def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
@@ -117,8 +131,9 @@ def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
     Notes
     -----
     Arrow's ``strptime`` reads a day of month past the month's end (31/02) as the following days
-    (03/03), where pandas refuses it; those results fall on days 1-3, so a row read as day 1-3 is
-    kept only when the day written is the day read. Every other doubtful row goes to pandas.
+    (03/03), where pandas refuses it; those results fall on days 1-3 (1-4 in UTC with ``%z``), so
+    a row read as such a day is kept only when the day written is the day read. Every other
+    doubtful row (not read by Arrow, or a year before the plausible range) goes to pandas.
     """
     import pyarrow as pa
     import pyarrow.compute as pc
@@ -126,15 +141,18 @@ def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
     aware = has_zone(fmt)
     try:
         fast = pc.strptime(text, format=fmt, unit="ns", error_is_null=True)
-        ns = np.asarray(pc.fill_null(fast.cast(pa.int64()), NAT).to_numpy(zero_copy_only=False), dtype=np.int64)
-        doubtful = ns < _FIRST  # not read, or a year pandas may refuse (e.g. 31 for %Y)
-        if "%d" in fmt:
-            early = np.flatnonzero(~doubtful & (pc.fill_null(pc.day(fast), 0).to_numpy(zero_copy_only=False) <= 3))
-            if early.size:
-                days = pc.extract_regex(pc.take(text, pa.array(early)), _day_pattern(fmt)).field("d")
+        ns = np.asarray(fast.to_numpy(zero_copy_only=False)).view(np.int64)  # nulls come as NaT
+        # not read, or a year pandas may refuse (e.g. 31 for %Y); a time of day alone is read on 1900-01-01
+        doubtful = ns < _FIRST if re.search(r"%[YyG]", fmt) else ns == NAT
+        if "%d" in fmt and _early_days(ns[~doubtful], 4 if aware else 3):  # in UTC a local day may move by one
+            stamps = ns.view("M8[ns]")
+            day_read = (stamps.astype("M8[D]") - stamps.astype("M8[M]")).astype(np.int64) + 1
+            early = ~doubtful & (day_read <= (4 if aware else 3))
+            if early.any():
+                sub = text if early.all() else pc.filter(text, pa.array(early))
+                days = pc.extract_regex(sub, _day_pattern(fmt)).field("d")
                 written = pc.fill_null(pc.cast(days, pa.int64(), safe=False), -1).to_numpy(zero_copy_only=False)
-                read = pc.day(pc.take(fast, pa.array(early))).to_numpy(zero_copy_only=False)
-                doubtful[early[written != read]] = True
+                doubtful[np.flatnonzero(early)[written != day_read[early]]] = True
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError):  # a directive Arrow does not know
         ns = np.full(len(text), NAT, dtype=np.int64)
         doubtful = np.ones(len(text), dtype=bool)
@@ -200,6 +218,14 @@ def localize(naive_ns: NDArray[np.int64], tz: str, quote: Quote | None, row0: in
         problems.append(Problem("unknown_time_zone", f"time zone {tz!r} is not an IANA zone name (e.g. "
                                 "Europe/Berlin)", {"field": "tz"}))
         return None
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    try:  # Arrow's kernel places the usual night, with no clock change, fast
+        placed = pc.assume_timezone(pa.array(naive_ns.view("M8[ns]")), tz, ambiguous="raise", nonexistent="raise")
+        return np.asarray(placed.cast(pa.int64()).to_numpy(zero_copy_only=False), dtype=np.int64), zone
+    except pa.ArrowInvalid:  # a clock change (or a zone Arrow's database lacks): pandas infers and explains
+        pass
     index = pd.DatetimeIndex(naive_ns.view("M8[ns]"))
     try:
         local = index.tz_localize(zone, ambiguous="infer", nonexistent="raise")
