@@ -1,4 +1,4 @@
-"""Nights: the data model, validation and quality flags, epoch aggregation, and the JSON/CSV/Parquet formats."""
+"""Nights: the data model, checks and quality flags, epoch aggregation, import profiles, JSON/CSV/Parquet formats."""
 
 from __future__ import annotations
 
