@@ -26,6 +26,12 @@ from .epoch_metrics import (
     always_sleep,
     epoch_agreement,
 )
+from .plausibility import (
+    PlausibilityConfig,
+    PlausibilityReport,
+    check_reference,
+    reference_plausibility,
+)
 from .rule_comparison import (
     NightRecord,
     compare_rules_with_reference,
@@ -42,14 +48,18 @@ __all__ = [
     "NightComparison",
     "NightRecord",
     "PARAMETER_COLUMNS",
+    "PlausibilityConfig",
+    "PlausibilityReport",
     "REFERENCE",
     "ScoredNight",
     "agreement_table",
     "always_sleep",
     "bland_altman",
     "bland_altman_table",
+    "check_reference",
     "compare_night",
     "compare_rules_with_reference",
     "comparison_tables",
     "epoch_agreement",
+    "reference_plausibility",
 ]

@@ -1,14 +1,16 @@
-"""Nights: the data model, validation and quality flags, epoch aggregation, and the JSON/CSV/Parquet formats."""
+"""Nights: the data model, checks and quality flags, epoch aggregation, import profiles, JSON/CSV/Parquet formats."""
 
 from __future__ import annotations
 
 from .checks import (
     CodedLabels,
     NightOptions,
-    QCConfig,
-    QCFlag,
-    quality_flags,
     validate_night_fields,
+)
+from .columns import (
+    COLUMN_ALIASES,
+    REFERENCE_HINTS,
+    looks_like_reference,
 )
 from .formats import (
     FORMATS,
@@ -28,43 +30,70 @@ from .night import (
     canonical_stage,
     stages_to_sleep,
 )
+from .profile_guess import (
+    DATE_FORMATS,
+    DATETIME_FORMATS,
+    TIME_OF_DAY_FORMATS,
+    ProfileGuess,
+    guess_profile,
+)
 from .profiles import (
     PROFILE_COLUMN_ROLES,
     PROFILE_STAGE_TARGETS,
     ImportProfile,
     InvalidProfileError,
 )
+from .quality import (
+    QCConfig,
+    QCFlag,
+    quality_flags,
+)
 from .resample import (
     aggregate_epochs,
     majority_stage,
+    to_study_epoch,
 )
 from .tabular import (
-    COLUMN_ALIASES,
     night_from_csv,
     night_from_parquet,
     night_to_csv,
     night_to_parquet,
 )
+from .timestamps import (
+    EARLIEST_PLAUSIBLE_DATE,
+    ISO_8601_PATTERN,
+    LATEST_PLAUSIBLE_DATE,
+)
 
 __all__ = [
     "COLUMN_ALIASES",
     "CodedLabels",
+    "DATETIME_FORMATS",
+    "DATE_FORMATS",
+    "EARLIEST_PLAUSIBLE_DATE",
     "FORMATS",
+    "ISO_8601_PATTERN",
     "ImportProfile",
     "InvalidProfileError",
+    "LATEST_PLAUSIBLE_DATE",
     "MovementTimePolicy",
     "Night",
     "NightOptions",
     "PROFILE_COLUMN_ROLES",
     "PROFILE_STAGE_TARGETS",
+    "ProfileGuess",
     "QCConfig",
     "QCFlag",
+    "REFERENCE_HINTS",
     "STAGE_CODES",
     "SUPPORTED_EPOCH_SECONDS",
+    "TIME_OF_DAY_FORMATS",
     "UNSCORED_CODES",
     "aggregate_epochs",
     "canonical_stage",
     "detect_format",
+    "guess_profile",
+    "looks_like_reference",
     "majority_stage",
     "night_from_csv",
     "night_from_json",
@@ -75,5 +104,6 @@ __all__ = [
     "quality_flags",
     "read_night",
     "stages_to_sleep",
+    "to_study_epoch",
     "validate_night_fields",
 ]

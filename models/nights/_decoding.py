@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import codecs
 import re
 from collections.abc import Mapping
 from typing import TypedDict
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import pandas as pd
 
@@ -12,6 +14,7 @@ from ..errors import InvalidNightError, Problem
 from .checks import NightOptions
 from .night import Night
 from .resample import aggregate_epochs
+from .timestamps import EARLIEST_PLAUSIBLE_DATE, ISO_8601_PATTERN, LATEST_PLAUSIBLE_DATE
 
 __all__ = ["META_LINE", "NightMetadata", "decode_text", "finish_night", "metadata_fields", "parse_time"]
 
@@ -19,10 +22,25 @@ __all__ = ["META_LINE", "NightMetadata", "decode_text", "finish_night", "metadat
 META_LINE = re.compile(r"^#\s*([A-Za-z_]+)\s*:\s*(.*?)\s*$")
 
 
-def decode_text(data: bytes | str, source: str | None) -> str:
-    """Text of a file: UTF-8 (a byte-order mark is dropped); UTF-16 and undecodable bytes are refused."""
+#: an ISO 8601 time as accepted in JSON and metadata fields (see :mod:`models.nights.timestamps`)
+_ISO_TIME = re.compile(ISO_8601_PATTERN)
+
+
+def decode_text(data: bytes | str, source: str | None, encoding: str = "utf-8") -> str:
+    """Text of a file in ``encoding`` (default UTF-8; a UTF-8 byte-order mark is dropped).
+
+    UTF-16 (when UTF-8 is expected) and bytes that do not decode are refused, naming the line.
+    """
     if isinstance(data, str):
         return data.removeprefix("\ufeff")
+    if codecs.lookup(encoding).name not in ("utf-8", "utf-8-sig"):
+        try:
+            return data.decode(encoding)
+        except UnicodeDecodeError as exc:
+            line = data[: exc.start].count(b"\n") + 1
+            raise InvalidNightError([Problem("undecodable_text", f"the file is not valid {encoding}: byte "
+                                             f"{exc.start} (line {line}) cannot be decoded", {"row": line})],
+                                    source=source) from None
     if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
         raise InvalidNightError([Problem("not_utf8", "the file is UTF-16 encoded (byte-order mark at byte 0); "
                                          "save it as UTF-8", {"row": 1})], source=source)
@@ -49,7 +67,9 @@ def parse_time(value: object, field: str, tz: str | None, problems: list[Problem
                                 {"field": field}))
         return None
     try:
-        ts = pd.Timestamp(value)
+        if not _ISO_TIME.fullmatch(value.strip()):  # pandas would read words such as "now" or "today"
+            raise ValueError(value)
+        ts = pd.Timestamp(value.strip())
     except (ValueError, TypeError):
         problems.append(Problem("invalid_timestamp", f"{field} {value!r} is not an ISO 8601 time", {"field": field}))
         return None
@@ -62,11 +82,22 @@ def parse_time(value: object, field: str, tz: str | None, problems: list[Problem
                                     "(e.g. +01:00) or give a time zone", {"field": field, "time": value}))
             return None
         try:
-            ts = ts.tz_localize(tz, ambiguous="raise", nonexistent="raise")
-        except Exception as exc:  # pytz/zoneinfo raise several types for DST and unknown zones
-            problems.append(Problem("invalid_timestamp", f"{field} {value!r} cannot be placed in time zone "
-                                    f"{tz!r}: {exc}", {"field": field, "time": value}))
+            zone = ZoneInfo(tz)
+        except (ZoneInfoNotFoundError, ValueError):
+            problems.append(Problem("unknown_time_zone", f"time zone {tz!r} is not an IANA zone name (e.g. "
+                                    "Europe/Berlin)", {"field": "tz"}))
             return None
+        try:
+            ts = ts.tz_localize(zone, ambiguous="raise", nonexistent="raise")
+        except ValueError as exc:  # a local time the clocks skip or pass twice
+            problems.append(Problem("daylight_saving", f"{field} {value!r} cannot be placed in time zone {tz!r}: "
+                                    f"{exc}", {"field": field, "time": value}))
+            return None
+    if not EARLIEST_PLAUSIBLE_DATE <= ts < LATEST_PLAUSIBLE_DATE:
+        problems.append(Problem("implausible_date", f"{field} {value!r} lies outside the plausible range "
+                                f"{EARLIEST_PLAUSIBLE_DATE.date()} .. {LATEST_PLAUSIBLE_DATE.date()}",
+                                {"field": field, "time": value}))
+        return None
     return ts
 
 

@@ -1,25 +1,24 @@
-"""Validation of night fields and quality-control flags.
+"""Validation of night fields.
 
 Validation refuses a night: :func:`validate_night_fields` collects *every* problem of the input
-(never stopping at the first) and raises :class:`~models.errors.InvalidNightError`.
-Quality control only warns: :func:`quality_flags` returns flags stored with the night and never
-changes its data.
+(never stopping at the first) and raises :class:`~models.errors.InvalidNightError`. Quality
+control, which only warns, is in :mod:`models.nights.quality`.
 """
 
 from __future__ import annotations
 
 from collections.abc import Collection, Iterator, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from numpy.typing import ArrayLike, NDArray
+from numpy.typing import NDArray
 
 from ..errors import InvalidNightError, Problem
 from .night import SUPPORTED_EPOCH_SECONDS, MovementTimePolicy, Night, canonical_stage
 
-__all__ = ["CodedLabels", "NightOptions", "QCConfig", "QCFlag", "quality_flags", "validate_night_fields"]
+__all__ = ["CodedLabels", "NightOptions", "validate_night_fields"]
 
 MAX_LISTED = 5  # offending values / locations quoted in one message
 
@@ -47,6 +46,12 @@ class NightOptions:
         Sum epochs into this longer length (30 or 60 s) after reading.
     time_column, counts_column, reference_column : str, optional
         Explicit column names; by default found through :data:`models.nights.tabular.COLUMN_ALIASES`.
+        An import profile's ``columns`` take precedence.
+    min_present_pct : float, default=50.0
+        Smallest accepted share (%) of present epochs, i.e. epochs whose counts are not missing
+        (missing epochs come from gap filling or, with ``fill_gaps``, empty count cells). A night
+        whose counts are all missing is refused whatever this is (common practice: a night with
+        less than half of its epochs recorded is not scored).
     """
 
     min_hours: float = 1.0
@@ -59,73 +64,7 @@ class NightOptions:
     time_column: str | None = None
     counts_column: str | None = None
     reference_column: str | None = None
-
-
-@dataclass(frozen=True)
-class QCConfig:
-    """Thresholds of the quality flags (documented defaults).
-
-    Parameters
-    ----------
-    off_wrist_min : float, default=60.0
-        A run of exact zero counts at least this long (minutes) is flagged as suspected
-        off-wrist (common practice; device dependent).
-    spike_ceiling : float, default=20000.0
-        Counts per epoch above this are flagged as spikes (common practice for count devices).
-    spike_factor : float, default=10.0
-        Counts above ``spike_factor`` × the night's 99th percentile are flagged as spikes too.
-    stuck_run : int, default=10
-        This many identical non-zero values in a row are flagged as a stuck sensor.
-    unscored_max_pct : float, default=10.0
-        A reference with more than this share (%) of unscored epochs is flagged low coverage.
-    """
-
-    off_wrist_min: float = 60.0
-    spike_ceiling: float = 20000.0
-    spike_factor: float = 10.0
-    stuck_run: int = 10
-    unscored_max_pct: float = 10.0
-
-
-@dataclass(frozen=True)
-class QCFlag:
-    """A quality warning: its code, a sentence, epoch ranges ``[start, stop)`` and the threshold used."""
-
-    code: str
-    message: str
-    ranges: list[tuple[int, int]] = field(default_factory=list)
-    threshold: dict[str, float] = field(default_factory=dict)
-
-    @property
-    def n_epochs(self) -> int:
-        return int(sum(b - a for a, b in self.ranges))
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "code": self.code,
-            "message": self.message,
-            "ranges": [list(r) for r in self.ranges],
-            "n_epochs": self.n_epochs,
-            "threshold": dict(self.threshold),
-        }
-
-
-def _runs_of(mask: ArrayLike) -> NDArray[np.intp]:
-    """Runs of True in a boolean vector.
-
-    Returns
-    -------
-    runs : ndarray of intp, shape (n_runs, 2)
-        ``[start, stop)`` epoch indices of each run.
-    """
-    m = np.concatenate(([False], np.asarray(mask, dtype=bool), [False]))
-    edges = np.flatnonzero(m[1:] != m[:-1])
-    return edges.reshape(-1, 2)
-
-
-def _ranges(mask: ArrayLike) -> list[tuple[int, int]]:
-    """:func:`_runs_of` as a list of ``(start, stop)`` pairs of Python ints."""
-    return [(int(a), int(b)) for a, b in _runs_of(mask)]
+    min_present_pct: float = 50.0
 
 
 def _first(idx: NDArray[np.intp]) -> list[int]:
@@ -155,14 +94,17 @@ def _counts_problems(counts: Collection[object], field_name: str,
                 {"field": field_name, "epoch": bad[0], "values": [repr(seq[i]) for i in bad[:MAX_LISTED]]},
             ))
             return None, problems
-    nonfinite = np.flatnonzero(np.isinf(values) if allow_missing else ~np.isfinite(values))
+    finite = np.isfinite(values)
+    nonfinite = np.zeros(0, dtype=np.intp) if finite.all() else \
+        np.flatnonzero(np.isinf(values) if allow_missing else ~finite)
     if nonfinite.size:
         problems.append(Problem(
             "non_finite_count",
             f"{nonfinite.size} count(s) are NaN or infinite, first at epoch {nonfinite[0]}",
             {"field": field_name, "epoch": int(nonfinite[0]), "epochs": _first(nonfinite)},
         ))
-    negative = np.flatnonzero(values < 0)
+    below = values < 0
+    negative = np.flatnonzero(below) if below.any() else np.zeros(0, dtype=np.intp)
     if negative.size:
         problems.append(Problem(
             "negative_count",
@@ -246,6 +188,8 @@ def validate_night_fields(
     options: NightOptions = NightOptions(),
     problems: list[Problem] | None = None,
     source: str | None = None,
+    unused_columns: Sequence[str] = (),
+    source_name: str | None = None,
 ) -> Night:
     """Check every field of a night and build it, or raise with every problem found.
 
@@ -261,6 +205,12 @@ def validate_night_fields(
     reference : sequence of labels, shape (n_epochs,), optional
     problems : list of Problem, optional
         Problems already found by the format reader; they are reported together.
+    source : str, optional
+        Where the input came from, for the error message.
+    unused_columns : sequence of str, default=()
+        Kept as :attr:`Night.unused_columns <models.nights.night.Night.unused_columns>`.
+    source_name : str, optional
+        Kept as :attr:`Night.source_name <models.nights.night.Night.source_name>`.
 
     Raises
     ------
@@ -288,6 +238,8 @@ def validate_night_fields(
         raise InvalidNightError(problems, source=source)
     values, count_problems = _counts_problems(counts, "counts", options.fill_gaps)
     problems += count_problems
+    if values is not None and n:
+        problems += _presence_problems(values, options.min_present_pct)
     if n == 0:
         problems.append(Problem("empty_recording", "the recording has no epochs", {"field": "counts"}))
     elif seconds is not None:
@@ -319,58 +271,22 @@ def validate_night_fields(
     if problems or start is None or seconds is None or values is None:
         raise InvalidNightError(problems, source=source)
     return Night(participant_id=participant_id, start=start, epoch_seconds=seconds, counts=values,
-                 reference=canon, lights_off=lights_off, lights_on=lights_on, label=label)
+                 reference=canon, lights_off=lights_off, lights_on=lights_on, label=label,
+                 unused_columns=tuple(unused_columns), source_name=source_name)
 
 
-def quality_flags(night: Night, *, config: QCConfig = QCConfig()) -> list[QCFlag]:
-    """Quality warnings of a night; the data are never changed.
-
-    Returns
-    -------
-    flags : list of QCFlag
-        Codes: ``off_wrist``, ``spike``, ``stuck_sensor``, ``missing_epochs``,
-        ``low_reference_coverage``, ``movement_time``.
-    """
-    flags: list[QCFlag] = []
-    counts = night.counts
-    epoch_min = night.epoch_seconds / 60
-    min_epochs = int(np.ceil(config.off_wrist_min / epoch_min - 1e-9))
-    long_zero = [(a, b) for a, b in _ranges(counts == 0) if b - a >= min_epochs]
-    if long_zero:
-        total = sum(b - a for a, b in long_zero) * epoch_min
-        flags.append(QCFlag("off_wrist", f"{len(long_zero)} run(s) of exact zeros of >= {config.off_wrist_min:g} min "
-                            f"({total:g} min in all): device possibly off the wrist",
-                            long_zero, {"off_wrist_min": config.off_wrist_min}))
-    finite = counts[np.isfinite(counts)]
-    q99 = float(np.quantile(finite, 0.99)) if finite.size else 0.0
-    limit = min(config.spike_ceiling, config.spike_factor * q99) if q99 > 0 else config.spike_ceiling
-    spikes = _ranges(counts > limit)
-    if spikes:
-        flags.append(QCFlag("spike", f"{sum(b - a for a, b in spikes)} epoch(s) above {limit:g} counts",
-                            spikes, {"spike_ceiling": config.spike_ceiling, "spike_factor": config.spike_factor,
-                                     "limit": limit}))
-    same = np.concatenate(([False], (counts[1:] == counts[:-1]) & (counts[1:] > 0)))
-    stuck: list[tuple[int, int]] = []
-    for a, b in _runs_of(same):  # a run of k equal pairs is k+1 equal values starting at a-1
-        if b - a + 1 >= config.stuck_run:
-            stuck.append((int(a - 1), int(b)))
-    if stuck:
-        flags.append(QCFlag("stuck_sensor", f"{len(stuck)} run(s) of >= {config.stuck_run} identical non-zero counts",
-                            stuck, {"stuck_run": config.stuck_run}))
-    missing = _ranges(night.missing)
-    if missing:
-        flags.append(QCFlag("missing_epochs", f"{sum(b - a for a, b in missing)} epoch(s) were filled as missing",
-                            missing, {}))
-    if night.reference is not None:
-        unscored = night.reference == "?"
-        pct = 100 * float(unscored.mean()) if unscored.size else 0.0
-        if pct > config.unscored_max_pct:
-            flags.append(QCFlag("low_reference_coverage",
-                                f"{pct:.1f}% of reference epochs are unscored (limit {config.unscored_max_pct:g}%)",
-                                _ranges(unscored),
-                                {"unscored_max_pct": config.unscored_max_pct}))
-        mt = night.reference == "MT"
-        if mt.any():
-            flags.append(QCFlag("movement_time", f"{int(mt.sum())} movement-time epoch(s) in the reference",
-                                _ranges(mt), {}))
-    return flags
+def _presence_problems(values: NDArray[np.float64], min_present_pct: float) -> list[Problem]:
+    """``too_few_present_epochs`` when the share of non-missing counts is below the minimum or zero."""
+    missing = np.isnan(values)
+    if not missing.any():
+        return []
+    n_present = int(values.size - missing.sum())
+    pct = 100.0 * n_present / values.size
+    if n_present and pct >= min_present_pct:
+        return []
+    return [Problem(
+        "too_few_present_epochs",
+        f"only {n_present} of {values.size} epochs ({pct:.1f}%) have counts; at least {min_present_pct:g}% "
+        "must be present" + ("" if n_present else " and a night needs at least one"),
+        {"field": "counts", "values": [n_present, int(values.size)]},
+    )]

@@ -9,8 +9,10 @@ import numpy as np
 
 from ..errors import InvalidNightError, Problem
 from ._decoding import decode_text, finish_night, metadata_fields, parse_time
+from ._table import file_name
 from .checks import NightOptions, validate_night_fields
 from .night import Night
+from .profiles import ImportProfile
 
 __all__ = ["night_from_json", "night_to_json"]
 
@@ -18,8 +20,14 @@ _JSON_FIELDS = {"epoch_seconds", "start", "counts", "reference", "lights_off", "
 
 
 def night_from_json(data: bytes | str | dict[str, object], *, participant_id: str = "",
-                    options: NightOptions = NightOptions(), source: str | None = None) -> Night:
-    """Night from nightbank JSON (bytes, text or an already decoded object)."""
+                    options: NightOptions = NightOptions(), source: str | None = None,
+                    profile: ImportProfile | None = None) -> Night:
+    """Night from nightbank JSON (bytes, text or an already decoded object).
+
+    Of a ``profile`` only ``stage_codes`` (applied to the reference labels) and ``tz`` (for times
+    without an offset; ``options.tz`` overrides it) apply. The file name of ``source`` is kept as
+    :attr:`Night.source_name <models.nights.night.Night.source_name>`.
+    """
     obj: object
     if isinstance(data, dict):
         obj = data
@@ -56,12 +64,25 @@ def night_from_json(data: bytes | str | dict[str, object], *, participant_id: st
         problems.append(Problem("invalid_field", f"reference must be a list of labels, got "
                                 f"{type(reference).__name__}", {"field": "reference"}))
         reference = None
-    start = parse_time(obj["start"], "start", options.tz, problems) if "start" in obj else None
-    meta = metadata_fields(obj, options.tz, problems)
+    if reference is not None and profile is not None and profile.stage_codes:
+        reference = [_mapped(profile, label) for label in reference]
+    tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
+    start = parse_time(obj["start"], "start", tz, problems) if "start" in obj else None
+    meta = metadata_fields(obj, tz, problems)
     night = validate_night_fields(participant_id=participant_id, start=start,
                                   epoch_seconds=obj.get("epoch_seconds", 30), counts=counts, reference=reference,
-                                  options=options, problems=problems, source=source, **meta)
+                                  options=options, problems=problems, source=source, source_name=file_name(source),
+                                  **meta)
     return finish_night(night, options)
+
+
+def _mapped(profile: ImportProfile, label: object) -> object:
+    if label is None or isinstance(label, (bool, dict, list)):
+        return label
+    hit = profile.stage_code(label)
+    if hit is None and isinstance(label, float) and label.is_integer():  # 1.0 written for the code 1
+        hit = profile.stage_code(int(label))
+    return label if hit is None else hit
 
 
 def night_to_json(night: Night) -> dict[str, Any]:

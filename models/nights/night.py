@@ -122,6 +122,14 @@ class Night:
         In-bed interval; default is the whole recording.
     label : str, optional
         The lab's own id for the night (not part of the content hash).
+    unused_columns : tuple of str, default=()
+        Columns of the source file that no role used and the import profile did not list in
+        ``ignore_columns`` (not part of the content hash).
+    source_name : str, optional
+        Name of the file the night was read from (not part of the content hash).
+    source_epoch_seconds : int, optional
+        Epoch length of the recording before :func:`~models.nights.resample.aggregate_epochs` summed
+        its epochs; None when the epochs are as recorded (not part of the content hash).
     """
 
     participant_id: str
@@ -132,12 +140,16 @@ class Night:
     lights_off: pd.Timestamp | None = None
     lights_on: pd.Timestamp | None = None
     label: str | None = None
+    unused_columns: tuple[str, ...] = field(default=(), compare=False)
+    source_name: str | None = field(default=None, compare=False)
+    source_epoch_seconds: int | None = field(default=None, compare=False)
     _hash: str = field(default="", repr=False, compare=False)
 
     def __post_init__(self) -> None:
         counts = np.array(self.counts, dtype=np.float64)  # own copy: the caller keeps a writable array
         counts.setflags(write=False)
         object.__setattr__(self, "counts", counts)
+        object.__setattr__(self, "unused_columns", tuple(self.unused_columns))
         if self.reference is not None:
             ref = np.array(self.reference, dtype="<U3")
             ref.setflags(write=False)
@@ -172,7 +184,8 @@ class Night:
         """SHA-256 of the content (start, epoch length, counts, reference, lights), hex.
 
         Stable over formats: the same night read from JSON, CSV or Parquet hashes the same.
-        ``participant_id`` and ``label`` are not content.
+        ``participant_id``, ``label``, ``unused_columns``, ``source_name`` and
+        ``source_epoch_seconds`` are not content.
         """
         return self._hash
 

@@ -1,292 +1,194 @@
-"""CSV and Parquet nights: one row per epoch (see :mod:`models.nights.formats` for the format rules)."""
+"""CSV and Parquet nights: one row per epoch (see :mod:`models.nights.formats` for the format rules).
+
+An :class:`~models.nights.profiles.ImportProfile` describes a lab's own export: preamble lines, delimiter,
+decimal mark, encoding, the header of each column role, the time format and zone, and the
+reference's own stage codes. Without a profile the reader finds all of these itself.
+"""
 
 from __future__ import annotations
 
+import csv
 import io
 import json
 import re
-from collections.abc import Mapping
-from datetime import tzinfo
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-from numpy.typing import NDArray
 
 from ..errors import InvalidNightError, Problem
-from ._decoding import META_LINE, decode_text, finish_night, metadata_fields
-from .checks import MAX_LISTED, CodedLabels, NightOptions, validate_night_fields
+from ._decoding import META_LINE, decode_text
+from ._table import night_from_table
+from .checks import NightOptions
+from .columns import ColumnRoles, find_columns
 from .night import Night
+from .profiles import ImportProfile
 
 if TYPE_CHECKING:  # pyarrow has no type information: these names stand for what the values are
     import pyarrow as pa
 
-__all__ = ["COLUMN_ALIASES", "night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
+__all__ = ["night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
 
-#: accepted header names per role, compared case-insensitively after stripping blanks
-COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
-    "time": ("time", "timestamp", "datetime", "date_time", "epoch_start", "start"),
-    "counts": ("counts", "count", "activity", "activity_counts", "movement"),
-    "reference": ("reference", "stage", "stages", "sleep_stage", "psg", "psg_stage", "label"),
-}
-
-_DELIMITERS = (",", ";", "\t")
+_DELIMITERS = (",", ";", "\t", "|")
 
 
-def _find_columns(columns: list[str], options: NightOptions, problems: list[Problem]) -> dict[str, str | None]:
-    lower = {str(c).strip().lower(): c for c in columns}
-    found: dict[str, str | None] = {}
-    explicit = {"time": options.time_column, "counts": options.counts_column, "reference": options.reference_column}
-    for role, aliases in COLUMN_ALIASES.items():
-        name = explicit[role]
-        if name is not None:
-            hit = lower.get(name.strip().lower())
-            if hit is None:
-                problems.append(Problem("missing_column", f"column {name!r} named for {role} is not in the header "
-                                        f"{list(map(str, columns))!r}", {"field": name, "row": 1}))
-        else:
-            hit = next((lower[a] for a in aliases if a in lower), None)
-            if hit is None and role != "reference":
-                problems.append(Problem("missing_column", f"no {role} column: the header {list(map(str, columns))!r} "
-                                        f"has none of {list(aliases)!r}", {"field": role, "row": 1}))
-        found[role] = hit
-    return found
+def _skip_lines(text: str, n: int, meta: dict[str, str]) -> int:
+    """Position after the first ``n`` lines of ``text``; their ``# key: value`` lines go into ``meta``."""
+    pos = 0
+    for _ in range(n):
+        nl = text.find("\n", pos)
+        if text.startswith("#", pos):
+            hit = META_LINE.match(text[pos: len(text) if nl < 0 else nl].rstrip("\r"))
+            if hit:
+                meta[hit.group(1).lower()] = hit.group(2)
+        if nl < 0:
+            return len(text)
+        pos = nl + 1
+    return pos
 
 
-def _times_to_utc(col: pa.Array, tz: str | None, row0: int,
-                  problems: list[Problem]) -> tuple[NDArray[np.int64], tzinfo | None] | None:
-    """Time column (Arrow) -> (int64 UTC nanoseconds, tzinfo of the first epoch)."""
-    import pyarrow as pa
-
-    if pa.types.is_timestamp(col.type) and col.type.tz is not None and col.null_count == 0:
-        utc = col.cast(pa.timestamp("ns", tz="UTC")).to_numpy().view("int64")
-        return utc, None
-    text = pd.Series(col.to_pandas(), dtype=object).astype(str).str.strip()
-    if pa.types.is_timestamp(col.type) and col.type.tz is None and col.null_count == 0:
-        text = pd.Series(pd.DatetimeIndex(col.to_pandas()).strftime("%Y-%m-%dT%H:%M:%S"))
-    parsed = pd.to_datetime(text, format="ISO8601", errors="coerce", utc=True)
-    bad = np.flatnonzero(parsed.isna().to_numpy())
-    if bad.size:
-        problems.append(Problem("invalid_timestamp", f"{bad.size} time value(s) are not ISO 8601 times, first "
-                                f"{text.iloc[bad[0]]!r} at row {row0 + bad[0]}",
-                                {"field": "time", "row": int(row0 + bad[0]), "epoch": int(bad[0]),
-                                 "values": text.iloc[bad[:MAX_LISTED]].tolist()}))
-        return None
-    has_offset = text.str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True).to_numpy()
-    if has_offset.all():
-        return pd.DatetimeIndex(parsed).as_unit("ns").asi8, None
-    if has_offset.any():
-        i = int(np.flatnonzero(~has_offset)[0] if has_offset[0] else np.flatnonzero(has_offset)[0])
-        problems.append(Problem("mixed_timezones", f"some times carry a UTC offset and others do not (row {row0 + i})",
-                                {"field": "time", "row": row0 + i, "epoch": i}))
-        return None
-    if tz is None:
-        problems.append(Problem("missing_timezone", f"times have no UTC offset (first {text.iloc[0]!r}); add offsets "
-                                "or give the time zone (tz)", {"field": "time", "row": row0, "epoch": 0}))
-        return None
-    naive = pd.to_datetime(text, format="ISO8601")
+def _cells(line: str, sep: str) -> list[str]:
+    """The fields of one line (quotes as the CSV reader takes them)."""
     try:
-        local = pd.DatetimeIndex(naive).tz_localize(tz, ambiguous="infer", nonexistent="raise")
-    except Exception as exc:  # zoneinfo / pytz errors for DST gaps and unknown zones
-        problems.append(Problem("daylight_saving", f"times cannot be placed in time zone {tz!r}: {exc}",
-                                {"field": "time", "row": row0}))
-        return None
-    return local.tz_convert("UTC").as_unit("ns").asi8, local[0].tzinfo
-
-
-def _regular_epochs(utc_ns: NDArray[np.int64], row0: int, fill_gaps: bool,
-                    problems: list[Problem]) -> tuple[int, NDArray[np.int64]] | None:
-    """Epoch length (s) and each row's epoch index; records spacing problems."""
-    if utc_ns.size < 2:
-        problems.append(Problem("too_short", "a CSV night needs at least two rows to infer the epoch length",
-                                {"field": "time", "row": row0}))
-        return None
-    step_ns = np.diff(utc_ns)
-    if (step_ns == step_ns[0]).all() and step_ns[0] > 0:  # the usual, regular file
-        epoch_ns = int(step_ns[0])
-    else:
-        positive = step_ns[step_ns > 0]
-        epoch_ns = int(np.median(positive)) if positive.size else 0
-    ok = True
-    for code, mask, what in (("duplicate_timestamp", step_ns == 0, "repeats the previous time"),
-                             ("time_not_increasing", step_ns < 0, "goes back in time")):
-        idx = np.flatnonzero(mask) + 1
-        if idx.size:
-            ok = False
-            problems.append(Problem(code, f"{idx.size} row(s) where time {what}, first at row {row0 + idx[0]} "
-                                    f"(epoch {idx[0]}, {pd.Timestamp(utc_ns[idx[0]], tz='UTC').isoformat()})",
-                                    {"field": "time", "row": int(row0 + idx[0]), "epoch": int(idx[0]),
-                                     "time": pd.Timestamp(utc_ns[idx[0]], tz="UTC").isoformat()}))
-    if not ok or epoch_ns == 0:
-        return None
-    if epoch_ns % 1_000_000_000 or (epoch_ns // 1_000_000_000) not in (15, 30, 60):
-        problems.append(Problem("unsupported_epoch_length", f"rows are {epoch_ns / 1e9:g} s apart; epochs must be "
-                                "15, 30 or 60 s", {"field": "time", "row": row0 + 1}))
-        return None
-    irregular = np.flatnonzero(step_ns != epoch_ns) + 1
-    if irregular.size:
-        steps = step_ns[irregular - 1]
-        whole = (steps % epoch_ns == 0)
-        if not (fill_gaps and whole.all()):
-            i = int(irregular[0])
-            problems.append(Problem("irregular_spacing",
-                                    f"{irregular.size} gap(s) in the {epoch_ns // 1_000_000_000}-s epoch grid, first "
-                                    f"of {step_ns[i - 1] / 1e9:g} s before row {row0 + i} "
-                                    f"({pd.Timestamp(utc_ns[i], tz='UTC').isoformat()}); fill gaps to accept "
-                                    "whole-epoch gaps as missing epochs",
-                                    {"field": "time", "row": row0 + i, "epoch": i,
-                                     "time": pd.Timestamp(utc_ns[i], tz="UTC").isoformat()}))
-            return None
-    return epoch_ns // 1_000_000_000, (utc_ns - utc_ns[0]) // epoch_ns
-
-
-def _night_from_table(table: pa.Table, meta: Mapping[str, object], *, participant_id: str, options: NightOptions,
-                      source: str | None, row0: int, first_tz: tzinfo | str | None) -> Night:
-    """Night from an Arrow table with time / counts / reference columns.
-
-    ``row0`` is the file line of the first data row (0 for Parquet, which has no lines);
-    ``first_tz`` is the UTC offset or zone of the first timestamp as written in the file.
-    """
-    import pyarrow as pa
-
-    problems: list[Problem] = []
-    if table.num_rows == 0:
-        raise InvalidNightError([Problem("empty_recording", "the file has a header but no rows", {"row": row0})],
-                                source=source)
-    if table.num_rows > options.max_epochs:
-        raise InvalidNightError([Problem("too_many_epochs", f"{table.num_rows} rows exceed the limit of "
-                                         f"{options.max_epochs} epochs", {"field": "counts"})], source=source)
-    cols = _find_columns(table.column_names, options, problems)
-    if cols["time"] is None or cols["counts"] is None:
-        raise InvalidNightError(problems, source=source)
-    time_col = table.column(cols["time"]).combine_chunks()
-    times = _times_to_utc(time_col, options.tz, row0, problems)
-    grid = None if times is None else _regular_epochs(times[0], row0, options.fill_gaps, problems)
-    counts_col = table.column(cols["counts"]).combine_chunks()
-    if pa.types.is_integer(counts_col.type) or pa.types.is_floating(counts_col.type):
-        counts = counts_col.cast(pa.float64()).to_numpy(zero_copy_only=False).copy()
-    else:
-        raw = pd.Series(counts_col.to_pandas(), dtype=object)
-        numeric = pd.to_numeric(raw, errors="coerce")
-        bad = np.flatnonzero(numeric.isna().to_numpy() & raw.notna().to_numpy())
-        if bad.size:
-            problems.append(Problem("non_numeric_count", f"{bad.size} count value(s) are not numbers, first "
-                                    f"{raw.iloc[bad[0]]!r} at row {row0 + bad[0]}",
-                                    {"field": cols["counts"], "row": int(row0 + bad[0]), "epoch": int(bad[0]),
-                                     "values": raw.iloc[bad[:MAX_LISTED]].astype(str).tolist()}))
-        counts = numeric.to_numpy(dtype=np.float64, na_value=np.nan).copy()
-        counts[bad] = 0.0  # reported above; keep them out of the NaN check
-    empty = np.flatnonzero(np.isnan(counts))
-    if empty.size and not options.fill_gaps:
-        problems.append(Problem("non_finite_count", f"{empty.size} count(s) are empty or NaN, first at row "
-                                f"{row0 + empty[0]}", {"field": cols["counts"], "row": int(row0 + empty[0]),
-                                                       "epoch": int(empty[0])}))
-        counts[empty] = 0.0
-    reference: CodedLabels | list[object] | None = None
-    if cols["reference"] is not None:
-        ref_col = table.column(cols["reference"]).combine_chunks()
-        if not pa.types.is_dictionary(ref_col.type):
-            ref_col = ref_col.cast(pa.string()).dictionary_encode()
-        reference = CodedLabels(ref_col.indices.fill_null(-1).to_numpy(zero_copy_only=False),
-                                ref_col.dictionary.to_pylist())
-    start = epoch_seconds = None
-    if grid is not None and times is not None:
-        epoch_seconds, index = grid
-        start = pd.Timestamp(times[0][0], tz="UTC").tz_convert(times[1] or first_tz or "UTC")
-        if index[-1] + 1 != len(index):  # fill whole-epoch gaps with missing epochs (fill_gaps only)
-            full = np.full(int(index[-1]) + 1, np.nan)
-            full[index] = counts
-            counts = full
-            if reference is not None:
-                ref_full = np.full(full.size, "?", dtype=object)
-                ref_full[index] = list(reference)
-                reference = ref_full.tolist()
-    kwargs = metadata_fields(meta, options.tz, problems)
-    night = validate_night_fields(participant_id=participant_id, start=start, epoch_seconds=epoch_seconds,
-                                  counts=counts, reference=reference, options=options, problems=problems,
-                                  source=source, **kwargs)
-    return finish_night(night, options)
+        return next(csv.reader([line], delimiter=sep), [])
+    except csv.Error:  # a stray carriage return or NUL: Arrow will name the line
+        return line.split(sep)
 
 
 def night_from_csv(data: bytes | str, *, participant_id: str = "", options: NightOptions = NightOptions(),
-                   source: str | None = None) -> Night:
-    """Night from CSV text (see :mod:`models.nights.formats`); parsed by Arrow's C++ CSV reader."""
+                   source: str | None = None, profile: ImportProfile | None = None) -> Night:
+    """Night from CSV text (see :mod:`models.nights.formats`); parsed by Arrow's C++ CSV reader.
+
+    Parameters
+    ----------
+    data : bytes or str
+        The file's content.
+    participant_id : str, default=""
+    options : NightOptions
+        Reading and validation options; ``options.tz`` overrides the profile's ``tz``.
+    source : str, optional
+        Where the data came from (a path or file name): named in errors, its file name kept as
+        :attr:`Night.source_name <models.nights.night.Night.source_name>`.
+    profile : ImportProfile, optional
+        The export's layout. Without one, the delimiter is sniffed from the header, a decimal comma
+        is accepted with semicolon or tab delimiters, columns are found by their aliases and times
+        must be ISO 8601.
+
+    Raises
+    ------
+    InvalidNightError
+        Listing every problem, each located by field (column), row (1-based file line, preamble and
+        header included) and epoch where that applies.
+    """
     import pyarrow as pa
 
-    text = decode_text(data, source)
+    text = decode_text(data, source, profile.encoding if profile is not None else "utf-8")
+    skip = profile.skip_rows if profile is not None else 0
     meta: dict[str, str] = {}
-    pos = 0
-    n_meta = 0
+    pos = _skip_lines(text, skip, meta)
+    n_pre = skip
     while text.startswith("#", pos):
         nl = text.find("\n", pos)
         line = text[pos: len(text) if nl < 0 else nl]
         hit = META_LINE.match(line.rstrip("\r"))
         if hit:
             meta[hit.group(1).lower()] = hit.group(2)
-        n_meta += 1
+        n_pre += 1
         pos = len(text) if nl < 0 else nl + 1
     body = text[pos:]
     header_end = body.find("\n")
     header = (body if header_end < 0 else body[:header_end]).rstrip("\r")
     if not header.strip():
-        raise InvalidNightError([Problem("empty_file", "the file has no header row", {"row": n_meta + 1})],
+        raise InvalidNightError([Problem("empty_file", "the file has no header row", {"row": n_pre + 1})],
                                 source=source)
-    sep = max(_DELIMITERS, key=header.count)
+    sep = profile.delimiter if profile is not None and profile.delimiter else max(_DELIMITERS, key=header.count)
     if header.count(sep) == 0:
         raise InvalidNightError([Problem("missing_column", f"the header {header[:80]!r} has a single column; expected "
-                                         "time and counts separated by comma, semicolon or tab",
-                                         {"row": n_meta + 1})], source=source)
+                                         f"time and counts separated by {sep!r}" if profile is not None and
+                                         profile.delimiter else f"the header {header[:80]!r} has a single column; "
+                                         "expected time and counts separated by comma, semicolon or tab",
+                                         {"row": n_pre + 1})], source=source)
     second_end = body.find("\n", header_end + 1)
     first_row = body[header_end + 1: len(body) if second_end < 0 else second_end].rstrip("\r")
-    decimal = "," if sep != "," and "," in first_row else "."
+    decimal = profile.decimal if profile is not None else ("," if sep != "," and "," in first_row else ".")
+    names = _cells(header, sep)
+    problems: list[Problem] = []
+    roles = find_columns(names, options, profile, n_pre + 1, problems)
+    if roles.time is None or roles.counts is None:
+        raise InvalidNightError(problems, source=source)
+    fmt = profile.datetime_format if profile is not None else None
+    as_text = fmt is not None or roles.date is not None
     first_tz = None
-    names = [h.strip().lower() for h in header.split(sep)]
-    cells = first_row.split(sep)
-    for alias in (options.time_column or "",) + COLUMN_ALIASES["time"]:
-        if alias.lower() in names and names.index(alias.lower()) < len(cells):
+    if not as_text:
+        cells = _cells(first_row, sep)
+        at = names.index(roles.time)
+        if at < len(cells):
             try:
-                first_tz = pd.Timestamp(cells[names.index(alias.lower())].strip()).tzinfo
+                first_tz = pd.Timestamp(cells[at].strip()).tzinfo
             except (ValueError, TypeError):
                 pass
-            break
-    buffer = pa.py_buffer(body.encode())
-    roles = {n: role for n in header.split(sep) for role, aliases in COLUMN_ALIASES.items()
-             if n.strip().lower() in aliases}
-    fast_types = {"time": pa.timestamp("s", tz="UTC"), "counts": pa.float64(),
-                  "reference": pa.dictionary(pa.int32(), pa.string())}
-    slow_types = {"reference": pa.string()}
+    tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
     try:
-        try:  # typed read first: the usual file converts without type inference
-            table = _read_arrow_csv(buffer, sep, decimal, {n: fast_types[r] for n, r in roles.items()})
-        except pa.ArrowInvalid:  # something does not convert: read as found, so the checks can locate it
-            table = _read_arrow_csv(buffer, sep, decimal, {n: slow_types[r] for n, r in roles.items()
-                                                           if r in slow_types})
+        table = _read_table(pa.py_buffer(body.encode()), sep, decimal, roles, as_text, tz)
     except pa.ArrowInvalid as exc:
         msg = str(exc).strip().splitlines()[0]
         hit = re.search(r"Row #(\d+)", msg)
-        row = n_meta + (int(hit.group(1)) if hit else 1)
-        raise InvalidNightError([Problem("malformed_csv", f"line {row} does not match the {sep!r}-delimited header: "
-                                         f"{msg}", {"row": row})], source=source) from None
+        row = n_pre + (int(hit.group(1)) if hit else 1)
+        raise InvalidNightError([*problems, Problem("malformed_csv", f"line {row} does not match the {sep!r}-"
+                                                    f"delimited header: {msg}", {"row": row})],
+                                source=source) from None
     try:
-        return _night_from_table(table, meta, participant_id=participant_id, options=options, source=source,
-                                 row0=n_meta + 2, first_tz=first_tz)
+        return night_from_table(table, meta, roles, participant_id=participant_id, options=options, profile=profile,
+                                source=source, row0=n_pre + 2, first_tz=first_tz, problems=problems)
     except InvalidNightError as exc:  # give file lines for problems located by epoch
         for i, p in enumerate(exc.problems):
             if "epoch" in p.location and "row" not in p.location:
-                exc.problems[i] = Problem(p.code, p.message, {**p.location, "row": n_meta + 2 + p.location["epoch"]})
+                exc.problems[i] = Problem(p.code, p.message, {**p.location, "row": n_pre + 2 + p.location["epoch"]})
         raise
 
 
-def _read_arrow_csv(buffer: pa.Buffer, sep: str, decimal: str, column_types: dict[str, pa.DataType]) -> pa.Table:
+def _read_table(buffer: pa.Buffer, sep: str, decimal: str, roles: ColumnRoles, as_text: bool,
+                tz: str | None) -> pa.Table:
+    """The used columns of a CSV body, typed when they convert, else as found (for the checks to locate).
+
+    ``as_text``: the times are read as text (a format or a date column is given).
+
+    Raises
+    ------
+    pyarrow.ArrowInvalid
+        When a line does not fit the header.
+    """
+    import pyarrow as pa
+
+    time_type = pa.string() if as_text else pa.timestamp("s") if tz is not None else pa.timestamp("s", tz="UTC")
+    fast = {roles.time: time_type, roles.counts: pa.float64(), roles.reference: pa.dictionary(pa.int32(), pa.string()),
+            roles.date: pa.string()}
+    used = roles.used()
+    try:  # typed read first: the usual file converts without type inference
+        return _read_arrow_csv(buffer, sep, decimal, {n: fast[n] for n in used}, used, stream=True)
+    except pa.ArrowInvalid:  # something does not convert: read as found, so the checks can locate it
+        slow = {roles.time: pa.string(), roles.reference: pa.string(), roles.date: pa.string()}
+        return _read_arrow_csv(buffer, sep, decimal, {n: t for n, t in slow.items() if n is not None}, used)
+
+
+def _read_arrow_csv(buffer: pa.Buffer, sep: str, decimal: str, column_types: dict[str, pa.DataType],
+                    columns: list[str], *, stream: bool = False) -> pa.Table:
+    """The ``columns`` of a CSV body (header first), with the given types and the rest inferred.
+
+    ``stream`` reads with Arrow's streaming reader, a little faster when every column's type is
+    given (it infers types from the first block only, so it is not used to infer them).
+    """
     import pyarrow.csv as pacsv
 
-    return pacsv.read_csv(
-        buffer,
-        read_options=pacsv.ReadOptions(use_threads=False),
-        parse_options=pacsv.ParseOptions(delimiter=sep),
-        convert_options=pacsv.ConvertOptions(decimal_point=decimal, strings_can_be_null=True,
-                                             column_types=column_types),
-    )
+    read_options = pacsv.ReadOptions(use_threads=False)
+    parse_options = pacsv.ParseOptions(delimiter=sep)
+    convert_options = pacsv.ConvertOptions(decimal_point=decimal, strings_can_be_null=True,
+                                           column_types=column_types, include_columns=columns)
+    if stream:
+        return pacsv.open_csv(buffer, read_options=read_options, parse_options=parse_options,
+                              convert_options=convert_options).read_all()
+    return pacsv.read_csv(buffer, read_options=read_options, parse_options=parse_options,
+                          convert_options=convert_options)
 
 
 def night_to_csv(night: Night) -> str:
@@ -304,8 +206,12 @@ def night_to_csv(night: Night) -> str:
 
 
 def night_from_parquet(data: bytes, *, participant_id: str = "", options: NightOptions = NightOptions(),
-                       source: str | None = None) -> Night:
-    """Night from Parquet bytes (columns as CSV; lights/label in metadata key ``nightbank``)."""
+                       source: str | None = None, profile: ImportProfile | None = None) -> Night:
+    """Night from Parquet bytes (columns as CSV; lights/label in metadata key ``nightbank``).
+
+    Of a ``profile`` the columns, ``datetime_format`` (for times stored as text), ``tz``,
+    ``stage_codes`` and ``ignore_columns`` apply; the other fields describe text files.
+    """
     import pyarrow as pa
     import pyarrow.parquet as pq
 
@@ -319,10 +225,12 @@ def night_from_parquet(data: bytes, *, participant_id: str = "", options: NightO
         meta = json.loads(raw_meta)
     except json.JSONDecodeError:
         meta = {}
-    time_type = next((f.type for f in table.schema if f.name.strip().lower() in COLUMN_ALIASES["time"]), None)
-    first_tz = getattr(time_type, "tz", None)
-    return _night_from_table(table, meta if isinstance(meta, dict) else {}, participant_id=participant_id,
-                             options=options, source=source, row0=0, first_tz=first_tz)
+    problems: list[Problem] = []
+    roles = find_columns(table.column_names, options, profile, 0, problems)
+    first_tz = getattr(table.schema.field(roles.time).type, "tz", None) if roles.time is not None else None
+    return night_from_table(table, meta if isinstance(meta, dict) else {}, roles, participant_id=participant_id,
+                            options=options, profile=profile, source=source, row0=0, first_tz=first_tz,
+                            problems=problems)
 
 
 def night_to_parquet(night: Night) -> bytes:

@@ -1,0 +1,250 @@
+"""Epoch times of tabular nights: strict ISO 8601 or an explicit ``strftime`` format, time zones, plausible dates.
+
+Without a format, times must be ISO 8601 in the extended form ``YYYY-MM-DDThh:mm[:ss[.fff]]`` (``T`` or
+a blank between date and time) with an optional ``Z`` or ``±hh:mm`` offset; anything else is refused,
+including the words pandas would otherwise read as the current time (``now``, ``today``).
+
+With a format (an import profile's ``datetime_format``) every time is parsed with it exactly. Arrow's
+``strptime`` kernel reads the usual rows; every row it cannot read, and every row it may have read
+more leniently than pandas (a day of month 1-3 that could be an overflowed 29-31, a year before
+:data:`EARLIEST_PLAUSIBLE_DATE`), is parsed again with ``pandas.to_datetime(format=..., exact=True)``,
+whose result stands. So the outcome is pandas' at Arrow's speed.
+
+Times without an offset are placed in a time zone. A local time that does not exist (clocks jump
+forward) or that happens twice and cannot be placed by the order of the rows (clocks fall back) is
+refused with the file row and the time as written.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Callable
+from datetime import timedelta
+from typing import TYPE_CHECKING
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from ..errors import Problem
+from .checks import MAX_LISTED
+
+if TYPE_CHECKING:  # pyarrow has no type information
+    import pyarrow as pa
+
+__all__ = ["EARLIEST_PLAUSIBLE_DATE", "ISO_8601_PATTERN", "LATEST_PLAUSIBLE_DATE"]
+
+#: first accepted epoch time (UTC): actigraphs with digital count export are later than this
+EARLIEST_PLAUSIBLE_DATE = pd.Timestamp("1990-01-01T00:00:00Z")
+#: first refused epoch time (UTC): a later date is a typing or clock error
+LATEST_PLAUSIBLE_DATE = pd.Timestamp("2100-01-01T00:00:00Z")
+#: the ISO 8601 times accepted without a format (extended form, date and time of day, optional offset)
+ISO_8601_PATTERN = r"\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}(?::\d{2}(?:[.,]\d{1,9})?)?(?:Z|[+-]\d{2}:?\d{2})?"
+
+NAT = np.iinfo(np.int64).min  # pandas' NaT as int64
+_OFFSET_AT_END = re.compile(r"(?:Z|[+-]\d\d:?\d\d)$")
+_FIRST, _LAST = EARLIEST_PLAUSIBLE_DATE.value, LATEST_PLAUSIBLE_DATE.value
+# times far outside the plausible range are clipped to these (still implausible, but they fit int64 nanoseconds)
+_LOW, _HIGH = _FIRST - 3650 * 86_400 * 10**9, _LAST + 3650 * 86_400 * 10**9
+_PER_UNIT = {"s": 10**9, "ms": 10**6, "us": 10**3, "ns": 1}
+
+
+def index_ns(index: pd.DatetimeIndex) -> NDArray[np.int64]:
+    """Times as int64 nanoseconds (UTC for aware ones), :data:`NAT` for NaT; far-off times clipped."""
+    if index.unit == "ns":
+        return np.asarray(index.asi8, dtype=np.int64)
+    per = _PER_UNIT[index.unit]
+    raw = np.asarray(index.asi8, dtype=np.int64)
+    out = np.clip(raw, _LOW // per, _HIGH // per) * per
+    return np.where(index.isna(), NAT, out)
+
+
+def arrow_ns(col: pa.Array) -> NDArray[np.int64]:
+    """An Arrow timestamp column (no nulls) as int64 nanoseconds (UTC for aware ones); far-off times clipped."""
+    import pyarrow as pa
+
+    per = _PER_UNIT[col.type.unit]
+    raw = np.asarray(col.cast(pa.int64()).to_numpy(zero_copy_only=False), dtype=np.int64)
+    return raw if per == 1 else np.clip(raw, _LOW // per, _HIGH // per) * per
+
+
+def text_of(col: pa.Array) -> pa.Array:
+    """A column as trimmed text (nulls as empty text)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if not pa.types.is_string(col.type):
+        col = col.cast(pa.string())
+    return pc.utf8_trim_whitespace(pc.fill_null(col, "") if col.null_count else col)
+
+
+def has_zone(fmt: str) -> bool:
+    """Whether times written with ``fmt`` carry their UTC offset."""
+    return "%z" in fmt or "%Z" in fmt
+
+
+_DIGITS = {"m": r"\d{1,2}", "Y": r"\d{4}", "y": r"\d{2}", "H": r"\d{1,2}", "I": r"\d{1,2}", "M": r"\d{1,2}",
+           "S": r"\d{1,2}", "f": r"\d{1,9}", "j": r"\d{1,3}"}
+
+
+def _day_pattern(fmt: str) -> str:
+    """A regular expression (RE2) of the start of texts written with ``fmt``, up to the day of month (group ``d``)."""
+    out = ["^"]
+    for literal, directive in re.findall(r"([^%]*)(%.|$)", fmt):
+        out.extend(r"\s+" if part.isspace() else re.sub(r"([^\w\s])", r"\\\1", part)
+                   for part in re.split(r"(\s+)", literal) if part)
+        key = directive[1:]
+        if key == "d":
+            return "".join(out) + r"(?P<d>\d{1,2})"
+        out.append("%" if key == "%" else _DIGITS.get(key, ".+?"))
+    return "".join(out)
+
+
+def _early_days(ns: NDArray[np.int64], last_day: int) -> bool:
+    """Whether some of the times (int64 ns) may fall on days 1..``last_day`` of a month.
+
+    Every time lies between the earliest and the latest, so when those two share a month and the
+    earliest is past ``last_day``, none can.
+    """
+    if ns.size == 0:
+        return False
+    ends = np.array([ns.min(), ns.max()]).view("M8[ns]")
+    months = ends.astype("M8[M]")
+    return bool(months[0] != months[1] or (ends[0].astype("M8[D]") - months[0]).astype(np.int64) + 1 <= last_day)
+
+
+def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
+    """Times written with ``fmt``, as int64 nanoseconds (UTC when the format has ``%z``), :data:`NAT` if invalid.
+
+    Parameters
+    ----------
+    text : pyarrow.StringArray, shape (n,)
+        Trimmed times.
+    fmt : str
+        ``strftime`` format.
+
+    Returns
+    -------
+    ns : ndarray of int64, shape (n,)
+
+    Notes
+    -----
+    Arrow's ``strptime`` reads a day of month past the month's end (31/02) as the following days
+    (03/03), where pandas refuses it; those results fall on days 1-3 (1-4 in UTC with ``%z``), so
+    a row read as such a day is kept only when the day written is the day read. Every other
+    doubtful row (not read by Arrow, or a year before the plausible range) goes to pandas.
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    aware = has_zone(fmt)
+    try:
+        fast = pc.strptime(text, format=fmt, unit="ns", error_is_null=True)
+        ns = np.asarray(fast.to_numpy(zero_copy_only=False)).view(np.int64)  # nulls come as NaT
+        # not read, or a year pandas may refuse (e.g. 31 for %Y); a time of day alone is read on 1900-01-01
+        doubtful = ns < _FIRST if re.search(r"%[YyG]", fmt) else ns == NAT
+        if "%d" in fmt and _early_days(ns[~doubtful], 4 if aware else 3):  # in UTC a local day may move by one
+            stamps = ns.view("M8[ns]")
+            day_read = (stamps.astype("M8[D]") - stamps.astype("M8[M]")).astype(np.int64) + 1
+            early = ~doubtful & (day_read <= (4 if aware else 3))
+            if early.any():
+                sub = text if early.all() else pc.filter(text, pa.array(early))
+                days = pc.extract_regex(sub, _day_pattern(fmt)).field("d")
+                written = pc.fill_null(pc.cast(days, pa.int64(), safe=False), -1).to_numpy(zero_copy_only=False)
+                doubtful[np.flatnonzero(early)[written != day_read[early]]] = True
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):  # a directive Arrow does not know
+        ns = np.full(len(text), NAT, dtype=np.int64)
+        doubtful = np.ones(len(text), dtype=bool)
+    if doubtful.any():
+        idx = np.flatnonzero(doubtful)
+        values = pc.take(text, pa.array(idx)).to_pylist()
+        exact = pd.DatetimeIndex(pd.to_datetime(values, format=fmt, exact=True, errors="coerce", utc=aware))
+        ns = ns.copy()
+        ns[idx] = index_ns(exact)
+    return ns
+
+
+def iso_invalid(text: pd.Series) -> NDArray[np.bool_]:
+    """Mask of times that are not accepted ISO 8601 (:data:`ISO_8601_PATTERN`)."""
+    return ~text.str.fullmatch(ISO_8601_PATTERN).fillna(False).to_numpy(dtype=bool)
+
+
+def invalid_problem(bad: NDArray[np.intp], values: list[str], row0: int, field: str, fmt: str | None) -> Problem:
+    """``invalid_timestamp`` for the rows ``bad`` (0-based data rows) whose written times are ``values``."""
+    how = f"written as {fmt!r}" if fmt else "ISO 8601 times (e.g. 2031-03-02T22:41:30+01:00)"
+    return Problem("invalid_timestamp", f"{bad.size} time value(s) are not {how}, first {values[0]!r} at row "
+                   f"{row0 + int(bad[0])}", {"field": field, "row": int(row0 + bad[0]), "epoch": int(bad[0]),
+                                              "values": values[:MAX_LISTED]})
+
+
+def offsets_of(text: pd.Series) -> NDArray[np.bool_]:
+    """Which ISO times end in a UTC offset."""
+    return text.str.contains(_OFFSET_AT_END, regex=True).fillna(False).to_numpy(dtype=bool)
+
+
+Quote = Callable[[int], str]  # the time of a 0-based data row as written in the file
+
+
+def plausible_problems(utc_ns: NDArray[np.int64], quote: Quote | None, row0: int, field: str) -> list[Problem]:
+    """``implausible_date`` for times outside [:data:`EARLIEST_PLAUSIBLE_DATE`, :data:`LATEST_PLAUSIBLE_DATE`)."""
+    if utc_ns.size == 0 or (utc_ns.min() >= _FIRST and utc_ns.max() < _LAST):
+        return []
+    bad = np.flatnonzero((utc_ns < _FIRST) | (utc_ns >= _LAST))
+    i = int(bad[0])
+    shown = quote(i) if quote is not None else pd.Timestamp(int(utc_ns[i]), tz="UTC").isoformat()
+    return [Problem("implausible_date", f"{bad.size} time(s) lie outside the plausible range "
+                    f"{EARLIEST_PLAUSIBLE_DATE.date()} .. {LATEST_PLAUSIBLE_DATE.date()}, first {shown!r} at row "
+                    f"{row0 + i}", {"field": field, "row": row0 + i, "epoch": i, "time": shown})]
+
+
+def _offset(delta: timedelta | None) -> str:
+    seconds = int(delta.total_seconds()) if delta is not None else 0
+    sign = "-" if seconds < 0 else "+"
+    return f"{sign}{abs(seconds) // 3600:02d}:{abs(seconds) % 3600 // 60:02d}"
+
+
+def localize(naive_ns: NDArray[np.int64], tz: str, quote: Quote | None, row0: int, field: str,
+             problems: list[Problem]) -> tuple[NDArray[np.int64], ZoneInfo] | None:
+    """Naive local times (int64 ns) placed in ``tz``: (UTC int64 ns, zone), or None with a problem.
+
+    Times repeated when the clocks fall back are placed by the order of the rows (pandas'
+    ``ambiguous="infer"``); nonexistent times and repeated times that order cannot place are refused,
+    naming the file row, the time as written and the zone's offsets around the change.
+    """
+    try:
+        zone = ZoneInfo(tz)
+    except (ZoneInfoNotFoundError, ValueError):
+        problems.append(Problem("unknown_time_zone", f"time zone {tz!r} is not an IANA zone name (e.g. "
+                                "Europe/Berlin)", {"field": "tz"}))
+        return None
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    try:  # Arrow's kernel places the usual night, with no clock change, fast
+        placed = pc.assume_timezone(pa.array(naive_ns.view("M8[ns]")), tz, ambiguous="raise", nonexistent="raise")
+        return np.asarray(placed.cast(pa.int64()).to_numpy(zero_copy_only=False), dtype=np.int64), zone
+    except pa.ArrowInvalid:  # a clock change (or a zone Arrow's database lacks): pandas infers and explains
+        pass
+    index = pd.DatetimeIndex(naive_ns.view("M8[ns]"))
+    try:
+        local = index.tz_localize(zone, ambiguous="infer", nonexistent="raise")
+    except ValueError:
+        gap = np.asarray(index.tz_localize(zone, ambiguous=np.zeros(index.size, dtype=bool),
+                                           nonexistent="NaT").isna(), dtype=bool)
+        twice = ~gap & np.asarray(index.tz_localize(zone, ambiguous="NaT", nonexistent="shift_forward").isna())
+        kind, mask = ("nonexistent", gap) if gap.any() else ("ambiguous", twice)
+        bad = np.flatnonzero(mask)
+        i = int(bad[0]) if bad.size else 0
+        wall = index[i].to_pydatetime()
+        before, after = (_offset(wall.replace(tzinfo=zone, fold=f).utcoffset()) for f in (0, 1))
+        shown = quote(i) if quote is not None else wall.isoformat()
+        what = (f"does not exist in {tz} (clocks move from {before} to {after})" if kind == "nonexistent" else
+                f"happens twice in {tz} (at {before} and at {after}) and the order of the rows does not tell which")
+        problems.append(Problem("daylight_saving", f"{bad.size} local time(s) where the clocks change: "
+                                f"{shown!r} at row {row0 + i} {what}",
+                                {"field": field, "row": row0 + i, "epoch": i, "time": shown,
+                                 "values": [quote(int(j)) if quote is not None else index[j].isoformat()
+                                            for j in bad[:MAX_LISTED]]}))
+        return None
+    return local.tz_convert("UTC").as_unit("ns").asi8, zone
