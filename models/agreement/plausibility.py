@@ -51,9 +51,10 @@ class PlausibilityConfig:
         Lowest plausible balanced accuracy of ``rule`` against the reference (0.5 is chance; common
         practice: count rules reach about 0.6-0.8 against PSG, so below 0.35 they disagree more
         than chance allows).
-    max_sleep_to_wake_counts_ratio : float, default=1.0
+    max_sleep_to_wake_counts_ratio : float, default=1.5
         Mean counts in reference-sleep epochs may be at most this multiple of the mean counts in
-        reference-wake epochs (1.0: sleep must not move more than wake).
+        reference-wake epochs (chosen here: a labelling unrelated to movement gives a ratio near 1
+        and a reversed one far above it, since wake moves several times more than sleep).
     min_scored_epochs : int, default=120
         Fewer scored in-bed reference epochs than this (1 h of 30-s epochs) and the night is not
         checked: the figures would be noise.
@@ -64,7 +65,7 @@ class PlausibilityConfig:
     min_sleep_efficiency_pct: float = 40.0
     rule: str = "cole-kripke"
     min_rule_balanced_accuracy: float = 0.35
-    max_sleep_to_wake_counts_ratio: float = 1.0
+    max_sleep_to_wake_counts_ratio: float = 1.5
     min_scored_epochs: int = 120
     movement_time: MovementTimePolicy = "wake"
 

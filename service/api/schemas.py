@@ -131,6 +131,7 @@ class NightAccepted(BaseModel):
     epoch_seconds: int | None = Field(default=None, description="epoch length as stored (the study's)")
     source_epoch_seconds: int | None = Field(
         default=None, description="posted epoch length when the night was aggregated to the study's; else null")
+    unused_columns: list[str] = Field(default_factory=list, description="columns of the file that were not read")
 
 
 class NightOut(BaseModel):

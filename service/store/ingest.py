@@ -1,7 +1,7 @@
 """Night ingest: the study's epoch length, the duplicate, overlap and id-case checks, and the insert.
 
 A night is stored at its study's epoch length: a night of a shorter supported length that divides
-it is aggregated (:func:`models.aggregate_epochs`) and keeps its posted length in
+it is aggregated (:func:`models.to_study_epoch`) and keeps its posted length in
 ``source_epoch_seconds``; any other length is refused. In the same write transaction, after the
 study row is locked, a new night is refused when another participant of the study has the same
 content (``duplicate_night``), when it overlaps in time a stored night of its participant
@@ -17,7 +17,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from models import SUPPORTED_EPOCH_SECONDS, Night, Problem, aggregate_epochs, quality_flags
+from models import SUPPORTED_EPOCH_SECONDS, InvalidNightError, Night, Problem, quality_flags, to_study_epoch
 
 from ..errors import Conflict, NotFound, Unprocessable
 from . import db
@@ -56,7 +56,8 @@ def conform_epochs(night: Night, *, epoch_seconds: int, study_id: str = "") -> t
     Returns
     -------
     night : Night
-        At ``epoch_seconds`` (:func:`models.aggregate_epochs`: counts summed, reference by majority).
+        At ``epoch_seconds`` (:func:`models.to_study_epoch`: counts summed, reference by majority of
+        scored sub-epochs, wake on ties).
     source_epoch_seconds : int or None
         The posted length if the night was aggregated, else None.
 
@@ -65,17 +66,17 @@ def conform_epochs(night: Night, *, epoch_seconds: int, study_id: str = "") -> t
     Unprocessable
         Code ``epoch_length_mismatch`` (location ``epoch_seconds``) for any other length.
     """
-    if night.epoch_seconds == epoch_seconds:
-        return night, None
-    if night.epoch_seconds in SUPPORTED_EPOCH_SECONDS and night.epoch_seconds < epoch_seconds \
-            and epoch_seconds % night.epoch_seconds == 0:
-        return aggregate_epochs(night, epoch_seconds), int(night.epoch_seconds)
-    shorter = [t for t in SUPPORTED_EPOCH_SECONDS if t < epoch_seconds and epoch_seconds % t == 0]
-    accepted = " or ".join(f"{t} s" for t in [epoch_seconds, *shorter])
-    message = (f"the night has {night.epoch_seconds}-s epochs but study {study_id!r} stores {epoch_seconds}-s "
-               f"epochs: post nights with epochs of {accepted} (shorter ones are summed into {epoch_seconds}-s epochs)")
-    raise Unprocessable(message, code="epoch_length_mismatch",
-                        problems=[Problem("epoch_length_mismatch", message, {"field": "epoch_seconds"})])
+    try:
+        conformed = to_study_epoch(night, epoch_seconds)
+    except InvalidNightError:
+        shorter = [t for t in SUPPORTED_EPOCH_SECONDS if t < epoch_seconds and epoch_seconds % t == 0]
+        accepted = " or ".join(f"{t} s" for t in [epoch_seconds, *shorter])
+        message = (f"the night has {night.epoch_seconds}-s epochs but study {study_id!r} stores {epoch_seconds}-s "
+                   f"epochs: post nights with epochs of {accepted} (shorter ones are summed into {epoch_seconds}-s "
+                   "epochs)")
+        raise Unprocessable(message, code="epoch_length_mismatch",
+                            problems=[Problem("epoch_length_mismatch", message, {"field": "epoch_seconds"})]) from None
+    return conformed, None if conformed is night else int(night.epoch_seconds)
 
 
 def lock_study(session: Session, study_id: str) -> db.Study:

@@ -295,6 +295,8 @@ def test_profile_create_list_show_delete(server, remote, tmp_path) -> None:
     assert taken.returncode == 1 and "Traceback" not in taken.stderr
     assert nb("profile", "create", "s", str(file), "--replace", *remote).returncode == 0
     shown = nb("profile", "show", "s", "lab7", *remote)
+    with _api(server, remote) as http:  # replacing records a new creation time
+        stored = http.get(f"/v1/studies/s/import-profiles/{LAB_PROFILE['name']}").json()
     assert shown.returncode == 0 and json.loads(shown.stdout) == stored
     listed = nb("profile", "list", "s", "--json", *remote)
     assert [p.get("profile", p)["name"] for p in json.loads(listed.stdout)] == ["lab7"]

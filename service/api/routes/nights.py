@@ -7,6 +7,7 @@ training); admin for deleting one.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Depends, Path, Query, Request, Response
@@ -14,11 +15,20 @@ from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import IntegrityError
 
-from models import Night, NightOptions, night_from_csv, night_from_json, night_from_parquet
+from models import (
+    ImportProfile,
+    InvalidNightError,
+    Night,
+    NightOptions,
+    check_reference,
+    night_from_csv,
+    night_from_json,
+    night_from_parquet,
+)
 
-from ...errors import Conflict, PayloadTooLarge, UnsupportedMediaType
+from ...errors import Conflict, PayloadTooLarge, Unprocessable, UnsupportedMediaType
 from ...results.scoring import SCORING_METHODS, score_night
-from ...store import manage, registry
+from ...store import manage, profiles, registry
 from ...store.db import session_scope
 from ...store.tokens import Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, study_access
@@ -50,8 +60,12 @@ _INGEST_BODY = {
 
 
 def parse_night(body: bytes, *, media_type: str, participant_id: str, tz: str | None = None,
-                fill_gaps: bool = False) -> tuple[Night, str]:
+                fill_gaps: bool = False, profile: ImportProfile | None = None,
+                source_name: str | None = None) -> tuple[Night, str]:
     """Read a night from a request body of ``media_type``; returns the night and its format.
+
+    ``profile`` is the study's saved import profile named at ingest; ``source_name`` the file the
+    body came from (the night's label when it has none of its own).
 
     Raises
     ------
@@ -64,9 +78,32 @@ def parse_night(body: bytes, *, media_type: str, participant_id: str, tz: str | 
     if fmt is None:
         raise UnsupportedMediaType(f"send the night as one of {', '.join(NIGHT_MEDIA_TYPES)}; got "
                                    f"{media_type or 'no content type'!r}")
-    reader = {"json": night_from_json, "csv": night_from_csv, "parquet": night_from_parquet}[fmt]
     options = NightOptions(tz=tz, fill_gaps=fill_gaps)
-    return reader(body, participant_id=participant_id, options=options), fmt  # type: ignore[operator]
+    if fmt == "json":
+        night = night_from_json(body, participant_id=participant_id, options=options, profile=profile)
+    else:
+        reader = night_from_csv if fmt == "csv" else night_from_parquet
+        night = reader(body, participant_id=participant_id, options=options, source=source_name,  # type: ignore[operator]
+                       profile=profile)
+    if source_name and night.label is None:
+        night = replace(night, label=source_name, source_name=source_name)
+    return night, fmt
+
+
+def checked_reference(night: Night, *, accept: bool) -> list[dict[str, Any]]:
+    """QC flags of the reference's plausibility check (:func:`models.check_reference`), as stored.
+
+    Raises
+    ------
+    Unprocessable
+        Code ``reference_implausible`` naming the figures, unless ``accept``.
+    """
+    try:
+        flag = check_reference(night, accept=accept)
+    except InvalidNightError as exc:
+        raise Unprocessable(exc.problems[0].message + "; post it with accept_implausible=true to store it with a "
+                            "quality flag", code="reference_implausible", problems=exc.problems) from None
+    return [] if flag is None else [flag.to_dict()]
 
 
 async def _read_body(request: Request, limit_bytes: int) -> bytes:
@@ -111,16 +148,30 @@ async def post_night(request: Request, access: Annotated[StudyAccess, Depends(st
                          description="store even if another participant has the same content")] = False,
                      allow_overlap: Annotated[bool, Query(
                          description="store even if it overlaps a stored night of the participant")] = False,
+                     profile: Annotated[str | None, Query(
+                         max_length=64, description="a saved import profile of the study")] = None,
+                     accept_implausible: Annotated[bool, Query(
+                         description="store a reference that fails the plausibility checks, with a QC flag")] = False,
+                     source_name: Annotated[str | None, Query(
+                         max_length=200, description="the file the night came from (its label when it has none)")]
+                     = None,
                      ) -> Any:
     body = await _read_body(request, int(settings.max_body_mb * 2**20))
     media_type = request.headers.get("content-type", "").split(";")[0].strip().lower()
 
+    unused: list[str] = []
+
     def work() -> tuple[registry.NightInfo, bool]:
-        night, fmt = parse_night(body, media_type=media_type, participant_id=pid, tz=tz, fill_gaps=fill_gaps)
         with session_scope(factory) as session:
             epoch_seconds = registry.find_study(session, access.study_id).epoch_seconds
+            layout = None if profile is None else profiles.get_profile(session, access.study_id, profile)
+        night, fmt = parse_night(body, media_type=media_type, participant_id=pid, tz=tz, fill_gaps=fill_gaps,
+                                 profile=layout, source_name=source_name)
         night, source = registry.conform_epochs(night, epoch_seconds=epoch_seconds, study_id=access.study_id)
+        flags = checked_reference(night, accept=accept_implausible)
         values = registry.night_values(night, source_format=fmt, source_epoch_seconds=source)
+        values["qc"] = [*values["qc"], *flags]
+        unused[:] = night.unused_columns
         for _ in range(3):  # a concurrent first night of the same participant may win the insert
             try:
                 with session_scope(factory, write=True) as session:
@@ -134,7 +185,8 @@ async def post_night(request: Request, access: Annotated[StudyAccess, Depends(st
 
     info, created = await run_in_threadpool(work)
     out = NightAccepted(night_id=info.night_id, created=created, qc=info.qc,  # type: ignore[arg-type]
-                        epoch_seconds=info.epoch_seconds, source_epoch_seconds=info.source_epoch_seconds)
+                        epoch_seconds=info.epoch_seconds, source_epoch_seconds=info.source_epoch_seconds,
+                        unused_columns=unused)
     return JSONResponse(out.model_dump(mode="json"), status_code=201 if created else 200)
 
 
