@@ -23,3 +23,21 @@ def night_json(n_epochs: int = 240, *, seed: int = 0, **extra) -> dict:
     from models import night_to_json
 
     return {**night_to_json(make_night(n_epochs, seed=seed)), **extra}
+
+
+def problems_of(fn, *args, **kwargs) -> list:
+    """The problems of the :class:`models.InvalidNightError` that ``fn(*args, **kwargs)`` must raise."""
+    import pytest
+
+    from models import InvalidNightError
+
+    with pytest.raises(InvalidNightError) as info:
+        fn(*args, **kwargs)
+    return info.value.problems
+
+
+def one_problem(problems, code):
+    """The first problem with ``code`` (failing, with every code and message found, if there is none)."""
+    hits = [p for p in problems if p.code == code]
+    assert hits, f"expected {code}, got {[(p.code, p.message) for p in problems]}"
+    return hits[0]

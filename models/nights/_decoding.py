@@ -6,7 +6,6 @@ import codecs
 import re
 from collections.abc import Mapping
 from typing import TypedDict
-from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import pandas as pd
 
@@ -14,7 +13,7 @@ from ..errors import InvalidNightError, Problem
 from .checks import NightOptions
 from .night import Night
 from .resample import aggregate_epochs
-from .timestamps import EARLIEST_PLAUSIBLE_DATE, ISO_8601_PATTERN, LATEST_PLAUSIBLE_DATE
+from .timestamps import EARLIEST_PLAUSIBLE_DATE, ISO_8601_PATTERN, LATEST_PLAUSIBLE_DATE, zone_of
 
 __all__ = ["META_LINE", "NightMetadata", "decode_text", "finish_night", "metadata_fields", "parse_time"]
 
@@ -81,11 +80,8 @@ def parse_time(value: object, field: str, tz: str | None, problems: list[Problem
             problems.append(Problem("missing_timezone", f"{field} {value!r} has no UTC offset; add one "
                                     "(e.g. +01:00) or give a time zone", {"field": field, "time": value}))
             return None
-        try:
-            zone = ZoneInfo(tz)
-        except (ZoneInfoNotFoundError, ValueError):
-            problems.append(Problem("unknown_time_zone", f"time zone {tz!r} is not an IANA zone name (e.g. "
-                                    "Europe/Berlin)", {"field": "tz"}))
+        zone = zone_of(tz, problems)
+        if zone is None:
             return None
         try:
             ts = ts.tz_localize(zone, ambiguous="raise", nonexistent="raise")

@@ -204,6 +204,16 @@ def _offset(delta: timedelta | None) -> str:
     return f"{sign}{abs(seconds) // 3600:02d}:{abs(seconds) % 3600 // 60:02d}"
 
 
+def zone_of(tz: str, problems: list[Problem]) -> ZoneInfo | None:
+    """The IANA zone ``tz``, or None with an ``unknown_time_zone`` problem."""
+    try:
+        return ZoneInfo(tz)
+    except (ZoneInfoNotFoundError, ValueError):
+        problems.append(Problem("unknown_time_zone", f"time zone {tz!r} is not an IANA zone name (e.g. "
+                                "Europe/Berlin)", {"field": "tz"}))
+        return None
+
+
 def localize(naive_ns: NDArray[np.int64], tz: str, quote: Quote | None, row0: int, field: str,
              problems: list[Problem]) -> tuple[NDArray[np.int64], ZoneInfo] | None:
     """Naive local times (int64 ns) placed in ``tz``: (UTC int64 ns, zone), or None with a problem.
@@ -212,11 +222,8 @@ def localize(naive_ns: NDArray[np.int64], tz: str, quote: Quote | None, row0: in
     ``ambiguous="infer"``); nonexistent times and repeated times that order cannot place are refused,
     naming the file row, the time as written and the zone's offsets around the change.
     """
-    try:
-        zone = ZoneInfo(tz)
-    except (ZoneInfoNotFoundError, ValueError):
-        problems.append(Problem("unknown_time_zone", f"time zone {tz!r} is not an IANA zone name (e.g. "
-                                "Europe/Berlin)", {"field": "tz"}))
+    zone = zone_of(tz, problems)
+    if zone is None:
         return None
     import pyarrow as pa
     import pyarrow.compute as pc

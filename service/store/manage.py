@@ -19,11 +19,11 @@ from typing import Any
 from sqlalchemy import delete, func, select, update
 from sqlalchemy.orm import Session
 
-from ..errors import Conflict, NotFound, Unprocessable
+from ..errors import Conflict, Unprocessable
 from . import db, versions
 from .audit import record_audit
 from .ingest import case_clash, lock_study
-from .registry import find_participant, find_study
+from .registry import find_participant, find_study, night_row
 from .snapshots import NightInfo, check_id, night_snapshot, participant_snapshot, study_snapshot
 
 __all__ = ["delete_night", "delete_participant", "rename_participant", "update_night"]
@@ -76,15 +76,6 @@ def _delete_nights(session: Session, night_pks: list[int]) -> None:
         session.execute(delete(db.Night).where(db.Night.pk.in_(night_pks)))
 
 
-def _night_row(session: Session, study_id: str, participant_id: str, night_id: str) -> db.Night:
-    participant = find_participant(session, find_study(session, study_id), participant_id)
-    row = session.scalar(select(db.Night).where(db.Night.participant_pk == participant.pk,
-                                                db.Night.night_id == night_id))
-    if row is None:
-        raise NotFound(f"no night {night_id!r} for participant {participant_id!r}")
-    return row
-
-
 def delete_night(session: Session, *, study_id: str, participant_id: str, night_id: str,
                  actor: str) -> dict[str, Any]:
     """Delete one night, its cached scorings and its stored feature matrices.
@@ -104,7 +95,7 @@ def delete_night(session: Session, *, study_id: str, participant_id: str, night_
         If the study, participant or night does not exist.
     """
     study = find_study(session, study_id)
-    row = _night_row(session, study_id, participant_id, night_id)
+    row = night_row(session, study_id, participant_id, night_id)
     night_pk, content_hash, label = row.pk, row.content_hash, row.label
     scorings = _count(session, db.Scoring, db.Scoring.night_pk == night_pk)
     features = _count(session, db.NightFeatures, db.NightFeatures.night_pk == night_pk)
@@ -139,7 +130,7 @@ def update_night(session: Session, *, study_id: str, participant_id: str, night_
     NightInfo
         The night after the change (unchanged, and no audit entry, when nothing changes).
     """
-    row = _night_row(session, study_id, participant_id, night_id)
+    row = night_row(session, study_id, participant_id, night_id)
     changes: dict[str, Any] = {}
     if set_label and label != row.label:
         changes["label"] = label

@@ -52,6 +52,7 @@ __all__ = [
     "list_studies",
     "load_night",
     "load_nights",
+    "night_row",
     "night_values",
     "participant_snapshot",
     "record_choice",
@@ -184,7 +185,7 @@ def list_nights(session: Session, *, study_id: str, participant_id: str, limit: 
     return [night_snapshot(row, participant_id) for row in rows], int(total)  # type: ignore[arg-type]
 
 
-def _night_row(session: Session, study_id: str, participant_id: str, night_id: str) -> db.Night:
+def night_row(session: Session, study_id: str, participant_id: str, night_id: str) -> db.Night:
     participant = find_participant(session, find_study(session, study_id), participant_id)
     row = session.scalar(select(db.Night).where(db.Night.participant_pk == participant.pk,
                                                 db.Night.night_id == night_id))
@@ -201,12 +202,12 @@ def get_night(session: Session, *, study_id: str, participant_id: str, night_id:
     NotFound
         If the study, participant or night does not exist.
     """
-    return night_snapshot(_night_row(session, study_id, participant_id, night_id), participant_id)
+    return night_snapshot(night_row(session, study_id, participant_id, night_id), participant_id)
 
 
 def load_night(session: Session, *, study_id: str, participant_id: str, night_id: str) -> tuple[NightInfo, Night]:
     """One stored night with its data, as a :class:`models.Night`."""
-    row = _night_row(session, study_id, participant_id, night_id)
+    row = night_row(session, study_id, participant_id, night_id)
     return night_snapshot(row, participant_id), night_from_row(row, participant_id=participant_id)
 
 

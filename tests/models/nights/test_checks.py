@@ -7,10 +7,9 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from factories import make_night, night_json
+from factories import make_night, night_json, one_problem, problems_of
 
 from models import (
-    InvalidNightError,
     Night,
     NightOptions,
     QCConfig,
@@ -21,42 +20,30 @@ from models import (
 )
 
 
-def _problems(fn, *args, **kwargs):
-    with pytest.raises(InvalidNightError) as info:
-        fn(*args, **kwargs)
-    return info.value.problems
-
-
-def _one(problems, code):
-    hits = [p for p in problems if p.code == code]
-    assert hits, f"expected {code}, got {[p.code for p in problems]}"
-    return hits[0]
-
-
 def _csv(n=240) -> list[str]:
     return night_to_csv(make_night(n, stages=False)).splitlines()
 
 
 # ---- JSON field rules -------------------------------------------------------------------------------------
 def test_empty_recording() -> None:
-    p = _one(_problems(night_from_json, night_json(240, counts=[])), "empty_recording")
+    p = one_problem(problems_of(night_from_json, night_json(240, counts=[])), "empty_recording")
     assert p.location["field"] == "counts"
 
 
 def test_too_short() -> None:
-    p = _one(_problems(night_from_json, night_json(119)), "too_short")  # 119 x 30 s < 1 h
+    p = one_problem(problems_of(night_from_json, night_json(119)), "too_short")  # 119 x 30 s < 1 h
     assert "shorter than the minimum 1 h" in p.message and p.location["field"] == "counts"
     night_from_json(night_json(120))  # exactly 1 h is accepted
 
 
 def test_too_long_configurable() -> None:
     obj = night_json(240)
-    p = _one(_problems(night_from_json, obj, options=NightOptions(max_hours=1.5)), "too_long")
+    p = one_problem(problems_of(night_from_json, obj, options=NightOptions(max_hours=1.5)), "too_long")
     assert "1.5 h" in p.message
 
 
 def test_unsupported_epoch_length() -> None:
-    p = _one(_problems(night_from_json, night_json(240, epoch_seconds=20)), "unsupported_epoch_length")
+    p = one_problem(problems_of(night_from_json, night_json(240, epoch_seconds=20)), "unsupported_epoch_length")
     assert p.location["field"] == "epoch_seconds" and "20" in p.message
 
 
@@ -66,7 +53,7 @@ def test_unsupported_epoch_length() -> None:
 def test_count_value_rules_name_the_epoch(bad, code) -> None:
     obj = night_json(240)
     obj["counts"][17] = bad
-    p = _one(_problems(night_from_json, obj), code)
+    p = one_problem(problems_of(night_from_json, obj), code)
     assert p.location["epoch"] == 17 and "epoch 17" in p.message
 
 
@@ -74,14 +61,14 @@ def test_nan_count_in_csv_names_row() -> None:
     lines = _csv()
     t = lines[30].split(",")[0]
     lines[30] = f"{t},NaN"
-    p = _one(_problems(night_from_csv, "\n".join(lines)), "non_finite_count")
+    p = one_problem(problems_of(night_from_csv, "\n".join(lines)), "non_finite_count")
     assert p.location["row"] == 31 and p.location["epoch"] == 29
 
 
 def test_reference_wrong_length() -> None:
     obj = night_json(240)
     obj["reference"] = obj["reference"][:-2]
-    p = _one(_problems(night_from_json, obj), "reference_length")
+    p = one_problem(problems_of(night_from_json, obj), "reference_length")
     assert "238" in p.message and "240" in p.message
 
 
@@ -89,42 +76,42 @@ def test_unknown_stage_codes_listed() -> None:
     obj = night_json(240)
     obj["reference"][5] = "N4"
     obj["reference"][9] = "stage 2"
-    p = _one(_problems(night_from_json, obj), "unknown_stage")
+    p = one_problem(problems_of(night_from_json, obj), "unknown_stage")
     assert p.location["epoch"] == 5 and set(p.location["values"]) == {"N4", "stage 2"}
 
 
 def test_lights_order_and_outside() -> None:
     obj = night_json(240, lights_off="2031-03-02T23:30:00+01:00", lights_on="2031-03-02T23:00:00+01:00")
-    p = _one(_problems(night_from_json, obj), "lights_order")
+    p = one_problem(problems_of(night_from_json, obj), "lights_order")
     assert p.location["field"] == "lights_off"
     obj = night_json(240, lights_on="2031-03-03T09:00:00+01:00")
-    p = _one(_problems(night_from_json, obj), "lights_outside_recording")
+    p = one_problem(problems_of(night_from_json, obj), "lights_outside_recording")
     assert p.location["field"] == "lights_on" and "2031-03-03T09:00:00+01:00" in p.message
 
 
 def test_missing_timezone_in_json() -> None:
-    p = _one(_problems(night_from_json, night_json(240, start="2031-03-02T22:41:00")), "missing_timezone")
+    p = one_problem(problems_of(night_from_json, night_json(240, start="2031-03-02T22:41:00")), "missing_timezone")
     assert p.location["field"] == "start"
 
 
 def test_malformed_json_names_line_and_column() -> None:
     text = json.dumps(night_json(240), indent=1)[:-40]
-    p = _one(_problems(night_from_json, text.encode()), "malformed_json")
+    p = one_problem(problems_of(night_from_json, text.encode()), "malformed_json")
     assert p.location["row"] > 1 and "line" in p.message
 
 
 def test_unknown_and_missing_fields() -> None:
     obj = night_json(240, participant="x")
     del obj["start"]
-    problems = _problems(night_from_json, obj)
-    assert _one(problems, "unknown_field").location["field"] == "participant"
-    assert _one(problems, "missing_field").location["field"] == "start"
+    problems = problems_of(night_from_json, obj)
+    assert one_problem(problems, "unknown_field").location["field"] == "participant"
+    assert one_problem(problems, "missing_field").location["field"] == "start"
 
 
 def test_not_utf8_and_utf16() -> None:
-    p = _one(_problems(night_from_csv, b"time,counts\n\xff\xfe\xfa,1\n"), "not_utf8")
+    p = one_problem(problems_of(night_from_csv, b"time,counts\n\xff\xfe\xfa,1\n"), "not_utf8")
     assert p.location["row"] == 2
-    p = _one(_problems(night_from_csv, "time,counts\n".encode("utf-16")), "not_utf8")
+    p = one_problem(problems_of(night_from_csv, "time,counts\n".encode("utf-16")), "not_utf8")
     assert "UTF-16" in p.message
 
 
@@ -132,12 +119,13 @@ def test_every_problem_reported_at_once() -> None:
     obj = night_json(240, epoch_seconds=45, lights_off="2031-03-02T21:00:00+01:00")
     obj["counts"][3] = -1
     obj["reference"][4] = "Q"
-    codes = {p.code for p in _problems(night_from_json, obj)}
+    codes = {p.code for p in problems_of(night_from_json, obj)}
     assert {"unsupported_epoch_length", "negative_count", "unknown_stage"} <= codes
 
 
 def test_too_many_epochs_checked_first() -> None:
-    p = _one(_problems(night_from_json, night_json(240), options=NightOptions(max_epochs=100)), "too_many_epochs")
+    problems = problems_of(night_from_json, night_json(240), options=NightOptions(max_epochs=100))
+    p = one_problem(problems, "too_many_epochs")
     assert "100" in p.message
 
 
@@ -145,34 +133,34 @@ def test_too_many_epochs_checked_first() -> None:
 def test_duplicate_timestamp() -> None:
     lines = _csv()
     lines[11] = lines[10].split(",")[0] + ",3"
-    p = _one(_problems(night_from_csv, "\n".join(lines)), "duplicate_timestamp")
+    p = one_problem(problems_of(night_from_csv, "\n".join(lines)), "duplicate_timestamp")
     assert p.location["row"] == 12 and p.location["epoch"] == 10
 
 
 def test_time_going_backwards() -> None:
     lines = _csv()
     lines[20], lines[21] = lines[21], lines[20]
-    p = _one(_problems(night_from_csv, "\n".join(lines)), "time_not_increasing")
+    p = one_problem(problems_of(night_from_csv, "\n".join(lines)), "time_not_increasing")
     assert p.location["row"] == 22
 
 
 def test_irregular_spacing_gap() -> None:
     lines = _csv()
     del lines[40]
-    p = _one(_problems(night_from_csv, "\n".join(lines)), "irregular_spacing")
+    p = one_problem(problems_of(night_from_csv, "\n".join(lines)), "irregular_spacing")
     assert p.location["row"] == 41 and "60 s" in p.message
 
 
 def test_one_second_epochs_refused() -> None:
     times = pd.date_range("2031-03-02T22:00:00+00:00", periods=4000, freq="1s")
     text = "time,counts\n" + "\n".join(f"{t.isoformat()},0" for t in times)
-    p = _one(_problems(night_from_csv, text), "unsupported_epoch_length")
+    p = one_problem(problems_of(night_from_csv, text), "unsupported_epoch_length")
     assert "1 s" in p.message
 
 
 def test_missing_timezone_in_csv() -> None:
     text = "\n".join(line.replace("+01:00", "") for line in _csv())
-    p = _one(_problems(night_from_csv, text), "missing_timezone")
+    p = one_problem(problems_of(night_from_csv, text), "missing_timezone")
     assert p.location["row"] == 2
 
 
@@ -180,35 +168,35 @@ def test_daylight_saving_gap_in_naive_times() -> None:
     # 02:30 local does not exist on 2031-03-30 in Europe/Berlin (clocks jump 02:00 -> 03:00).
     times = pd.date_range("2031-03-30T00:00:00", periods=480, freq="30s")
     text = "time,counts\n" + "\n".join(f"{t.strftime('%Y-%m-%dT%H:%M:%S')},1" for t in times)
-    p = _one(_problems(night_from_csv, text, options=NightOptions(tz="Europe/Berlin")), "daylight_saving")
+    p = one_problem(problems_of(night_from_csv, text, options=NightOptions(tz="Europe/Berlin")), "daylight_saving")
     assert "Europe/Berlin" in p.message
 
 
 def test_invalid_timestamp_text() -> None:
     lines = _csv()
     lines[7] = "yesterday," + lines[7].split(",")[1]
-    p = _one(_problems(night_from_csv, "\n".join(lines)), "invalid_timestamp")
+    p = one_problem(problems_of(night_from_csv, "\n".join(lines)), "invalid_timestamp")
     assert p.location["row"] == 8 and "yesterday" in p.message
 
 
 def test_missing_columns_and_header_only_and_empty() -> None:
-    p = _one(_problems(night_from_csv, "when,counts\n2031-03-02T22:00:00Z,1\n"), "missing_column")
+    p = one_problem(problems_of(night_from_csv, "when,counts\n2031-03-02T22:00:00Z,1\n"), "missing_column")
     assert p.location["row"] == 1 and "when" in p.message
-    assert _one(_problems(night_from_csv, "time,counts\n"), "empty_recording")
-    assert _one(_problems(night_from_csv, b""), "empty_file")
+    assert one_problem(problems_of(night_from_csv, "time,counts\n"), "empty_recording")
+    assert one_problem(problems_of(night_from_csv, b""), "empty_file")
 
 
 def test_mixed_delimiters() -> None:
     lines = _csv()
     lines[15] = lines[15].replace(",", ";") + ",2,3"
-    p = _one(_problems(night_from_csv, "\n".join(lines)), "malformed_csv")
+    p = one_problem(problems_of(night_from_csv, "\n".join(lines)), "malformed_csv")
     assert p.location["row"] == 16
 
 
 def test_non_numeric_count_in_csv() -> None:
     lines = _csv()
     lines[9] = lines[9].split(",")[0] + ",twelve"
-    p = _one(_problems(night_from_csv, "\n".join(lines)), "non_numeric_count")
+    p = one_problem(problems_of(night_from_csv, "\n".join(lines)), "non_numeric_count")
     assert p.location["row"] == 10 and "twelve" in p.message
 
 

@@ -13,11 +13,10 @@ import json
 
 import numpy as np
 import pandas as pd
-import pytest
+from factories import one_problem, problems_of
 
 from models import (
     ImportProfile,
-    InvalidNightError,
     NightOptions,
     night_from_csv,
     night_from_json,
@@ -30,18 +29,6 @@ PREAMBLE = ["Gerät;simuliert", "Seriennummer;0000", "Epoche;30 s", ""]
 # R&K (Rechtschaffen & Kales 1968): 0 wake, 1-4 sleep stages 1-4, 5 REM. AASM (Iber et al. 2007): W, N1, N2,
 # N3, R, with R&K stages 3 and 4 together forming N3 (both from memory).
 RK_TO_AASM = {"0": "W", "1": "N1", "2": "N2", "3": "N3", "4": "N3", "5": "R"}
-
-
-def _problems(fn, *args, **kwargs):
-    with pytest.raises(InvalidNightError) as info:
-        fn(*args, **kwargs)
-    return info.value.problems
-
-
-def _one(problems, code):
-    hits = [p for p in problems if p.code == code]
-    assert hits, f"expected {code}, got {[(p.code, p.message) for p in problems]}"
-    return hits[0]
 
 
 def _german_export(n: int = 600, *, seed: int = 0, start: str = "2031-03-02 22:00:00") -> tuple[bytes, pd.DataFrame]:
@@ -134,7 +121,7 @@ def test_reference_like_column_not_mapped_is_refused_until_ignored() -> None:
     lines = text.split("\n")
     lines = lines[: len(PREAMBLE) + 1] + [line + ";1" if line else line for line in lines[len(PREAMBLE) + 1:]]
     export = "\n".join(lines).encode("latin-1")
-    p = _one(_problems(night_from_csv, export, profile=GERMAN), "unmapped_reference_column")
+    p = one_problem(problems_of(night_from_csv, export, profile=GERMAN), "unmapped_reference_column")
     assert p.location == {"field": "Gerät Schlaf/Wach", "row": len(PREAMBLE) + 1}
     ignoring = ImportProfile.from_dict({**GERMAN.to_dict(), "ignore_columns": ["Gerät Schlaf/Wach"]})
     assert night_from_csv(export, profile=ignoring).unused_columns == ("Lux",)
@@ -143,13 +130,13 @@ def test_reference_like_column_not_mapped_is_refused_until_ignored() -> None:
 def test_second_reference_alias_without_profile_is_refused() -> None:
     times = pd.date_range("2031-03-02T22:00:00Z", periods=240, freq="30s")
     text = "time,counts,stage,psg\n" + "\n".join(f"{t.isoformat()},1,W,W" for t in times)
-    assert _one(_problems(night_from_csv, text), "unmapped_reference_column").location["field"] == "psg"
+    assert one_problem(problems_of(night_from_csv, text), "unmapped_reference_column").location["field"] == "psg"
 
 
 def test_profile_column_missing_names_the_header_row() -> None:
     data, _ = _german_export()
     profile = ImportProfile.from_dict({**GERMAN.to_dict(), "columns": {**GERMAN.columns, "counts": "Counts"}})
-    p = _one(_problems(night_from_csv, data, profile=profile), "missing_column")
+    p = one_problem(problems_of(night_from_csv, data, profile=profile), "missing_column")
     assert p.location == {"field": "Counts", "row": len(PREAMBLE) + 1} and "lab-de" in p.message
 
 
@@ -158,7 +145,8 @@ def test_time_not_in_the_format_names_the_file_row() -> None:
     lines = data.decode("latin-1").split("\n")
     at = len(PREAMBLE) + 1 + 10  # file line (1-based) of the 11th data row
     lines[at - 1] = lines[at - 1].replace(".2031;", ".31;", 1)
-    p = _one(_problems(night_from_csv, "\n".join(lines).encode("latin-1"), profile=GERMAN), "invalid_timestamp")
+    problems = problems_of(night_from_csv, "\n".join(lines).encode("latin-1"), profile=GERMAN)
+    p = one_problem(problems, "invalid_timestamp")
     assert p.location["row"] == at and "%d.%m.%Y %H:%M:%S" in p.message
 
 

@@ -9,12 +9,12 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pytest
+from factories import one_problem, problems_of
 
 from models import (
     EARLIEST_PLAUSIBLE_DATE,
     LATEST_PLAUSIBLE_DATE,
     ImportProfile,
-    InvalidNightError,
     NightOptions,
     night_from_csv,
     night_from_json,
@@ -22,18 +22,6 @@ from models import (
 from models.nights.timestamps import NAT, parse_with_format
 
 BERLIN = "Europe/Berlin"
-
-
-def _problems(fn, *args, **kwargs):
-    with pytest.raises(InvalidNightError) as info:
-        fn(*args, **kwargs)
-    return info.value.problems
-
-
-def _one(problems, code):
-    hits = [p for p in problems if p.code == code]
-    assert hits, f"expected {code}, got {[(p.code, p.message) for p in problems]}"
-    return hits[0]
 
 
 def _csv(times: list[str], header: str = "time,counts") -> str:
@@ -54,21 +42,21 @@ def test_pandas_reads_some_words_as_times() -> None:
 def test_words_are_refused_in_csv(word: str) -> None:
     times = _iso_times()
     times[5] = word
-    p = _one(_problems(night_from_csv, _csv(times)), "invalid_timestamp")
+    p = one_problem(problems_of(night_from_csv, _csv(times)), "invalid_timestamp")
     assert p.location["row"] == 7 and word in p.message
 
 
 @pytest.mark.parametrize("word", ["now", "today", "yesterday"])
 def test_words_are_refused_in_json(word: str) -> None:
     obj = {"epoch_seconds": 30, "start": word, "counts": [1] * 240}
-    assert _one(_problems(night_from_json, obj), "invalid_timestamp").location["field"] == "start"
+    assert one_problem(problems_of(night_from_json, obj), "invalid_timestamp").location["field"] == "start"
 
 
 @pytest.mark.parametrize("value", ["2031", "2031-03-02", "20310302T220000", "2031-03-02T22"])
 def test_only_extended_date_and_time_of_day(value: str) -> None:
     times = _iso_times()
     times[3] = value
-    assert _one(_problems(night_from_csv, _csv(times)), "invalid_timestamp").location["row"] == 5
+    assert one_problem(problems_of(night_from_csv, _csv(times)), "invalid_timestamp").location["row"] == 5
 
 
 @pytest.mark.parametrize("start,ok", [("1989-12-31T22:00:00Z", False), ("1990-01-01T00:00:00Z", True),
@@ -81,7 +69,7 @@ def test_plausible_date_range(start: str, ok: bool) -> None:
         if ok:
             read(data)
         else:
-            p = _one(_problems(read, data), "implausible_date")
+            p = one_problem(problems_of(read, data), "implausible_date")
             assert str(EARLIEST_PLAUSIBLE_DATE.date()) in p.message and str(LATEST_PLAUSIBLE_DATE.date()) in p.message
 
 
@@ -89,7 +77,7 @@ def test_implausible_date_from_a_two_digit_year_format() -> None:
     local = pd.date_range("1985-03-02 22:00", periods=240, freq="30s")
     text = _csv([t.strftime("%d.%m.%y %H:%M:%S") for t in local])
     profile = ImportProfile(name="yy", datetime_format="%d.%m.%y %H:%M:%S", tz=BERLIN)
-    p = _one(_problems(night_from_csv, text, profile=profile), "implausible_date")
+    p = one_problem(problems_of(night_from_csv, text, profile=profile), "implausible_date")
     assert p.location["row"] == 2 and "02.03.85 22:00:00" in p.message
 
 
@@ -112,7 +100,7 @@ def test_overflowing_day_in_a_file_is_refused() -> None:
     times = [t.strftime("%d/%m/%Y %H:%M:%S") for t in local]
     times[0] = "31/02/2031 00:00:00"
     profile = ImportProfile(name="dmy", datetime_format="%d/%m/%Y %H:%M:%S", tz="UTC")
-    p = _one(_problems(night_from_csv, _csv(times), profile=profile), "invalid_timestamp")
+    p = one_problem(problems_of(night_from_csv, _csv(times), profile=profile), "invalid_timestamp")
     assert p.location["row"] == 2 and "31/02/2031" in p.message
 
 
@@ -122,7 +110,7 @@ def test_spring_forward_names_row_and_offsets() -> None:
     text = "Header line 1\nHeader line 2\nDatum;Zeit;Aktivität\n" + "\n".join(f"{t};3" for t in times)
     profile = ImportProfile(name="de", delimiter=";", skip_rows=2, datetime_format="%d.%m.%Y %H:%M:%S", tz=BERLIN,
                             columns={"date": "Datum", "time": "Zeit", "counts": "Aktivität"})
-    p = _one(_problems(night_from_csv, text, profile=profile), "daylight_saving")
+    p = one_problem(problems_of(night_from_csv, text, profile=profile), "daylight_saving")
     first_gap = int(np.flatnonzero(local.hour == 2)[0])
     assert p.location["row"] == 3 + 1 + first_gap  # preamble (2) + header (1) + data rows before it, 1-based
     assert p.location["time"] == "30.03.2031 02:00:00"
@@ -137,7 +125,7 @@ def test_repeated_hour_without_order_names_row() -> None:
     # a night that starts inside the repeated hour 02:00-03:00 (2031-10-26, Berlin) cannot be placed by order
     local = pd.date_range("2031-10-26 02:10:00", periods=240, freq="30s")
     text = _csv([t.strftime("%Y-%m-%dT%H:%M:%S") for t in local])
-    p = _one(_problems(night_from_csv, text, options=NightOptions(tz=BERLIN)), "daylight_saving")
+    p = one_problem(problems_of(night_from_csv, text, options=NightOptions(tz=BERLIN)), "daylight_saving")
     assert p.location["row"] == 2 and p.location["time"] == "2031-10-26T02:10:00"
     zone = ZoneInfo(BERLIN)
     first, second = (datetime(2031, 10, 26, 2, 10, tzinfo=zone, fold=f).utcoffset() for f in (0, 1))
@@ -157,5 +145,5 @@ def test_fall_back_in_order_matches_pandas_inference() -> None:
 
 def test_unknown_zone_is_named() -> None:
     text = _csv([t[:19] for t in _iso_times()])
-    assert _one(_problems(night_from_csv, text, options=NightOptions(tz="Mars/Olympus")),
+    assert one_problem(problems_of(night_from_csv, text, options=NightOptions(tz="Mars/Olympus")),
                 "unknown_time_zone").location["field"] == "tz"
