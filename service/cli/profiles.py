@@ -8,10 +8,8 @@ name, from the study on the server.
 from __future__ import annotations
 
 import dataclasses
-import inspect
 import json
 from collections.abc import Mapping
-from functools import cache
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -19,14 +17,13 @@ import typer
 from rich.markup import escape
 from rich.table import Table
 
-import models
-from models import ImportProfile, InvalidProfileError, Night, NightOptions, read_night
+from models import ImportProfile, InvalidProfileError, Night, NightOptions, guess_profile, read_night
 
 from ..errors import BadRequest, Unprocessable
 from .application import app
-from .console import DEFAULT_URL, JsonOption, ServerOption, TokenOption, YesOption, connect, console, err_console
+from .console import DEFAULT_URL, JsonOption, ServerOption, TokenOption, YesOption, connect, console
 
-__all__ = ["fetch_profile", "guess_result", "load_profile_file", "profile_app", "read_night_file", "resolve_profile"]
+__all__ = ["fetch_profile", "load_profile_file", "profile_app", "read_night_file", "resolve_profile"]
 
 profile_app = typer.Typer(no_args_is_help=True, help="Import profiles: how a lab's CSV export is laid out.")
 app.add_typer(profile_app, name="profile")
@@ -100,27 +97,10 @@ def resolve_profile(value: str, *, study: str | None, server: str, token: str) -
     return fetch_profile(study, value, server=server, token=token)
 
 
-@cache
-def _reader_takes_profile() -> bool:
-    return "profile" in inspect.signature(read_night).parameters
-
-
-@cache
-def _warn_profile_not_applied() -> None:
-    err_console.print("[yellow]warning: this installation's night readers do not apply import profiles yet; files "
-                      "are read with the usual header aliases[/yellow]")
-
-
 def read_night_file(path: Path, *, participant_id: str, options: NightOptions,
                     profile: ImportProfile | None = None) -> Night:
-    """Read and check a night file with the science readers, applying ``profile`` when the readers take one."""
-    if profile is None:
-        return read_night(path, participant_id=participant_id, options=options)
-    if _reader_takes_profile():
-        reader: Any = read_night
-        return reader(path, participant_id=participant_id, options=options, profile=profile)
-    _warn_profile_not_applied()
-    return read_night(path, participant_id=participant_id, options=options)
+    """Read and check a night file with the science readers, applying ``profile`` if given."""
+    return read_night(path, participant_id=participant_id, options=options, profile=profile)
 
 
 # ---- commands ----------------------------------------------------------------------------------
@@ -184,24 +164,6 @@ def delete(study: StudyArgument, name: NameArgument, yes: YesOption = False, ser
     console.print(f"deleted import profile {escape(name)} of study {escape(study)}")
 
 
-def guess_result(found: Any) -> dict[str, Any]:
-    """A guess in the route's JSON form: ``profile`` (dict), ``preview`` (rows), ``notes``, ``stage_codes_found``."""
-    if isinstance(found, ImportProfile):
-        found = {"profile": found}
-    elif not isinstance(found, Mapping):
-        found = found.to_dict() if hasattr(found, "to_dict") else dataclasses.asdict(found)
-    out = dict(found)
-    if isinstance(out.get("profile"), ImportProfile):
-        out["profile"] = out["profile"].to_dict()
-    preview = out.get("preview")
-    if preview is not None and hasattr(preview, "to_dict"):  # a data frame
-        preview = preview.to_dict(orient="records")
-    out["preview"] = list(preview or [])
-    out["notes"] = list(out.get("notes") or [])
-    out["stage_codes_found"] = list(out.get("stage_codes_found") or [])
-    return out
-
-
 def _preview_table(rows: list[Any], n_rows: int) -> Table:
     table = Table(title=f"First {min(n_rows, len(rows))} row(s) as read with this profile")
     shown = rows[:n_rows]
@@ -223,8 +185,7 @@ def _preview_table(rows: list[Any], n_rows: int) -> Table:
 @profile_app.command("guess")
 def guess(
     file: Annotated[Path, typer.Argument(help="A CSV export of one night.")],
-    study: Annotated[str | None, typer.Option("--study", help="Study to save the profile in (and to guess on "
-                                                              "the server when this installation cannot).")] = None,
+    study: Annotated[str | None, typer.Option("--study", help="Study to save the profile in.")] = None,
     save: Annotated[str | None, typer.Option("--save", help="Save the proposed profile under this name.")] = None,
     yes: YesOption = False,
     n_rows: Annotated[int, typer.Option("--rows", min=1, max=1000, help="Preview rows to show.")] = 10,
@@ -237,15 +198,7 @@ def guess(
     if not file.is_file():
         raise BadRequest(f"no such file: {file}", code="file_not_found")
     data = file.read_bytes()
-    local = getattr(models, "guess_profile", None)
-    if local is not None:
-        result = guess_result(local(data))
-    elif study is None:
-        raise typer.BadParameter("this installation guesses profiles on the server: give --study (and "
-                                 "--server/--token)", param_hint="--study")
-    else:
-        with connect(server, token) as client:
-            result = guess_result(client.guess_profile(study, data))
+    result = guess_profile(data).to_dict()
     console.print_json(json.dumps(result["profile"]))
     console.print(_preview_table(result["preview"], n_rows))
     for note in result["notes"]:

@@ -7,7 +7,6 @@ the server does not offer yet are skipped until its OpenAPI document lists them.
 
 from __future__ import annotations
 
-import inspect
 import json
 import os
 import shutil
@@ -22,8 +21,6 @@ import pytest
 from factories import night_json
 from harness import bearer, cohort_bodies, free_port
 from route_support import needs_route
-
-from models import read_night
 
 EXE = shutil.which("nightbank", path=str(Path(sys.executable).parent)) or "nightbank"
 NIGHTS = "/v1/studies/{study}/participants/{pid}/nights"
@@ -325,28 +322,12 @@ def test_push_with_a_saved_profile_and_its_dry_run(server, remote, tmp_path) -> 
     assert night["n_epochs"] == len(body["counts"]) and night["labelled"]  # every data row, with its stage
     (planned,) = _lines(dry)
     assert planned["request"]["params"] == {"profile": "lab7"}
-    if "profile" in inspect.signature(read_night).parameters:  # the readers apply the profile here as the server
-        assert dry.returncode == 0 and planned["status"] == "would_send" and planned["epochs"] == night["n_epochs"]
-    else:  # they cannot yet: the dry run says so
-        assert "do not apply import profiles" in dry.stderr
+    # the readers apply the profile here as the server does
+    assert dry.returncode == 0 and planned["status"] == "would_send" and planned["epochs"] == night["n_epochs"]
     unknown = nb("push", str(folder), "--study", "s", "--profile", "nope", "--dry-run", *remote)
     assert unknown.returncode == 1 and "not_found" in unknown.stderr
 
 
-def _guess_available() -> bool:
-    from route_support import serves
-
-    import models
-
-    return hasattr(models, "guess_profile") or serves("POST", PROFILES + "/guess")
-
-
-class _NoGuesser:
-    def __bool__(self) -> bool:
-        return not _guess_available()
-
-
-@pytest.mark.skipif(_NoGuesser(), reason="neither models.guess_profile nor the server's guess route exists yet")
 @needs_route("POST", PROFILES)
 def test_profile_guess_proposes_the_layout_and_saves_it(server, remote, tmp_path) -> None:
     body = night_json(240, seed=5)
