@@ -20,13 +20,14 @@ from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy.orm import Session, sessionmaker
 
 from ..config import Settings
-from ..errors import Forbidden, NotFound, Unauthorized
+from ..errors import Forbidden, NotFound, PayloadTooLarge, Unauthorized
 from ..store.db import session_scope
 from ..store.registry import ID_PATTERN
 from ..store.tokens import Principal, Role, TokenCache, verify_token
 
 __all__ = [
-    "FactoryDep", "PrincipalDep", "ReadSession", "SettingsDep", "StudyAccess", "require_lab_role", "study_access",
+    "FactoryDep", "PrincipalDep", "ReadSession", "SettingsDep", "StudyAccess", "read_body", "require_lab_role",
+    "study_access",
 ]
 
 _bearer = HTTPBearer(auto_error=False, description="Token from `nightbank token create`.")
@@ -113,3 +114,17 @@ def require_lab_role(role: Role) -> Callable[..., Awaitable[Principal]]:
 
     dependency.required_role = role  # type: ignore[attr-defined]  # read by the route-table access tests
     return dependency
+
+
+async def read_body(request: Request, limit_bytes: int) -> bytes:
+    """The request body, refused (413) as soon as it is larger than ``limit_bytes``."""
+    declared = request.headers.get("content-length")
+    if declared is not None and declared.isdigit() and int(declared) > limit_bytes:
+        raise PayloadTooLarge(f"the body is larger than the limit of {limit_bytes // 2**20} MB")
+    chunks, size = [], 0
+    async for chunk in request.stream():
+        size += len(chunk)
+        if size > limit_bytes:
+            raise PayloadTooLarge(f"the body is larger than the limit of {limit_bytes // 2**20} MB")
+        chunks.append(chunk)
+    return b"".join(chunks)

@@ -12,7 +12,8 @@ from ..store.registry import ID_PATTERN
 __all__ = [
     "ImportProfileOut", "JobAccepted", "JobOut", "MarkedVersion", "ModelVersionOut", "NightAccepted", "NightDeleted",
     "NightDetailOut", "NightIn", "NightOut", "NightPatch", "Page", "ParticipantOut", "Problem", "ProblemItem",
-    "Progress", "QCFlagOut", "RenameIn", "RenameOut", "RenumberedVersion", "ScoringOut", "StudyIn", "StudyOut",
+    "ProfileGuessOut", "Progress", "QCFlagOut", "RenameIn", "RenameOut", "RenumberedVersion", "ScoringOut",
+    "StudyIn", "StudyOut",
     "TokenCreated", "TokenIn", "TokenOut", "TrainingIn",
 ]
 
@@ -236,6 +237,13 @@ class ModelVersionOut(BaseModel):
 
 
 # ---- import profiles ------------------------------------------------------------------------
+class ProfileGuessOut(BaseModel):
+    profile: dict[str, Any] = Field(description="the proposed import profile (its JSON form)")
+    preview: list[dict[str, Any]] = Field(description="the first rows read with it: time, counts, reference")
+    notes: list[str] = Field(description="what was guessed and what to confirm before saving")
+    stage_codes_found: list[str] = Field(description="the reference codes written in the sample")
+
+
 class ImportProfileOut(BaseModel):
     name: str
     profile: dict[str, Any] = Field(description="the profile's JSON form (fields that differ from their defaults)")

@@ -79,3 +79,36 @@ def test_bad_profiles_get_a_422_naming_each_field_and_nothing_is_stored(world: W
     assert http.get(f"{URL}/bad name!").status_code in (404, 422)
     assert http.get(URL).json() == []
     assert http.get(URL, headers=world.token("admin", "s2")).status_code == 404  # another study's token
+
+
+def test_a_guessed_profile_reads_the_lab_export_it_was_guessed_from(world: World) -> None:
+    import pandas as pd
+
+    # a day-first export with a metadata preamble, as written here; pandas with explicit arguments is the
+    # outside reading of the same bytes
+    times = pd.date_range("2031-03-02 22:41:00", periods=240, freq="30s")
+    rows = [f"{t:%d.%m.%Y};{t:%H:%M:%S};{k % 9};{'2' if k % 4 else '0'}" for k, t in enumerate(times)]
+    data = ("device;simulated\nserial;0000\nDate;Time;Activity;Stage\n" + "\n".join(rows) + "\n").encode()
+    http, ingest = world.http, world.token("ingest", "s1")
+    r = http.post(f"{URL}/guess", content=data, headers={**ingest, "content-type": "text/csv"})
+    assert r.status_code == 200, r.text
+    guess = r.json()
+    assert guess["profile"]["skip_rows"] == 2 and guess["profile"]["delimiter"] == ";"
+    assert set(guess["stage_codes_found"]) == {"0", "2"}
+    profile = {**guess["profile"], "name": "guessed-lab", "tz": "Europe/Berlin"}
+    assert http.post(URL, json=profile, headers=ingest).status_code == 201
+    night = http.post("/v1/studies/s1/participants/P01/nights", params={"profile": "guessed-lab"}, content=data,
+                      headers={**ingest, "content-type": "text/csv"})
+    assert night.status_code == 201, night.text
+    stored = http.get(f"/v1/studies/s1/participants/P01/nights/{night.json()['night_id']}",
+                      params={"epochs": "true"}, headers=ingest).json()
+    expected = pd.read_csv(__import__("io").BytesIO(data), sep=";", skiprows=2)
+    assert stored["counts"] == expected["Activity"].astype(float).tolist()
+    assert stored["n_epochs"] == len(expected)
+
+
+def test_a_sample_no_profile_can_read_is_a_422(world: World) -> None:
+    http, ingest = world.http, world.token("ingest", "s1")
+    r = http.post(f"{URL}/guess", content=b"[]", headers={**ingest, "content-type": "text/csv"})
+    assert r.status_code == 422 and r.json()["code"] == "profile_not_guessed"
+    assert http.get(URL, headers=ingest).json() == []  # a guess saves nothing

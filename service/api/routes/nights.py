@@ -26,12 +26,12 @@ from models import (
     night_from_parquet,
 )
 
-from ...errors import Conflict, PayloadTooLarge, Unprocessable, UnsupportedMediaType
+from ...errors import Conflict, Unprocessable, UnsupportedMediaType
 from ...results.scoring import SCORING_METHODS, score_night
 from ...store import manage, profiles, registry
 from ...store.db import session_scope
 from ...store.tokens import Role
-from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, study_access
+from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, read_body, study_access
 from ..problems import problem_responses
 from ..schemas import NightAccepted, NightDeleted, NightDetailOut, NightIn, NightOut, NightPatch, Page, ScoringOut
 from .studies import Limit, Offset, ParticipantPath
@@ -106,19 +106,6 @@ def checked_reference(night: Night, *, accept: bool) -> list[dict[str, Any]]:
     return [] if flag is None else [flag.to_dict()]
 
 
-async def _read_body(request: Request, limit_bytes: int) -> bytes:
-    declared = request.headers.get("content-length")
-    if declared is not None and declared.isdigit() and int(declared) > limit_bytes:
-        raise PayloadTooLarge(f"the body is larger than the limit of {limit_bytes // 2**20} MB")
-    chunks, size = [], 0
-    async for chunk in request.stream():
-        size += len(chunk)
-        if size > limit_bytes:
-            raise PayloadTooLarge(f"the body is larger than the limit of {limit_bytes // 2**20} MB")
-        chunks.append(chunk)
-    return b"".join(chunks)
-
-
 _INGEST_DOC = """Store a night (JSON, CSV or Parquet); the participant is created with its first night.
 
 The night is stored at the study's epoch length: a night of a shorter length that divides it is
@@ -156,7 +143,7 @@ async def post_night(request: Request, access: Annotated[StudyAccess, Depends(st
                          max_length=200, description="the file the night came from (its label when it has none)")]
                      = None,
                      ) -> Any:
-    body = await _read_body(request, int(settings.max_body_mb * 2**20))
+    body = await read_body(request, int(settings.max_body_mb * 2**20))
     media_type = request.headers.get("content-type", "").split(";")[0].strip().lower()
 
     unused: list[str] = []

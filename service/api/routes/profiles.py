@@ -8,18 +8,21 @@ from __future__ import annotations
 
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Body, Depends, Path, Query
+from fastapi import APIRouter, Body, Depends, Path, Query, Request
+from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import IntegrityError
 
-from ...errors import Conflict
+from models import InvalidNightError, ProfileGuess, guess_profile, night_from_csv
+
+from ...errors import Conflict, Unprocessable
 from ...store import profiles
 from ...store.db import session_scope
 from ...store.registry import ID_PATTERN
 from ...store.tokens import Role
-from ..deps import FactoryDep, ReadSession, StudyAccess, study_access
+from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, read_body, study_access
 from ..problems import problem_responses
-from ..schemas import ImportProfileOut
+from ..schemas import ImportProfileOut, ProfileGuessOut
 
 __all__ = ["router"]
 
@@ -58,6 +61,37 @@ def save_profile(access: IngestAccess, body: ProfileBody, factory: FactoryDep,
             continue
     raise Conflict("the profile could not be saved: a concurrent save of the same name conflicted; try again",
                    code="concurrent_change")
+
+
+_GUESS_BODY = {"required": True, "content": {"text/csv": {"schema": {"type": "string"},
+                                                           "example": "Date;Time;Activity\n02.03.2031;22:41:00;0\n"}}}
+
+
+@router.post("/guess", response_model=ProfileGuessOut, openapi_extra={"requestBody": _GUESS_BODY},
+             responses=problem_responses(413, 422))
+async def guess(access: IngestAccess, request: Request, settings: SettingsDep) -> Any:
+    """Propose an import profile for a sample export sent as the body (nothing is saved).
+
+    A guess that cannot read its own sample back as a night is refused (422 `profile_not_guessed`,
+    with the reader's problems and the guess's notes).
+
+    Answers the proposed `profile`, the first rows read with it (`preview`), `notes` on what was
+    guessed and what to confirm (e.g. the polarity of a 0/1 reference), and `stage_codes_found`.
+    """
+    data = await read_body(request, int(settings.max_body_mb * 2**20))
+    return (await run_in_threadpool(_checked_guess, data)).to_dict()
+
+
+def _checked_guess(data: bytes) -> ProfileGuess:
+    """The guess, if it reads the sample back as a night; else 422 ``profile_not_guessed`` with the reasons."""
+    found = guess_profile(data)
+    try:
+        night_from_csv(data, profile=found.profile)
+    except InvalidNightError as exc:
+        notes = "; ".join(found.notes)
+        raise Unprocessable(f"no import profile that reads this sample could be guessed ({notes or 'no notes'}); "
+                            "write the profile by hand", code="profile_not_guessed", problems=exc.problems) from None
+    return found
 
 
 @router.get("", response_model=list[ImportProfileOut])
