@@ -10,11 +10,10 @@ from pydantic import BaseModel, ConfigDict, Field
 from ..store.registry import ID_PATTERN
 
 __all__ = [
-    "ImportProfileOut", "JobAccepted", "JobOut", "MarkedVersion", "ModelVersionOut", "NightAccepted", "NightDeleted",
-    "NightDetailOut", "NightIn", "NightOut", "NightPatch", "Page", "ParticipantOut", "Problem", "ProblemItem",
-    "ProfileGuessOut", "Progress", "QCFlagOut", "RenameIn", "RenameOut", "RenumberedVersion", "ScoringOut",
-    "StudyIn", "StudyOut",
-    "TokenCreated", "TokenIn", "TokenOut", "TrainingIn",
+    "FlaggedTrainingNightOut", "ImportProfileOut", "JobAccepted", "JobOut", "MarkedVersion", "ModelVersionOut",
+    "NightAccepted", "NightDeleted", "NightDetailOut", "NightIn", "NightOut", "NightPatch", "Page", "ParticipantOut",
+    "Problem", "ProblemItem", "ProfileGuessOut", "Progress", "QCFlagOut", "RenameIn", "RenameOut", "RenumberedVersion", "ScoringOut",
+    "StudyIn", "StudyOut", "TokenCreated", "TokenIn", "TokenOut", "TrainingIn",
 ]
 
 T = TypeVar("T")
@@ -217,6 +216,14 @@ class JobOut(BaseModel):
     finished_at: datetime | None
 
 
+class FlaggedTrainingNightOut(BaseModel):
+    participant_id: str
+    night_id: str
+    codes: list[str] = Field(description="the night's QC codes a model trained on it warns about, e.g. "
+                                         "reference_implausible (its PSG reference was stored although implausible)")
+    label: str | None = None
+
+
 class ModelVersionOut(BaseModel):
     version: int
     kind: str
@@ -234,6 +241,10 @@ class ModelVersionOut(BaseModel):
     training_nights: list[dict[str, Any]]
     trained_on_deleted_nights: list[str] = Field(
         default_factory=list, description="ids of training nights deleted since; the version stays usable")
+    flagged_training_nights: list[FlaggedTrainingNightOut] = Field(
+        default_factory=list, description="training nights that carried a warning QC code when the model was "
+                                          "trained (reference_implausible: a reference stored with "
+                                          "accept_implausible); empty for versions stored before this was recorded")
 
 
 # ---- import profiles ------------------------------------------------------------------------

@@ -6,7 +6,9 @@ database and those functions and writes the registry record of the new version.
 
 Nights excluded from training (``nights.excluded``, set through the API) are not loaded for
 either training; every version records the nights it was trained on (``training_nights`` with
-their content hashes), which is what marks a version when one of them is deleted later.
+their content hashes), which is what marks a version when one of them is deleted later, and
+those of them that carry a QC code of :data:`TRAINING_WARNING_CODES` (``flagged_nights``: a
+reference stored although it looked implausible), which its answer and card then warn about.
 
 Training gets its night features from the database (:mod:`service.store.features`): the stored
 matrices are loaded in bulk and the missing ones computed here and stored, before the training
@@ -24,7 +26,7 @@ that version when claimed again instead of training twice.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import pandas as pd
@@ -40,6 +42,7 @@ from models import (
     TrainingConfig,
     choose_method,
     model_to_bytes,
+    personal_studies,
     train_personal,
     train_pooled,
 )
@@ -50,7 +53,7 @@ from ..store import db, versions
 from ..store.codec import encode_held_out
 from ..store.db import session_scope
 from ..store.features import load_features_of, store_features
-from ..store.metadata import HeldOutFigures, MetricSummary, ModelMetadata, Selection, TrainingNight
+from ..store.metadata import FlaggedNight, HeldOutFigures, MetricSummary, ModelMetadata, Selection, TrainingNight
 from ..store.registry import (
     ParticipantInfo,
     StudyInfo,
@@ -62,7 +65,12 @@ from ..store.registry import (
 )
 from .queue import JobInfo, enqueue_job
 
-__all__ = ["Compute", "check_trainable", "compute_here", "queue_training", "refresh_choices", "run_training_job"]
+__all__ = ["TRAINING_WARNING_CODES", "Compute", "check_trainable", "compute_here", "queue_training",
+           "refresh_choices", "run_training_job"]
+
+#: QC codes of a night that a model trained on it carries into its version (``flagged_nights``)
+#: and its card warns about: the night's reference was stored although it looked implausible.
+TRAINING_WARNING_CODES: tuple[str, ...] = ("reference_implausible",)
 
 #: compute(function, kwargs, progress) -> function(**kwargs) computed here or elsewhere; ``progress``
 #: must be called as work advances (it raises to stop the job)
@@ -96,17 +104,28 @@ def _config(job: JobInfo, settings: Settings) -> TrainingConfig:
 def check_trainable(session: Session, *, participant: ParticipantInfo) -> None:
     """Refuse a personal training that cannot succeed (too few labelled nights).
 
+    Nights are counted as training counts them (:func:`models.personal_studies`): labelled, not
+    excluded, and overlapping copies of a night once. A count of the stored rows comes first; only
+    when it reaches the minimum are the labelled nights loaded to count their groups.
+
     Raises
     ------
     Unprocessable
         With code ``too_few_labelled_nights``.
     """
-    needed = TrainingConfig().min_personal_nights
-    have = session.scalar(select(func.count()).select_from(db.Night).where(
+    config = TrainingConfig()
+    needed = config.min_personal_nights
+    have = rows = session.scalar(select(func.count()).select_from(db.Night).where(
         db.Night.participant_pk == participant.pk, db.Night.labelled, db.Night.excluded.is_(False))) or 0
+    if rows >= needed:
+        have = personal_studies(load_nights(session, participant=participant, labelled_only=True,
+                                            include_excluded=False), config)
     if have < needed:
+        copies = (f" (of {rows} stored: overlapping copies of a night count once, a night without a scored "
+                  "in-bed reference epoch not at all)" if have < rows else "")
         raise Unprocessable(f"a personal model needs {needed} labelled nights not excluded from training; "
-                            f"participant {participant.participant_id!r} has {have}", code="too_few_labelled_nights")
+                            f"participant {participant.participant_id!r} has {have}{copies}",
+                            code="too_few_labelled_nights")
 
 
 def queue_training(factory: sessionmaker[Session], *, study_id: str, participant_id: str | None,
@@ -163,13 +182,16 @@ def _night_refs(nights: Sequence[Night], hashes: Sequence[str]) -> tuple[Trainin
                                content_hash=n.content_hash, label=n.label) for n in nights if n.content_hash in wanted)
 
 
-def _metadata(model: Any, nights: Sequence[Night], config: TrainingConfig, metrics: HeldOutFigures,
-              **pooled: Any) -> ModelMetadata:
+def _metadata(model: Any, nights: Sequence[Night], config: TrainingConfig, metrics: HeldOutFigures, *,
+              flags: Mapping[tuple[str, str], FlaggedNight], **pooled: Any) -> ModelMetadata:
+    trained = set(model.training_nights_)
     return ModelMetadata(
         metrics=metrics,
         selection=Selection(metric=versions.SELECTION_METRIC, value=metrics.mean(versions.SELECTION_METRIC)),
         training_nights=_night_refs(nights, model.training_nights_),
         training_hashes=tuple(model.training_nights_),
+        flagged_nights=tuple(flag for n in nights if n.content_hash in trained
+                             and (flag := flags.get((n.participant_id, n.content_hash))) is not None),
         feature_set_version=model.feature_version_,
         hyperparameters=dict(model.params_),
         threshold=float(model.threshold_),
@@ -228,12 +250,14 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
         participant = find_participant(session, study, job.participant_id)
         nights = load_nights(session, participant=participant, labelled_only=True, include_excluded=False)
         night_pks = _night_pks(session, study_pk=study.pk, nights=nights)
+        flags = versions.night_flags(session, study_pk=study.pk, participant_pk=participant.pk,
+                                      codes=TRAINING_WARNING_CODES)
     progress(0, 1, "personal: loading nights")
     features = _training_features(factory, nights, night_pks, config=config.features, n_jobs=config.n_jobs,
                                   progress=progress, stage="personal: night features")
     result = compute(train_personal, {"nights": nights, "config": config, "feature_cache": features}, progress)
     booster, meta = model_to_bytes(result.model)
-    metadata = _metadata(result.model, nights, config, _summary(result.summary),
+    metadata = _metadata(result.model, nights, config, _summary(result.summary), flags=flags,
                          night_metrics=tuple(_records(result.night_metrics)))
     with db.session_scope(factory, write=True) as session:
         _check_claim(session, job)
@@ -257,6 +281,7 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
         by_participant = {pid: nights for pid, nights in loaded.items() if nights}
         labelled = [n for nights in by_participant.values() for n in nights if n.reference is not None]
         night_pks = _night_pks(session, study_pk=study.pk, nights=labelled)
+        flags = versions.night_flags(session, study_pk=study.pk, codes=TRAINING_WARNING_CODES)
     progress(0, 1, "pooled: loading nights")
     features = _training_features(factory, labelled, night_pks, config=config.features, n_jobs=config.n_jobs,
                                   progress=progress, stage="pooled: night features")
@@ -266,7 +291,7 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
     held = result.night_metrics
     by_method = set(result.summary.index.get_level_values(0))
     metadata = _metadata(
-        result.model, all_nights, config, _summary(result.summary.loc["pooled"]),
+        result.model, all_nights, config, _summary(result.summary.loc["pooled"]), flags=flags,
         metrics_with_offset=_summary(result.summary.loc["pooled+offset"]) if "pooled+offset" in by_method else None,
         participants=tuple(sorted({n.participant_id for n in _night_refs(all_nights, result.model.training_nights_)})),
         offsets={pid: float(v) for pid, v in result.offsets.items()}, offset_shrinkage=float(result.shrinkage),

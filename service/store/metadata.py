@@ -14,7 +14,7 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field, model_serializer, model_validator
 
-__all__ = ["HeldOutFigures", "MetricSummary", "ModelMetadata", "Selection", "TrainingNight"]
+__all__ = ["FlaggedNight", "HeldOutFigures", "MetricSummary", "ModelMetadata", "Selection", "TrainingNight"]
 
 
 class _Record(BaseModel):
@@ -76,6 +76,25 @@ class TrainingNight(_Record):
     label: str | None = None
 
 
+class FlaggedNight(_Record):
+    """A training night that carried QC flags a model's users must hear about (a doubtful reference).
+
+    Attributes
+    ----------
+    participant_id : str
+    night_id : str
+    codes : tuple of str
+        The QC codes the night carried when the model was trained (e.g. ``reference_implausible``).
+    label : str or None
+        The lab's label of the night then.
+    """
+
+    participant_id: str
+    night_id: str
+    codes: tuple[str, ...] = ()
+    label: str | None = None
+
+
 class ModelMetadata(_Record):
     """What the registry records about a model version besides its bytes.
 
@@ -88,6 +107,9 @@ class ModelMetadata(_Record):
     training_nights : tuple of TrainingNight
     training_hashes : tuple of str
         Content hashes of the training nights.
+    flagged_nights : tuple of FlaggedNight
+        Training nights carrying a warning QC code (``service.jobs.training.TRAINING_WARNING_CODES``),
+        with the codes; empty for versions stored before this was recorded.
     feature_set_version : str or None
     hyperparameters : dict
     threshold : float or None
@@ -115,6 +137,7 @@ class ModelMetadata(_Record):
     selection: Selection | None = None
     training_nights: tuple[TrainingNight, ...] = ()
     training_hashes: tuple[str, ...] = ()
+    flagged_nights: tuple[FlaggedNight, ...] = ()
     feature_set_version: str | None = None
     hyperparameters: dict[str, Any] = Field(default_factory=dict)
     threshold: float | None = None

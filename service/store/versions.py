@@ -23,6 +23,7 @@ from __future__ import annotations
 import math
 import threading
 import uuid
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -38,12 +39,13 @@ from ..errors import NotFound
 from . import db
 from .audit import record_audit
 from .codec import decode_held_out
-from .metadata import ModelMetadata
+from .metadata import FlaggedNight, ModelMetadata
 from .snapshots import ParticipantInfo, StudyInfo
 
 __all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_personal_versions",
            "active_version", "add_version", "counter_key", "get_version", "list_versions", "load_held_out",
-           "load_model", "mark_deleted_night", "move_personal_versions", "next_version_number", "scope_of"]
+           "load_model", "mark_deleted_night", "move_personal_versions", "next_version_number", "night_flags",
+           "scope_of"]
 
 POOLED_SCOPE = "pooled"
 #: Held-out metric that decides promotion ("higher is better").
@@ -339,3 +341,35 @@ def move_personal_versions(session: Session, *, study: StudyInfo, source_pk: int
         session.flush()
         numbers[old[row.pk]] = number
     return numbers
+
+
+def night_flags(session: Session, *, study_pk: int, codes: Sequence[str],
+                participant_pk: int | None = None) -> dict[tuple[str, str], FlaggedNight]:
+    """Labelled nights of a study (or of one participant) carrying a QC flag of one of ``codes``.
+
+    What a training job records in a version's ``flagged_nights`` for those of its training nights.
+
+    Parameters
+    ----------
+    study_pk : int
+    codes : sequence of str
+        QC codes looked for; a night's :attr:`FlaggedNight.codes` keep this order.
+    participant_pk : int, optional
+        Only this participant's nights (default: the whole study's).
+
+    Returns
+    -------
+    dict of (participant id, content hash) to FlaggedNight
+    """
+    query = (select(db.Participant.participant_id, db.Night.content_hash, db.Night.night_id, db.Night.label,
+                    db.Night.qc)
+             .join(db.Participant, db.Participant.pk == db.Night.participant_pk)
+             .where(db.Participant.study_pk == study_pk, db.Night.labelled))
+    if participant_pk is not None:
+        query = query.where(db.Night.participant_pk == participant_pk)
+    out = {}
+    for pid, content_hash, night_id, label, qc in session.execute(query):
+        present = {flag.get("code") for flag in qc or () if isinstance(flag, Mapping)}
+        if found := tuple(code for code in codes if code in present):
+            out[(pid, content_hash)] = FlaggedNight(participant_id=pid, night_id=night_id, codes=found, label=label)
+    return out

@@ -2,17 +2,21 @@
 
 One card per model version, built from the registry record (:class:`service.store.versions.VersionInfo`
 and its :class:`~service.store.metadata.ModelMetadata`) as a plain dict (the JSON download) and
-rendered from that dict as Markdown, so the two downloads always say the same thing.
+rendered from that dict as Markdown, so the two downloads always say the same thing. A version
+trained on nights whose PSG reference was stored although it looked implausible (its
+``flagged_nights``) gets a warning naming them, first among the card's ``warnings`` and at the top
+of the Markdown; the participant and study pages repeat it beside the card's links.
 """
 
 from __future__ import annotations
 
 from typing import Any
 
+from ..store.metadata import FlaggedNight, ModelMetadata
 from ..store.versions import VersionInfo
-from .templating import CAUTIONS
+from .templating import CAUTIONS, TEMPLATES
 
-__all__ = ["CARD_METRICS", "model_card", "model_card_markdown"]
+__all__ = ["CARD_METRICS", "model_card", "model_card_markdown", "training_warnings"]
 
 #: Held-out metrics reported on a card, in order.
 CARD_METRICS: tuple[str, ...] = ("balanced_accuracy", "sensitivity", "specificity", "ppv", "npv", "accuracy",
@@ -39,6 +43,46 @@ _INTENDED = {
 }
 
 
+#: What each warning QC code of a training night means, in a card's warning.
+_WARNING_MEANING = {"reference_implausible": "an implausible PSG reference (stored on purpose although it failed "
+                                             "the plausibility checks)"}
+
+
+def _night_name(night: FlaggedNight, *, with_participant: bool) -> str:
+    name = f"night {night.night_id}" + (f" ({night.label})" if night.label else "")
+    return f"{night.participant_id} {name}" if with_participant else name
+
+
+def training_warnings(meta: ModelMetadata, *, pooled: bool = False) -> list[str]:
+    """Warnings about a version's training nights: one sentence per warning QC code they carried.
+
+    Parameters
+    ----------
+    meta : ModelMetadata
+    pooled : bool, default=False
+        Name each night with its participant (a pooled model's nights are of many).
+
+    Returns
+    -------
+    list of str
+        E.g. ``"Warning: 1 of 4 training night(s) had an implausible PSG reference (...): night
+        3f2a... (n2). The model learned from that reference; ..."``; empty when none.
+    """
+    out = []
+    codes = dict.fromkeys(code for night in meta.flagged_nights for code in night.codes)
+    for code in codes:
+        nights = [n for n in meta.flagged_nights if code in n.codes]
+        names = ", ".join(_night_name(n, with_participant=pooled) for n in nights)
+        out.append(f"Warning: {len(nights)} of {len(meta.training_nights)} training night(s) had "
+                   f"{_WARNING_MEANING.get(code, f'the QC flag {code}')}: {names}. The model learned from that "
+                   "reference; its held-out figures and scorings may be wrong.")
+    return out
+
+
+#: the pages show a version's warnings beside its card's links, in the card's words
+TEMPLATES.env.globals["training_warnings"] = training_warnings
+
+
 def model_card(version: VersionInfo, *, study_id: str, participant_id: str | None,
                choice: dict[str, Any] | None = None) -> dict[str, Any]:
     """The card of one model version as a JSON-able dict.
@@ -56,17 +100,21 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
     meta = version.metadata
     metrics = meta.metrics.as_dict()
     nights = meta.training_nights
+    flagged = {(n.participant_id, n.night_id): list(n.codes) for n in meta.flagged_nights}
     return {
         "title": (f"Personal model v{version.version} of participant {participant_id}" if participant_id
                   else f"Pooled model v{version.version}") + f", study {study_id}",
         "model": {"kind": version.kind, "version": version.version, "status": version.status,
                   "created_at": version.created_at.isoformat(timespec="seconds"), "training_job": version.job_id,
                   "study_id": study_id, "participant_id": participant_id},
+        "warnings": training_warnings(meta, pooled=participant_id is None),
         "intended_use": _INTENDED.get(version.kind, ""),
         "data": {
             "training_nights": len(nights),
             "participants": sorted({n.participant_id for n in nights}),
-            "nights": [{"participant_id": n.participant_id, "night_id": n.night_id, "label": n.label} for n in nights],
+            "nights": [{"participant_id": n.participant_id, "night_id": n.night_id, "label": n.label,
+                        "qc_warnings": flagged.get((n.participant_id, n.night_id), [])} for n in nights],
+            "flagged_nights": [n.model_dump(mode="json") for n in meta.flagged_nights],
             "feature_set_version": meta.feature_set_version,
         },
         "validation": {"scheme": _VALIDATION.get(version.kind, ""), "held_out_nights": meta.metrics.n_nights,
@@ -93,14 +141,18 @@ def model_card_markdown(card: dict[str, Any]) -> str:
     m, data, validation = card["model"], card["data"], card["validation"]
     lines = [f"# Model card: {card['title']}", "",
              f"- Kind: {m['kind']}; version {m['version']} ({m['status']}); created {m['created_at']} UTC",
-             f"- Training job: {m['training_job'] or '–'}", "",
-             "## Intended use", "", card["intended_use"], "",
+             f"- Training job: {m['training_job'] or '–'}", ""]
+    warnings = card.get("warnings", [])
+    if warnings:
+        lines += ["## Warnings", "", *(f"- **{w}**" for w in warnings), ""]
+    lines += ["## Intended use", "", card["intended_use"], "",
              "## Data used", "",
              f"- Training nights: {data['training_nights']} "
              f"(participants: {', '.join(data['participants']) or '–'})",
              f"- Feature set version: {data['feature_set_version'] or '–'}", ""]
     for n in data["nights"]:
-        lines.append(f"  - {n['participant_id']} night {n['night_id']}" + (f" ({n['label']})" if n["label"] else ""))
+        lines.append(f"  - {n['participant_id']} night {n['night_id']}" + (f" ({n['label']})" if n["label"] else "")
+                     + (f" — flagged: {', '.join(n['qc_warnings'])}" if n.get("qc_warnings") else ""))
     lines += ["", "## Validation", "", validation["scheme"], "",
               f"Held-out nights: {validation['held_out_nights'] or '–'}", "",
               "| metric | mean | SD |", "|---|---|---|"]

@@ -95,9 +95,29 @@ def test_metadata_of_rows_stored_before_reads_as_attributes(owners) -> None:
     assert meta.training_nights[0].label == "n1" and meta.training_hashes == ("abc" * 20,)
     assert meta.offset_of("p") == -0.3 and meta.offset_of("someone-else") == 0.0
     assert meta.participants == ("p",) and meta.descriptors["p"] == {"median_count": 12.0}
+    assert meta.flagged_nights == ()  # stored before flagged training nights were recorded: none known
     # the stored form keeps its keys: what is written reads back the same (JSON, as the column holds it)
     assert json.loads(json.dumps(meta.to_json())) == {k: v for k, v in _STORED_POOLED_INFO.items()
-                                                      if k != "retired_key"} | {"metrics_with_offset": None}
+                                                      if k != "retired_key"} | {"metrics_with_offset": None,
+                                                                                "flagged_nights": []}
+
+
+def test_flagged_training_nights_read_back_from_their_stored_form(owners) -> None:
+    from service.store import db, registry, versions
+
+    flagged = [{"participant_id": "p", "night_id": "abc", "codes": ["reference_implausible"]}]
+    with db.session_scope(owners, write=True) as session:
+        study = registry.find_study(session, "s")
+        session.add(db.ModelVersion(uid="1" * 32, study_pk=study.pk, participant_pk=None, scope="pooled", kind="pooled",
+                                    version=1, is_active=True, booster=b"raw", model_meta={},
+                                    info=_STORED_POOLED_INFO | {"flagged_nights": flagged}, created_at=db.utcnow()))
+    with db.session_scope(owners) as session:
+        meta = versions.get_version(session, study=registry.find_study(session, "s"), participant=None,
+                                    version=1).metadata
+    (night,) = meta.flagged_nights
+    assert (night.participant_id, night.night_id, night.codes, night.label) == ("p", "abc",
+                                                                                ("reference_implausible",), None)
+    assert json.loads(json.dumps(meta.to_json()))["flagged_nights"] == [flagged[0] | {"label": None}]
 
 
 def test_metadata_missing_keys_take_their_defaults() -> None:

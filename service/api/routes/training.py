@@ -17,7 +17,7 @@ from ...store.db import session_scope
 from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
-from ..schemas import JobAccepted, JobOut, ModelVersionOut, Page, Progress, TrainingIn
+from ..schemas import FlaggedTrainingNightOut, JobAccepted, JobOut, ModelVersionOut, Page, Progress, TrainingIn
 from .studies import Limit, Offset, ParticipantPath
 
 __all__ = ["router"]
@@ -110,7 +110,9 @@ def _version_out(v: versions.VersionInfo) -> ModelVersionOut:
         n_training_nights=len(meta.training_nights), metrics=meta.metrics.as_dict(), threshold=meta.threshold,
         offset=meta.offset, feature_set_version=meta.feature_set_version, hyperparameters=meta.hyperparameters,
         library_versions=meta.library_versions, training_nights=[n.model_dump() for n in meta.training_nights],
-        trained_on_deleted_nights=list(v.trained_on_deleted_nights))
+        trained_on_deleted_nights=list(v.trained_on_deleted_nights),
+        flagged_training_nights=[FlaggedTrainingNightOut.model_validate(n.model_dump())
+                                 for n in meta.flagged_nights])
 
 
 def _owner(session: Session, study_id: str,
