@@ -12,7 +12,8 @@ from ..store.registry import ID_PATTERN
 __all__ = [
     "FlaggedTrainingNightOut", "ImportProfileOut", "JobAccepted", "JobOut", "MarkedVersion", "ModelVersionOut",
     "NightAccepted", "NightDeleted", "NightDetailOut", "NightIn", "NightOut", "NightPatch", "Page", "ParticipantOut",
-    "Problem", "ProblemItem", "ProfileGuessOut", "Progress", "QCFlagOut", "RenameIn", "RenameOut", "RenumberedVersion", "ScoringOut",
+    "Problem", "ProblemItem", "ProfileGuessOut", "Progress", "QCFlagOut", "RenameIn", "RenameOut", "RenumberedVersion",
+    "ScoringOut",
     "StudyIn", "StudyOut", "TokenCreated", "TokenIn", "TokenOut", "TrainingIn",
 ]
 
