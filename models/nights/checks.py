@@ -45,7 +45,7 @@ class NightOptions:
     aggregate_to : int, optional
         Sum epochs into this longer length (30 or 60 s) after reading.
     time_column, counts_column, reference_column : str, optional
-        Explicit column names; by default found through :data:`models.nights.tabular.COLUMN_ALIASES`.
+        Explicit column names; by default found through :data:`models.nights.columns.COLUMN_ALIASES`.
         An import profile's ``columns`` take precedence.
     min_present_pct : float, default=50.0
         Smallest accepted share (%) of present epochs, i.e. epochs whose counts are not missing
