@@ -84,7 +84,8 @@ class PlausibilityReport:
         Reference sleep efficiency within the in-bed period, percent.
     mean_counts_sleep, mean_counts_wake : float
         Mean counts per epoch in reference-sleep and reference-wake epochs of the whole recording
-        (missing epochs left out).
+        (missing epochs left out; counts capped at the night's 99th percentile, so a single spike
+        does not decide).
     rule_balanced_accuracy : float
         Balanced accuracy of the configured rule against the reference, scored epochs of the whole
         recording.
@@ -143,7 +144,11 @@ def reference_plausibility(night: Night, *, config: PlausibilityConfig = Plausib
     if sleep is None or scored < config.min_scored_epochs:
         return PlausibilityReport(False, scored, nan, nan, nan, nan)
     params = sleep_parameters(sleep, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop)
-    mean_sleep, mean_wake = _mean(night.counts[sleep == 1]), _mean(night.counts[sleep == 0])
+    # counts capped at the night's 99th percentile first, so one spike cannot turn the comparison round
+    # (winsorising; common practice for means of heavy-tailed counts)
+    present = night.counts[np.isfinite(night.counts)]
+    capped = np.minimum(night.counts, np.percentile(present, 99)) if present.size else night.counts
+    mean_sleep, mean_wake = _mean(capped[sleep == 1]), _mean(capped[sleep == 0])
     calls = score_with_rule(night.counts, night.epoch_seconds, config.rule).sleep
     balanced = epoch_agreement(sleep, calls)["balanced_accuracy"]
     reasons: list[str] = []

@@ -196,9 +196,11 @@ def simulate_cohort(spec: CohortSpec = CohortSpec(), *, seed: int = 20310302) ->
         for k in range(n_nights):
             day_sleep = bool(rng.random() < 0.2)
             clock = pd.Timedelta(hours=8.0 if day_sleep else 22.0) + pd.Timedelta(minutes=int(rng.integers(-60, 60)))
-            start = first + day + clock
+            start = (first + day + clock).round("30s")
+            if out and out[-1].night.participant_id == pid:  # a recording starts after the previous one ended
+                start = max(start, out[-1].night.end)
             day += pd.Timedelta(days=int(rng.integers(1, 4)))
-            sim = simulate_night(rng, traits, participant_id=pid, start=start.round("30s"),
+            sim = simulate_night(rng, traits, participant_id=pid, start=start,
                                  labelled=bool(labelled[k]), label=f"{pid}-n{k + 1}")
             out.append(replace(sim, day_sleep=day_sleep))
     if spec.artefacts and out:
