@@ -49,6 +49,7 @@ from .reliability import (
 )
 from .repeated_bland_altman import (
     AGAINST,
+    MIN_CI_PARTICIPANTS,
     InvalidAgreementInputError,
     RepeatedBlandAltman,
     repeated_bland_altman,
@@ -71,6 +72,7 @@ __all__ = [
     "ERROR_PARAMETERS",
     "IccResult",
     "InvalidAgreementInputError",
+    "MIN_CI_PARTICIPANTS",
     "NightComparison",
     "NightRecord",
     "PARAMETER_COLUMNS",

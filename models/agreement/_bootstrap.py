@@ -20,8 +20,11 @@ from ..errors import NightbankError
 from ..records import json_value
 from ..scoring.protocol import StudyProtocol
 
-__all__ = ["InvalidAgreementInputError", "draw_counts", "effective_protocol", "json_dict", "json_safe",
-           "participant_codes", "percentile_interval", "studentized_interval", "weighted_mean_interval"]
+__all__ = ["InvalidAgreementInputError", "MIN_CI_PARTICIPANTS", "draw_counts", "effective_protocol", "json_dict",
+           "json_safe", "participant_codes", "percentile_interval", "studentized_interval", "weighted_mean_interval"]
+
+#: Fewest participants for a bootstrap interval (2 participants give only 3 distinct resamples).
+MIN_CI_PARTICIPANTS = 3
 
 
 class InvalidAgreementInputError(NightbankError):
@@ -101,7 +104,7 @@ def weighted_mean_interval(values: NDArray[np.float64], counts: NDArray[np.float
     ok = np.isfinite(values)
     x = values[ok]
     c = counts[:, ok]
-    if x.size < 2:
+    if x.size < MIN_CI_PARTICIPANTS:
         return float("nan"), float("nan")
     draws = c.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):

@@ -215,8 +215,7 @@ def participant_epoch_figures(nights: Iterable[ScoredNight], *, metrics: Sequenc
         for metric in metrics:
             values = mine[metric].to_numpy(dtype=np.float64)
             finite = values[np.isfinite(values)]
-            low, high = weighted_mean_interval(values, counts, proto.ci_level) if finite.size >= 2 else (
-                float("nan"), float("nan"))
+            low, high = weighted_mean_interval(values, counts, proto.ci_level)
             group_rows.append({
                 "method": method, "metric": metric, "n_participants": int(finite.size),
                 "n_nights": int(mine.loc[np.isfinite(values), "n_nights"].sum()),

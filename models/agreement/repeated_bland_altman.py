@@ -39,6 +39,7 @@ from numpy.typing import ArrayLike, NDArray
 from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
 from ._bias_regression import bias_regressions
 from ._bootstrap import (
+    MIN_CI_PARTICIPANTS,
     InvalidAgreementInputError,
     draw_counts,
     effective_protocol,
@@ -48,8 +49,8 @@ from ._bootstrap import (
 )
 from .bland_altman import BLAND_ALTMAN_PARAMETERS, REFERENCE
 
-__all__ = ["AGAINST", "InvalidAgreementInputError", "RepeatedBlandAltman", "repeated_bland_altman",
-           "repeated_bland_altman_table", "repeated_limits_of_agreement"]
+__all__ = ["AGAINST", "InvalidAgreementInputError", "MIN_CI_PARTICIPANTS", "RepeatedBlandAltman",
+           "repeated_bland_altman", "repeated_bland_altman_table", "repeated_limits_of_agreement"]
 
 #: What differences may be regressed on.
 AGAINST: tuple[str, ...] = ("mean", "reference")
@@ -125,7 +126,8 @@ def repeated_limits_of_agreement(differences: ArrayLike, participant_ids: ArrayL
     dict
         ``n_participants``, ``n_nights``, ``bias``, ``sd_within``, ``sd_between``, ``sd_total``,
         ``loa_lower``, ``loa_upper`` (units of the differences) and ``bias_ci``, ``loa_lower_ci``,
-        ``loa_upper_ci`` as (low, high). NaN where undefined: limits need 2 participants.
+        ``loa_upper_ci`` as (low, high). NaN where undefined: limits need 2 participants, their
+        intervals :data:`MIN_CI_PARTICIPANTS` (a bootstrap of 2 participants has 3 distinct resamples).
 
     Raises
     ------
@@ -136,8 +138,8 @@ def repeated_limits_of_agreement(differences: ArrayLike, participant_ids: ArrayL
     -----
     Intervals: participants are resampled with all their nights; each resample's figure is
     studentized by its own jackknife (leave one participant out) standard error, giving a
-    bootstrap-t interval (Efron & Tibshirani 1993, ch. 12; from memory); with 2 participants the
-    jackknife is undefined and the percentile interval is used. In seeded simulations with 15
+    bootstrap-t interval (Efron & Tibshirani 1993, ch. 12; from memory); where a jackknife SE is
+    undefined the percentile interval is used. In seeded simulations with 15
     participants the plain percentile interval covered the true limits in only 86-89% of data
     sets at a nominal 95%. Cost: O(n_boot x k).
     """
@@ -160,7 +162,7 @@ def repeated_limits_of_agreement(differences: ArrayLike, participant_ids: ArrayL
     per = np.vstack([m, m**2, s, q, q - s**2 / m])
     point, point_se = _figures_and_jackknife_se(np.ones((1, k)), per)
     out |= {name: float(point[i, 0]) if k >= 2 or name == "bias" else nan for i, name in enumerate(_NAMES)}
-    if k < 2:
+    if k < MIN_CI_PARTICIPANTS:
         return out | no_ci
     boot, boot_se = _figures_and_jackknife_se(draw_counts(k, n_boot, seed), per)
     for name, row in (("bias_ci", 0), ("loa_lower_ci", 4), ("loa_upper_ci", 5)):

@@ -214,6 +214,13 @@ def test_differences_only_give_limits_without_proportional_bias():
 def test_a_single_participant_has_a_bias_but_no_limits():
     r = repeated_bland_altman([1.0, 2.0, 4.0], [0.0, 0.0, 0.0], ["a", "a", "a"])
     assert r.bias == pytest.approx(7 / 3) and math.isnan(r.loa_lower) and math.isnan(r.bias_ci[0])
+    json.dumps(r.to_dict(), allow_nan=False)
+
+
+def test_two_participants_have_limits_but_no_bootstrap_intervals():
+    # a bootstrap of 2 participants has only 3 distinct resamples: no interval is reported
+    r = repeated_bland_altman([1.0, 2.0, 3.0, 5.0], [1.0, 2.0, 3.0, 4.0], ["a", "a", "b", "b"])
+    assert math.isfinite(r.loa_lower) and math.isnan(r.bias_ci[0]) and math.isnan(r.loa_upper_ci[1])
 
 
 def test_bad_inputs_are_refused_with_their_reason():
