@@ -260,3 +260,33 @@ def test_table_compares_every_method_and_parameter_on_matched_nights():
         (direct.bias, direct.loa_lower, 6, 18))
     with pytest.raises(InvalidAgreementInputError, match="columns"):
         repeated_bland_altman_table(frame.drop(columns="night_id"))
+
+
+def test_study_protocol_flows_from_night_comparisons_to_the_repeated_analysis():
+    # nights compared with a protocol (WASO to the final awakening) give parameter tables whose
+    # repeated-measures analysis matches the per-night differences of the comparison
+    from models import compare_night, comparison_tables, score_with_rule, sleep_parameters
+
+    rng = np.random.default_rng(21)
+    proto = StudyProtocol(waso_end="final_awakening", bootstrap_resamples=300)
+    nights, references = [], []
+    for p in range(5):
+        for j in range(2):
+            reference = (rng.random(480) > 0.15).astype(np.float64)
+            reference[-11] = 1.0
+            reference[-10:] = 0.0  # 5 min awake before lights-on
+            references.append(reference)
+            counts = np.where(reference == 1, rng.poisson(20, 480), rng.poisson(250, 480)).astype(np.float64)
+            rule = score_with_rule(counts, 30, "cole-kripke")
+            nights.append(compare_night(reference, {"cole-kripke": (rule.sleep, rule.score)}, epoch_seconds=30,
+                                        parameter_options={"protocol": proto}, participant_id=f"p{p}",
+                                        night_id=f"n{j}"))
+    tables = comparison_tables(nights)
+    out = {(r.method, r.parameter): r for r in repeated_bland_altman_table(tables.parameters, protocol=proto)}
+    waso = out[("cole-kripke", "waso_min")]
+    errors = tables.parameter_errors["waso_min_error"].to_numpy()
+    assert waso.bias == pytest.approx(errors.mean()) and waso.n_nights == 10 and waso.n_participants == 5
+    assert waso.protocol["waso_end"] == "final_awakening"
+    # the protocol's WASO leaves out the 10 wake epochs after the last sleep epoch (5 min)
+    assert nights[0].reference_parameters.waso_min == pytest.approx(
+        sleep_parameters(references[0], 30).waso_min - 5.0)
