@@ -8,6 +8,7 @@ from .bland_altman import (
     BlandAltman,
     bland_altman,
     bland_altman_table,
+    matched_nights,
 )
 from .comparison import (
     ERROR_PARAMETERS,
@@ -94,6 +95,7 @@ __all__ = [
     "comparison_tables",
     "epoch_agreement",
     "icc_a1",
+    "matched_nights",
     "paired_participant_difference",
     "parameter_equivalence",
     "participant_epoch_figures",

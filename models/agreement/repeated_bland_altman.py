@@ -47,7 +47,7 @@ from ._bootstrap import (
     participant_codes,
     studentized_interval,
 )
-from .bland_altman import BLAND_ALTMAN_PARAMETERS, REFERENCE
+from .bland_altman import BLAND_ALTMAN_PARAMETERS, REFERENCE, matched_nights
 
 __all__ = ["AGAINST", "InvalidAgreementInputError", "MIN_CI_PARTICIPANTS", "RepeatedBlandAltman",
            "repeated_bland_altman", "repeated_bland_altman_table", "repeated_limits_of_agreement"]
@@ -311,14 +311,9 @@ def repeated_bland_altman_table(parameters: pd.DataFrame, *, reference_method: s
     missing = sorted({"participant_id", "night_id", "method", *parameter_names} - set(parameters.columns))
     if missing:
         raise InvalidAgreementInputError(f"parameter table lacks the columns {', '.join(missing)}")
-    keys = ["participant_id", "night_id"]
-    ref = parameters[parameters["method"] == reference_method].set_index(keys)
-    participants = ref.index.get_level_values("participant_id").to_numpy(dtype=object)
     out = []
-    for name in dict.fromkeys(parameters["method"]):
-        if name == reference_method:
-            continue
-        own = parameters[parameters["method"] == name].set_index(keys).reindex(ref.index)
+    for name, own, ref in matched_nights(parameters, reference_method=reference_method):
+        participants = ref.index.get_level_values("participant_id").to_numpy(dtype=object)
         for parameter in parameter_names:
             out.append(repeated_bland_altman(
                 own[parameter].to_numpy(dtype=np.float64), ref[parameter].to_numpy(dtype=np.float64),
