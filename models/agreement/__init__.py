@@ -31,6 +31,9 @@ from .equivalence import (
     parameter_equivalence,
     tost_paired,
 )
+from .parameter_agreement import (
+    parameter_agreement,
+)
 from .participant_level import (
     PARTICIPANT_METRICS,
     PairedDifference,
@@ -97,6 +100,7 @@ __all__ = [
     "icc_a1",
     "matched_nights",
     "paired_participant_difference",
+    "parameter_agreement",
     "parameter_equivalence",
     "participant_epoch_figures",
     "reference_plausibility",
