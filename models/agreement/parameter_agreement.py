@@ -21,7 +21,6 @@ import numpy as np
 import pandas as pd
 
 from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
-from ._bootstrap import InvalidAgreementInputError
 from .bland_altman import BLAND_ALTMAN_PARAMETERS, REFERENCE, matched_nights
 from .equivalence import parameter_equivalence
 from .reliability import icc_a1
@@ -37,15 +36,10 @@ def parameter_agreement(parameters: pd.DataFrame, *, reference_method: str = REF
 
     Parameters
     ----------
-    parameters : pandas.DataFrame
-        One row per night and method: ``participant_id``, ``night_id``, ``method`` and the
-        parameter columns (as :attr:`models.agreement.comparison.ComparisonTables.parameters`).
-        Nights are matched on (participant_id, night_id).
-    reference_method : str, default="reference"
-    parameter_names : sequence of str, default=BLAND_ALTMAN_PARAMETERS
+    parameters, reference_method, parameter_names, against
+        As :func:`models.agreement.repeated_bland_altman.repeated_bland_altman_table`.
     protocol : StudyProtocol, default=DEFAULT_PROTOCOL
         Margins, CI level, bootstrap resamples and seed.
-    against : {"mean", "reference"}, default="mean"
 
     Returns
     -------
@@ -58,11 +52,9 @@ def parameter_agreement(parameters: pd.DataFrame, *, reference_method: str = REF
     InvalidAgreementInputError
         If the table lacks a needed column.
     """
-    missing = sorted({"participant_id", "night_id", "method", *parameter_names} - set(parameters.columns))
-    if missing:
-        raise InvalidAgreementInputError(f"parameter table lacks the columns {', '.join(missing)}")
     out = []
-    for name, own, ref in matched_nights(parameters, reference_method=reference_method):
+    for name, own, ref in matched_nights(parameters, reference_method=reference_method,
+                                         parameter_names=parameter_names):
         participants = ref.index.get_level_values("participant_id").to_numpy(dtype=object)
         for parameter in parameter_names:
             x, r = own[parameter].to_numpy(dtype=np.float64), ref[parameter].to_numpy(dtype=np.float64)

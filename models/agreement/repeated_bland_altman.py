@@ -308,11 +308,9 @@ def repeated_bland_altman_table(parameters: pd.DataFrame, *, reference_method: s
     list of RepeatedBlandAltman
         One per method (order of first appearance) and parameter (order of ``parameter_names``).
     """
-    missing = sorted({"participant_id", "night_id", "method", *parameter_names} - set(parameters.columns))
-    if missing:
-        raise InvalidAgreementInputError(f"parameter table lacks the columns {', '.join(missing)}")
     out = []
-    for name, own, ref in matched_nights(parameters, reference_method=reference_method):
+    for name, own, ref in matched_nights(parameters, reference_method=reference_method,
+                                         parameter_names=parameter_names):
         participants = ref.index.get_level_values("participant_id").to_numpy(dtype=object)
         for parameter in parameter_names:
             out.append(repeated_bland_altman(
