@@ -151,6 +151,20 @@ def test_proportional_bias_matches_statsmodels_mixedlm_with_a_random_intercept()
     assert limits["multiplier"] == pytest.approx(1.96 * math.sqrt(math.pi / 2))  # 2.46, Bland & Altman 1999
 
 
+def test_without_between_participant_variance_the_slope_is_least_squares_with_clustered_errors():
+    rng = np.random.default_rng(18)
+    ids = np.repeat(np.arange(12), 3)
+    reference = rng.uniform(300, 480, ids.size)
+    d = 0.1 * (reference - 390) + rng.normal(0, 5, ids.size)
+    d -= (pd.Series(d).groupby(ids).transform("mean").to_numpy() - d.mean())  # equal participant means
+    r = repeated_bland_altman(reference + d, reference, ids, against="reference")
+    assert r.sd_between == 0.0
+    fit = sm.OLS(d, sm.add_constant(reference)).fit(cov_type="cluster", cov_kwds={"groups": ids})
+    assert (r.proportional_bias["slope"], r.proportional_bias["p_value"]) == pytest.approx(
+        (fit.params[1], fit.pvalues[1]))
+    assert r.proportional_bias["model"] == "ordinary least squares, participant-clustered standard errors"
+
+
 def test_against_reference_regresses_on_the_reference_value():
     method, reference, ids = _nested(np.random.default_rng(12), slope=0.2)
     r = repeated_bland_altman(method, reference, ids, against="reference")
