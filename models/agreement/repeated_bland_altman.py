@@ -185,7 +185,9 @@ class RepeatedBlandAltman:
         (low, high) participant-bootstrap (bootstrap-t) intervals at ``protocol["ci_level"]``.
     proportional_bias : dict
         ``slope`` (difference per unit of magnitude), ``slope_ci``, ``p_value``, ``intercept``,
-        ``model``, ``converged``, ``against``.
+        ``model`` (random intercept per participant; least squares with participant-clustered
+        errors when no between-participant variance is left; least squares with one night per
+        participant; or "not estimated (reason)"), ``converged``, ``against``.
     regression_limits : dict or None
         Bland & Altman 1999 regression limits when the differences are non-uniform: the lines
         ``lower_intercept + lower_slope A`` and ``upper_intercept + upper_slope A``, their parts,
