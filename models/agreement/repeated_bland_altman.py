@@ -1,7 +1,8 @@
 """Bland-Altman agreement with several nights per participant.
 
 Bland & Altman 2007 (J Biopharm Stat 17:571-582), "multiple observations per individual, true
-value varying" (a participant's nights differ in TST, SOL, ...). With ``d_ij`` = method -
+value varying" (a participant's nights differ in TST, SOL, ...); the same estimator appears in
+Bland & Altman 1999 (Stat Methods Med Res 8:135-160), section 5 (from memory). With ``d_ij`` = method -
 reference on night j of participant i, ``m_i`` nights of participant i, ``k`` participants and
 ``n = sum m_i`` nights, a one-way ANOVA of ``d`` by participant gives MS_between and MS_within, and
 
