@@ -8,6 +8,7 @@ from .bland_altman import (
     BlandAltman,
     bland_altman,
     bland_altman_table,
+    matched_nights,
 )
 from .comparison import (
     ERROR_PARAMETERS,
@@ -26,11 +27,38 @@ from .epoch_metrics import (
     always_sleep,
     epoch_agreement,
 )
+from .equivalence import (
+    parameter_equivalence,
+    tost_paired,
+)
+from .parameter_agreement import (
+    parameter_agreement,
+)
+from .participant_level import (
+    PARTICIPANT_METRICS,
+    PairedDifference,
+    ParticipantEpochFigures,
+    paired_participant_difference,
+    participant_epoch_figures,
+)
 from .plausibility import (
     PlausibilityConfig,
     PlausibilityReport,
     check_reference,
     reference_plausibility,
+)
+from .reliability import (
+    IccResult,
+    icc_a1,
+)
+from .repeated_bland_altman import (
+    AGAINST,
+    MIN_CI_PARTICIPANTS,
+    InvalidAgreementInputError,
+    RepeatedBlandAltman,
+    repeated_bland_altman,
+    repeated_bland_altman_table,
+    repeated_limits_of_agreement,
 )
 from .rule_comparison import (
     NightRecord,
@@ -38,6 +66,7 @@ from .rule_comparison import (
 )
 
 __all__ = [
+    "AGAINST",
     "ALWAYS_SLEEP",
     "BLAND_ALTMAN_PARAMETERS",
     "BlandAltman",
@@ -45,12 +74,19 @@ __all__ = [
     "EPOCH_COUNT_NAMES",
     "EPOCH_METRIC_NAMES",
     "ERROR_PARAMETERS",
+    "IccResult",
+    "InvalidAgreementInputError",
+    "MIN_CI_PARTICIPANTS",
     "NightComparison",
     "NightRecord",
     "PARAMETER_COLUMNS",
+    "PARTICIPANT_METRICS",
+    "PairedDifference",
+    "ParticipantEpochFigures",
     "PlausibilityConfig",
     "PlausibilityReport",
     "REFERENCE",
+    "RepeatedBlandAltman",
     "ScoredNight",
     "agreement_table",
     "always_sleep",
@@ -61,5 +97,15 @@ __all__ = [
     "compare_rules_with_reference",
     "comparison_tables",
     "epoch_agreement",
+    "icc_a1",
+    "matched_nights",
+    "paired_participant_difference",
+    "parameter_agreement",
+    "parameter_equivalence",
+    "participant_epoch_figures",
     "reference_plausibility",
+    "repeated_bland_altman",
+    "repeated_bland_altman_table",
+    "repeated_limits_of_agreement",
+    "tost_paired",
 ]
