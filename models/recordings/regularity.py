@@ -69,9 +69,12 @@ def sleep_regularity_index(sleep: ArrayLike, *, epoch_seconds: int, valid: Array
     known = np.isfinite(s)
     if not np.isin(s[known], (0.0, 1.0)).all():
         raise ValueError("sleep must hold 1 (sleep), 0 (wake) or NaN")
-    ok = known if valid is None else known & np.asarray(valid, dtype=bool)
-    if ok.shape != s.shape:
-        raise ValueError(f"valid has {ok.size} values for {s.size} epochs")
+    ok = known
+    if valid is not None:
+        mask = np.asarray(valid, dtype=bool)
+        if mask.shape != s.shape:
+            raise ValueError(f"valid has {mask.size} values for {s.size} epochs")
+        ok = known & mask
     m = _DAY_S // int(epoch_seconds)
     if s.size <= m:
         return float("nan")
