@@ -255,8 +255,9 @@ def hypnogram_on_epochs(hypnogram: Hypnogram, *, start: pd.Timestamp, epoch_seco
     sleep_s = tally[:, is_sleep].sum(axis=1)
     wake_s = tally[:, is_scored & ~is_sleep].sum(axis=1)
     side = np.where((sleep_s > wake_s)[:, None], is_sleep[None, :], (is_scored & ~is_sleep)[None, :])
-    rank = np.where(side & (tally > 0), tally * (k + 1) + last, -1.0)
-    out = codes[rank.argmax(axis=1)] if codes.size else np.full(n_epochs, "?")
+    # the larger share first (shares differ by >= 1e-6 after rounding), the later PSG epoch (last <= 3) on ties
+    rank = np.where(side & (tally > 0), tally + last * 1e-8, -1.0)
+    out = codes[rank.argmax(axis=1)]
     covered = (sleep_s + wake_s) >= epoch_seconds / 2
     return np.where(covered, out, "?").astype("<U3")
 

@@ -105,13 +105,13 @@ def mid_sleep(onset: pd.Timestamp, offset: pd.Timestamp) -> pd.Timestamp:
 
 
 def _clock_hours(times: Sequence[pd.Timestamp | None]) -> NDArray[np.float64]:
-    """Hours after local midnight of each time (in its own zone), NaN for None/NaT."""
+    """Clock time of each time in its own zone, hours after midnight, NaN for None/NaT."""
     out = np.full(len(times), np.nan)
     for i, t in enumerate(times):
         if t is None or pd.isna(t):
             continue
-        ts = pd.Timestamp(t)
-        out[i] = (ts - ts.normalize()).total_seconds() / 3600.0
+        ts = pd.Timestamp(t)  # the wall clock: on a day the clocks change, not the time elapsed since midnight
+        out[i] = ts.hour + ts.minute / 60 + (ts.second + ts.microsecond / 1e6) / 3600
     return out
 
 

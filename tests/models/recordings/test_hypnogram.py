@@ -197,6 +197,11 @@ def test_a_clock_offset_moves_the_stages_by_covered_share() -> None:
         ["W", "N1", "N2", "W", "R", "?"]
     assert hypnogram_on_epochs(hyp, start=at, epoch_seconds=30, n_epochs=6, clock_offset_s=7.3).tolist() == \
         ["W", "N1", "N2", "W", "R", "?"]
+    # -22.4 s, 15-s epochs: 7.6 s of N1 then 7.4 s of N2 -> N1 (the larger share, though the earlier epoch);
+    # the third epoch holds 7.6 s of N2, just over half of it
+    n1n2 = _hyp(["N1", "N2"])
+    assert hypnogram_on_epochs(n1n2, start=at, epoch_seconds=15, n_epochs=4, clock_offset_s=-22.4).tolist() == \
+        ["N1", "N2", "N2", "?"]
     # +20 s: 20 s of PSG epoch i-1 and 10 s of i -> epoch i-1; the first epoch is only a third covered -> ?
     assert hypnogram_on_epochs(hyp, start=at, epoch_seconds=30, n_epochs=6, clock_offset_s=20).tolist() == \
         ["?", "W", "N1", "N2", "W", "R"]

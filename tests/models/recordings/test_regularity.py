@@ -101,6 +101,16 @@ def test_social_jetlag_across_midnight() -> None:
     assert social_jetlag_h(two, [False, True]) == pytest.approx(2.0)
 
 
+def test_clock_times_are_wall_clock_times_on_a_day_the_clocks_change() -> None:
+    # Europe/Berlin moves from 02:00 to 03:00 on 2031-03-30 (EU rule: last Sunday of March, from memory);
+    # 04:00 on the wall is 3 h after midnight, but its clock time is 4 h
+    spring = pd.Timestamp("2031-03-30 04:00").tz_localize("Europe/Berlin")
+    assert (spring - spring.normalize()) == pd.Timedelta(hours=3)
+    assert clock_mean_h([spring]) == pytest.approx(4.0)
+    plain = pd.Timestamp("2031-03-23 02:00").tz_localize("Europe/Berlin")
+    assert social_jetlag_h([plain, spring], [False, True]) == pytest.approx(2.0)
+
+
 def test_social_jetlag_without_free_days_is_nan() -> None:
     mids = [pd.Timestamp("2031-03-02T03:00:00+01:00"), None]
     assert math.isnan(social_jetlag_h(mids, [False, True]))
