@@ -149,6 +149,10 @@ class Hypnogram:
         """Start of every epoch (PSG clock), shape (n_epochs,)."""
         return pd.date_range(self.start, periods=self.n_epochs, freq=pd.Timedelta(seconds=self.epoch_seconds))
 
+    def to_json(self) -> dict[str, object]:
+        """The JSON form :func:`read_hypnogram` reads back (``start`` with its UTC offset)."""
+        return {"start": self.start.isoformat(), "epoch_seconds": self.epoch_seconds, "stages": self.stages.tolist()}
+
     def sleep(self) -> NDArray[np.float64]:
         """Sleep (1.0), wake (0.0, movement time included) or unscored (NaN) per epoch, shape (n_epochs,)."""
         return stages_to_sleep(self.stages, movement_time="wake")

@@ -86,6 +86,13 @@ def test_lab_export_through_a_profile_matches_pandas(tmp_path) -> None:
     assert hyp.unused_columns == ("Lage",) and hyp.source_name == "n7.csv"
 
 
+def test_json_form_reads_back() -> None:
+    hyp = read_hypnogram(_iso_csv(["W", "N1", "?", "R", "MT"]))
+    back = read_hypnogram(json.dumps(hyp.to_json()).encode(), source_name="h.json")
+    assert back.start == hyp.start and back.start.utcoffset() == hyp.start.utcoffset()
+    assert back.stages.tolist() == ["W", "N1", "?", "R", "MT"] and back.source_name == "h.json"
+
+
 def test_naive_times_take_the_zone_given() -> None:
     data = b"time,stage\n2031-03-02T23:00:00,W\n2031-03-02T23:00:30,N1\n"
     assert read_hypnogram(data, tz=BERLIN).start == pd.Timestamp("2031-03-02 23:00:00").tz_localize(BERLIN)
