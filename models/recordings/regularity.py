@@ -11,7 +11,9 @@ with M epochs per day, N days and delta = 1 when the two states agree. Here the 
 pair of epochs exactly 24 h apart of which **both are valid** (worn, with a known state), and it is
 divided by the number of such pairs instead of M (N - 1): off-wrist epochs on either day are left
 out and the index stays a proportion of the pairs that could be compared. For N whole days with no
-invalid epoch the two are the same; a trailing part day adds its pairs with the day before.
+invalid epoch the two are the same; a trailing part day adds its pairs with the day before. The pairs
+are M epochs (24 h of elapsed time) apart, so the series may start at any time of day; across a change
+of the clocks a pair is one hour off the same wall-clock time.
 
 Clock times
 -----------
@@ -44,7 +46,7 @@ def sleep_regularity_index(sleep: ArrayLike, *, epoch_seconds: int, valid: Array
     Parameters
     ----------
     sleep : array_like, shape (n_epochs,)
-        1 (sleep) or 0 (wake) per epoch over consecutive days; NaN = state unknown (left out).
+        1 (sleep) or 0 (wake) per consecutive epoch (e.g. a whole recording); NaN = state unknown (left out).
     epoch_seconds : int
         Epoch length, a divisor of 86 400 (15, 30, 60, ...).
     valid : array_like of bool, shape (n_epochs,), optional
