@@ -245,7 +245,7 @@ def hypnogram_from_csv(data: bytes | str, *, profile: ImportProfile | None = Non
     if times is not None:
         utc_ns, placed = times
         shown: tzinfo | None = placed
-        if shown is None and profile is None:
+        if shown is None and (profile is None or profile.datetime_format is None):
             try:
                 shown = pd.Timestamp(rows[0][cols["time"]].strip()).tzinfo
             except (ValueError, TypeError):

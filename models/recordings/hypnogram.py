@@ -28,7 +28,8 @@ location (``field``, 1-based file ``row``, 0-based ``epoch``): ``empty_file``, `
 ``missing_field``, ``invalid_field``, ``invalid_timestamp``, ``missing_timezone``, ``mixed_timezones``,
 ``daylight_saving``, ``implausible_date``, ``unknown_time_zone``, ``duplicate_timestamp``,
 ``time_not_increasing``, ``irregular_spacing``, ``unsupported_epoch_length``, ``too_short``,
-``too_many_epochs``, ``unknown_stage``, ``no_scored_epochs``, ``not_utf8``, ``undecodable_text``.
+``too_many_epochs``, ``unknown_stage``, ``no_scored_epochs``, ``not_utf8``, ``undecodable_text``,
+``unsupported_format``.
 
 Stages on actigraph epochs (:func:`hypnogram_on_epochs`)
 --------------------------------------------------------

@@ -84,6 +84,10 @@ def test_lab_export_through_a_profile_matches_pandas(tmp_path) -> None:
     assert hyp.start == times[0] and str(hyp.start.tz) == BERLIN
     assert hyp.stages.tolist() == [RK_TO_AASM[str(v)] for v in ref["Stadium"]]
     assert hyp.unused_columns == ("Lage",) and hyp.source_name == "n7.csv"
+    # a profile that only names the columns: ISO times keep the offset they were written with
+    iso = read_hypnogram(_iso_csv(["W", "N1"], start="2031-03-02T23:00:00-05:00", header="Zeit,Stadium"),
+                         profile=ImportProfile(name="cols", columns={"time": "Zeit", "reference": "Stadium"}))
+    assert iso.start.isoformat() == "2031-03-02T23:00:00-05:00"
 
 
 def test_json_form_reads_back() -> None:
