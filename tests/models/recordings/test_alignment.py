@@ -76,7 +76,7 @@ def test_15_and_60_s_counts(nights, epoch_seconds: int) -> None:
 
 
 def test_correlations_match_pearsonr_where_the_grids_meet(nights) -> None:
-    sim, off = nights[1], 95.0
+    sim, off = nights[0], 95.0
     n = sim.night
     hyp = _psg(sim, off)
     a = _align(sim, off)
@@ -98,6 +98,10 @@ def test_correlations_match_pearsonr_where_the_grids_meet(nights) -> None:
     assert checked == 40
     best = int(np.argmax(a.correlations))
     assert a.quality == max(a.correlations) and a.clock_offset_s == lags[best]
+    # on this night the chosen lag is itself one where the grids meet: its quality is scipy's r there
+    assert (a.clock_offset_s - off) % 30 == 0
+    wake = 1.0 - stages_to_sleep(stages_at(a.clock_offset_s))
+    assert a.quality == pytest.approx(stats.pearsonr(wake[common], y[common]).statistic, abs=1e-9)
 
 
 def test_the_offset_is_added_to_psg_times(nights) -> None:
