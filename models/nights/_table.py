@@ -20,7 +20,9 @@ from .profiles import ImportProfile
 from .timestamps import (
     NAT,
     Quote,
+    Rows,
     arrow_ns,
+    date_time_ns,
     has_zone,
     index_ns,
     invalid_problem,
@@ -29,6 +31,7 @@ from .timestamps import (
     offsets_of,
     parse_with_format,
     plausible_problems,
+    settle_doubtful,
     text_of,
 )
 
@@ -59,13 +62,17 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
             return _plausible(arrow_ns(time_col), None, None, row0, field, problems)
         naive = arrow_ns(time_col)
     else:
-        if date_col is None:
-            text = text_of(time_col)
-        else:  # one trim after joining: blanks inside read as the format's blank
-            text = text_of(pc.binary_join_element_wise(_as_text(date_col), _as_text(time_col), " "))
-        quote = lambda i: str(text[i].as_py())  # noqa: E731
+        fast = date_time_ns(date_col, time_col, fmt) if fmt is not None and date_col is not None else None
+        if fast is None or date_col is None:
+            text = text_of(time_col if date_col is None else  # one trim after joining: blanks inside read
+                           pc.binary_join_element_wise(_as_text(date_col), _as_text(time_col), " "))  # as one
+            rows = _rows_of(text)
+        else:  # joined only for the rows that are checked or quoted
+            text, rows = None, _joined_rows(date_col, time_col)
+        quote = lambda i: str(rows(np.array([i], dtype=np.intp))[0].as_py())  # noqa: E731
         if fmt is not None:
-            ns = parse_with_format(text, fmt)
+            ns = parse_with_format(text, fmt) if fast is None else \
+                settle_doubtful(fast[0], fmt, rows, days_written=fast[1])
             invalid = ns == NAT
             if invalid.any():
                 bad = np.flatnonzero(invalid)
@@ -97,6 +104,26 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
         return None
     placed = localize(naive, tz, quote, row0, field, problems)
     return None if placed is None else _plausible(*placed, quote, row0, field, problems)
+
+
+def _rows_of(text: pa.Array) -> Rows:
+    """The rows of a text column, by 0-based index."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    return lambda idx: text if idx.size == len(text) else pc.take(text, pa.array(idx))
+
+
+def _joined_rows(date_col: pa.Array, time_col: pa.Array) -> Rows:
+    """The trimmed ``date + " " + time`` texts of some rows, joined when asked for."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    def rows(idx: NDArray[np.intp]) -> pa.Array:
+        at = pa.array(idx)
+        return text_of(pc.binary_join_element_wise(_as_text(pc.take(date_col, at)), _as_text(pc.take(time_col, at)),
+                                                   " "))
+    return rows
 
 
 def _as_text(col: pa.Array) -> pa.Array:
