@@ -156,13 +156,14 @@ def regular_epochs(utc_ns: NDArray[np.int64], row0: int, fill_gaps: bool, zone: 
                                 {"field": field, "row": row0}))
         return None
     step_ns = np.diff(utc_ns)
-    if (step_ns == step_ns[0]).all() and step_ns[0] > 0:  # the usual, regular file
+    regular = bool(step_ns[0] > 0 and (step_ns == step_ns[0]).all())  # the usual, regular file
+    if regular:
         epoch_ns = int(step_ns[0])
     else:
         positive = step_ns[step_ns > 0]
         epoch_ns = int(np.median(positive)) if positive.size else 0
+        regular = bool((step_ns == epoch_ns).all())
     ok = True
-    regular = (step_ns == epoch_ns).all()
     for code, mask, what in () if regular else (("duplicate_timestamp", step_ns == 0, "repeats the previous time"),
                                                 ("time_not_increasing", step_ns < 0, "goes back in time")):
         idx = np.flatnonzero(mask) + 1
@@ -190,7 +191,8 @@ def regular_epochs(utc_ns: NDArray[np.int64], row0: int, fill_gaps: bool, zone: 
                                     "accept whole-epoch gaps as missing epochs",
                                     {"field": field, "row": row0 + i, "epoch": i, "time": when}))
             return None
-    return epoch_ns // 1_000_000_000, (utc_ns - utc_ns[0]) // epoch_ns
+    index = np.arange(utc_ns.size, dtype=np.int64) if regular else (utc_ns - utc_ns[0]) // epoch_ns
+    return epoch_ns // 1_000_000_000, index
 
 
 def _counts(col: pa.Array, row0: int, field: str, fill_gaps: bool, problems: list[Problem]) -> NDArray[np.float64]:
@@ -229,7 +231,8 @@ def _reference(col: pa.Array, profile: ImportProfile | None) -> CodedLabels:
     categories = col.dictionary.to_pylist()
     if profile is not None and profile.stage_codes:
         categories = [_mapped(profile, c) for c in categories]
-    return CodedLabels(col.indices.fill_null(-1).to_numpy(zero_copy_only=False), categories)
+    codes = col.indices.fill_null(-1) if col.null_count else col.indices
+    return CodedLabels(codes.to_numpy(zero_copy_only=False), categories)
 
 
 def _mapped(profile: ImportProfile, value: object) -> object:
@@ -241,6 +244,12 @@ def _mapped(profile: ImportProfile, value: object) -> object:
             return value
         hit = profile.stage_code(int(number)) if number.is_integer() else None
     return value if hit is None else hit
+
+
+def _column(table: pa.Table, name: str) -> pa.Array:
+    """One column of a table as one array."""
+    col = table.column(name)
+    return col.chunk(0) if col.num_chunks == 1 else col.combine_chunks()
 
 
 def night_from_table(table: pa.Table, meta: Mapping[str, object], roles: ColumnRoles, *, participant_id: str,
@@ -261,17 +270,17 @@ def night_from_table(table: pa.Table, meta: Mapping[str, object], roles: ColumnR
     if roles.time is None or roles.counts is None:
         raise InvalidNightError(problems, source=source)
     tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
-    date_col = table.column(roles.date).combine_chunks() if roles.date is not None else None
-    times = times_to_utc(table.column(roles.time).combine_chunks(), date_col,
+    date_col = _column(table, roles.date) if roles.date is not None else None
+    times = times_to_utc(_column(table, roles.time), date_col,
                          fmt=profile.datetime_format if profile is not None else None, tz=tz, row0=row0,
                          field=roles.time, problems=problems)
     zone = None if times is None else (times[1] or first_tz)
     grid = None if times is None else regular_epochs(times[0], row0, options.fill_gaps,
                                                      zone if isinstance(zone, tzinfo) else None, roles.time, problems)
-    counts = _counts(table.column(roles.counts).combine_chunks(), row0, roles.counts, options.fill_gaps, problems)
+    counts = _counts(_column(table, roles.counts), row0, roles.counts, options.fill_gaps, problems)
     reference: CodedLabels | list[object] | None = None
     if roles.reference is not None:
-        reference = _reference(table.column(roles.reference).combine_chunks(), profile)
+        reference = _reference(_column(table, roles.reference), profile)
     start = epoch_seconds = None
     if grid is not None and times is not None:
         epoch_seconds, index = grid

@@ -89,6 +89,7 @@ _DIGITS = {"m": r"\d{1,2}", "Y": r"\d{4}", "y": r"\d{2}", "H": r"\d{1,2}", "I": 
            "S": r"\d{1,2}", "f": r"\d{1,9}", "j": r"\d{1,3}"}
 
 
+@lru_cache(maxsize=256)
 def _day_pattern(fmt: str) -> str:
     """A regular expression (RE2) of the start of texts written with ``fmt``, up to the day of month (group ``d``)."""
     out = ["^"]
