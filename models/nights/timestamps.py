@@ -169,7 +169,8 @@ def settle_doubtful(ns: NDArray[np.int64], fmt: str, rows: Rows, *, all_doubtful
     else:
         # not read, or a year pandas may refuse (e.g. 31 for %Y); a time of day alone is read on 1900-01-01
         doubtful = ns < _FIRST if re.search(r"%[YyG]", fmt) else ns == NAT
-        if "%d" in fmt and _early_days(ns[~doubtful], 4 if aware else 3):  # in UTC a local day may move by one
+        read = ns[~doubtful] if doubtful.any() else ns
+        if "%d" in fmt and _early_days(read, 4 if aware else 3):  # in UTC a local day may move by one
             stamps = ns.view("M8[ns]")
             day_read = (stamps.astype("M8[D]") - stamps.astype("M8[M]")).astype(np.int64) + 1
             early = ~doubtful & (day_read <= (4 if aware else 3))
@@ -337,9 +338,13 @@ def localize(naive_ns: NDArray[np.int64], tz: str, quote: Quote | None, row0: in
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    try:  # Arrow's kernel places the usual night, with no clock change, fast
-        placed = pc.assume_timezone(pa.array(naive_ns.view("M8[ns]")), tz, ambiguous="raise", nonexistent="raise")
-        return np.asarray(placed.cast(pa.int64()).to_numpy(zero_copy_only=False), dtype=np.int64), zone
+    naive_ns = np.ascontiguousarray(naive_ns, dtype=np.int64)
+    try:  # Arrow's kernel places the usual night, with no clock change, fast (the arrays shared, not copied)
+        naive = pa.Array.from_buffers(pa.timestamp("ns"), naive_ns.size, [None, pa.py_buffer(naive_ns)])
+        placed = pc.assume_timezone(naive, tz, ambiguous="raise", nonexistent="raise")
+        if placed.null_count == 0:
+            return np.frombuffer(placed.buffers()[1], dtype=np.int64, count=len(placed),
+                                 offset=placed.offset * 8), zone
     except pa.ArrowInvalid:  # a clock change (or a zone Arrow's database lacks): pandas infers and explains
         pass
     index = pd.DatetimeIndex(naive_ns.view("M8[ns]"))
