@@ -50,8 +50,10 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
                  field: str, problems: list[Problem]) -> tuple[NDArray[np.int64], tzinfo | None] | None:
     """Epoch times as (int64 UTC nanoseconds, zone they were placed in), or None with the problems recorded.
 
-    ``date_col`` (a date column) is joined to ``time_col`` (then a time of day) with a blank. The zone
-    is None when the times carry their own offsets.
+    ``date_col`` (a date column) is joined to ``time_col`` (then a time of day) with a blank; with a
+    format that splits into a date and a time part they are read apart and added
+    (:func:`~models.nights.timestamps.date_time_ns`), with the same result. The zone is None when
+    the times carry their own offsets.
     """
     import pyarrow as pa
     import pyarrow.compute as pc

@@ -8,7 +8,10 @@ With a format (an import profile's ``datetime_format``) every time is parsed wit
 ``strptime`` kernel reads the usual rows; every row it cannot read, and every row it may have read
 more leniently than pandas (a day of month 1-3 that could be an overflowed 29-31, a year before
 :data:`EARLIEST_PLAUSIBLE_DATE`), is parsed again with ``pandas.to_datetime(format=..., exact=True)``,
-whose result stands. So the outcome is pandas' at Arrow's speed.
+whose result stands. So the outcome is pandas' at Arrow's speed. A date column and a time-of-day
+column, whose texts are joined with a blank, are read apart when the format is a date part and a
+time part joined by blanks (:func:`split_date_time_format`): each distinct date once, each time of
+day once, the two added; the joined text is built only for the rows checked again or quoted.
 
 Times without an offset are placed in a time zone. A local time that does not exist (clocks jump
 forward) or that happens twice and cannot be placed by the order of the rows (clocks fall back) is
