@@ -62,12 +62,14 @@ def test_split_columns_read_as_pandas_reads_them(date_fmt: str, time_fmt: str, e
     assert night.epoch_times().equals(want.as_unit(night.epoch_times().unit))
 
 
-def test_other_zone_and_blanks_around_cells() -> None:
+@pytest.mark.parametrize(("date_cell", "time_cell"), [(" {}", "{}"), ("{}  ", "{}"), ("{}", " {}"), ("{}", "{}\t")])
+def test_other_zone_and_blanks_around_cells(date_cell: str, time_cell: str) -> None:
+    # blanks around one row's cells: the joined text is trimmed, blanks inside read as the format's blank
     text, dates, times = _export("%d.%m.%Y", "%H:%M:%S", "2031-03-09T03:00:00Z", tz="America/New_York")
     lines = text.splitlines()
-    lines[10] = " " + lines[10].replace(";", " ;", 1)  # blanks around a date cell: trimmed with the time
+    dates[9], times[9] = date_cell.format(dates[9]), time_cell.format(times[9])
+    lines[10] = f"{dates[9]};{times[9]};{lines[10].rsplit(';', 1)[1]}"
     night = night_from_csv("\n".join(lines), profile=_profile("%d.%m.%Y %H:%M:%S", "America/New_York"))
-    dates[8] = " " + dates[8] + " "
     want = _pandas_times(dates, times, "%d.%m.%Y %H:%M:%S", "America/New_York")
     assert night.epoch_times().equals(want.as_unit(night.epoch_times().unit))
 
