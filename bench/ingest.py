@@ -3,12 +3,15 @@
 The profiled CSV is a lab export read through an import profile: a device preamble, ``;`` delimiter,
 decimal comma, day-first date and time in separate columns (naive local times), R&K stage numbers.
 
-Each case is read ``BENCH_ROUNDS`` times (default 3) and the best round counts: on a shared machine
-the slower rounds measure the neighbours. Rates are given per second of wall time and per second
-of this process's CPU time (``*_epochs_per_cpu_s``), which other processes disturb less.
+Each case is read ``BENCH_ROUNDS`` times (default 3), the three cases taking turns round by round
+so that a neighbour's load falls on all of them alike, and the best round counts: on a shared
+machine the slower rounds measure the neighbours. Rates are given per second of wall time and per
+second of this process's CPU time (``*_epochs_per_cpu_s``), which other processes disturb less;
+the ratios (profiled CSV and JSON against plain CSV, from CPU time) compare the cases within the
+run. The load average is printed at the start and at the end.
 
 Last line: one JSON object, e.g. {"csv_epochs_per_s": ..., "profiled_csv_epochs_per_s": ...,
-"json_epochs_per_s": ..., "load_average_1min": ...}.
+"json_epochs_per_s": ..., "profiled_csv_to_csv_ratio": ..., "load_average_1min": ...}.
 Goals: >= 1,000,000 epochs/s for CSV (plain and profiled) and >= 2,000,000 for JSON.
 """
 
@@ -67,18 +70,22 @@ def _export(night: Night) -> bytes:
     return (head + text).encode()
 
 
-def _best(blobs: list[bytes], read: Callable[[bytes], Night]) -> tuple[float, float]:
-    """(wall seconds, CPU seconds) of the best of :data:`N_ROUNDS` rounds reading every blob."""
-    wall = cpu = float("inf")
-    for _ in range(N_ROUNDS):
-        t0, c0 = time.perf_counter(), time.process_time()
-        for blob in blobs:
-            read(blob)
-        wall, cpu = min(wall, time.perf_counter() - t0), min(cpu, time.process_time() - c0)
-    return wall, cpu
+def _round(blobs: list[bytes], read: Callable[[bytes], Night]) -> tuple[float, float]:
+    """(wall seconds, CPU seconds) of reading every blob once."""
+    t0, c0 = time.perf_counter(), time.process_time()
+    for blob in blobs:
+        read(blob)
+    return time.perf_counter() - t0, time.process_time() - c0
+
+
+def _load() -> str:
+    one, five, fifteen = os.getloadavg()
+    return f"load average {one:.2f} {five:.2f} {fifteen:.2f} on {os.cpu_count()} cores"
 
 
 def main() -> None:
+    print(f"start: {_load()}")
+    start_load = os.getloadavg()[0]
     nights = _nights()
     cases = {
         "csv": ([night_to_csv(n).encode() for n in nights], night_from_csv),
@@ -87,18 +94,27 @@ def main() -> None:
     }
     back = night_from_csv(cases["profiled_csv"][0][0], profile=PROFILE)
     assert back.content_hash == nights[0].content_hash, "the profiled export does not read back"
+    best = {name: (float("inf"), float("inf")) for name in cases}
+    for _ in range(N_ROUNDS):  # the cases take turns, round by round
+        for name, (blobs, read) in cases.items():
+            wall, cpu = _round(blobs, read)
+            best[name] = (min(best[name][0], wall), min(best[name][1], cpu))
     total = N_NIGHTS * N_EPOCHS
     figures: dict[str, float] = {}
-    for name, (blobs, read) in cases.items():
-        wall, cpu = _best(blobs, read)
+    for name, (blobs, _) in cases.items():
+        wall, cpu = best[name]
         figures[f"{name}_epochs_per_s"] = round(total / wall)
         figures[f"{name}_epochs_per_cpu_s"] = round(total / cpu)
         print(f"{name:13s}: {wall:.2f} s wall, {cpu:.2f} s CPU for {N_NIGHTS} nights "
               f"({sum(map(len, blobs)) / 1e6:.1f} MB), best of {N_ROUNDS}")
+    ratios = {f"{name}_to_csv_ratio": round(figures[f"{name}_epochs_per_cpu_s"] / figures["csv_epochs_per_cpu_s"], 3)
+              for name in ("profiled_csv", "json")}
+    print("ratios (CPU rates): " + ", ".join(f"{k} {v:.2f}" for k, v in ratios.items()))
+    print(f"end: {_load()}")
     load = os.getloadavg()
-    print(f"load average {load[0]:.2f} {load[1]:.2f} {load[2]:.2f} on {os.cpu_count()} cores")
-    print(json.dumps({**figures, "nights": N_NIGHTS, "epochs_per_night": N_EPOCHS, "rounds": N_ROUNDS,
-                      "load_average_1min": round(load[0], 2)}))
+    print(json.dumps({**figures, **ratios, "nights": N_NIGHTS, "epochs_per_night": N_EPOCHS, "rounds": N_ROUNDS,
+                      "load_average_1min": round(load[0], 2), "load_average_1min_at_start": round(start_load, 2),
+                      "load_average_5min": round(load[1], 2), "cores": os.cpu_count()}))
 
 
 if __name__ == "__main__":

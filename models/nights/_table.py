@@ -20,7 +20,9 @@ from .profiles import ImportProfile
 from .timestamps import (
     NAT,
     Quote,
+    Rows,
     arrow_ns,
+    date_time_ns,
     has_zone,
     index_ns,
     invalid_problem,
@@ -29,6 +31,7 @@ from .timestamps import (
     offsets_of,
     parse_with_format,
     plausible_problems,
+    settle_doubtful,
     text_of,
 )
 
@@ -47,8 +50,10 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
                  field: str, problems: list[Problem]) -> tuple[NDArray[np.int64], tzinfo | None] | None:
     """Epoch times as (int64 UTC nanoseconds, zone they were placed in), or None with the problems recorded.
 
-    ``date_col`` (a date column) is joined to ``time_col`` (then a time of day) with a blank. The zone
-    is None when the times carry their own offsets.
+    ``date_col`` (a date column) is joined to ``time_col`` (then a time of day) with a blank; with a
+    format that splits into a date and a time part they are read apart and added
+    (:func:`~models.nights.timestamps.date_time_ns`), with the same result. The zone is None when
+    the times carry their own offsets.
     """
     import pyarrow as pa
     import pyarrow.compute as pc
@@ -59,13 +64,17 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
             return _plausible(arrow_ns(time_col), None, None, row0, field, problems)
         naive = arrow_ns(time_col)
     else:
-        if date_col is None:
-            text = text_of(time_col)
-        else:  # one trim after joining: blanks inside read as the format's blank
-            text = text_of(pc.binary_join_element_wise(_as_text(date_col), _as_text(time_col), " "))
-        quote = lambda i: str(text[i].as_py())  # noqa: E731
+        fast = date_time_ns(date_col, time_col, fmt) if fmt is not None and date_col is not None else None
+        if fast is None or date_col is None:
+            text = text_of(time_col if date_col is None else  # one trim after joining: blanks inside read
+                           pc.binary_join_element_wise(_as_text(date_col), _as_text(time_col), " "))  # as one
+            rows = _rows_of(text)
+        else:  # joined only for the rows that are checked or quoted
+            text, rows = None, _joined_rows(date_col, time_col)
+        quote = lambda i: str(rows(np.array([i], dtype=np.intp))[0].as_py())  # noqa: E731
         if fmt is not None:
-            ns = parse_with_format(text, fmt)
+            ns = parse_with_format(text, fmt) if fast is None else \
+                settle_doubtful(fast[0], fmt, rows, days_written=fast[1])
             invalid = ns == NAT
             if invalid.any():
                 bad = np.flatnonzero(invalid)
@@ -99,6 +108,26 @@ def times_to_utc(time_col: pa.Array, date_col: pa.Array | None, *, fmt: str | No
     return None if placed is None else _plausible(*placed, quote, row0, field, problems)
 
 
+def _rows_of(text: pa.Array) -> Rows:
+    """The rows of a text column, by 0-based index."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    return lambda idx: text if idx.size == len(text) else pc.take(text, pa.array(idx))
+
+
+def _joined_rows(date_col: pa.Array, time_col: pa.Array) -> Rows:
+    """The trimmed ``date + " " + time`` texts of some rows, joined when asked for."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    def rows(idx: NDArray[np.intp]) -> pa.Array:
+        at = pa.array(idx)
+        return text_of(pc.binary_join_element_wise(_as_text(pc.take(date_col, at)), _as_text(pc.take(time_col, at)),
+                                                   " "))
+    return rows
+
+
 def _as_text(col: pa.Array) -> pa.Array:
     """A column as text, nulls as empty text."""
     import pyarrow as pa
@@ -129,13 +158,14 @@ def regular_epochs(utc_ns: NDArray[np.int64], row0: int, fill_gaps: bool, zone: 
                                 {"field": field, "row": row0}))
         return None
     step_ns = np.diff(utc_ns)
-    if (step_ns == step_ns[0]).all() and step_ns[0] > 0:  # the usual, regular file
+    regular = bool(step_ns[0] > 0 and (step_ns == step_ns[0]).all())  # the usual, regular file
+    if regular:
         epoch_ns = int(step_ns[0])
     else:
         positive = step_ns[step_ns > 0]
         epoch_ns = int(np.median(positive)) if positive.size else 0
+        regular = bool((step_ns == epoch_ns).all())
     ok = True
-    regular = (step_ns == epoch_ns).all()
     for code, mask, what in () if regular else (("duplicate_timestamp", step_ns == 0, "repeats the previous time"),
                                                 ("time_not_increasing", step_ns < 0, "goes back in time")):
         idx = np.flatnonzero(mask) + 1
@@ -163,7 +193,8 @@ def regular_epochs(utc_ns: NDArray[np.int64], row0: int, fill_gaps: bool, zone: 
                                     "accept whole-epoch gaps as missing epochs",
                                     {"field": field, "row": row0 + i, "epoch": i, "time": when}))
             return None
-    return epoch_ns // 1_000_000_000, (utc_ns - utc_ns[0]) // epoch_ns
+    index = np.arange(utc_ns.size, dtype=np.int64) if regular else (utc_ns - utc_ns[0]) // epoch_ns
+    return epoch_ns // 1_000_000_000, index
 
 
 def _counts(col: pa.Array, row0: int, field: str, fill_gaps: bool, problems: list[Problem]) -> NDArray[np.float64]:
@@ -202,7 +233,8 @@ def _reference(col: pa.Array, profile: ImportProfile | None) -> CodedLabels:
     categories = col.dictionary.to_pylist()
     if profile is not None and profile.stage_codes:
         categories = [_mapped(profile, c) for c in categories]
-    return CodedLabels(col.indices.fill_null(-1).to_numpy(zero_copy_only=False), categories)
+    codes = col.indices.fill_null(-1) if col.null_count else col.indices
+    return CodedLabels(codes.to_numpy(zero_copy_only=False), categories)
 
 
 def _mapped(profile: ImportProfile, value: object) -> object:
@@ -214,6 +246,12 @@ def _mapped(profile: ImportProfile, value: object) -> object:
             return value
         hit = profile.stage_code(int(number)) if number.is_integer() else None
     return value if hit is None else hit
+
+
+def _column(table: pa.Table, name: str) -> pa.Array:
+    """One column of a table as one array."""
+    col = table.column(name)
+    return col.chunk(0) if col.num_chunks == 1 else col.combine_chunks()
 
 
 def night_from_table(table: pa.Table, meta: Mapping[str, object], roles: ColumnRoles, *, participant_id: str,
@@ -234,17 +272,17 @@ def night_from_table(table: pa.Table, meta: Mapping[str, object], roles: ColumnR
     if roles.time is None or roles.counts is None:
         raise InvalidNightError(problems, source=source)
     tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
-    date_col = table.column(roles.date).combine_chunks() if roles.date is not None else None
-    times = times_to_utc(table.column(roles.time).combine_chunks(), date_col,
+    date_col = _column(table, roles.date) if roles.date is not None else None
+    times = times_to_utc(_column(table, roles.time), date_col,
                          fmt=profile.datetime_format if profile is not None else None, tz=tz, row0=row0,
                          field=roles.time, problems=problems)
     zone = None if times is None else (times[1] or first_tz)
     grid = None if times is None else regular_epochs(times[0], row0, options.fill_gaps,
                                                      zone if isinstance(zone, tzinfo) else None, roles.time, problems)
-    counts = _counts(table.column(roles.counts).combine_chunks(), row0, roles.counts, options.fill_gaps, problems)
+    counts = _counts(_column(table, roles.counts), row0, roles.counts, options.fill_gaps, problems)
     reference: CodedLabels | list[object] | None = None
     if roles.reference is not None:
-        reference = _reference(table.column(roles.reference).combine_chunks(), profile)
+        reference = _reference(_column(table, roles.reference), profile)
     start = epoch_seconds = None
     if grid is not None and times is not None:
         epoch_seconds, index = grid

@@ -66,6 +66,10 @@ class ColumnRoles:
         return [c for c in (self.time, self.date, self.counts, self.reference) if c is not None]
 
 
+_FOUND: dict[tuple[object, ...], ColumnRoles] = {}  # headers read without a problem, file after file
+_MAX_FOUND = 1024
+
+
 def find_columns(names: Sequence[str], options: NightOptions, profile: ImportProfile | None, header_row: int,
                  problems: list[Problem]) -> ColumnRoles:
     """Find the column of every role in a header; record every problem in ``problems``.
@@ -82,6 +86,24 @@ def find_columns(names: Sequence[str], options: NightOptions, profile: ImportPro
     ColumnRoles
         ``time`` or ``counts`` is None when missing (a ``missing_column`` problem says so).
     """
+    key = (tuple(names), header_row, options.time_column, options.counts_column, options.reference_column,
+           None if profile is None else (profile.name, tuple(profile.columns.items()), profile.ignore_columns))
+    roles = _FOUND.get(key)
+    if roles is not None:
+        return roles
+    found: list[Problem] = []
+    roles = _find_columns(names, options, profile, header_row, found)
+    if not found:
+        if len(_FOUND) >= _MAX_FOUND:
+            _FOUND.clear()
+        _FOUND[key] = roles
+    problems.extend(found)
+    return roles
+
+
+def _find_columns(names: Sequence[str], options: NightOptions, profile: ImportProfile | None, header_row: int,
+                  problems: list[Problem]) -> ColumnRoles:
+    """:func:`find_columns` without the memory of headers seen before."""
     exact: dict[str, str] = {}
     normal: dict[str, str] = {}
     for n in names:

@@ -7,6 +7,7 @@ reference's own stage codes. Without a profile the reader finds all of these its
 
 from __future__ import annotations
 
+import codecs
 import csv
 import io
 import json
@@ -129,7 +130,7 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
                 pass
     tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
     try:
-        table = _read_table(pa.py_buffer(body.encode()), sep, decimal, roles, as_text, tz)
+        table = _read_table(_body_buffer(data, text, pos, profile), sep, decimal, roles, as_text, tz)
     except pa.ArrowInvalid as exc:
         msg = str(exc).strip().splitlines()[0]
         hit = re.search(r"Row #(\d+)", msg)
@@ -147,6 +148,17 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
         raise
 
 
+def _body_buffer(data: bytes | str, text: str, pos: int, profile: ImportProfile | None) -> pa.Buffer:
+    """The file from ``text[pos:]`` on as UTF-8 for Arrow: a view of ``data`` when that is UTF-8 bytes, else encoded."""
+    import pyarrow as pa
+
+    if isinstance(data, bytes) and codecs.lookup(profile.encoding if profile is not None else "utf-8").name \
+            in ("utf-8", "utf-8-sig"):  # decode_text checked the bytes and dropped one byte-order mark
+        start = len(text[:pos].encode()) + (len(codecs.BOM_UTF8) if data.startswith(codecs.BOM_UTF8) else 0)
+        return pa.py_buffer(memoryview(data)[start:])
+    return pa.py_buffer(text[pos:].encode())
+
+
 def _read_table(buffer: pa.Buffer, sep: str, decimal: str, roles: ColumnRoles, as_text: bool,
                 tz: str | None) -> pa.Table:
     """The used columns of a CSV body, typed when they convert, else as found (for the checks to locate).
@@ -161,8 +173,8 @@ def _read_table(buffer: pa.Buffer, sep: str, decimal: str, roles: ColumnRoles, a
     import pyarrow as pa
 
     time_type = pa.string() if as_text else pa.timestamp("s") if tz is not None else pa.timestamp("s", tz="UTC")
-    fast = {roles.time: time_type, roles.counts: pa.float64(), roles.reference: pa.dictionary(pa.int32(), pa.string()),
-            roles.date: pa.string()}
+    coded = pa.dictionary(pa.int32(), pa.string())  # a reference or date column holds few distinct values
+    fast = {roles.time: time_type, roles.counts: pa.float64(), roles.reference: coded, roles.date: coded}
     used = roles.used()
     try:  # typed read first: the usual file converts without type inference
         return _read_arrow_csv(buffer, sep, decimal, {n: fast[n] for n in used}, used, stream=True)
@@ -182,8 +194,8 @@ def _read_arrow_csv(buffer: pa.Buffer, sep: str, decimal: str, column_types: dic
 
     read_options = pacsv.ReadOptions(use_threads=False)
     parse_options = pacsv.ParseOptions(delimiter=sep)
-    convert_options = pacsv.ConvertOptions(decimal_point=decimal, strings_can_be_null=True,
-                                           column_types=column_types, include_columns=columns)
+    convert_options = pacsv.ConvertOptions(decimal_point=decimal, strings_can_be_null=True, check_utf8=False,
+                                           column_types=column_types, include_columns=columns)  # UTF-8 already
     if stream:
         return pacsv.open_csv(buffer, read_options=read_options, parse_options=parse_options,
                               convert_options=convert_options).read_all()

@@ -8,7 +8,10 @@ With a format (an import profile's ``datetime_format``) every time is parsed wit
 ``strptime`` kernel reads the usual rows; every row it cannot read, and every row it may have read
 more leniently than pandas (a day of month 1-3 that could be an overflowed 29-31, a year before
 :data:`EARLIEST_PLAUSIBLE_DATE`), is parsed again with ``pandas.to_datetime(format=..., exact=True)``,
-whose result stands. So the outcome is pandas' at Arrow's speed.
+whose result stands. So the outcome is pandas' at Arrow's speed. A date column and a time-of-day
+column, whose texts are joined with a blank, are read apart when the format is a date part and a
+time part joined by blanks (:func:`split_date_time_format`): each distinct date once, each time of
+day once, the two added; the joined text is built only for the rows checked again or quoted.
 
 Times without an offset are placed in a time zone. A local time that does not exist (clocks jump
 forward) or that happens twice and cannot be placed by the order of the rows (clocks fall back) is
@@ -20,6 +23,7 @@ from __future__ import annotations
 import re
 from collections.abc import Callable
 from datetime import timedelta
+from functools import lru_cache
 from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
@@ -88,6 +92,7 @@ _DIGITS = {"m": r"\d{1,2}", "Y": r"\d{4}", "y": r"\d{2}", "H": r"\d{1,2}", "I": 
            "S": r"\d{1,2}", "f": r"\d{1,9}", "j": r"\d{1,3}"}
 
 
+@lru_cache(maxsize=256)
 def _day_pattern(fmt: str) -> str:
     """A regular expression (RE2) of the start of texts written with ``fmt``, up to the day of month (group ``d``)."""
     out = ["^"]
@@ -114,6 +119,10 @@ def _early_days(ns: NDArray[np.int64], last_day: int) -> bool:
     return bool(months[0] != months[1] or (ends[0].astype("M8[D]") - months[0]).astype(np.int64) + 1 <= last_day)
 
 
+Rows = Callable[[NDArray[np.intp]], "pa.Array"]  # the trimmed times as written of some 0-based data rows
+DaysWritten = Callable[[NDArray[np.intp]], NDArray[np.int64]]  # the day of month written in some rows
+
+
 def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
     """Times written with ``fmt``, as int64 nanoseconds (UTC when the format has ``%z``), :data:`NAT` if invalid.
 
@@ -138,31 +147,135 @@ def parse_with_format(text: pa.Array, fmt: str) -> NDArray[np.int64]:
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    aware = has_zone(fmt)
+    def rows(idx: NDArray[np.intp]) -> pa.Array:
+        return text if idx.size == len(text) else pc.take(text, pa.array(idx))
+
     try:
         fast = pc.strptime(text, format=fmt, unit="ns", error_is_null=True)
-        ns = np.asarray(fast.to_numpy(zero_copy_only=False)).view(np.int64)  # nulls come as NaT
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):  # a directive Arrow does not know
+        return settle_doubtful(np.full(len(text), NAT, dtype=np.int64), fmt, rows, all_doubtful=True)
+    return settle_doubtful(np.asarray(fast.to_numpy(zero_copy_only=False)).view(np.int64), fmt, rows)
+
+
+def settle_doubtful(ns: NDArray[np.int64], fmt: str, rows: Rows, *, all_doubtful: bool = False,
+                    days_written: DaysWritten | None = None) -> NDArray[np.int64]:
+    """Arrow's ``strptime`` results ``ns`` (:data:`NAT` where not read) with every doubtful row parsed by pandas.
+
+    ``rows`` gives the trimmed texts of some rows, only asked for the doubtful ones (see
+    :func:`parse_with_format`); ``all_doubtful`` sends every row to pandas. ``days_written`` gives
+    the day of month as written in some rows (-1 where not found); by default it is read from
+    ``rows`` up to the format's ``%d``.
+    """
+    aware = has_zone(fmt)
+    if all_doubtful:
+        doubtful = np.ones(ns.size, dtype=bool)
+    else:
         # not read, or a year pandas may refuse (e.g. 31 for %Y); a time of day alone is read on 1900-01-01
         doubtful = ns < _FIRST if re.search(r"%[YyG]", fmt) else ns == NAT
-        if "%d" in fmt and _early_days(ns[~doubtful], 4 if aware else 3):  # in UTC a local day may move by one
+        read = ns[~doubtful] if doubtful.any() else ns
+        if "%d" in fmt and _early_days(read, 4 if aware else 3):  # in UTC a local day may move by one
             stamps = ns.view("M8[ns]")
             day_read = (stamps.astype("M8[D]") - stamps.astype("M8[M]")).astype(np.int64) + 1
             early = ~doubtful & (day_read <= (4 if aware else 3))
             if early.any():
-                sub = text if early.all() else pc.filter(text, pa.array(early))
-                days = pc.extract_regex(sub, _day_pattern(fmt)).field("d")
-                written = pc.fill_null(pc.cast(days, pa.int64(), safe=False), -1).to_numpy(zero_copy_only=False)
-                doubtful[np.flatnonzero(early)[written != day_read[early]]] = True
-    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):  # a directive Arrow does not know
-        ns = np.full(len(text), NAT, dtype=np.int64)
-        doubtful = np.ones(len(text), dtype=bool)
+                at = np.flatnonzero(early)
+                written = days_written(at) if days_written is not None else day_of_month(rows(at), fmt)
+                doubtful[at[written != day_read[early]]] = True
     if doubtful.any():
         idx = np.flatnonzero(doubtful)
-        values = pc.take(text, pa.array(idx)).to_pylist()
+        values = rows(idx).to_pylist()
         exact = pd.DatetimeIndex(pd.to_datetime(values, format=fmt, exact=True, errors="coerce", utc=aware))
         ns = ns.copy()
         ns[idx] = index_ns(exact)
     return ns
+
+
+def day_of_month(text: pa.Array, fmt: str) -> NDArray[np.int64]:
+    """The day of month as written in each of the texts (written with ``fmt``, trimmed), -1 where not found."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    days = pc.extract_regex(text, _day_pattern(fmt)).field("d")
+    return np.asarray(pc.fill_null(pc.cast(days, pa.int64(), safe=False), -1).to_numpy(zero_copy_only=False))
+
+
+_DATE_DIRECTIVES, _TIME_DIRECTIVES = frozenset("dmYybB"), frozenset("HMSIp")
+_DIRECTIVES = re.compile(r"%(.)")
+_1900 = pd.Timestamp("1900-01-01").value  # the day Arrow's strptime puts a time of day alone on
+_LAST_DAY = pd.Timestamp("2262-01-01").value  # later days do not fit int64 nanoseconds with their times
+
+
+@lru_cache(maxsize=256)
+def split_date_time_format(fmt: str) -> tuple[str, str] | None:
+    """(date format, time-of-day format) of a format that is the two joined by blanks, else None.
+
+    The date part may hold only day, month and year directives (``%d %m %Y %y %b %B``), the time
+    part only ``%H %M %S %I %p``; anything else (``%z``, ``%j``, ``%%``, a time before the date) is None.
+    """
+    if re.fullmatch(r"(?:[^%]|%[A-Za-z])*", fmt) is None:
+        return None
+    for blank in re.finditer(r"\s+", fmt):
+        date_fmt, time_fmt = fmt[: blank.start()], fmt[blank.end():]
+        in_date, in_time = set(_DIRECTIVES.findall(date_fmt)), set(_DIRECTIVES.findall(time_fmt))
+        if in_date and in_time and in_date <= _DATE_DIRECTIVES and in_time <= _TIME_DIRECTIVES:
+            return date_fmt, time_fmt
+    return None
+
+
+def date_time_ns(date_col: pa.Array, time_col: pa.Array,
+                 fmt: str) -> tuple[NDArray[np.int64], DaysWritten | None] | None:
+    """Arrow's ``strptime`` of ``date + " " + time`` per row, read as date and time of day apart and added.
+
+    Each distinct date is read once. None unless ``fmt`` splits (:func:`split_date_time_format`),
+    every date and every time reads as written (untrimmed, no nulls) and every date lies in
+    1900..2261: then the sum is what ``strptime`` of the joined, trimmed text with ``fmt`` gives
+    (each part sets its own fields, Arrow reads a text to its end and a blank in the format
+    takes any run of blanks).
+
+    Parameters
+    ----------
+    date_col, time_col : pyarrow.StringArray or pyarrow.DictionaryArray of strings, shape (n,)
+    fmt : str
+        Format of the joined text.
+
+    Returns
+    -------
+    ns : ndarray of int64, shape (n,)
+        Naive times in nanoseconds, before :func:`settle_doubtful`.
+    days_written : callable or None
+        The day of month written in given rows, read from the distinct dates, when ``fmt`` has
+        nothing but literal text before its ``%d`` (then the joined text reads the same up to it);
+        else None.
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    split = split_date_time_format(fmt)
+    if split is None or date_col.null_count or time_col.null_count or not pa.types.is_string(time_col.type):
+        return None
+    if not pa.types.is_dictionary(date_col.type):
+        if not pa.types.is_string(date_col.type):
+            return None
+        date_col = date_col.dictionary_encode()
+    dates = date_col.dictionary
+    if not pa.types.is_string(dates.type):
+        return None
+    try:
+        days = pc.strptime(dates, format=split[0], unit="ns", error_is_null=True)
+        clock = pc.strptime(time_col, format=split[1], unit="ns", error_is_null=True)
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        return None
+    if days.null_count or clock.null_count:
+        return None
+    day_ns = np.asarray(days.to_numpy(zero_copy_only=False)).view(np.int64)
+    if day_ns.size and (day_ns.min() < _1900 or day_ns.max() >= _LAST_DAY):
+        return None
+    codes = np.asarray(date_col.indices.to_numpy(zero_copy_only=False), dtype=np.intp)
+    ns = day_ns[codes] + (np.asarray(clock.to_numpy(zero_copy_only=False)).view(np.int64) - _1900)
+    before_day = fmt.partition("%d")[0]
+    if "%" in before_day or any(c.isspace() for c in before_day):
+        return ns, None
+    return ns, lambda at: day_of_month(text_of(dates), fmt)[codes[at]]
 
 
 def iso_invalid(text: pd.Series) -> NDArray[np.bool_]:
@@ -228,9 +341,13 @@ def localize(naive_ns: NDArray[np.int64], tz: str, quote: Quote | None, row0: in
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    try:  # Arrow's kernel places the usual night, with no clock change, fast
-        placed = pc.assume_timezone(pa.array(naive_ns.view("M8[ns]")), tz, ambiguous="raise", nonexistent="raise")
-        return np.asarray(placed.cast(pa.int64()).to_numpy(zero_copy_only=False), dtype=np.int64), zone
+    naive_ns = np.ascontiguousarray(naive_ns, dtype=np.int64)
+    try:  # Arrow's kernel places the usual night, with no clock change, fast (the arrays shared, not copied)
+        naive = pa.Array.from_buffers(pa.timestamp("ns"), naive_ns.size, [None, pa.py_buffer(naive_ns)])
+        placed = pc.assume_timezone(naive, tz, ambiguous="raise", nonexistent="raise")
+        if placed.null_count == 0:
+            return np.frombuffer(placed.buffers()[1], dtype=np.int64, count=len(placed),
+                                 offset=placed.offset * 8), zone
     except pa.ArrowInvalid:  # a clock change (or a zone Arrow's database lacks): pandas infers and explains
         pass
     index = pd.DatetimeIndex(naive_ns.view("M8[ns]"))
