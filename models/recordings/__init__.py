@@ -14,6 +14,13 @@ from .nonwear import (
     detect_nonwear,
     nonwear_mask,
 )
+from .periods import (
+    DetectionConfig,
+    PeriodConfig,
+    SleepPeriod,
+    find_periods,
+    period_night,
+)
 from .recording import (
     RECORDING_MAX_DAYS,
     RECORDING_MIN_HOURS,
@@ -26,17 +33,22 @@ from .recording import (
 )
 
 __all__ = [
+    "DetectionConfig",
     "DiaryDay",
     "InvalidDiaryError",
     "InvalidRecordingError",
     "NonwearConfig",
     "NonwearInterval",
+    "PeriodConfig",
     "RECORDING_MAX_DAYS",
     "RECORDING_MIN_HOURS",
     "Recording",
+    "SleepPeriod",
     "choi_candidates",
     "detect_nonwear",
+    "find_periods",
     "nonwear_mask",
+    "period_night",
     "read_diary",
     "read_recording",
     "recording_from_json",
