@@ -2,6 +2,13 @@
 
 from __future__ import annotations
 
+from .days import (
+    DayRow,
+    RecordingSummary,
+    day_rows,
+    recording_summary,
+    sleep_state,
+)
 from .diary import (
     DiaryDay,
     InvalidDiaryError,
@@ -33,6 +40,7 @@ from .recording import (
 )
 
 __all__ = [
+    "DayRow",
     "DetectionConfig",
     "DiaryDay",
     "InvalidDiaryError",
@@ -43,8 +51,10 @@ __all__ = [
     "RECORDING_MAX_DAYS",
     "RECORDING_MIN_HOURS",
     "Recording",
+    "RecordingSummary",
     "SleepPeriod",
     "choi_candidates",
+    "day_rows",
     "detect_nonwear",
     "find_periods",
     "nonwear_mask",
@@ -52,6 +62,8 @@ __all__ = [
     "read_diary",
     "read_recording",
     "recording_from_json",
+    "recording_summary",
     "recording_to_epoch",
     "recording_to_json",
+    "sleep_state",
 ]
