@@ -106,7 +106,8 @@ def _figures(sims: list[SimulatedRecording]) -> dict[str, float]:
     out = {f"{k.removesuffix('_diary')}_mae_min{'_diary' if k.endswith('_diary') else ''}": float(np.median(v))
            for k, v in errors.items()}
     out.update(nap_recall=tp / max(tp + fn, 1), nap_precision=hits / max(n_naps, 1), n_true_naps=float(tp + fn),
-               nonwear_recall=flagged / max(worn_total, 1), sleep_flagged_pct=100.0 * sleep_flagged / max(sleep_total, 1))
+               nonwear_recall=flagged / max(worn_total, 1),
+               sleep_flagged_pct=100.0 * sleep_flagged / max(sleep_total, 1))
     offsets = _psg_offsets(sims)
     if offsets is not None:
         out["psg_clock_offset_mae_s"] = offsets
