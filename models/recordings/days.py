@@ -153,7 +153,7 @@ class RecordingSummary:
 
     ``parameters`` maps each night parameter to ``{"mean", "sd", "n"}`` over the nights that have
     it (SD with ddof=1, NaN with fewer than two nights); ``mid_sleep_h`` is the mean mid-sleep as
-    hours after midnight (may exceed 24 for a mid-sleep after noon), ``mid_sleep_sd_min`` its SD.
+    local clock hours after midnight (0 <= h < 24), ``mid_sleep_sd_min`` its SD.
     """
 
     n_days: int
@@ -215,6 +215,6 @@ def recording_summary(rows: Sequence[DayRow], *, night_parameters: Mapping[dt.da
         n_days=len(rows), n_main_periods=sum(r.source != "none" for r in rows), n_naps=sum(r.naps for r in rows),
         nap_min_per_day=sum(r.nap_min for r in rows) / len(rows) if rows else float("nan"),
         nonwear_min=nonwear, wear_pct=100.0 * (1 - nonwear / covered) if covered else float("nan"),
-        parameters=params, mid_sleep_h=mid["mean"] if mids else None,
+        parameters=params, mid_sleep_h=mid["mean"] % 24.0 if mids else None,
         mid_sleep_sd_min=mid["sd"] * 60.0 if len(mids) > 1 else None,
         social_jetlag_h=social_jetlag_h, sri=sri, n_conflicts=sum(len(r.conflicts) for r in rows))
