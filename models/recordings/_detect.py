@@ -40,8 +40,9 @@ class DetectionConfig:
     onset_minutes : float, default=10
         Sleep onset is the first epoch of a run of at least this many minutes of sleep calls (in the
         spirit of Tudor-Locke et al. 2014's runs, from memory; length ours).
-    offset_minutes : float, default=10
-        Sleep offset ends the last such run of the rest interval.
+    offset_minutes : float, default=5
+        Sleep offset ends the last run of sleep calls of at least this many minutes (shorter than
+        the onset's: the morning's last sleep is often cut by brief movements; our design).
     p_threshold : float, default=0.5
         With a model's sleep probability, an epoch is called sleep at or above this.
     """
@@ -55,7 +56,7 @@ class DetectionConfig:
     person_share_factor: float = 1.5
     max_still_share: float = 0.22
     onset_minutes: float = 10.0
-    offset_minutes: float = 10.0
+    offset_minutes: float = 5.0
     p_threshold: float = 0.5
 
 
