@@ -36,6 +36,7 @@ is reported on that day's main period.
 from __future__ import annotations
 
 import datetime as dt
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -157,7 +158,7 @@ def _anchor_diary(main: _Main, day: DiaryDay, recording: Recording, tol: int, pe
                 setattr(main, side, at)
             main.search = (min(main.search[0], at), max(main.search[1], at))
         else:
-            main.conflicts.append(f"diary {name} time {gap / per_min:.0f} min from detected rest")
+            main.conflicts.append(f"diary {name} time {math.ceil(gap / per_min - 1e-9)} min from detected rest")
 
 
 def find_periods(recording: Recording, *, diary: Sequence[DiaryDay] | None = None,
