@@ -40,8 +40,9 @@ def _made(seed: int = 3) -> Recording:
     asleep = ((minute >= 23 * 60 + 20) | (minute < 6 * 60 + 40)) | ((day == 6) & (minute >= 15 * 60)
                                                                      & (minute < 15 * 60 + 40)) \
         | ((day == 5) & (minute >= 16 * 60) & (minute < 16 * 60 + 15))
-    counts[quiet] = np.where(rng.random(quiet.sum()) < 0.35, rng.poisson(8, quiet.sum()), 0)
-    counts[asleep] = np.where(rng.random(asleep.sum()) < 0.03, rng.poisson(5, asleep.sum()), 0)
+    # per minute: quiet wake moves in half of them, sleep in 6 % (a third and 3 % of 30-s epochs, about)
+    counts[quiet] = np.where(rng.random(quiet.sum()) < 0.5, rng.poisson(8, quiet.sum()), 0)
+    counts[asleep] = np.where(rng.random(asleep.sum()) < 0.06, rng.poisson(5, asleep.sum()), 0)
     return Recording(participant_id="P-07", start=start, epoch_seconds=60, counts=counts,
                      markers=np.zeros(times.size, dtype=bool), source_name="made.csv")
 
@@ -158,3 +159,30 @@ def test_simulated_onset_and_offset_near_the_truth() -> None:
                 p = mains[day.date]
                 errors += [abs(p.onset_epoch - day.onset_epoch) / 2, abs(p.offset_epoch - day.offset_epoch) / 2]
     assert np.median(errors) <= 10.0  # minutes, the goal against the simulator's ground truth
+
+
+def test_epoch_length_adaptation_on_simulated_recordings() -> None:
+    from models import recording_to_epoch
+    from models.simulation.recordings import RecordingSpec, simulate_recordings
+
+    (sim,) = simulate_recordings(RecordingSpec(n_participants=1, n_days=10, offwrist_rate=0.0), seed=8)
+    rec = sim.recording
+    truth = [d for d in sim.days if d.observable]
+    # 60 s: summed pairs (the same movement seen in minutes); errors in minutes against the truth
+    minute = recording_to_epoch(rec, 60)
+    mains = _mains(find_periods(minute, nonwear=[]))
+    errors = [abs(mains[d.date].onset_epoch - d.onset_epoch / 2) for d in truth] + \
+             [abs(mains[d.date].offset_epoch - d.offset_epoch / 2) for d in truth]
+    assert np.median(errors) <= 10.0
+    # 15 s: each 30-s count put in the first half; summing back gives the recording itself
+    halves = np.zeros(2 * rec.n_epochs)
+    halves[::2] = rec.counts
+    quarter = Recording(participant_id="P", start=rec.start, epoch_seconds=15, counts=halves,
+                        markers=np.repeat(rec.markers, 2))
+    assert recording_to_epoch(quarter, 30).content_hash() == rec.content_hash()
+    fine = _mains(find_periods(quarter, nonwear=[]))
+    coarse = _mains(find_periods(rec, nonwear=[]))
+    assert sorted(fine) == sorted(coarse)
+    for day, p in coarse.items():  # the same times, up to one 30-s epoch of window centring
+        assert abs(fine[day].onset_epoch - 2 * p.onset_epoch) <= 2
+        assert abs(fine[day].offset_epoch - 2 * p.offset_epoch) <= 2
