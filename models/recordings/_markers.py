@@ -136,15 +136,32 @@ def csv_markers(data: bytes, night: Night, options: NightOptions, profile: Impor
         return np.zeros(night.n_epochs, dtype=bool), unused
     used = [c for c in (marker, roles.time, roles.date) if c is not None]
     body = "\n".join([header, lines.read()]).encode()
-    types = {c: pa.string() for c in used if c != marker}
-    table = pacsv.read_csv(pa.py_buffer(body), read_options=pacsv.ReadOptions(use_threads=False),
-                           parse_options=pacsv.ParseOptions(delimiter=sep),
-                           convert_options=pacsv.ConvertOptions(include_columns=used, column_types=types,
-                                                                decimal_point=profile.decimal if profile else "."))
+    try:  # every used column as text: a marker column's type is not inferred from its first rows
+        table = pacsv.read_csv(pa.py_buffer(body), read_options=pacsv.ReadOptions(use_threads=False),
+                               parse_options=pacsv.ParseOptions(delimiter=sep),
+                               convert_options=pacsv.ConvertOptions(include_columns=used,
+                                                                    column_types={c: pa.string() for c in used}))
+    except pa.ArrowInvalid as exc:
+        raise InvalidNightError([Problem("malformed_csv", f"the marker column {marker!r} cannot be read: "
+                                         f"{str(exc).strip().splitlines()[0]}", {"field": marker})],
+                                source=source) from None
     marked = marker_values(table.column(marker).combine_chunks(), n_pre + 2, marker, problems)
     if problems:
         raise InvalidNightError(problems, source=source)
-    return _on_epochs(marked, table, roles.time, roles.date, night, profile, options), unused
+    return _placed(marked, table, roles.time, roles.date, night, profile, options, source), unused
+
+
+def _placed(marked: NDArray[np.bool_], table: pa.Table, roles_time: str | None, roles_date: str | None,
+            night: Night, profile: ImportProfile | None, options: NightOptions,
+            source: str | None) -> NDArray[np.bool_]:
+    """:func:`_on_epochs`, with a time it cannot place reported as a problem."""
+    from ..errors import InvalidNightError
+
+    try:
+        return _on_epochs(marked, table, roles_time, roles_date, night, profile, options)
+    except (ValueError, TypeError) as exc:
+        raise InvalidNightError([Problem("marker_times", f"the markers cannot be placed on the epochs: {exc}",
+                                         {"field": roles_time or "time"})], source=source) from None
 
 
 def parquet_markers(data: bytes, night: Night, options: NightOptions, profile: ImportProfile | None,
@@ -179,7 +196,7 @@ def parquet_markers(data: bytes, night: Night, options: NightOptions, profile: I
             keep = (index >= 0) & (index < night.n_epochs)
             out[index[keep]] = marked[keep]
             return out, unused
-    return _on_epochs(marked, table, roles.time, roles.date, night, profile, options), unused
+    return _placed(marked, table, roles.time, roles.date, night, profile, options, source), unused
 
 
 def json_markers(value: object, n_epochs: int, problems: list[Problem]) -> NDArray[np.bool_]:

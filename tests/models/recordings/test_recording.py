@@ -114,8 +114,12 @@ def test_length_limits() -> None:
     long = _frame(43 * day, epoch_seconds=60)  # 43 days > 42
     (problem,) = _problems(_csv(long))
     assert problem.code == "too_long" and "42 days" in problem.message
-    ok = read_recording(_csv(_frame(35 * day * 2)), participant_id="P")  # 35 days of 30-s epochs
+    month = _frame(35 * day * 2)  # 35 days of 30-s epochs
+    month["button"] = "0"
+    month.loc[100_790, "button"] = "x"  # a text mark long after the first megabyte of numbers
+    ok = read_recording(_csv(month), participant_id="P")
     assert ok.n_epochs == 100_800 and ok.days == pytest.approx(35.0)
+    assert np.flatnonzero(ok.markers).tolist() == [100_790]
 
 
 def test_json_problems_are_all_reported() -> None:
