@@ -55,17 +55,25 @@ def marker_values(col: pa.Array, row0: int, field: str, problems: list[Problem])
                                     f"{row0 + bad[0]}", {"field": field, "row": int(row0 + bad[0]),
                                                          "epoch": int(bad[0])}))
         return np.asarray(np.nan_to_num(values, nan=0.0) > 0, dtype=bool)
-    text = pd.Series(col.cast(pa.string()).to_pylist(), dtype=object).fillna("").str.strip().str.lower()
-    number = pd.to_numeric(text, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
-    words = text.to_numpy(dtype=object)
-    marked = np.isin(words, list(_TRUE)) | (number > 0)
-    unknown = ~(marked | np.isin(words, list(_FALSE)) | (number == 0))
-    if unknown.any():
-        bad = np.flatnonzero(unknown)
-        problems.append(Problem("invalid_marker", f"{bad.size} marker value(s) are neither a number nor true/false, "
-                                f"first {words[bad[0]]!r} at row {row0 + bad[0]}",
-                                {"field": field, "row": int(row0 + bad[0]), "epoch": int(bad[0]),
-                                 "values": [str(v) for v in words[bad[:5]]]}))
+    import pyarrow.compute as pc
+
+    text = pc.utf8_lower(pc.utf8_trim_whitespace(pc.fill_null(col.cast(pa.string()), "")))
+    off = np.asarray(pc.is_in(text, value_set=pa.array(sorted(_FALSE | {"0"}))).to_numpy(zero_copy_only=False))
+    on = np.asarray(pc.is_in(text, value_set=pa.array(sorted(_TRUE | {"1"}))).to_numpy(zero_copy_only=False))
+    marked = on.copy()
+    other = np.flatnonzero(~(on | off))  # numbers written otherwise (2, 1.0) and unknown words
+    if other.size:
+        words = np.asarray(text.take(pa.array(other)).to_pylist(), dtype=object)
+        number = pd.to_numeric(pd.Series(words, dtype=object), errors="coerce").to_numpy(dtype=np.float64,
+                                                                                          na_value=np.nan)
+        marked[other] = number > 0
+        bad = other[~(number >= 0)]
+        if bad.size:
+            first = str(words[np.searchsorted(other, bad[0])])
+            problems.append(Problem("invalid_marker", f"{bad.size} marker value(s) are neither a non-negative "
+                                    f"number nor true/false, first {first!r} at row {row0 + bad[0]}",
+                                    {"field": field, "row": int(row0 + bad[0]), "epoch": int(bad[0]),
+                                     "values": [str(words[np.searchsorted(other, i)]) for i in bad[:5]]}))
     return np.asarray(marked, dtype=bool)
 
 

@@ -73,6 +73,21 @@ def test_invalid_marker_is_located_by_row() -> None:
     assert problem.code == "invalid_marker"
     assert problem.location["row"] == 11  # header is line 1, epoch 0 is line 2
     assert "maybe" in problem.message
+    frame.loc[9, "marker"] = "-1"
+    assert _problems(_csv(frame))[0].location["row"] == 11
+    frame.loc[9, "marker"] = " TRUE "
+    frame.loc[12, "marker"] = "1.0"
+    assert np.flatnonzero(read_recording(_csv(frame), participant_id="P").markers).tolist() == [9, 12]
+
+
+def test_json_markers_as_booleans() -> None:
+    body = {"start": "2031-03-02T12:00:00+01:00", "epoch_seconds": 60, "counts": [3] * 120,
+            "markers": [False] * 119 + [True]}
+    rec = recording_from_json(body)
+    assert np.flatnonzero(rec.markers).tolist() == [119]
+    with pytest.raises(InvalidRecordingError) as info:
+        recording_from_json({**body, "markers": [True, False]})
+    assert info.value.problems[0].code == "markers_length"
 
 
 def test_json_csv_and_parquet_give_the_same_recording() -> None:
