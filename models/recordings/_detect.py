@@ -46,7 +46,7 @@ class DetectionConfig:
         Sleep offset ends the last run of sleep calls of at least this many minutes (shorter than
         the onset's: the morning's last sleep is often cut by brief movements; our design).
     p_threshold : float, default=0.5
-        With a model's sleep probability, an epoch is called sleep at or above this.
+        With a model's sleep probability, an epoch is called sleep at or above this (common practice).
     """
 
     median_minutes: float = 5.0

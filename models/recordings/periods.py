@@ -93,12 +93,17 @@ class PeriodConfig:
     nonwear : NonwearConfig
         Used when ``find_periods`` detects non-wear itself.
     diary_tolerance_minutes : float, default=30
+        A diary time this close to a detected boundary confirms it (common practice: diaries are
+        written in rounded clock times and from memory).
     marker_tolerance_minutes : float, default=30
+        A marker this close to a detected boundary replaces it (common practice).
     min_main_minutes : float, default=120
         Shortest rest block taken as a main period (common practice).
     nap_min_minutes : float, default=20
+        Shortest nap (common practice; 15-20 min are usual).
     nap_margin_minutes : float, default=30
-        A nap starts or ends at least this far from a main period.
+        A nap starts or ends at least this far from a main period (our design: sleep right beside
+        the main period belongs to it).
     nap_gap_minutes : float, default=5
         Wake calls up to this long inside a nap are bridged (a brief movement does not end a nap;
         common practice, as the merging of rest blocks).
