@@ -163,3 +163,18 @@ def test_aggregation_matches_pandas_resampling() -> None:
     with pytest.raises(InvalidRecordingError) as info:
         recording_to_epoch(minute, 30)
     assert info.value.problems[0].code == "epoch_length_mismatch"
+
+
+def test_preamble_and_metadata_lines_before_the_marker_header() -> None:
+    frame = _frame(240)
+    frame["button"] = "0"
+    frame.loc[[0, 239], "button"] = "1"
+    body = _csv(frame, "\t").decode()
+    text = "Device: wrist-07\nSerial: 123\n# label: night-x\n" + body
+    profile = ImportProfile(name="lab-b", skip_rows=2)
+    rec = read_recording(text.encode(), participant_id="P", profile=profile)
+    assert np.flatnonzero(rec.markers).tolist() == [0, 239]
+    frame.loc[5, "button"] = "?"
+    bad = "Device: wrist-07\nSerial: 123\n# label: night-x\n" + _csv(frame, "\t").decode()
+    (problem,) = _problems(bad.encode(), profile=profile)
+    assert problem.code == "invalid_marker" and problem.location["row"] == 10  # 3 lines, header, then epoch 5
