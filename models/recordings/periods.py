@@ -7,7 +7,8 @@ Detection (model-free, our design on published principles; thresholds in :class:
    non-wear (the principle of van Hees et al. 2018 carried over to counts).
 2. *Sleep calls* per epoch: a model's sleep probability ``p_sleep`` when given, else the share of
    moving epochs in a 10-min window (sleep moves in a few percent of its epochs, quiet wake in bed
-   in about a third).
+   in about a third); an epoch moves when its count is above zero, or above a low quantile of the
+   counts for a device whose counts never fall to zero (a noise floor).
 3. The *main period* of a noon-to-noon day (the day of the evening it starts) is its longest rest
    block (by its midpoint) that holds sleep and lasts at least ``min_main_minutes``; sleep onset is
    the first epoch of the first run of sleep calls of at least 10 min within it, sleep offset the
