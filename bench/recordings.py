@@ -78,7 +78,7 @@ def _overlaps(a: int, b: int, spans: list[tuple[int, int]]) -> bool:
 
 
 def _figures(sims: list[SimulatedRecording]) -> dict[str, float]:
-    errors: dict[str, list[float]] = {k: [] for k in ("onset", "offset", "onset_diary", "offset_diary")}
+    errors: dict[str, list[float]] = {k + d: [] for k in ("onset", "offset", "bed", "rise") for d in ("", "_diary")}
     naps_of = {"": [0, 0, 0, 0], "_diary": [0, 0, 0, 0]}  # tp, fn, hits, detected
     floor_total = floor_flagged = 0
     worn_total = flagged = sleep_total = sleep_flagged = 0
@@ -95,9 +95,11 @@ def _figures(sims: list[SimulatedRecording]) -> dict[str, float]:
                 if day.observable and day.date in mains:
                     errors["onset" + suffix].append(abs(mains[day.date].onset_epoch - day.onset_epoch) * minutes)
                     errors["offset" + suffix].append(abs(mains[day.date].offset_epoch - day.offset_epoch) * minutes)
+                    errors["bed" + suffix].append(abs(mains[day.date].start_epoch - day.bed_epoch) * minutes)
+                    errors["rise" + suffix].append(abs(mains[day.date].end_epoch - day.rise_epoch) * minutes)
                 elif day.observable:  # a day without a main period counts as a miss of a whole day
-                    errors["onset" + suffix].append(24 * 60.0)
-                    errors["offset" + suffix].append(24 * 60.0)
+                    for k in ("onset", "offset", "bed", "rise"):
+                        errors[k + suffix].append(24 * 60.0)
             true_off = [(a, b) for a, b, _ in sim.nonwear]
             naps = [(p.onset_epoch, p.offset_epoch) for p in periods if p.kind == "nap"]
             all_true = [n for day in sim.days for n in day.naps]
@@ -117,8 +119,11 @@ def _figures(sims: list[SimulatedRecording]) -> dict[str, float]:
                     floor_flagged += int(mask[a:b].sum())
         sleep_total += int(sim.sleep.sum())
         sleep_flagged += int((sim.sleep & mask).sum())
-    out = {f"{k.removesuffix('_diary')}_mae_min{'_diary' if k.endswith('_diary') else ''}": float(np.median(v))
-           for k, v in errors.items()}
+    out = {}
+    for k, v in errors.items():
+        name, diary = k.removesuffix("_diary"), "_diary" if k.endswith("_diary") else ""
+        out[f"{name}_mae_min{diary}"] = float(np.median(v))
+        out[f"{name}_p90_min{diary}"] = float(np.percentile(v, 90))
     for suffix, (tp, fn, hits, n_naps) in naps_of.items():
         out[f"nap_recall{suffix}"] = tp / max(tp + fn, 1)
         out[f"nap_precision{suffix}"] = hits / max(n_naps, 1)

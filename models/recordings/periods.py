@@ -27,7 +27,10 @@ Anchors, where the lab has them, set the rest interval (in bed):
   the diary when it holds sleep (source ``"diary"``).
 
 Onset and offset are searched over the union of the detected block and the anchored interval,
-and the rest interval widened to hold them. *Naps* are runs of sleep calls of at least
+and the rest interval widened to hold them; where the diary set a boundary, onset is the first
+persistent sleep after the diary's bed time (offset the last before its rise time), less a slack of
+``diary_slack_minutes`` for the diary's rounding, so quiet wake in bed after the bed time written
+down is never taken for sleep. *Naps* are runs of sleep calls of at least
 ``nap_min_minutes`` (20, common practice; wake calls up to 5 min bridged) outside the main
 periods (with a margin of 30 min),
 except a run without any movement right between moving minutes (a short spell off the wrist);
@@ -114,6 +117,10 @@ class PeriodConfig:
         A nap candidate without any movement whose zero run has at least this share of moving
         epochs in the ``spell_edge_minutes`` on both sides is a short spell off the wrist (taking a
         device off and putting it on moves it; settling into a nap is quiet). Our design.
+    diary_slack_minutes : float, default=15
+        Where the diary set the rest start (end), sleep onset (offset) is searched from this long
+        before its bed time (up to this long after its rise time) only; with no sleep there, over
+        the whole search span (our design: diaries are written in rounded times).
     """
 
     detection: DetectionConfig = field(default_factory=DetectionConfig)
@@ -126,6 +133,7 @@ class PeriodConfig:
     nap_gap_minutes: float = 5.0
     spell_edge_minutes: float = 2.0
     spell_edge_share: float = 0.75
+    diary_slack_minutes: float = 15.0
 
 
 def _day_of(recording: Recording, epoch: int) -> dt.date:
@@ -140,6 +148,7 @@ class _Main:
     search: tuple[int, int]
     source: str = "detected"
     conflicts: list[str] = field(default_factory=list)
+    diary_sides: set[str] = field(default_factory=set)
 
 
 def _anchor_markers(main: _Main, markers: NDArray[np.intp], tol: int) -> None:
@@ -158,11 +167,10 @@ def _anchor_diary(main: _Main, day: DiaryDay, recording: Recording, tol: int, pe
         at = recording.epoch_at(when)
         gap = abs(at - getattr(main, side))
         if gap <= tol:
-            if main.source == "detected":
+            if main.source in ("detected", "diary"):
                 setattr(main, side, at)
                 main.source = "diary"
-            elif main.source == "diary":
-                setattr(main, side, at)
+                main.diary_sides.add(side)
             main.search = (min(main.search[0], at), max(main.search[1], at))
         else:
             main.conflicts.append(f"diary {name} time {math.ceil(gap / per_min - 1e-9)} min from detected rest")
@@ -219,8 +227,15 @@ def find_periods(recording: Recording, *, diary: Sequence[DiaryDay] | None = Non
             if b - a >= config.min_main_minutes * per_min and sleep_bounds(calls, a, b, es, det) is not None:
                 mains[date] = _Main(a, b, (a, b), "diary")
     out: list[SleepPeriod] = []
+    slack = int(round(config.diary_slack_minutes * per_min))
     for date, main in mains.items():
-        bounds = sleep_bounds(calls, *main.search, es, det)
+        first, last = main.search
+        if "start" in main.diary_sides:  # sleep onset: the first persistent sleep after the diary's bed time
+            first = max(first, main.start - slack)
+        if "end" in main.diary_sides:  # sleep offset: the last before its rise time
+            last = min(last, main.end + slack)
+        bounds = sleep_bounds(calls, first, last, es, det) if last > first else None
+        bounds = bounds or sleep_bounds(calls, *main.search, es, det)
         if bounds is None:
             continue
         onset, offset = bounds

@@ -199,3 +199,38 @@ def test_a_device_with_a_noise_floor_gives_the_same_periods() -> None:
         evening, morning = day.isoformat(), (day + dt.timedelta(days=1)).isoformat()
         assert _minutes_off(rec, p.onset_epoch, f"{evening} 23:20") <= 10
         assert _minutes_off(rec, p.offset_epoch, f"{morning} 06:40") <= 10
+
+
+def test_hard_simulated_variants_onset_apart_from_bed_time() -> None:
+    from models.simulation.recordings import RecordingSpec, simulate_recordings
+
+    spec = RecordingSpec(n_participants=2, n_days=14, bed_wake_minutes=(10.0, 60.0), morning_still_minutes=(5.0, 30.0),
+                         gradual_minutes=45.0, noise_floor_rate=1.0, noise_offset_rate=0.5, diary_shift_rate=0.3)
+    errors: dict[bool, list[float]] = {False: [], True: []}
+    latency_found, latency_true = [], []
+    for sim in simulate_recordings(spec, seed=31):
+        for with_diary in (False, True):
+            mains = _mains(find_periods(sim.recording, diary=sim.diary if with_diary else None))
+            for day in sim.days:
+                if day.observable:
+                    p = mains[day.date]
+                    errors[with_diary] += [abs(p.onset_epoch - day.onset_epoch) / 2,
+                                           abs(p.offset_epoch - day.offset_epoch) / 2]
+                    if not with_diary:
+                        latency_found.append((p.onset_epoch - p.start_epoch) / 2)
+                        latency_true.append((day.onset_epoch - day.bed_epoch) / 2)
+    assert np.median(errors[True]) <= 10.0 and np.median(errors[False]) <= 15.0  # minutes, the goals
+    # quiet wake in bed: the found rest start lies well before the found onset, as in the truth
+    assert np.median(latency_true) >= 25 and abs(np.median(latency_found) - np.median(latency_true)) <= 10
+
+
+def test_diary_bed_time_bounds_the_onset_search() -> None:
+    rec = _made()
+    day = dt.date(2031, 5, 5)
+    base = _mains(find_periods(rec, nonwear=[]))[day]
+    # a diary bed time 20 min after the made sleep onset (23:20) moves the search: onset no earlier
+    # than the bed time written down less the 15-min slack
+    diary = [DiaryDay(date=day, bed_time=_t("2031-05-05 23:40"), rise_time=_t("2031-05-06 07:00"))]
+    p = _mains(find_periods(rec, nonwear=[], diary=diary))[day]
+    assert p.source == "diary" and p.start_epoch == rec.epoch_at(_t("2031-05-05 23:40"))
+    assert p.onset_epoch >= rec.epoch_at(_t("2031-05-05 23:25")) > base.onset_epoch
