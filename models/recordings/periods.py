@@ -22,7 +22,10 @@ Anchors, where the lab has them, set the rest interval (in bed):
 * a diary bed (rise) time within ``diary_tolerance_minutes`` (30) of the detected block's start
   (end) confirms it and the diary's time is used (source ``"diary"``, common practice: the diary
   is the lab's record of time in bed); a diary time farther away is reported as a conflict, e.g.
-  ``"diary bed time 70 min from detected rest"``, and detection is kept;
+  ``"diary bed time 70 min from detected rest"``, and detection is kept; except a bed time before
+  the detected rest (a rise time after it) within ``diary_quiet_minutes`` (90) across quiet wake
+  (at most ``diary_quiet_share`` of the epochs between move): reading or lying awake in bed,
+  which detection leaves out of rest, is in bed all the same (our design);
 * a day the diary gives bed and rise times for but detection finds no main period is taken from
   the diary when it holds sleep (source ``"diary"``).
 
@@ -121,6 +124,12 @@ class PeriodConfig:
         Where the diary set the rest start (end), sleep onset (offset) is searched from this long
         before its bed time (up to this long after its rise time) only; with no sleep there, over
         the whole search span (our design: diaries are written in rounded times).
+    diary_quiet_minutes : float, default=90
+    diary_quiet_share : float, default=0.6
+        A diary bed time before the detected rest (a rise time after it) farther than the
+        tolerance but within ``diary_quiet_minutes`` is still taken when at most this share of the
+        epochs between them move: quiet wake in bed (reading, lying awake) moves in a third to a
+        half of its 30-s epochs, sitting up awake in most (our design).
     """
 
     detection: DetectionConfig = field(default_factory=DetectionConfig)
@@ -134,6 +143,8 @@ class PeriodConfig:
     spell_edge_minutes: float = 2.0
     spell_edge_share: float = 0.75
     diary_slack_minutes: float = 15.0
+    diary_quiet_minutes: float = 90.0
+    diary_quiet_share: float = 0.6
 
 
 def _day_of(recording: Recording, epoch: int) -> dt.date:
@@ -160,13 +171,22 @@ def _anchor_markers(main: _Main, markers: NDArray[np.intp], tol: int) -> None:
             main.source = "marker"
 
 
-def _anchor_diary(main: _Main, day: DiaryDay, recording: Recording, tol: int, per_min: float) -> None:
+def _quiet_outside(main: _Main, side: str, at: int, moving: NDArray[np.bool_], far: int, share: float) -> bool:
+    """Whether ``at`` lies outside the block on ``side``, within ``far``, across quiet wake (few moving epochs)."""
+    span = moving[at: main.start] if side == "start" else moving[main.end: at]
+    gap = main.start - at if side == "start" else at - main.end
+    return 0 < gap <= far and span.size > 0 and float(np.mean(span)) <= share
+
+
+def _anchor_diary(main: _Main, day: DiaryDay, recording: Recording, tol: int, per_min: float,
+                  moving: NDArray[np.bool_], config: PeriodConfig) -> None:
+    far = int(config.diary_quiet_minutes * per_min)
     for side, when, name in (("start", day.bed_time, "bed"), ("end", day.rise_time, "rise")):
         if when is None:
             continue
         at = recording.epoch_at(when)
         gap = abs(at - getattr(main, side))
-        if gap <= tol:
+        if gap <= tol or _quiet_outside(main, side, at, moving, far, config.diary_quiet_share):
             if main.source in ("detected", "diary"):
                 setattr(main, side, at)
                 main.source = "diary"
@@ -221,7 +241,8 @@ def find_periods(recording: Recording, *, diary: Sequence[DiaryDay] | None = Non
     diary_days = {d.date: d for d in diary or ()}
     for date, entry in diary_days.items():
         if date in mains:
-            _anchor_diary(mains[date], entry, recording, int(config.diary_tolerance_minutes * per_min), per_min)
+            _anchor_diary(mains[date], entry, recording, int(config.diary_tolerance_minutes * per_min), per_min,
+                          worn & (counts > 0), config)
         elif entry.bed_time is not None and entry.rise_time is not None:
             a, b = recording.epoch_at(entry.bed_time), recording.epoch_at(entry.rise_time)
             if b - a >= config.min_main_minutes * per_min and sleep_bounds(calls, a, b, es, det) is not None:
