@@ -75,8 +75,8 @@ SETS = {
     "hard_tuned": (HARD, 7),
     "hard_check": (replace(HARD, id_prefix="RK"), 8),
     "hard_strong": (replace(HARD, bed_wake_minutes=(20.0, 60.0), morning_still_minutes=(10.0, 40.0),
-                            gradual_minutes=60.0, late_night_rate=0.25, noise_floor_rate=1.0, noise_offset_rate=0.6, bed_offwrist_rate=0.12,
-                            diary_shift_rate=0.5, id_prefix="RS"), 9),
+                            gradual_minutes=60.0, late_night_rate=0.25, noise_floor_rate=1.0, noise_offset_rate=0.6,
+                            bed_offwrist_rate=0.12, diary_shift_rate=0.5, id_prefix="RS"), 9),
 }
 #: goals per figure (with the diary: "_diary"); onset/offset <= 10 min with the diary, <= 15 without
 GOALS = {"onset_mae_min": 15.0, "offset_mae_min": 15.0, "onset_mae_min_diary": 10.0, "offset_mae_min_diary": 10.0,
