@@ -69,14 +69,17 @@ def awake_sides(counts: NDArray[np.float64], start: int, stop: int, edge: int, m
     return out[0], out[1]
 
 
-def floor_level(counts: NDArray[np.float64], *, zero_share: float = 0.2, peak_share: float = 0.25) -> float:
+def floor_level(counts: NDArray[np.float64], *, zero_share: float = 0.2, peak_share: float = 0.25,
+                max_share: float = 0.8) -> float:
     """A device's "zero": 0, or the top of its noise floor when few counts are exactly zero.
 
     A recording with at least ``zero_share`` exact zeros among its counts has no floor (0). Else the
     floor is read from the recording's own histogram of whole counts: still sleep and off-wrist time
     pile up on the floor's few values, so the most frequent count lies in it, and the floor reaches
     up through the next values as long as each is at least ``peak_share`` as frequent as that peak
-    (our design; noise of 1-3 counts gives 3, the same on an offset of 5 gives 8).
+    (our design; noise of 1-3 counts gives 3, the same on an offset of 5 gives 8). A "floor" under
+    more than ``max_share`` of the counts is no floor but a signal on too coarse a scale (counts
+    of a fraction of a unit): 0.
     """
     present = counts[np.isfinite(counts)]
     if present.size == 0 or float(np.mean(present == 0)) >= zero_share:
@@ -85,7 +88,7 @@ def floor_level(counts: NDArray[np.float64], *, zero_share: float = 0.2, peak_sh
     top = peak = int(np.argmax(freq))
     while top + 1 < freq.size and freq[top + 1] >= peak_share * freq[peak]:
         top += 1
-    return float(top)
+    return float(top) if float(np.mean(present <= top + 0.5)) <= max_share else 0.0
 
 
 def above_floor(counts: NDArray[np.float64], level: float) -> NDArray[np.float64]:

@@ -221,3 +221,11 @@ def test_simulated_noise_floor_devices_offwrist_found_and_sleep_left_alone() -> 
     assert long_total > 0
     assert long_found / long_total >= 0.95  # recall goal on the simulator's ground truth
     assert sleep_flagged / sleep_total <= 0.01
+
+
+def test_no_floor_read_from_a_signal_on_a_fraction_scale() -> None:
+    from models.recordings._runs import floor_level
+
+    rng = np.random.default_rng(3)
+    small = rng.gamma(1.0, 0.05, 5000) + 1e-3  # never zero, nearly all below half a count: no whole-count floor
+    assert floor_level(small) == 0.0
