@@ -47,7 +47,7 @@ class InvalidHmmError(NightbankError):
     code = "invalid_hmm"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class SleepWakeHmm:
     """A fitted two-state chain.
 
