@@ -89,7 +89,7 @@ def path_parameters(paths: ArrayLike, epoch_seconds: int, *, lights_off_idx: int
     start_c = start_c + 1
     ends = (v == 0) & np.concatenate([v[:, 1:] == 1, np.ones((n_paths, 1), dtype=bool)], axis=1)
     end_r, end_c = np.nonzero(ends)
-    after_onset = end_c > first[end_r]  # drops the end of the wake before the first sleep
+    after_onset = has_sleep[end_r] & (end_c > first[end_r])  # drops wake before the first sleep
     end_c = end_c[after_onset]
     lengths = end_c - start_c + 1
     counted = lengths >= protocol.min_awakening_epochs
