@@ -295,14 +295,20 @@ def viterbi(emissions: ArrayLike, transition: ArrayLike, initial: ArrayLike) -> 
         return np.zeros(0, dtype=np.int8)
     with np.errstate(divide="ignore"):
         log_e, log_a, log_pi = np.log(e), np.log(a), np.log(pi)
-    back = np.zeros((n, 2), dtype=np.int8)
-    score = log_pi + log_e[0]
-    for t in range(1, n):
-        cand = score[:, None] + log_a  # cand[i, j]: best path ending in i, then i -> j
-        back[t] = np.argmax(cand, axis=0)
-        score = cand[back[t], (0, 1)] + log_e[t]
+    back = np.zeros((n, 2), dtype=np.int8)  # back[t, j]: best state at t - 1 on the way to j at t
+    l00, l01, l10, l11 = (float(v) for v in log_a.ravel())
+    w, s = float(log_pi[0] + log_e[0, 0]), float(log_pi[1] + log_e[0, 1])
+    emit = log_e.tolist()
+    for t in range(1, n):  # plain floats: faster than 2-element numpy operations
+        from_w, from_s = w + l00, s + l10  # into wake
+        to_w = from_w if from_w >= from_s else from_s
+        back[t, 0] = from_w < from_s
+        from_w, from_s = w + l01, s + l11  # into sleep
+        to_s = from_w if from_w >= from_s else from_s
+        back[t, 1] = from_w < from_s
+        w, s = to_w + emit[t][0], to_s + emit[t][1]
     path = np.empty(n, dtype=np.int8)
-    path[-1] = int(np.argmax(score))
+    path[-1] = s > w
     for t in range(n - 1, 0, -1):
         path[t - 1] = back[t, path[t]]
     return path
