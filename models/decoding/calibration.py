@@ -21,7 +21,7 @@ Checks: :func:`brier_score` (mean squared error of the probability) and
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Literal, Protocol
 
 import numpy as np
@@ -113,7 +113,7 @@ class PlattCalibrator:
     max_iter: int = 100
     a_: float | None = None
     b_: float | None = None
-    method: str = "platt"
+    method: str = field(default="platt", init=False)
 
     def fit(self, p_sleep: ArrayLike, labels: ArrayLike) -> PlattCalibrator:
         """Fit on probabilities of shape (n_epochs,) and labels (1 = sleep, 0 = wake, NaN = unscored)."""
@@ -177,7 +177,7 @@ class IsotonicCalibrator:
 
     X_thresholds_: NDArray[np.float64] | None = None
     y_thresholds_: NDArray[np.float64] | None = None
-    method: str = "isotonic"
+    method: str = field(default="isotonic", init=False)
 
     def fit(self, p_sleep: ArrayLike, labels: ArrayLike) -> IsotonicCalibrator:
         """Fit on probabilities of shape (n_epochs,) and labels (1 = sleep, 0 = wake, NaN = unscored)."""

@@ -144,9 +144,10 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
     for point in _grid_points(grid):
         decoder = HmmDecoder(chain, **point)
         calls = [decoder.decode(p) for p in probs]
+        decoded = [params(c, k) for k, c in enumerate(calls)]
         errors: dict[str, float] = {}
         for name in _ERROR_PARAMETERS:
-            diffs = [abs(_number(params(c, k)[name]) - _number(truth[k][name])) for k, c in enumerate(calls)]
+            diffs = [abs(_number(d[name]) - _number(truth[k][name])) for k, d in enumerate(decoded)]
             errors[name] = float(np.nanmean(diffs)) if np.isfinite(diffs).any() else float("nan")
         objective = sum(errors[n] / margins[n] for n in _ERROR_PARAMETERS)
         ba = epoch_agreement(pooled_labels, np.concatenate(calls))["balanced_accuracy"]

@@ -6,12 +6,14 @@ the simulator's own stage sequence, computed into parameters by sleep_parameters
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
 from models.decoding.calibration import IsotonicCalibrator
 from models.decoding.decoders import HmmDecoder, ThresholdDecoder, make_decoder
-from models.decoding.hmm import fit_sleep_wake_hmm
+from models.decoding.hmm import SleepWakeHmm, fit_sleep_wake_hmm
 from models.decoding.tuning import tune_decoder
 from models.nights.night import stages_to_sleep
 from models.scoring.parameters import sleep_parameters
@@ -101,6 +103,11 @@ def test_decoders_keep_unscored_epochs_unscored() -> None:
         assert np.isnan(calls[[1, 4]]).all() and set(calls[[0, 2, 3]]) <= {0.0, 1.0}
         assert decoder.settings()["decoder"] in ("threshold", "hmm")
     np.testing.assert_array_equal(ThresholdDecoder(0.5).decode(p)[[0, 2, 3]], [1.0, 0.0, 1.0])
+    # a decoder is rebuilt from its JSON settings (and its chain's)
+    tuned = HmmDecoder(hmm, method="marginal", stickiness=2.0, emission_weight=0.5, threshold=0.4)
+    settings = json.loads(json.dumps(tuned.settings()))
+    again = make_decoder(settings.pop("decoder"), hmm=SleepWakeHmm.from_dict(hmm.to_dict()), **settings)
+    np.testing.assert_array_equal(again.decode(p), tuned.decode(p))
     with pytest.raises(ValueError, match="decoder must be one of"):
         make_decoder("argmax")
     with pytest.raises(ValueError, match="fitted chain"):
