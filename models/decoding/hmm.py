@@ -340,10 +340,9 @@ def sample_paths(emissions: ArrayLike, transition: ArrayLike, initial: ArrayLike
     if n == 0:
         return paths
     alpha, _ = _forward(e, a, pi)
-    u = rng.random((n, int(n_paths)))
-    paths[:, -1] = u[-1] < alpha[-1, 1]
-    for t in range(n - 2, -1, -1):
+    paths[:, -1] = rng.random(int(n_paths)) < alpha[-1, 1]
+    for t in range(n - 2, -1, -1):  # one uniform per path and epoch, drawn from the last epoch backwards
         nxt = paths[:, t + 1]
         to_sleep = alpha[t, 1] * a[1, nxt]  # P(s_t = sleep | x_1..t, s_t+1) up to the normaliser
-        paths[:, t] = u[t] * (alpha[t, 0] * a[0, nxt] + to_sleep) < to_sleep
+        paths[:, t] = rng.random(int(n_paths)) * (alpha[t, 0] * a[0, nxt] + to_sleep) < to_sleep
     return paths
