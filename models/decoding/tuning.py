@@ -1,0 +1,165 @@
+"""Choosing the HMM decoder's settings on inner nights.
+
+:func:`tune_decoder` tries every combination of a grid of :class:`~models.decoding.decoders.HmmDecoder`
+settings on the given (inner-fold) nights and keeps the one with the smallest parameter error
+among those whose pooled balanced accuracy reaches the floor. The error of a setting is
+
+``mean |awakenings error| / margin_awakenings + mean |WASO error| / margin_waso``
+
+over the nights, each parameter computed by :func:`models.scoring.parameters.sleep_parameters`
+under the study protocol on the decoded calls and on the labels, and scaled by the protocol's
+equivalence margin so that counts and minutes add up. When no setting reaches the floor, the
+setting of highest balanced accuracy is kept and ``floor_met`` is False. Ties keep the earlier
+grid point (grid order is the product of the grid's values in the order given).
+"""
+
+from __future__ import annotations
+
+import itertools
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from ..agreement.epoch_metrics import epoch_agreement
+from ..scoring.parameters import sleep_parameters
+from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
+from .decoders import HmmDecoder
+from .hmm import DEFAULT_PSEUDO_COUNT, InvalidHmmError, SleepWakeHmm, fit_sleep_wake_hmm
+
+__all__ = ["DEFAULT_DECODER_GRID", "DecoderChoice", "tune_decoder"]
+
+#: Settings tried by default (grid order: the product in this order).
+DEFAULT_DECODER_GRID: Mapping[str, Sequence[Any]] = {
+    "method": ("viterbi", "marginal"),
+    "stickiness": (0.5, 1.0, 2.0, 4.0),
+    "emission_weight": (0.5, 1.0),
+    "threshold": (0.5,),
+}
+_ERROR_PARAMETERS = ("awakenings", "waso_min")
+
+
+@dataclass(frozen=True)
+class DecoderChoice:
+    """The chosen settings and what every grid point scored.
+
+    Attributes
+    ----------
+    settings : dict
+        Keyword settings of the chosen :class:`HmmDecoder`.
+    decoder : HmmDecoder
+        The chosen decoder (with the chain it was tuned with).
+    objective : float
+        Its scaled parameter error (lower is better).
+    balanced_accuracy : float
+        Its pooled epoch balanced accuracy over the nights.
+    floor_met : bool
+        Whether any setting reached ``ba_floor``.
+    trials : list of dict
+        Per grid point: its settings, ``objective``, ``balanced_accuracy``, ``awakenings_mae``
+        and ``waso_mae_min``.
+    """
+
+    settings: dict[str, Any]
+    decoder: HmmDecoder
+    objective: float
+    balanced_accuracy: float
+    floor_met: bool
+    trials: list[dict[str, Any]]
+
+
+def _number(value: float | int | None) -> float:
+    return float("nan") if value is None else float(value)
+
+
+def _grid_points(grid: Mapping[str, Sequence[Any]]) -> list[dict[str, Any]]:
+    allowed = {"method", "threshold", "stickiness", "emission_weight"}
+    unknown = sorted(set(grid) - allowed)
+    if unknown or not grid or any(len(v) == 0 for v in grid.values()):
+        raise InvalidHmmError(f"grid must map {sorted(allowed)} to non-empty value lists; unknown: {unknown}")
+    names = list(grid)
+    return [dict(zip(names, values, strict=True)) for values in itertools.product(*(grid[n] for n in names))]
+
+
+def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Sequence[ArrayLike], *,
+                 protocol: StudyProtocol = DEFAULT_PROTOCOL, ba_floor: float = 0.6,
+                 grid: Mapping[str, Sequence[Any]] = DEFAULT_DECODER_GRID, epoch_seconds: int = 30,
+                 in_bed: Sequence[tuple[int, int]] | None = None, hmm: SleepWakeHmm | None = None,
+                 pseudo_count: float = DEFAULT_PSEUDO_COUNT) -> DecoderChoice:
+    """Pick HMM decoder settings on the given (inner) nights.
+
+    Parameters
+    ----------
+    p_sleep_per_night : sequence of array-like, each of shape (n_epochs,)
+        Calibrated P(sleep) per epoch (NaN = unscored).
+    labels_per_night : sequence of array-like, each of shape (n_epochs,)
+        Reference labels (1 = sleep, 0 = wake, NaN = unscored), same lengths.
+    protocol : StudyProtocol, default=DEFAULT_PROTOCOL
+        Parameter definitions and the margins that scale the errors.
+    ba_floor : float, default=0.6
+        Smallest acceptable pooled balanced accuracy, in [0, 1].
+    grid : mapping of str to sequence, default=DEFAULT_DECODER_GRID
+        Values per :class:`HmmDecoder` setting (``method``, ``threshold``, ``stickiness``,
+        ``emission_weight``).
+    epoch_seconds : {15, 30, 60}, default=30
+    in_bed : sequence of (int, int) or None, default=None
+        ``(lights_off_idx, lights_on_idx)`` per night; None = whole recordings.
+    hmm : SleepWakeHmm or None, default=None
+        The chain; None fits it on ``labels_per_night`` with ``pseudo_count``.
+    pseudo_count : float, default=DEFAULT_PSEUDO_COUNT
+
+    Returns
+    -------
+    DecoderChoice
+
+    Raises
+    ------
+    InvalidHmmError
+        For mismatched nights, an empty or unknown grid, or a ``ba_floor`` outside [0, 1].
+    """
+    n_nights = len(p_sleep_per_night)
+    if n_nights == 0 or len(labels_per_night) != n_nights or (in_bed is not None and len(in_bed) != n_nights):
+        raise InvalidHmmError("p_sleep_per_night, labels_per_night (and in_bed) must list the same nights (>= 1)")
+    if not 0.0 <= ba_floor <= 1.0:
+        raise InvalidHmmError(f"ba_floor must lie in [0, 1], got {ba_floor!r}")
+    probs = [np.asarray(p, dtype=np.float64) for p in p_sleep_per_night]
+    labels = [np.asarray(y, dtype=np.float64) for y in labels_per_night]
+    for k, (p, y) in enumerate(zip(probs, labels, strict=True)):
+        if p.shape != y.shape:
+            raise InvalidHmmError(f"night {k}: p_sleep {p.shape} and labels {y.shape} differ in shape")
+    bounds = list(in_bed) if in_bed is not None else [(0, p.size) for p in probs]
+    chain = hmm if hmm is not None else fit_sleep_wake_hmm(labels, pseudo_count=pseudo_count)
+    margins = protocol.equivalence_margins
+
+    def params(x: np.ndarray[Any, Any], k: int) -> dict[str, float | int | None]:
+        return sleep_parameters(x, epoch_seconds, lights_off_idx=bounds[k][0], lights_on_idx=bounds[k][1],
+                                protocol=protocol).as_dict()
+
+    truth = [params(y, k) for k, y in enumerate(labels)]
+    pooled_labels = np.concatenate(labels)
+    trials: list[dict[str, Any]] = []
+    decoders: list[HmmDecoder] = []
+    for point in _grid_points(grid):
+        decoder = HmmDecoder(chain, **point)
+        calls = [decoder.decode(p) for p in probs]
+        decoded = [params(c, k) for k, c in enumerate(calls)]
+        errors: dict[str, float] = {}
+        for name in _ERROR_PARAMETERS:
+            diffs = [abs(_number(d[name]) - _number(truth[k][name])) for k, d in enumerate(decoded)]
+            errors[name] = float(np.nanmean(diffs)) if np.isfinite(diffs).any() else float("nan")
+        objective = sum(errors[n] / margins[n] for n in _ERROR_PARAMETERS)
+        ba = epoch_agreement(pooled_labels, np.concatenate(calls))["balanced_accuracy"]
+        trials.append(point | {"objective": float(objective), "balanced_accuracy": float(ba),
+                               "awakenings_mae": errors["awakenings"], "waso_mae_min": errors["waso_min"]})
+        decoders.append(decoder)
+    ok = [i for i, t in enumerate(trials) if t["balanced_accuracy"] >= ba_floor and np.isfinite(t["objective"])]
+    if ok:
+        best = min(ok, key=lambda i: trials[i]["objective"])
+    else:
+        best = max(range(len(trials)), key=lambda i: np.nan_to_num(trials[i]["balanced_accuracy"], nan=-1.0))
+    chosen = trials[best]
+    return DecoderChoice(settings={k: chosen[k] for k in grid}, decoder=decoders[best],
+                         objective=chosen["objective"], balanced_accuracy=chosen["balanced_accuracy"],
+                         floor_met=bool(ok), trials=trials)
