@@ -20,8 +20,9 @@ from ..errors import NightbankError, Problem
 
 __all__ = ["PROFILE_COLUMN_ROLES", "PROFILE_STAGE_TARGETS", "ImportProfile", "InvalidProfileError"]
 
-#: column roles a profile may map; ``time`` alone or ``date`` + ``time`` (a date column and a time-of-day column)
-PROFILE_COLUMN_ROLES = ("date", "time", "counts", "reference")
+#: column roles a profile may map; ``time`` alone or ``date`` + ``time`` (a date column and a time-of-day column);
+#: ``marker`` (event-marker presses) is read by continuous recordings and left unused by nights
+PROFILE_COLUMN_ROLES = ("date", "time", "counts", "reference", "marker")
 #: codes a profile's ``stage_codes`` may map to: AASM stages, ``S`` (sleep of unknown stage), ``?`` (unscored)
 PROFILE_STAGE_TARGETS = ("W", "N1", "N2", "N3", "R", "S", "?")
 _DELIMITERS = (",", ";", "\t", "|")
