@@ -50,4 +50,5 @@ async def export_days(access: AnalystAccess, factory: FactoryDep,
                                    participant_id=participant)
     media = "text/csv" if format == "csv" else "application/vnd.apache.parquet"
     filename = f"{access.study_id}-days.{format}"
-    return Response(content=body, media_type=media, headers={"Content-Disposition": f'attachment; filename="{filename}"'})
+    return Response(content=body, media_type=media,
+                    headers={"Content-Disposition": f'attachment; filename="{filename}"'})
