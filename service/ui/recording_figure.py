@@ -10,6 +10,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import date, timedelta
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -144,7 +145,7 @@ def draw_recording(fig: Figure, panels: RecordingPanels) -> None:
     ax.tick_params(axis="y", length=0)
     for spine in ("top", "right"):
         ax.spines[spine].set_visible(False)
-    handles = [Patch(facecolor=_MAIN, alpha=0.35, label="main sleep period (a night)"),
+    handles: list[Any] = [Patch(facecolor=_MAIN, alpha=0.35, label="main sleep period (a night)"),
                Patch(facecolor=_NAP, alpha=0.5, label="nap"),
                Patch(facecolor=_PSG, label="PSG-labelled night"),
                Patch(facecolor=GREY, alpha=0.3, hatch="////", edgecolor=GREY, label="off the wrist"),
