@@ -8,6 +8,13 @@ from .demo_study import (
     demo_nights,
     write_demo_study,
 )
+from .recordings import (
+    RecordingSpec,
+    SimulatedDay,
+    SimulatedPsg,
+    SimulatedRecording,
+    simulate_recordings,
+)
 from .simulator import (
     CohortSpec,
     PersonTraits,
@@ -21,9 +28,14 @@ __all__ = [
     "DEMO_SEED",
     "DEMO_STUDY_ID",
     "PersonTraits",
+    "RecordingSpec",
+    "SimulatedDay",
     "SimulatedNight",
+    "SimulatedPsg",
+    "SimulatedRecording",
     "demo_nights",
     "simulate_cohort",
     "simulate_night",
+    "simulate_recordings",
     "write_demo_study",
 ]

@@ -1,0 +1,50 @@
+"""Runs of a boolean series and rolling statistics over epochs (shared by the recordings modules)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+__all__ = ["active_level", "close_gaps", "drop_short", "rolling_mean", "rolling_median", "runs"]
+
+
+def runs(mask: NDArray[np.bool_]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """(starts, stops) of the runs of True in ``mask``; stops exclusive."""
+    edges = np.diff(np.concatenate([[0], np.asarray(mask, dtype=np.int8), [0]]))
+    return np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+
+
+def drop_short(mask: NDArray[np.bool_], min_len: int) -> NDArray[np.bool_]:
+    """``mask`` without its runs of True shorter than ``min_len``."""
+    out = np.zeros(mask.size, dtype=bool)
+    for a, b in zip(*runs(mask), strict=True):
+        if b - a >= min_len:
+            out[a:b] = True
+    return out
+
+
+def close_gaps(mask: NDArray[np.bool_], max_gap: int) -> NDArray[np.bool_]:
+    """``mask`` with the runs of False of at most ``max_gap`` between two runs of True set True."""
+    out = np.asarray(mask, dtype=bool).copy()
+    starts, stops = runs(out)
+    for stop, start in zip(stops[:-1], starts[1:], strict=True):
+        if start - stop <= max_gap:
+            out[stop:start] = True
+    return out
+
+
+def rolling_median(values: NDArray[np.float64], width: int) -> NDArray[np.float64]:
+    """Centred rolling median over ``width`` epochs (NaN left out; shorter windows at the edges)."""
+    return np.asarray(pd.Series(values).rolling(width, center=True, min_periods=1).median(), dtype=np.float64)
+
+
+def rolling_mean(values: NDArray[np.float64], width: int) -> NDArray[np.float64]:
+    """Centred rolling mean over ``width`` epochs (NaN left out; shorter windows at the edges)."""
+    return np.asarray(pd.Series(values).rolling(width, center=True, min_periods=1).mean(), dtype=np.float64)
+
+
+def active_level(counts: NDArray[np.float64]) -> float:
+    """The person's typical moving-epoch level: the median of the non-zero counts (1 when there are none)."""
+    moving = counts[np.isfinite(counts) & (counts > 0)]
+    return float(np.median(moving)) if moving.size else 1.0

@@ -1,0 +1,215 @@
+"""Non-wear (off-wrist) intervals: the Choi zero-count rule, then the wrist context that tells still sleep apart.
+
+Step 1, candidates: the count rule of Choi et al. 2011 (Med Sci Sports Exerc 43:357; from memory),
+on the recording's own epochs. A candidate is a stretch of at least 90 min of zero counts that may
+contain interruptions of at most 2 min of non-zero counts, each allowed only when the 30 min before
+and the 30 min after it are all zero counts. The durations are converted to epochs (a 2-min
+allowance is 4 epochs of 30 s, 8 of 15 s); a missing epoch (NaN) counts as zero (nothing says the
+device was worn). The rule was derived for hip-worn devices, where still wear is rare.
+
+Step 2, wrist context. On the wrist, still sleep also gives long runs of zeros, so a candidate is
+kept as non-wear only on further evidence (our own design; thresholds are common practice unless
+a source is named):
+
+* ``long``: it lasts at least ``long_minutes`` (240 min), far beyond the still stretches of sleep,
+  which a postural shift or a small movement interrupts within the hour or two (common practice);
+* ``between active stretches``: the ``edge_minutes`` (10 min) on both sides are awake activity: at
+  least half of their epochs move (``edge_moving_share``) and their mean count is at least
+  ``active_fraction`` (0.1) of the person's moving level, the median of the recording's non-zero
+  counts. A device is taken off and put on by someone awake, whereas sleep is entered and left
+  through quiet wake with sparse small movements. A side at the recording's start or end counts as
+  active (a device lies switched on before and after it is worn);
+* ``flat``: at most ``flat_per_hour`` (1) non-zero epochs per hour inside: a device on a table is
+  exactly still; sleep's still stretches carry sparse small counts.
+
+A candidate counts as *at rest* when it lies mostly (at least half) inside a rest interval given
+by the caller (``rest``, e.g. detected main sleep periods) or, without one, in the person's rest
+hours: the 30-min clock bins whose mean count over the recording (candidates left out) is below
+``rest_fraction`` (0.2) of the median bin; bins the recording never covers fall back to the
+clock window ``night_hours`` (22:00-08:00 local). At rest a candidate needs more evidence: long,
+or between active stretches and flat. Out of rest it needs one of: long, one active side, flat.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ._runs import active_level, runs
+from .recording import Recording
+
+__all__ = ["NonwearConfig", "NonwearInterval", "choi_candidates", "detect_nonwear", "nonwear_mask"]
+
+
+@dataclass(frozen=True)
+class NonwearInterval:
+    """Epochs ``start_epoch .. end_epoch - 1`` off the wrist, with the evidence that decided it."""
+
+    start_epoch: int
+    end_epoch: int
+    reason: str
+
+
+@dataclass(frozen=True)
+class NonwearConfig:
+    """Thresholds of :func:`detect_nonwear` (documented defaults; sources in the module docstring).
+
+    Parameters
+    ----------
+    min_minutes : float, default=90
+        Shortest candidate (Choi et al. 2011).
+    spike_minutes : float, default=2
+        Longest allowed interruption of non-zero counts (Choi et al. 2011).
+    window_minutes : float, default=30
+        Zero-count window required before and after an interruption (Choi et al. 2011).
+    long_minutes : float, default=240
+        A candidate this long is non-wear whatever its context (common practice).
+    edge_minutes : float, default=10
+        Window on each side whose activity tells an abrupt edge (common practice).
+    edge_moving_share : float, default=0.5
+        An edge is active when at least this share of its epochs move ...
+    active_fraction : float, default=0.1
+        ... and its mean count is at least this share of the person's moving level.
+    flat_per_hour : float, default=1.0
+        At most this many non-zero epochs per hour make a candidate flat.
+    rest_fraction : float, default=0.2
+        A 30-min clock bin is a rest hour when its mean count is below this share of the median bin.
+    night_hours : tuple of int, default=(22, 8)
+        Local clock window taken as rest for bins the recording does not cover.
+    """
+
+    min_minutes: float = 90.0
+    spike_minutes: float = 2.0
+    window_minutes: float = 30.0
+    long_minutes: float = 240.0
+    edge_minutes: float = 10.0
+    edge_moving_share: float = 0.5
+    active_fraction: float = 0.1
+    flat_per_hour: float = 1.0
+    rest_fraction: float = 0.2
+    night_hours: tuple[int, int] = (22, 8)
+
+
+def choi_candidates(counts: NDArray[np.float64], epoch_seconds: int, *, min_minutes: float = 90.0,
+                    spike_minutes: float = 2.0, window_minutes: float = 30.0) -> list[tuple[int, int]]:
+    """Choi et al. 2011 non-wear periods on any epoch length, as ``(start, stop)`` epoch pairs.
+
+    Parameters
+    ----------
+    counts : ndarray of float64, shape (n_epochs,)
+        NaN (missing) counts as zero.
+    epoch_seconds : int
+    min_minutes, spike_minutes, window_minutes : float
+        Shortest period, longest interruption and the zero window on both sides of it.
+
+    Returns
+    -------
+    list of (int, int)
+        Stop exclusive; each period starts and ends with a zero epoch.
+    """
+    per_min = 60.0 / epoch_seconds
+    spike = int(round(spike_minutes * per_min))
+    window = int(round(window_minutes * per_min))
+    shortest = int(round(min_minutes * per_min))
+    zero = ~(np.asarray(counts) > 0)  # NaN compares False: missing counts as zero
+    starts, stops = runs(zero)
+    out: list[tuple[int, int]] = []
+    i = 0
+    while i < starts.size:
+        first, last = i, i
+        while last + 1 < starts.size and starts[last + 1] - stops[last] <= spike \
+                and stops[last] - starts[last] >= window and stops[last + 1] - starts[last + 1] >= window:
+            last += 1
+        if stops[last] - starts[first] >= shortest:
+            out.append((int(starts[first]), int(stops[last])))
+        i = last + 1
+    return out
+
+
+def _rest_hours(recording: Recording, candidates: list[tuple[int, int]], config: NonwearConfig) -> NDArray[np.bool_]:
+    """Per epoch: whether its 30-min clock bin is one of the person's rest hours (module docstring)."""
+    clock = recording.timestamps()
+    bins = np.asarray(clock.hour * 2 + clock.minute // 30)
+    counts = recording.counts.copy()
+    for a, b in candidates:
+        counts[a:b] = np.nan
+    ok = np.isfinite(counts)
+    total = np.bincount(bins[ok], weights=counts[ok], minlength=48)
+    n = np.bincount(bins[ok], minlength=48)
+    covered = n >= 60 * 60 // recording.epoch_seconds  # at least an hour of data in the bin
+    profile = np.where(covered, total / np.maximum(n, 1), np.nan)
+    start, stop = config.night_hours
+    hours = np.arange(48) / 2
+    night = (hours >= start) | (hours < stop) if start > stop else (hours >= start) & (hours < stop)
+    rest_bins = night.copy()
+    if covered.sum() >= 8:
+        rest_bins[covered] = profile[covered] < config.rest_fraction * float(np.median(profile[covered]))
+    return np.asarray(rest_bins[bins], dtype=bool)
+
+
+def detect_nonwear(recording: Recording, *, config: NonwearConfig = NonwearConfig(),
+                   rest: Sequence[tuple[int, int]] | None = None) -> list[NonwearInterval]:
+    """Off-wrist intervals of a recording (rule in the module docstring).
+
+    Parameters
+    ----------
+    recording : Recording
+    config : NonwearConfig
+    rest : sequence of (int, int), optional
+        Rest intervals (start, stop epochs); without them the clock window ``config.night_hours``
+        stands for rest.
+
+    Returns
+    -------
+    list of NonwearInterval
+        In time order, not overlapping.
+    """
+    counts = recording.counts
+    per_min = 60.0 / recording.epoch_seconds
+    level = active_level(counts)
+    edge = max(1, int(round(config.edge_minutes * per_min)))
+    candidates = choi_candidates(counts, recording.epoch_seconds, min_minutes=config.min_minutes,
+                                 spike_minutes=config.spike_minutes, window_minutes=config.window_minutes)
+    if rest is not None:
+        rest_mask = np.zeros(recording.n_epochs, dtype=bool)
+        for a, b in rest:
+            rest_mask[max(a, 0): max(b, 0)] = True
+    else:
+        rest_mask = _rest_hours(recording, candidates, config) if candidates else np.zeros(0, dtype=bool)
+    out = []
+    for a, b in candidates:
+        minutes = (b - a) / per_min
+        sides = [counts[max(0, a - edge): a], counts[b: b + edge]]
+        active = [side.size == 0 or (float(np.mean(side > 0)) >= config.edge_moving_share
+                                     and float(np.nanmean(side) if np.isfinite(side).any() else 0.0)
+                                     >= config.active_fraction * level) for side in sides]
+        moving = int(np.count_nonzero(counts[a:b] > 0))
+        flat = moving <= config.flat_per_hour * minutes / 60.0
+        at_rest = float(rest_mask[a:b].mean()) >= 0.5
+        evidence = []
+        if minutes >= config.long_minutes:
+            evidence.append("longer than still sleep lasts")
+        if all(active):
+            evidence.append("between active stretches")
+        elif any(active):
+            evidence.append("active on one side")
+        if flat:
+            evidence.append("flat")
+        keep = ("longer than still sleep lasts" in evidence
+                or ("between active stretches" in evidence and flat) if at_rest else bool(evidence))
+        if keep:
+            where = "at rest" if at_rest else "out of rest"
+            out.append(NonwearInterval(a, b, f"zero counts for {minutes:.0f} min (Choi rule), {where}: "
+                                       + ", ".join(evidence)))
+    return out
+
+
+def nonwear_mask(n_epochs: int, intervals: Sequence[NonwearInterval]) -> NDArray[np.bool_]:
+    """Boolean mask, shape (n_epochs,): True on the epochs of ``intervals``."""
+    mask = np.zeros(n_epochs, dtype=bool)
+    for iv in intervals:
+        mask[max(iv.start_epoch, 0): max(iv.end_epoch, 0)] = True
+    return mask
