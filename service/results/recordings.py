@@ -61,12 +61,23 @@ def conform_recording(recording: Recording, *, epoch_seconds: int, study_id: str
 
 
 def zone_of(info: store.RecordingInfo) -> str:
-    """The zone of a recording's local times: its IANA zone, else its start's UTC offset (``+01:00``)."""
+    """The IANA zone of a recording's local times: its own, else the fixed zone of its start's UTC offset.
+
+    Raises
+    ------
+    Unprocessable
+        Code ``time_zone_needed`` when the recording has no zone and its offset is not whole hours.
+    """
     if info.tz:
         return info.tz
     offset = info.start.utcoffset()
     minutes = 0 if offset is None else int(offset.total_seconds() // 60)
-    return f"{'+' if minutes >= 0 else '-'}{abs(minutes) // 60:02d}:{abs(minutes) % 60:02d}"
+    if minutes % 60:
+        message = (f"the recording's times carry the UTC offset {minutes / 60:+.2f} h and no time zone; give the "
+                   "zone of the diary's and reference's clock times as tz=<IANA zone>")
+        raise Unprocessable(message, code="time_zone_needed", problems=[Problem("time_zone_needed", message,
+                                                                               {"query": "tz"})])
+    return "UTC" if minutes == 0 else f"Etc/GMT{-minutes // 60:+d}"  # POSIX sign: Etc/GMT-2 is UTC+02:00
 
 
 def _write(factory: sessionmaker[Session], fn: Any) -> Any:
