@@ -1,11 +1,25 @@
-"""Continuous recordings: whole wear periods, diaries, non-wear, sleep periods and day summaries."""
+"""Continuous recordings: PSG hypnograms, clock alignment and sleep regularity across days."""
 
 from __future__ import annotations
 
+from .alignment import (
+    AlignmentConfig,
+    AlignmentError,
+    ClockAlignment,
+    estimate_clock_offset,
+)
 from .diary import (
     DiaryDay,
     InvalidDiaryError,
     read_diary,
+)
+from .hypnogram import (
+    HYPNOGRAM_EPOCH_SECONDS,
+    HYPNOGRAM_MAX_EPOCHS,
+    Hypnogram,
+    InvalidHypnogramError,
+    hypnogram_on_epochs,
+    read_hypnogram,
 )
 from .nonwear import (
     NonwearConfig,
@@ -24,10 +38,24 @@ from .recording import (
     recording_to_epoch,
     recording_to_json,
 )
+from .regularity import (
+    clock_mean_h,
+    clock_sd_h,
+    mid_sleep,
+    sleep_regularity_index,
+    social_jetlag_h,
+)
 
 __all__ = [
+    "AlignmentConfig",
+    "AlignmentError",
+    "ClockAlignment",
     "DiaryDay",
+    "HYPNOGRAM_EPOCH_SECONDS",
+    "HYPNOGRAM_MAX_EPOCHS",
+    "Hypnogram",
     "InvalidDiaryError",
+    "InvalidHypnogramError",
     "InvalidRecordingError",
     "NonwearConfig",
     "NonwearInterval",
@@ -35,11 +63,19 @@ __all__ = [
     "RECORDING_MIN_HOURS",
     "Recording",
     "choi_candidates",
+    "clock_mean_h",
+    "clock_sd_h",
     "detect_nonwear",
+    "estimate_clock_offset",
+    "hypnogram_on_epochs",
+    "mid_sleep",
     "nonwear_mask",
     "read_diary",
+    "read_hypnogram",
     "read_recording",
     "recording_from_json",
     "recording_to_epoch",
     "recording_to_json",
+    "sleep_regularity_index",
+    "social_jetlag_h",
 ]
