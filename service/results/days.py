@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import mid_sleep, sleep_regularity_index, social_jetlag_h
+from models import clock_mean_h, clock_sd_h, mid_sleep, sleep_regularity_index, social_jetlag_h
 
 from ..errors import Unprocessable
 from ..store import recordings as store
@@ -137,10 +137,8 @@ def day_table(factory: sessionmaker[Session], info: store.RecordingInfo, *, stud
     return rows, sleep, valid, used
 
 
-def _clock_h(ts: pd.Timestamp) -> float:
-    """Hours after midnight of a local time, evening times negative (-12 .. 12)."""
-    hours = ts.hour + ts.minute / 60 + ts.second / 3600
-    return hours - 24 if hours >= 12 else hours
+def _finite(value: float) -> float | None:
+    return float(value) if math.isfinite(value) else None
 
 
 def _summary(info: store.RecordingInfo, rows: list[dict[str, Any]], sleep: np.ndarray,
@@ -154,20 +152,18 @@ def _summary(info: store.RecordingInfo, rows: list[dict[str, Any]], sleep: np.nd
     mids, free = [], []
     for r in rows:
         if r["sleep_onset"] is not None and r["sleep_offset"] is not None:
-            mids.append(mid_sleep(r["sleep_onset"], r["sleep_offset"]))
+            mids.append(mid_sleep(r["sleep_onset"], r["sleep_offset"]).tz_convert(info.start.tz))
             free.append(date.fromisoformat(r["date"]).weekday() in FREE_EVENINGS)
-    clock = np.array([_clock_h(pd.Timestamp(m).tz_convert(info.start.tz)) for m in mids])
-    out["mid_sleep_clock_h"] = {"mean": float(clock.mean()) % 24 if clock.size else None,
-                                "sd_min": float(clock.std(ddof=1) * 60) if clock.size > 1 else None}
-    jetlag = social_jetlag_h(mids, np.array(free, dtype=bool)) if mids and any(free) and not all(free) else None
-    out["social_jetlag_h"] = None if jetlag is None or not math.isfinite(jetlag) else float(jetlag)
+    mean_h, sd_h = clock_mean_h(mids), clock_sd_h(mids)
+    out["mid_sleep_clock_h"] = {"mean": _finite(mean_h), "sd_min": None if len(mids) < 2 else _finite(sd_h * 60)}
+    out["social_jetlag_h"] = _finite(social_jetlag_h(mids, np.array(free, dtype=bool))) if mids else None
     day0 = _days(info)[0]
     first = _day_epochs(info, day0 + timedelta(days=1) if info.start > _noon(info, day0) else day0)[0]
     per_day = 86400 // info.epoch_seconds
     whole = (info.n_epochs - first) // per_day * per_day
     sri = (sleep_regularity_index(np.nan_to_num(sleep[first:first + whole]), epoch_seconds=info.epoch_seconds,
                                   valid=valid[first:first + whole]) if whole >= 2 * per_day else math.nan)
-    out["sri"] = None if not math.isfinite(sri) else float(sri)
+    out["sri"] = _finite(sri)
     return out
 
 
@@ -181,7 +177,7 @@ def _definitions(used: str, method: str) -> dict[str, Any]:
         "sleep_onset_offset": "first and last sleep epoch the method scored within the rest interval",
         "naps": "nap periods of the day; minutes from their first to last sleep epoch",
         "nonwear": "minutes of the day detected off the wrist",
-        "mid_sleep": "halfway between sleep onset and offset",
+        "mid_sleep": "halfway between sleep onset and offset; mean and SD on the 24-h circle",
         "social_jetlag": "mid-sleep on free days (nights before Saturday and Sunday) minus work days, hours",
         "sri": "Sleep Regularity Index (Phillips et al. 2017) over the recording's whole days",
     }
