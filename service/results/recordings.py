@@ -188,15 +188,17 @@ def post_reference(factory: sessionmaker[Session], *, study_id: str, participant
         info, recording, diary = store.load_recording(session, study_id=study_id, participant_id=participant_id,
                                                       recording_id=recording_id)
     hypnogram = read_hypnogram(body, fmt=fmt, profile=layout, tz=tz or zone_of(info))
-    quality = None
+    quality, given = None, clock_offset_s is not None
     if clock_offset_s is None:
         found = _aligned(recording, hypnogram)
-        quality = float(found.quality)
-        if found.weak or found.at_edge:
+        quality = float(found.quality) if np.isfinite(found.quality) else None
+        if found.weak or found.at_edge or quality is None:
             code = "alignment_at_edge" if found.at_edge else "alignment_weak"
+            shown = "undefined" if quality is None else f"{quality:.2f}"
             why = (f"the best clock offset, {found.clock_offset_s:+.0f} s, is at the edge of the ±"
                    f"{found.searched_s:.0f}-s search" if found.at_edge else
-                   f"movement and PSG wake agree too little to place the reference (quality {quality:.2f})")
+                   f"movement and PSG wake agree too little to place the reference (quality {shown}; "
+                   f"{', '.join(found.reasons).replace('_', ' ') or 'weak'})")
             message = f"{why}; post it again with clock_offset_s=<seconds> if the offset is known"
             raise Unprocessable(message, code=code, problems=[Problem(code, message, {"query": "clock_offset_s"})])
         clock_offset_s = float(found.clock_offset_s)
@@ -230,7 +232,7 @@ def post_reference(factory: sessionmaker[Session], *, study_id: str, participant
 
     _write(factory, write)
     return ReferenceResult(night_id=night.night.night_id, clock_offset_s=float(clock_offset_s),
-                           alignment_quality=quality, offset_given=quality is None, qc=night.qc)
+                           alignment_quality=quality, offset_given=given, qc=night.qc)
 
 
 def period_items(info: store.RecordingInfo) -> list[dict[str, Any]]:
