@@ -1,4 +1,4 @@
-"""Continuous recordings: PSG hypnograms, clock alignment and sleep regularity across days."""
+"""Continuous recordings: whole wear periods, diaries, non-wear, sleep periods and day summaries."""
 
 from __future__ import annotations
 
@@ -28,6 +28,13 @@ from .nonwear import (
     detect_nonwear,
     nonwear_mask,
 )
+from .periods import (
+    DetectionConfig,
+    PeriodConfig,
+    SleepPeriod,
+    find_periods,
+    period_night,
+)
 from .recording import (
     RECORDING_MAX_DAYS,
     RECORDING_MIN_HOURS,
@@ -50,6 +57,7 @@ __all__ = [
     "AlignmentConfig",
     "AlignmentError",
     "ClockAlignment",
+    "DetectionConfig",
     "DiaryDay",
     "HYPNOGRAM_EPOCH_SECONDS",
     "HYPNOGRAM_MAX_EPOCHS",
@@ -59,17 +67,21 @@ __all__ = [
     "InvalidRecordingError",
     "NonwearConfig",
     "NonwearInterval",
+    "PeriodConfig",
     "RECORDING_MAX_DAYS",
     "RECORDING_MIN_HOURS",
     "Recording",
+    "SleepPeriod",
     "choi_candidates",
     "clock_mean_h",
     "clock_sd_h",
     "detect_nonwear",
     "estimate_clock_offset",
+    "find_periods",
     "hypnogram_on_epochs",
     "mid_sleep",
     "nonwear_mask",
+    "period_night",
     "read_diary",
     "read_hypnogram",
     "read_recording",

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-__all__ = ["active_level", "close_gaps", "drop_short", "rolling_mean", "rolling_median", "runs"]
+__all__ = ["active_level", "awake_sides", "close_gaps", "drop_short", "rolling_mean", "rolling_median", "runs"]
 
 
 def runs(mask: NDArray[np.bool_]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
@@ -48,3 +48,21 @@ def active_level(counts: NDArray[np.float64]) -> float:
     """The person's typical moving-epoch level: the median of the non-zero counts (1 when there are none)."""
     moving = counts[np.isfinite(counts) & (counts > 0)]
     return float(np.median(moving)) if moving.size else 1.0
+
+
+def awake_sides(counts: NDArray[np.float64], start: int, stop: int, edge: int, moving_share: float,
+                min_mean: float) -> tuple[bool, bool]:
+    """Whether the ``edge`` epochs before ``start`` and after ``stop`` look awake.
+
+    Awake: at least ``moving_share`` of the epochs move and the mean count is at least ``min_mean``.
+    A side beyond the recording's start or end counts as awake.
+    """
+    out = []
+    for side in (counts[max(0, start - edge): start], counts[stop: stop + edge]):
+        if side.size == 0:
+            out.append(True)
+            continue
+        present = side[np.isfinite(side)]
+        out.append(bool(present.size) and float(np.mean(present > 0)) >= moving_share
+                   and float(np.mean(present)) >= min_mean)
+    return out[0], out[1]

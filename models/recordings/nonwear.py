@@ -38,7 +38,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from ._runs import active_level, runs
+from ._runs import active_level, awake_sides, runs
 from .recording import Recording
 
 __all__ = ["NonwearConfig", "NonwearInterval", "choi_candidates", "detect_nonwear", "nonwear_mask"]
@@ -182,10 +182,7 @@ def detect_nonwear(recording: Recording, *, config: NonwearConfig = NonwearConfi
     out = []
     for a, b in candidates:
         minutes = (b - a) / per_min
-        sides = [counts[max(0, a - edge): a], counts[b: b + edge]]
-        active = [side.size == 0 or (float(np.mean(side > 0)) >= config.edge_moving_share
-                                     and float(np.nanmean(side) if np.isfinite(side).any() else 0.0)
-                                     >= config.active_fraction * level) for side in sides]
+        active = awake_sides(counts, a, b, edge, config.edge_moving_share, config.active_fraction * level)
         moving = int(np.count_nonzero(counts[a:b] > 0))
         flat = moving <= config.flat_per_hour * minutes / 60.0
         at_rest = float(rest_mask[a:b].mean()) >= 0.5
