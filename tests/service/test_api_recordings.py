@@ -216,7 +216,7 @@ def test_a_hypnogram_that_cannot_be_placed_is_refused_unless_the_offset_is_given
     assert refused.status_code == 422
     assert refused.json()["code"] in ("alignment_weak", "alignment_at_edge")
     assert refused.json()["problems"][0]["location"] == {"query": "clock_offset_s"}
-    assert http.get(f"/v1/studies/{STUDY}/participants/P-01").json()["n_labelled_nights"] == 0  # nothing stored
+    assert http.get(f"/v1/studies/{STUDY}/participants").json()["data"][0]["n_labelled_nights"] == 0  # none stored
     given = post_text(http, recordings_url("P-01", rid, "reference"), hypnogram_csv(psg),
                       clock_offset_s=psg.clock_offset_s)
     assert given.status_code == 200, given.text
