@@ -113,8 +113,8 @@ def test_ui_recording_page_shows_days_periods_and_links_each_night(tab, site) ->
     t.page.wait_for_url(re.compile(r".*day_start=midnight"))
     t.page.wait_for_load_state("networkidle")
     assert t.page.eval_on_selector("#recording-figure img", "i => i.complete && i.naturalWidth > 0")
-    assert "from midnight" in ET.tostring(ET.fromstring(t.page.request.get(
-        t.page.get_attribute("#recording-figure img", "src")).body()), encoding="unicode")
+    src = site.url + t.page.get_attribute("#recording-figure img", "src")
+    assert "from midnight" in ET.tostring(ET.fromstring(t.page.request.get(src).body()), encoding="unicode")
 
     t.page.locator("#days-table tbody a").first.click()
     t.page.wait_for_load_state("networkidle")
