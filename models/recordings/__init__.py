@@ -8,6 +8,13 @@ from .alignment import (
     ClockAlignment,
     estimate_clock_offset,
 )
+from .days import (
+    DayRow,
+    RecordingSummary,
+    day_rows,
+    recording_summary,
+    sleep_state,
+)
 from .diary import (
     DiaryDay,
     InvalidDiaryError,
@@ -57,6 +64,7 @@ __all__ = [
     "AlignmentConfig",
     "AlignmentError",
     "ClockAlignment",
+    "DayRow",
     "DetectionConfig",
     "DiaryDay",
     "HYPNOGRAM_EPOCH_SECONDS",
@@ -71,10 +79,12 @@ __all__ = [
     "RECORDING_MAX_DAYS",
     "RECORDING_MIN_HOURS",
     "Recording",
+    "RecordingSummary",
     "SleepPeriod",
     "choi_candidates",
     "clock_mean_h",
     "clock_sd_h",
+    "day_rows",
     "detect_nonwear",
     "estimate_clock_offset",
     "find_periods",
@@ -86,8 +96,10 @@ __all__ = [
     "read_hypnogram",
     "read_recording",
     "recording_from_json",
+    "recording_summary",
     "recording_to_epoch",
     "recording_to_json",
     "sleep_regularity_index",
+    "sleep_state",
     "social_jetlag_h",
 ]

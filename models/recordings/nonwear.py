@@ -19,15 +19,19 @@ a source is named):
   counts. A device is taken off and put on by someone awake, whereas sleep is entered and left
   through quiet wake with sparse small movements. A side at the recording's start or end counts as
   active (a device lies switched on before and after it is worn);
-* ``flat``: at most ``flat_per_hour`` (1) non-zero epochs per hour inside: a device on a table is
+* ``flat``: at most ``flat_per_hour`` (0.25) non-zero epochs per hour inside: a device on a table is
   exactly still; sleep's still stretches carry sparse small counts.
 
 A candidate counts as *at rest* when it lies mostly (at least half) inside a rest interval given
 by the caller (``rest``, e.g. detected main sleep periods) or, without one, in the person's rest
 hours: the 30-min clock bins whose mean count over the recording (candidates left out) is below
 ``rest_fraction`` (0.2) of the median bin; bins the recording never covers fall back to the
-clock window ``night_hours`` (22:00-08:00 local). At rest a candidate needs more evidence: long,
-or between active stretches and flat. Out of rest it needs one of: long, one active side, flat.
+clock window ``night_hours`` (22:00-08:00 local). At rest a candidate needs more evidence: flat,
+and long or between active stretches (Choi's allowances can chain a very still sleeper's night into
+hours of "zeros", but such a stretch still carries its sparse movements; its longest run of exact
+zeros, when it lasts the minimum, is judged on its own). Out of rest it needs to
+be long or to have an active side (flatness alone is not enough: a very still sleeper gives flat
+stretches early in the night, when the bins of the rest hours still mix evenings awake and asleep).
 """
 
 from __future__ import annotations
@@ -73,8 +77,8 @@ class NonwearConfig:
         An edge is active when at least this share of its epochs move ...
     active_fraction : float, default=0.1
         ... and its mean count is at least this share of the person's moving level.
-    flat_per_hour : float, default=1.0
-        At most this many non-zero epochs per hour make a candidate flat.
+    flat_per_hour : float, default=0.25
+        At most this many non-zero epochs per hour make a candidate flat (one bump in four hours; our design).
     rest_fraction : float, default=0.2
         A 30-min clock bin is a rest hour when its mean count is below this share of the median bin.
     night_hours : tuple of int, default=(22, 8)
@@ -88,7 +92,7 @@ class NonwearConfig:
     edge_minutes: float = 10.0
     edge_moving_share: float = 0.5
     active_fraction: float = 0.1
-    flat_per_hour: float = 1.0
+    flat_per_hour: float = 0.25
     rest_fraction: float = 0.2
     night_hours: tuple[int, int] = (22, 8)
 
@@ -181,27 +185,37 @@ def detect_nonwear(recording: Recording, *, config: NonwearConfig = NonwearConfi
         rest_mask = _rest_hours(recording, candidates, config) if candidates else np.zeros(0, dtype=bool)
     out = []
     for a, b in candidates:
-        minutes = (b - a) / per_min
-        active = awake_sides(counts, a, b, edge, config.edge_moving_share, config.active_fraction * level)
-        moving = int(np.count_nonzero(counts[a:b] > 0))
-        flat = moving <= config.flat_per_hour * minutes / 60.0
         at_rest = float(rest_mask[a:b].mean()) >= 0.5
-        evidence = []
-        if minutes >= config.long_minutes:
-            evidence.append("longer than still sleep lasts")
-        if all(active):
-            evidence.append("between active stretches")
-        elif any(active):
-            evidence.append("active on one side")
-        if flat:
-            evidence.append("flat")
-        keep = ("longer than still sleep lasts" in evidence
-                or ("between active stretches" in evidence and flat) if at_rest else bool(evidence))
-        if keep:
-            where = "at rest" if at_rest else "out of rest"
-            out.append(NonwearInterval(a, b, f"zero counts for {minutes:.0f} min (Choi rule), {where}: "
-                                       + ", ".join(evidence)))
+        found = _judge(counts, a, b, at_rest, per_min, edge, level, config)
+        if found is None and at_rest:  # the flat core of a chained candidate may still be off the wrist
+            starts, stops = runs(~(counts[a:b] > 0))
+            k = int(np.argmax(stops - starts))
+            if (stops[k] - starts[k]) >= config.min_minutes * per_min:
+                found = _judge(counts, a + int(starts[k]), a + int(stops[k]), True, per_min, edge, level, config)
+        if found is not None:
+            out.append(found)
     return out
+
+
+def _judge(counts: NDArray[np.float64], a: int, b: int, at_rest: bool, per_min: float, edge: int, level: float,
+           config: NonwearConfig) -> NonwearInterval | None:
+    """The candidate ``[a, b)`` as non-wear with its evidence, or None (rule in the module docstring)."""
+    minutes = (b - a) / per_min
+    active = awake_sides(counts, a, b, edge, config.edge_moving_share, config.active_fraction * level)
+    flat = int(np.count_nonzero(counts[a:b] > 0)) <= config.flat_per_hour * minutes / 60.0
+    long = minutes >= config.long_minutes
+    evidence = ["longer than still sleep lasts"] if long else []
+    if all(active):
+        evidence.append("between active stretches")
+    elif any(active):
+        evidence.append("active on one side")
+    if flat:
+        evidence.append("flat")
+    keep = flat and (long or all(active)) if at_rest else long or any(active)
+    if not keep:
+        return None
+    where = "at rest" if at_rest else "out of rest"
+    return NonwearInterval(a, b, f"zero counts for {minutes:.0f} min (Choi rule), {where}: " + ", ".join(evidence))
 
 
 def nonwear_mask(n_epochs: int, intervals: Sequence[NonwearInterval]) -> NDArray[np.bool_]:

@@ -227,7 +227,7 @@ def _participant(rng: np.random.Generator, spec: RecordingSpec, pid: str) -> Sim
             i = next(i for i, day in enumerate(days) if day.bed_epoch <= a < day.rise_epoch)
             days[i] = replace(days[i], observable=False)
     recording = Recording(participant_id=pid, start=day0, epoch_seconds=_EPOCH, counts=counts, markers=markers,
-                          source_name=f"{pid}.csv")
+                          source_name=f"simulated-{pid}.csv")
     diary_csv = _diary_csv(rng, spec, day0, days)
     diary = read_diary(diary_csv.encode(), tz=spec.tz)
     psg = _psg(rng, spec, day0, stages_of, days)

@@ -1,0 +1,201 @@
+"""Continuous recordings on SIMULATED data: sleep periods, naps, non-wear and the time to ingest and summarise.
+
+Two sets of simulated 28-day recordings (:mod:`models.simulation.recordings`):
+
+- ``main``: ``RecordingSpec(n_participants=6)``, seed 20310505 (the set the thresholds were tuned on);
+- ``second``: ``RecordingSpec(n_participants=6, spread=1.4, nap_rate=0.35, offwrist_rate=0.35,
+  diary_error_min=15, id_prefix="RV")``, seed 424242, wider person-to-person differences and more
+  naps and off-wrist time, not used while tuning.
+
+Figures per set (days whose main period the device saw, i.e. not taken off during the night):
+
+- ``onset_mae_min`` / ``offset_mae_min``: median absolute error of the main period's sleep onset and
+  offset against the truth, without and with the diary (``*_diary``);
+- ``nap_recall`` / ``nap_precision``: true naps of at least 20 min sleep (off-wrist-free) found by a
+  detected nap overlapping them; detected naps overlapping a true nap or doze;
+- ``nonwear_recall``: share of the epochs of true off-wrist intervals of at least 90 min (the
+  shortest the Choi rule can see) flagged; ``sleep_flagged_pct``: share of true sleep epochs flagged;
+- ``psg_clock_offset_mae_s`` (only when ``models.recordings.alignment`` is present): mean absolute
+  error of the estimated PSG clock offsets.
+
+Speed: ``ingest_detect_summarise_s`` reads one 28-day recording from CSV bytes, detects non-wear
+and periods, builds and scores each main period's night with Cole-Kripke, and summarises (median
+of 3 runs).
+
+Goals: onset MAE <= 10 min and offset MAE <= 15 min, with and without the diary; nap recall and
+precision >= 0.8; non-wear recall >= 0.95 with <= 1 % of true sleep flagged; <= 5 s. The last
+printed line is one JSON object.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from models.recordings import (  # noqa: E402
+    day_rows,
+    detect_nonwear,
+    find_periods,
+    nonwear_mask,
+    period_night,
+    read_recording,
+    recording_summary,
+    sleep_state,
+)
+from models.scoring import score_with_rule, sleep_parameters  # noqa: E402
+from models.simulation.recordings import RecordingSpec, SimulatedRecording, simulate_recordings  # noqa: E402
+
+SETS = {
+    "main": (RecordingSpec(n_participants=6), 20310505),
+    "second": (RecordingSpec(n_participants=6, spread=1.4, nap_rate=0.35, offwrist_rate=0.35, diary_error_min=15.0,
+                             id_prefix="RV"), 424242),
+}
+GOALS = {"onset_mae_min": 10.0, "offset_mae_min": 15.0, "nap_recall": 0.8, "nap_precision": 0.8,
+         "nonwear_recall": 0.95, "sleep_flagged_pct": 1.0, "ingest_detect_summarise_s": 5.0}
+
+
+def _overlaps(a: int, b: int, spans: list[tuple[int, int]]) -> bool:
+    return any(x < b and a < y for x, y in spans)
+
+
+def _figures(sims: list[SimulatedRecording]) -> dict[str, float]:
+    errors: dict[str, list[float]] = {k: [] for k in ("onset", "offset", "onset_diary", "offset_diary")}
+    tp = fn = hits = n_naps = 0
+    worn_total = flagged = sleep_total = sleep_flagged = 0
+    for sim in sims:
+        rec = sim.recording
+        minutes = rec.epoch_seconds / 60.0
+        nonwear = detect_nonwear(rec)
+        mask = nonwear_mask(rec.n_epochs, nonwear)
+        for with_diary in (False, True):
+            periods = find_periods(rec, diary=sim.diary if with_diary else None, nonwear=nonwear)
+            mains = {p.day: p for p in periods if p.kind == "main"}
+            suffix = "_diary" if with_diary else ""
+            for day in sim.days:
+                if day.observable and day.date in mains:
+                    errors["onset" + suffix].append(abs(mains[day.date].onset_epoch - day.onset_epoch) * minutes)
+                    errors["offset" + suffix].append(abs(mains[day.date].offset_epoch - day.offset_epoch) * minutes)
+                elif day.observable:  # a day without a main period counts as a miss of a whole day
+                    errors["onset" + suffix].append(24 * 60.0)
+                    errors["offset" + suffix].append(24 * 60.0)
+            if with_diary:
+                continue
+            true_off = [(a, b) for a, b, _ in sim.nonwear]
+            naps = [(p.onset_epoch, p.offset_epoch) for p in periods if p.kind == "nap"]
+            all_true = [n for day in sim.days for n in day.naps]
+            for a, b in all_true:
+                if (b - a) * minutes >= 20 and not _overlaps(a, b, true_off):
+                    tp, fn = (tp + 1, fn) if _overlaps(a, b, naps) else (tp, fn + 1)
+            hits += sum(_overlaps(a, b, all_true) for a, b in naps)
+            n_naps += len(naps)
+        for a, b, _ in sim.nonwear:
+            if (b - a) * minutes >= 90:
+                worn_total += b - a
+                flagged += int(mask[a:b].sum())
+        sleep_total += int(sim.sleep.sum())
+        sleep_flagged += int((sim.sleep & mask).sum())
+    out = {f"{k.removesuffix('_diary')}_mae_min{'_diary' if k.endswith('_diary') else ''}": float(np.median(v))
+           for k, v in errors.items()}
+    out.update(nap_recall=tp / max(tp + fn, 1), nap_precision=hits / max(n_naps, 1), n_true_naps=float(tp + fn),
+               nonwear_recall=flagged / max(worn_total, 1),
+               sleep_flagged_pct=100.0 * sleep_flagged / max(sleep_total, 1))
+    offsets = _psg_offsets(sims)
+    if offsets is not None:
+        out["psg_clock_offset_mae_s"] = offsets
+    return out
+
+
+def _psg_offsets(sims: list[SimulatedRecording]) -> float | None:
+    """Mean absolute error of the estimated PSG clock offsets, or None without the alignment module."""
+    try:
+        from models.recordings.alignment import estimate_clock_offset
+        from models.recordings.hypnogram import Hypnogram
+    except ImportError:
+        return None
+    errs = []
+    for sim in sims:
+        rec = sim.recording
+        for psg in sim.psg:
+            hyp = Hypnogram(start=psg.start, epoch_seconds=psg.epoch_seconds, stages=psg.stages)
+            a = max(0, rec.epoch_at(psg.start) - 120)
+            b = min(rec.n_epochs, rec.epoch_at(psg.start + pd.Timedelta(seconds=30 * psg.stages.size)) + 120)
+            found = estimate_clock_offset(rec.counts[a:b], counts_start=rec.time_at(a), epoch_seconds=rec.epoch_seconds,
+                                          hypnogram=hyp)
+            errs.append(abs(found.clock_offset_s - psg.clock_offset_s))
+    return float(np.mean(errs)) if errs else None
+
+
+def _csv_bytes(sim: SimulatedRecording) -> bytes:
+    rec = sim.recording
+    frame = pd.DataFrame({"time": rec.timestamps().strftime("%Y-%m-%dT%H:%M:%S%z").str.replace(
+        r"(\d\d)(\d\d)$", r"\1:\2", regex=True), "counts": rec.counts.astype(np.int64),
+        "marker": rec.markers.astype(np.int8)})
+    return frame.to_csv(index=False).encode()
+
+
+def _pipeline(data: bytes, sim: SimulatedRecording) -> dict[str, object]:
+    rec = read_recording(data, participant_id=sim.recording.participant_id, source_name="bench.csv")
+    nonwear = detect_nonwear(rec)
+    periods = find_periods(rec, diary=sim.diary, nonwear=nonwear)
+    mask = nonwear_mask(rec.n_epochs, nonwear)
+    params = {}
+    for p in periods:
+        if p.kind != "main":
+            continue
+        night = period_night(rec, p, nonwear_mask=mask)
+        calls = score_with_rule(night.counts, night.epoch_seconds, "cole-kripke").sleep
+        sp = sleep_parameters(calls, night.epoch_seconds)
+        params[p.day] = {"tst_min": sp.tst_min, "sol_min": sp.sol_min, "waso_min": sp.waso_min}
+    rows = day_rows(rec, periods, nonwear=nonwear)
+    sleep_state(rec, periods, nonwear=nonwear)
+    return recording_summary(rows, night_parameters=params).to_dict()
+
+
+def main() -> None:
+    load = os.getloadavg()
+    print(f"load average: {load[0]:.2f} {load[1]:.2f} {load[2]:.2f}")
+    result: dict[str, object] = {"load_average": [round(x, 2) for x in load]}
+    for name, (spec, seed) in SETS.items():
+        t0 = time.perf_counter()
+        sims = simulate_recordings(spec, seed=seed)
+        figures = _figures(sims)
+        figures["evaluate_s"] = time.perf_counter() - t0
+        print(name, json.dumps({k: round(v, 3) for k, v in figures.items()}))
+        result[name] = figures
+    sim = simulate_recordings(RecordingSpec(n_participants=1), seed=99)[0]
+    data = _csv_bytes(sim)
+    times = []
+    for _ in range(3):
+        t0 = time.perf_counter()
+        _pipeline(data, sim)
+        times.append(time.perf_counter() - t0)
+    result["ingest_detect_summarise_s"] = float(np.median(times))
+    result["csv_megabytes"] = len(data) / 1e6
+    met = {}
+    for name in SETS:
+        figs = result[name]
+        assert isinstance(figs, dict)
+        for key, goal in GOALS.items():
+            if key in figs:
+                value = figs[key]
+                ok = value >= goal if key in ("nap_recall", "nap_precision", "nonwear_recall") else value <= goal
+                met[f"{name}.{key}"] = bool(ok)
+                if key in ("onset_mae_min", "offset_mae_min"):
+                    met[f"{name}.{key}_diary"] = bool(figs[key + "_diary"] <= goal)
+    met["ingest_detect_summarise_s"] = result["ingest_detect_summarise_s"] <= GOALS["ingest_detect_summarise_s"]
+    result["goals_met"] = met
+    result["all_goals_met"] = all(met.values())
+    print(json.dumps(result, default=float))
+
+
+if __name__ == "__main__":
+    main()
