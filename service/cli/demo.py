@@ -247,7 +247,8 @@ def print_day_tables(client: Any, recordings: list[dict[str, Any]]) -> None:
                                                  "nonwear_min")), d["source"] or "-")
         console.print(table)
         s = found["summary"]
-        console.print(f"TST {_num(s['tst_min']['mean'])} ± {_num(s['tst_min']['sd'])} min over {s['nights']} nights; "
+        tst = s["parameters"].get("tst_min") or {"mean": None, "sd": None}
+        console.print(f"TST {_num(tst['mean'])} ± {_num(tst['sd'])} min over {s['n_main_periods']} nights; "
                       f"social jetlag {_num(s['social_jetlag_h'], 2)} h; SRI {_num(s['sri'])}")
 
 

@@ -240,9 +240,11 @@ def test_the_day_table_has_a_row_per_day_and_a_summary_with_its_definitions(sqli
         assert row["sleep_efficiency_pct"] == pytest.approx(100 * row["tst_min"] / in_bed_min, abs=0.01)
         assert row["method"] == "cole-kripke"
     tst = [row["tst_min"] for row in night_rows]
-    assert table["summary"]["tst_min"]["mean"] == pytest.approx(np.mean(tst))
-    assert table["summary"]["tst_min"]["sd"] == pytest.approx(np.std(tst, ddof=1))  # sample SD, numpy
-    assert 0 <= table["summary"]["sri"] <= 100 or table["summary"]["sri"] is None
+    summary = table["summary"]
+    assert summary["parameters"]["tst_min"]["mean"] == pytest.approx(np.mean(tst))
+    assert summary["parameters"]["tst_min"]["sd"] == pytest.approx(np.std(tst, ddof=1))  # sample SD, numpy
+    assert -100 <= summary["sri"] <= 100  # the index's range (Phillips et al. 2017)
+    assert summary["n_days"] == len(sim.days) and summary["n_main_periods"] == len(night_rows)
     assert "scoring" in table["definitions"] and "sri" in table["definitions"]
 
     csv = http.get(f"/v1/studies/{STUDY}/exports/days", params={"method": "cole-kripke"})
