@@ -303,3 +303,28 @@ def test_a_bad_diary_or_hypnogram_changes_nothing(sqlite_world: World) -> None:
     assert outside.status_code == 422 and outside.json()["code"] == "reference_outside_recording"
     assert http.get(recordings_url("P-01", rid, "periods")).json() == before
     assert http.get(recordings_url("P-01", rid)).json()["has_diary"] is False
+
+
+def test_the_demo_study_recordings_post_and_their_psg_lands_on_the_simulated_offsets(sqlite_world: World) -> None:
+    import json
+
+    from models import DEMO_STUDY_ID
+
+    root = Path(__file__).resolve().parents[2] / "demo_data" / DEMO_STUDY_ID
+    study = json.loads((root / "study.json").read_text())
+    manifest = study["recordings"]
+    assert manifest and study["simulated"] and "SIMULATED" in study["name"]
+    entry = manifest[0]
+    pid = entry["participant_id"]
+    files = {Path(f).name: root / f for f in entry["files"]}
+    r = sqlite_world.http.post(recordings_url(pid), content=files["recording.json"].read_bytes(),
+                               headers={"Content-Type": "application/json"})
+    assert r.status_code == 201, r.text
+    rid = r.json()["recording_id"]
+    assert post_text(sqlite_world.http, recordings_url(pid, rid, "diary"), files["diary.csv"].read_bytes()).is_success
+    for k, offset in enumerate(entry["psg_clock_offsets_s"], start=1):
+        answer = sqlite_world.http.post(recordings_url(pid, rid, "reference"),
+                                        content=files[f"psg{k}.json"].read_bytes(),
+                                        headers={"Content-Type": "application/json"})
+        assert answer.status_code == 200, answer.text
+        assert abs(answer.json()["clock_offset_s"] - offset) <= 30  # the simulator's offset, within one epoch
