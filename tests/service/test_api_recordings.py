@@ -328,3 +328,43 @@ def test_the_demo_study_recordings_post_and_their_psg_lands_on_the_simulated_off
                                         headers={"Content-Type": "application/json"})
         assert answer.status_code == 200, answer.text
         assert abs(answer.json()["clock_offset_s"] - offset) <= 30  # the simulator's offset, within one epoch
+
+
+def test_psg_labels_stay_with_their_night_when_a_diary_recomputes_the_periods(sqlite_world: World) -> None:
+    http = sqlite_world.http
+    sim = simulated(7, seed=17, psg_nights=1)[0]
+    rid = post_recording(http, sim).json()["recording_id"]
+    psg = sim.psg[0]
+    labelled = post_text(http, recordings_url("P-01", rid, "reference"), hypnogram_csv(psg)).json()
+    before = http.get(f"/v1/studies/{STUDY}/participants/P-01/nights/{labelled['night_id']}",
+                      params={"epochs": "true"}).json()
+    assert post_text(http, recordings_url("P-01", rid, "diary"), sim.diary_csv.encode()).status_code == 200
+    recording = http.get(recordings_url("P-01", rid)).json()
+    assert len(recording["labelled_night_ids"]) == 1
+    after = http.get(f"/v1/studies/{STUDY}/participants/P-01/nights/{recording['labelled_night_ids'][0]}",
+                     params={"epochs": "true"}).json()
+    true_start = psg.true_start  # where the simulator put the PSG on the recording's clock
+    for night in (before, after):  # the same hypnogram epochs land on the same clock times
+        first = next(i for i, s in enumerate(night["reference"]) if s != "?")
+        landed = pd.Timestamp(night["start"]) + pd.Timedelta(seconds=30 * first)
+        assert abs((landed - true_start).total_seconds()) <= 60
+    assert sum(s != "?" for s in after["reference"]) >= 0.8 * len(psg.stages)
+
+
+def test_an_implausible_reference_is_refused_or_flagged_on_request(sqlite_world: World) -> None:
+    http = sqlite_world.http
+    sim = simulated(5, seed=19, psg_nights=1)[0]
+    rid = post_recording(http, sim).json()["recording_id"]
+    psg = sim.psg[0]
+    flipped = np.where(psg.stages == "W", "N2", "W")  # sleep where the wrist moves, wake where it is still
+    upside_down = type(psg)(date=psg.date, start=psg.start, epoch_seconds=30, stages=flipped,
+                            clock_offset_s=psg.clock_offset_s, true_start=psg.true_start)
+    refused = post_text(http, recordings_url("P-01", rid, "reference"), hypnogram_csv(upside_down),
+                        clock_offset_s=psg.clock_offset_s)
+    assert refused.status_code == 422 and refused.json()["code"] == "reference_implausible"
+    assert http.get(recordings_url("P-01", rid)).json()["labelled_night_ids"] == []
+    kept = post_text(http, recordings_url("P-01", rid, "reference"), hypnogram_csv(upside_down),
+                     clock_offset_s=psg.clock_offset_s, accept_implausible="true")
+    assert kept.status_code == 200 and any(f["code"] == "reference_implausible" for f in kept.json()["qc"])
+    night = http.get(f"/v1/studies/{STUDY}/participants/P-01/nights/{kept.json()['night_id']}").json()
+    assert any(f["code"] == "reference_implausible" for f in night["qc"])
