@@ -111,6 +111,11 @@ def delete_night(session: Session, *, study_id: str, participant_id: str, night_
     night_pk, content_hash, label = row.pk, row.content_hash, row.label
     scorings = _count(session, db.Scoring, db.Scoring.night_pk == night_pk)
     features = _count(session, db.NightFeatures, db.NightFeatures.night_pk == night_pk)
+    if row.recording_pk is not None:  # a night of a recording: its period keeps no night
+        recording = session.get(db.RecordingRow, row.recording_pk)
+        if recording is not None:
+            recording.periods = [p | {"night_id": None} if p.get("night_id") == night_id else p
+                                 for p in recording.periods]
     _delete_nights(session, [night_pk])
     marked = versions.mark_deleted_night(session, study=study, content_hash=content_hash, night_id=night_id)
     owners = [m["participant_pk"] for m in marked if m["participant_pk"] is not None]

@@ -368,3 +368,19 @@ def test_an_implausible_reference_is_refused_or_flagged_on_request(sqlite_world:
     assert kept.status_code == 200 and any(f["code"] == "reference_implausible" for f in kept.json()["qc"])
     night = http.get(f"/v1/studies/{STUDY}/participants/P-01/nights/{kept.json()['night_id']}").json()
     assert any(f["code"] == "reference_implausible" for f in night["qc"])
+
+
+def test_deleting_one_night_of_a_recording_leaves_its_day_without_a_night(sqlite_world: World) -> None:
+    http = sqlite_world.http
+    sim = simulated(4, seed=23, psg_nights=0)[0]
+    rid = post_recording(http, sim).json()["recording_id"]
+    mains = [p for p in http.get(recordings_url("P-01", rid, "periods")).json()["items"] if p["kind"] == "main"]
+    gone = mains[1]
+    assert http.delete(f"/v1/studies/{STUDY}/participants/P-01/nights/{gone['night_id']}").status_code == 200
+    periods = {p["day"]: p for p in http.get(recordings_url("P-01", rid, "periods")).json()["items"]
+               if p["kind"] == "main"}
+    assert periods[gone["day"]]["night_id"] is None
+    table = http.get(recordings_url("P-01", rid, "days"), params={"method": "sadeh"}).json()
+    rows = {r["date"]: r for r in table["rows"]}
+    assert rows[gone["day"]]["night_id"] is None and rows[gone["day"]]["tst_min"] is None
+    assert all(rows[p["day"]]["tst_min"] is not None for p in mains if p["day"] != gone["day"])
