@@ -384,3 +384,32 @@ def test_deleting_one_night_of_a_recording_leaves_its_day_without_a_night(sqlite
     rows = {r["date"]: r for r in table["rows"]}
     assert rows[gone["day"]]["night_id"] is None and rows[gone["day"]]["tst_min"] is None
     assert all(rows[p["day"]]["tst_min"] is not None for p in mains if p["day"] != gone["day"])
+
+
+def test_a_lab_export_is_read_with_a_saved_profile_and_15_s_epochs_are_summed(sqlite_world: World) -> None:
+    http = sqlite_world.http
+    sim = simulated(2, seed=29, psg_nights=0)[0]
+    profile = {"name": "wrist-export", "delimiter": ";", "skip_rows": 1,
+               "columns": {"date": "Datum", "time": "Zeit", "counts": "Aktivitaet"},
+               "datetime_format": "%d.%m.%Y %H:%M:%S", "tz": "Europe/Oslo"}
+    assert http.post(f"/v1/studies/{STUDY}/import-profiles", json=profile).status_code == 201
+    rec = sim.recording
+    fine = np.repeat(rec.counts / 2, 2)  # 15-s epochs whose pairs sum to the 30-s counts
+    times = pd.date_range(rec.start, periods=fine.size, freq=pd.Timedelta(seconds=15)).tz_convert("Europe/Oslo")
+    lines = ["exported by the wrist device"] + ["Datum;Zeit;Aktivitaet"] + [
+        f"{t:%d.%m.%Y};{t:%H:%M:%S};{c:g}" for t, c in zip(times, fine, strict=True)]
+    r = http.post(recordings_url("P-01"), content="\n".join(lines).encode(), headers={"Content-Type": "text/csv"},
+                  params={"profile": "wrist-export"})
+    assert r.status_code == 201, r.text
+    body = r.json()
+    assert body["epoch_seconds"] == 30 and body["source_epoch_seconds"] == 15 and body["n_epochs"] == rec.n_epochs
+    missing = http.post(recordings_url("P-02"), content=b"x", headers={"Content-Type": "text/csv"},
+                        params={"profile": "no-such-profile"})
+    assert missing.status_code == 404 and "no-such-profile" in missing.json()["detail"]
+    main = next(p for p in body["periods"] if p["kind"] == "main")
+    night = http.get(f"/v1/studies/{STUDY}/participants/P-01/nights/{main['night_id']}", params={"epochs": "true"})
+    got = np.array([np.nan if c is None else c for c in night.json()["counts"]])
+    first = int((pd.Timestamp(main["start"]) - rec.start) / pd.Timedelta(seconds=30))
+    worn = ~np.isnan(got)
+    assert worn.any()
+    np.testing.assert_allclose(got[worn], rec.counts[first:first + got.size][worn])  # pairs summed back
