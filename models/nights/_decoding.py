@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import codecs
+import json
 import re
 from collections.abc import Mapping
 from typing import TypedDict
@@ -15,7 +16,8 @@ from .night import Night
 from .resample import aggregate_epochs
 from .timestamps import EARLIEST_PLAUSIBLE_DATE, ISO_8601_PATTERN, LATEST_PLAUSIBLE_DATE, zone_of
 
-__all__ = ["META_LINE", "NightMetadata", "decode_text", "finish_night", "metadata_fields", "parse_time"]
+__all__ = ["META_LINE", "NightMetadata", "decode_json", "decode_text", "finish_night", "metadata_fields",
+           "parse_time"]
 
 #: an optional leading ``# key: value`` line of a CSV file
 META_LINE = re.compile(r"^#\s*([A-Za-z_]+)\s*:\s*(.*?)\s*$")
@@ -49,6 +51,19 @@ def decode_text(data: bytes | str, source: str | None, encoding: str = "utf-8") 
         line = data[: exc.start].count(b"\n") + 1
         raise InvalidNightError([Problem("not_utf8", f"the file is not valid UTF-8: byte {exc.start} "
                                          f"(line {line}) cannot be decoded", {"row": line})], source=source) from None
+
+
+def decode_json(data: bytes | str, source: str | None) -> object:
+    """The JSON value of a file's content; an empty file or invalid JSON is refused, naming the line."""
+    text = decode_text(data, source)
+    if not text.strip():
+        raise InvalidNightError([Problem("empty_file", "the file is empty", {"row": 1})], source=source)
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise InvalidNightError([Problem("malformed_json", f"not valid JSON at line {exc.lineno} column "
+                                         f"{exc.colno}: {exc.msg}", {"row": exc.lineno, "column": exc.colno})],
+                                source=source) from None
 
 
 class NightMetadata(TypedDict, total=False):

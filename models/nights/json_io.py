@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-import json
 from typing import Any, cast
 
 import numpy as np
 
 from ..errors import InvalidNightError, Problem
-from ._decoding import decode_text, finish_night, metadata_fields, parse_time
+from ._decoding import decode_json, finish_night, metadata_fields, parse_time
 from ._table import file_name
 from .checks import NightOptions, validate_night_fields
 from .night import Night
@@ -28,19 +27,7 @@ def night_from_json(data: bytes | str | dict[str, object], *, participant_id: st
     without an offset; ``options.tz`` overrides it) apply. The file name of ``source`` is kept as
     :attr:`Night.source_name <models.nights.night.Night.source_name>`.
     """
-    obj: object
-    if isinstance(data, dict):
-        obj = data
-    else:
-        text = decode_text(data, source)
-        if not text.strip():
-            raise InvalidNightError([Problem("empty_file", "the file is empty", {"row": 1})], source=source)
-        try:
-            obj = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise InvalidNightError([Problem("malformed_json", f"not valid JSON at line {exc.lineno} column "
-                                             f"{exc.colno}: {exc.msg}", {"row": exc.lineno, "column": exc.colno})],
-                                    source=source) from None
+    obj = data if isinstance(data, dict) else decode_json(data, source)
     if not isinstance(obj, dict):
         raise InvalidNightError([Problem("malformed_json", f"the top level must be an object, got "
                                          f"{type(obj).__name__}", {"field": "$"})], source=source)

@@ -30,8 +30,10 @@ class DetectionConfig:
     still_minutes : float, default=10
         Window of the moving share that calls sleep (common practice for actigraphy windows).
     still_share : float, default=0.12
-        An epoch is called sleep when at most this share of the epochs in its window move: quiet
-        wake in bed moves in about a third of its epochs, sleep in a few percent (our design).
+        An epoch is called sleep when at most this share of the 30-s epochs in its window move:
+        quiet wake in bed moves in about a third of them, sleep in a few percent (our design).
+        15-s epochs are paired into 30 s for the share; for 60-s epochs the share (and
+        ``max_still_share``) is doubled, as a minute moves when either of its halves does.
     person_share_factor : float, default=1.5
         For a restless sleeper the share is raised to this multiple of the moving share inside
         the person's long rest blocks (at least 2 h) ...
@@ -40,8 +42,9 @@ class DetectionConfig:
     onset_minutes : float, default=10
         Sleep onset is the first epoch of a run of at least this many minutes of sleep calls (in the
         spirit of Tudor-Locke et al. 2014's runs, from memory; length ours).
-    offset_minutes : float, default=10
-        Sleep offset ends the last such run of the rest interval.
+    offset_minutes : float, default=5
+        Sleep offset ends the last run of sleep calls of at least this many minutes (shorter than
+        the onset's: the morning's last sleep is often cut by brief movements; our design).
     p_threshold : float, default=0.5
         With a model's sleep probability, an epoch is called sleep at or above this.
     """
@@ -55,7 +58,7 @@ class DetectionConfig:
     person_share_factor: float = 1.5
     max_still_share: float = 0.22
     onset_minutes: float = 10.0
-    offset_minutes: float = 10.0
+    offset_minutes: float = 5.0
     p_threshold: float = 0.5
 
 
@@ -63,10 +66,14 @@ def rest_blocks(counts: NDArray[np.float64], worn: NDArray[np.bool_], epoch_seco
                 config: DetectionConfig) -> list[tuple[int, int]]:
     """Low-activity blocks ``(start, stop)``: rolling median under a person-specific threshold, merged.
 
-    Non-worn epochs are never rest and break blocks (a block does not bridge them).
+    Non-worn epochs are never rest and break blocks (a block does not bridge them). 15-s epochs are
+    summed in pairs first (the counts of 30-s epochs).
     """
     per_min = 60.0 / epoch_seconds
     values = np.where(worn, counts, np.nan)
+    if epoch_seconds == 15:  # levels of 30-s epochs, as the share of :func:`sleep_calls`
+        pairs = np.nansum(np.pad(values, (0, values.size % 2)).reshape(-1, 2), axis=1)
+        values = np.where(worn, np.repeat(pairs, 2)[: values.size], np.nan)
     med = rolling_median(values, max(1, int(round(config.median_minutes * per_min))) | 1)
     level = float(np.nanmedian(med[worn])) if worn.any() else 0.0
     low = worn & (med <= config.rest_fraction * max(level, 1.0))
@@ -86,14 +93,20 @@ def sleep_calls(counts: NDArray[np.float64], worn: NDArray[np.bool_], epoch_seco
     if p_sleep is not None:
         return np.asarray(worn & (np.nan_to_num(p_sleep, nan=0.0) >= config.p_threshold), dtype=bool)
     per_min = 60.0 / epoch_seconds
-    moving = np.where(worn, (np.nan_to_num(counts, nan=0.0) > 0).astype(np.float64), np.nan)
+    moved = np.nan_to_num(counts, nan=0.0) > 0
+    if epoch_seconds == 15:  # the share is one of 30-s epochs: a pair moves when either of its halves does
+        pairs = np.pad(moved, (0, moved.size % 2)).reshape(-1, 2).any(axis=1)
+        moved = np.repeat(pairs, 2)[: moved.size]
+    moving = np.where(worn, moved.astype(np.float64), np.nan)
     share = rolling_mean(moving, max(1, int(round(config.still_minutes * per_min))) | 1)
-    limit = config.still_share
+    scale = 2.0 if epoch_seconds == 60 else 1.0  # a minute moves when either half does: about twice as often
+    limit = config.still_share * scale
     long_blocks = [(a, b) for a, b in blocks or () if b - a >= 120 * per_min]
     if long_blocks:
         inside = np.concatenate([moving[a:b] for a, b in long_blocks])
         if np.isfinite(inside).any():
-            limit = min(max(limit, config.person_share_factor * float(np.nanmean(inside))), config.max_still_share)
+            limit = min(max(limit, config.person_share_factor * float(np.nanmean(inside))),
+                        config.max_still_share * scale)
     return np.asarray(worn & (share <= limit), dtype=bool)
 
 

@@ -20,7 +20,7 @@ from numpy.typing import NDArray
 
 from ..errors import InvalidNightError, Problem
 from ..nights import COLUMN_ALIASES, ImportProfile, canonical_stage, looks_like_reference
-from ..nights._decoding import decode_text, parse_time
+from ..nights._decoding import decode_json, decode_text, parse_time
 from ..nights._table import times_to_utc
 from ..nights.checks import MAX_LISTED
 from ..nights.columns import header_key
@@ -107,18 +107,7 @@ def _finish(start: pd.Timestamp | None, stages: NDArray[np.str_], problems: list
 def hypnogram_from_json(data: bytes | str | Mapping[str, object], *, profile: ImportProfile | None = None,
                         tz: str | None = None, source: str | None = None) -> HypnogramParts:
     """Hypnogram from JSON ``{"start", "epoch_seconds", "stages"}`` (bytes, text or a decoded object)."""
-    obj: object = data
-    if not isinstance(data, Mapping):
-        text = decode_text(data, source)
-        if not text.strip():
-            raise InvalidNightError([Problem("empty_file", "the file is empty", {"row": 1})], source=source)
-        try:
-            obj = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise InvalidNightError([Problem("malformed_json", f"not valid JSON at line {exc.lineno} column "
-                                                 f"{exc.colno}: {exc.msg}", {"row": exc.lineno,
-                                                                              "column": exc.colno})],
-                                        source=source) from None
+    obj = data if isinstance(data, Mapping) else decode_json(data, source)
     if not isinstance(obj, Mapping):
         raise InvalidNightError([Problem("malformed_json", f"the top level must be an object, got "
                                              f"{type(obj).__name__}", {"field": "$"})], source=source)
@@ -256,7 +245,7 @@ def hypnogram_from_csv(data: bytes | str, *, profile: ImportProfile | None = Non
     if times is not None:
         utc_ns, placed = times
         shown: tzinfo | None = placed
-        if shown is None and profile is None:
+        if shown is None and (profile is None or profile.datetime_format is None):
             try:
                 shown = pd.Timestamp(rows[0][cols["time"]].strip()).tzinfo
             except (ValueError, TypeError):

@@ -37,7 +37,7 @@ where the chance correlation of unrelated series is of the order of 1/√960 ≈
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import numpy as np
@@ -128,8 +128,8 @@ class ClockAlignment:
     n_epochs: int = 0
     step_s: float = 5.0
     reasons: tuple[str, ...] = ()
-    lags_s: tuple[float, ...] = ()
-    correlations: tuple[float, ...] = ()
+    lags_s: tuple[float, ...] = field(default=(), repr=False)
+    correlations: tuple[float, ...] = field(default=(), repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-ready values (NaN as None; the lag curve left out)."""

@@ -28,7 +28,8 @@ location (``field``, 1-based file ``row``, 0-based ``epoch``): ``empty_file``, `
 ``missing_field``, ``invalid_field``, ``invalid_timestamp``, ``missing_timezone``, ``mixed_timezones``,
 ``daylight_saving``, ``implausible_date``, ``unknown_time_zone``, ``duplicate_timestamp``,
 ``time_not_increasing``, ``irregular_spacing``, ``unsupported_epoch_length``, ``too_short``,
-``too_many_epochs``, ``unknown_stage``, ``no_scored_epochs``, ``not_utf8``, ``undecodable_text``.
+``too_many_epochs``, ``unknown_stage``, ``no_scored_epochs``, ``not_utf8``, ``undecodable_text``,
+``unsupported_format``.
 
 Stages on actigraph epochs (:func:`hypnogram_on_epochs`)
 --------------------------------------------------------
@@ -149,6 +150,10 @@ class Hypnogram:
         """Start of every epoch (PSG clock), shape (n_epochs,)."""
         return pd.date_range(self.start, periods=self.n_epochs, freq=pd.Timedelta(seconds=self.epoch_seconds))
 
+    def to_json(self) -> dict[str, object]:
+        """The JSON form :func:`read_hypnogram` reads back (``start`` with its UTC offset)."""
+        return {"start": self.start.isoformat(), "epoch_seconds": self.epoch_seconds, "stages": self.stages.tolist()}
+
     def sleep(self) -> NDArray[np.float64]:
         """Sleep (1.0), wake (0.0, movement time included) or unscored (NaN) per epoch, shape (n_epochs,)."""
         return stages_to_sleep(self.stages, movement_time="wake")
@@ -255,8 +260,9 @@ def hypnogram_on_epochs(hypnogram: Hypnogram, *, start: pd.Timestamp, epoch_seco
     sleep_s = tally[:, is_sleep].sum(axis=1)
     wake_s = tally[:, is_scored & ~is_sleep].sum(axis=1)
     side = np.where((sleep_s > wake_s)[:, None], is_sleep[None, :], (is_scored & ~is_sleep)[None, :])
-    rank = np.where(side & (tally > 0), tally * (k + 1) + last, -1.0)
-    out = codes[rank.argmax(axis=1)] if codes.size else np.full(n_epochs, "?")
+    # the larger share first (shares differ by >= 1e-6 after rounding), the later PSG epoch (last <= 3) on ties
+    rank = np.where(side & (tally > 0), tally + last * 1e-8, -1.0)
+    out = codes[rank.argmax(axis=1)]
     covered = (sleep_s + wake_s) >= epoch_seconds / 2
     return np.where(covered, out, "?").astype("<U3")
 

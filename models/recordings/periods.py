@@ -26,7 +26,8 @@ Anchors, where the lab has them, set the rest interval (in bed):
 
 Onset and offset are searched over the union of the detected block and the anchored interval,
 and the rest interval widened to hold them. *Naps* are runs of sleep calls of at least
-``nap_min_minutes`` (20, common practice) outside the main periods (with a margin of 30 min),
+``nap_min_minutes`` (20, common practice; wake calls up to 5 min bridged) outside the main
+periods (with a margin of 30 min),
 except a run without any movement right between moving minutes (a short spell off the wrist);
 a diary nap overlapping one confirms it (source ``"diary"``); a diary nap with no detected sleep
 is reported on that day's main period.
@@ -35,6 +36,7 @@ is reported on that day's main period.
 from __future__ import annotations
 
 import datetime as dt
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -44,7 +46,7 @@ from numpy.typing import NDArray
 
 from ..nights import Night
 from ._detect import DetectionConfig, rest_blocks, sleep_bounds, sleep_calls
-from ._runs import awake_sides, runs
+from ._runs import awake_sides, close_gaps, runs
 from .diary import DiaryDay
 from .nonwear import NonwearConfig, NonwearInterval, detect_nonwear, nonwear_mask
 from .recording import Recording
@@ -97,6 +99,9 @@ class PeriodConfig:
     nap_min_minutes : float, default=20
     nap_margin_minutes : float, default=30
         A nap starts or ends at least this far from a main period.
+    nap_gap_minutes : float, default=5
+        Wake calls up to this long inside a nap are bridged (a brief movement does not end a nap;
+        common practice, as the merging of rest blocks).
     spell_edge_minutes : float, default=2
     spell_edge_share : float, default=0.75
         A nap candidate without any movement whose zero run has at least this share of moving
@@ -111,6 +116,7 @@ class PeriodConfig:
     min_main_minutes: float = 120.0
     nap_min_minutes: float = 20.0
     nap_margin_minutes: float = 30.0
+    nap_gap_minutes: float = 5.0
     spell_edge_minutes: float = 2.0
     spell_edge_share: float = 0.75
 
@@ -152,7 +158,7 @@ def _anchor_diary(main: _Main, day: DiaryDay, recording: Recording, tol: int, pe
                 setattr(main, side, at)
             main.search = (min(main.search[0], at), max(main.search[1], at))
         else:
-            main.conflicts.append(f"diary {name} time {gap / per_min:.0f} min from detected rest")
+            main.conflicts.append(f"diary {name} time {math.ceil(gap / per_min - 1e-9)} min from detected rest")
 
 
 def find_periods(recording: Recording, *, diary: Sequence[DiaryDay] | None = None,
@@ -221,7 +227,7 @@ def _naps(recording: Recording, calls: NDArray[np.bool_], mains: list[SleepPerio
           diary_days: dict[dt.date, DiaryDay], config: PeriodConfig) -> list[SleepPeriod]:
     per_min = 60.0 / recording.epoch_seconds
     margin = int(config.nap_margin_minutes * per_min)
-    free = calls.copy()
+    free = close_gaps(calls, int(round(config.nap_gap_minutes * per_min)))
     for p in mains:
         free[max(0, p.start_epoch - margin): p.end_epoch + margin] = False
     diary_naps = [(recording.epoch_at(a), recording.epoch_at(b)) for d in diary_days.values() for a, b in d.naps]
@@ -238,7 +244,8 @@ def _naps(recording: Recording, calls: NDArray[np.bool_], mains: list[SleepPerio
                 first -= 1
             while stop < counts.size and counts[stop] == 0:
                 stop += 1
-            if all(awake_sides(counts, first, stop, edge, config.spell_edge_share, 0.0)):
+            # the epochs bounding a zero run always move: judge the minutes beyond them
+            if all(awake_sides(counts, first - 1, stop + 1, edge, config.spell_edge_share, 0.0)):
                 continue  # exactly still and moving right before and after: off the wrist a while, not asleep
         source = "detected"
         for k, (x, y) in enumerate(diary_naps):

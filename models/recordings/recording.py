@@ -90,7 +90,7 @@ class Recording:
     source_name: str | None = None
     unused_columns: tuple[str, ...] = ()
     source_epoch_seconds: int | None = field(default=None)
-    _hash: str = field(default="", repr=False)
+    _hash: str = field(default="", init=False, repr=False)
 
     def __post_init__(self) -> None:
         counts = np.array(self.counts, dtype=np.float64)

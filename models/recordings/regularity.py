@@ -11,7 +11,9 @@ with M epochs per day, N days and delta = 1 when the two states agree. Here the 
 pair of epochs exactly 24 h apart of which **both are valid** (worn, with a known state), and it is
 divided by the number of such pairs instead of M (N - 1): off-wrist epochs on either day are left
 out and the index stays a proportion of the pairs that could be compared. For N whole days with no
-invalid epoch the two are the same; a trailing part day adds its pairs with the day before.
+invalid epoch the two are the same; a trailing part day adds its pairs with the day before. The pairs
+are M epochs (24 h of elapsed time) apart, so the series may start at any time of day; across a change
+of the clocks a pair is one hour off the same wall-clock time.
 
 Clock times
 -----------
@@ -44,7 +46,7 @@ def sleep_regularity_index(sleep: ArrayLike, *, epoch_seconds: int, valid: Array
     Parameters
     ----------
     sleep : array_like, shape (n_epochs,)
-        1 (sleep) or 0 (wake) per epoch over consecutive days; NaN = state unknown (left out).
+        1 (sleep) or 0 (wake) per consecutive epoch (e.g. a whole recording); NaN = state unknown (left out).
     epoch_seconds : int
         Epoch length, a divisor of 86 400 (15, 30, 60, ...).
     valid : array_like of bool, shape (n_epochs,), optional
@@ -69,9 +71,12 @@ def sleep_regularity_index(sleep: ArrayLike, *, epoch_seconds: int, valid: Array
     known = np.isfinite(s)
     if not np.isin(s[known], (0.0, 1.0)).all():
         raise ValueError("sleep must hold 1 (sleep), 0 (wake) or NaN")
-    ok = known if valid is None else known & np.asarray(valid, dtype=bool)
-    if ok.shape != s.shape:
-        raise ValueError(f"valid has {ok.size} values for {s.size} epochs")
+    ok = known
+    if valid is not None:
+        mask = np.asarray(valid, dtype=bool)
+        if mask.shape != s.shape:
+            raise ValueError(f"valid has {mask.size} values for {s.size} epochs")
+        ok = known & mask
     m = _DAY_S // int(epoch_seconds)
     if s.size <= m:
         return float("nan")
@@ -102,13 +107,13 @@ def mid_sleep(onset: pd.Timestamp, offset: pd.Timestamp) -> pd.Timestamp:
 
 
 def _clock_hours(times: Sequence[pd.Timestamp | None]) -> NDArray[np.float64]:
-    """Hours after local midnight of each time (in its own zone), NaN for None/NaT."""
+    """Clock time of each time in its own zone, hours after midnight, NaN for None/NaT."""
     out = np.full(len(times), np.nan)
     for i, t in enumerate(times):
         if t is None or pd.isna(t):
             continue
-        ts = pd.Timestamp(t)
-        out[i] = (ts - ts.normalize()).total_seconds() / 3600.0
+        ts = pd.Timestamp(t)  # the wall clock: on a day the clocks change, not the time elapsed since midnight
+        out[i] = ts.hour + ts.minute / 60 + (ts.second + ts.microsecond / 1e6) / 3600
     return out
 
 
