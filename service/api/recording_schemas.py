@@ -119,7 +119,8 @@ class DayRowOut(BaseModel):
 
 class DaysOut(BaseModel):
     recording_id: str
-    method: str
+    method: str = Field(description="the method asked for, or the rule auto fell back to")
+    methods_used: list[str] = Field(description="the concrete methods that scored the nights (auto: per participant)")
     rows: list[DayRowOut]
     summary: dict[str, Any]
     definitions: dict[str, Any]

@@ -236,7 +236,7 @@ def print_day_tables(client: Any, recordings: list[dict[str, Any]]) -> None:
     for r in recordings:
         found = client.recording_days(DEMO_STUDY_ID, r["participant"], r["night_id"])
         console.rule(f"[bold]days[/bold] of the SIMULATED recording of {r['participant']} "
-                     f"(nights scored with {found['method']})")
+                     f"(nights scored with {', '.join(found['methods_used']) or found['method']})")
         table = Table(box=box.SIMPLE_HEAD, pad_edge=False)
         for col in ("day", "in bed", "onset", "offset", "out", "TST", "SOL", "WASO", "eff. %", "naps min",
                     "off-wrist min", "set by"):

@@ -167,8 +167,9 @@ def recording_days(factory: sessionmaker[Session], *, study_id: str, participant
     """The day table of one recording: ``rows``, ``summary`` and ``definitions``."""
     rows, summary, used = day_table(factory, study_id=study_id, participant_id=participant_id,
                                     recording_id=recording_id, method=method)
-    return {"recording_id": recording_id, "method": used, "rows": rows, "summary": summary,
-            "definitions": _definitions(used, method)}
+    used_by_nights = sorted({r["method"] for r in rows if r["night_id"]})
+    return {"recording_id": recording_id, "method": used, "methods_used": used_by_nights, "rows": rows,
+            "summary": summary, "definitions": _definitions(used, method) | {"methods_used": used_by_nights}}
 
 
 def export_days(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv", method: str = "auto",

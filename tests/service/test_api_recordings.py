@@ -246,6 +246,7 @@ def test_the_day_table_has_a_row_per_day_and_a_summary_with_its_definitions(sqli
     assert -100 <= summary["sri"] <= 100  # the index's range (Phillips et al. 2017)
     assert summary["n_days"] == len(sim.days) and summary["n_main_periods"] == len(night_rows)
     assert "scoring" in table["definitions"] and "sri" in table["definitions"]
+    assert table["methods_used"] == ["cole-kripke"]
 
     csv = http.get(f"/v1/studies/{STUDY}/exports/days", params={"method": "cole-kripke"})
     assert csv.status_code == 200 and csv.headers["content-type"].startswith("text/csv")
