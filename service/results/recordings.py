@@ -29,6 +29,7 @@ from models import (
 from ..errors import Conflict, Unprocessable
 from ..store import profiles, registry
 from ..store import recordings as store
+from ..store.audit import record_audit
 from ..store.db import session_scope
 from ..store.recording_codec import diary_records, recording_columns
 from ..store.recording_nights import Derived, derive, hypnogram_record, reference_overlap
@@ -125,8 +126,6 @@ def _rederive(session: Session, *, study_id: str, participant_id: str, recording
 def post_diary(factory: sessionmaker[Session], *, study_id: str, participant_id: str, recording_id: str, body: bytes,
                fmt: str, actor: str, tz: str | None = None) -> tuple[store.RecordingInfo, dict[str, Any], int]:
     """Store a recording's diary (replacing any earlier one) and recompute its periods and nights."""
-    from ..store.audit import record_audit
-
     with session_scope(factory) as session:
         info, recording, _ = store.load_recording(session, study_id=study_id, participant_id=participant_id,
                                                   recording_id=recording_id)
@@ -181,8 +180,6 @@ def post_reference(factory: sessionmaker[Session], *, study_id: str, participant
         given; ``reference_outside_recording``, ``no_matching_period`` when no main period covers
         it; ``reference_implausible`` (unless ``accept_implausible``).
     """
-    from ..store.audit import record_audit
-
     with session_scope(factory) as session:
         layout = None if profile is None else profiles.get_profile(session, study_id, profile)
         info, recording, diary = store.load_recording(session, study_id=study_id, participant_id=participant_id,

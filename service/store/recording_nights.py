@@ -10,6 +10,7 @@ labels wherever the period still covers the reference.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -94,7 +95,7 @@ def label_night(night: Night, record: dict[str, Any]) -> tuple[Night, list[dict[
 
 
 def derive(recording: Recording, *, diary: list[DiaryDay] | None = None,
-           references: list[dict[str, Any]] = ()) -> Derived:  # type: ignore[assignment]
+           references: Sequence[dict[str, Any]] = ()) -> Derived:
     """Non-wear, periods and the main periods' nights of ``recording``.
 
     Parameters

@@ -6,6 +6,7 @@ table; admin for deleting a recording (its nights go with it).
 
 from __future__ import annotations
 
+from collections.abc import Set as AbstractSet
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Path, Query, Request
@@ -58,7 +59,7 @@ async def _body(request: Request, settings: Any, *, text_only: bool = False) -> 
     return body, fmt
 
 
-def recording_out(info: store.RecordingInfo, labelled: set[str] = frozenset()) -> RecordingOut:  # type: ignore[assignment]
+def recording_out(info: store.RecordingInfo, labelled: AbstractSet[str] = frozenset()) -> RecordingOut:
     mains = [p for p in info.periods if p["kind"] == "main"]
     night_ids = [p["night_id"] for p in mains if p.get("night_id")]
     return RecordingOut(
