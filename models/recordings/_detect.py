@@ -9,7 +9,7 @@ from numpy.typing import NDArray
 
 from ._runs import close_gaps, drop_short, rolling_mean, rolling_median, runs
 
-__all__ = ["DetectionConfig", "rest_blocks", "sleep_calls", "sleep_bounds"]
+__all__ = ["DetectionConfig", "moving_floor", "rest_blocks", "sleep_bounds", "sleep_calls"]
 
 
 @dataclass(frozen=True)
@@ -45,8 +45,15 @@ class DetectionConfig:
     offset_minutes : float, default=5
         Sleep offset ends the last run of sleep calls of at least this many minutes (shorter than
         the onset's: the morning's last sleep is often cut by brief movements; our design).
+    floor_zero_share : float, default=0.2
+        A recording with fewer exact zeros than this share of its worn epochs has a noise floor
+        (a device whose counts never fall to zero) ...
+    floor_quantile : float, default=0.3
+        ... and an epoch then moves when its count exceeds this quantile of the worn counts (sleep
+        fills about a third of a day, so the quantile is the upper end of sleep's still level; our
+        design).
     p_threshold : float, default=0.5
-        With a model's sleep probability, an epoch is called sleep at or above this.
+        With a model's sleep probability, an epoch is called sleep at or above this (common practice).
     """
 
     median_minutes: float = 5.0
@@ -59,6 +66,8 @@ class DetectionConfig:
     max_still_share: float = 0.22
     onset_minutes: float = 10.0
     offset_minutes: float = 5.0
+    floor_zero_share: float = 0.2
+    floor_quantile: float = 0.3
     p_threshold: float = 0.5
 
 
@@ -93,7 +102,7 @@ def sleep_calls(counts: NDArray[np.float64], worn: NDArray[np.bool_], epoch_seco
     if p_sleep is not None:
         return np.asarray(worn & (np.nan_to_num(p_sleep, nan=0.0) >= config.p_threshold), dtype=bool)
     per_min = 60.0 / epoch_seconds
-    moved = np.nan_to_num(counts, nan=0.0) > 0
+    moved = np.nan_to_num(counts, nan=0.0) > moving_floor(counts, worn, config)
     if epoch_seconds == 15:  # the share is one of 30-s epochs: a pair moves when either of its halves does
         pairs = np.pad(moved, (0, moved.size % 2)).reshape(-1, 2).any(axis=1)
         moved = np.repeat(pairs, 2)[: moved.size]
@@ -108,6 +117,14 @@ def sleep_calls(counts: NDArray[np.float64], worn: NDArray[np.bool_], epoch_seco
             limit = min(max(limit, config.person_share_factor * float(np.nanmean(inside))),
                         config.max_still_share * scale)
     return np.asarray(worn & (share <= limit), dtype=bool)
+
+
+def moving_floor(counts: NDArray[np.float64], worn: NDArray[np.bool_], config: DetectionConfig) -> float:
+    """Count above which an epoch moves: 0, or a low quantile for a device with a noise floor."""
+    present = counts[worn & np.isfinite(counts)]
+    if present.size == 0 or float(np.mean(present == 0)) >= config.floor_zero_share:
+        return 0.0
+    return float(np.quantile(present, config.floor_quantile))
 
 
 def sleep_bounds(calls: NDArray[np.bool_], start: int, stop: int, epoch_seconds: int,

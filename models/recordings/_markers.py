@@ -55,17 +55,25 @@ def marker_values(col: pa.Array, row0: int, field: str, problems: list[Problem])
                                     f"{row0 + bad[0]}", {"field": field, "row": int(row0 + bad[0]),
                                                          "epoch": int(bad[0])}))
         return np.asarray(np.nan_to_num(values, nan=0.0) > 0, dtype=bool)
-    text = pd.Series(col.cast(pa.string()).to_pylist(), dtype=object).fillna("").str.strip().str.lower()
-    number = pd.to_numeric(text, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
-    words = text.to_numpy(dtype=object)
-    marked = np.isin(words, list(_TRUE)) | (number > 0)
-    unknown = ~(marked | np.isin(words, list(_FALSE)) | (number == 0))
-    if unknown.any():
-        bad = np.flatnonzero(unknown)
-        problems.append(Problem("invalid_marker", f"{bad.size} marker value(s) are neither a number nor true/false, "
-                                f"first {words[bad[0]]!r} at row {row0 + bad[0]}",
-                                {"field": field, "row": int(row0 + bad[0]), "epoch": int(bad[0]),
-                                 "values": [str(v) for v in words[bad[:5]]]}))
+    import pyarrow.compute as pc
+
+    text = pc.utf8_lower(pc.utf8_trim_whitespace(pc.fill_null(col.cast(pa.string()), "")))
+    off = np.asarray(pc.is_in(text, value_set=pa.array(sorted(_FALSE | {"0"}))).to_numpy(zero_copy_only=False))
+    on = np.asarray(pc.is_in(text, value_set=pa.array(sorted(_TRUE | {"1"}))).to_numpy(zero_copy_only=False))
+    marked = on.copy()
+    other = np.flatnonzero(~(on | off))  # numbers written otherwise (2, 1.0) and unknown words
+    if other.size:
+        words = np.asarray(text.take(pa.array(other)).to_pylist(), dtype=object)
+        number = pd.to_numeric(pd.Series(words, dtype=object), errors="coerce").to_numpy(dtype=np.float64,
+                                                                                          na_value=np.nan)
+        marked[other] = number > 0
+        bad = other[~(number >= 0)]
+        if bad.size:
+            first = str(words[np.searchsorted(other, bad[0])])
+            problems.append(Problem("invalid_marker", f"{bad.size} marker value(s) are neither a non-negative "
+                                    f"number nor true/false, first {first!r} at row {row0 + bad[0]}",
+                                    {"field": field, "row": int(row0 + bad[0]), "epoch": int(bad[0]),
+                                     "values": [str(words[np.searchsorted(other, i)]) for i in bad[:5]]}))
     return np.asarray(marked, dtype=bool)
 
 
@@ -136,15 +144,32 @@ def csv_markers(data: bytes, night: Night, options: NightOptions, profile: Impor
         return np.zeros(night.n_epochs, dtype=bool), unused
     used = [c for c in (marker, roles.time, roles.date) if c is not None]
     body = "\n".join([header, lines.read()]).encode()
-    types = {c: pa.string() for c in used if c != marker}
-    table = pacsv.read_csv(pa.py_buffer(body), read_options=pacsv.ReadOptions(use_threads=False),
-                           parse_options=pacsv.ParseOptions(delimiter=sep),
-                           convert_options=pacsv.ConvertOptions(include_columns=used, column_types=types,
-                                                                decimal_point=profile.decimal if profile else "."))
+    try:  # every used column as text: a marker column's type is not inferred from its first rows
+        table = pacsv.read_csv(pa.py_buffer(body), read_options=pacsv.ReadOptions(use_threads=False),
+                               parse_options=pacsv.ParseOptions(delimiter=sep),
+                               convert_options=pacsv.ConvertOptions(include_columns=used,
+                                                                    column_types={c: pa.string() for c in used}))
+    except pa.ArrowInvalid as exc:
+        raise InvalidNightError([Problem("malformed_csv", f"the marker column {marker!r} cannot be read: "
+                                         f"{str(exc).strip().splitlines()[0]}", {"field": marker})],
+                                source=source) from None
     marked = marker_values(table.column(marker).combine_chunks(), n_pre + 2, marker, problems)
     if problems:
         raise InvalidNightError(problems, source=source)
-    return _on_epochs(marked, table, roles.time, roles.date, night, profile, options), unused
+    return _placed(marked, table, roles.time, roles.date, night, profile, options, source), unused
+
+
+def _placed(marked: NDArray[np.bool_], table: pa.Table, roles_time: str | None, roles_date: str | None,
+            night: Night, profile: ImportProfile | None, options: NightOptions,
+            source: str | None) -> NDArray[np.bool_]:
+    """:func:`_on_epochs`, with a time it cannot place reported as a problem."""
+    from ..errors import InvalidNightError
+
+    try:
+        return _on_epochs(marked, table, roles_time, roles_date, night, profile, options)
+    except (ValueError, TypeError) as exc:
+        raise InvalidNightError([Problem("marker_times", f"the markers cannot be placed on the epochs: {exc}",
+                                         {"field": roles_time or "time"})], source=source) from None
 
 
 def parquet_markers(data: bytes, night: Night, options: NightOptions, profile: ImportProfile | None,
@@ -179,7 +204,7 @@ def parquet_markers(data: bytes, night: Night, options: NightOptions, profile: I
             keep = (index >= 0) & (index < night.n_epochs)
             out[index[keep]] = marked[keep]
             return out, unused
-    return _on_epochs(marked, table, roles.time, roles.date, night, profile, options), unused
+    return _placed(marked, table, roles.time, roles.date, night, profile, options, source), unused
 
 
 def json_markers(value: object, n_epochs: int, problems: list[Problem]) -> NDArray[np.bool_]:

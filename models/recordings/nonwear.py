@@ -70,19 +70,22 @@ class NonwearConfig:
     window_minutes : float, default=30
         Zero-count window required before and after an interruption (Choi et al. 2011).
     long_minutes : float, default=240
-        A candidate this long is non-wear whatever its context (common practice).
+        A candidate this long is non-wear out of rest, and at rest when flat (common practice).
     edge_minutes : float, default=10
         Window on each side whose activity tells an abrupt edge (common practice).
     edge_moving_share : float, default=0.5
-        An edge is active when at least this share of its epochs move ...
+        An edge is active when at least this share of its epochs move (awake people move in most
+        epochs, quiet wake and sleep in a third or less; our design) ...
     active_fraction : float, default=0.1
-        ... and its mean count is at least this share of the person's moving level.
+        ... and its mean count is at least this share of the person's moving level (our design).
     flat_per_hour : float, default=0.25
-        At most this many non-zero epochs per hour make a candidate flat (one bump in four hours; our design).
+        At most this many non-zero epochs per hour make a candidate flat (one bump in four hours;
+        our design).
     rest_fraction : float, default=0.2
-        A 30-min clock bin is a rest hour when its mean count is below this share of the median bin.
+        A 30-min clock bin is a rest hour when its mean count is below this share of the median bin
+        (our design).
     night_hours : tuple of int, default=(22, 8)
-        Local clock window taken as rest for bins the recording does not cover.
+        Local clock window taken as rest for bins the recording does not cover (common practice).
     """
 
     min_minutes: float = 90.0

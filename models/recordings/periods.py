@@ -7,7 +7,8 @@ Detection (model-free, our design on published principles; thresholds in :class:
    non-wear (the principle of van Hees et al. 2018 carried over to counts).
 2. *Sleep calls* per epoch: a model's sleep probability ``p_sleep`` when given, else the share of
    moving epochs in a 10-min window (sleep moves in a few percent of its epochs, quiet wake in bed
-   in about a third).
+   in about a third); an epoch moves when its count is above zero, or above a low quantile of the
+   counts for a device whose counts never fall to zero (a noise floor).
 3. The *main period* of a noon-to-noon day (the day of the evening it starts) is its longest rest
    block (by its midpoint) that holds sleep and lasts at least ``min_main_minutes``; sleep onset is
    the first epoch of the first run of sleep calls of at least 10 min within it, sleep offset the
@@ -93,12 +94,17 @@ class PeriodConfig:
     nonwear : NonwearConfig
         Used when ``find_periods`` detects non-wear itself.
     diary_tolerance_minutes : float, default=30
+        A diary time this close to a detected boundary confirms it (common practice: diaries are
+        written in rounded clock times and from memory).
     marker_tolerance_minutes : float, default=30
+        A marker this close to a detected boundary replaces it (common practice).
     min_main_minutes : float, default=120
         Shortest rest block taken as a main period (common practice).
     nap_min_minutes : float, default=20
+        Shortest nap (common practice; 15-20 min are usual).
     nap_margin_minutes : float, default=30
-        A nap starts or ends at least this far from a main period.
+        A nap starts or ends at least this far from a main period (our design: sleep right beside
+        the main period belongs to it).
     nap_gap_minutes : float, default=5
         Wake calls up to this long inside a nap are bridged (a brief movement does not end a nap;
         common practice, as the merging of rest blocks).

@@ -32,6 +32,7 @@ from numpy.typing import NDArray
 
 from ..recordings.diary import DiaryDay, read_diary
 from ..recordings.recording import Recording
+from ._recording_variants import bed_offwrist, diary_shift_min, late_night_hours, night_edges, noise_floor
 from .simulator import _EMISSION, PersonTraits, _sleep_stages, _traits, simulate_night
 
 __all__ = ["RecordingSpec", "SimulatedDay", "SimulatedPsg", "SimulatedRecording", "simulate_recordings"]
@@ -70,6 +71,26 @@ class RecordingSpec:
     id_prefix : str, default="RC"
     first_date : str, default="2031-05-05"
     tz : str, default="Europe/Oslo"
+    bed_wake_minutes : tuple of float, default=(0, 0)
+        Range of a night's quiet wake in bed (reading, a phone) before its own sleep latency, drawn
+        per night; (0, 0) for none. This and the options below make harder variants, all off by
+        default (:mod:`models.simulation._recording_variants`).
+    morning_still_minutes : tuple of float, default=(0, 0)
+        Range of lying awake and still before rising.
+    gradual_minutes : float, default=0
+        Day activity fades over up to this long before bed and rises again after getting up.
+    late_night_rate : float, default=0
+        Chance of a late night (bed 3-5 h late, the night cut short at 11:00).
+    noise_floor_rate : float, default=0
+        Chance a participant's device has a noise floor (counts never exactly zero) ...
+    noise_floor_counts : int, default=3
+        ... adding 1 .. this many counts to every epoch ...
+    noise_offset_rate : float, default=0.3
+        ... and, with this chance, a constant 2-8 counts on top.
+    bed_offwrist_rate : float, default=0
+        Chance per night the device is taken off in bed (charging) and put on after rising.
+    diary_shift_rate : float, default=0
+        Chance per diary time of an extra error of 15-45 min.
     """
 
     n_participants: int = 6
@@ -86,6 +107,15 @@ class RecordingSpec:
     id_prefix: str = "RC"
     first_date: str = "2031-05-05"
     tz: str = "Europe/Oslo"
+    bed_wake_minutes: tuple[float, float] = (0.0, 0.0)
+    morning_still_minutes: tuple[float, float] = (0.0, 0.0)
+    gradual_minutes: float = 0.0
+    late_night_rate: float = 0.0
+    noise_floor_rate: float = 0.0
+    noise_floor_counts: int = 3
+    noise_offset_rate: float = 0.3
+    bed_offwrist_rate: float = 0.0
+    diary_shift_rate: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -177,7 +207,8 @@ def _clock_epoch(day0: pd.Timestamp, day: int, hours: float, tz: str) -> int:
     return int(round((when - day0).total_seconds() / _EPOCH))
 
 
-def _participant(rng: np.random.Generator, spec: RecordingSpec, pid: str) -> SimulatedRecording:
+def _participant(rng: np.random.Generator, spec: RecordingSpec, pid: str,
+                 extra: np.random.Generator) -> SimulatedRecording:
     traits = _traits(rng, spec.spread)
     day0 = pd.Timestamp(f"{spec.first_date} 12:00").tz_localize(spec.tz)
     n = _clock_epoch(day0, spec.n_days, 12.0, spec.tz)
@@ -191,17 +222,21 @@ def _participant(rng: np.random.Generator, spec: RecordingSpec, pid: str) -> Sim
         date = (day0 + pd.Timedelta(days=d)).date()
         free = (date + dt.timedelta(days=1)).weekday() >= 5  # the morning after is Saturday or Sunday
         bed_h = 23.0 + chrono_h + (1.0 if free else 0.0) + float(rng.normal(0.0, 0.5))
+        late_h = late_night_hours(extra, spec)
+        bed_h += late_h
         pre = int(rng.integers(10, 40))
         start = _clock_epoch(day0, d, bed_h, spec.tz) - pre * _PER_MIN
         sim = simulate_night(rng, traits, participant_id=pid, start=day0 + pd.Timedelta(seconds=start * _EPOCH),
                              labelled=True)
-        stop = min(n, start + sim.night.n_epochs)
+        stop = min(n, start + sim.night.n_epochs, _clock_epoch(day0, d + 1, 11.0, spec.tz) if late_h else n)
         counts[start:stop] = sim.night.counts[: stop - start]
         asleep = sim.stages[: stop - start] != "W"
         sleep[start:stop] = asleep
         first, stop_in_bed = sim.night.in_bed
-        bed, rise = start + first, start + stop_in_bed
+        bed, rise = start + first, min(stop, start + stop_in_bed)
         idx = np.flatnonzero(asleep)
+        bed, rise = night_edges(extra, spec, counts, sleep, bed, rise, start + int(idx[0]), start + int(idx[-1]) + 1,
+                                traits.gain, traits.quiet_wake_movement)
         stages_of[d] = (start, sim.stages[: stop - start])
         naps: list[tuple[int, int]] = []
         for kind, rate in (("nap", spec.nap_rate), ("doze", spec.doze_rate)):
@@ -222,13 +257,15 @@ def _participant(rng: np.random.Generator, spec: RecordingSpec, pid: str) -> Sim
                                  offset_epoch=start + int(idx[-1]) + 1, free_day=free, observable=True,
                                  naps=tuple(sorted(naps))))
     nonwear = _offwrist(rng, spec, day0, days, counts, sleep, markers, traits.gain)
+    nonwear = sorted(nonwear + bed_offwrist(extra, spec, days, nonwear, counts, sleep, markers, traits.gain))
+    noise_floor(extra, spec, counts)
     for a, _, kind in nonwear:
-        if kind == "night":
+        if kind in ("night", "bed"):
             i = next(i for i, day in enumerate(days) if day.bed_epoch <= a < day.rise_epoch)
             days[i] = replace(days[i], observable=False)
     recording = Recording(participant_id=pid, start=day0, epoch_seconds=_EPOCH, counts=counts, markers=markers,
                           source_name=f"simulated-{pid}.csv")
-    diary_csv = _diary_csv(rng, spec, day0, days)
+    diary_csv = _diary_csv(rng, spec, day0, days, extra)
     diary = read_diary(diary_csv.encode(), tz=spec.tz)
     psg = _psg(rng, spec, day0, stages_of, days)
     return SimulatedRecording(recording=recording, diary=diary, diary_csv=diary_csv, days=tuple(days),
@@ -281,7 +318,7 @@ def _hhmm(recording_start: pd.Timestamp, epoch: int, error_min: float) -> str:
 
 
 def _diary_csv(rng: np.random.Generator, spec: RecordingSpec, day0: pd.Timestamp,
-               days: list[SimulatedDay]) -> str:
+               days: list[SimulatedDay], extra: np.random.Generator) -> str:
     """Diary text: rounded times with small errors, some gross errors, blank days and forgotten naps."""
     n_naps = max((len(d.naps) for d in days), default=0)
     head = ["date", "bed_time", "rise_time"] + [f"nap{k + 1}_{p}" for k in range(n_naps) for p in ("start", "end")]
@@ -295,6 +332,7 @@ def _diary_csv(rng: np.random.Generator, spec: RecordingSpec, day0: pd.Timestamp
                 err = float(rng.normal(0.0, spec.diary_error_min))
                 if rng.random() < spec.diary_gross_rate:
                     err = float(rng.choice([-1, 1]) * rng.uniform(45, 120))
+                err += diary_shift_min(extra, spec)
                 cells.append(_hhmm(day0, epoch, err))
         for k in range(n_naps):
             if k < len(day.naps) and rng.random() < 0.75:
@@ -326,5 +364,6 @@ def _psg(rng: np.random.Generator, spec: RecordingSpec, day0: pd.Timestamp,
 def simulate_recordings(spec: RecordingSpec = RecordingSpec(), *, seed: int = 20310505) -> list[SimulatedRecording]:
     """Simulate one recording per participant; the same ``spec`` and ``seed`` give the same output bit for bit."""
     rng = np.random.default_rng(seed)
-    return [_participant(np.random.default_rng(rng.integers(2**63)), spec, f"{spec.id_prefix}-{p + 1:02d}")
+    return [_participant(np.random.default_rng(rng.integers(2**63)), spec, f"{spec.id_prefix}-{p + 1:02d}",
+                         np.random.default_rng([seed, p, 7]))  # the variants' own stream
             for p in range(spec.n_participants)]

@@ -186,3 +186,16 @@ def test_epoch_length_adaptation_on_simulated_recordings() -> None:
     for day, p in coarse.items():  # the same times, up to one 30-s epoch of window centring
         assert abs(fine[day].onset_epoch - 2 * p.onset_epoch) <= 2
         assert abs(fine[day].offset_epoch - 2 * p.offset_epoch) <= 2
+
+
+def test_a_device_with_a_noise_floor_gives_the_same_periods() -> None:
+    rec = _made()
+    rng = np.random.default_rng(4)
+    noisy = Recording(participant_id="P-07", start=rec.start, epoch_seconds=60, markers=rec.markers,
+                      counts=rec.counts + rng.integers(1, 4, rec.n_epochs))  # never zero: 1-3 counts of noise
+    mains = _mains(find_periods(noisy, nonwear=[]))
+    assert sorted(mains) == [dt.date(2031, 5, 5), dt.date(2031, 5, 6), dt.date(2031, 5, 7)]
+    for day, p in mains.items():  # the made times, as without the noise
+        evening, morning = day.isoformat(), (day + dt.timedelta(days=1)).isoformat()
+        assert _minutes_off(rec, p.onset_epoch, f"{evening} 23:20") <= 10
+        assert _minutes_off(rec, p.offset_epoch, f"{morning} 06:40") <= 10

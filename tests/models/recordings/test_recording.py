@@ -73,6 +73,21 @@ def test_invalid_marker_is_located_by_row() -> None:
     assert problem.code == "invalid_marker"
     assert problem.location["row"] == 11  # header is line 1, epoch 0 is line 2
     assert "maybe" in problem.message
+    frame.loc[9, "marker"] = "-1"
+    assert _problems(_csv(frame))[0].location["row"] == 11
+    frame.loc[9, "marker"] = " TRUE "
+    frame.loc[12, "marker"] = "1.0"
+    assert np.flatnonzero(read_recording(_csv(frame), participant_id="P").markers).tolist() == [9, 12]
+
+
+def test_json_markers_as_booleans() -> None:
+    body = {"start": "2031-03-02T12:00:00+01:00", "epoch_seconds": 60, "counts": [3] * 120,
+            "markers": [False] * 119 + [True]}
+    rec = recording_from_json(body)
+    assert np.flatnonzero(rec.markers).tolist() == [119]
+    with pytest.raises(InvalidRecordingError) as info:
+        recording_from_json({**body, "markers": [True, False]})
+    assert info.value.problems[0].code == "markers_length"
 
 
 def test_json_csv_and_parquet_give_the_same_recording() -> None:
@@ -114,8 +129,12 @@ def test_length_limits() -> None:
     long = _frame(43 * day, epoch_seconds=60)  # 43 days > 42
     (problem,) = _problems(_csv(long))
     assert problem.code == "too_long" and "42 days" in problem.message
-    ok = read_recording(_csv(_frame(35 * day * 2)), participant_id="P")  # 35 days of 30-s epochs
+    month = _frame(35 * day * 2)  # 35 days of 30-s epochs
+    month["button"] = "0"
+    month.loc[100_790, "button"] = "x"  # a text mark long after the first megabyte of numbers
+    ok = read_recording(_csv(month), participant_id="P")
     assert ok.n_epochs == 100_800 and ok.days == pytest.approx(35.0)
+    assert np.flatnonzero(ok.markers).tolist() == [100_790]
 
 
 def test_json_problems_are_all_reported() -> None:
@@ -144,3 +163,18 @@ def test_aggregation_matches_pandas_resampling() -> None:
     with pytest.raises(InvalidRecordingError) as info:
         recording_to_epoch(minute, 30)
     assert info.value.problems[0].code == "epoch_length_mismatch"
+
+
+def test_preamble_and_metadata_lines_before_the_marker_header() -> None:
+    frame = _frame(240)
+    frame["button"] = "0"
+    frame.loc[[0, 239], "button"] = "1"
+    body = _csv(frame, "\t").decode()
+    text = "Device: wrist-07\nSerial: 123\n# label: night-x\n" + body
+    profile = ImportProfile(name="lab-b", skip_rows=2)
+    rec = read_recording(text.encode(), participant_id="P", profile=profile)
+    assert np.flatnonzero(rec.markers).tolist() == [0, 239]
+    frame.loc[5, "button"] = "?"
+    bad = "Device: wrist-07\nSerial: 123\n# label: night-x\n" + _csv(frame, "\t").decode()
+    (problem,) = _problems(bad.encode(), profile=profile)
+    assert problem.code == "invalid_marker" and problem.location["row"] == 10  # 3 lines, header, then epoch 5
