@@ -31,7 +31,7 @@ from .registry import find_participant, find_study
 from .snapshots import ParticipantInfo, StudyInfo, check_id, study_snapshot
 
 __all__ = ["RecordingInfo", "delete_recording", "ingest_recording", "labelled_nights", "list_recordings",
-           "load_recording", "recording_row", "recording_snapshot", "replace_derived"]
+           "load_recording", "recording_of_night", "recording_row", "recording_snapshot", "replace_derived"]
 
 
 @dataclass(frozen=True)
@@ -186,6 +186,16 @@ def ingest_recording(session: Session, *, study_id: str, recording: Recording, c
 def labelled_nights(session: Session, info: RecordingInfo) -> set[str]:
     """Ids of the recording's nights that carry a reference (PSG labels)."""
     return set(session.scalars(select(db.Night.night_id).where(db.Night.recording_pk == info.pk, db.Night.labelled)))
+
+
+def recording_of_night(session: Session, *, study_id: str, participant_id: str, night_id: str) -> str | None:
+    """The id of the recording a night is a view of, or None for a night posted on its own."""
+    return session.scalar(
+        select(db.RecordingRow.recording_id).join(db.Night, db.Night.recording_pk == db.RecordingRow.pk)
+        .join(db.Participant, db.Participant.pk == db.Night.participant_pk)
+        .join(db.Study, db.Study.pk == db.Participant.study_pk)
+        .where(db.Study.study_id == study_id, db.Participant.participant_id == participant_id,
+               db.Night.night_id == night_id))
 
 
 def recording_row(session: Session, *, study_id: str, participant_id: str,

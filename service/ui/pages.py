@@ -197,7 +197,10 @@ def night_page(request: Request, access: StudyPage, pid: ParticipantPath, night_
                            analyse=access.can_analyse)
     table = view.parameter_table()
     agreement = view.agreement_table()
-    return page(request, "night.html", principal=access.principal, pid=pid, info=view.info,
+    with session_scope(factory) as session:
+        recording_id = recordings.recording_of_night(session, study_id=access.study_id, participant_id=pid,
+                                                     night_id=night_id)
+    return page(request, "night.html", principal=access.principal, pid=pid, info=view.info, recording_id=recording_id,
                 night_name=view.info.label or view.info.night_id, requested=view.requested, shown=view.shown,
                 shown_body=view.shown_body, outcomes=view.outcomes, methods=NIGHT_METHODS, notice=view.notice,
                 summary=view.summary(), alt=view.alt_text(), caption=view.caption(),

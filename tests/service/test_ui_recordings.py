@@ -119,6 +119,9 @@ def test_ui_recording_page_shows_days_periods_and_links_each_night(tab, site) ->
     t.page.locator("#days-table tbody a").first.click()
     t.page.wait_for_load_state("networkidle")
     assert "/nights/" in t.page.url and t.page.locator("h1").inner_text().startswith("Night")
+    t.page.locator("#recording-link").click()  # and back to the recording
+    t.page.wait_for_load_state("networkidle")
+    assert t.page.url.endswith(f"/recordings/{rid}")
 
 
 def test_ui_recording_page_for_the_ingest_role_shows_the_recording_without_scores(tab, site) -> None:  # noqa: F811
