@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from ._runs import close_gaps, drop_short, rolling_mean, rolling_median, runs
+from ._runs import close_gaps, drop_short, floor_level, rolling_mean, rolling_median, runs
 
 __all__ = ["DetectionConfig", "moving_floor", "rest_blocks", "sleep_bounds", "sleep_calls"]
 
@@ -48,10 +48,10 @@ class DetectionConfig:
     floor_zero_share : float, default=0.2
         A recording with fewer exact zeros than this share of its worn epochs has a noise floor
         (a device whose counts never fall to zero) ...
-    floor_quantile : float, default=0.3
-        ... and an epoch then moves when its count exceeds this quantile of the worn counts (sleep
-        fills about a third of a day, so the quantile is the upper end of sleep's still level; our
-        design).
+    floor_peak_share : float, default=0.25
+        ... and an epoch then moves when its count exceeds the floor's top: the most frequent
+        whole count and the values above it at least this share as frequent (still sleep and
+        off-wrist time pile up on the floor; :func:`~._runs.floor_level`, our design).
     p_threshold : float, default=0.5
         With a model's sleep probability, an epoch is called sleep at or above this (common practice).
     """
@@ -67,7 +67,7 @@ class DetectionConfig:
     onset_minutes: float = 10.0
     offset_minutes: float = 5.0
     floor_zero_share: float = 0.2
-    floor_quantile: float = 0.3
+    floor_peak_share: float = 0.25
     p_threshold: float = 0.5
 
 
@@ -120,11 +120,8 @@ def sleep_calls(counts: NDArray[np.float64], worn: NDArray[np.bool_], epoch_seco
 
 
 def moving_floor(counts: NDArray[np.float64], worn: NDArray[np.bool_], config: DetectionConfig) -> float:
-    """Count above which an epoch moves: 0, or a low quantile for a device with a noise floor."""
-    present = counts[worn & np.isfinite(counts)]
-    if present.size == 0 or float(np.mean(present == 0)) >= config.floor_zero_share:
-        return 0.0
-    return float(np.quantile(present, config.floor_quantile))
+    """Count above which an epoch moves: 0, or the top of the noise floor of a device with one."""
+    return floor_level(counts[worn], zero_share=config.floor_zero_share, peak_share=config.floor_peak_share)
 
 
 def sleep_bounds(calls: NDArray[np.bool_], start: int, stop: int, epoch_seconds: int,

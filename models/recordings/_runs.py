@@ -6,7 +6,8 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-__all__ = ["active_level", "awake_sides", "close_gaps", "drop_short", "rolling_mean", "rolling_median", "runs"]
+__all__ = ["above_floor", "active_level", "awake_sides", "close_gaps", "drop_short", "floor_level", "rolling_mean",
+           "rolling_median", "runs"]
 
 
 def runs(mask: NDArray[np.bool_]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
@@ -66,3 +67,29 @@ def awake_sides(counts: NDArray[np.float64], start: int, stop: int, edge: int, m
         out.append(bool(present.size) and float(np.mean(present > 0)) >= moving_share
                    and float(np.mean(present)) >= min_mean)
     return out[0], out[1]
+
+
+def floor_level(counts: NDArray[np.float64], *, zero_share: float = 0.2, peak_share: float = 0.25) -> float:
+    """A device's "zero": 0, or the top of its noise floor when few counts are exactly zero.
+
+    A recording with at least ``zero_share`` exact zeros among its counts has no floor (0). Else the
+    floor is read from the recording's own histogram of whole counts: still sleep and off-wrist time
+    pile up on the floor's few values, so the most frequent count lies in it, and the floor reaches
+    up through the next values as long as each is at least ``peak_share`` as frequent as that peak
+    (our design; noise of 1-3 counts gives 3, the same on an offset of 5 gives 8).
+    """
+    present = counts[np.isfinite(counts)]
+    if present.size == 0 or float(np.mean(present == 0)) >= zero_share:
+        return 0.0
+    freq = np.bincount(np.clip(np.round(present), 0, 1000).astype(np.intp))
+    top = peak = int(np.argmax(freq))
+    while top + 1 < freq.size and freq[top + 1] >= peak_share * freq[peak]:
+        top += 1
+    return float(top)
+
+
+def above_floor(counts: NDArray[np.float64], level: float) -> NDArray[np.float64]:
+    """Counts with the epochs at or below the device's floor ``level`` set to 0 (NaN kept)."""
+    if level <= 0:
+        return counts
+    return np.where(np.isnan(counts) | (counts > level), counts, 0.0)

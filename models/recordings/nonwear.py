@@ -7,6 +7,14 @@ and the 30 min after it are all zero counts. The durations are converted to epoc
 allowance is 4 epochs of 30 s, 8 of 15 s); a missing epoch (NaN) counts as zero (nothing says the
 device was worn). The rule was derived for hip-worn devices, where still wear is rare.
 
+A device with a noise floor never gives exact zeros (our adaptation, our design): when fewer than
+``floor_zero_share`` (20 %) of the counts are exactly zero, the counts at or below the floor's top
+are its zeros for every step here. The top is read from the recording's own histogram of whole
+counts (still sleep and off-wrist time pile up on the floor's few values: the most frequent count
+and the values above it at least ``floor_peak_share`` (a quarter) as frequent). Off the wrist the
+counts then stay on the floor; still sleep rises above it with its sparse twitches (the flatness
+test below).
+
 Step 2, wrist context. On the wrist, still sleep also gives long runs of zeros, so a candidate is
 kept as non-wear only on further evidence (our own design; thresholds are common practice unless
 a source is named):
@@ -42,7 +50,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from ._runs import active_level, awake_sides, runs
+from ._runs import above_floor, active_level, awake_sides, floor_level, runs
 from .recording import Recording
 
 __all__ = ["NonwearConfig", "NonwearInterval", "choi_candidates", "detect_nonwear", "nonwear_mask"]
@@ -86,6 +94,12 @@ class NonwearConfig:
         (our design).
     night_hours : tuple of int, default=(22, 8)
         Local clock window taken as rest for bins the recording does not cover (common practice).
+    floor_zero_share : float, default=0.2
+    floor_peak_share : float, default=0.25
+        A device with fewer exact zeros than ``floor_zero_share`` of its counts has a noise floor;
+        counts up to the floor's top (the most frequent whole count and the values above it at
+        least this share as frequent) are its zeros for every step above (our design,
+        :func:`~._runs.floor_level`).
     """
 
     min_minutes: float = 90.0
@@ -98,6 +112,8 @@ class NonwearConfig:
     flat_per_hour: float = 0.25
     rest_fraction: float = 0.2
     night_hours: tuple[int, int] = (22, 8)
+    floor_zero_share: float = 0.2
+    floor_peak_share: float = 0.25
 
 
 def choi_candidates(counts: NDArray[np.float64], epoch_seconds: int, *, min_minutes: float = 90.0,
@@ -174,7 +190,8 @@ def detect_nonwear(recording: Recording, *, config: NonwearConfig = NonwearConfi
     list of NonwearInterval
         In time order, not overlapping.
     """
-    counts = recording.counts
+    zero = floor_level(recording.counts, zero_share=config.floor_zero_share, peak_share=config.floor_peak_share)
+    counts = above_floor(recording.counts, zero)  # a device's noise floor is its zero
     per_min = 60.0 / recording.epoch_seconds
     level = active_level(counts)
     edge = max(1, int(round(config.edge_minutes * per_min)))
@@ -189,19 +206,19 @@ def detect_nonwear(recording: Recording, *, config: NonwearConfig = NonwearConfi
     out = []
     for a, b in candidates:
         at_rest = float(rest_mask[a:b].mean()) >= 0.5
-        found = _judge(counts, a, b, at_rest, per_min, edge, level, config)
+        found = _judge(counts, a, b, at_rest, per_min, edge, level, config, zero)
         if found is None and at_rest:  # the flat core of a chained candidate may still be off the wrist
             starts, stops = runs(~(counts[a:b] > 0))
             k = int(np.argmax(stops - starts))
             if (stops[k] - starts[k]) >= config.min_minutes * per_min:
-                found = _judge(counts, a + int(starts[k]), a + int(stops[k]), True, per_min, edge, level, config)
+                found = _judge(counts, a + int(starts[k]), a + int(stops[k]), True, per_min, edge, level, config, zero)
         if found is not None:
             out.append(found)
     return out
 
 
 def _judge(counts: NDArray[np.float64], a: int, b: int, at_rest: bool, per_min: float, edge: int, level: float,
-           config: NonwearConfig) -> NonwearInterval | None:
+           config: NonwearConfig, zero: float = 0.0) -> NonwearInterval | None:
     """The candidate ``[a, b)`` as non-wear with its evidence, or None (rule in the module docstring)."""
     minutes = (b - a) / per_min
     active = awake_sides(counts, a, b, edge, config.edge_moving_share, config.active_fraction * level)
@@ -218,7 +235,8 @@ def _judge(counts: NDArray[np.float64], a: int, b: int, at_rest: bool, per_min: 
     if not keep:
         return None
     where = "at rest" if at_rest else "out of rest"
-    return NonwearInterval(a, b, f"zero counts for {minutes:.0f} min (Choi rule), {where}: " + ", ".join(evidence))
+    what = "zero counts" if zero <= 0 else f"counts at the device's floor (<= {zero:g})"
+    return NonwearInterval(a, b, f"{what} for {minutes:.0f} min (Choi rule), {where}: " + ", ".join(evidence))
 
 
 def nonwear_mask(n_epochs: int, intervals: Sequence[NonwearInterval]) -> NDArray[np.bool_]:

@@ -7,8 +7,9 @@ Detection (model-free, our design on published principles; thresholds in :class:
    non-wear (the principle of van Hees et al. 2018 carried over to counts).
 2. *Sleep calls* per epoch: a model's sleep probability ``p_sleep`` when given, else the share of
    moving epochs in a 10-min window (sleep moves in a few percent of its epochs, quiet wake in bed
-   in about a third); an epoch moves when its count is above zero, or above a low quantile of the
-   counts for a device whose counts never fall to zero (a noise floor).
+   in about a third); an epoch moves when its count is above zero, or, for a device whose
+   counts never fall to zero (a noise floor), above the floor's top read from the recording's
+   histogram (those counts are its zeros for rest blocks, sleep calls and naps alike).
 3. The *main period* of a noon-to-noon day (the day of the evening it starts) is its longest rest
    block (by its midpoint) that holds sleep and lasts at least ``min_main_minutes``; sleep onset is
    the first epoch of the first run of sleep calls of at least 10 min within it, sleep offset the
@@ -46,8 +47,8 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..nights import Night
-from ._detect import DetectionConfig, rest_blocks, sleep_bounds, sleep_calls
-from ._runs import awake_sides, close_gaps, runs
+from ._detect import DetectionConfig, moving_floor, rest_blocks, sleep_bounds, sleep_calls
+from ._runs import above_floor, awake_sides, close_gaps, runs
 from .diary import DiaryDay
 from .nonwear import NonwearConfig, NonwearInterval, detect_nonwear, nonwear_mask
 from .recording import Recording
@@ -195,9 +196,9 @@ def find_periods(recording: Recording, *, diary: Sequence[DiaryDay] | None = Non
     intervals = detect_nonwear(recording, config=config.nonwear) if nonwear is None else nonwear
     worn = ~nonwear_mask(n, intervals) & np.isfinite(recording.counts)
     det = config.detection
-    blocks = rest_blocks(recording.counts, worn, es, det)
-    calls = sleep_calls(recording.counts, worn, es, det, None if p_sleep is None else np.asarray(p_sleep, float),
-                        blocks)
+    counts = above_floor(recording.counts, moving_floor(recording.counts, worn, det))  # a noise floor is 0
+    blocks = rest_blocks(counts, worn, es, det)
+    calls = sleep_calls(counts, worn, es, det, None if p_sleep is None else np.asarray(p_sleep, float), blocks)
     mains: dict[dt.date, _Main] = {}
     for a, b in blocks:
         if b - a < config.min_main_minutes * per_min or sleep_bounds(calls, a, b, es, det) is None:
@@ -225,11 +226,11 @@ def find_periods(recording: Recording, *, diary: Sequence[DiaryDay] | None = Non
         onset, offset = bounds
         out.append(SleepPeriod("main", date, min(main.start, onset), max(main.end, offset), onset, offset,
                                main.source, tuple(main.conflicts)))
-    out += _naps(recording, calls, out, diary_days, config)
+    out += _naps(recording, counts, calls, out, diary_days, config)
     return sorted(out, key=lambda p: (p.start_epoch, p.kind))
 
 
-def _naps(recording: Recording, calls: NDArray[np.bool_], mains: list[SleepPeriod],
+def _naps(recording: Recording, counts: NDArray[np.float64], calls: NDArray[np.bool_], mains: list[SleepPeriod],
           diary_days: dict[dt.date, DiaryDay], config: PeriodConfig) -> list[SleepPeriod]:
     per_min = 60.0 / recording.epoch_seconds
     margin = int(config.nap_margin_minutes * per_min)
@@ -239,7 +240,6 @@ def _naps(recording: Recording, calls: NDArray[np.bool_], mains: list[SleepPerio
     diary_naps = [(recording.epoch_at(a), recording.epoch_at(b)) for d in diary_days.values() for a, b in d.naps]
     used = [False] * len(diary_naps)
     naps = []
-    counts = recording.counts
     edge = max(1, int(round(config.spell_edge_minutes * per_min)))
     for a, b in zip(*runs(free), strict=True):
         if b - a < config.nap_min_minutes * per_min:

@@ -17,17 +17,49 @@ recordings are bit for bit those without variants. The variants:
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from collections.abc import Sequence
+from typing import Protocol
 
 import numpy as np
 from numpy.typing import NDArray
 
-if TYPE_CHECKING:
-    from .recordings import RecordingSpec, SimulatedDay
-
 __all__ = ["bed_offwrist", "diary_shift_min", "late_night_hours", "night_edges", "noise_floor"]
 
 _PER_MIN = 2
+
+
+class RecordingSpec(Protocol):
+    """The options of :class:`~models.simulation.recordings.RecordingSpec` the variants read."""
+
+    @property
+    def bed_wake_minutes(self) -> tuple[float, float]: ...
+    @property
+    def morning_still_minutes(self) -> tuple[float, float]: ...
+    @property
+    def gradual_minutes(self) -> float: ...
+    @property
+    def late_night_rate(self) -> float: ...
+    @property
+    def noise_floor_rate(self) -> float: ...
+    @property
+    def noise_floor_counts(self) -> int: ...
+    @property
+    def noise_offset_rate(self) -> float: ...
+    @property
+    def bed_offwrist_rate(self) -> float: ...
+    @property
+    def diary_shift_rate(self) -> float: ...
+
+
+class SimulatedDay(Protocol):
+    """The truth of a day the variants read (:class:`~models.simulation.recordings.SimulatedDay`)."""
+
+    @property
+    def bed_epoch(self) -> int: ...
+    @property
+    def rise_epoch(self) -> int: ...
+    @property
+    def onset_epoch(self) -> int: ...
 
 
 def _emit_low(rng: np.random.Generator, n: int, prob: float, mean: float, gain: float) -> NDArray[np.float64]:
@@ -71,7 +103,7 @@ def night_edges(extra: np.random.Generator, spec: RecordingSpec, counts: NDArray
     return bed, rise
 
 
-def bed_offwrist(extra: np.random.Generator, spec: RecordingSpec, days: list[SimulatedDay],
+def bed_offwrist(extra: np.random.Generator, spec: RecordingSpec, days: Sequence[SimulatedDay],
                  taken: list[tuple[int, int, str]], counts: NDArray[np.float64], sleep: NDArray[np.bool_],
                  markers: NDArray[np.bool_], gain: float) -> list[tuple[int, int, str]]:
     """Nights the device is taken off in bed (charging) and put on again after rising: kind ``"bed"``."""

@@ -354,10 +354,16 @@ def _psg(rng: np.random.Generator, spec: RecordingSpec, day0: pd.Timestamp,
         start, stages = stages_of[d]
         day = days[d]
         first, stop = day.bed_epoch - start, day.rise_epoch - start
+        if first < 0 or stop > stages.size:  # in bed beyond the night's own stages (quiet or still wake): awake
+            padded = np.full(stop - first, "W", dtype=stages.dtype)
+            lo, hi = max(first, 0), min(stop, stages.size)
+            padded[lo - first: hi - first] = stages[lo:hi]
+            stages, first, stop = padded, 0, stop - first
         offset = float(np.round(rng.choice([-1, 1]) * rng.uniform(20, 240), 1))
         true_start = day0 + pd.Timedelta(seconds=day.bed_epoch * _EPOCH)
         out.append(SimulatedPsg(date=day.date, start=true_start - pd.Timedelta(seconds=offset), epoch_seconds=_EPOCH,
-                                stages=np.asarray(stages[first:stop]), clock_offset_s=offset, true_start=true_start))
+                                stages=np.asarray(stages[first:stop]), clock_offset_s=offset,
+                                true_start=true_start))
     return tuple(out)
 
 

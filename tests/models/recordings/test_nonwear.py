@@ -164,3 +164,60 @@ def test_simulated_offwrist_found_and_sleep_left_alone() -> None:
     assert long_total > 0
     assert long_found / long_total >= 0.95  # recall goal on the simulator's ground truth
     assert sleep_flagged / sleep_total <= 0.01
+
+
+# ---- devices with a noise floor (our design: the floor read from the recording's own counts) -------------
+
+def _floored(rec: Recording, offset: float, seed: int = 2) -> Recording:
+    """The same recording on a device adding 1-3 counts of noise to every epoch, plus a constant offset."""
+    rng = np.random.default_rng(seed)
+    return Recording(participant_id="P", start=rec.start, epoch_seconds=rec.epoch_seconds, markers=rec.markers,
+                     counts=rec.counts + rng.integers(1, 4, rec.n_epochs) + offset)
+
+
+@pytest.mark.parametrize(("offset", "top"), [(0.0, 3.0), (5.0, 8.0)])
+def test_floor_level_is_the_top_of_the_noise(offset: float, top: float) -> None:
+    from models.recordings._runs import floor_level
+
+    rec, _ = _recording()
+    # by hand from the definition: the most frequent whole count is in 1-3 (+ offset), and each value up to 3
+    # (+ offset) is about as frequent; the activity's Poisson(150) counts lie far above
+    assert floor_level(_floored(rec, offset).counts) == top
+    assert floor_level(rec.counts) == 0.0  # a third of the epochs are exactly zero: no floor
+
+
+@pytest.mark.parametrize("offset", [0.0, 5.0])
+def test_offwrist_on_a_noise_floor_device(offset: float) -> None:
+    rec, _ = _recording()
+    a, b = _at(rec, "2031-05-06 13:00"), _at(rec, "2031-05-06 16:00")  # 3 h off the wrist by day
+    c, d = _at(rec, "2031-05-07 02:00"), _at(rec, "2031-05-07 04:30")  # 150 min taken off in the night
+    off = _with(_with(rec, a, b, np.zeros(b - a)), c, d, np.zeros(d - c))
+    off = _with(_with(off, c - 10, c, np.full(10, 180.0)), d, d + 10, np.full(10, 180.0))
+    noisy = _floored(off, offset)
+    assert choi_candidates(noisy.counts, 60) == []  # Choi's rule alone needs exact zeros
+    found = detect_nonwear(noisy)
+    assert [(iv.start_epoch, iv.end_epoch) for iv in _overlapping(found, a, b)] == [(a, b)]
+    assert [(iv.start_epoch, iv.end_epoch) for iv in _overlapping(found, c, d)] == [(c, d)]
+    assert "device's floor" in found[0].reason
+    night = nonwear_mask(noisy.n_epochs, found) & _recording()[1]
+    assert night.sum() == d - c  # still sleep on the floor with its sparse twitches is left alone
+
+
+def test_simulated_noise_floor_devices_offwrist_found_and_sleep_left_alone() -> None:
+    from models.simulation.recordings import RecordingSpec, simulate_recordings
+
+    spec = RecordingSpec(n_participants=3, n_days=14, offwrist_rate=0.4, noise_floor_rate=1.0, noise_offset_rate=0.5,
+                         bed_offwrist_rate=0.15, bed_wake_minutes=(10.0, 60.0))
+    long_total = long_found = sleep_total = sleep_flagged = 0
+    for sim in simulate_recordings(spec, seed=12):
+        assert sim.recording.counts.min() >= 1
+        mask = nonwear_mask(sim.recording.n_epochs, detect_nonwear(sim.recording))
+        for a, b, _ in sim.nonwear:
+            if b - a >= 180:
+                long_total += b - a
+                long_found += int(mask[a:b].sum())
+        sleep_total += int(sim.sleep.sum())
+        sleep_flagged += int((sim.sleep & mask).sum())
+    assert long_total > 0
+    assert long_found / long_total >= 0.95  # recall goal on the simulator's ground truth
+    assert sleep_flagged / sleep_total <= 0.01
