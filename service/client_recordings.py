@@ -47,7 +47,7 @@ class RecordingMethods:
 
     def post_recording(self, study: str, participant: str, data: bytes | Mapping[str, Any], *, fmt: str = "json",
                        tz: str | None = None, profile: str | None = None, source_name: str | None = None,
-                       allow_overlap: bool = False) -> dict[str, Any]:
+                       allow_overlap: bool = False, allow_duplicate: bool = False) -> dict[str, Any]:
         """Store a continuous recording (days to weeks) in one upload.
 
         Returns
@@ -57,8 +57,9 @@ class RecordingMethods:
             ``periods`` (each main period's ``night_id``).
         """
         params = {k: v for k, v in (("tz", tz), ("profile", profile), ("source_name", source_name)) if v}
-        if allow_overlap:
-            params["allow_overlap"] = "true"
+        for name, on in (("allow_overlap", allow_overlap), ("allow_duplicate", allow_duplicate)):
+            if on:
+                params[name] = "true"
         return self._json("POST", self._recordings_url(study, participant), content=_content(data),
                           params=params or None, headers={"Content-Type": _MEDIA[fmt]}, timeout=600)
 

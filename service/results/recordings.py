@@ -94,8 +94,8 @@ def _write(factory: sessionmaker[Session], fn: Any) -> Any:
 
 def post_recording(factory: sessionmaker[Session], *, study_id: str, participant_id: str, body: bytes, fmt: str,
                    actor: str, tz: str | None = None, fill_gaps: bool = False, profile: str | None = None,
-                   source_name: str | None = None,
-                   allow_overlap: bool = False) -> tuple[store.RecordingInfo, bool, Recording]:
+                   source_name: str | None = None, allow_overlap: bool = False,
+                   allow_duplicate: bool = False) -> tuple[store.RecordingInfo, bool, Recording]:
     """Read, conform, derive and store a recording; returns the stored snapshot, whether it is new, the recording."""
     with session_scope(factory) as session:
         epoch_seconds = registry.find_study(session, study_id).epoch_seconds
@@ -108,7 +108,7 @@ def post_recording(factory: sessionmaker[Session], *, study_id: str, participant
     derived = derive(recording)
     info, created = _write(factory, lambda session: store.ingest_recording(
         session, study_id=study_id, recording=recording, columns=columns, derived=derived, actor=actor,
-        allow_overlap=allow_overlap))
+        allow_overlap=allow_overlap, allow_duplicate=allow_duplicate))
     return info, created, recording
 
 

@@ -134,7 +134,7 @@ def replace_derived(session: Session, *, study: StudyInfo, row: db.RecordingRow,
 
 def ingest_recording(session: Session, *, study_id: str, recording: Recording, columns: dict[str, Any],
                      derived: Derived, actor: str, diary: list[dict[str, Any]] | None = None,
-                     allow_overlap: bool = False) -> tuple[RecordingInfo, bool]:
+                     allow_overlap: bool = False, allow_duplicate: bool = False) -> tuple[RecordingInfo, bool]:
     """Store a recording with its derived periods and nights; the participant is created with it.
 
     The same content posted again to the same participant is not stored again (``created`` False).
@@ -143,7 +143,8 @@ def ingest_recording(session: Session, *, study_id: str, recording: Recording, c
     ------
     Conflict
         ``participant_id_case_clash`` as for nights; ``overlapping_recording`` when it overlaps a
-        stored recording of the participant (unless ``allow_overlap``).
+        stored recording of the participant (unless ``allow_overlap``); ``duplicate_recording`` when
+        another participant of the study has the same content (unless ``allow_duplicate``).
     """
     check_id(recording.participant_id, "participant id")
     study = study_snapshot(lock_study(session, study_id))
@@ -172,6 +173,16 @@ def ingest_recording(session: Session, *, study_id: str, recording: Recording, c
                 raise Conflict(f"the recording ({columns['start']} to {recording.end.isoformat()}) overlaps recording "
                                f"{hit[0]!r} of participant {recording.participant_id!r}, which starts {hit[1]}; "
                                "post it with allow_overlap=true to store it anyway", code="overlapping_recording")
+    if not allow_duplicate:
+        other = session.execute(
+            select(db.Participant.participant_id, db.RecordingRow.recording_id)
+            .join(db.Participant, db.Participant.pk == db.RecordingRow.participant_pk)
+            .where(db.Participant.study_pk == study.pk, db.RecordingRow.content_hash == columns["content_hash"],
+                   db.Participant.pk != participant.pk).limit(1)).first()
+        if other is not None:
+            raise Conflict(f"the same recording (same content) is stored for participant {other[0]!r} of study "
+                           f"{study_id!r} as recording {other[1]!r}; post it with allow_duplicate=true to store it "
+                           f"for {pid!r} too", code="duplicate_recording")
     row = db.RecordingRow(participant_pk=participant.pk, created_at=db.utcnow(), diary=diary, nonwear=[], periods=[],
                           references=[], **columns)
     session.add(row)

@@ -138,6 +138,23 @@ def test_altered_stored_counts_are_refused_on_load_not_served(sqlite_world: Worl
     assert "damaged or altered" in r.json()["detail"]
 
 
+def test_the_same_recording_for_another_participant_or_overlapping_one_is_refused(sqlite_world: World) -> None:
+    http = sqlite_world.http
+    sim = simulated(3, seed=43, psg_nights=0)[0]
+    assert post_recording(http, sim).status_code == 201
+    body = recording_csv(sim.recording)
+    other = http.post(recordings_url("P-02"), content=body, headers={"Content-Type": "text/csv"})
+    assert other.status_code == 409 and other.json()["code"] == "duplicate_recording"
+    assert "'P-01'" in other.json()["detail"]
+    allowed = http.post(recordings_url("P-02"), content=body, headers={"Content-Type": "text/csv"},
+                        params={"allow_duplicate": "true"})
+    assert allowed.status_code == 201
+    later = simulated(3, seed=44, psg_nights=0)[0]  # the same days, other counts
+    overlap = post_recording(http, later)
+    assert overlap.status_code == 409 and overlap.json()["code"] == "overlapping_recording"
+    assert post_recording(http, later, allow_overlap="true").status_code == 201
+
+
 def test_recordings_are_listed_read_and_deleted_with_their_nights(sqlite_world: World) -> None:
     http = sqlite_world.http
     sim = simulated(4, seed=5)[0]

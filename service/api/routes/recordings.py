@@ -79,7 +79,8 @@ that divide it are summed; others refused, 422 `epoch_length_mismatch`); its non
 and sleep periods are found, and each main sleep period becomes a night of the participant that
 reads its epochs from the recording (non-wear epochs unscored). Posting the same content again
 answers 200 with the stored id. 409 `overlapping_recording` when it overlaps a stored recording
-of the participant (`allow_overlap=true` stores it anyway).
+of the participant (`allow_overlap=true` stores it anyway), `duplicate_recording` when another
+participant of the study has the same recording (`allow_duplicate=true` stores it anyway).
 """
 
 
@@ -95,12 +96,14 @@ async def post_recording(request: Request, access: IngestAccess, pid: Participan
                                                                   description="the file it came from")] = None,
                          allow_overlap: Annotated[bool, Query(
                              description="store even if it overlaps a stored recording of the participant")] = False,
+                         allow_duplicate: Annotated[bool, Query(
+                             description="store even if another participant has the same recording")] = False,
                          ) -> Any:
     body, fmt = await _body(request, settings)
     info, created, recording = await run_in_threadpool(
         work.post_recording, factory, study_id=access.study_id, participant_id=pid, body=body, fmt=fmt,
         actor=access.actor, tz=tz, fill_gaps=fill_gaps, profile=profile, source_name=source_name,
-        allow_overlap=allow_overlap)
+        allow_overlap=allow_overlap, allow_duplicate=allow_duplicate)
     out = RecordingAccepted(recording_id=info.recording_id, created=created, start=info.start, end=info.end,
                             epoch_seconds=info.epoch_seconds, source_epoch_seconds=info.source_epoch_seconds,
                             n_epochs=info.n_epochs, unused_columns=list(recording.unused_columns),
