@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from backends import BACKENDS, World, live_world
+from harness import cohort_bodies
 
 STUDY = "s1"
 
@@ -431,3 +432,29 @@ def test_a_lab_export_is_read_with_a_saved_profile_and_15_s_epochs_are_summed(sq
     worn = ~np.isnan(got)
     assert worn.any()
     np.testing.assert_allclose(got[worn], rec.counts[first:first + got.size][worn])  # pairs summed back
+
+
+def test_downgrading_below_recordings_removes_them_and_their_nights_only(tmp_path: Path) -> None:
+    from sqlalchemy import create_engine, text
+
+    from service.config import Settings
+    from service.store.schema import downgrade, upgrade
+
+    with live_world("sqlite", tmp_path) as w:
+        http = w.http
+        posted = cohort_bodies(n_participants=1, nights=1, seed=47)["P-01"]
+        for body in posted:
+            assert http.post(f"/v1/studies/{STUDY}/participants/P-01/nights", json=body).status_code == 201
+        body = post_recording(http, simulated(3, seed=47, psg_nights=0)[0]).json()
+        night_id = next(p["night_id"] for p in body["periods"] if p["kind"] == "main")
+        assert http.get(f"/v1/studies/{STUDY}/participants/P-01/nights/{night_id}/scoring",
+                        params={"method": "sadeh"}).status_code == 200
+    settings = Settings(db=f"sqlite:///{tmp_path / 'nightbank.db'}")
+    downgrade(settings, "0002")
+    engine = create_engine(settings.db)
+    with engine.connect() as conn:
+        assert conn.execute(text("SELECT count(*) FROM nights")).scalar() == len(posted)  # posted nights stay
+        orphans = conn.execute(text("SELECT count(*) FROM scorings WHERE night_pk NOT IN (SELECT pk FROM nights)"))
+        assert orphans.scalar() == 0
+    engine.dispose()
+    upgrade(settings)

@@ -6,7 +6,8 @@ Upgrades a 0002 database in place, keeping every row:
   markers, its diary, non-wear intervals, sleep periods and PSG references;
 - ``nights.recording_pk`` and ``nights.first_epoch`` (NULL: a night posted on its own).
 
-Downgrade removes the recordings and the nights that are views of them.
+Downgrade removes the recordings and the nights that are views of them (with their cached
+scorings and features).
 
 Revision ID: 0003
 Revises: 0002
@@ -61,7 +62,11 @@ def upgrade() -> None:
 
 
 def downgrade() -> None:
-    nights = sa.table('nights', sa.column('recording_pk', sa.Integer()))
+    nights = sa.table('nights', sa.column('pk', sa.Integer()), sa.column('recording_pk', sa.Integer()))
+    views = sa.select(nights.c.pk).where(nights.c.recording_pk.is_not(None))
+    for name in ('scorings', 'night_features'):  # foreign keys are not enforced during migrations on SQLite
+        derived = sa.table(name, sa.column('night_pk', sa.Integer()))
+        op.execute(sa.delete(derived).where(derived.c.night_pk.in_(views)))
     op.execute(sa.delete(nights).where(nights.c.recording_pk.is_not(None)))
     with op.batch_alter_table('nights', schema=None) as batch_op:
         batch_op.drop_constraint('fk_nights_recording', type_='foreignkey')
