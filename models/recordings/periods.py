@@ -22,12 +22,18 @@ Anchors, where the lab has them, set the rest interval (in bed):
 * a diary bed (rise) time within ``diary_tolerance_minutes`` (30) of the detected block's start
   (end) confirms it and the diary's time is used (source ``"diary"``, common practice: the diary
   is the lab's record of time in bed); a diary time farther away is reported as a conflict, e.g.
-  ``"diary bed time 70 min from detected rest"``, and detection is kept;
+  ``"diary bed time 70 min from detected rest"``, and detection is kept; except a bed time before
+  the detected rest (a rise time after it) within ``diary_quiet_minutes`` (90) across quiet wake
+  (at most ``diary_quiet_share`` of the epochs between move): reading or lying awake in bed,
+  which detection leaves out of rest, is in bed all the same (our design);
 * a day the diary gives bed and rise times for but detection finds no main period is taken from
   the diary when it holds sleep (source ``"diary"``).
 
 Onset and offset are searched over the union of the detected block and the anchored interval,
-and the rest interval widened to hold them. *Naps* are runs of sleep calls of at least
+and the rest interval widened to hold them; where the diary set a boundary, onset is the first
+persistent sleep after the diary's bed time (offset the last before its rise time), less a slack of
+``diary_slack_minutes`` for the diary's rounding, so quiet wake in bed after the bed time written
+down is never taken for sleep. *Naps* are runs of sleep calls of at least
 ``nap_min_minutes`` (20, common practice; wake calls up to 5 min bridged) outside the main
 periods (with a margin of 30 min),
 except a run without any movement right between moving minutes (a short spell off the wrist);
@@ -114,6 +120,16 @@ class PeriodConfig:
         A nap candidate without any movement whose zero run has at least this share of moving
         epochs in the ``spell_edge_minutes`` on both sides is a short spell off the wrist (taking a
         device off and putting it on moves it; settling into a nap is quiet). Our design.
+    diary_slack_minutes : float, default=15
+        Where the diary set the rest start (end), sleep onset (offset) is searched from this long
+        before its bed time (up to this long after its rise time) only; with no sleep there, over
+        the whole search span (our design: diaries are written in rounded times).
+    diary_quiet_minutes : float, default=90
+    diary_quiet_share : float, default=0.6
+        A diary bed time before the detected rest (a rise time after it) farther than the
+        tolerance but within ``diary_quiet_minutes`` is still taken when at most this share of the
+        epochs between them move: quiet wake in bed (reading, lying awake) moves in a third to a
+        half of its 30-s epochs, sitting up awake in most (our design).
     """
 
     detection: DetectionConfig = field(default_factory=DetectionConfig)
@@ -126,6 +142,9 @@ class PeriodConfig:
     nap_gap_minutes: float = 5.0
     spell_edge_minutes: float = 2.0
     spell_edge_share: float = 0.75
+    diary_slack_minutes: float = 15.0
+    diary_quiet_minutes: float = 90.0
+    diary_quiet_share: float = 0.6
 
 
 def _day_of(recording: Recording, epoch: int) -> dt.date:
@@ -140,6 +159,7 @@ class _Main:
     search: tuple[int, int]
     source: str = "detected"
     conflicts: list[str] = field(default_factory=list)
+    diary_sides: set[str] = field(default_factory=set)
 
 
 def _anchor_markers(main: _Main, markers: NDArray[np.intp], tol: int) -> None:
@@ -151,18 +171,26 @@ def _anchor_markers(main: _Main, markers: NDArray[np.intp], tol: int) -> None:
             main.source = "marker"
 
 
-def _anchor_diary(main: _Main, day: DiaryDay, recording: Recording, tol: int, per_min: float) -> None:
+def _quiet_outside(main: _Main, side: str, at: int, moving: NDArray[np.bool_], far: int, share: float) -> bool:
+    """Whether ``at`` lies outside the block on ``side``, within ``far``, across quiet wake (few moving epochs)."""
+    span = moving[at: main.start] if side == "start" else moving[main.end: at]
+    gap = main.start - at if side == "start" else at - main.end
+    return 0 < gap <= far and span.size > 0 and float(np.mean(span)) <= share
+
+
+def _anchor_diary(main: _Main, day: DiaryDay, recording: Recording, tol: int, per_min: float,
+                  moving: NDArray[np.bool_], config: PeriodConfig) -> None:
+    far = int(config.diary_quiet_minutes * per_min)
     for side, when, name in (("start", day.bed_time, "bed"), ("end", day.rise_time, "rise")):
         if when is None:
             continue
         at = recording.epoch_at(when)
         gap = abs(at - getattr(main, side))
-        if gap <= tol:
-            if main.source == "detected":
+        if gap <= tol or _quiet_outside(main, side, at, moving, far, config.diary_quiet_share):
+            if main.source in ("detected", "diary"):
                 setattr(main, side, at)
                 main.source = "diary"
-            elif main.source == "diary":
-                setattr(main, side, at)
+                main.diary_sides.add(side)
             main.search = (min(main.search[0], at), max(main.search[1], at))
         else:
             main.conflicts.append(f"diary {name} time {math.ceil(gap / per_min - 1e-9)} min from detected rest")
@@ -213,14 +241,22 @@ def find_periods(recording: Recording, *, diary: Sequence[DiaryDay] | None = Non
     diary_days = {d.date: d for d in diary or ()}
     for date, entry in diary_days.items():
         if date in mains:
-            _anchor_diary(mains[date], entry, recording, int(config.diary_tolerance_minutes * per_min), per_min)
+            _anchor_diary(mains[date], entry, recording, int(config.diary_tolerance_minutes * per_min), per_min,
+                          worn & (counts > 0), config)
         elif entry.bed_time is not None and entry.rise_time is not None:
             a, b = recording.epoch_at(entry.bed_time), recording.epoch_at(entry.rise_time)
             if b - a >= config.min_main_minutes * per_min and sleep_bounds(calls, a, b, es, det) is not None:
                 mains[date] = _Main(a, b, (a, b), "diary")
     out: list[SleepPeriod] = []
+    slack = int(round(config.diary_slack_minutes * per_min))
     for date, main in mains.items():
-        bounds = sleep_bounds(calls, *main.search, es, det)
+        first, last = main.search
+        if "start" in main.diary_sides:  # sleep onset: the first persistent sleep after the diary's bed time
+            first = max(first, main.start - slack)
+        if "end" in main.diary_sides:  # sleep offset: the last before its rise time
+            last = min(last, main.end + slack)
+        bounds = sleep_bounds(calls, first, last, es, det) if last > first else None
+        bounds = bounds or sleep_bounds(calls, *main.search, es, det)
         if bounds is None:
             continue
         onset, offset = bounds

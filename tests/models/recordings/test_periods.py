@@ -199,3 +199,58 @@ def test_a_device_with_a_noise_floor_gives_the_same_periods() -> None:
         evening, morning = day.isoformat(), (day + dt.timedelta(days=1)).isoformat()
         assert _minutes_off(rec, p.onset_epoch, f"{evening} 23:20") <= 10
         assert _minutes_off(rec, p.offset_epoch, f"{morning} 06:40") <= 10
+
+
+def test_hard_simulated_variants_onset_apart_from_bed_time() -> None:
+    from models.simulation.recordings import RecordingSpec, simulate_recordings
+
+    spec = RecordingSpec(n_participants=2, n_days=14, bed_wake_minutes=(10.0, 60.0), morning_still_minutes=(5.0, 30.0),
+                         gradual_minutes=45.0, noise_floor_rate=1.0, noise_offset_rate=0.5, diary_shift_rate=0.3)
+    errors: dict[bool, list[float]] = {False: [], True: []}
+    bed_errors: dict[bool, list[float]] = {False: [], True: []}
+    latency: list[float] = []
+    for sim in simulate_recordings(spec, seed=31):
+        for with_diary in (False, True):
+            mains = _mains(find_periods(sim.recording, diary=sim.diary if with_diary else None))
+            for day in sim.days:
+                if day.observable:
+                    p = mains[day.date]
+                    errors[with_diary] += [abs(p.onset_epoch - day.onset_epoch) / 2,
+                                           abs(p.offset_epoch - day.offset_epoch) / 2]
+                    bed_errors[with_diary].append(abs(p.start_epoch - day.bed_epoch) / 2)
+                    latency.append((p.onset_epoch - p.start_epoch) / 2)
+    assert np.median(errors[True]) <= 10.0 and np.median(errors[False]) <= 15.0  # minutes, the goals
+    assert np.median(latency) >= 10  # quiet wake in bed: sleep onset well after the rest start
+    assert np.mean(bed_errors[True]) < np.mean(bed_errors[False])  # the diary's bed time helps the rest start
+
+
+def test_diary_bed_time_bounds_the_onset_search() -> None:
+    from models import PeriodConfig
+
+    rec = _made()
+    day = dt.date(2031, 5, 5)
+    base = _mains(find_periods(rec, nonwear=[]))[day]
+    # a diary bed time (23:45) after the detected sleep onset, within a 60-min tolerance of the detected rest
+    # start: with no slack, sleep onset is the first persistent sleep after the bed time written down
+    diary = [DiaryDay(date=day, bed_time=_t("2031-05-05 23:45"), rise_time=_t("2031-05-06 07:00"))]
+    config = PeriodConfig(diary_slack_minutes=0.0, diary_tolerance_minutes=60.0)
+    p = _mains(find_periods(rec, nonwear=[], diary=diary, config=config))[day]
+    assert p.source == "diary" and p.start_epoch == rec.epoch_at(_t("2031-05-05 23:45"))
+    assert p.onset_epoch >= p.start_epoch > base.onset_epoch
+
+
+@pytest.mark.parametrize(("pattern", "taken"), [([200.0, 200.0, 200.0, 0.0, 0.0, 0.0], True), ([200.0] * 6, False)])
+def test_diary_bed_time_before_detected_rest_across_quiet_wake(pattern: list[float], taken: bool) -> None:
+    rec = _made()
+    a, b = rec.epoch_at(_t("2031-05-05 22:10")), rec.epoch_at(_t("2031-05-05 23:00"))
+    counts = rec.counts.copy()
+    counts[a:b] = np.resize(pattern, b - a)  # half the minutes move (in bed, awake) or all (sitting up)
+    made = Recording(participant_id="P", start=rec.start, epoch_seconds=60, counts=counts, markers=rec.markers)
+    day = dt.date(2031, 5, 5)
+    detected = _mains(find_periods(made, nonwear=[]))[day]
+    assert detected.start_epoch >= b - 10  # the rolling median stays high over the 3-in-6 pattern (its edge aside)
+    assert detected.start_epoch - rec.epoch_at(_t("2031-05-05 22:15")) > 30  # beyond the diary tolerance
+    diary = [DiaryDay(date=day, bed_time=_t("2031-05-05 22:15"), rise_time=_t("2031-05-06 07:00"))]
+    p = _mains(find_periods(made, nonwear=[], diary=diary))[day]
+    assert (p.start_epoch == rec.epoch_at(_t("2031-05-05 22:15"))) is taken
+    assert any("diary bed time" in c for c in p.conflicts) is not taken
