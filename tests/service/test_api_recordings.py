@@ -458,3 +458,20 @@ def test_downgrading_below_recordings_removes_them_and_their_nights_only(tmp_pat
         assert orphans.scalar() == 0
     engine.dispose()
     upgrade(settings)
+
+
+def test_a_participant_renamed_or_merged_keeps_its_recording_and_nights(sqlite_world: World) -> None:
+    http = sqlite_world.http
+    first, second = simulated(3, seed=53, n_participants=2, psg_nights=0)
+    for sim in (first, second):
+        assert post_recording(http, sim).status_code == 201
+    merged = http.post(f"/v1/studies/{STUDY}/participants/P-02/rename", json={"to": "P-01"})
+    assert merged.status_code == 200, merged.text
+    listed = http.get(recordings_url("P-01")).json()
+    assert listed["count"] == 2
+    for rec in listed["data"]:
+        assert rec["night_ids"]
+        for night_id in rec["night_ids"]:  # each night still reads its epochs from its recording
+            r = http.get(f"/v1/studies/{STUDY}/participants/P-01/nights/{night_id}", params={"epochs": "true"})
+            assert r.status_code == 200 and len(r.json()["counts"]) == r.json()["n_epochs"]
+    assert http.get(recordings_url("P-02")).status_code == 404
