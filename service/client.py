@@ -33,6 +33,7 @@ from typing import Any, Final, Literal
 import httpx
 
 from .client_errors import problem_error
+from .client_recordings import RecordingMethods
 from .errors import BadRequest, ServiceError
 
 __all__ = ["FORMAT_MEDIA_TYPES", "KEEP", "NightbankClient", "problem_error"]
@@ -56,7 +57,7 @@ def _flags(**flags: bool) -> dict[str, str]:
     return {name: "true" for name, on in flags.items() if on}
 
 
-class NightbankClient:
+class NightbankClient(RecordingMethods):
     """Client of one nightbank server.
 
     Parameters

@@ -3,9 +3,11 @@
 from __future__ import annotations
 
 from .demo_study import (
+    DEMO_RECORDING_SPEC,
     DEMO_SEED,
     DEMO_STUDY_ID,
     demo_nights,
+    demo_recordings,
     write_demo_study,
 )
 from .recordings import (
@@ -25,6 +27,7 @@ from .simulator import (
 
 __all__ = [
     "CohortSpec",
+    "DEMO_RECORDING_SPEC",
     "DEMO_SEED",
     "DEMO_STUDY_ID",
     "PersonTraits",
@@ -34,6 +37,7 @@ __all__ = [
     "SimulatedPsg",
     "SimulatedRecording",
     "demo_nights",
+    "demo_recordings",
     "simulate_cohort",
     "simulate_night",
     "simulate_recordings",

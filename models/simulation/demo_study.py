@@ -3,7 +3,9 @@
 Scenario (invented, SIMULATED data): the fictional ferry operator "Gullwing Ferries" runs
 rotating shifts between made-up islands. Fourteen deckhands and their partners wore wrist
 actigraphs for one to nine nights; a sleep lab recorded PSG on most nights. One partner site
-scored PSG with the older R&K stages, and a few epochs were left unscored.
+scored PSG with the older R&K stages, and a few epochs were left unscored. Later, three of them
+wore the device for two weeks without a break (a continuous recording with a sleep diary and
+two PSG nights on the PSG system's own clock).
 """
 
 from __future__ import annotations
@@ -17,9 +19,12 @@ from numpy.typing import NDArray
 from ..nights.json_io import night_to_json
 from ..nights.night import Night
 from ..nights.tabular import night_to_csv
+from ..recordings.recording import recording_to_json
+from .recordings import RecordingSpec, SimulatedRecording, simulate_recordings
 from .simulator import CohortSpec, SimulatedNight, simulate_cohort
 
-__all__ = ["DEMO_SEED", "DEMO_STUDY_ID", "demo_nights", "write_demo_study"]
+__all__ = ["DEMO_RECORDING_SPEC", "DEMO_SEED", "DEMO_STUDY_ID", "demo_nights", "demo_recordings",
+           "write_demo_study"]
 
 DEMO_SEED = 20310302
 DEMO_STUDY_ID = "gullwing"
@@ -54,11 +59,35 @@ def demo_nights() -> list[SimulatedNight]:
     return out
 
 
+#: the demo study's continuous recordings: three participants (GW-01 .. GW-03), two weeks each
+DEMO_RECORDING_SPEC = RecordingSpec(n_participants=3, n_days=14, psg_nights=2, id_prefix="GW",
+                                    first_date="2031-05-05")
+
+
+def demo_recordings() -> list[SimulatedRecording]:
+    """The demo study's simulated continuous recordings (after the participants' nights, own seed)."""
+    return simulate_recordings(DEMO_RECORDING_SPEC, seed=DEMO_SEED + 2)
+
+
+def _write_recording(folder: Path, sim: SimulatedRecording) -> list[Path]:
+    """``recording.json``, ``diary.csv`` and one ``psg<k>.json`` hypnogram (PSG clock) per PSG night."""
+    paths = [folder / "recording.json", folder / "diary.csv"]
+    paths[0].write_text(json.dumps(recording_to_json(sim.recording), separators=(",", ":")) + "\n", encoding="utf-8")
+    paths[1].write_text(sim.diary_csv, encoding="utf-8")
+    for k, psg in enumerate(sim.psg, start=1):
+        path = folder / f"psg{k}.json"
+        body = {"start": psg.start.isoformat(), "epoch_seconds": psg.epoch_seconds, "stages": psg.stages.tolist()}
+        path.write_text(json.dumps(body, separators=(",", ":")) + "\n", encoding="utf-8")
+        paths.append(path)
+    return paths
+
+
 def write_demo_study(directory: str | Path) -> list[Path]:
     """Write the demo study: one folder per participant, nights as JSON (CSV for every fourth).
 
-    Returns the written night files, sorted. Also writes ``study.json`` (scenario and manifest).
-    The output is identical byte for byte on every run.
+    Three participants' folders also hold a continuous recording (``recording.json``), its diary
+    (``diary.csv``) and PSG hypnograms (``psg1.json``, ...). Returns every written file but
+    ``study.json`` (scenario and manifest), sorted. The output is identical byte for byte on every run.
     """
     root = Path(directory) / DEMO_STUDY_ID
     written: list[Path] = []
@@ -77,6 +106,13 @@ def write_demo_study(directory: str | Path) -> list[Path]:
         written.append(path)
         manifest.append({"participant_id": n.participant_id, "file": str(path.relative_to(root)),
                          "labelled": n.reference is not None, "day_sleep": sim.day_sleep})
+    recordings = []
+    for rec in demo_recordings():
+        pid = rec.recording.participant_id
+        files = _write_recording(root / pid, rec)
+        written += files
+        recordings.append({"participant_id": pid, "files": [str(p.relative_to(root)) for p in files],
+                           "days": len(rec.days), "psg_clock_offsets_s": [p.clock_offset_s for p in rec.psg]})
     info = {
         "study_id": DEMO_STUDY_ID,
         "name": "Gullwing Ferries crew-rest study (SIMULATED)",
@@ -84,6 +120,7 @@ def write_demo_study(directory: str | Path) -> list[Path]:
         "note": "Invented participants and data produced by models.simulation with a fixed seed; no real person.",
         "seed": DEMO_SEED,
         "nights": manifest,
+        "recordings": recordings,
     }
     (root / "study.json").write_text(json.dumps(info, indent=1) + "\n", encoding="utf-8")
     return sorted(written)

@@ -24,6 +24,7 @@ from models import DEMO_STUDY_ID, read_night, write_demo_study
 from .application import app
 from .console import console, problem_line
 from .data import night_summary
+from .recordings import is_recording_file, push_recording_files
 from .remote import STORED, push_folder, train_and_wait
 from .server import DbOption, local_settings
 
@@ -40,7 +41,7 @@ def demo_files(data_dir: Path) -> list[Path]:
     root = data_dir / DEMO_STUDY_ID
     if not (root / "study.json").exists():
         write_demo_study(data_dir)
-    return sorted(p for p in root.glob("*/*") if p.suffix in (".json", ".csv", ".parquet"))
+    return sorted(p for p in root.glob("*/*") if p.suffix in (".json", ".csv", ".parquet") and not is_recording_file(p))
 
 
 def _qc_table(files: list[Path]) -> Table:
@@ -206,6 +207,13 @@ def _run(client: Any, data_dir: Path, n_trials: int) -> None:
                   f"{len(bad)} refused")
     for r in bad:
         console.print(f"  [red]{r['file']}[/red]: {'; '.join(problem_line(p) for p in r['problems'])}")
+    recorded = push_recording_files(client, DEMO_STUDY_ID, data_dir / DEMO_STUDY_ID)
+    if recorded:
+        console.print(f"pushed {len(recorded)} recording, diary and PSG files (SIMULATED continuous recordings): "
+                      f"{sum(r['status'] in STORED for r in recorded)} stored")
+        for r in recorded:
+            if r["status"] not in STORED:
+                console.print(f"  [red]{r['file']}[/red]: {'; '.join(problem_line(p) for p in r['problems'])}")
     console.rule("[bold]training[/bold] (held-out validation; personal models are compared with the pooled one)")
     jobs = train_and_wait(client, DEMO_STUDY_ID, [("pooled", None)], n_trials=n_trials)
     eligible = [p["participant_id"] for p in client.list_participants(DEMO_STUDY_ID) if p["n_labelled_nights"] >= 3]
@@ -220,3 +228,33 @@ def _run(client: Any, data_dir: Path, n_trials: int) -> None:
     console.print(_bland_altman_table(comparison["bland_altman"]))
     for note in comparison["notes"]:
         console.print(f"[dim]note: {note}[/dim]")
+    print_day_tables(client, [r for r in recorded if r["kind"] == "recording" and r["status"] in STORED])
+
+
+def print_day_tables(client: Any, recordings: list[dict[str, Any]]) -> None:
+    """Print the day table of each stored demo recording (SIMULATED)."""
+    for r in recordings:
+        found = client.recording_days(DEMO_STUDY_ID, r["participant"], r["night_id"])
+        console.rule(f"[bold]days[/bold] of the SIMULATED recording of {r['participant']} "
+                     f"(nights scored with {', '.join(found['methods_used']) or found['method']})")
+        table = Table(box=box.SIMPLE_HEAD, pad_edge=False)
+        for col in ("day", "in bed", "onset", "offset", "out", "TST", "SOL", "WASO", "eff. %", "naps min",
+                    "off-wrist min", "set by"):
+            table.add_column(col, justify="left" if col in ("day", "set by") else "right", no_wrap=True)
+        for d in found["rows"]:
+            table.add_row(d["date"], *(_clock(d[k]) for k in ("bed_time", "sleep_onset", "sleep_offset", "rise_time")),
+                          *(_num(d[k]) for k in ("tst_min", "sol_min", "waso_min", "sleep_efficiency_pct", "nap_min",
+                                                 "nonwear_min")), d["source"] or "-")
+        console.print(table)
+        s = found["summary"]
+        tst = s["parameters"].get("tst_min") or {"mean": None, "sd": None}
+        console.print(f"TST {_num(tst['mean'])} ± {_num(tst['sd'])} min over {s['n_main_periods']} nights; "
+                      f"social jetlag {_num(s['social_jetlag_h'], 2)} h; SRI {_num(s['sri'])}")
+
+
+def _clock(value: str | None) -> str:
+    return "-" if not value else value[11:16]
+
+
+def _num(value: float | None, digits: int = 0) -> str:
+    return "-" if value is None else f"{value:.{digits}f}"

@@ -29,6 +29,7 @@ from .application import app
 from .console import DEFAULT_URL, ServerOption, TokenOption, TzOption, connect, console, err_console, problem_line
 from .data import night_summary
 from .profiles import fetch_profile, read_night_file
+from .recordings import check_recording_files, is_recording_file, push_recording_files
 
 __all__ = ["NIGHT_SUFFIXES", "PUSH_STATUSES", "STORED", "check_folder", "night_files", "progress_bar", "push_folder",
            "train_and_wait"]
@@ -53,8 +54,12 @@ def progress_bar(*, to: Console | None = None) -> Progress:
 
 
 def night_files(folder: Path) -> list[tuple[str, Path]]:
-    """``(participant id, file)`` for every night file in the sub-folders of ``folder``, sorted."""
-    return [(p.parent.name, p) for p in sorted(folder.glob("*/*")) if p.suffix.lower() in NIGHT_SUFFIXES]
+    """``(participant id, file)`` for every night file in the sub-folders of ``folder``, sorted.
+
+    Recording, diary and PSG files (:func:`service.cli.recordings.is_recording_file`) are not nights.
+    """
+    return [(p.parent.name, p) for p in sorted(folder.glob("*/*"))
+            if p.suffix.lower() in NIGHT_SUFFIXES and not is_recording_file(p)]
 
 
 def _row(folder: Path, pid: str, path: Path) -> dict[str, Any]:
@@ -197,11 +202,13 @@ def push(
     if dry_run:
         layout = None if profile is None else fetch_profile(study, profile, server=server, token=token)
         rows = check_folder(study, folder, tz=tz, profile=profile, layout=layout, progress_to=progress_to, **flags)
+        rows += check_recording_files(folder, tz=tz, layout=layout)
     else:
         with connect(server, token) as client:
             client.health()  # an unreachable server fails once, not once per file
             rows = push_folder(client, study, folder, tz=tz, jobs=jobs, profile=profile, progress_to=progress_to,
                                **flags)
+            rows += push_recording_files(client, study, folder, tz=tz, profile=profile)
     bad = [r for r in rows if r["status"] not in STORED]
     if as_json:
         for r in rows:

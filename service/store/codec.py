@@ -72,13 +72,17 @@ def night_columns(night: Night) -> dict[str, Any]:
 
 
 def night_from_row(row: db.Night, *, participant_id: str) -> Night:
-    """Rebuild the :class:`models.Night` stored in ``row``."""
+    """Rebuild the :class:`models.Night` stored in ``row`` (a night of a recording from the recording's epochs)."""
     def ts(text: str | None) -> pd.Timestamp | None:
         return None if text is None else pd.Timestamp(text)
 
+    reference = None if row.reference is None else decode_reference(row.reference)
+    if row.recording_pk is not None:
+        from .recording_codec import view_night
+
+        return view_night(row, participant_id=participant_id, reference=reference)
     return Night(participant_id=participant_id, start=pd.Timestamp(row.start), epoch_seconds=row.epoch_seconds,
-                 counts=decode_counts(row.counts),
-                 reference=None if row.reference is None else decode_reference(row.reference),
+                 counts=decode_counts(row.counts), reference=reference,
                  lights_off=ts(row.lights_off), lights_on=ts(row.lights_on), label=row.label)
 
 

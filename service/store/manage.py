@@ -76,6 +76,18 @@ def _delete_nights(session: Session, night_pks: list[int]) -> None:
         session.execute(delete(db.Night).where(db.Night.pk.in_(night_pks)))
 
 
+def _move_recordings(session: Session, *, source_pk: int, target_pk: int) -> None:
+    """Move a participant's recordings to another; one whose content the target has goes with its nights."""
+    have = set(session.scalars(select(db.RecordingRow.content_hash).where(db.RecordingRow.participant_pk == target_pk)))
+    for pk, content_hash in session.execute(select(db.RecordingRow.pk, db.RecordingRow.content_hash)
+                                            .where(db.RecordingRow.participant_pk == source_pk)).all():
+        if content_hash in have:
+            _delete_nights(session, list(session.scalars(select(db.Night.pk).where(db.Night.recording_pk == pk))))
+            session.execute(delete(db.RecordingRow).where(db.RecordingRow.pk == pk))
+    session.execute(update(db.RecordingRow).where(db.RecordingRow.participant_pk == source_pk)
+                    .values(participant_pk=target_pk))
+
+
 def delete_night(session: Session, *, study_id: str, participant_id: str, night_id: str,
                  actor: str) -> dict[str, Any]:
     """Delete one night, its cached scorings and its stored feature matrices.
@@ -99,6 +111,11 @@ def delete_night(session: Session, *, study_id: str, participant_id: str, night_
     night_pk, content_hash, label = row.pk, row.content_hash, row.label
     scorings = _count(session, db.Scoring, db.Scoring.night_pk == night_pk)
     features = _count(session, db.NightFeatures, db.NightFeatures.night_pk == night_pk)
+    if row.recording_pk is not None:  # a night of a recording: its period keeps no night
+        recording = session.get(db.RecordingRow, row.recording_pk)
+        if recording is not None:
+            recording.periods = [p | {"night_id": None} if p.get("night_id") == night_id else p
+                                 for p in recording.periods]
     _delete_nights(session, [night_pk])
     marked = versions.mark_deleted_night(session, study=study, content_hash=content_hash, night_id=night_id)
     owners = [m["participant_pk"] for m in marked if m["participant_pk"] is not None]
@@ -209,6 +226,7 @@ def rename_participant(session: Session, *, study_id: str, participant_id: str, 
         numbers = versions.move_personal_versions(session, study=study, source_pk=source.pk, target_pk=target.pk,
                                                   target_id=to, keep_active=keep_active)
         session.execute(update(db.Job).where(db.Job.participant_pk == source.pk).values(participant_pk=target.pk))
+        _move_recordings(session, source_pk=source.pk, target_pk=target.pk)
         session.execute(delete(db.Participant).where(db.Participant.pk == source.pk))
     moved = [pk for pk in night_pks if pk not in set(dropped)]
     if moved:

@@ -37,6 +37,7 @@ __all__ = [
     "ModelVersion",
     "Night",
     "NightFeatures",
+    "RecordingRow",
     "Participant",
     "Scoring",
     "Study",
@@ -126,6 +127,48 @@ class Night(Base):
     source_format: Mapped[str] = mapped_column(String(16))
     #: left out of personal and pooled training (still stored, listed and scored)
     excluded: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)
+    #: a night that is a view of a continuous recording: its epochs are the recording's
+    #: [first_epoch, first_epoch + n_epochs) and ``counts`` is empty (see :mod:`service.store.recordings`)
+    recording_pk: Mapped[int | None] = mapped_column(ForeignKey("recordings.pk", ondelete="CASCADE"), nullable=True,
+                                                     index=True)
+    first_epoch: Mapped[int | None] = mapped_column(Integer, nullable=True)
+
+
+class RecordingRow(Base):
+    """A continuous recording of a participant (days to weeks of epochs), stored whole and compressed.
+
+    ``counts`` and ``markers`` are zlib blobs (:mod:`service.store.recordings`); the diary, the
+    non-wear intervals, the sleep periods and the posted PSG references are JSON. Its main sleep
+    periods are nights (``nights.recording_pk``) that read their epochs from here.
+    """
+
+    __tablename__ = "recordings"
+    __table_args__ = (UniqueConstraint("participant_pk", "content_hash", name="uq_recording_content"),
+                      UniqueConstraint("participant_pk", "recording_id", name="uq_recording_id"),
+                      Index("ix_recordings_participant_start", "participant_pk", "start_utc"))
+
+    pk: Mapped[int] = mapped_column(Integer, primary_key=True)
+    participant_pk: Mapped[int] = mapped_column(ForeignKey("participants.pk", ondelete="CASCADE"))
+    recording_id: Mapped[str] = mapped_column(String(32))
+    content_hash: Mapped[str] = mapped_column(String(64))
+    #: ISO 8601 start of the first epoch with its UTC offset
+    start: Mapped[str] = mapped_column(String(40))
+    #: the recording's IANA zone (local days and clock times), or None: the start's fixed offset
+    tz: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    start_utc: Mapped[datetime] = mapped_column(UTCDateTime())
+    end_utc: Mapped[datetime] = mapped_column(UTCDateTime())
+    epoch_seconds: Mapped[int] = mapped_column(Integer)
+    source_epoch_seconds: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    n_epochs: Mapped[int] = mapped_column(Integer)
+    counts: Mapped[bytes] = mapped_column(LargeBinary, deferred=True)
+    markers: Mapped[bytes] = mapped_column(LargeBinary, deferred=True)
+    source_format: Mapped[str] = mapped_column(String(16))
+    source_name: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    diary: Mapped[list[dict[str, Any]] | None] = mapped_column(JSON(none_as_null=True), nullable=True)
+    nonwear: Mapped[list[dict[str, Any]]] = mapped_column(JSON)
+    periods: Mapped[list[dict[str, Any]]] = mapped_column(JSON)
+    references: Mapped[list[dict[str, Any]]] = mapped_column(JSON)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)
 
 

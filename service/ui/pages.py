@@ -13,7 +13,7 @@ from ..api.deps import FactoryDep
 from ..errors import NotFound, Unauthorized
 from ..jobs import queue as jobs
 from ..jobs.queue import JobInfo
-from ..store import registry
+from ..store import recordings, registry
 from ..store.db import session_scope
 from ..store.registry import StudyInfo
 from ..store.tokens import Principal
@@ -179,7 +179,10 @@ def participant_page(request: Request, access: StudyPage, pid: ParticipantPath, 
                       "roc_alt": roc_alt(curves),
                       "roc_caption": "; ".join(f"{method_label(c.method)} AUC {c.auc:.3f}" for c in curves)}
     follow = _followed(factory, job, view.job, study_id=access.study_id, participant_id=pid)
+    with session_scope(factory) as session:
+        found = recordings.list_recordings(session, study_id=access.study_id, participant_id=pid, limit=500)[0]
     return page(request, "participant.html", principal=access.principal, view=view, pid=pid, follow_job=follow,
+                recordings=found,
                 default_trials=_default_trials(request), version_metrics=VERSION_METRICS,
                 comparison_metrics=COMPARISON_METRICS,
                 base=f"{UI_PREFIX}/studies/{access.study_id}/participants/{pid}", **comparison, **context)
@@ -194,7 +197,10 @@ def night_page(request: Request, access: StudyPage, pid: ParticipantPath, night_
                            analyse=access.can_analyse)
     table = view.parameter_table()
     agreement = view.agreement_table()
-    return page(request, "night.html", principal=access.principal, pid=pid, info=view.info,
+    with session_scope(factory) as session:
+        recording_id = recordings.recording_of_night(session, study_id=access.study_id, participant_id=pid,
+                                                     night_id=night_id)
+    return page(request, "night.html", principal=access.principal, pid=pid, info=view.info, recording_id=recording_id,
                 night_name=view.info.label or view.info.night_id, requested=view.requested, shown=view.shown,
                 shown_body=view.shown_body, outcomes=view.outcomes, methods=NIGHT_METHODS, notice=view.notice,
                 summary=view.summary(), alt=view.alt_text(), caption=view.caption(),

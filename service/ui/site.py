@@ -22,7 +22,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from models import NightbankError
 
 from ..config import Settings
-from . import actions, downloads, pages
+from . import actions, downloads, pages, recording_view
 from .access import UI_PREFIX, SignInRequired, page_principal_or_none
 from .templating import page
 
@@ -80,7 +80,7 @@ def _ui_app(settings: Settings, parent: FastAPI) -> FastAPI:
     ui.state.settings = settings
     ui.state.factory = parent.state.factory
     ui.mount("/static", StaticFiles(directory=Path(__file__).parent / "static"), name="static")
-    for router in (pages.router, actions.router, downloads.router):
+    for router in (pages.router, actions.router, downloads.router, recording_view.router):
         ui.include_router(router)
     ui.add_exception_handler(SignInRequired, _sign_in_required)
     ui.add_exception_handler(NightbankError, _nightbank_error)

@@ -34,7 +34,13 @@ def world(server: Any, http: Any, admin: dict[str, str], make_token: Any) -> dic
     job = http.post("/v1/studies/s1/participants/P-01/training", json={}, headers=bearer(tokens["analyst"]))
     assert job.status_code == 202, job.text
     listed = http.get("/v1/tokens", headers=admin).json()
+    from test_api_recordings import recording_csv, simulated
+
+    recording = http.post("/v1/studies/s1/participants/P-01/recordings", headers={**admin, "Content-Type": "text/csv"},
+                          content=recording_csv(simulated(2, seed=3, psg_nights=0)[0].recording))
+    assert recording.status_code == 201, recording.text
     return {"night_id": night_id, "job_id": job.json()["job_id"], "tokens": tokens,
+            "recording_id": recording.json()["recording_id"],
             "other": make_token("admin", "s2"), "token_id": listed[0]["token_id"], "app": server.app}
 
 
@@ -50,7 +56,8 @@ def _routes(app: Any):
 
 def _fill(path: str, world: dict[str, Any]) -> str:
     values = {"study": "s1", "pid": "P-01", "night_id": world["night_id"], "job_id": world["job_id"],
-              "version": "1", "token_id": world["token_id"], "name": "lab-export"}
+              "version": "1", "token_id": world["token_id"], "name": "lab-export",
+              "recording_id": world["recording_id"]}
     return re.sub(r"\{(\w+)\}", lambda m: str(values[m.group(1)]), path)
 
 
