@@ -40,6 +40,7 @@ first; the last printed line is one JSON object.
 from __future__ import annotations
 
 import json
+import math
 import os
 import sys
 import time
@@ -194,6 +195,20 @@ def _pipeline(data: bytes, sim: SimulatedRecording) -> dict[str, object]:
     return recording_summary(rows, night_parameters=params).to_dict()
 
 
+
+def _json_safe(value: object) -> object:
+    """NaN and infinities as null (strict JSON), numpy scalars as Python numbers, recursively."""
+    if isinstance(value, dict):
+        return {k: _json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_json_safe(v) for v in value]
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, float, np.integer, np.floating)):
+        number = float(value)
+        return number if math.isfinite(number) else None
+    return value
+
 def main() -> None:
     load = os.getloadavg()
     print(f"load average: {load[0]:.2f} {load[1]:.2f} {load[2]:.2f}")
@@ -203,7 +218,7 @@ def main() -> None:
         sims = simulate_recordings(spec, seed=seed)
         figures = _figures(sims)
         figures["evaluate_s"] = time.perf_counter() - t0
-        print(name, json.dumps({k: round(v, 3) for k, v in figures.items()}))
+        print(name, json.dumps(_json_safe({k: round(v, 3) for k, v in figures.items()}), allow_nan=False))
         result[name] = figures
     sim = simulate_recordings(RecordingSpec(n_participants=1), seed=99)[0]
     data = _csv_bytes(sim)
@@ -232,7 +247,7 @@ def main() -> None:
     met["ingest_detect_summarise_s"] = result["ingest_detect_summarise_s"] <= SPEED_GOAL_S
     result["goals_met"] = met
     result["all_goals_met"] = all(met.values())
-    print(json.dumps(result, default=float))
+    print(json.dumps(_json_safe(result), allow_nan=False))
 
 
 if __name__ == "__main__":
