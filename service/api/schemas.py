@@ -96,7 +96,8 @@ class ParticipantOut(BaseModel):
     created_at: datetime
     n_nights: int
     n_labelled_nights: int
-    chosen_method: str | None = Field(description="personal or pooled once a personal model was compared")
+    chosen_method: str | None = Field(
+        description="personal, pooled or pooled+offset once a personal model was compared")
     active_personal_version: int | None
     untrained_labelled_nights: int = Field(
         description="labelled nights the active personal model was not trained on: a retrain would use them")
