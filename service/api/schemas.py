@@ -237,6 +237,8 @@ class ModelVersionOut(BaseModel):
     metrics: dict[str, Any] = Field(description="held-out validation figures")
     threshold: float | None
     offset: float | None
+    offset_rule: str | None = Field(
+        default=None, description="pooled models: how the offsets of participants it trained on were estimated")
     feature_set_version: str | None
     hyperparameters: dict[str, Any]
     library_versions: dict[str, str]
