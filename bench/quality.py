@@ -24,6 +24,10 @@ their specificity >= 0.70 with sensitivity >= 0.90; their SOL mean absolute erro
 count-threshold rule's;
 their awakening-count bias at most half the count-threshold rule's (absolute values);
 pooled+offset no worse than pooled for participants with 1-2 labelled nights.
+``--without-time-context`` is an ablation: the time-context features ``since_lights_off_min`` and
+``to_lights_on_min`` (:func:`models.features.context.time_context`) are blanked (NaN, so no tree
+splits on them) for this run only; the defaults are unchanged.
+
 The last printed line is one JSON object (with the 1-minute load average before and after).
 """
 
@@ -163,7 +167,22 @@ def _rules(study: dict[str, list]) -> dict[str, object]:
                         for m, g in nights.groupby("method", sort=False)}}
 
 
+def _without_time_context() -> None:
+    """Blank the time-context features in this process (ablation; feature names and order unchanged)."""
+    import models.features.matrix as matrix
+
+    original = matrix.time_context
+
+    def blanked(n_epochs: int, epoch_seconds: float, **kwargs: object) -> dict[str, np.ndarray]:
+        return {k: np.full(n_epochs, np.nan) for k in original(n_epochs, epoch_seconds, **kwargs)}  # type: ignore[arg-type]
+
+    matrix.time_context = blanked  # type: ignore[assignment]
+
+
 def main(argv: list[str]) -> None:
+    ablation = "--without-time-context" in argv
+    if ablation:
+        _without_time_context()
     trials = int(argv[argv.index("--trials") + 1]) if "--trials" in argv else 30  # fewer: a quick look only
     config = TrainingConfig(n_trials=trials, n_jobs=2)
     cohorts = {
@@ -177,6 +196,7 @@ def main(argv: list[str]) -> None:
     print(f"load average (1 min) after: {load_after:.2f}")
     report["load_average_1min"] = {"before": round(load_before, 2), "after": round(load_after, 2)}
     report["n_trials"] = trials
+    report["ablation"] = "without since_lights_off_min, to_lights_on_min" if ablation else None
     report["all_goals_met"] = bool(np.all([v for name in cohorts
                                            for v in report[name]["goals"].values()]))  # type: ignore[index]
     print(json.dumps(report))
