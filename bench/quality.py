@@ -1,4 +1,4 @@
-"""Quality of personal, pooled and pooled+offset models against the classical rules (SIMULATED data).
+"""Quality of personal, pooled, pooled+offset and auto against the classical rules (SIMULATED data).
 
 Runs the full study comparison (:func:`models.learning.study_comparison.compare_study`, default settings: 30
 trials, ``n_jobs=2``) on two simulated cohorts:
@@ -7,24 +7,36 @@ trials, ``n_jobs=2``) on two simulated cohorts:
 - ``second``: ``simulate_cohort(CohortSpec(spread=1.4, id_prefix="QB"), seed=424242)``, wider
   person-to-person differences, never used while developing the models.
 
-Every figure is a mean over held-out nights (per-night metric, then averaged). A goal compares
+Every figure is a mean over held-out nights (per-night metric, then averaged). ``auto`` is the
+participant's choice among the three models made without each night (its own nested held-out
+figures, :func:`models.learning.method_choice.nested_choice`). Every classical rule (and its
+``+webster`` variant, ``rules`` in the report) is shown as published and calibrated to the
+cohort's counts leave-participants-out (``<rule>:calibrated``: count scale, or the
+count-threshold's threshold in counts, chosen on the other participants). A goal compares
 methods on the same nights: personal on the nights of participants with a personal model,
 pooled on all labelled nights, pooled+offset against pooled on the nights of participants with
 one or two labelled nights (a single labelled night has no held-out offset figure). As those are
 few nights, the same situation is also replayed on every participant with two or more labelled
 nights: offset from one night, scored on each other night (``one_night_offset``).
 
-Goals: personal and pooled beat every rule on balanced accuracy; their specificity >= 0.70 with
-sensitivity >= 0.90; their SOL mean absolute error at most half the count-threshold rule's;
+Goals: personal, pooled and auto beat every rule, published and calibrated, on balanced accuracy;
+their specificity >= 0.70 with sensitivity >= 0.90; their SOL mean absolute error at most half the
+count-threshold rule's;
 their awakening-count bias at most half the count-threshold rule's (absolute values);
 pooled+offset no worse than pooled for participants with 1-2 labelled nights.
-The last printed line is one JSON object.
+``--without-time-context`` is an ablation: the time-context features ``since_lights_off_min`` and
+``to_lights_on_min`` (:func:`models.features.context.time_context`) are blanked (NaN, so no tree
+splits on them) for this run only, features computed in this process; the defaults are unchanged.
+``--only demo`` (or ``second``) runs one cohort.
+
+The last printed line is one JSON object (with the 1-minute load average before and after).
 """
 
 from __future__ import annotations
 
 import itertools
 import json
+import os
 import sys
 import time
 from pathlib import Path
@@ -37,13 +49,18 @@ from sklearn.metrics import balanced_accuracy_score
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
+from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference  # noqa: E402
+from models.features.cache import FeatureCache  # noqa: E402
 from models.learning.config import TrainingConfig  # noqa: E402
 from models.learning.offset import estimate_offset  # noqa: E402
+from models.learning.splits import participant_groups  # noqa: E402
 from models.learning.study_comparison import COMPARED_RULES, compare_study  # noqa: E402
+from models.scoring.rules import METHOD_IDS  # noqa: E402
 from models.simulation.demo_study import demo_nights  # noqa: E402
 from models.simulation.simulator import CohortSpec, simulate_cohort  # noqa: E402
 
-METHODS = ("personal", "pooled", "pooled+offset", *COMPARED_RULES, "always-sleep")
+CALIBRATED = tuple(f"{r}:calibrated" for r in COMPARED_RULES)
+METHODS = ("personal", "pooled", "pooled+offset", "auto", *COMPARED_RULES, *CALIBRATED, "always-sleep")
 
 
 def _figures(nights: pd.DataFrame) -> dict[str, float]:
@@ -76,12 +93,15 @@ def _one_night_offsets(result) -> dict[str, float]:
     return {"n_pairs": int(g.size), "mean_gain": float(g.mean()), "share_no_worse": float((g >= 0).mean())}
 
 
-def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object]:
+def _evaluate(name: str, sims: list, config: TrainingConfig, *, in_process: bool = False) -> dict[str, object]:
     study: dict[str, list] = {}
     for s in sims:
         study.setdefault(s.night.participant_id, []).append(s.night)
     start = time.perf_counter()
-    result = compare_study(study, config=config)
+    cache = FeatureCache()
+    if in_process:  # the ablation's patch lives in this process only: compute every night's features here
+        list(cache.features_of([n for v in study.values() for n in v], config.features, n_jobs=1))
+    result = compare_study(study, config=config, feature_cache=cache)
     seconds = time.perf_counter() - start
     keys = ["participant_id", "night_id", "method"]
     night_rows = result.epoch_metrics[result.epoch_metrics["level"] == "night"]
@@ -100,9 +120,9 @@ def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object
     methods = {m: _figures(table[table["method"] == m]) for m in METHODS}
 
     goals: dict[str, bool] = {}
-    for model, ids in (("personal", personal_ids), ("pooled", every)):
+    for model, ids in (("personal", personal_ids), ("pooled", every), ("auto", every)):
         own = _figures(on(model, ids))
-        rules = {r: _figures(on(r, ids)) for r in COMPARED_RULES}
+        rules = {r: _figures(on(r, ids)) for r in (*COMPARED_RULES, *CALIBRATED)}
         threshold_rule = rules["count-threshold"]
         goals[f"{model}_beats_every_rule_on_balanced_accuracy"] = all(
             own["balanced_accuracy"] > r["balanced_accuracy"] for r in rules.values())
@@ -117,6 +137,8 @@ def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object
         len(few_ids) == 0 or offset_few["balanced_accuracy"] >= pooled_few["balanced_accuracy"])
     one_night = _one_night_offsets(result)
     chosen = result.participants["chosen"].value_counts().to_dict()
+    rules = _rules(study)
+    switched = int(sum(set(c.per_night["chosen"]) != {c.method} for c in result.choices.values()))
     print(f"== {name}: {len(study)} participants, {len(every)} labelled nights, {seconds:.0f} s")
     for m, f in methods.items():
         print(f"  {m:16s} " + " ".join(f"{k}={v:.3f}" if isinstance(v, float) else f"{k}={v}" for k, v in f.items()))
@@ -124,23 +146,67 @@ def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object
           f"pooled+offset BA {offset_few['balanced_accuracy']:.3f} (n={len(few_ids)})")
     print(f"  offset from one night, scored on another (all pairs): BA gain {one_night['mean_gain']:+.4f}, "
           f"no worse in {one_night['share_no_worse']:.0%} of {one_night['n_pairs']} pairs")
+    for m, f in rules["methods"].items():
+        print(f"  rules {m:32s} BA={f['balanced_accuracy']:.3f} sens={f['sensitivity']:.3f} "
+              f"spec={f['specificity']:.3f}")
+    print(f"  participants whose nested choice differs on some night from the overall one: {switched}")
     return {"methods": methods, "goals": goals, "chosen": {k: int(v) for k, v in chosen.items()},
+            "auto_switched_participants": switched,
+            "calibrations": {m: c.to_dict() for m, c in result.calibrations.items()}, "rules": rules,
             "few_label": {"participants": few, "n_nights": int(len(few_ids)), "pooled": pooled_few,
                           "pooled+offset": offset_few},
             "one_night_offset": one_night,
             "shrinkage": result.pooled.shrinkage, "seconds": round(seconds, 1)}
 
 
+def _rules(study: dict[str, list]) -> dict[str, object]:
+    """Every rule id (``+webster`` included) as published and calibrated, on the same labelled nights."""
+    labelled = {pid: [n for n in v if n.reference is not None] for pid, v in study.items()}
+    records = [NightRecord.from_night(n) for pid in sorted(labelled) for n in labelled[pid]]
+    groups = participant_groups({pid: v for pid, v in labelled.items() if v})
+    tables = compare_rules_with_reference(records, methods=METHOD_IDS, groups=groups)
+    nights = tables.epoch_metrics[tables.epoch_metrics["level"] == "night"]
+    return {"methods": {str(m): {"n_nights": int(len(g)), "sensitivity": float(g["sensitivity"].mean()),
+                                 "specificity": float(g["specificity"].mean()),
+                                 "balanced_accuracy": float(g["balanced_accuracy"].mean())}
+                        for m, g in nights.groupby("method", sort=False)}}
+
+
+def _without_time_context() -> None:
+    """Blank the time-context features in this process (ablation; feature names and order unchanged)."""
+    import models.features.matrix as matrix
+
+    original = matrix.time_context
+
+    def blanked(n_epochs: int, epoch_seconds: float, **kwargs: object) -> dict[str, np.ndarray]:
+        return {k: np.full(n_epochs, np.nan) for k in original(n_epochs, epoch_seconds, **kwargs)}  # type: ignore[arg-type]
+
+    matrix.time_context = blanked  # type: ignore[assignment]
+
+
 def main(argv: list[str]) -> None:
+    ablation = "--without-time-context" in argv
+    if ablation:
+        _without_time_context()
     trials = int(argv[argv.index("--trials") + 1]) if "--trials" in argv else 30  # fewer: a quick look only
     config = TrainingConfig(n_trials=trials, n_jobs=2)
     cohorts = {
         "demo": demo_nights(),
         "second": simulate_cohort(CohortSpec(spread=1.4, id_prefix="QB"), seed=424242),
     }
-    report = {name: _evaluate(name, sims, config) for name, sims in cohorts.items()}
+    if "--only" in argv:  # one cohort, a quicker look
+        cohorts = {argv[argv.index("--only") + 1]: cohorts[argv[argv.index("--only") + 1]]}
+    load_before = os.getloadavg()[0]
+    print(f"load average (1 min) before: {load_before:.2f}")
+    report: dict[str, object] = {name: _evaluate(name, sims, config, in_process=ablation)
+                                 for name, sims in cohorts.items()}
+    load_after = os.getloadavg()[0]
+    print(f"load average (1 min) after: {load_after:.2f}")
+    report["load_average_1min"] = {"before": round(load_before, 2), "after": round(load_after, 2)}
     report["n_trials"] = trials
-    report["all_goals_met"] = bool(np.all([v for name in cohorts for v in report[name]["goals"].values()]))
+    report["ablation"] = "without since_lights_off_min, to_lights_on_min" if ablation else None
+    report["all_goals_met"] = bool(np.all([v for name in cohorts
+                                           for v in report[name]["goals"].values()]))  # type: ignore[index]
     print(json.dumps(report))
 
 

@@ -2,8 +2,9 @@
 
 Methods (the ``method`` query parameter):
 
-- ``auto``: the participant's chosen method: ``personal`` if a personal model was trained, chosen
-  and is active, else ``pooled+offset``;
+- ``auto``: the participant's chosen method (:func:`models.choose_method`): ``personal`` if a personal
+  model was trained, chosen and is active, ``pooled`` (no offset) if that was chosen, else
+  ``pooled+offset``;
 - ``personal``: the participant's active personal model (or ``version``);
 - ``pooled``: the study's active pooled model (or ``version``) without participant offset;
 - ``pooled+offset``: the pooled model plus the participant's offset (0 for a participant without
@@ -93,7 +94,7 @@ def resolve_method(session: Session, *, study: StudyInfo, participant: Participa
         personal = versions.active_version(session, study=study, participant=participant)
         if personal is not None and participant.chosen_method == "personal":
             return _Resolved("personal", personal)
-        method = "pooled+offset"
+        method = "pooled" if participant.chosen_method == "pooled" else "pooled+offset"
     owner = participant if method == "personal" else None
     if version is not None:
         return _Resolved(method, versions.get_version(session, study=study, participant=owner, version=version))
