@@ -13,7 +13,7 @@ from fastapi import FastAPI
 from fastapi.routing import APIRoute
 
 from .api.problems import PROBLEM_RESPONSES, install_problem_handlers
-from .api.routes import nights, profiles, reports, studies, system, tokens, training
+from .api.routes import nights, profiles, protocol, reports, studies, system, tokens, training
 from .api.schemas import Problem
 from .config import Settings, get_settings
 from .store import db
@@ -75,7 +75,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.metrics = metrics
     app.state.token_cache = TokenCache(settings.token_cache_s)
     install_problem_handlers(app)
-    for module in (system, studies, nights, training, reports, profiles, tokens):
+    for module in (system, studies, nights, training, reports, profiles, tokens, protocol):
         app.include_router(module.router)
     app.add_middleware(RequestTelemetry, metrics=app.state.metrics)
     mount_ui(app, settings)
