@@ -25,17 +25,34 @@ counted in ``unscored_epochs`` and are neither sleep nor wake:
 - latencies and SPT are clock intervals: SOL is the clock time from lights-off to the first
   *scored* sleep epoch and SPT runs from it to the end of the last scored sleep epoch; unscored
   epochs inside them count as time (they are not removed from the clock).
+
+That is the default (``StudyProtocol.unscored_breaks_bouts=False``). With
+``unscored_breaks_bouts=True`` an unscored epoch ends the bout it interrupts instead: wake,
+unscored, wake are two bouts of one epoch each, and a persistent-sleep run must be scored sleep
+throughout; TST, WASO and efficiency are unchanged (they count epochs, not bouts).
+
+Outside the in-bed interval
+---------------------------
+Sleep scored before lights-off or after lights-on is not part of TST, WASO or any latency
+(every parameter describes the in-bed interval); it is reported in
+``sleep_before_lights_off_min`` and ``sleep_after_lights_on_min`` so that it is visible rather
+than dropped.
+
+The definitions (onset, WASO end, awakening length, bouts) come from a
+:class:`models.scoring.protocol.StudyProtocol`; :data:`~models.scoring.protocol.DEFAULT_PROTOCOL`
+gives the values of the options' defaults.
 """
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass
-from typing import Literal
+from dataclasses import asdict, dataclass, replace
+from typing import Any, Literal
 
 import numpy as np
 from numpy.typing import ArrayLike
 
 from ..errors import NightbankError
+from .protocol import DEFAULT_PROTOCOL, WASO_ENDS, StudyProtocol
 from .rescoring import as_sleep_vector, check_epoch_seconds, run_lengths
 
 __all__ = ["InvalidInBedIntervalError", "PARAMETER_NAMES", "SleepParameters", "WasoEnd", "sleep_parameters"]
@@ -72,8 +89,11 @@ class SleepParameters:
     unscored_epochs : int
         Unscored (NaN) epochs inside the in-bed interval.
     sleep_onset_idx, final_awakening_idx : int or None
-        Index of the first sleep epoch, and of the epoch just after the last sleep epoch (equals
-        ``lights_on_idx`` when sleep lasts until lights-on); None without sleep.
+        Index of the sleep-onset epoch (as the protocol's ``sol`` defines onset), and of the epoch
+        just after the last sleep epoch (equals ``lights_on_idx`` when sleep lasts until
+        lights-on); None without sleep (or without persistent sleep when onset needs it).
+    sleep_before_lights_off_min, sleep_after_lights_on_min : float
+        Scored sleep outside the in-bed interval, minutes: reported, never added to TST.
     """
 
     time_in_bed_min: float
@@ -89,19 +109,22 @@ class SleepParameters:
     unscored_epochs: int
     sleep_onset_idx: int | None
     final_awakening_idx: int | None
+    sleep_before_lights_off_min: float = 0.0
+    sleep_after_lights_on_min: float = 0.0
 
     def as_dict(self) -> dict[str, float | int | None]:
         """All fields as a dict, the :data:`PARAMETER_NAMES` first, in table order."""
         return asdict(self)
 
 
-def _no_sleep(tib: float, unscored: int, nothing_scored: bool) -> SleepParameters:
+def _no_sleep(tib: float, unscored: int, nothing_scored: bool, outside: tuple[float, float]) -> SleepParameters:
     nan = float("nan")
     zero = nan if nothing_scored else 0.0  # with no scored epoch, even "no sleep" is unknown
     return SleepParameters(time_in_bed_min=tib, sol_min=nan, lps_min=nan, spt_min=zero, tst_min=zero,
                            waso_min=zero, sleep_efficiency_pct=zero, awakenings=zero, mean_awakening_min=nan,
                            longest_awakening_min=zero, unscored_epochs=unscored, sleep_onset_idx=None,
-                           final_awakening_idx=None)
+                           final_awakening_idx=None, sleep_before_lights_off_min=outside[0],
+                           sleep_after_lights_on_min=outside[1])
 
 
 def _check_index(value: object, name: str) -> int:
@@ -110,9 +133,34 @@ def _check_index(value: object, name: str) -> int:
     return int(value)
 
 
+def _resolve_protocol(protocol: StudyProtocol, persistent_sleep_min: float | None, min_awakening_epochs: int | None,
+                      waso_end: str | None) -> StudyProtocol:
+    """The protocol with the legacy keyword options applied on top (same errors as before)."""
+    if not isinstance(protocol, StudyProtocol):
+        raise NightbankError(f"protocol must be a StudyProtocol, got {type(protocol).__name__}",
+                             code="invalid_parameter_option")
+    if waso_end is not None and waso_end not in WASO_ENDS:
+        raise NightbankError(f"waso_end must be 'lights_on' or 'final_awakening', got {waso_end!r}",
+                             code="invalid_parameter_option")
+    if min_awakening_epochs is not None and (
+            isinstance(min_awakening_epochs, bool) or int(min_awakening_epochs) != min_awakening_epochs
+            or min_awakening_epochs < 1) or persistent_sleep_min is not None and not persistent_sleep_min > 0:
+        raise NightbankError("min_awakening_epochs must be an integer >= 1 and persistent_sleep_min > 0",
+                             code="invalid_parameter_option")
+    overrides: dict[str, Any] = {}
+    if waso_end is not None:
+        overrides["waso_end"] = waso_end
+    if min_awakening_epochs is not None:
+        overrides["min_awakening_epochs"] = int(min_awakening_epochs)
+    if persistent_sleep_min is not None:
+        overrides["persistent_sleep_min"] = float(persistent_sleep_min)
+    return replace(protocol, **overrides) if overrides else protocol
+
+
 def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: int = 0,
-                     lights_on_idx: int | None = None, persistent_sleep_min: float = 10.0,
-                     min_awakening_epochs: int = 1, waso_end: WasoEnd = "lights_on") -> SleepParameters:
+                     lights_on_idx: int | None = None, protocol: StudyProtocol = DEFAULT_PROTOCOL,
+                     persistent_sleep_min: float | None = None, min_awakening_epochs: int | None = None,
+                     waso_end: WasoEnd | None = None) -> SleepParameters:
     """Compute the sleep parameters of one night within its in-bed interval.
 
     Parameters
@@ -126,25 +174,32 @@ def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: in
         First in-bed epoch (inclusive).
     lights_on_idx : int or None, default=None
         End of the in-bed interval (exclusive); None = end of the recording.
-    persistent_sleep_min : float, default=10.0
-        Length of the uninterrupted sleep run that defines persistent sleep (LPS), minutes;
-        rounded up to whole epochs (10 min = 20 epochs of 30 s).
-    min_awakening_epochs : int, default=1
-        Shortest wake bout, in epochs, counted as an awakening.
-    waso_end : {"lights_on", "final_awakening"}, default="lights_on"
-        Where WASO and the awakening count stop. ``"lights_on"`` (AASM PSG convention, from
-        memory) includes the wake between the final awakening and lights-on, and the final
-        wake bout is an awakening; ``"final_awakening"`` counts only wake inside the sleep period.
+    protocol : StudyProtocol, default=DEFAULT_PROTOCOL
+        The study's definitions: ``sol``, ``persistent_sleep_min``, ``min_awakening_epochs``,
+        ``waso_end`` and ``unscored_breaks_bouts`` (see :mod:`models.scoring.protocol`).
+    persistent_sleep_min : float or None, default=None
+        Overrides ``protocol.persistent_sleep_min`` (minutes of uninterrupted sleep that make
+        persistent sleep, rounded up to whole epochs: 10 min = 20 epochs of 30 s).
+    min_awakening_epochs : int or None, default=None
+        Overrides ``protocol.min_awakening_epochs`` (shortest wake bout, in epochs, counted as
+        an awakening).
+    waso_end : {"lights_on", "final_awakening"} or None, default=None
+        Overrides ``protocol.waso_end``. ``"lights_on"`` (AASM PSG convention, from memory)
+        includes the wake between the final awakening and lights-on, and the final wake bout is an
+        awakening; ``"final_awakening"`` counts only wake inside the sleep period.
 
     Returns
     -------
     SleepParameters
         - ``time_in_bed_min``: length of the in-bed interval (unscored epochs included).
-        - ``sol_min``: lights-off to the first sleep epoch.
+        - ``sol_min``: lights-off to sleep onset: the first sleep epoch (``sol="first_sleep"``)
+          or the first epoch of the first run of ``persistent_sleep_min`` of sleep
+          (``sol="persistent_sleep"``, then equal to ``lps_min``).
         - ``lps_min``: lights-off to the first epoch of the first run of ``persistent_sleep_min``
-          of sleep.
-        - ``spt_min``: first sleep epoch to the end of the last sleep epoch.
-        - ``tst_min``: sleep epochs x epoch length.
+          of sleep (whatever ``sol`` is).
+        - ``spt_min``: sleep onset to the end of the last sleep epoch.
+        - ``tst_min``: in-bed sleep epochs x epoch length (sleep before onset included, as
+          AASM counts every sleep epoch in the recording period).
         - ``waso_min``: wake epochs after sleep onset, up to ``waso_end``; every wake epoch
           counts, whatever its bout length.
         - ``sleep_efficiency_pct``: 100 x TST / scored time in bed.
@@ -152,6 +207,8 @@ def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: in
           sleep onset (same end as WASO) of at least ``min_awakening_epochs``; the mean is NaN
           and the longest 0 when there is none.
         - ``unscored_epochs``, ``sleep_onset_idx``, ``final_awakening_idx``.
+        - ``sleep_before_lights_off_min``, ``sleep_after_lights_on_min``: scored sleep outside
+          the in-bed interval (not part of any other parameter).
 
     Raises
     ------
@@ -161,6 +218,9 @@ def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: in
         If the in-bed indices are out of order or outside the recording.
     UnsupportedEpochLengthError
         If ``epoch_seconds`` is not 15, 30 or 60.
+    NightbankError
+        ``invalid_parameter_option`` for a bad override or a ``protocol`` that is not a
+        :class:`StudyProtocol`.
 
     Notes
     -----
@@ -168,7 +228,10 @@ def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: in
     happened; a latency of "time in bed" would be a censored value posing as a measurement),
     TST, SPT, WASO, efficiency, awakenings and the longest awakening are 0, and the indices
     None. When no epoch of the in-bed interval is scored (or the interval is empty), every
-    parameter except ``time_in_bed_min`` and ``unscored_epochs`` is NaN.
+    parameter except ``time_in_bed_min``, ``unscored_epochs`` and the sleep outside the interval
+    is NaN. With ``sol="persistent_sleep"`` and sleep but no persistent run, there is no onset:
+    ``sol_min``, ``spt_min``, ``waso_min`` and the awakening figures are NaN, the indices None,
+    TST and efficiency as usual.
 
     Examples
     --------
@@ -183,39 +246,49 @@ def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: in
     if not 0 <= off <= on <= x.size:
         raise InvalidInBedIntervalError(
             f"in-bed interval [{off}, {on}) is not inside the recording of {x.size} epochs")
-    if waso_end not in ("lights_on", "final_awakening"):
-        raise NightbankError(f"waso_end must be 'lights_on' or 'final_awakening', got {waso_end!r}",
-                             code="invalid_parameter_option")
-    if isinstance(min_awakening_epochs, bool) or int(min_awakening_epochs) != min_awakening_epochs \
-            or min_awakening_epochs < 1 or not persistent_sleep_min > 0:
-        raise NightbankError("min_awakening_epochs must be an integer >= 1 and persistent_sleep_min > 0",
-                             code="invalid_parameter_option")
+    proto = _resolve_protocol(protocol, persistent_sleep_min, min_awakening_epochs, waso_end)
+    outside = (float(np.count_nonzero(x[:off] == 1.0)) * epoch_min, float(np.count_nonzero(x[on:] == 1.0)) * epoch_min)
     seg = x[off:on]
     tib = seg.size * epoch_min
     missing = np.isnan(seg)
     unscored = int(np.count_nonzero(missing))
-    scored_idx = (~missing).nonzero()[0] if unscored else None  # in-bed positions of scored epochs
-    v = seg[scored_idx] if unscored else seg
-    sleep_pos = (v == 1.0).nonzero()[0]  # positions among scored epochs
+    if proto.unscored_breaks_bouts:
+        scored_idx = None  # bouts on the in-bed clock, an unscored epoch (-1) a run of its own
+        v = np.where(missing, -1.0, seg)
+    else:
+        scored_idx = (~missing).nonzero()[0] if unscored else None  # in-bed positions of scored epochs
+        v = seg[scored_idx] if unscored else seg
+    sleep_pos = (v == 1.0).nonzero()[0]  # positions in v
     if sleep_pos.size == 0:
-        return _no_sleep(tib, unscored, nothing_scored=unscored == seg.size)
-    onset_c, last_c = int(sleep_pos[0]), int(sleep_pos[-1])
-    onset, last = (onset_c, last_c) if scored_idx is None else (int(scored_idx[onset_c]), int(scored_idx[last_c]))
-    # runs from sleep onset on: sleep and wake alternate; the run after last_c is terminal wake
-    starts, lengths, vals = run_lengths(v[onset_c:])
+        return _no_sleep(tib, unscored, nothing_scored=unscored == seg.size, outside=outside)
+
+    def in_bed(pos: int) -> int:
+        return pos if scored_idx is None else int(scored_idx[pos])
+
+    first_c, last_c = int(sleep_pos[0]), int(sleep_pos[-1])
+    starts, lengths, vals = run_lengths(v[first_c:])
+    persistent_epochs = int(np.ceil(proto.persistent_sleep_min / epoch_min - 1e-9))
+    persistent = ((vals == 1.0) & (lengths >= persistent_epochs)).nonzero()[0]
+    lps_c = first_c + int(starts[persistent[0]]) if persistent.size else None
+    lps = float("nan") if lps_c is None else in_bed(lps_c) * epoch_min
+    tst = sleep_pos.size * epoch_min
+    efficiency = 100.0 * tst / ((seg.size - unscored) * epoch_min)
+    onset_c = first_c if proto.sol == "first_sleep" else lps_c
+    if onset_c is None:  # persistent-sleep onset and no persistent run
+        nan = float("nan")
+        return SleepParameters(
+            time_in_bed_min=tib, sol_min=nan, lps_min=nan, spt_min=nan, tst_min=tst, waso_min=nan,
+            sleep_efficiency_pct=efficiency, awakenings=nan, mean_awakening_min=nan, longest_awakening_min=nan,
+            unscored_epochs=unscored, sleep_onset_idx=None, final_awakening_idx=None,
+            sleep_before_lights_off_min=outside[0], sleep_after_lights_on_min=outside[1])
+    if onset_c != first_c:
+        starts, lengths, vals = run_lengths(v[onset_c:])
     is_wake = vals == 0.0
     wake_bouts = lengths[is_wake]
-    if waso_end == "final_awakening" and is_wake[-1]:
-        wake_bouts = wake_bouts[:-1]
-    bouts = wake_bouts[wake_bouts >= min_awakening_epochs]
-    persistent_epochs = int(np.ceil(persistent_sleep_min / epoch_min - 1e-9))
-    persistent = (~is_wake & (lengths >= persistent_epochs)).nonzero()[0]
-    if persistent.size:
-        lps_c = onset_c + int(starts[persistent[0]])
-        lps = (lps_c if scored_idx is None else int(scored_idx[lps_c])) * epoch_min
-    else:
-        lps = float("nan")
-    tst = sleep_pos.size * epoch_min
+    if proto.waso_end == "final_awakening":  # wake after the last sleep epoch is neither WASO nor an awakening
+        wake_bouts = wake_bouts[starts[is_wake] < last_c - onset_c]
+    bouts = wake_bouts[wake_bouts >= proto.min_awakening_epochs]
+    onset, last = in_bed(onset_c), in_bed(last_c)
     return SleepParameters(
         time_in_bed_min=tib,
         sol_min=onset * epoch_min,
@@ -223,11 +296,13 @@ def sleep_parameters(sleep: ArrayLike, epoch_seconds: int, *, lights_off_idx: in
         spt_min=(last + 1 - onset) * epoch_min,
         tst_min=tst,
         waso_min=float(wake_bouts.sum()) * epoch_min,
-        sleep_efficiency_pct=100.0 * tst / ((seg.size - unscored) * epoch_min),
+        sleep_efficiency_pct=efficiency,
         awakenings=float(bouts.size),
         mean_awakening_min=float(bouts.sum()) / bouts.size * epoch_min if bouts.size else float("nan"),
         longest_awakening_min=float(bouts.max()) * epoch_min if bouts.size else 0.0,
         unscored_epochs=int(unscored),
         sleep_onset_idx=off + onset,
         final_awakening_idx=off + last + 1,
+        sleep_before_lights_off_min=outside[0],
+        sleep_after_lights_on_min=outside[1],
     )
