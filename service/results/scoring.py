@@ -37,11 +37,13 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import (
+    DEFAULT_PROTOCOL,
     METHOD_IDS,
     MODEL_METHODS,
     PARAMETER_NAMES,
     FeatureMatrix,
     Night,
+    StudyProtocol,
     compare_night,
     json_record,
     night_features,
@@ -55,6 +57,7 @@ from ..store import db, versions
 from ..store.cachewriter import CacheWriter
 from ..store.codec import night_from_row
 from ..store.features import features_row, load_features
+from ..store.protocols import study_protocol
 from ..store.registry import find_participant, find_study, participant_snapshot, study_snapshot
 from ..store.snapshots import ParticipantInfo, StudyInfo
 
@@ -124,7 +127,8 @@ def _descriptors(session: Session, participant: ParticipantInfo) -> dict[str, fl
 
 def compute_scoring(night: Night, *, method: str, model: Any = None, version: int | None = None,
                     offset: float = 0.0, descriptors: dict[str, float] | None = None,
-                    features: FeatureMatrix | None = None) -> dict[str, Any]:
+                    features: FeatureMatrix | None = None,
+                    protocol: StudyProtocol = DEFAULT_PROTOCOL) -> dict[str, Any]:
     """Score one night and build the response body (pure computation, no database).
 
     Parameters
@@ -142,6 +146,8 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         Participant descriptors (pooled models).
     features : FeatureMatrix, optional
         The night's stored features for the model's feature set (computed when None).
+    protocol : StudyProtocol, default=DEFAULT_PROTOCOL
+        The study's parameter definitions, applied to the night's and the reference's parameters.
 
     Returns
     -------
@@ -150,8 +156,8 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         ``p_sleep`` (None for rules), ``sleep`` (1 = sleep, None = unscored: no counts), ``parameters`` over the in-bed
         epochs, ``agreement`` with the reference (None without one; the night's
         :func:`models.compare_night`: epoch metrics, the reference's parameters, and method -
-        reference differences with the reference's unscored epochs masked) and, for models,
-        ``offset``. NaN values are None.
+        reference differences with the reference's unscored epochs masked), ``protocol`` (the
+        definitions applied) and, for models, ``offset``. NaN values are None.
     """
     first, stop = night.in_bed
     if model is None:
@@ -161,12 +167,14 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         p_sleep = model.predict_proba(night, offset=offset, descriptors=descriptors, features=features)
         sleep = model.calls(p_sleep)  # NaN (unscored) where the night has no counts
         score = p_sleep
-    params = sleep_parameters(sleep, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop).as_dict()
+    params = sleep_parameters(sleep, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop,
+                              protocol=protocol).as_dict()
     agreement = None
     reference = night.reference_sleep()
     if reference is not None and night.has_reference:
         compared = compare_night(reference, {method: (sleep, score)}, epoch_seconds=night.epoch_seconds,
-                                 lights_off_idx=first, lights_on_idx=stop, missing=night.missing)
+                                 lights_off_idx=first, lights_on_idx=stop, missing=night.missing,
+                                 parameter_options={"protocol": protocol})
         reference_parameters = compared.reference_parameters.as_dict()
         agreement = {
             "epochs": json_record(compared.epoch_metrics[method]),
@@ -181,6 +189,7 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         "sleep": [None if math.isnan(v) else int(v) for v in np.asarray(sleep, dtype=np.float64).tolist()],
         "parameters": json_record(params),
         "agreement": agreement,
+        "protocol": protocol.to_dict(),
     }
     if model is not None:
         body["offset"] = float(offset)
@@ -215,10 +224,12 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         study = study_snapshot(study_row)
         participant = participant_snapshot(participant_row, study.study_id)
         resolved = resolve_method(session, study=study, participant=participant, method=method, version=version)
+        protocol = study_protocol(session, study)
+        revision = f"{SCORING_REVISION}:{protocol.fingerprint()}"  # a new protocol never finds old results
         offset, model = 0.0, None
         descriptors: Mapping[str, float | None] | None = None
         if resolved.version is None:
-            key = f"{SCORING_REVISION}:{resolved.method}"
+            key = f"{revision}:{resolved.method}"
         else:
             model = versions.load_model(session, resolved.version)
             if resolved.method == "pooled+offset":
@@ -227,7 +238,7 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
                 descriptors = (resolved.version.metadata.descriptors.get(participant_id)
                                or _descriptors(session, participant))
             inputs = json.dumps([resolved.method, offset, descriptors], sort_keys=True)
-            key = f"{SCORING_REVISION}:m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
+            key = f"{revision}:m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
         cached = session.scalar(select(db.Scoring.body).where(db.Scoring.night_pk == row.pk,
                                                               db.Scoring.cache_key == key))
         if cached is not None:
@@ -242,7 +253,7 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
     # stored descriptors keep a missing value as None (JSON); the model reads it as NaN
     numeric = None if descriptors is None else {k: math.nan if v is None else v for k, v in descriptors.items()}
     result = compute_scoring(night, method=resolved.method, model=model, version=number,
-                             offset=offset, descriptors=numeric, features=features)
+                             offset=offset, descriptors=numeric, features=features, protocol=protocol)
     body = json.dumps(result, separators=(",", ":"), allow_nan=False).encode()
     _save(factory, writer, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
                                       else resolved.version.pk, cache_key=key, night_hash=night_hash,
