@@ -16,7 +16,7 @@ from models import StudyProtocol
 from ..errors import BadRequest
 
 __all__ = ["BootstrapOption", "CiLevelOption", "MarginOption", "MinAwakeningOption", "PersistentSleepOption",
-           "ProtocolSeedOption", "SolOption", "UnscoredBreaksOption", "WasoEndOption", "apply_protocol_options"]
+           "ProtocolSeedOption", "SolOption", "UnscoredBreaksOption", "WasoEndOption", "apply_protocol_options", "protocol_line"]
 
 WasoEndOption = Annotated[str | None, typer.Option(
     "--waso-end", help="Where WASO and the awakening count stop: lights-on or final-awakening.")]
@@ -77,3 +77,11 @@ def apply_protocol_options(base: Mapping[str, Any], *, waso_end: str | None = No
     if margin:
         body["equivalence_margins"] = dict(body.get("equivalence_margins") or {}) | _margins(margin)
     return StudyProtocol.from_dict(body)
+
+
+def protocol_line(protocol: StudyProtocol) -> str:
+    """One line naming the parameter definitions of ``protocol`` (printed under the tables)."""
+    return (f"protocol {protocol.fingerprint()}: WASO to {protocol.waso_end.replace('_', ' ')}, awakenings of "
+            f">= {protocol.min_awakening_epochs} epoch(s), SOL to {protocol.sol.replace('_', ' ')} "
+            f"(persistent sleep {protocol.persistent_sleep_min:g} min), unscored epochs "
+            f"{'break' if protocol.unscored_breaks_bouts else 'keep'} bouts")
