@@ -16,7 +16,8 @@ from models import StudyProtocol
 from ..errors import BadRequest
 
 __all__ = ["BootstrapOption", "CiLevelOption", "MarginOption", "MinAwakeningOption", "PersistentSleepOption",
-           "ProtocolSeedOption", "SolOption", "UnscoredBreaksOption", "WasoEndOption", "apply_protocol_options", "protocol_line"]
+           "ProtocolSeedOption", "SolOption", "UnscoredBreaksOption", "WasoEndOption", "apply_protocol_options",
+           "protocol_line"]
 
 WasoEndOption = Annotated[str | None, typer.Option(
     "--waso-end", help="Where WASO and the awakening count stop: lights-on or final-awakening.")]

@@ -67,7 +67,8 @@ def test_protocol_show_and_set_against_the_server(server, study, make_token) -> 
                                "--json"])
     assert set_.exit_code == 0, set_.output
     body = json.loads(set_.output)
-    assert body["protocol"]["waso_end"] == "final_awakening" and body["protocol"]["equivalence_margins"]["tst_min"] == 20
+    assert body["protocol"]["waso_end"] == "final_awakening"
+    assert body["protocol"]["equivalence_margins"]["tst_min"] == 20
     again = runner.invoke(app, ["protocol", "set", *common, "--min-awakening-epochs", "3", "--json"])
     kept = json.loads(again.output)["protocol"]
     assert kept["waso_end"] == "final_awakening" and kept["min_awakening_epochs"] == 3  # options left out are kept
