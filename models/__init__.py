@@ -6,6 +6,7 @@ database code. ``__all__`` is the only surface the service may import.
 from .agreement import (
     ALWAYS_SLEEP,
     BLAND_ALTMAN_PARAMETERS,
+    CALIBRATED_SUFFIX,
     EPOCH_COUNT_NAMES,
     EPOCH_METRIC_NAMES,
     REFERENCE,
@@ -47,11 +48,14 @@ from .features import (
     night_features,
 )
 from .learning import (
+    AUTO,
     CHOICE_POLICIES,
     COMPARED_RULES,
     DESCRIPTOR_NAMES,
     MODEL_METHODS,
+    OFFSET_RULE,
     SPLITTERS,
+    ActivationEvidence,
     ForwardChainedSplit,
     HeldOutNight,
     InvalidModelArtifactError,
@@ -66,6 +70,7 @@ from .learning import (
     TrainingCancelled,
     TrainingConfig,
     TrainingDataError,
+    activation_evidence,
     choose_method,
     choose_shrinkage,
     compare_study,
@@ -146,8 +151,11 @@ from .simulation import (
 
 __all__ = [
     "ALWAYS_SLEEP",
+    "AUTO",
+    "ActivationEvidence",
     "BLAND_ALTMAN_PARAMETERS",
     "BlandAltman",
+    "CALIBRATED_SUFFIX",
     "CHOICE_POLICIES",
     "COLUMN_ALIASES",
     "COMPARED_RULES",
@@ -185,6 +193,7 @@ __all__ = [
     "NightRecord",
     "NightbankError",
     "NotFittedError",
+    "OFFSET_RULE",
     "PARAMETER_NAMES",
     "PROFILE_STAGE_TARGETS",
     "PersonalResult",
@@ -216,6 +225,7 @@ __all__ = [
     "TrainingDataError",
     "UnknownMethodError",
     "WASO_ENDS",
+    "activation_evidence",
     "aggregate_epochs",
     "agreement_table",
     "always_sleep",

@@ -6,6 +6,10 @@ figures, participant offsets, the method choice and the study comparison.
 
 from __future__ import annotations
 
+from .activation import (
+    ActivationEvidence,
+    activation_evidence,
+)
 from .artifacts import (
     FORMAT,
     FORMAT_VERSION,
@@ -39,8 +43,11 @@ from .held_out import (
     summary_table,
 )
 from .method_choice import (
+    AUTO,
     MODEL_METHODS,
+    MethodChoice,
     choose_method,
+    nested_choice,
 )
 from .offset import (
     ShrinkageChoice,
@@ -55,6 +62,7 @@ from .personal import (
     train_personal,
 )
 from .pooled import (
+    OFFSET_RULE,
     PooledResult,
     train_pooled,
 )
@@ -97,6 +105,8 @@ from .tuning import (
 )
 
 __all__ = [
+    "AUTO",
+    "ActivationEvidence",
     "CHOICE_POLICIES",
     "COMPARED_RULES",
     "DEFAULT_SHRINKAGE_GRID",
@@ -108,8 +118,10 @@ __all__ = [
     "InvalidModelArtifactError",
     "InvalidTrainingConfigError",
     "MODEL_METHODS",
+    "MethodChoice",
     "ModelKind",
     "NightRows",
+    "OFFSET_RULE",
     "PCA_CHOICES",
     "POOLED_PARAMS",
     "PersonalResult",
@@ -127,6 +139,7 @@ __all__ = [
     "TrainingDataError",
     "TunedPipeline",
     "WARM_START",
+    "activation_evidence",
     "booster_params",
     "choose_method",
     "choose_shrinkage",
@@ -140,6 +153,7 @@ __all__ = [
     "load_model",
     "model_from_bytes",
     "model_to_bytes",
+    "nested_choice",
     "night_metrics_table",
     "offset_log_likelihood",
     "participant_descriptors",

@@ -27,6 +27,16 @@ estimated from all their held-out margins. ``pooled+offset`` held-out figures
 (``PooledResult.offset_held_out``) use, for each labelled night, an offset fitted on the
 participant's nights *outside its group* with a penalty chosen without the participant and the
 participants linked to it (:meth:`~models.learning.offset.ShrinkageChoice.excluding`).
+
+Deployed offsets (:data:`OFFSET_RULE`, also in the final model's ``info_["offset_rule"]`` and so in
+its stored metadata): the final model trained on every labelled participant, so its margins on a
+participant's own nights are in-sample and would understate how far the participant sits from
+the population. A trained-on participant's deployed offset is therefore *cross-fitted*: estimated
+on the out-of-fold margins of the fold model that left the participant out (plus that fold
+model's baseline), with the penalty chosen on all participants, exactly as the ``pooled+offset``
+held-out figures estimate it (there from the nights outside the scored night's group), and added
+to the final model's margin. A participant the final model never saw gets their offset from the
+final model's own margins (:func:`~models.learning.offset.participant_offset`).
 """
 
 from __future__ import annotations
@@ -56,7 +66,11 @@ from .tasks import Progress, Reporter, run_tasks
 from .threshold import youden_threshold
 from .tuning import booster_params
 
-__all__ = ["PooledResult", "train_pooled"]
+__all__ = ["OFFSET_RULE", "PooledResult", "train_pooled"]
+
+#: How the deployed offset of a participant the final pooled model trained on is estimated.
+OFFSET_RULE = ("cross-fitted: offset estimated on the out-of-fold margins of the fold model that left the "
+               "participant out (plus its baseline), added to the final model's margin")
 
 
 @dataclass(frozen=True, eq=False)
@@ -89,6 +103,8 @@ class PooledResult:
     night_metrics, summary : pandas.DataFrame
         Epoch metrics per held-out night (``pooled`` and ``pooled+offset`` rows) and their mean/SD
         per method.
+    offset_rule : str, default=OFFSET_RULE
+        How ``offsets`` were estimated (see the module docstring).
     """
 
     model: SleepModel
@@ -102,11 +118,12 @@ class PooledResult:
     baselines: dict[str, float] = field(repr=False)
     night_metrics: pd.DataFrame = field(repr=False)
     summary: pd.DataFrame = field(repr=False)
+    offset_rule: str = OFFSET_RULE
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able summary (no per-epoch arrays)."""
         return {"threshold": self.model.threshold_, "n_rounds": self.model.n_rounds_, "offsets": self.offsets,
-                "shrinkage": self.shrinkage_search.to_dict(), "folds": self.folds,
+                "shrinkage": self.shrinkage_search.to_dict(), "folds": self.folds, "offset_rule": self.offset_rule,
                 "night_metrics": self.night_metrics.to_dict(orient="records"),
                 "summary": self.summary.reset_index().to_dict(orient="records")}
 
@@ -293,6 +310,7 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     fitted = run_tasks([fit_task(k) for k in [-1, *range(n_folds)]], n_jobs=config.n_jobs, total=total,
                        progress=progress, done=len(flat))
     final, fitted = fitted[0], fitted[1:]
+    final.info_["offset_rule"] = OFFSET_RULE
     held_out = {pid: [_held_out(fitted[fold_of[pid]], r, descriptors[pid]) for r in data[pid]] for pid in pids}
     baselines = {pid: fitted[k].offset_baseline_ for pid, k in fold_of.items()}
     pairs = {pid: _margins(held_out[pid], data[pid], baselines[pid]) for pid in pids if data[pid]}

@@ -13,9 +13,15 @@ pooled            the pooled model of the fold that left the participant out (an
 pooled+offset     the same, shifted by an offset fitted on the participant's labelled nights
                   outside the night's group (participants with two labelled night groups
                   or more)
-cole-kripke,      the classical rules with default options (:mod:`models.scoring.rules`)
+auto              the participant's choice among the three, made without the night's group
+                  (:func:`models.learning.method_choice.nested_choice`): the chosen model's
+                  prediction of the night
+cole-kripke,      the classical rules as published, default options (:mod:`models.scoring.rules`)
 sadeh,
 count-threshold
+<rule>:calibrated the same rules with the count scale (count-threshold: the threshold, in
+                  counts) chosen on the other participants' labelled nights
+                  (:mod:`models.agreement.rule_calibration`)
 always-sleep      the baseline that calls every epoch sleep
 ================  ==========================================================================
 
@@ -28,6 +34,7 @@ method leaves missing epochs unscored) and the nights are tabulated by
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -38,6 +45,8 @@ from numpy.typing import ArrayLike
 
 from ..agreement.comparison import NightComparison, compare_night, comparison_tables
 from ..agreement.epoch_metrics import ALWAYS_SLEEP, always_sleep
+from ..agreement.rule_calibration import RuleCalibration, calibrate_rules
+from ..agreement.rule_comparison import NightRecord
 from ..features.cache import FeatureCache
 from ..features.source import FeatureSource
 from ..nights.night import MovementTimePolicy, Night
@@ -45,11 +54,11 @@ from ..records import json_records
 from ..scoring.rules import score_with_rule
 from .config import TrainingConfig, TrainingDataError
 from .held_out import HeldOutNight
-from .method_choice import MODEL_METHODS, choose_method
+from .method_choice import AUTO, MODEL_METHODS, MethodChoice, nested_choice
 from .personal import PersonalResult, personal_studies, train_personal
 from .pooled import PooledResult, train_pooled
 from .rows import labelled_nights
-from .splits import participant_groups
+from .splits import fold_groups, participant_groups
 from .tasks import Progress
 
 __all__ = ["COMPARED_RULES", "StudyComparison", "compare_study", "held_out_comparison"]
@@ -77,9 +86,15 @@ class StudyComparison:
         Study-wide Bland-Altman statistics per method and parameter.
     participants : pandas.DataFrame
         One row per participant: nights, labelled nights, mean held-out balanced accuracy per
-        method, chosen method, reason, offset and notes.
+        method (``auto`` and the calibrated rules included), chosen method, reason (with auto's
+        nested figure), offset and notes.
     personal : dict of str to PersonalResult
     pooled : PooledResult
+    choices : dict of str to MethodChoice
+        Per participant, the method choice and auto's nested per-night choices.
+    calibrations : dict of str to RuleCalibration
+        Per rule of :data:`COMPARED_RULES`, its leave-participants-out calibration (empty with
+        fewer than two participant groups).
     notes : list of str
         What is missing and why (e.g. no held-out figure for a single labelled night).
     """
@@ -92,13 +107,16 @@ class StudyComparison:
     personal: dict[str, PersonalResult] = field(repr=False)
     pooled: PooledResult = field(repr=False)
     notes: list[str] = field(default_factory=list)
+    choices: dict[str, MethodChoice] = field(default_factory=dict, repr=False)
+    calibrations: dict[str, RuleCalibration] = field(default_factory=dict, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able tables (:func:`models.records.json_records`: NaN becomes None)."""
         return {"participants": json_records(self.participants), "epoch_metrics": json_records(self.epoch_metrics),
                 "parameters": json_records(self.parameters), "parameter_errors": json_records(self.parameter_errors),
                 "bland_altman": json_records(self.bland_altman), "shrinkage": self.pooled.shrinkage,
-                "notes": self.notes}
+                "offset_rule": self.pooled.offset_rule,
+                "rule_calibrations": {m: c.to_dict() for m, c in self.calibrations.items()}, "notes": self.notes}
 
 
 class _Stages:
@@ -115,13 +133,18 @@ class _Stages:
         return lambda done, _total, stage: report(base + done, self.total, stage)
 
 
-def _sides(night: Night, held_out: Mapping[str, HeldOutNight],
-           rule_options: Mapping[str, Mapping[str, Any]]) -> dict[str, tuple[ArrayLike, ArrayLike | None]]:
+def _sides(night: Night, held_out: Mapping[str, HeldOutNight], rule_options: Mapping[str, Mapping[str, Any]],
+           calibrations: Mapping[str, RuleCalibration],
+           participant_id: str) -> dict[str, tuple[ArrayLike, ArrayLike | None]]:
     sides: dict[str, tuple[ArrayLike, ArrayLike | None]] = {
-        m: (held_out[m].sleep, held_out[m].p_sleep) for m in MODEL_METHODS if m in held_out}
+        m: (held_out[m].sleep, held_out[m].p_sleep) for m in (*MODEL_METHODS, AUTO) if m in held_out}
     for method in COMPARED_RULES:
         scored = score_with_rule(night.counts, night.epoch_seconds, method, **rule_options.get(method, {}))
         sides[method] = (scored.sleep, scored.score)
+    for method, calibration in calibrations.items():
+        options = calibration.options(participant_id, rule_options.get(method))
+        scored = score_with_rule(night.counts, night.epoch_seconds, method, **options)
+        sides[calibration.name] = (scored.sleep, scored.score)
     sides[ALWAYS_SLEEP] = (always_sleep(night.counts), None)
     return sides
 
@@ -129,12 +152,14 @@ def _sides(night: Night, held_out: Mapping[str, HeldOutNight],
 def held_out_comparison(night: Night, held_out: Mapping[str, HeldOutNight], *, participant_id: str | None = None,
                         movement_time: MovementTimePolicy = "wake",
                         rule_options: Mapping[str, Mapping[str, Any]] | None = None,
-                        parameter_options: Mapping[str, Any] | None = None) -> NightComparison:
+                        parameter_options: Mapping[str, Any] | None = None,
+                        calibrations: Mapping[str, RuleCalibration] | None = None) -> NightComparison:
     """One labelled night of a study comparison: every method against the night's reference.
 
-    The methods, in table order: the held-out models present (:data:`MODEL_METHODS`, calls and
-    ``p_sleep``), :data:`COMPARED_RULES` scoring the whole recording (calls and continuous
-    score) and the always-sleep baseline (no score).
+    The methods, in table order: the held-out models present (:data:`MODEL_METHODS` and
+    ``auto``, calls and ``p_sleep``), :data:`COMPARED_RULES` scoring the whole recording (calls
+    and continuous score), the calibrated rules of ``calibrations`` and the always-sleep
+    baseline (no score).
 
     Parameters
     ----------
@@ -150,6 +175,8 @@ def held_out_comparison(night: Night, held_out: Mapping[str, HeldOutNight], *, p
         Options per rule of :data:`COMPARED_RULES`, e.g. ``{"count-threshold": {"threshold": 20}}``.
     parameter_options : mapping, default=None
         Keyword options of :func:`models.scoring.parameters.sleep_parameters`.
+    calibrations : mapping of str to RuleCalibration, default=None
+        Calibrated rules to add (scored with the value chosen without the night's participant).
 
     Returns
     -------
@@ -165,10 +192,10 @@ def held_out_comparison(night: Night, held_out: Mapping[str, HeldOutNight], *, p
     if reference is None:
         raise TrainingDataError(f"night {night.night_id} has no reference", code="no_reference")
     first, stop = night.in_bed
-    return compare_night(reference, _sides(night, held_out, rule_options or {}),
+    pid = night.participant_id if participant_id is None else participant_id
+    return compare_night(reference, _sides(night, held_out, rule_options or {}, calibrations or {}, pid),
                          epoch_seconds=night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop,
-                         parameter_options=parameter_options,
-                         participant_id=night.participant_id if participant_id is None else participant_id,
+                         parameter_options=parameter_options, participant_id=pid,
                          night_id=night.night_id, label=night.label, missing=night.missing)
 
 
@@ -216,31 +243,68 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
     personal = {pid: train_personal(nights[pid], config=config, progress=stages.part(personal_totals[pid]),
                                     feature_cache=feature_cache) for pid in personal_pids}
 
+    linked = participant_groups({pid: labelled[pid] for pid in pids if labelled[pid]})
+    records = [NightRecord.from_night(n, movement_time=config.movement_time) for pid in pids for n in labelled[pid]]
+    calibrations = calibrate_rules(records, COMPARED_RULES, groups=linked, rule_options=rule_options)
     compared: list[NightComparison] = []
+    choices: dict[str, MethodChoice] = {}
     for pid in pids:
         by_hash: dict[str, dict[str, HeldOutNight]] = {}
         outer = personal[pid].outer if pid in personal else []
         for h in [*outer, *pooled.held_out[pid], *pooled.offset_held_out.get(pid, [])]:
             by_hash.setdefault(h.night_hash, {})[h.method] = h
+        choices[pid] = _nested(pid, labelled[pid], by_hash, config)
         compared += [held_out_comparison(night, by_hash.get(night.content_hash, {}), participant_id=pid,
                                          movement_time=config.movement_time, rule_options=rule_options,
-                                         parameter_options=parameter_options) for night in labelled[pid]]
+                                         parameter_options=parameter_options, calibrations=calibrations)
+                     for night in labelled[pid]]
     tables = comparison_tables(compared)
-    participants, notes = _participants(pids, nights, labelled, studies, pooled, tables.epoch_metrics, config)
+    participants, notes = _participants(pids, nights, labelled, studies, pooled, tables.epoch_metrics, choices,
+                                        calibrations, config)
     return StudyComparison(epoch_metrics=tables.epoch_metrics, parameters=tables.parameters,
                            parameter_errors=tables.parameter_errors, bland_altman=tables.bland_altman,
-                           participants=participants, personal=personal, pooled=pooled, notes=notes)
+                           participants=participants, personal=personal, pooled=pooled, notes=notes,
+                           choices=choices, calibrations=calibrations)
+
+
+def _nested(pid: str, labelled: Sequence[Night], by_hash: dict[str, dict[str, HeldOutNight]],
+            config: TrainingConfig) -> MethodChoice:
+    """The participant's choice and auto's held-out night predictions (added to ``by_hash`` as ``auto``).
+
+    The figures choices are made on are those of the comparison (in-bed epochs, missing epochs
+    unscored); a night's group (its overlapping copies) is left out with it.
+    """
+    groups = dict(zip((n.night_id for n in labelled), fold_groups(list(labelled)), strict=True)) if labelled else {}
+    rows = []
+    for night in labelled:
+        held = by_hash.get(night.content_hash, {})
+        reference = night.reference_sleep(movement_time=config.movement_time)
+        if not held or reference is None:
+            continue
+        compared = compare_night(reference, {m: (h.sleep, h.p_sleep) for m, h in held.items()},
+                                 epoch_seconds=night.epoch_seconds, lights_off_idx=night.in_bed[0],
+                                 lights_on_idx=night.in_bed[1], participant_id=pid, night_id=night.night_id,
+                                 missing=night.missing)
+        rows += [{"night_id": night.night_id, "method": m} | metrics for m, metrics in compared.epoch_metrics.items()]
+    table = pd.DataFrame(rows, columns=None if rows else ["night_id", "method", config.choice_policy])
+    choice = nested_choice(table, policy=config.choice_policy, night_groups=groups)
+    for night_id, chosen in zip(choice.per_night["night_id"], choice.per_night["chosen"], strict=True):
+        night = next(n for n in labelled if n.night_id == night_id)
+        held = by_hash[night.content_hash]
+        held[AUTO] = dataclasses.replace(held[chosen], method=AUTO)
+    return choice
 
 
 def _participants(pids: list[str], nights: Mapping[str, Sequence[Night]], labelled: Mapping[str, list[Night]],
                   studies: Mapping[str, int], pooled: PooledResult, epoch_metrics: pd.DataFrame,
+                  choices: Mapping[str, MethodChoice], calibrations: Mapping[str, RuleCalibration],
                   config: TrainingConfig) -> tuple[pd.DataFrame, list[str]]:
     night_rows = epoch_metrics[epoch_metrics["level"] == "night"]
     rows, notes = [], []
+    shown = (*MODEL_METHODS, AUTO, *COMPARED_RULES, *(c.name for c in calibrations.values()))
     for pid in pids:
         mine = night_rows[night_rows["participant_id"] == pid]
-        models = mine[mine["method"].isin(MODEL_METHODS)]
-        method, reason = choose_method(models, policy=config.choice_policy)
+        method, reason = choices[pid].method, choices[pid].reason
         n_lab, n_groups = len(labelled[pid]), studies[pid]
         copies = " (overlapping copies of a night counted once)" if n_groups < n_lab else ""
         if n_lab == 0:
@@ -253,6 +317,7 @@ def _participants(pids: list[str], nights: Mapping[str, Sequence[Night]], labell
                          "model")
         means = mine.groupby("method")["balanced_accuracy"].mean()
         rows.append({"participant_id": pid, "n_nights": len(nights[pid]), "n_labelled_nights": n_lab}
-                    | {f"{m}_balanced_accuracy": float(means.get(m, np.nan)) for m in (*MODEL_METHODS, *COMPARED_RULES)}
-                    | {"chosen": method, "reason": reason, "offset": pooled.offsets[pid]})
+                    | {f"{m}_balanced_accuracy": float(means.get(m, np.nan)) for m in shown}
+                    | {"chosen": method, "reason": reason, "offset": pooled.offsets[pid]}
+                    | {f"{c.name}_{c.parameter}": c.per_participant.get(pid, np.nan) for c in calibrations.values()})
     return pd.DataFrame(rows), notes
