@@ -13,7 +13,6 @@ active versions change.
 from __future__ import annotations
 
 import hashlib
-import io
 import json
 import threading
 from typing import Any
@@ -25,89 +24,23 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import (
     EPOCH_METRIC_NAMES,
-    METHOD_IDS,
     MODEL_METHODS,
-    PARAMETER_NAMES,
     ComparisonTables,
     HeldOutNight,
     Night,
     TrainingConfig,
-    compare_night,
     comparison_tables,
     held_out_comparison,
     json_record,
     json_records,
 )
 
-from ..store import db, versions
-from ..store.codec import night_from_row
+from ..store import db
 from ..store.registry import StudyInfo, find_participant, find_study, load_nights, study_participants
-from .scoring import score_night
+from .exports import EXPORT_METHODS, export_parameters
+from .held_out import active_held_out
 
 __all__ = ["EXPORT_METHODS", "export_parameters", "participant_comparison", "study_comparison"]
-
-#: Methods of the parameter export besides the reference (model methods only when trained).
-EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, *MODEL_METHODS)
-
-
-def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv") -> bytes:
-    """Sleep parameters of every night, one row per night and method, as CSV or Parquet bytes.
-
-    Methods: ``reference`` (labelled nights), every rule, and the personal, pooled and
-    pooled+offset models where an active version exists. Model rows name their version.
-    """
-    with db.session_scope(factory) as session:
-        study = find_study(session, study_id)
-        pooled = versions.active_version(session, study=study, participant=None)
-        targets = []
-        for participant in study_participants(session, study=study):
-            personal = versions.active_version(session, study=study, participant=participant)
-            for row in session.scalars(select(db.Night).where(db.Night.participant_pk == participant.pk)
-                                       .order_by(db.Night.start_utc)):
-                targets.append((participant.participant_id, row.night_id, row.label, row.start, personal is not None,
-                                night_from_row(row, participant_id=participant.participant_id)))
-    rows: list[dict[str, Any]] = []
-    for pid, night_id, label, start, has_personal, night in targets:
-        ids = {"study_id": study_id, "participant_id": pid, "night_id": night_id, "label": label, "start": start}
-        reference = night.reference_sleep()
-        if reference is not None and night.has_reference:
-            first, stop = night.in_bed
-            params = compare_night(reference, {}, epoch_seconds=night.epoch_seconds, lights_off_idx=first,
-                                   lights_on_idx=stop, missing=night.missing).reference_parameters.as_dict()
-            rows.append(ids | {"method": "reference", "model_version": None}
-                        | json_record({k: params[k] for k in PARAMETER_NAMES}))
-        for method in EXPORT_METHODS:
-            if (method == "personal" and not has_personal) or (method.startswith("pooled") and pooled is None):
-                continue
-            body = json.loads(score_night(factory, study_id=study_id, participant_id=pid, night_id=night_id,
-                                          method=method))
-            rows.append(ids | {"method": method, "model_version": body["model_version"]}
-                        | {k: body["parameters"].get(k) for k in PARAMETER_NAMES})
-    frame = pd.DataFrame(rows, columns=["study_id", "participant_id", "night_id", "label", "start", "method",
-                                        "model_version", *PARAMETER_NAMES])
-    frame["model_version"] = frame["model_version"].astype("Int64")
-    if fmt == "csv":
-        return frame.to_csv(index=False).encode()
-    buffer = io.BytesIO()
-    frame.to_parquet(buffer, index=False)
-    return buffer.getvalue()
-
-
-def _held_out(session: Session, study: StudyInfo) -> tuple[dict[str, dict[str, dict[str, HeldOutNight]]],
-                                                          dict[str, int | None]]:
-    """Held-out predictions of the active versions: participant -> night hash -> method -> night."""
-    out: dict[str, dict[str, dict[str, HeldOutNight]]] = {}
-    pooled = versions.active_version(session, study=study, participant=None)
-    used: dict[str, int | None] = {"pooled": None if pooled is None else pooled.version}
-    found = [] if pooled is None else versions.load_held_out(session, pooled)
-    for participant in study_participants(session, study=study):
-        personal = versions.active_version(session, study=study, participant=participant)
-        if personal is not None:
-            used[f"personal:{participant.participant_id}"] = personal.version
-            found += versions.load_held_out(session, personal)
-    for h in found:
-        out.setdefault(h.participant_id, {}).setdefault(h.night_hash, {})[h.method] = h
-    return out, used
 
 
 def _fingerprint(session: Session, study: StudyInfo, participant_id: str | None) -> str:
@@ -180,7 +113,7 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
         with _CACHE_LOCK:
             if key in _CACHE:
                 return _CACHE[key]
-        held_out, used = _held_out(session, study)
+        held_out, used = active_held_out(session, study)
         nights = {p.participant_id: load_nights(session, participant=p, labelled_only=True) for p in participants}
         choices = {p.participant_id: (p.chosen_method, (p.choice or {}).get("reason")) for p in participants}
     tables, notes = _assemble(nights, held_out)
