@@ -26,11 +26,34 @@ from .epoch_metrics import (
     always_sleep,
     epoch_agreement,
 )
+from .equivalence import (
+    parameter_equivalence,
+    tost_paired,
+)
+from .participant_level import (
+    PARTICIPANT_METRICS,
+    PairedDifference,
+    ParticipantEpochFigures,
+    paired_participant_difference,
+    participant_epoch_figures,
+)
 from .plausibility import (
     PlausibilityConfig,
     PlausibilityReport,
     check_reference,
     reference_plausibility,
+)
+from .reliability import (
+    IccResult,
+    icc_a1,
+)
+from .repeated_bland_altman import (
+    AGAINST,
+    InvalidAgreementInputError,
+    RepeatedBlandAltman,
+    repeated_bland_altman,
+    repeated_bland_altman_table,
+    repeated_limits_of_agreement,
 )
 from .rule_calibration import (
     CALIBRATED_PARAMETER,
@@ -48,6 +71,7 @@ from .rule_comparison import (
 )
 
 __all__ = [
+    "AGAINST",
     "ALWAYS_SLEEP",
     "BLAND_ALTMAN_PARAMETERS",
     "BlandAltman",
@@ -58,12 +82,18 @@ __all__ = [
     "EPOCH_COUNT_NAMES",
     "EPOCH_METRIC_NAMES",
     "ERROR_PARAMETERS",
+    "IccResult",
+    "InvalidAgreementInputError",
     "NightComparison",
     "NightRecord",
     "PARAMETER_COLUMNS",
+    "PARTICIPANT_METRICS",
+    "PairedDifference",
+    "ParticipantEpochFigures",
     "PlausibilityConfig",
     "PlausibilityReport",
     "REFERENCE",
+    "RepeatedBlandAltman",
     "RuleCalibration",
     "ScoredNight",
     "THRESHOLD_GRID",
@@ -79,5 +109,13 @@ __all__ = [
     "compare_rules_with_reference",
     "comparison_tables",
     "epoch_agreement",
+    "icc_a1",
+    "paired_participant_difference",
+    "parameter_equivalence",
+    "participant_epoch_figures",
     "reference_plausibility",
+    "repeated_bland_altman",
+    "repeated_bland_altman_table",
+    "repeated_limits_of_agreement",
+    "tost_paired",
 ]

@@ -1,0 +1,116 @@
+"""Proportional bias and regression-based limits for differences with repeated nights.
+
+Bland & Altman 1999 (Stat Methods Med Res 8:135-160), regression method: the difference on the
+magnitude ``A`` (pair mean, or the reference value), ``d = b0 + b1 A``; the size of the residuals
+on the same magnitude, ``|r| = c0 + c1 A``; limits ``b0 + b1 A -/+ 1.96 sqrt(pi/2) (c0 + c1 A)``
+(from memory: ``sqrt(pi/2)`` turns a mean absolute residual into an SD under normality). With
+several nights per participant both regressions have a random intercept per participant
+(statsmodels ``MixedLM``, REML); when every participant has one night the model reduces to
+ordinary least squares, which is used. The residuals of the second regression are taken from
+the fixed part of the first (``r = d - b0 - b1 A``), so they keep the between-participant
+spread that the limits must cover.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from typing import Any
+
+import numpy as np
+import statsmodels.api as sm  # type: ignore[import-untyped]
+from numpy.typing import NDArray
+
+__all__ = ["ABS_TO_SD", "MIXED_MODEL", "OLS_MODEL", "bias_regressions"]
+
+MIXED_MODEL = "random intercept per participant (MixedLM, REML)"
+OLS_MODEL = "ordinary least squares (one night per participant)"
+#: sqrt(pi/2): mean absolute deviation to SD under normality (Bland & Altman 1999; from memory).
+ABS_TO_SD = math.sqrt(math.pi / 2.0)
+
+
+def _fit(y: NDArray[np.float64], x: NDArray[np.float64], groups: NDArray[np.intp],
+         alpha: float) -> dict[str, Any]:
+    """Intercept, slope, slope CI and p-value of ``y ~ x`` (random intercept per group if repeated)."""
+    design = sm.add_constant(x, has_constant="add")
+    repeated = np.unique(groups).size < groups.size
+    converged = True
+    if repeated:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            result = sm.MixedLM(y, design, groups=groups).fit(reml=True)
+        converged = bool(getattr(result, "converged", True)) and not any(
+            "converge" in str(w.message).lower() for w in caught)
+        params = np.asarray(result.fe_params, dtype=np.float64)
+        ci = np.asarray(result.conf_int(alpha=alpha), dtype=np.float64)[:2]
+        p_values = np.asarray(result.pvalues, dtype=np.float64)[:2]
+    else:
+        result = sm.OLS(y, design).fit()
+        params = np.asarray(result.params, dtype=np.float64)
+        ci = np.asarray(result.conf_int(alpha=alpha), dtype=np.float64)
+        p_values = np.asarray(result.pvalues, dtype=np.float64)
+    return {"intercept": float(params[0]), "slope": float(params[1]),
+            "slope_ci": (float(ci[1, 0]), float(ci[1, 1])), "p_value": float(p_values[1]),
+            "model": MIXED_MODEL if repeated else OLS_MODEL, "converged": converged}
+
+
+def _empty(model: str) -> dict[str, Any]:
+    nan = float("nan")
+    return {"intercept": nan, "slope": nan, "slope_ci": (nan, nan), "p_value": nan, "model": model,
+            "converged": False}
+
+
+def bias_regressions(d: NDArray[np.float64], magnitude: NDArray[np.float64] | None, groups: NDArray[np.intp], *,
+                     ci_level: float, loa_z: float, against: str) -> tuple[dict[str, Any], dict[str, Any] | None]:
+    """Proportional bias and (when differences are non-uniform) regression-based limits.
+
+    Parameters
+    ----------
+    d : ndarray of shape (n_nights,)
+        Differences method - reference.
+    magnitude : ndarray of shape (n_nights,) or None
+        The magnitude regressed on (pair mean or reference); None when only differences are known.
+    groups : ndarray of intp, shape (n_nights,)
+        Participant code per night.
+    ci_level : float
+        Level of the slope CI; differences count as non-uniform when a slope's p-value is below
+        ``1 - ci_level``.
+    loa_z : float
+        Normal quantile of the limits (1.96).
+    against : str
+        Name of the magnitude (recorded in the result).
+
+    Returns
+    -------
+    proportional_bias : dict
+        ``slope``, ``slope_ci``, ``p_value``, ``intercept``, ``model``, ``converged``, ``against``.
+    regression_limits : dict or None
+        None when the differences are uniform (neither slope significant) or cannot be fitted.
+    """
+    alpha = 1.0 - ci_level
+    if magnitude is None:
+        return _empty("not estimated (differences without the values they came from)") | {"against": None}, None
+    if d.size < 3 or np.ptp(magnitude) == 0:
+        return _empty("not estimated (fewer than 3 nights or one magnitude)") | {"against": against}, None
+    bias = _fit(d, magnitude, groups, alpha)
+    residual = np.abs(d - bias["intercept"] - bias["slope"] * magnitude)
+    spread = _fit(residual, magnitude, groups, alpha)
+    reasons = [name for name, fit in (("proportional_bias", bias), ("non_constant_spread", spread))
+               if np.isfinite(fit["p_value"]) and fit["p_value"] < alpha]
+    proportional = {k: bias[k] for k in ("slope", "slope_ci", "p_value", "intercept", "model", "converged")}
+    proportional["against"] = against
+    if not reasons:
+        return proportional, None
+    k = loa_z * ABS_TO_SD
+    limits = {
+        "against": against, "reasons": reasons, "model": bias["model"], "multiplier": k,
+        "bias_intercept": bias["intercept"], "bias_slope": bias["slope"],
+        "abs_residual_intercept": spread["intercept"], "abs_residual_slope": spread["slope"],
+        "abs_residual_p_value": spread["p_value"],
+        "lower_intercept": bias["intercept"] - k * spread["intercept"],
+        "lower_slope": bias["slope"] - k * spread["slope"],
+        "upper_intercept": bias["intercept"] + k * spread["intercept"],
+        "upper_slope": bias["slope"] + k * spread["slope"],
+        "magnitude_range": (float(magnitude.min()), float(magnitude.max())),
+    }
+    return proportional, limits
