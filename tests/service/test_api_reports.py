@@ -219,3 +219,96 @@ def test_csv_export_neutralises_cells_a_spreadsheet_would_run(trained) -> None:
     parquet = pd.read_parquet(io.BytesIO(http.get("/v1/studies/formulas/exports/parameters",
                                                   params={"format": "parquet"}).content))
     assert set(parquet["label"]) == set(labels)  # typed data keep the text as sent
+
+
+def _ba2007_limits(d: np.ndarray, pids: np.ndarray) -> tuple[float, float, float]:
+    """Bland & Altman 2007 (J Biopharm Stat 17:571), true value varying: bias and 95% limits from the one-way
+    ANOVA of the differences by participant."""
+    frame = pd.DataFrame({"d": d, "p": pids})
+    groups = frame.groupby("p")["d"]
+    m, n, k = groups.size().to_numpy(dtype=float), float(len(d)), groups.ngroups
+    grand = d.mean()
+    ms_between = float((m * (groups.mean().to_numpy() - grand) ** 2).sum() / (k - 1))
+    ms_within = float(((frame["d"] - groups.transform("mean")) ** 2).sum() / (n - k))
+    divisor = (n ** 2 - (m ** 2).sum()) / ((k - 1) * n)
+    sd = np.sqrt(max(0.0, (ms_between - ms_within) / divisor) + ms_within)
+    return grand, grand - 1.96 * sd, grand + 1.96 * sd
+
+
+def test_study_comparison_has_repeated_measures_bland_altman_icc_and_equivalence(trained) -> None:
+    from statsmodels.stats.weightstats import ttost_paired
+
+    http, _, _, _ = trained
+    out = http.get("/v1/studies/s/comparison").json()
+    params = pd.DataFrame(out["parameters"])
+    ref = params[params["method"] == "reference"].set_index(["participant_id", "night_id"])
+    own = params[params["method"] == "cole-kripke"].set_index(["participant_id", "night_id"]).reindex(ref.index)
+    d = (own["tst_min"] - ref["tst_min"]).to_numpy()
+    pids = ref.index.get_level_values(0).to_numpy()
+    row = next(r for r in out["repeated_bland_altman"] if r["method"] == "cole-kripke" and r["parameter"] == "tst_min")
+    assert {"method", "parameter", "n_participants", "n_nights", "bias", "bias_ci", "loa_lower", "loa_upper",
+            "loa_lower_ci", "loa_upper_ci", "proportional_bias", "protocol"} <= set(row)
+    bias, low, high = _ba2007_limits(d, pids)
+    assert (row["n_participants"], row["n_nights"]) == (3, 9)
+    assert row["bias"] == pytest.approx(bias) and row["loa_lower"] == pytest.approx(low)
+    assert row["loa_upper"] == pytest.approx(high)
+    assert row["bias_ci"][0] <= row["bias"] <= row["bias_ci"][1] and row["protocol"] == out["protocol"]
+    # ICC(A,1), McGraw & Wong 1996 (case A, single measure), from the two-way ANOVA of (method, reference)
+    x = np.column_stack([own["tst_min"].to_numpy(), ref["tst_min"].to_numpy()])
+    n, k = x.shape
+    msr = k * ((x.mean(axis=1) - x.mean()) ** 2).sum() / (n - 1)
+    msc = n * ((x.mean(axis=0) - x.mean()) ** 2).sum() / (k - 1)
+    mse = ((x - x.mean(axis=1, keepdims=True) - x.mean(axis=0) + x.mean()) ** 2).sum() / ((n - 1) * (k - 1))
+    icc = next(r for r in out["icc"] if r["method"] == "cole-kripke" and r["parameter"] == "tst_min")
+    assert icc["icc"] == pytest.approx((msr - mse) / (msr + (k - 1) * mse + k * (msc - mse) / n))
+    # TOST on participant means against the protocol's margin (statsmodels ttost_paired, Schuirmann 1987)
+    means = pd.DataFrame({"m": own["tst_min"].to_numpy(), "r": ref["tst_min"].to_numpy(), "p": pids}).groupby("p").mean()
+    margin = out["protocol"]["equivalence_margins"]["tst_min"]
+    p_value = ttost_paired(means["m"].to_numpy(), means["r"].to_numpy(), -margin, margin)[0]
+    tost = next(r for r in out["equivalence"] if r["method"] == "cole-kripke" and r["parameter"] == "tst_min")
+    assert tost["p_value"] == pytest.approx(p_value) and tost["n_participants"] == 3
+
+
+def test_comparisons_give_auto_its_own_figures_participant_epochs_and_the_flow(trained) -> None:
+    http, _, _, _ = trained
+    out = http.get("/v1/studies/s/comparison").json()
+    summary = {s["method"]: s for s in out["summary"]}
+    assert summary["auto"]["n_nights"] == 9  # every labelled night has a nested auto prediction
+    group = pd.DataFrame(out["participant_epochs"]["group"])
+    per = pd.DataFrame(out["participant_epochs"]["participants"])
+    sadeh = group[(group["method"] == "sadeh") & (group["metric"] == "balanced_accuracy")].iloc[0]
+    values = per[per["method"] == "sadeh"]["balanced_accuracy"]
+    assert sadeh["n_participants"] == 3 and sadeh["mean"] == pytest.approx(values.mean())  # mean of participants
+    assert sadeh["ci_low"] <= sadeh["mean"] <= sadeh["ci_high"]
+    kinds = {(r["label_a"], r["label_b"], r["metric"]) for r in out["paired_differences"]}
+    assert ("personal", "pooled", "balanced_accuracy") in kinds
+    assert any(a == "auto" and b in ("cole-kripke", "sadeh", "count-threshold") for a, b, _ in kinds)
+    personal = next(r for r in out["paired_differences"] if r["label_a"] == "personal" and r["label_b"] == "pooled")
+    assert personal["n_participants"] == 1  # only P-01 has a personal model
+    flow = {f["participant_id"]: f for f in out["flow"]}
+    assert flow["P-01"]["n_nights"] == 4 and flow["P-01"]["n_labelled_nights"] == 3
+    assert flow["P-02"]["labelled_nights_without_held_out"]["personal"] == 3
+    assert flow["P-01"]["epochs_compared"] + flow["P-01"]["epochs_left_out"] == flow["P-01"]["in_bed_epochs"]
+    mine = http.get("/v1/studies/s/participants/P-01/comparison").json()
+    assert mine["protocol"] == out["protocol"] and [f["participant_id"] for f in mine["flow"]] == ["P-01"]
+    assert {r["method"] for r in mine["repeated_bland_altman"]} >= {"personal", "auto", "sadeh"}
+
+
+def test_a_new_protocol_recomputes_the_comparison_and_keeps_the_models(trained) -> None:
+    http, _, _, _ = trained
+    before = http.get("/v1/studies/s/comparison").json()
+    models_before = http.get("/v1/studies/s/pooled/models").json()
+    assert http.put("/v1/studies/s/protocol", json={"min_awakening_epochs": 4}).status_code == 200
+    try:
+        after = http.get("/v1/studies/s/comparison").json()
+        assert after["protocol"]["min_awakening_epochs"] == 4 and before["protocol"]["min_awakening_epochs"] == 1
+
+        def awakenings(out):
+            rows = pd.DataFrame(out["parameters"])
+            return rows[rows["method"] == "reference"].set_index(["participant_id", "night_id"])["awakenings"]
+
+        # fewer wake bouts reach 4 epochs than 1 epoch (common practice: a longer minimum counts fewer awakenings)
+        assert (awakenings(after) <= awakenings(before)).all() and (awakenings(after) < awakenings(before)).any()
+        assert http.get("/v1/studies/s/pooled/models").json() == models_before
+    finally:
+        assert http.put("/v1/studies/s/protocol", json={}).status_code == 200
