@@ -107,7 +107,7 @@ def style_of(method: str) -> MethodStyle:
 
 
 def render(draw: Callable[..., None], /, *args: Any, fmt: str, size_in: tuple[float, float],
-           **kwargs: Any) -> bytes:
+           salt: str | None = None, **kwargs: Any) -> bytes:
     """Create a figure of ``size_in`` (width, height in inches), call ``draw(fig, *args, **kwargs)``, encode it.
 
     Parameters
@@ -118,6 +118,12 @@ def render(draw: Callable[..., None], /, *args: Any, fmt: str, size_in: tuple[fl
         Output format; PNG at 300 dots per inch.
     size_in : tuple of float
         Figure width and height in inches (7.0 is a full manuscript page width).
+    salt : str, optional
+        SVG id salt (default ``nightbank``): figures inlined in one document need their own, so
+        their element ids do not collide.
+
+    The saved area is the drawn area (``bbox_inches="tight"``), so legends and labels placed
+    outside the axes are never cut off.
 
     Returns
     -------
@@ -125,11 +131,13 @@ def render(draw: Callable[..., None], /, *args: Any, fmt: str, size_in: tuple[fl
         The encoded figure.
     """
     buffer = io.BytesIO()
-    with _LOCK, mpl.rc_context(cast(Any, _STYLE)):
+    style = _STYLE if salt is None else _STYLE | {"svg.hashsalt": salt}
+    with _LOCK, mpl.rc_context(cast(Any, style)):
         fig = Figure(figsize=size_in, layout="constrained")
         draw(fig, *args, **kwargs)
         metadata: dict[str, Any] = {"Date": None} if fmt == "svg" else {"Software": None}
-        fig.savefig(buffer, format=fmt, dpi=_PNG_DPI if fmt == "png" else 72, metadata=metadata)
+        fig.savefig(buffer, format=fmt, dpi=_PNG_DPI if fmt == "png" else 72, metadata=metadata,
+                    bbox_inches="tight", pad_inches=0.05)
     return buffer.getvalue()
 
 
