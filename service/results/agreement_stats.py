@@ -48,8 +48,8 @@ _MODELS = ("personal", "pooled", "pooled+offset", AUTO)
 def best_rule(group: pd.DataFrame, metric: str = "balanced_accuracy") -> str | None:
     """The classical rule with the highest group mean of ``metric`` (participant level), or None."""
     rows = group[(group["metric"] == metric) & group["method"].isin(COMPARED_RULES)]
-    rows = rows[np.isfinite(rows["mean"].astype(float))]
-    return None if rows.empty else str(rows.loc[rows["mean"].astype(float).idxmax(), "method"])
+    rows = rows[np.isfinite(rows["mean"].astype(float))].reset_index(drop=True)
+    return None if rows.empty else str(rows["method"].iloc[int(np.argmax(rows["mean"].to_numpy(dtype=float)))])
 
 
 def _paired(figures: Any, methods: set[str]) -> list[dict[str, Any]]:

@@ -125,6 +125,7 @@ def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, me
             sleep = np.array([np.nan if v is None else v for v in body["sleep"]], dtype=np.float64)
             sides[method], info[method] = (sleep, None), (body["method"], body["model_version"], False)
     reference = night.reference_sleep(movement_time=TrainingConfig().movement_time)
+    assert reference is not None  # a labelled night
     first, stop = night.in_bed
     compared = compare_night(reference, sides, epoch_seconds=night.epoch_seconds, lights_off_idx=first,
                              lights_on_idx=stop, missing=night.missing, parameter_options={"protocol": protocol})

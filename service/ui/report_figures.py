@@ -130,9 +130,9 @@ def draw_paired_differences(fig: Figure, rows: Sequence[Mapping[str, Any]]) -> N
     ax = fig.subplots()
     labels = []
     for k, r in enumerate(rows):
-        ci = r.get("ci") or (None, None)
-        if _finite(ci[0]) and _finite(ci[1]):
-            ax.plot([ci[0], ci[1]], [k, k], color=OKABE_ITO["blue"], linewidth=1.6)
+        low, high = r.get("ci") or (None, None)
+        if low is not None and high is not None and _finite(low) and _finite(high):
+            ax.plot([float(low), float(high)], [k, k], color=OKABE_ITO["blue"], linewidth=1.6)
         if _finite(r.get("mean_difference")):
             ax.plot(r["mean_difference"], k, marker="o", color=OKABE_ITO["blue"], markersize=5)
         labels.append(f"{style_of(r['label_a']).label} − {style_of(r['label_b']).label}\n"

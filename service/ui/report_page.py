@@ -69,7 +69,8 @@ def _methods(comparison: dict[str, Any]) -> list[str]:
     return ordered + sorted(found - set(ordered))
 
 
-def _bland_altman_figures(comparison: dict[str, Any], methods: list[str], participants: list[str]) -> list[dict]:
+def _bland_altman_figures(comparison: dict[str, Any], methods: list[str],
+                          participants: list[str]) -> list[dict[str, Any]]:
     frame = pd.DataFrame(comparison.get("parameters", []))
     if frame.empty:
         return []
@@ -87,7 +88,7 @@ def _bland_altman_figures(comparison: dict[str, Any], methods: list[str], partic
     return out
 
 
-def _epoch_figures(comparison: dict[str, Any], methods: list[str], participants: list[str]) -> list[dict]:
+def _epoch_figures(comparison: dict[str, Any], methods: list[str], participants: list[str]) -> list[dict[str, Any]]:
     epochs = comparison.get("participant_epochs") or {}
     per, group = pd.DataFrame(epochs.get("participants", [])), pd.DataFrame(epochs.get("group", []))
     if per.empty or group.empty:

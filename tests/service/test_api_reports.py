@@ -262,7 +262,8 @@ def test_study_comparison_has_repeated_measures_bland_altman_icc_and_equivalence
     icc = next(r for r in out["icc"] if r["method"] == "cole-kripke" and r["parameter"] == "tst_min")
     assert icc["icc"] == pytest.approx((msr - mse) / (msr + (k - 1) * mse + k * (msc - mse) / n))
     # TOST on participant means against the protocol's margin (statsmodels ttost_paired, Schuirmann 1987)
-    means = pd.DataFrame({"m": own["tst_min"].to_numpy(), "r": ref["tst_min"].to_numpy(), "p": pids}).groupby("p").mean()
+    means = pd.DataFrame({"m": own["tst_min"].to_numpy(), "r": ref["tst_min"].to_numpy(), "p": pids})
+    means = means.groupby("p").mean()
     margin = out["protocol"]["equivalence_margins"]["tst_min"]
     p_value = ttost_paired(means["m"].to_numpy(), means["r"].to_numpy(), -margin, margin)[0]
     tost = next(r for r in out["equivalence"] if r["method"] == "cole-kripke" and r["parameter"] == "tst_min")
