@@ -2,8 +2,11 @@
 
 Methods (the ``method`` query parameter):
 
-- ``auto``: the participant's chosen method: ``personal`` if a personal model was trained, chosen
-  and is active, else ``pooled+offset``;
+- ``auto``: the participant's chosen method (``personal``, ``pooled`` or ``pooled+offset``, the
+  personal one only while active), else ``pooled+offset``; a flagged model (no better than
+  always-sleep, or below the study's floor: :mod:`service.results.model_flags`) is passed over,
+  and with every model flagged ``auto`` scores with the classical default rule; the body's
+  ``auto`` names what was passed over and why;
 - ``personal``: the participant's active personal model (or ``version``);
 - ``pooled``: the study's active pooled model (or ``version``) without participant offset;
 - ``pooled+offset``: the pooled model plus the participant's offset (0 for a participant without
@@ -60,6 +63,7 @@ from ..store.features import features_row, load_features
 from ..store.protocols import study_protocol
 from ..store.registry import find_participant, find_study, participant_snapshot, study_snapshot
 from ..store.snapshots import ParticipantInfo, StudyInfo
+from .model_flags import auto_choice
 
 __all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
 
@@ -73,6 +77,7 @@ SCORING_REVISION = "s2"
 class _Resolved:
     method: str
     version: versions.VersionInfo | None
+    passed_over: dict[str, str] | None = None
 
 
 def resolve_method(session: Session, *, study: StudyInfo, participant: ParticipantInfo, method: str,
@@ -93,10 +98,10 @@ def resolve_method(session: Session, *, study: StudyInfo, participant: Participa
     if method in METHOD_IDS:
         return _Resolved(method, None)
     if method == "auto":
-        personal = versions.active_version(session, study=study, participant=participant)
-        if personal is not None and participant.chosen_method == "personal":
-            return _Resolved("personal", personal)
-        method = "pooled+offset"
+        choice = auto_choice(session, study=study, participant=participant)
+        if choice is not None:
+            return _Resolved(choice.method, choice.version, choice.passed_over)
+        method = "pooled+offset"  # no model at all: the error below says so
     owner = participant if method == "personal" else None
     if version is not None:
         return _Resolved(method, versions.get_version(session, study=study, participant=owner, version=version))
@@ -239,6 +244,8 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
                                or _descriptors(session, participant))
             inputs = json.dumps([resolved.method, offset, descriptors], sort_keys=True)
             key = f"{revision}:m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
+        if resolved.passed_over:  # auto passed over flagged models: its body says so, so it is kept apart
+            key += ":a" + hashlib.sha1(json.dumps(resolved.passed_over, sort_keys=True).encode()).hexdigest()[:6]
         cached = session.scalar(select(db.Scoring.body).where(db.Scoring.night_pk == row.pk,
                                                               db.Scoring.cache_key == key))
         if cached is not None:
@@ -254,6 +261,8 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
     numeric = None if descriptors is None else {k: math.nan if v is None else v for k, v in descriptors.items()}
     result = compute_scoring(night, method=resolved.method, model=model, version=number,
                              offset=offset, descriptors=numeric, features=features, protocol=protocol)
+    if resolved.passed_over:
+        result["auto"] = {"method": resolved.method, "passed_over": resolved.passed_over}
     body = json.dumps(result, separators=(",", ":"), allow_nan=False).encode()
     _save(factory, writer, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
                                       else resolved.version.pk, cache_key=key, night_hash=night_hash,

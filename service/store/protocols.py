@@ -17,7 +17,7 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from models import DEFAULT_PROTOCOL, StudyProtocol
+from models import DEFAULT_PROTOCOL, InvalidProtocolError, Problem, StudyProtocol
 
 from . import db
 from .audit import record_audit
@@ -35,6 +35,9 @@ class ProtocolInfo:
     protocol: StudyProtocol
     updated_at: datetime | None
     updated_by: str | None
+    #: lowest held-out balanced accuracy a model may have to be chosen by ``auto`` (None: no floor beyond
+    #: always-sleep's 0.5)
+    model_floor: float | None = None
 
     @property
     def is_default(self) -> bool:
@@ -44,6 +47,7 @@ class ProtocolInfo:
         """The JSON answer of the protocol routes."""
         return {"study_id": self.study_id, "protocol": self.protocol.to_dict(),
                 "fingerprint": self.protocol.fingerprint(), "is_default": self.is_default,
+                "model_floor": self.model_floor,
                 "updated_at": None if self.updated_at is None else self.updated_at.isoformat(),
                 "updated_by": self.updated_by}
 
@@ -68,7 +72,8 @@ def protocol_info(session: Session, study: str | StudyInfo) -> ProtocolInfo:
     row = _row(session, found)
     if row is None:
         return ProtocolInfo(found.study_id, DEFAULT_PROTOCOL, None, None)
-    return ProtocolInfo(found.study_id, StudyProtocol.from_dict(row.body), row.updated_at, row.updated_by)
+    return ProtocolInfo(found.study_id, StudyProtocol.from_dict(row.body), row.updated_at, row.updated_by,
+                        row.model_floor)
 
 
 def study_protocol(session: Session, study: str | StudyInfo) -> StudyProtocol:
@@ -82,7 +87,8 @@ def save_protocol(session: Session, *, study_id: str, body: Mapping[str, Any], a
     Parameters
     ----------
     body : mapping
-        The protocol's JSON form; fields left out take their defaults.
+        The protocol's JSON form; fields left out take their defaults. ``model_floor`` (optional,
+        a balanced accuracy in (0.5, 1), or null for none) is the study's floor for models.
 
     Raises
     ------
@@ -91,18 +97,29 @@ def save_protocol(session: Session, *, study_id: str, body: Mapping[str, Any], a
     NotFound
         If the study does not exist.
     """
-    protocol = StudyProtocol.from_dict(body)
+    fields = dict(body) if isinstance(body, Mapping) else body
+    floor = fields.pop("model_floor", None) if isinstance(fields, dict) else None
+    problems = [] if floor is None or (isinstance(floor, int | float) and not isinstance(floor, bool)
+                                       and 0.5 < floor < 1) else [
+        Problem(code="invalid_protocol_field", message=f"model_floor: must be a balanced accuracy in (0.5, 1) "
+                f"or null, got {floor!r}", location={"field": "model_floor"})]
+    try:
+        protocol = StudyProtocol.from_dict(fields)
+    except InvalidProtocolError as exc:
+        raise InvalidProtocolError([*exc.problems, *problems]) from None
+    if problems:
+        raise InvalidProtocolError(problems)
     study = find_study(session, study_id)
     row = _row(session, study)
     before = None if row is None else row.fingerprint
     if row is None:
         row = db.StudyProtocolRow(study_pk=study.pk, body=protocol.to_dict(), fingerprint=protocol.fingerprint(),
-                                  updated_at=db.utcnow(), updated_by=actor)
+                                  model_floor=floor, updated_at=db.utcnow(), updated_by=actor)
         session.add(row)
     else:
-        row.body, row.fingerprint = protocol.to_dict(), protocol.fingerprint()
+        row.body, row.fingerprint, row.model_floor = protocol.to_dict(), protocol.fingerprint(), floor
         row.updated_at, row.updated_by = db.utcnow(), actor
     session.flush()
     record_audit(session, actor=actor, action="protocol.set", study_id=study_id, subject=protocol.fingerprint(),
                  detail={"previous": before or DEFAULT_PROTOCOL.fingerprint()})
-    return ProtocolInfo(study_id, protocol, row.updated_at, row.updated_by)
+    return ProtocolInfo(study_id, protocol, row.updated_at, row.updated_by, row.model_floor)

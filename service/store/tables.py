@@ -16,6 +16,7 @@ from sqlalchemy import (
     JSON,
     Boolean,
     DateTime,
+    Float,
     ForeignKey,
     Index,
     Integer,
@@ -285,5 +286,7 @@ class StudyProtocolRow(Base):
     study_pk: Mapped[int] = mapped_column(ForeignKey("studies.pk", ondelete="CASCADE"), unique=True)
     body: Mapped[dict[str, Any]] = mapped_column(JSON)
     fingerprint: Mapped[str] = mapped_column(String(32))
+    #: lowest held-out balanced accuracy a model may have to be chosen by ``auto`` (NULL: always-sleep's 0.5)
+    model_floor: Mapped[float | None] = mapped_column(Float, nullable=True)
     updated_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)
     updated_by: Mapped[str] = mapped_column(String(64))

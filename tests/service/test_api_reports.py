@@ -313,3 +313,25 @@ def test_a_new_protocol_recomputes_the_comparison_and_keeps_the_models(trained) 
         assert http.get("/v1/studies/s/pooled/models").json() == models_before
     finally:
         assert http.put("/v1/studies/s/protocol", json={}).status_code == 200
+
+
+def test_auto_never_chooses_a_model_below_the_study_floor(trained) -> None:
+    http, ids, _, _ = trained
+    url = f"/v1/studies/s/participants/P-02/nights/{ids['P-02'][3]}/scoring"
+    before = http.get(url, params={"method": "auto"}).json()
+    assert before["method"] in ("pooled", "pooled+offset") and "auto" not in before
+    bad = http.put("/v1/studies/s/protocol", json={"model_floor": 1.5, "min_awakening_epochs": 0})
+    assert bad.status_code == 422 and {p["location"]["field"] for p in bad.json()["problems"]} == {
+        "model_floor", "min_awakening_epochs"}
+    assert http.put("/v1/studies/s/protocol", json={"model_floor": 0.999}).status_code == 200
+    try:
+        assert http.get("/v1/studies/s/protocol").json()["model_floor"] == 0.999
+        after = http.get(url, params={"method": "auto"}).json()
+        # every model's held-out balanced accuracy is below 0.999: auto scores with the classical default rule
+        assert after["method"] == "cole-kripke" and after["model_version"] is None
+        assert "below the study's floor" in after["auto"]["passed_over"]["pooled+offset"]
+        direct = http.get(url, params={"method": "pooled+offset"}).json()
+        assert direct["method"] == "pooled+offset"  # asked for by name, a flagged model still scores
+    finally:
+        assert http.put("/v1/studies/s/protocol", json={}).status_code == 200
+    assert http.get(url, params={"method": "auto"}).json()["method"] == before["method"]
