@@ -1,4 +1,4 @@
-"""Quality of personal, pooled and pooled+offset models against the classical rules (SIMULATED data).
+"""Quality of personal, pooled, pooled+offset and auto against the classical rules (SIMULATED data).
 
 Runs the full study comparison (:func:`models.learning.study_comparison.compare_study`, default settings: 30
 trials, ``n_jobs=2``) on two simulated cohorts:
@@ -7,24 +7,31 @@ trials, ``n_jobs=2``) on two simulated cohorts:
 - ``second``: ``simulate_cohort(CohortSpec(spread=1.4, id_prefix="QB"), seed=424242)``, wider
   person-to-person differences, never used while developing the models.
 
-Every figure is a mean over held-out nights (per-night metric, then averaged). A goal compares
+Every figure is a mean over held-out nights (per-night metric, then averaged). ``auto`` is the
+participant's choice among the three models made without each night (its own nested held-out
+figures, :func:`models.learning.method_choice.nested_choice`). Every classical rule (and its
+``+webster`` variant, ``rules`` in the report) is shown as published and calibrated to the
+cohort's counts leave-participants-out (``<rule>:calibrated``: count scale, or the
+count-threshold's threshold in counts, chosen on the other participants). A goal compares
 methods on the same nights: personal on the nights of participants with a personal model,
 pooled on all labelled nights, pooled+offset against pooled on the nights of participants with
 one or two labelled nights (a single labelled night has no held-out offset figure). As those are
 few nights, the same situation is also replayed on every participant with two or more labelled
 nights: offset from one night, scored on each other night (``one_night_offset``).
 
-Goals: personal and pooled beat every rule on balanced accuracy; their specificity >= 0.70 with
-sensitivity >= 0.90; their SOL mean absolute error at most half the count-threshold rule's;
+Goals: personal, pooled and auto beat every rule, published and calibrated, on balanced accuracy;
+their specificity >= 0.70 with sensitivity >= 0.90; their SOL mean absolute error at most half the
+count-threshold rule's;
 their awakening-count bias at most half the count-threshold rule's (absolute values);
 pooled+offset no worse than pooled for participants with 1-2 labelled nights.
-The last printed line is one JSON object.
+The last printed line is one JSON object (with the 1-minute load average before and after).
 """
 
 from __future__ import annotations
 
 import itertools
 import json
+import os
 import sys
 import time
 from pathlib import Path
@@ -37,13 +44,17 @@ from sklearn.metrics import balanced_accuracy_score
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
+from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference  # noqa: E402
 from models.learning.config import TrainingConfig  # noqa: E402
 from models.learning.offset import estimate_offset  # noqa: E402
+from models.learning.splits import participant_groups  # noqa: E402
 from models.learning.study_comparison import COMPARED_RULES, compare_study  # noqa: E402
+from models.scoring.rules import METHOD_IDS  # noqa: E402
 from models.simulation.demo_study import demo_nights  # noqa: E402
 from models.simulation.simulator import CohortSpec, simulate_cohort  # noqa: E402
 
-METHODS = ("personal", "pooled", "pooled+offset", *COMPARED_RULES, "always-sleep")
+CALIBRATED = tuple(f"{r}:calibrated" for r in COMPARED_RULES)
+METHODS = ("personal", "pooled", "pooled+offset", "auto", *COMPARED_RULES, *CALIBRATED, "always-sleep")
 
 
 def _figures(nights: pd.DataFrame) -> dict[str, float]:
@@ -100,9 +111,9 @@ def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object
     methods = {m: _figures(table[table["method"] == m]) for m in METHODS}
 
     goals: dict[str, bool] = {}
-    for model, ids in (("personal", personal_ids), ("pooled", every)):
+    for model, ids in (("personal", personal_ids), ("pooled", every), ("auto", every)):
         own = _figures(on(model, ids))
-        rules = {r: _figures(on(r, ids)) for r in COMPARED_RULES}
+        rules = {r: _figures(on(r, ids)) for r in (*COMPARED_RULES, *CALIBRATED)}
         threshold_rule = rules["count-threshold"]
         goals[f"{model}_beats_every_rule_on_balanced_accuracy"] = all(
             own["balanced_accuracy"] > r["balanced_accuracy"] for r in rules.values())
@@ -117,6 +128,8 @@ def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object
         len(few_ids) == 0 or offset_few["balanced_accuracy"] >= pooled_few["balanced_accuracy"])
     one_night = _one_night_offsets(result)
     chosen = result.participants["chosen"].value_counts().to_dict()
+    rules = _rules(study)
+    switched = int(sum(set(c.per_night["chosen"]) != {c.method} for c in result.choices.values()))
     print(f"== {name}: {len(study)} participants, {len(every)} labelled nights, {seconds:.0f} s")
     for m, f in methods.items():
         print(f"  {m:16s} " + " ".join(f"{k}={v:.3f}" if isinstance(v, float) else f"{k}={v}" for k, v in f.items()))
@@ -124,11 +137,30 @@ def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object
           f"pooled+offset BA {offset_few['balanced_accuracy']:.3f} (n={len(few_ids)})")
     print(f"  offset from one night, scored on another (all pairs): BA gain {one_night['mean_gain']:+.4f}, "
           f"no worse in {one_night['share_no_worse']:.0%} of {one_night['n_pairs']} pairs")
+    for m, f in rules["methods"].items():
+        print(f"  rules {m:32s} BA={f['balanced_accuracy']:.3f} sens={f['sensitivity']:.3f} "
+              f"spec={f['specificity']:.3f}")
+    print(f"  participants whose nested choice differs on some night from the overall one: {switched}")
     return {"methods": methods, "goals": goals, "chosen": {k: int(v) for k, v in chosen.items()},
+            "auto_switched_participants": switched,
+            "calibrations": {m: c.to_dict() for m, c in result.calibrations.items()}, "rules": rules,
             "few_label": {"participants": few, "n_nights": int(len(few_ids)), "pooled": pooled_few,
                           "pooled+offset": offset_few},
             "one_night_offset": one_night,
             "shrinkage": result.pooled.shrinkage, "seconds": round(seconds, 1)}
+
+
+def _rules(study: dict[str, list]) -> dict[str, object]:
+    """Every rule id (``+webster`` included) as published and calibrated, on the same labelled nights."""
+    labelled = {pid: [n for n in v if n.reference is not None] for pid, v in study.items()}
+    records = [NightRecord.from_night(n) for pid in sorted(labelled) for n in labelled[pid]]
+    groups = participant_groups({pid: v for pid, v in labelled.items() if v})
+    tables = compare_rules_with_reference(records, methods=METHOD_IDS, groups=groups)
+    nights = tables.epoch_metrics[tables.epoch_metrics["level"] == "night"]
+    return {"methods": {str(m): {"n_nights": int(len(g)), "sensitivity": float(g["sensitivity"].mean()),
+                                 "specificity": float(g["specificity"].mean()),
+                                 "balanced_accuracy": float(g["balanced_accuracy"].mean())}
+                        for m, g in nights.groupby("method", sort=False)}}
 
 
 def main(argv: list[str]) -> None:
@@ -138,9 +170,15 @@ def main(argv: list[str]) -> None:
         "demo": demo_nights(),
         "second": simulate_cohort(CohortSpec(spread=1.4, id_prefix="QB"), seed=424242),
     }
-    report = {name: _evaluate(name, sims, config) for name, sims in cohorts.items()}
+    load_before = os.getloadavg()[0]
+    print(f"load average (1 min) before: {load_before:.2f}")
+    report: dict[str, object] = {name: _evaluate(name, sims, config) for name, sims in cohorts.items()}
+    load_after = os.getloadavg()[0]
+    print(f"load average (1 min) after: {load_after:.2f}")
+    report["load_average_1min"] = {"before": round(load_before, 2), "after": round(load_after, 2)}
     report["n_trials"] = trials
-    report["all_goals_met"] = bool(np.all([v for name in cohorts for v in report[name]["goals"].values()]))
+    report["all_goals_met"] = bool(np.all([v for name in cohorts
+                                           for v in report[name]["goals"].values()]))  # type: ignore[index]
     print(json.dumps(report))
 
 

@@ -8,6 +8,7 @@ from .bland_altman import (
     BlandAltman,
     bland_altman,
     bland_altman_table,
+    matched_nights,
 )
 from .comparison import (
     ERROR_PARAMETERS,
@@ -30,6 +31,9 @@ from .equivalence import (
     parameter_equivalence,
     tost_paired,
 )
+from .parameter_agreement import (
+    parameter_agreement,
+)
 from .participant_level import (
     PARTICIPANT_METRICS,
     PairedDifference,
@@ -49,6 +53,7 @@ from .reliability import (
 )
 from .repeated_bland_altman import (
     AGAINST,
+    MIN_CI_PARTICIPANTS,
     InvalidAgreementInputError,
     RepeatedBlandAltman,
     repeated_bland_altman,
@@ -84,6 +89,7 @@ __all__ = [
     "ERROR_PARAMETERS",
     "IccResult",
     "InvalidAgreementInputError",
+    "MIN_CI_PARTICIPANTS",
     "NightComparison",
     "NightRecord",
     "PARAMETER_COLUMNS",
@@ -110,7 +116,9 @@ __all__ = [
     "comparison_tables",
     "epoch_agreement",
     "icc_a1",
+    "matched_nights",
     "paired_participant_difference",
+    "parameter_agreement",
     "parameter_equivalence",
     "participant_epoch_figures",
     "reference_plausibility",

@@ -92,9 +92,12 @@ def bias_regressions(d: NDArray[np.float64], magnitude: NDArray[np.float64] | No
         return _empty("not estimated (differences without the values they came from)") | {"against": None}, None
     if d.size < 3 or np.ptp(magnitude) == 0:
         return _empty("not estimated (fewer than 3 nights or one magnitude)") | {"against": against}, None
-    bias = _fit(d, magnitude, groups, alpha)
-    residual = np.abs(d - bias["intercept"] - bias["slope"] * magnitude)
-    spread = _fit(residual, magnitude, groups, alpha)
+    try:
+        bias = _fit(d, magnitude, groups, alpha)
+        residual = np.abs(d - bias["intercept"] - bias["slope"] * magnitude)
+        spread = _fit(residual, magnitude, groups, alpha)
+    except (np.linalg.LinAlgError, ValueError) as error:  # singular design, e.g. one participant's nights only
+        return _empty(f"not estimated (model fit failed: {error})") | {"against": against}, None
     reasons = [name for name, fit in (("proportional_bias", bias), ("non_constant_spread", spread))
                if np.isfinite(fit["p_value"]) and fit["p_value"] < alpha]
     proportional = {k: bias[k] for k in ("slope", "slope_ci", "p_value", "intercept", "model", "converged")}

@@ -20,8 +20,11 @@ from ..errors import NightbankError
 from ..records import json_value
 from ..scoring.protocol import StudyProtocol
 
-__all__ = ["InvalidAgreementInputError", "draw_counts", "effective_protocol", "json_dict", "json_safe",
-           "participant_codes", "percentile_interval", "weighted_mean_interval"]
+__all__ = ["InvalidAgreementInputError", "MIN_CI_PARTICIPANTS", "draw_counts", "effective_protocol", "json_dict",
+           "json_safe", "participant_codes", "percentile_interval", "studentized_interval", "weighted_mean_interval"]
+
+#: Fewest participants for a bootstrap interval (2 participants give only 3 distinct resamples).
+MIN_CI_PARTICIPANTS = 3
 
 
 class InvalidAgreementInputError(NightbankError):
@@ -74,15 +77,42 @@ def percentile_interval(values: NDArray[np.float64], ci_level: float) -> tuple[f
     return float(low), float(high)
 
 
+def studentized_interval(estimate: float, se: float, values: NDArray[np.float64], value_se: NDArray[np.float64],
+                         ci_level: float) -> tuple[float, float]:
+    """Bootstrap-t interval (Efron & Tibshirani 1993, ch. 12; from memory).
+
+    ``t_b = (values_b - estimate) / value_se_b`` over the resamples with a finite, positive SE;
+    the interval is ``(estimate - t_(1-a/2) se, estimate - t_(a/2) se)``. Falls back to the
+    percentile interval when ``se`` is not finite or no resample has a usable SE.
+    """
+    ok = np.isfinite(values) & np.isfinite(value_se) & (value_se > 0)
+    if not (np.isfinite(estimate) and np.isfinite(se)) or not ok.any():
+        return percentile_interval(values, ci_level)
+    t = (values[ok] - estimate) / value_se[ok]
+    tail = (1.0 - ci_level) / 2.0
+    t_low, t_high = np.quantile(t, [tail, 1.0 - tail])
+    return float(estimate - t_high * se), float(estimate - t_low * se)
+
+
 def weighted_mean_interval(values: NDArray[np.float64], counts: NDArray[np.float64],
                            ci_level: float) -> tuple[float, float]:
-    """Percentile interval of the participant mean of ``values`` (shape (k,), NaN skipped)."""
+    """Participant-bootstrap interval of the mean of ``values`` (shape (k,), NaN skipped).
+
+    Bootstrap-t: each resample's mean is studentized by its own standard error
+    ``sqrt(sum c_i (x_i - mean)^2 / (K (K - 1)))`` (the jackknife SE of a mean, K draws).
+    """
     ok = np.isfinite(values)
-    sums = counts @ np.where(ok, values, 0.0)
-    weights = counts @ ok.astype(np.float64)
+    x = values[ok]
+    c = counts[:, ok]
+    if x.size < MIN_CI_PARTICIPANTS:
+        return float("nan"), float("nan")
+    draws = c.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
-        means = np.where(weights > 0, sums / np.where(weights > 0, weights, 1.0), np.nan)
-    return percentile_interval(means, ci_level)
+        means = (c @ x) / draws
+        spread = (c * (x[None, :] - means[:, None]) ** 2).sum(axis=1)
+        se_boot = np.sqrt(spread / (draws * (draws - 1.0)))
+    se = float(x.std(ddof=1)) / np.sqrt(x.size)
+    return studentized_interval(float(x.mean()), se, means, se_boot, ci_level)
 
 
 def json_dict(values: Mapping[str, Any]) -> dict[str, Any]:
@@ -97,3 +127,4 @@ def json_safe(value: Any) -> Any:
     if isinstance(value, list | tuple | np.ndarray):
         return [json_safe(v) for v in value]
     return json_value(value)
+

@@ -21,7 +21,7 @@ Bland-Altman (Bland & Altman 1986, Lancet; 1999, Stat Methods Med Res 8:135-160)
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -31,8 +31,10 @@ from scipy import stats
 
 from ..scoring.parameters import PARAMETER_NAMES
 from ..scoring.rescoring import InvalidSleepVectorError
+from ._bootstrap import InvalidAgreementInputError
 
-__all__ = ["BLAND_ALTMAN_PARAMETERS", "BlandAltman", "REFERENCE", "bland_altman", "bland_altman_table"]
+__all__ = ["BLAND_ALTMAN_PARAMETERS", "BlandAltman", "REFERENCE", "bland_altman", "bland_altman_table",
+           "matched_nights"]
 
 #: Method label of the reference labels in parameter tables.
 REFERENCE = "reference"
@@ -158,13 +160,48 @@ def bland_altman_table(parameters: pd.DataFrame, *, reference_method: str = REFE
         One row per method and parameter: ``method``, ``parameter`` and the
         :class:`BlandAltman` fields. Nights are matched on (participant_id, night_id).
     """
-    keys = ["participant_id", "night_id"]
-    ref = parameters[parameters["method"] == reference_method].set_index(keys)
     rows = []
-    for method in dict.fromkeys(parameters["method"]):
-        if method == reference_method:
-            continue
-        own = parameters[parameters["method"] == method].set_index(keys).reindex(ref.index)
+    for method, own, ref in matched_nights(parameters, reference_method=reference_method,
+                                           parameter_names=parameter_names):
         for name in parameter_names:
             rows.append({"method": method, "parameter": name} | asdict(bland_altman(own[name], ref[name])))
     return pd.DataFrame(rows, columns=["method", "parameter", *BlandAltman.__dataclass_fields__])
+
+
+def matched_nights(parameters: pd.DataFrame, *, reference_method: str = REFERENCE,
+                   parameter_names: Sequence[str] = ()) -> Iterator[tuple[str, pd.DataFrame, pd.DataFrame]]:
+    """Each method's rows of a parameter table aligned with the reference's rows.
+
+    Parameters
+    ----------
+    parameters : pandas.DataFrame
+        One row per night and method (``participant_id``, ``night_id``, ``method``, parameters).
+    reference_method : str, default="reference"
+    parameter_names : sequence of str, default=()
+        Parameter columns that must be present.
+
+    Yields
+    ------
+    method : str
+        Every method but the reference, in order of first appearance.
+    own, reference : pandas.DataFrame
+        Indexed by (participant_id, night_id) in the reference's night order; ``own`` has NaN
+        rows for the reference nights the method lacks.
+
+    Raises
+    ------
+    InvalidAgreementInputError
+        If a needed column is missing (raised before anything is yielded).
+    """
+    missing = sorted({"participant_id", "night_id", "method", *parameter_names} - set(parameters.columns))
+    if missing:
+        raise InvalidAgreementInputError(f"parameter table lacks the columns {', '.join(missing)}")
+    return _matched(parameters, reference_method)
+
+
+def _matched(parameters: pd.DataFrame, reference_method: str) -> Iterator[tuple[str, pd.DataFrame, pd.DataFrame]]:
+    keys = ["participant_id", "night_id"]
+    ref = parameters[parameters["method"] == reference_method].set_index(keys)
+    for method in dict.fromkeys(parameters["method"]):
+        if method != reference_method:
+            yield str(method), parameters[parameters["method"] == method].set_index(keys).reindex(ref.index), ref

@@ -3,7 +3,7 @@
 A pooled-over-epochs figure is dominated by the participants with most nights (and most wake).
 Here each participant's nights are pooled into one confusion per participant and method
 (:func:`models.agreement.epoch_metrics.epoch_agreement`), and the group figure is the mean over
-participants with a participant-bootstrap percentile interval (Menghini et al. 2021 recommend
+participants with a participant-bootstrap interval (bootstrap-t; Menghini et al. 2021 recommend
 individual-level figures, from memory; resampling participants is common practice). Every
 method is resampled with the same draws of participant indices (same seed), so differences
 between methods of the same participants are comparable.
@@ -54,7 +54,7 @@ class PairedDifference:
         Participants with a finite value on both sides.
     mean_a, mean_b, mean_difference : float
     ci : tuple of float
-        Participant-bootstrap percentile interval of ``mean_difference``.
+        Participant-bootstrap (bootstrap-t) interval of ``mean_difference``.
     t_ci : tuple of float
         Paired t-interval (``scipy.stats.t``), for comparison.
     ci_level : float
@@ -215,8 +215,7 @@ def participant_epoch_figures(nights: Iterable[ScoredNight], *, metrics: Sequenc
         for metric in metrics:
             values = mine[metric].to_numpy(dtype=np.float64)
             finite = values[np.isfinite(values)]
-            low, high = weighted_mean_interval(values, counts, proto.ci_level) if finite.size >= 2 else (
-                float("nan"), float("nan"))
+            low, high = weighted_mean_interval(values, counts, proto.ci_level)
             group_rows.append({
                 "method": method, "metric": metric, "n_participants": int(finite.size),
                 "n_nights": int(mine.loc[np.isfinite(values), "n_nights"].sum()),

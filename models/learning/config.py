@@ -81,8 +81,9 @@ class TrainingConfig:
         detection around 0.9 or above (published actigraphy ranges 0.90-0.98); a floor slightly
         above 0.9 keeps the held-out figure there. 0 gives plain Youden's J.
     choice_policy : {"balanced_accuracy", "kappa", "auc"}, default="balanced_accuracy"
-        Held-out metric that decides between a participant's personal and pooled model; ties
-        go to pooled (the simpler model).
+        Held-out metric that decides between a participant's personal, pooled and pooled+offset
+        models; ties go to the simpler model (pooled, then pooled+offset;
+        :mod:`models.learning.method_choice`).
     features : FeatureConfig, default=FeatureConfig()
         Feature set of every model.
     movement_time : {"wake", "sleep", "exclude"}, default="wake"

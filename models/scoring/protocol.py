@@ -35,6 +35,7 @@ import json
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from types import MappingProxyType
 from typing import Any
 
 from ..errors import NightbankError, Problem
@@ -130,7 +131,7 @@ class StudyProtocol:
     unscored_breaks_bouts : bool, default=False
     equivalence_margins : mapping of str to float, default=DEFAULT_EQUIVALENCE_MARGINS
         Margin (+/-, parameter unit) per name of :data:`EQUIVALENCE_PARAMETERS`; missing names
-        take the default.
+        take the default. Stored read-only, in table order.
     ci_level : float, default=0.95
         Level of every confidence interval (two one-sided tests use alpha = 1 - ci_level each).
     bootstrap_resamples : int, default=2000
@@ -159,7 +160,8 @@ class StudyProtocol:
         if problems:
             raise InvalidProtocolError(problems)
         margins = dict(DEFAULT_EQUIVALENCE_MARGINS) | {k: float(v) for k, v in self.equivalence_margins.items()}
-        object.__setattr__(self, "equivalence_margins", {k: margins[k] for k in EQUIVALENCE_PARAMETERS})
+        object.__setattr__(self, "equivalence_margins",
+                           MappingProxyType({k: margins[k] for k in EQUIVALENCE_PARAMETERS}))  # read-only
         object.__setattr__(self, "persistent_sleep_min", float(self.persistent_sleep_min))
         object.__setattr__(self, "ci_level", float(self.ci_level))
 

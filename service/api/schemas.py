@@ -96,7 +96,8 @@ class ParticipantOut(BaseModel):
     created_at: datetime
     n_nights: int
     n_labelled_nights: int
-    chosen_method: str | None = Field(description="personal or pooled once a personal model was compared")
+    chosen_method: str | None = Field(
+        description="personal, pooled or pooled+offset once a personal model was compared")
     active_personal_version: int | None
     untrained_labelled_nights: int = Field(
         description="labelled nights the active personal model was not trained on: a retrain would use them")
@@ -236,6 +237,8 @@ class ModelVersionOut(BaseModel):
     metrics: dict[str, Any] = Field(description="held-out validation figures")
     threshold: float | None
     offset: float | None
+    offset_rule: str | None = Field(
+        default=None, description="pooled models: how the offsets of participants it trained on were estimated")
     feature_set_version: str | None
     hyperparameters: dict[str, Any]
     library_versions: dict[str, str]

@@ -295,6 +295,7 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
         metrics_with_offset=_summary(result.summary.loc["pooled+offset"]) if "pooled+offset" in by_method else None,
         participants=tuple(sorted({n.participant_id for n in _night_refs(all_nights, result.model.training_nights_)})),
         offsets={pid: float(v) for pid, v in result.offsets.items()}, offset_shrinkage=float(result.shrinkage),
+        offset_rule=result.offset_rule,
         descriptors={pid: {k: _finite(v) for k, v in d.items()} for pid, d in result.descriptors.items()},
         night_metrics=tuple(_records(held)))
     held_out = [h for rows in result.held_out.values() for h in rows]

@@ -131,6 +131,9 @@ class ModelMetadata(_Record):
         Pooled models: shrinkage applied to the offsets.
     descriptors : dict of str to dict
         Pooled models: the participant descriptors used in training, per participant.
+    offset_rule : str or None
+        Pooled models: how the offsets of participants the model trained on were estimated
+        (:data:`models.OFFSET_RULE`); None for versions stored before this was recorded.
     """
 
     metrics: HeldOutFigures = Field(default_factory=HeldOutFigures)
@@ -150,6 +153,7 @@ class ModelMetadata(_Record):
     offsets: dict[str, float] = Field(default_factory=dict)
     offset_shrinkage: float | None = None
     descriptors: dict[str, dict[str, float | None]] = Field(default_factory=dict)
+    offset_rule: str | None = None
 
     @property
     def selection_score(self) -> float | None:

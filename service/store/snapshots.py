@@ -48,7 +48,7 @@ class StudyInfo:
 class ParticipantInfo:
     """A participant and the method their nights are scored with.
 
-    ``chosen_method`` is ``personal`` or ``pooled`` once a personal model was trained and
+    ``chosen_method`` is ``personal``, ``pooled`` or ``pooled+offset`` once a personal model was trained and
     compared with the pooled one (None before); ``choice`` records why (``method``, ``reason``,
     the versions compared, ``policy``). ``pk`` is the participant's database key.
     """

@@ -239,6 +239,7 @@ def test_pooled_training_then_scoring_with_offset_and_auto(http, study, admin, m
     versions = http.get(f"/v1/studies/{study}/pooled/models", headers=admin).json()
     assert [(v["version"], v["kind"], v["active"]) for v in versions] == [(1, "pooled", True)]
     assert versions[0]["n_training_nights"] == 9
+    assert versions[0]["offset_rule"].startswith("cross-fitted")  # how trained-on participants' offsets were made
     assert http.post(f"/v1/studies/{study}/pooled/models/1/activate", headers=admin).json()["active"] is True
     assert http.post(f"/v1/studies/{study}/pooled/models/1/activate",
                      headers=bearer(make_token("analyst", study))).status_code == 403

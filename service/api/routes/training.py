@@ -108,7 +108,8 @@ def _version_out(v: versions.VersionInfo) -> ModelVersionOut:
     return ModelVersionOut(
         version=v.version, kind=v.kind, active=v.active, status=v.status, created_at=v.created_at, job_id=v.job_id,  # type: ignore[arg-type]
         n_training_nights=len(meta.training_nights), metrics=meta.metrics.as_dict(), threshold=meta.threshold,
-        offset=meta.offset, feature_set_version=meta.feature_set_version, hyperparameters=meta.hyperparameters,
+        offset=meta.offset, offset_rule=meta.offset_rule, feature_set_version=meta.feature_set_version,
+        hyperparameters=meta.hyperparameters,
         library_versions=meta.library_versions, training_nights=[n.model_dump() for n in meta.training_nights],
         trained_on_deleted_nights=list(v.trained_on_deleted_nights),
         flagged_training_nights=[FlaggedTrainingNightOut.model_validate(n.model_dump())

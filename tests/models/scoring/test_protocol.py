@@ -79,6 +79,18 @@ def test_partial_margins_take_the_defaults_for_the_others():
     assert p.equivalence_margins["tst_min"] == 20.0
     assert p.equivalence_margins["waso_min"] == DEFAULT_PROTOCOL.equivalence_margins["waso_min"]
     assert p.persistent_sleep_min == 10.0 and isinstance(p.persistent_sleep_min, float)
+    with pytest.raises(TypeError):  # a protocol cannot be changed after the fact
+        p.equivalence_margins["tst_min"] = 99.0  # type: ignore[index]
+
+
+def test_without_unscored_epochs_the_bout_rule_changes_nothing():
+    rng = np.random.default_rng(8)
+    for _ in range(20):
+        x = rng.choice([0.0, 1.0], size=200, p=[0.3, 0.7])
+        a = sleep_parameters(x, 30, protocol=StudyProtocol(min_awakening_epochs=2, persistent_sleep_min=3.0))
+        b = sleep_parameters(x, 30, protocol=StudyProtocol(min_awakening_epochs=2, persistent_sleep_min=3.0,
+                                                           unscored_breaks_bouts=True))
+        assert a == b
 
 
 @pytest.mark.parametrize(("name", "value"), [
