@@ -26,14 +26,11 @@ from models import (
     AUTO,
     COMPARED_RULES,
     EQUIVALENCE_PARAMETERS,
-    REFERENCE,
     ScoredNight,
     StudyProtocol,
-    icc_a1,
     json_record,
-    parameter_equivalence,
+    parameter_agreement,
     participant_epoch_figures,
-    repeated_bland_altman,
 )
 
 __all__ = ["DIFFERENCE_METRICS", "STATISTIC_PARAMETERS", "agreement_statistics", "best_rule"]
@@ -67,57 +64,18 @@ def _paired(figures: Any, methods: set[str]) -> list[dict[str, Any]]:
     return out
 
 
-def _sides(parameters: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray, list[tuple[str, pd.DataFrame]]]:
-    """The reference's rows, their participant ids and each method's rows matched to them by night."""
-    keys = ["participant_id", "night_id"]
-    ref = parameters[parameters["method"] == REFERENCE].set_index(keys)
-    pids = ref.index.get_level_values("participant_id").to_numpy(dtype=object)
-    methods = [(str(m), parameters[parameters["method"] == m].set_index(keys).reindex(ref.index))
-               for m in dict.fromkeys(parameters["method"]) if m != REFERENCE]
-    return ref, pids, methods
-
-
-def _repeated(parameters: pd.DataFrame, protocol: StudyProtocol) -> list[dict[str, Any]]:
-    """:func:`models.repeated_bland_altman` per method and parameter; where the proportional-bias model cannot
-    be fitted (e.g. constant differences), the limits without it, saying so."""
-    ref, pids, methods = _sides(parameters)
-    out = []
-    for method, own in methods:
-        for name in STATISTIC_PARAMETERS:
-            x, r = own[name].to_numpy(dtype=float), ref[name].to_numpy(dtype=float)
-            try:
-                found = repeated_bland_altman(x, r, pids, method_name=method, parameter=name, protocol=protocol)
-            except (np.linalg.LinAlgError, ValueError) as exc:
-                found = repeated_bland_altman(x - r, None, pids, method_name=method, parameter=name,
-                                              protocol=protocol)
-                entry = found.to_dict()
-                entry["proportional_bias"] = {"model": f"not estimable ({type(exc).__name__}: {exc})"}
-                out.append(entry)
-                continue
-            out.append(found.to_dict())
-    return out
-
-
-def _icc(parameters: pd.DataFrame, protocol: StudyProtocol) -> list[dict[str, Any]]:
-    ref, _, methods = _sides(parameters)
-    out = []
-    for method, own in methods:
-        for name in STATISTIC_PARAMETERS:
-            pairs = np.column_stack([own[name].to_numpy(dtype=float), ref[name].to_numpy(dtype=float)])
-            pairs = pairs[np.isfinite(pairs).all(axis=1)]
-            result = icc_a1(pairs, ci_level=protocol.ci_level).to_dict() if len(pairs) else {"icc": None}
-            out.append({"method": method, "parameter": name, "kind": "ICC(A,1)"} | result)
-    return out
-
-
-def _equivalence(parameters: pd.DataFrame, protocol: StudyProtocol) -> list[dict[str, Any]]:
-    ref, pids, methods = _sides(parameters)
-    out = []
-    for method, own in methods:
-        for name in STATISTIC_PARAMETERS:
-            out.append(parameter_equivalence(own[name].to_numpy(dtype=float), ref[name].to_numpy(dtype=float),
-                                             pids, parameter=name, method_name=method, protocol=protocol))
-    return out
+def _parameter_entries(parameters: pd.DataFrame, protocol: StudyProtocol) -> tuple[list[dict[str, Any]], ...]:
+    """:func:`models.parameter_agreement` split into the Bland-Altman, ICC and equivalence lists."""
+    entries = parameter_agreement(parameters, parameter_names=STATISTIC_PARAMETERS, protocol=protocol)
+    repeated, icc, equivalence = [], [], []
+    for entry in entries:
+        ids = {"method": entry["method"], "parameter": entry["parameter"]}
+        icc.append(ids | {"kind": "ICC(A,1)"} | (entry.pop("icc", None) or {}))
+        found = entry.pop("equivalence", None)
+        if found is not None:
+            equivalence.append(found)
+        repeated.append(entry)
+    return repeated, icc, equivalence
 
 
 def agreement_statistics(parameters: pd.DataFrame, scored: Sequence[ScoredNight], *,
@@ -142,12 +100,11 @@ def agreement_statistics(parameters: pd.DataFrame, scored: Sequence[ScoredNight]
     if parameters.empty or not scored:
         return {"repeated_bland_altman": [], "participant_epochs": {"participants": [], "group": []},
                 "paired_differences": [], "icc": [], "equivalence": []}
-    repeated = _repeated(parameters, protocol)
+    repeated, icc, equivalence = _parameter_entries(parameters, protocol)
     figures = participant_epoch_figures(scored, protocol=protocol)
     epochs = figures.to_dict()
     epochs.pop("protocol", None)
     methods = set(figures.participants["method"])
     return {"repeated_bland_altman": repeated, "participant_epochs": epochs,
             "paired_differences": [json_record(r) for r in _paired(figures, methods)],
-            "icc": [json_record(r) for r in _icc(parameters, protocol)],
-            "equivalence": _equivalence(parameters, protocol)}
+            "icc": icc, "equivalence": equivalence}
