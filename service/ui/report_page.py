@@ -20,7 +20,7 @@ from typing import Any
 import pandas as pd
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import AUTO, EPOCH_METRIC_NAMES, REFERENCE
+from models import EPOCH_METRIC_NAMES, REFERENCE
 
 from ..results import reports
 from ..results.agreement_stats import STATISTIC_PARAMETERS
@@ -65,7 +65,7 @@ def _svg(draw: Any, *args: Any, size_in: tuple[float, float], salt: str, **kwarg
 
 def _methods(comparison: dict[str, Any]) -> list[str]:
     found = {r["method"] for r in comparison.get("repeated_bland_altman", [])}
-    ordered = [m for m in (*COMPARISON_METHODS[:3], AUTO, *COMPARISON_METHODS[3:]) if m in found]
+    ordered = [m for m in COMPARISON_METHODS if m in found]
     return ordered + sorted(found - set(ordered))
 
 

@@ -12,6 +12,7 @@ import httpx
 import numpy as np
 import pandas as pd
 import pytest
+from agreement_formulas import ba2007_limits
 from harness import LiveServer, bearer, cohort_bodies, free_port, wait_for, worker_env
 
 pytestmark = pytest.mark.slow
@@ -221,20 +222,6 @@ def test_csv_export_neutralises_cells_a_spreadsheet_would_run(trained) -> None:
     assert set(parquet["label"]) == set(labels)  # typed data keep the text as sent
 
 
-def _ba2007_limits(d: np.ndarray, pids: np.ndarray) -> tuple[float, float, float]:
-    """Bland & Altman 2007 (J Biopharm Stat 17:571), true value varying: bias and 95% limits from the one-way
-    ANOVA of the differences by participant."""
-    frame = pd.DataFrame({"d": d, "p": pids})
-    groups = frame.groupby("p")["d"]
-    m, n, k = groups.size().to_numpy(dtype=float), float(len(d)), groups.ngroups
-    grand = d.mean()
-    ms_between = float((m * (groups.mean().to_numpy() - grand) ** 2).sum() / (k - 1))
-    ms_within = float(((frame["d"] - groups.transform("mean")) ** 2).sum() / (n - k))
-    divisor = (n ** 2 - (m ** 2).sum()) / ((k - 1) * n)
-    sd = np.sqrt(max(0.0, (ms_between - ms_within) / divisor) + ms_within)
-    return grand, grand - 1.96 * sd, grand + 1.96 * sd
-
-
 def test_study_comparison_has_repeated_measures_bland_altman_icc_and_equivalence(trained) -> None:
     from statsmodels.stats.weightstats import ttost_paired
 
@@ -248,7 +235,7 @@ def test_study_comparison_has_repeated_measures_bland_altman_icc_and_equivalence
     row = next(r for r in out["repeated_bland_altman"] if r["method"] == "cole-kripke" and r["parameter"] == "tst_min")
     assert {"method", "parameter", "n_participants", "n_nights", "bias", "bias_ci", "loa_lower", "loa_upper",
             "loa_lower_ci", "loa_upper_ci", "proportional_bias", "protocol"} <= set(row)
-    bias, low, high = _ba2007_limits(d, pids)
+    bias, low, high = ba2007_limits(d, pids)
     assert (row["n_participants"], row["n_nights"]) == (3, 9)
     assert row["bias"] == pytest.approx(bias) and row["loa_lower"] == pytest.approx(low)
     assert row["loa_upper"] == pytest.approx(high)

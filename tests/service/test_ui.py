@@ -14,6 +14,7 @@ import xml.etree.ElementTree as ET
 
 import numpy as np
 import pytest
+from agreement_formulas import ba2007_limits
 from harness import bearer
 from ui_support import FEW_LABELS, STUDY, TRAINED, UNTRAINED, browser, site, tab  # noqa: F401
 
@@ -170,7 +171,8 @@ def test_ui_participant_page_compares_methods_on_held_out_nights(tab, site) -> N
     t = tab("analyst")
     t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
     methods = t.page.locator("#method-summary tbody td:first-child").all_inner_texts()
-    assert methods[:6] == ["personal", "pooled", "pooled + offset", "Cole-Kripke", "Sadeh", "count threshold"]
+    assert methods[:7] == ["personal", "pooled", "pooled + offset", "auto (as deployed)", "Cole-Kripke", "Sadeh",
+                           "count threshold"]
     assert _image_loaded(t, "#held-out-figure img") and _image_loaded(t, "#roc-figure img")
     csv = _download(t, t.page.get_by_role("link", name=re.compile("per-night comparison")))
     frame = pd.read_csv(csv.path())
@@ -239,7 +241,7 @@ def test_ui_study_page_draws_bland_altman_with_bias_and_limits(tab, site) -> Non
 
     t = tab("analyst")
     t.goto(f"/ui/studies/{STUDY}")
-    for method in ("personal", "pooled", "pooled+offset", "cole-kripke", "sadeh", "count-threshold"):
+    for method in ("personal", "pooled", "pooled+offset", "auto", "cole-kripke", "sadeh", "count-threshold"):
         assert _image_loaded(t, f"[id='bland-altman-{method}'] img"), method
     pairs = pd.read_csv(_download(t, t.page.get_by_role("link", name=re.compile("night parameters"))).path())
     stats = pd.read_csv(_download(t, t.page.get_by_role("link", name=re.compile("Bland-Altman table"))).path())
@@ -254,7 +256,13 @@ def test_ui_study_page_draws_bland_altman_with_bias_and_limits(tab, site) -> Non
     assert row["n"] == d.size and row["bias"] == pytest.approx(bias)
     assert row["loa_lower"] == pytest.approx(bias - 1.96 * sd) and row["loa_upper"] == pytest.approx(bias + 1.96 * sd)
     caption = t.page.locator("[id='bland-altman-sadeh'] figcaption").inner_text()
-    assert f"TST (min): bias {bias:.1f} [{bias - 1.96 * sd:.1f}, {bias + 1.96 * sd:.1f}], n = {d.size}" in caption
+    # the figures draw the limits over nights nested in participants (Bland & Altman 2007) with their CIs
+    pids = ref.index.get_level_values(0).to_numpy()
+    both = np.isfinite((own - ref).to_numpy())
+    _, low, high = ba2007_limits((own - ref).to_numpy()[both], pids[both])
+    k = len(set(pids[both]))
+    assert f"TST (min): bias {bias:.1f} [{low:.1f}, {high:.1f}], n = {d.size} nights of k = {k}; CIs: bias (CI" \
+        in caption
     svg = _download(t, t.page.locator("[id='bland-altman-sadeh'] .downloads a", has_text="SVG"))
     texts = " ".join(el.text or "" for el in _check_svg(open(svg.path(), "rb").read()).iter())
     assert f"bias {bias:.1f}" in texts  # the numbers are printed in the figure itself
@@ -292,3 +300,68 @@ def test_ui_ingest_role_sees_recordings_but_not_models(tab, site) -> None:  # no
         page = http.get(f"/ui/studies/{STUDY}")
         assert "script-src 'self'" in page.headers["content-security-policy"]
         assert "<script>" not in page.text and " style=" not in page.text  # no inline script or style
+
+
+def test_ui_participants_table_fits_a_1400_px_window(browser, site) -> None:  # noqa: F811
+    context = browser.new_context(viewport={"width": 1400, "height": 900})
+    try:
+        page = context.new_page()
+        errors: list[str] = []
+        page.on("console", lambda msg: errors.append(msg.text) if msg.type == "error" else None)
+        page.goto(f"{site.url}/ui/signin")
+        page.get_by_label("Access token").fill(site.tokens["analyst"])
+        page.get_by_role("button", name="Sign in").click()
+        page.goto(f"{site.url}/ui/studies/{STUDY}")
+        page.wait_for_load_state("networkidle")
+        # nothing sticks out of the window sideways (CSSOM View: scrollWidth of the document <= its width)
+        assert page.evaluate("() => document.documentElement.scrollWidth <= window.innerWidth")
+        box = page.evaluate("""() => { const t = document.querySelector('#participants-table');
+            const r = t.getBoundingClientRect(); const s = t.closest('.scroll').getBoundingClientRect();
+            return {right: r.right, scrollRight: s.right, width: window.innerWidth}; }""")
+        assert box["scrollRight"] <= box["width"]  # the table's scroll area stays inside the window
+        assert box["right"] <= box["width"] or page.evaluate(
+            "() => { const s = document.querySelector('#participants-table').closest('.scroll');"
+            " return s.scrollWidth > s.clientWidth && getComputedStyle(s).overflowX === 'auto'; }")
+        page.screenshot(path=str(_artifact("study-1400.png")), full_page=True)
+        assert errors == []
+    finally:
+        context.close()
+
+
+def _artifact(name: str):
+    from ui_support import ARTIFACTS
+
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    return ARTIFACTS / name
+
+
+def test_ui_downloaded_png_keeps_legends_and_labels_inside(tab, site) -> None:  # noqa: F811
+    t = tab("analyst")
+    for path in (f"/ui/studies/{STUDY}/figures/bland-altman-sadeh.png",
+                 f"/ui/studies/{STUDY}/participants/{TRAINED}/figures/held-out.png"):
+        pixels = _check_png(t.context.request.get(site.url + path).body())
+        rgb = pixels[..., :3]
+        # the saved area is the drawn area plus a margin: the outermost rows and columns are blank paper
+        # (white), so no legend, tick label or text was cut at the border
+        for edge in (rgb[:4], rgb[-4:], rgb[:, :4], rgb[:, -4:]):
+            assert edge.min() > 0.95, path
+
+
+def test_ui_pages_show_parameter_agreement_with_cis_the_choice_and_the_report(tab, site) -> None:  # noqa: F811
+    t = tab("analyst")
+    t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
+    table = t.page.locator("#parameter-agreement")
+    methods = set(table.locator("tbody td:first-child").all_inner_texts())
+    assert {"personal", "pooled + offset", "auto (as deployed)", "Sadeh"} <= methods
+    assert re.search(r"-?\d+\.\d \[", table.locator("tbody td:nth-child(4)").first.inner_text())
+    choice = t.page.locator("#choice").inner_text()
+    assert "Evidence:" in choice and "auto" in choice
+    _check_accessible(t)
+    t.shot("participant-parameters")
+    t.goto(f"/ui/studies/{STUDY}")
+    repeated = t.page.locator("#repeated-bland-altman-table tbody tr")
+    assert repeated.count() >= 5
+    assert re.search(r"\[-?\d+\.\d, -?\d+\.\d\]", repeated.first.locator("td:nth-child(5)").inner_text())
+    report = _download(t, t.page.get_by_role("link", name=re.compile("validation report")))
+    html = open(report.path(), encoding="utf-8").read()
+    assert "<svg" in html and "not a medical device" in html and TRAINED in html
