@@ -233,7 +233,7 @@ def _one_decimal(value: float) -> str:
 
 
 def draw_bland_altman(fig: Figure, method: str, pairs: Mapping[str, tuple[NDArray[np.float64], NDArray[np.float64]]],
-                      stats: Mapping[str, Mapping[str, float | None]]) -> None:
+                      stats: Mapping[str, Mapping[str, Any]]) -> None:
     """Bland-Altman plots of one method against the reference, one panel per parameter.
 
     Parameters
@@ -267,7 +267,8 @@ def draw_bland_altman(fig: Figure, method: str, pairs: Mapping[str, tuple[NDArra
             ax.text(1.0, value, f" {label} {_one_decimal(value)}", transform=ax.get_yaxis_transform(),
                     va="center", ha="left", fontsize=7.5, clip_on=False)
         for key in ("bias_ci", "loa_lower_ci", "loa_upper_ci"):
-            low, high = s.get(key) or (None, None)
+            ci: Any = s.get(key) or (None, None)
+            low, high = ci
             if low is not None and high is not None and np.isfinite(low) and np.isfinite(high):
                 ax.axhspan(low, high, color=GREY, alpha=0.2, linewidth=0)
         ax.axhline(0.0, color=GREY, linewidth=0.6, linestyle=":")
