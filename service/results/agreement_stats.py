@@ -2,7 +2,7 @@
 
 Built from the comparison's tables (:func:`models.comparison_tables`) under the study protocol:
 
-- ``repeated_bland_altman``: per method and parameter, :func:`models.repeated_bland_altman`
+- ``repeated_bland_altman``: per method (the always-sleep baseline left out) and parameter, :func:`models.repeated_bland_altman`
   (variance components over participants and nights, participant-bootstrap CIs of the bias and
   the limits, proportional bias with a random intercept per participant);
 - ``participant_epochs``: epoch-by-epoch figures per participant (their nights pooled) and the
@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from models import (
+    ALWAYS_SLEEP,
     AUTO,
     COMPARED_RULES,
     EQUIVALENCE_PARAMETERS,
@@ -66,7 +67,9 @@ def _paired(figures: Any, methods: set[str]) -> list[dict[str, Any]]:
 
 def _parameter_entries(parameters: pd.DataFrame, protocol: StudyProtocol) -> tuple[list[dict[str, Any]], ...]:
     """:func:`models.parameter_agreement` split into the Bland-Altman, ICC and equivalence lists."""
-    entries = parameter_agreement(parameters, parameter_names=STATISTIC_PARAMETERS, protocol=protocol)
+    # the always-sleep baseline is left out: its parameters are the in-bed time itself (no agreement to estimate)
+    entries = parameter_agreement(parameters[parameters["method"] != ALWAYS_SLEEP],
+                                  parameter_names=STATISTIC_PARAMETERS, protocol=protocol)
     repeated, icc, equivalence = [], [], []
     for entry in entries:
         ids = {"method": entry["method"], "parameter": entry["parameter"]}

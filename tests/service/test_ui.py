@@ -23,6 +23,15 @@ pytestmark = pytest.mark.slow
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), section 5.2
 
 
+def _analyst(tab):  # noqa: F811
+    """A tab of the analyst token that waits long enough for a first comparison (computed on first view: the
+    repeated-measures statistics fit one mixed model per method and parameter)."""
+    t = tab("analyst")
+    t.page.set_default_timeout(120_000)
+    t.page.set_default_navigation_timeout(120_000)
+    return t
+
+
 def _night_path(site, pid: str, k: int = 0) -> str:  # noqa: F811
     return f"/ui/studies/{STUDY}/participants/{pid}/nights/{site.night_ids[pid][k]}"
 
@@ -102,7 +111,7 @@ def test_ui_night_page_draws_the_night_and_compares_methods(tab, site) -> None: 
 
     from models import demo_nights
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(_night_path(site, TRAINED))
     select = t.page.get_by_label("Method shown")
     options = select.locator("option").all_inner_texts()
@@ -141,7 +150,7 @@ def test_ui_night_page_draws_the_night_and_compares_methods(tab, site) -> None: 
 def test_ui_participant_page_lists_nights_versions_and_cards(tab, site) -> None:  # noqa: F811
     import httpx
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
     rows = t.page.locator("#nights-table tbody tr")
     assert rows.count() == len(site.night_ids[TRAINED])
@@ -168,7 +177,7 @@ def test_ui_participant_page_compares_methods_on_held_out_nights(tab, site) -> N
 
     from models import demo_nights, score_with_rule
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
     methods = t.page.locator("#method-summary tbody td:first-child").all_inner_texts()
     assert methods[:7] == ["personal", "pooled", "pooled + offset", "auto (as deployed)", "Cole-Kripke", "Sadeh",
@@ -198,7 +207,7 @@ def test_ui_participant_page_compares_methods_on_held_out_nights(tab, site) -> N
 
 
 def test_ui_train_button_follows_the_job_to_completion(tab, site) -> None:  # noqa: F811
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}/participants/{UNTRAINED}")
     assert "No personal model yet" in t.page.locator("#versions-h + *").inner_text()
     t.page.get_by_label("Hyper-parameter trials per search").fill("2")
@@ -214,7 +223,7 @@ def test_ui_train_button_follows_the_job_to_completion(tab, site) -> None:  # no
 def test_ui_study_page_sorts_participants(tab, site) -> None:  # noqa: F811
     import pandas as pd
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}")
     table = t.page.locator("#participants-table")
     assert table.locator("tbody tr").count() == 3
@@ -239,7 +248,7 @@ def test_ui_study_page_sorts_participants(tab, site) -> None:  # noqa: F811
 def test_ui_study_page_draws_bland_altman_with_bias_and_limits(tab, site) -> None:  # noqa: F811
     import pandas as pd
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}")
     for method in ("personal", "pooled", "pooled+offset", "auto", "cole-kripke", "sadeh", "count-threshold"):
         assert _image_loaded(t, f"[id='bland-altman-{method}'] img"), method
@@ -336,7 +345,7 @@ def _artifact(name: str):
 
 
 def test_ui_downloaded_png_keeps_legends_and_labels_inside(tab, site) -> None:  # noqa: F811
-    t = tab("analyst")
+    t = _analyst(tab)
     for path in (f"/ui/studies/{STUDY}/figures/bland-altman-sadeh.png",
                  f"/ui/studies/{STUDY}/participants/{TRAINED}/figures/held-out.png"):
         pixels = _check_png(t.context.request.get(site.url + path).body())
@@ -348,7 +357,7 @@ def test_ui_downloaded_png_keeps_legends_and_labels_inside(tab, site) -> None:  
 
 
 def test_ui_pages_show_parameter_agreement_with_cis_the_choice_and_the_report(tab, site) -> None:  # noqa: F811
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
     table = t.page.locator("#parameter-agreement")
     methods = set(table.locator("tbody td:first-child").all_inner_texts())
@@ -361,7 +370,13 @@ def test_ui_pages_show_parameter_agreement_with_cis_the_choice_and_the_report(ta
     t.goto(f"/ui/studies/{STUDY}")
     repeated = t.page.locator("#repeated-bland-altman-table tbody tr")
     assert repeated.count() >= 5
-    assert re.search(r"\[-?\d+\.\d, -?\d+\.\d\]", repeated.first.locator("td:nth-child(5)").inner_text())
+    sadeh = repeated.filter(has_text="Sadeh").first  # a rule: every participant's nights, so the CI exists
+    assert re.search(r"\[-?\d+\.\d, -?\d+\.\d\]", sadeh.locator("td:nth-child(5)").inner_text())
+    assert "Under the study protocol: WASO to lights on" in t.page.locator(".protocol-note").first.inner_text()
     report = _download(t, t.page.get_by_role("link", name=re.compile("validation report")))
     html = open(report.path(), encoding="utf-8").read()
     assert "<svg" in html and "not a medical device" in html and TRAINED in html
+    t.goto(f"/ui/studies/{STUDY}/report")  # the report as a page in the browser: no console errors
+    t.page.set_content(html)
+    t.page.wait_for_load_state("networkidle")
+    t.shot("report")
