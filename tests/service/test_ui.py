@@ -356,7 +356,7 @@ def test_ui_downloaded_png_keeps_legends_and_labels_inside(tab, site) -> None:  
             assert edge.min() > 0.95, path
 
 
-def test_ui_pages_show_parameter_agreement_with_cis_the_choice_and_the_report(tab, site) -> None:  # noqa: F811
+def test_ui_pages_show_parameter_agreement_with_cis_the_choice_and_the_report(tab, site, tmp_path) -> None:  # noqa: F811
     t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
     table = t.page.locator("#parameter-agreement")
@@ -376,7 +376,9 @@ def test_ui_pages_show_parameter_agreement_with_cis_the_choice_and_the_report(ta
     report = _download(t, t.page.get_by_role("link", name=re.compile("validation report")))
     html = open(report.path(), encoding="utf-8").read()
     assert "<svg" in html and "not a medical device" in html and TRAINED in html
-    t.goto(f"/ui/studies/{STUDY}/report")  # the report as a page in the browser: no console errors
-    t.page.set_content(html)
+    saved = tmp_path / "report.html"
+    saved.write_text(html, encoding="utf-8")
+    t.page.goto(saved.as_uri())  # opened from disk, as a reader would: no console errors
     t.page.wait_for_load_state("networkidle")
+    assert t.page.locator("svg").count() >= 4
     t.shot("report")
