@@ -2,9 +2,10 @@
 
 Built from the comparison's tables (:func:`models.comparison_tables`) under the study protocol:
 
-- ``repeated_bland_altman``: per method (the always-sleep baseline left out) and parameter, :func:`models.repeated_bland_altman`
-  (variance components over participants and nights, participant-bootstrap CIs of the bias and
-  the limits, proportional bias with a random intercept per participant);
+- ``repeated_bland_altman``: per method (the always-sleep baseline left out) and parameter,
+  :func:`models.repeated_bland_altman` (variance components over participants and nights,
+  participant-bootstrap CIs of the bias and the limits, proportional bias with a random
+  intercept per participant);
 - ``participant_epochs``: epoch-by-epoch figures per participant (their nights pooled) and the
   group mean with a participant-bootstrap CI (:func:`models.participant_epoch_figures`);
 - ``paired_differences``: per-participant paired differences of an epoch metric: personal −

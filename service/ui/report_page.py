@@ -30,9 +30,9 @@ from .cards import model_card
 from .figures import render
 from .participant_view import COMPARISON_METHODS
 from .report_figures import draw_paired_differences, draw_participant_epochs, draw_repeated_bland_altman
-from .templating import CAUTIONS, TEMPLATES, is_simulated
+from .templating import CAUTIONS, TEMPLATES, is_simulated, number
 
-__all__ = ["LIBRARIES", "REPORT_METRICS", "build_report", "software_versions"]
+__all__ = ["LIBRARIES", "REPORT_METRICS", "bound", "build_report", "software_versions"]
 
 #: Libraries whose versions the report lists (those that compute or draw its figures, and the service's own).
 LIBRARIES: tuple[str, ...] = ("nightbank", "numpy", "pandas", "scipy", "scikit-learn", "statsmodels", "xgboost-cpu",
@@ -113,6 +113,16 @@ def _cards(session: Session, study: registry.StudyInfo) -> list[dict[str, Any]]:
             cards.append(model_card(personal, study_id=study.study_id, participant_id=participant.participant_id,
                                     choice=choice))
     return cards
+
+
+def bound(value: Any) -> str:
+    """A CI bound for the report's tables: one decimal, "unbounded" beyond +/-1e6, an en dash when missing."""
+    if isinstance(value, int | float) and not isinstance(value, bool) and abs(value) > 1e6:
+        return "unbounded"
+    return number(value, 1)
+
+
+TEMPLATES.env.filters["bound"] = bound
 
 
 def build_report(factory: sessionmaker[Session], *, study_id: str) -> str:
