@@ -24,6 +24,11 @@ their specificity >= 0.70 with sensitivity >= 0.90; their SOL mean absolute erro
 count-threshold rule's;
 their awakening-count bias at most half the count-threshold rule's (absolute values);
 pooled+offset no worse than pooled for participants with 1-2 labelled nights.
+``--without-time-context`` is an ablation: the time-context features ``since_lights_off_min`` and
+``to_lights_on_min`` (:func:`models.features.context.time_context`) are blanked (NaN, so no tree
+splits on them) for this run only, features computed in this process; the defaults are unchanged.
+``--only demo`` (or ``second``) runs one cohort.
+
 The last printed line is one JSON object (with the 1-minute load average before and after).
 """
 
@@ -45,6 +50,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from models.agreement.rule_comparison import NightRecord, compare_rules_with_reference  # noqa: E402
+from models.features.cache import FeatureCache  # noqa: E402
 from models.learning.config import TrainingConfig  # noqa: E402
 from models.learning.offset import estimate_offset  # noqa: E402
 from models.learning.splits import participant_groups  # noqa: E402
@@ -87,12 +93,15 @@ def _one_night_offsets(result) -> dict[str, float]:
     return {"n_pairs": int(g.size), "mean_gain": float(g.mean()), "share_no_worse": float((g >= 0).mean())}
 
 
-def _evaluate(name: str, sims: list, config: TrainingConfig) -> dict[str, object]:
+def _evaluate(name: str, sims: list, config: TrainingConfig, *, in_process: bool = False) -> dict[str, object]:
     study: dict[str, list] = {}
     for s in sims:
         study.setdefault(s.night.participant_id, []).append(s.night)
     start = time.perf_counter()
-    result = compare_study(study, config=config)
+    cache = FeatureCache()
+    if in_process:  # the ablation's patch lives in this process only: compute every night's features here
+        list(cache.features_of([n for v in study.values() for n in v], config.features, n_jobs=1))
+    result = compare_study(study, config=config, feature_cache=cache)
     seconds = time.perf_counter() - start
     keys = ["participant_id", "night_id", "method"]
     night_rows = result.epoch_metrics[result.epoch_metrics["level"] == "night"]
@@ -163,20 +172,39 @@ def _rules(study: dict[str, list]) -> dict[str, object]:
                         for m, g in nights.groupby("method", sort=False)}}
 
 
+def _without_time_context() -> None:
+    """Blank the time-context features in this process (ablation; feature names and order unchanged)."""
+    import models.features.matrix as matrix
+
+    original = matrix.time_context
+
+    def blanked(n_epochs: int, epoch_seconds: float, **kwargs: object) -> dict[str, np.ndarray]:
+        return {k: np.full(n_epochs, np.nan) for k in original(n_epochs, epoch_seconds, **kwargs)}  # type: ignore[arg-type]
+
+    matrix.time_context = blanked  # type: ignore[assignment]
+
+
 def main(argv: list[str]) -> None:
+    ablation = "--without-time-context" in argv
+    if ablation:
+        _without_time_context()
     trials = int(argv[argv.index("--trials") + 1]) if "--trials" in argv else 30  # fewer: a quick look only
     config = TrainingConfig(n_trials=trials, n_jobs=2)
     cohorts = {
         "demo": demo_nights(),
         "second": simulate_cohort(CohortSpec(spread=1.4, id_prefix="QB"), seed=424242),
     }
+    if "--only" in argv:  # one cohort, a quicker look
+        cohorts = {argv[argv.index("--only") + 1]: cohorts[argv[argv.index("--only") + 1]]}
     load_before = os.getloadavg()[0]
     print(f"load average (1 min) before: {load_before:.2f}")
-    report: dict[str, object] = {name: _evaluate(name, sims, config) for name, sims in cohorts.items()}
+    report: dict[str, object] = {name: _evaluate(name, sims, config, in_process=ablation)
+                                 for name, sims in cohorts.items()}
     load_after = os.getloadavg()[0]
     print(f"load average (1 min) after: {load_after:.2f}")
     report["load_average_1min"] = {"before": round(load_before, 2), "after": round(load_after, 2)}
     report["n_trials"] = trials
+    report["ablation"] = "without since_lights_off_min, to_lights_on_min" if ablation else None
     report["all_goals_met"] = bool(np.all([v for name in cohorts
                                            for v in report[name]["goals"].values()]))  # type: ignore[index]
     print(json.dumps(report))

@@ -45,8 +45,8 @@ __all__ = ["CALIBRATED_PARAMETER", "CALIBRATED_SUFFIX", "COUNT_SCALE_GRID", "THR
 CALIBRATED_SUFFIX = ":calibrated"
 #: Factors of the count scale tried (powers of sqrt 2 from 1/32 to 32; 1 = as published).
 COUNT_SCALE_GRID: tuple[float, ...] = tuple(float(2.0 ** (k / 2)) for k in range(-10, 11))
-#: Count-threshold thresholds tried, counts (40 x powers of sqrt 2, 2.5 .. 640; 40 = as published).
-THRESHOLD_GRID: tuple[float, ...] = tuple(float(40.0 * 2.0 ** (k / 2)) for k in range(-8, 9))
+#: Count-threshold thresholds tried, counts (40 x powers of sqrt 2, 0.3125 .. 640; 40 = as published).
+THRESHOLD_GRID: tuple[float, ...] = tuple(float(40.0 * 2.0 ** (k / 2)) for k in range(-14, 9))
 #: The calibrated parameter of each base rule.
 CALIBRATED_PARAMETER: Mapping[str, str] = {"cole-kripke": "count_scale", "sadeh": "count_scale",
                                            "count-threshold": "threshold"}
@@ -88,6 +88,11 @@ class RuleCalibration:
     mean_balanced_accuracy: tuple[float, ...] = field(repr=False)
 
     @property
+    def at_grid_edge(self) -> bool:
+        """Some chosen value is the smallest or largest tried (the best may lie outside the grid)."""
+        return any(v in (self.grid[0], self.grid[-1]) for v in (self.overall, *self.per_participant.values()))
+
+    @property
     def name(self) -> str:
         """The calibrated method's name in tables."""
         return calibrated_method(self.method)
@@ -104,7 +109,8 @@ class RuleCalibration:
     def to_dict(self) -> dict[str, Any]:
         """JSON-able form (values as plain numbers)."""
         return {"method": self.method, "name": self.name, "parameter": self.parameter, "published": self.published,
-                "overall": self.overall, "per_participant": dict(self.per_participant), "grid": list(self.grid)}
+                "overall": self.overall, "per_participant": dict(self.per_participant), "grid": list(self.grid),
+                "at_grid_edge": self.at_grid_edge}
 
 
 def _balanced_accuracy(reference: NDArray[np.float64], sleep: NDArray[np.float64]) -> float:

@@ -105,8 +105,8 @@ def _field_problems(values: Mapping[str, Any]) -> list[Problem]:
          "must be a finite number of minutes > 0"),
         ("sol", values["sol"] in SOL_DEFINITIONS, f"must be one of {', '.join(SOL_DEFINITIONS)}"),
         ("unscored_breaks_bouts", isinstance(values["unscored_breaks_bouts"], bool), "must be true or false"),
-        ("ci_level", _is_number(values["ci_level"]) and 0.5 <= values["ci_level"] < 1,
-         "must be a number in [0.5, 1)"),
+        ("ci_level", _is_number(values["ci_level"]) and 0.5 < values["ci_level"] < 1,
+         "must be a number in (0.5, 1)"),
         ("bootstrap_resamples", _is_int(values["bootstrap_resamples"])
          and values["bootstrap_resamples"] >= MIN_BOOTSTRAP_RESAMPLES,
          f"must be an integer >= {MIN_BOOTSTRAP_RESAMPLES}"),
@@ -133,7 +133,8 @@ class StudyProtocol:
         Margin (+/-, parameter unit) per name of :data:`EQUIVALENCE_PARAMETERS`; missing names
         take the default. Stored read-only, in table order.
     ci_level : float, default=0.95
-        Level of every confidence interval (two one-sided tests use alpha = 1 - ci_level each).
+        Level of every confidence interval, in (0.5, 1) (two one-sided tests use
+        alpha = 1 - ci_level each).
     bootstrap_resamples : int, default=2000
         Participant-bootstrap resamples (>= 100; >= 2,000 is common practice).
     seed : int, default=0

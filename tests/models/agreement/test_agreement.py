@@ -131,7 +131,7 @@ def _records(seed=0, n_epochs=400):
 def test_compare_rules_with_reference_tables():
     records = _records()
     report = compare_rules_with_reference(records)
-    methods = [ALWAYS_SLEEP, *METHOD_IDS]
+    methods = [ALWAYS_SLEEP, *METHOD_IDS, *(f"{m}:calibrated" for m in METHOD_IDS)]  # published, then calibrated
     epoch = report.epoch_metrics
     assert list(dict.fromkeys(epoch.method)) == methods
     assert set(epoch.level) == {"night", "participant", "pooled"}

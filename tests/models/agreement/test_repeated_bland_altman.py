@@ -117,6 +117,24 @@ def test_participant_bootstrap_covers_the_true_bias_and_limits(sd_between, sd_wi
     assert min(coverage.values()) >= 0.90, coverage
 
 
+def test_a_constant_added_to_every_difference_moves_every_figure_by_it():
+    # location equivariance of the mean and of the variance components (Bland & Altman 2007)
+    rng = np.random.default_rng(6)
+    ids = np.repeat(np.arange(9), [1, 2, 3, 4, 2, 3, 1, 2, 5])
+    d = rng.normal(0, 1, 9)[ids] * 4 + rng.normal(0, 3, ids.size)
+    a = repeated_limits_of_agreement(d, ids, n_boot=500)
+    b = repeated_limits_of_agreement(d + 30.0, ids, n_boot=500)
+    for name in ("bias", "loa_lower", "loa_upper"):
+        assert b[name] == pytest.approx(a[name] + 30.0)
+        assert b[f"{name}_ci" if name != "bias" else "bias_ci"] == pytest.approx(
+            tuple(v + 30.0 for v in a[f"{name}_ci" if name != "bias" else "bias_ci"]))
+    assert (b["sd_within"], b["sd_between"]) == pytest.approx((a["sd_within"], a["sd_between"]))
+    # the order of the nights does not matter to the point figures
+    order = rng.permutation(ids.size)
+    c = repeated_limits_of_agreement(d[order], ids[order], n_boot=500)
+    assert (c["bias"], c["loa_lower"], c["loa_upper"]) == pytest.approx((a["bias"], a["loa_lower"], a["loa_upper"]))
+
+
 def test_bootstrap_is_seeded():
     rng = np.random.default_rng(5)
     ids = np.repeat(np.arange(10), 3)
@@ -149,6 +167,20 @@ def test_proportional_bias_matches_statsmodels_mixedlm_with_a_random_intercept()
     limits = r.regression_limits
     assert limits is not None and "proportional_bias" in limits["reasons"]
     assert limits["multiplier"] == pytest.approx(1.96 * math.sqrt(math.pi / 2))  # 2.46, Bland & Altman 1999
+
+
+def test_without_between_participant_variance_the_slope_is_least_squares_with_clustered_errors():
+    rng = np.random.default_rng(18)
+    ids = np.repeat(np.arange(12), 3)
+    reference = rng.uniform(300, 480, ids.size)
+    d = 0.1 * (reference - 390) + rng.normal(0, 5, ids.size)
+    d -= (pd.Series(d).groupby(ids).transform("mean").to_numpy() - d.mean())  # equal participant means
+    r = repeated_bland_altman(reference + d, reference, ids, against="reference")
+    assert r.sd_between == 0.0
+    fit = sm.OLS(d, sm.add_constant(reference)).fit(cov_type="cluster", cov_kwds={"groups": ids})
+    assert (r.proportional_bias["slope"], r.proportional_bias["p_value"]) == pytest.approx(
+        (fit.params[1], fit.pvalues[1]))
+    assert r.proportional_bias["model"] == "ordinary least squares, participant-clustered standard errors"
 
 
 def test_against_reference_regresses_on_the_reference_value():

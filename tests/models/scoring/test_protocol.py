@@ -96,7 +96,7 @@ def test_without_unscored_epochs_the_bout_rule_changes_nothing():
 @pytest.mark.parametrize(("name", "value"), [
     ("waso_end", "midnight"), ("min_awakening_epochs", 0), ("min_awakening_epochs", 1.5),
     ("min_awakening_epochs", True), ("persistent_sleep_min", -1), ("persistent_sleep_min", float("inf")),
-    ("sol", "last_sleep"), ("unscored_breaks_bouts", "yes"), ("ci_level", 1.0), ("ci_level", 0.2),
+    ("sol", "last_sleep"), ("unscored_breaks_bouts", "yes"), ("ci_level", 1.0), ("ci_level", 0.5),
     ("bootstrap_resamples", 10), ("bootstrap_resamples", 2000.0), ("seed", -1), ("seed", "0"),
     ("equivalence_margins", [15]),
 ])
