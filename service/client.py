@@ -370,9 +370,10 @@ class NightbankClient:
         """Set the study's protocol (fields left out take their defaults); answers as :meth:`get_protocol`."""
         return self._json("PUT", f"/v1/studies/{study}/protocol", json=dict(protocol))
 
-    def study_report(self, study: str) -> bytes:
-        """The study's validation report: one self-contained HTML page."""
-        return self._request("GET", f"/v1/studies/{study}/report", timeout=600).content
+    def study_report(self, study: str, *, fmt: Literal["html", "pdf"] = "html") -> bytes:
+        """The study's validation report: one self-contained HTML page, or its tables and figures as a PDF."""
+        path = f"/v1/studies/{study}/report" + (".pdf" if fmt == "pdf" else "")
+        return self._request("GET", path, timeout=600).content
 
     # ---- tokens and operations --------------------------------------------------------------
     def create_token(self, role: str, *, study_id: str | None = None, label: str | None = None) -> dict[str, Any]:

@@ -89,12 +89,13 @@ def set_protocol(
 @app.command()
 def report(
     study: StudyOption,
-    output: Annotated[Path, typer.Option("--output", "-o", help="HTML file to write.")],
+    output: Annotated[Path, typer.Option("--output", "-o", help="File to write: .html (the page) or .pdf (its "
+                                                                "tables and figures).")],
     server: ServerOption = DEFAULT_URL,
     token: TokenOption = "",
 ) -> None:
-    """Download the study's validation report (one self-contained HTML page)."""
+    """Download the study's validation report (one self-contained HTML page, or a PDF for a .pdf output)."""
     with connect(server, token) as client, console.status("computing the report"):
-        data = client.study_report(study)
+        data = client.study_report(study, fmt="pdf" if output.suffix.lower() == ".pdf" else "html")
     output.write_bytes(data)
     console.print(f"wrote {output} ({len(data)} bytes)")

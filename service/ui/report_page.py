@@ -32,7 +32,8 @@ from .participant_view import COMPARISON_METHODS
 from .report_figures import draw_paired_differences, draw_participant_epochs, draw_repeated_bland_altman
 from .templating import CAUTIONS, TEMPLATES, is_simulated, number
 
-__all__ = ["LIBRARIES", "REPORT_METRICS", "bound", "build_report", "software_versions"]
+__all__ = ["LIBRARIES", "REPORT_METRICS", "bland_altman_inputs", "bound", "build_report", "report_methods",
+           "software_versions"]
 
 #: Libraries whose versions the report lists (those that compute or draw its figures, and the service's own).
 LIBRARIES: tuple[str, ...] = ("nightbank", "numpy", "pandas", "scipy", "scikit-learn", "statsmodels", "xgboost-cpu",
@@ -63,29 +64,37 @@ def _svg(draw: Any, *args: Any, size_in: tuple[float, float], salt: str, **kwarg
     return _REF.sub(lambda m: f"{m.group(1)}#{salt}-{m.group(2)}", text)
 
 
-def _methods(comparison: dict[str, Any]) -> list[str]:
+def report_methods(comparison: dict[str, Any]) -> list[str]:
+    """The methods of a comparison's statistics, in display order."""
     found = {r["method"] for r in comparison.get("repeated_bland_altman", [])}
     ordered = [m for m in COMPARISON_METHODS if m in found]
     return ordered + sorted(found - set(ordered))
 
 
-def _bland_altman_figures(comparison: dict[str, Any], methods: list[str],
-                          participants: list[str]) -> list[dict[str, Any]]:
+def bland_altman_inputs(comparison: dict[str, Any], methods: list[str]
+                        ) -> list[tuple[str, dict[str, pd.DataFrame], dict[str, dict[str, Any]]]]:
+    """Per method: its night values next to the reference's per parameter, and its repeated-measures entries."""
     frame = pd.DataFrame(comparison.get("parameters", []))
     if frame.empty:
         return []
     keys = ["participant_id", "night_id"]
     ref = frame[frame["method"] == REFERENCE].set_index(keys)
     out = []
-    for k, method in enumerate(m for m in methods if m != "always-sleep"):
+    for method in (m for m in methods if m != "always-sleep"):
         own = frame[frame["method"] == method].set_index(keys).reindex(ref.index)
         pairs = {name: pd.DataFrame({"participant_id": ref.index.get_level_values(0), "method":
                                      own[name].to_numpy(dtype=float), "reference": ref[name].to_numpy(dtype=float)})
                  for name in STATISTIC_PARAMETERS}
         stats = {r["parameter"]: r for r in comparison["repeated_bland_altman"] if r["method"] == method}
-        out.append({"method": method, "svg": _svg(draw_repeated_bland_altman, method, pairs, stats, participants,
-                                                  size_in=(8.0, 5.2), salt=f"ba-{k}")})
+        out.append((method, pairs, stats))
     return out
+
+
+def _bland_altman_figures(comparison: dict[str, Any], methods: list[str],
+                          participants: list[str]) -> list[dict[str, Any]]:
+    return [{"method": method, "svg": _svg(draw_repeated_bland_altman, method, pairs, stats, participants,
+                                           size_in=(8.0, 5.2), salt=f"ba-{k}")}
+            for k, (method, pairs, stats) in enumerate(bland_altman_inputs(comparison, methods))]
 
 
 def _epoch_figures(comparison: dict[str, Any], methods: list[str], participants: list[str]) -> list[dict[str, Any]]:
@@ -140,7 +149,7 @@ def build_report(factory: sessionmaker[Session], *, study_id: str) -> str:
         participants = [p.participant_id for p in registry.study_participants(session, study=study)]
         choices = {p.participant_id: p.choice for p in registry.study_participants(session, study=study)}
     comparison = reports.study_comparison(factory, study_id=study_id)
-    methods = _methods(comparison)
+    methods = report_methods(comparison)
     flow = comparison.get("flow", [])
     totals = {k: sum(f[k] for f in flow) for k in ("n_nights", "n_labelled_nights", "n_unlabelled_nights",
                                                    "n_excluded_from_training", "in_bed_epochs",

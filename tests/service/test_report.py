@@ -113,6 +113,12 @@ def test_report_command_writes_the_page(trained, tmp_path: Path) -> None:
     done = CliRunner().invoke(app, ["report", "--study", "r", "-o", str(target), "--server", url, "--token", token])
     assert done.exit_code == 0, done.output
     assert target.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
+    pdf = tmp_path / "report.pdf"
+    done = CliRunner().invoke(app, ["report", "--study", "r", "-o", str(pdf), "--server", url, "--token", token])
+    assert done.exit_code == 0, done.output
+    data = pdf.read_bytes()
+    # PDF 1.7 (ISO 32000-1): the header, and one page object per page (text, 5 tables, 7 Bland-Altman, figures)
+    assert data.startswith(b"%PDF-") and data.count(b"/Type /Page\n") + data.count(b"/Type /Page ") >= 12
     missing = CliRunner().invoke(app, ["report", "--study", "nope", "-o", str(tmp_path / "x.html"), "--server", url,
                                        "--token", token])
     assert missing.exit_code == 1 and not (tmp_path / "x.html").exists()

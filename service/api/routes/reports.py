@@ -11,6 +11,7 @@ from fastapi.responses import HTMLResponse
 from ...results import reports
 from ...store.tokens import Role
 from ...ui.report_page import build_report
+from ...ui.report_pdf import build_report_pdf
 from ..deps import FactoryDep, StudyAccess, study_access
 from .studies import ParticipantPath
 
@@ -55,3 +56,12 @@ async def study_report(access: AnalystAccess, factory: FactoryDep) -> HTMLRespon
     comparisons, equivalence results, model cards and software versions."""
     body = await run_in_threadpool(build_report, factory, study_id=access.study_id)
     return HTMLResponse(body, headers={"Content-Disposition": f'inline; filename="{access.study_id}-report.html"'})
+
+
+@router.get("/report.pdf", response_class=Response,
+            responses={200: {"content": {"application/pdf": {"schema": {"type": "string", "format": "binary"}}}}})
+async def study_report_pdf(access: AnalystAccess, factory: FactoryDep) -> Response:
+    """The validation report's tables and figures as a PDF (drawn on the server, no browser)."""
+    body = await run_in_threadpool(build_report_pdf, factory, study_id=access.study_id)
+    return Response(body, media_type="application/pdf",
+                    headers={"Content-Disposition": f'attachment; filename="{access.study_id}-report.pdf"'})
