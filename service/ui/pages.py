@@ -38,6 +38,7 @@ from .participant_view import (
     load_participant_view,
     method_summary_table,
     parameter_agreement_rows,
+    participant_parameter_rows,
 )
 from .study_view import (
     TABLE_METHODS,
@@ -177,7 +178,7 @@ def participant_page(request: Request, access: StudyPage, pid: ParticipantPath, 
         held = held_out_table(view.comparison, view.nights)
         curves = held_out_roc(factory, study_id=access.study_id, participant_id=pid)
         comparison = {"summary_rows": records(summary), "held_rows": records(held),
-                      "parameter_rows": parameter_agreement_rows(view.comparison),
+                      "parameter_rows": participant_parameter_rows(view.comparison),
                       "held_alt": held_out_alt(summary, held["night_id"].nunique()), "roc_curves": curves,
                       "roc_alt": roc_alt(curves),
                       "roc_caption": "; ".join(f"{method_label(c.method)} AUC {c.auc:.3f}" for c in curves)}

@@ -25,7 +25,7 @@ from ..store.versions import VersionInfo
 
 __all__ = ["AGREEMENT_PARAMETERS", "COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "ParticipantView",
            "held_out_table", "last_job", "load_participant_view", "method_summary_table", "nights_table",
-           "parameter_agreement_rows", "versions_table"]
+           "parameter_agreement_rows", "participant_parameter_rows", "versions_table"]
 
 #: Held-out metrics listed for every model version.
 VERSION_METRICS: tuple[str, ...] = ("balanced_accuracy", "specificity", "sensitivity", "kappa", "auc")
@@ -73,6 +73,17 @@ def parameter_agreement_rows(comparison: dict[str, Any]) -> list[dict[str, Any]]
     params = {p: i for i, p in enumerate(AGREEMENT_PARAMETERS)}
     rows = [r for r in comparison.get("repeated_bland_altman", []) if r["parameter"] in params]
     return sorted(rows, key=lambda r: (order.get(r["method"], len(order)), params[r["parameter"]]))
+
+
+def participant_parameter_rows(comparison: dict[str, Any]) -> list[dict[str, Any]]:
+    """One participant's agreement per method and parameter across their nights (Bland & Altman 1986: bias and
+    limits with their t-based CIs), in the shape of :func:`parameter_agreement_rows`; with one participant the
+    nested analysis has no between-participant part, so the across-nights one is the informative one."""
+    rows = [r | {"n_nights": r.get("n"), "bias_ci": [r.get("bias_ci_lower"), r.get("bias_ci_upper")],
+                 "loa_lower_ci": [r.get("loa_lower_ci_lower"), r.get("loa_lower_ci_upper")],
+                 "loa_upper_ci": [r.get("loa_upper_ci_lower"), r.get("loa_upper_ci_upper")]}
+            for r in comparison.get("bland_altman", []) if r["method"] != ALWAYS_SLEEP]
+    return parameter_agreement_rows({"repeated_bland_altman": rows})
 
 
 def last_job(session: Session, *, study: registry.StudyInfo,
