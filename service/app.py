@@ -13,7 +13,18 @@ from fastapi import FastAPI
 from fastapi.routing import APIRoute
 
 from .api.problems import PROBLEM_RESPONSES, install_problem_handlers
-from .api.routes import nights, profiles, recording_days, recordings, reports, studies, system, tokens, training
+from .api.routes import (
+    nights,
+    profiles,
+    protocol,
+    recording_days,
+    recordings,
+    reports,
+    studies,
+    system,
+    tokens,
+    training,
+)
 from .api.schemas import Problem
 from .config import Settings, get_settings
 from .store import db
@@ -75,7 +86,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.metrics = metrics
     app.state.token_cache = TokenCache(settings.token_cache_s)
     install_problem_handlers(app)
-    for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens):
+    for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens, protocol):
         app.include_router(module.router)
     app.add_middleware(RequestTelemetry, metrics=app.state.metrics)
     mount_ui(app, settings)

@@ -363,6 +363,19 @@ class NightbankClient(RecordingMethods):
         return self._request("GET", f"/v1/studies/{study}/exports/parameters", params={"format": fmt},
                              timeout=600).content
 
+    def get_protocol(self, study: str) -> dict[str, Any]:
+        """The study's protocol (``protocol``, ``fingerprint``, ``is_default``, ``updated_at``, ``updated_by``)."""
+        return self._json("GET", f"/v1/studies/{study}/protocol")
+
+    def set_protocol(self, study: str, protocol: Mapping[str, Any]) -> dict[str, Any]:
+        """Set the study's protocol (fields left out take their defaults); answers as :meth:`get_protocol`."""
+        return self._json("PUT", f"/v1/studies/{study}/protocol", json=dict(protocol))
+
+    def study_report(self, study: str, *, fmt: Literal["html", "pdf"] = "html") -> bytes:
+        """The study's validation report: one self-contained HTML page, or its tables and figures as a PDF."""
+        path = f"/v1/studies/{study}/report" + (".pdf" if fmt == "pdf" else "")
+        return self._request("GET", path, timeout=600).content
+
     # ---- tokens and operations --------------------------------------------------------------
     def create_token(self, role: str, *, study_id: str | None = None, label: str | None = None) -> dict[str, Any]:
         return self._json("POST", "/v1/tokens", json={"role": role, "study_id": study_id, "label": label})

@@ -24,3 +24,4 @@ from . import compare as _compare  # noqa: E402, F401
 from . import manage as _manage  # noqa: E402, F401
 from . import profiles as _profiles  # noqa: E402, F401
 from . import recordings as _recordings  # noqa: E402, F401
+from . import protocol as _protocol  # noqa: E402, F401

@@ -6,121 +6,62 @@ never judged on nights it was trained on), set next to the classical rules
 on the same labelled nights by :func:`models.held_out_comparison`, the same comparison
 :func:`models.compare_study` makes when it trains everything at once; its tables (epoch metrics,
 parameters with the reference's unscored epochs masked on both sides, Bland-Altman statistics)
-come from :func:`models.comparison_tables`. A comparison is kept in memory until its nights or the
-active versions change.
+come from :func:`models.comparison_tables`, under the study protocol; ``auto`` gets its own
+nested held-out predictions (:mod:`service.results.held_out`). A comparison is kept in memory until
+its nights, their exclusion, the active versions or the protocol change.
 """
 
 from __future__ import annotations
 
 import hashlib
-import io
 import json
 import threading
 from typing import Any
 
+import numpy as np
 import pandas as pd
 from cachetools import LRUCache
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import (
+    AUTO,
     EPOCH_METRIC_NAMES,
-    METHOD_IDS,
     MODEL_METHODS,
-    PARAMETER_NAMES,
     ComparisonTables,
-    HeldOutNight,
     Night,
+    ScoredNight,
+    StudyProtocol,
     TrainingConfig,
-    compare_night,
     comparison_tables,
     held_out_comparison,
     json_record,
     json_records,
 )
 
-from ..store import db, versions
-from ..store.codec import night_from_row
+from ..store import db
+from ..store.protocols import study_protocol
 from ..store.registry import StudyInfo, find_participant, find_study, load_nights, study_participants
-from .scoring import score_night
+from .agreement_stats import agreement_statistics
+from .exports import EXPORT_METHODS, export_parameters
+from .held_out import HeldOut, active_held_out, add_auto
 
 __all__ = ["EXPORT_METHODS", "export_parameters", "participant_comparison", "study_comparison"]
 
-#: Methods of the parameter export besides the reference (model methods only when trained).
-EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, *MODEL_METHODS)
 
-
-def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv") -> bytes:
-    """Sleep parameters of every night, one row per night and method, as CSV or Parquet bytes.
-
-    Methods: ``reference`` (labelled nights), every rule, and the personal, pooled and
-    pooled+offset models where an active version exists. Model rows name their version.
-    """
-    with db.session_scope(factory) as session:
-        study = find_study(session, study_id)
-        pooled = versions.active_version(session, study=study, participant=None)
-        targets = []
-        for participant in study_participants(session, study=study):
-            personal = versions.active_version(session, study=study, participant=participant)
-            for row in session.scalars(select(db.Night).where(db.Night.participant_pk == participant.pk)
-                                       .order_by(db.Night.start_utc)):
-                targets.append((participant.participant_id, row.night_id, row.label, row.start, personal is not None,
-                                night_from_row(row, participant_id=participant.participant_id)))
-    rows: list[dict[str, Any]] = []
-    for pid, night_id, label, start, has_personal, night in targets:
-        ids = {"study_id": study_id, "participant_id": pid, "night_id": night_id, "label": label, "start": start}
-        reference = night.reference_sleep()
-        if reference is not None and night.has_reference:
-            first, stop = night.in_bed
-            params = compare_night(reference, {}, epoch_seconds=night.epoch_seconds, lights_off_idx=first,
-                                   lights_on_idx=stop, missing=night.missing).reference_parameters.as_dict()
-            rows.append(ids | {"method": "reference", "model_version": None}
-                        | json_record({k: params[k] for k in PARAMETER_NAMES}))
-        for method in EXPORT_METHODS:
-            if (method == "personal" and not has_personal) or (method.startswith("pooled") and pooled is None):
-                continue
-            body = json.loads(score_night(factory, study_id=study_id, participant_id=pid, night_id=night_id,
-                                          method=method))
-            rows.append(ids | {"method": method, "model_version": body["model_version"]}
-                        | {k: body["parameters"].get(k) for k in PARAMETER_NAMES})
-    frame = pd.DataFrame(rows, columns=["study_id", "participant_id", "night_id", "label", "start", "method",
-                                        "model_version", *PARAMETER_NAMES])
-    frame["model_version"] = frame["model_version"].astype("Int64")
-    if fmt == "csv":
-        return frame.to_csv(index=False).encode()
-    buffer = io.BytesIO()
-    frame.to_parquet(buffer, index=False)
-    return buffer.getvalue()
-
-
-def _held_out(session: Session, study: StudyInfo) -> tuple[dict[str, dict[str, dict[str, HeldOutNight]]],
-                                                          dict[str, int | None]]:
-    """Held-out predictions of the active versions: participant -> night hash -> method -> night."""
-    out: dict[str, dict[str, dict[str, HeldOutNight]]] = {}
-    pooled = versions.active_version(session, study=study, participant=None)
-    used: dict[str, int | None] = {"pooled": None if pooled is None else pooled.version}
-    found = [] if pooled is None else versions.load_held_out(session, pooled)
-    for participant in study_participants(session, study=study):
-        personal = versions.active_version(session, study=study, participant=participant)
-        if personal is not None:
-            used[f"personal:{participant.participant_id}"] = personal.version
-            found += versions.load_held_out(session, personal)
-    for h in found:
-        out.setdefault(h.participant_id, {}).setdefault(h.night_hash, {})[h.method] = h
-    return out, used
-
-
-def _fingerprint(session: Session, study: StudyInfo, participant_id: str | None) -> str:
-    """Changes whenever the nights or the active versions behind a comparison change."""
-    query = (select(db.Participant.participant_id, db.Night.content_hash)
+def _fingerprint(session: Session, study: StudyInfo, participant_id: str | None, protocol: StudyProtocol) -> str:
+    """Changes whenever the nights, their exclusion, the active versions or the protocol behind a comparison
+    change."""
+    query = (select(db.Participant.participant_id, db.Night.content_hash, db.Night.excluded)
              .join(db.Night, db.Night.participant_pk == db.Participant.pk)
              .where(db.Participant.study_pk == study.pk, db.Night.labelled))
     if participant_id is not None:
         query = query.where(db.Participant.participant_id == participant_id)
-    nights = sorted(f"{p}/{h}" for p, h in session.execute(query))
+    nights = sorted(f"{p}/{h}/{x}" for p, h, x in session.execute(query))
     active = sorted(session.scalars(select(db.ModelVersion.uid).where(db.ModelVersion.study_pk == study.pk,
                                                                       db.ModelVersion.is_active)))
-    return hashlib.sha256(json.dumps([study.study_id, participant_id, nights, active]).encode()).hexdigest()
+    return hashlib.sha256(json.dumps([study.study_id, participant_id, nights, active,
+                                      protocol.fingerprint()]).encode()).hexdigest()
 
 
 def _participant_summary(table: pd.DataFrame, participant_id: str) -> list[dict[str, Any]]:
@@ -152,22 +93,46 @@ def _pooled_summary(table: pd.DataFrame) -> list[dict[str, Any]]:
             | json_record({m: float(r[m]) for m in EPOCH_METRIC_NAMES}) for _, r in rows.iterrows()]
 
 
-def _assemble(nights: dict[str, list[Night]], held_out: dict[str, dict[str, dict[str, HeldOutNight]]]
-              ) -> tuple[ComparisonTables, list[str]]:
-    """The comparison tables of the labelled nights (:func:`models.comparison_tables`) and notes."""
+def _flow(pid: str, labelled: list[Night], held: dict[str, dict[str, Any]], counts: tuple[int, int],
+          movement_time: str) -> dict[str, Any]:
+    """A participant's nights and epochs: how many were compared, and how many were left out and why."""
+    in_bed = unscored = no_counts = left_out = 0
+    for night in labelled:
+        bed = slice(*night.in_bed)
+        reference = night.reference_sleep(movement_time=movement_time)  # type: ignore[arg-type]
+        ref_nan = np.isnan(reference[bed]) if reference is not None else np.zeros(0, dtype=bool)
+        missing = np.asarray(night.missing, dtype=bool)[bed]
+        in_bed += int(missing.size)
+        unscored += int(ref_nan.sum())
+        no_counts += int(missing.sum())
+        left_out += int((ref_nan | missing).sum())
+    without = {m: sum(m not in held.get(n.content_hash, {}) for n in labelled) for m in (*MODEL_METHODS, AUTO)}
+    return {"participant_id": pid, "n_nights": counts[0], "n_labelled_nights": len(labelled),
+            "n_unlabelled_nights": counts[0] - len(labelled), "n_excluded_from_training": counts[1],
+            "labelled_nights_without_held_out": without, "in_bed_epochs": in_bed,
+            "reference_unscored_epochs": unscored, "epochs_without_counts": no_counts,
+            "epochs_left_out": left_out, "epochs_compared": in_bed - left_out}
+
+
+def _assemble(nights: dict[str, list[Night]], held_out: HeldOut, policies: dict[str, str],
+              protocol: StudyProtocol) -> tuple[ComparisonTables, list[ScoredNight], list[str]]:
+    """The comparison tables of the labelled nights (:func:`models.comparison_tables`), their in-bed calls and
+    notes; ``auto``'s nested predictions are added to ``held_out``."""
     movement_time = TrainingConfig().movement_time
     compared = []
     notes: list[str] = []
     for pid, labelled in nights.items():
+        add_auto(held_out.setdefault(pid, {}), labelled, policy=policies[pid], movement_time=movement_time)
         missing: set[str] = set()
         for night in labelled:
             models_here = held_out.get(pid, {}).get(night.content_hash, {})
             missing |= set(MODEL_METHODS) - set(models_here)
-            compared.append(held_out_comparison(night, models_here, participant_id=pid, movement_time=movement_time))
+            compared.append(held_out_comparison(night, models_here, participant_id=pid, movement_time=movement_time,
+                                                parameter_options={"protocol": protocol}))
         if missing:
             notes.append(f"{pid}: no held-out {', '.join(sorted(missing))} figures for some or all labelled nights "
                          "(model not trained, too few labelled nights, or nights added after training)")
-    return comparison_tables(compared), notes
+    return comparison_tables(compared), [s for c in compared for s in c.scored], notes
 
 
 def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str | None) -> dict[str, Any]:
@@ -176,14 +141,19 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
         participants = study_participants(session, study=study)
         if participant_id is not None:
             participants = [find_participant(session, study, participant_id)]
-        key = _fingerprint(session, study, participant_id)
+        protocol = study_protocol(session, study)
+        key = _fingerprint(session, study, participant_id, protocol)
         with _CACHE_LOCK:
             if key in _CACHE:
                 return _CACHE[key]
-        held_out, used = _held_out(session, study)
+        held_out, used = active_held_out(session, study)
         nights = {p.participant_id: load_nights(session, participant=p, labelled_only=True) for p in participants}
         choices = {p.participant_id: (p.chosen_method, (p.choice or {}).get("reason")) for p in participants}
-    tables, notes = _assemble(nights, held_out)
+        policies = {p.participant_id: (p.choice or {}).get("policy") or TrainingConfig().choice_policy
+                    for p in participants}
+        counts = _night_counts(session, [p.pk for p in participants])
+    tables, scored, notes = _assemble(nights, held_out, policies, protocol)
+    movement_time = TrainingConfig().movement_time
     epoch_metrics = tables.epoch_metrics
     night_rows = epoch_metrics[epoch_metrics["level"] == "night"]
     result = {
@@ -197,13 +167,30 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
         "nights": json_records(night_rows.drop(columns=["level", "statistic", "n_nights"])),
         "parameters": json_records(tables.parameters.drop(columns=["label"])),  # nights are named by night_id
         "bland_altman": json_records(tables.bland_altman),
+        "flow": [_flow(p.participant_id, nights[p.participant_id], held_out.get(p.participant_id, {}),
+                       counts.get(p.pk, (0, 0)), movement_time) for p in participants],
+        "protocol": protocol.to_dict(),
         "notes": notes,
-    }
+    } | agreement_statistics(tables.parameters, scored, protocol=protocol)
     with _CACHE_LOCK:
         _CACHE[key] = result
     return result
 
 
+def _night_counts(session: Session, participant_pks: list[int]) -> dict[int, tuple[int, int]]:
+    """Per participant row: nights stored and nights excluded from training."""
+    rows = session.execute(select(db.Night.participant_pk, db.Night.excluded)
+                           .where(db.Night.participant_pk.in_(participant_pks)))
+    out: dict[int, tuple[int, int]] = {}
+    for pk, excluded in rows:
+        total, left = out.get(pk, (0, 0))
+        out[pk] = (total + 1, left + bool(excluded))
+    return out
+
+
+#: entries of the study comparison that a participant's comparison has too (computed on their nights only)
+_SHARED_ENTRIES = ("parameters", "flow", "protocol", "repeated_bland_altman", "participant_epochs",
+                   "paired_differences", "icc", "equivalence")
 _CACHE: LRUCache[str, dict[str, Any]] = LRUCache(maxsize=64)
 _CACHE_LOCK = threading.Lock()
 
@@ -217,7 +204,8 @@ def participant_comparison(factory: sessionmaker[Session], *, study_id: str, par
         ``participant_id``, ``chosen_method`` and ``choice_reason``, ``n_labelled_nights``,
         ``model_versions`` (active versions used), ``summary`` (per method: nights compared and
         mean/SD over nights of every epoch metric), ``nights`` (per night and method),
-        ``bland_altman`` (this participant's nights only) and ``notes``.
+        ``bland_altman`` (this participant's nights only), ``notes``, and, on this participant's
+        nights, the entries of :func:`study_comparison` named in ``_SHARED_ENTRIES``.
     """
     out = _compare(factory, study_id, participant_id)
     mine = out["participants"][0]
@@ -226,7 +214,7 @@ def participant_comparison(factory: sessionmaker[Session], *, study_id: str, par
             "model_versions": {k: v for k, v in out["model_versions"].items()
                                if k == "pooled" or k == f"personal:{participant_id}"},
             "summary": mine["summary"], "nights": out["nights"], "bland_altman": out["bland_altman"],
-            "notes": out["notes"]}
+            "notes": out["notes"]} | {k: out[k] for k in _SHARED_ENTRIES}
 
 
 def study_comparison(factory: sessionmaker[Session], *, study_id: str) -> dict[str, Any]:
@@ -240,6 +228,10 @@ def study_comparison(factory: sessionmaker[Session], *, study_id: str) -> dict[s
         ``participants`` (per participant: chosen method and the mean/SD over nights per
         method), ``nights`` (epoch metrics per night and method), ``parameters`` (sleep
         parameters per night and method), ``bland_altman`` (one row per method and parameter:
-        n, bias, limits of agreement and their CIs, ...), ``model_versions`` and ``notes``.
+        n, bias, limits of agreement and their CIs, ...), ``model_versions``, ``notes``, ``protocol``
+        (the definitions applied), ``flow`` (per participant: nights and epochs compared and left
+        out, and why) and the entries of :func:`service.results.agreement_stats.agreement_statistics`
+        (``repeated_bland_altman``, ``participant_epochs``, ``paired_differences``, ``icc``,
+        ``equivalence``). Every method includes ``auto`` with its own nested held-out figures.
     """
     return _compare(factory, study_id, None)

@@ -2,9 +2,11 @@
 
 Methods (the ``method`` query parameter):
 
-- ``auto``: the participant's chosen method (:func:`models.choose_method`): ``personal`` if a personal
-  model was trained, chosen and is active, ``pooled`` (no offset) if that was chosen, else
-  ``pooled+offset``;
+- ``auto``: the participant's chosen method (``personal``, ``pooled`` or ``pooled+offset``, the
+  personal one only while active), else ``pooled+offset``; a flagged model (no better than
+  always-sleep, or below the study's floor: :mod:`service.results.model_flags`) is passed over,
+  and with every model flagged ``auto`` scores with the classical default rule; the body's
+  ``auto`` names what was passed over and why;
 - ``personal``: the participant's active personal model (or ``version``);
 - ``pooled``: the study's active pooled model (or ``version``) without participant offset;
 - ``pooled+offset``: the pooled model plus the participant's offset (0 for a participant without
@@ -38,11 +40,13 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import (
+    DEFAULT_PROTOCOL,
     METHOD_IDS,
     MODEL_METHODS,
     PARAMETER_NAMES,
     FeatureMatrix,
     Night,
+    StudyProtocol,
     compare_night,
     json_record,
     night_features,
@@ -56,8 +60,10 @@ from ..store import db, versions
 from ..store.cachewriter import CacheWriter
 from ..store.codec import night_from_row
 from ..store.features import features_row, load_features
+from ..store.protocols import study_protocol
 from ..store.registry import find_participant, find_study, participant_snapshot, study_snapshot
 from ..store.snapshots import ParticipantInfo, StudyInfo
+from .model_flags import auto_choice
 
 __all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
 
@@ -71,6 +77,7 @@ SCORING_REVISION = "s2"
 class _Resolved:
     method: str
     version: versions.VersionInfo | None
+    passed_over: dict[str, str] | None = None
 
 
 def resolve_method(session: Session, *, study: StudyInfo, participant: ParticipantInfo, method: str,
@@ -91,10 +98,10 @@ def resolve_method(session: Session, *, study: StudyInfo, participant: Participa
     if method in METHOD_IDS:
         return _Resolved(method, None)
     if method == "auto":
-        personal = versions.active_version(session, study=study, participant=participant)
-        if personal is not None and participant.chosen_method == "personal":
-            return _Resolved("personal", personal)
-        method = "pooled" if participant.chosen_method == "pooled" else "pooled+offset"
+        choice = auto_choice(session, study=study, participant=participant)
+        if choice is not None:
+            return _Resolved(choice.method, choice.version, choice.passed_over)
+        method = "pooled+offset"  # no model at all: the error below says so
     owner = participant if method == "personal" else None
     if version is not None:
         return _Resolved(method, versions.get_version(session, study=study, participant=owner, version=version))
@@ -125,7 +132,8 @@ def _descriptors(session: Session, participant: ParticipantInfo) -> dict[str, fl
 
 def compute_scoring(night: Night, *, method: str, model: Any = None, version: int | None = None,
                     offset: float = 0.0, descriptors: dict[str, float] | None = None,
-                    features: FeatureMatrix | None = None) -> dict[str, Any]:
+                    features: FeatureMatrix | None = None,
+                    protocol: StudyProtocol = DEFAULT_PROTOCOL) -> dict[str, Any]:
     """Score one night and build the response body (pure computation, no database).
 
     Parameters
@@ -143,6 +151,8 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         Participant descriptors (pooled models).
     features : FeatureMatrix, optional
         The night's stored features for the model's feature set (computed when None).
+    protocol : StudyProtocol, default=DEFAULT_PROTOCOL
+        The study's parameter definitions, applied to the night's and the reference's parameters.
 
     Returns
     -------
@@ -151,8 +161,8 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         ``p_sleep`` (None for rules), ``sleep`` (1 = sleep, None = unscored: no counts), ``parameters`` over the in-bed
         epochs, ``agreement`` with the reference (None without one; the night's
         :func:`models.compare_night`: epoch metrics, the reference's parameters, and method -
-        reference differences with the reference's unscored epochs masked) and, for models,
-        ``offset``. NaN values are None.
+        reference differences with the reference's unscored epochs masked), ``protocol`` (the
+        definitions applied) and, for models, ``offset``. NaN values are None.
     """
     first, stop = night.in_bed
     if model is None:
@@ -162,12 +172,14 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         p_sleep = model.predict_proba(night, offset=offset, descriptors=descriptors, features=features)
         sleep = model.calls(p_sleep)  # NaN (unscored) where the night has no counts
         score = p_sleep
-    params = sleep_parameters(sleep, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop).as_dict()
+    params = sleep_parameters(sleep, night.epoch_seconds, lights_off_idx=first, lights_on_idx=stop,
+                              protocol=protocol).as_dict()
     agreement = None
     reference = night.reference_sleep()
     if reference is not None and night.has_reference:
         compared = compare_night(reference, {method: (sleep, score)}, epoch_seconds=night.epoch_seconds,
-                                 lights_off_idx=first, lights_on_idx=stop, missing=night.missing)
+                                 lights_off_idx=first, lights_on_idx=stop, missing=night.missing,
+                                 parameter_options={"protocol": protocol})
         reference_parameters = compared.reference_parameters.as_dict()
         agreement = {
             "epochs": json_record(compared.epoch_metrics[method]),
@@ -182,6 +194,7 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         "sleep": [None if math.isnan(v) else int(v) for v in np.asarray(sleep, dtype=np.float64).tolist()],
         "parameters": json_record(params),
         "agreement": agreement,
+        "protocol": protocol.to_dict(),
     }
     if model is not None:
         body["offset"] = float(offset)
@@ -216,10 +229,12 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         study = study_snapshot(study_row)
         participant = participant_snapshot(participant_row, study.study_id)
         resolved = resolve_method(session, study=study, participant=participant, method=method, version=version)
+        protocol = study_protocol(session, study)
+        revision = f"{SCORING_REVISION}:{protocol.fingerprint()}"  # a new protocol never finds old results
         offset, model = 0.0, None
         descriptors: Mapping[str, float | None] | None = None
         if resolved.version is None:
-            key = f"{SCORING_REVISION}:{resolved.method}"
+            key = f"{revision}:{resolved.method}"
         else:
             model = versions.load_model(session, resolved.version)
             if resolved.method == "pooled+offset":
@@ -228,7 +243,9 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
                 descriptors = (resolved.version.metadata.descriptors.get(participant_id)
                                or _descriptors(session, participant))
             inputs = json.dumps([resolved.method, offset, descriptors], sort_keys=True)
-            key = f"{SCORING_REVISION}:m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
+            key = f"{revision}:m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
+        if resolved.passed_over:  # auto passed over flagged models: its body says so, so it is kept apart
+            key += ":a" + hashlib.sha1(json.dumps(resolved.passed_over, sort_keys=True).encode()).hexdigest()[:6]
         cached = session.scalar(select(db.Scoring.body).where(db.Scoring.night_pk == row.pk,
                                                               db.Scoring.cache_key == key))
         if cached is not None:
@@ -243,7 +260,9 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
     # stored descriptors keep a missing value as None (JSON); the model reads it as NaN
     numeric = None if descriptors is None else {k: math.nan if v is None else v for k, v in descriptors.items()}
     result = compute_scoring(night, method=resolved.method, model=model, version=number,
-                             offset=offset, descriptors=numeric, features=features)
+                             offset=offset, descriptors=numeric, features=features, protocol=protocol)
+    if resolved.passed_over:
+        result["auto"] = {"method": resolved.method, "passed_over": resolved.passed_over}
     body = json.dumps(result, separators=(",", ":"), allow_nan=False).encode()
     _save(factory, writer, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
                                       else resolved.version.pk, cache_key=key, night_hash=night_hash,

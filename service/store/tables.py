@@ -16,6 +16,7 @@ from sqlalchemy import (
     JSON,
     Boolean,
     DateTime,
+    Float,
     ForeignKey,
     Index,
     Integer,
@@ -41,6 +42,7 @@ __all__ = [
     "Participant",
     "Scoring",
     "Study",
+    "StudyProtocolRow",
     "Token",
     "UTCDateTime",
     "VersionCounter",
@@ -316,3 +318,18 @@ class ImportProfileRow(Base):
     body: Mapped[dict[str, Any]] = mapped_column(JSON)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)
     created_by: Mapped[str] = mapped_column(String(64))
+
+
+class StudyProtocolRow(Base):
+    """A study's protocol (:class:`models.StudyProtocol` in its JSON form); no row: the default protocol."""
+
+    __tablename__ = "study_protocols"
+
+    pk: Mapped[int] = mapped_column(Integer, primary_key=True)
+    study_pk: Mapped[int] = mapped_column(ForeignKey("studies.pk", ondelete="CASCADE"), unique=True)
+    body: Mapped[dict[str, Any]] = mapped_column(JSON)
+    fingerprint: Mapped[str] = mapped_column(String(32))
+    #: lowest held-out balanced accuracy a model may have to be chosen by ``auto`` (NULL: always-sleep's 0.5)
+    model_floor: Mapped[float | None] = mapped_column(Float, nullable=True)
+    updated_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)
+    updated_by: Mapped[str] = mapped_column(String(64))

@@ -45,9 +45,19 @@ def bland_altman_alt(method: str, stats: Mapping[str, Mapping[str, Any]]) -> str
             f"the mean of both, per night, with bias and 95% limits of agreement drawn: " + "; ".join(parts) + ".")
 
 
+def _ci(s: Mapping[str, Any], key: str) -> str:
+    low, high = s.get(f"{key}_ci") or (None, None)
+    return "" if low is None or high is None else f" (CI {number(low)} to {number(high)})"
+
+
 def bland_altman_caption(method: str, stats: Mapping[str, Mapping[str, Any]]) -> str:
-    """Printed under the Bland-Altman figure: bias [limits of agreement] and n per parameter."""
+    """Printed under the Bland-Altman figure: per parameter bias [limits of agreement], each with its CI where
+    known, n nights and k participants."""
     numbers = "; ".join(f"{parameter_label(name)}: bias {number(s.get('bias'))} "
                         f"[{number(s.get('loa_lower'))}, {number(s.get('loa_upper'))}], n = {s.get('n', 0)}"
+                        + (f" nights of k = {s['k']}" if s.get("k") else "")
+                        + (f"; CIs: bias{_ci(s, 'bias')}, lower limit{_ci(s, 'loa_lower')}, upper limit"
+                           f"{_ci(s, 'loa_upper')}" if s.get("bias_ci") else "")
                         for name, s in stats.items())
-    return f"{style_of(method).label} − PSG. Bias [95% limits of agreement]: {numbers}."
+    return (f"{style_of(method).label} − PSG. Bias [95% limits of agreement] over nights nested in participants "
+            f"(Bland & Altman 2007), shaded bands their CIs: {numbers}.")

@@ -26,6 +26,7 @@ from .night_figure import draw_night
 from .night_view import AUTO, load_night_view
 from .pages import NightIdPath, ParticipantPath
 from .participant_view import held_out_table, load_participant_view, method_summary_table, nights_table, versions_table
+from .report_page import build_report
 from .study_view import bland_altman_pairs, bland_altman_stats, load_study_view, methods_with_pairs, participants_table
 
 __all__ = ["router"]
@@ -231,3 +232,11 @@ def personal_card(access: StudyPage, pid: ParticipantPath, version: VersionPath,
 def pooled_card(access: StudyPage, version: VersionPath, fmt: CardFormatPath, factory: FactoryDep) -> Response:
     """Model card of a pooled model version (Markdown or JSON)."""
     return _card(access, factory, None, version, fmt)
+
+
+@router.get("/studies/{study}/report")
+def study_report(access: StudyPage, factory: FactoryDep) -> Response:
+    """The study's validation report (one self-contained HTML page), as a download."""
+    access.require(Role.analyst)
+    body = build_report(factory, study_id=access.study_id).encode()
+    return _file(body, media_type="text/html; charset=utf-8", filename=f"{access.study_id}-report.html")

@@ -24,7 +24,9 @@ import matplotlib as mpl
 import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
 from numpy.typing import NDArray
+from scipy import stats as scipy_stats
 
 __all__ = [
     "FIGURE_FORMATS",
@@ -67,6 +69,7 @@ METHOD_STYLE: dict[str, MethodStyle] = {
     "personal": MethodStyle(OKABE_ITO["blue"], "o", "personal", "-"),
     "pooled": MethodStyle(OKABE_ITO["orange"], "s", "pooled", (0, (5, 2))),
     "pooled+offset": MethodStyle(OKABE_ITO["bluish_green"], "D", "pooled + offset", "-."),
+    "auto": MethodStyle(OKABE_ITO["black"], "*", "auto (as deployed)", (0, (4, 1, 1, 1))),
     "cole-kripke": MethodStyle(OKABE_ITO["vermillion"], "^", "Cole-Kripke", (0, (1, 1))),
     "sadeh": MethodStyle(OKABE_ITO["reddish_purple"], "v", "Sadeh", (0, (3, 1, 1, 1, 1, 1))),
     "count-threshold": MethodStyle(OKABE_ITO["sky_blue"], "P", "count threshold", (0, (6, 1, 1, 1))),
@@ -107,7 +110,7 @@ def style_of(method: str) -> MethodStyle:
 
 
 def render(draw: Callable[..., None], /, *args: Any, fmt: str, size_in: tuple[float, float],
-           **kwargs: Any) -> bytes:
+           salt: str | None = None, **kwargs: Any) -> bytes:
     """Create a figure of ``size_in`` (width, height in inches), call ``draw(fig, *args, **kwargs)``, encode it.
 
     Parameters
@@ -118,6 +121,12 @@ def render(draw: Callable[..., None], /, *args: Any, fmt: str, size_in: tuple[fl
         Output format; PNG at 300 dots per inch.
     size_in : tuple of float
         Figure width and height in inches (7.0 is a full manuscript page width).
+    salt : str, optional
+        SVG id salt (default ``nightbank``): figures inlined in one document need their own, so
+        their element ids do not collide.
+
+    The saved area is the drawn area (``bbox_inches="tight"``), so legends and labels placed
+    outside the axes are never cut off.
 
     Returns
     -------
@@ -125,18 +134,21 @@ def render(draw: Callable[..., None], /, *args: Any, fmt: str, size_in: tuple[fl
         The encoded figure.
     """
     buffer = io.BytesIO()
-    with _LOCK, mpl.rc_context(cast(Any, _STYLE)):
+    style = _STYLE if salt is None else _STYLE | {"svg.hashsalt": salt}
+    with _LOCK, mpl.rc_context(cast(Any, style)):
         fig = Figure(figsize=size_in, layout="constrained")
         draw(fig, *args, **kwargs)
         metadata: dict[str, Any] = {"Date": None} if fmt == "svg" else {"Software": None}
-        fig.savefig(buffer, format=fmt, dpi=_PNG_DPI if fmt == "png" else 72, metadata=metadata)
+        fig.savefig(buffer, format=fmt, dpi=_PNG_DPI if fmt == "png" else 72, metadata=metadata,
+                    bbox_inches="tight", pad_inches=0.05)
     return buffer.getvalue()
 
 
 # ---- participant --------------------------------------------------------------------------------
 def draw_held_out_nights(fig: Figure, table: pd.DataFrame, *, metrics: Sequence[str] = ("balanced_accuracy",
                                                                                         "specificity")) -> None:
-    """Per held-out night, each method's metric values as markers (one panel per metric).
+    """Per held-out night, each method's metric values as markers (one panel per metric), and at the right the
+    mean over nights with its 95% t-interval (common practice; one interval per method).
 
     Parameters
     ----------
@@ -149,6 +161,8 @@ def draw_held_out_nights(fig: Figure, table: pd.DataFrame, *, metrics: Sequence[
     methods = list(dict.fromkeys(table["method"]))
     axes = np.atleast_1d(fig.subplots(1, len(metrics), sharey=True))
     width = 0.7
+    panel_in = fig.get_figwidth() / len(metrics)
+    max_labels = max(2, int(panel_in / 0.22))  # a 45-degree 8-pt label needs about 0.22 in along the axis
     for ax, metric in zip(axes, metrics, strict=True):
         for k, method in enumerate(methods):
             style = style_of(method)
@@ -156,7 +170,18 @@ def draw_held_out_nights(fig: Figure, table: pd.DataFrame, *, metrics: Sequence[
             x = np.arange(len(nights)) + (k - (len(methods) - 1) / 2) * width / max(len(methods), 1)
             ax.plot(x, own.to_numpy(), linestyle="none", marker=style.marker, color=style.colour, markersize=4.5,
                     label=style.label)
-        ax.set_xticks(np.arange(len(nights)), nights, rotation=30, ha="right")
+            values = own.to_numpy()[np.isfinite(own.to_numpy())]
+            if values.size >= 2:
+                half = float(scipy_stats.t.ppf(0.975, values.size - 1) * values.std(ddof=1) / np.sqrt(values.size))
+                ax.errorbar(len(nights) + 0.4 + (k - (len(methods) - 1) / 2) * width / max(len(methods), 1),
+                            values.mean(), yerr=half, marker=style.marker, color=style.colour, markersize=4.5,
+                            capsize=2, linewidth=1.0)
+        # small panels: label every step-th night only, so the rotated names never run into each other
+        step = max(1, -(-len(nights) // max_labels))
+        shown = [str(n) if i % step == 0 else "" for i, n in enumerate(nights)]
+        ax.set_xticks(np.arange(len(nights) + 1) + np.r_[np.zeros(len(nights)), 0.4],
+                      [*shown, "mean, 95% CI"], rotation=45, ha="right", rotation_mode="anchor")
+        ax.axvline(len(nights) - 0.3, color=GREY, linewidth=0.5)
         ax.set_title(metric.replace("_", " "))
         ax.set_xlabel("held-out night")
         ax.set_ylim(0, 1.02)
@@ -208,7 +233,7 @@ def _one_decimal(value: float) -> str:
 
 
 def draw_bland_altman(fig: Figure, method: str, pairs: Mapping[str, tuple[NDArray[np.float64], NDArray[np.float64]]],
-                      stats: Mapping[str, Mapping[str, float | None]]) -> None:
+                      stats: Mapping[str, Mapping[str, Any]]) -> None:
     """Bland-Altman plots of one method against the reference, one panel per parameter.
 
     Parameters
@@ -218,7 +243,8 @@ def draw_bland_altman(fig: Figure, method: str, pairs: Mapping[str, tuple[NDArra
         Per parameter, the night values of shape (n_nights,) (NaN pairs are skipped).
     stats : mapping of str to mapping
         Per parameter: ``bias``, ``loa_lower``, ``loa_upper`` and ``n`` (None where undefined),
-        drawn as lines and printed.
+        drawn as lines and printed; their CIs ``bias_ci``, ``loa_lower_ci``, ``loa_upper_ci``
+        (low, high), where given, are drawn as shaded bands.
     """
     names = list(pairs)
     cols = 3
@@ -240,13 +266,20 @@ def draw_bland_altman(fig: Figure, method: str, pairs: Mapping[str, tuple[NDArra
             ax.axhline(value, color=OKABE_ITO["black"], linestyle=dash, linewidth=0.9)
             ax.text(1.0, value, f" {label} {_one_decimal(value)}", transform=ax.get_yaxis_transform(),
                     va="center", ha="left", fontsize=7.5, clip_on=False)
+        for key in ("bias_ci", "loa_lower_ci", "loa_upper_ci"):
+            ci: Any = s.get(key) or (None, None)
+            low, high = ci
+            if low is not None and high is not None and np.isfinite(low) and np.isfinite(high):
+                ax.axhspan(low, high, color=GREY, alpha=0.2, linewidth=0)
         ax.axhline(0.0, color=GREY, linewidth=0.6, linestyle=":")
         ax.set_title(f"{PARAMETER_LABELS.get(name, name)} (n = {s.get('n', int(both.sum()))})")
         ax.set_xlabel(f"mean of method and PSG\n({unit})")
         ax.set_ylabel(f"method − PSG ({unit})")
+        ax.xaxis.set_major_locator(MaxNLocator(nbins=4))  # small panels: few ticks, so labels never collide
     for ax in axes[len(names):]:
         ax.set_axis_off()
     axes[-1].text(0.05, 0.5, "one marker per night\nsolid line: bias (mean difference)\n"
-                  "dashed lines: 95% limits of agreement\n(bias ± 1.96 SD of the differences)\n"
-                  "dotted line: no difference", transform=axes[-1].transAxes, va="center", fontsize=8)
+                  "dashed lines: 95% limits of agreement\n(bias ± 1.96 SD of the differences,\n"
+                  "SD over participants and nights)\nshaded bands: their CIs\ndotted line: no difference",
+                  transform=axes[-1].transAxes, va="center", fontsize=8)
     fig.suptitle(f"{style.label} against PSG: Bland-Altman plots")

@@ -37,6 +37,8 @@ from .participant_view import (
     held_out_table,
     load_participant_view,
     method_summary_table,
+    parameter_agreement_rows,
+    participant_parameter_rows,
 )
 from .study_view import (
     TABLE_METHODS,
@@ -152,6 +154,7 @@ def study_page(request: Request, access: StudyPage, factory: FactoryDep, job: Jo
     if view.comparison is not None:
         comparison = {"summary_rows": records(method_summary_table(view.comparison)),
                       "bland_altman_rows": bland_altman_rows(view.comparison),
+                      "repeated_rows": parameter_agreement_rows(view.comparison),
                       "bland_altman": [{"method": m, "alt": bland_altman_alt(m, bland_altman_stats(view.comparison, m)),
                                         "caption": bland_altman_caption(m, bland_altman_stats(view.comparison, m))}
                                        for m in methods_with_pairs(view.comparison)]}
@@ -175,6 +178,7 @@ def participant_page(request: Request, access: StudyPage, pid: ParticipantPath, 
         held = held_out_table(view.comparison, view.nights)
         curves = held_out_roc(factory, study_id=access.study_id, participant_id=pid)
         comparison = {"summary_rows": records(summary), "held_rows": records(held),
+                      "parameter_rows": participant_parameter_rows(view.comparison),
                       "held_alt": held_out_alt(summary, held["night_id"].nunique()), "roc_curves": curves,
                       "roc_alt": roc_alt(curves),
                       "roc_caption": "; ".join(f"{method_label(c.method)} AUC {c.auc:.3f}" for c in curves)}

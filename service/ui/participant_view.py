@@ -2,32 +2,35 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import pandas as pd
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import ALWAYS_SLEEP, COMPARED_RULES, MODEL_METHODS
+from models import ALWAYS_SLEEP, AUTO, COMPARED_RULES, MODEL_METHODS
 
 from ..errors import Unprocessable
 from ..jobs import queue as jobs
 from ..jobs.queue import JobInfo
 from ..jobs.training import check_trainable
 from ..results import reports
+from ..results.model_flags import auto_choice, model_flag
 from ..store import db, registry, versions
 from ..store.db import session_scope
+from ..store.protocols import protocol_info
 from ..store.registry import NightInfo
 from ..store.versions import VersionInfo
 
-__all__ = ["COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "ParticipantView", "held_out_table",
-           "last_job", "load_participant_view", "method_summary_table", "nights_table", "versions_table"]
+__all__ = ["AGREEMENT_PARAMETERS", "COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "ParticipantView",
+           "held_out_table", "last_job", "load_participant_view", "method_summary_table", "nights_table",
+           "parameter_agreement_rows", "participant_parameter_rows", "versions_table"]
 
 #: Held-out metrics listed for every model version.
 VERSION_METRICS: tuple[str, ...] = ("balanced_accuracy", "specificity", "sensitivity", "kappa", "auc")
 #: Methods of the comparisons, in display order (the always-sleep baseline last).
-COMPARISON_METHODS: tuple[str, ...] = (*MODEL_METHODS, *COMPARED_RULES, ALWAYS_SLEEP)
+COMPARISON_METHODS: tuple[str, ...] = (*MODEL_METHODS, AUTO, *COMPARED_RULES, ALWAYS_SLEEP)
 #: Metrics of the comparison tables.
 COMPARISON_METRICS: tuple[str, ...] = ("balanced_accuracy", "sensitivity", "specificity", "kappa", "auc")
 
@@ -57,6 +60,30 @@ def held_out_table(comparison: dict[str, Any], nights: list[NightInfo]) -> pd.Da
     starts = {n.night_id: i for i, n in enumerate(nights)}
     return frame.assign(_night=frame["night_id"].map(starts), _method=_method_order(frame["method"])).sort_values(
         ["_night", "_method"], kind="stable", ignore_index=True).drop(columns=["_night", "_method"])
+
+
+#: Parameters of the sleep-parameter agreement tables.
+AGREEMENT_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
+
+
+def parameter_agreement_rows(comparison: dict[str, Any]) -> list[dict[str, Any]]:
+    """The repeated-measures Bland-Altman entries (bias, limits and their CIs, n nights) of the agreement
+    parameters, by method (display order, ``auto`` after the models) then parameter."""
+    order = {m: i for i, m in enumerate(COMPARISON_METHODS)}
+    params = {p: i for i, p in enumerate(AGREEMENT_PARAMETERS)}
+    rows = [r for r in comparison.get("repeated_bland_altman", []) if r["parameter"] in params]
+    return sorted(rows, key=lambda r: (order.get(r["method"], len(order)), params[r["parameter"]]))
+
+
+def participant_parameter_rows(comparison: dict[str, Any]) -> list[dict[str, Any]]:
+    """One participant's agreement per method and parameter across their nights (Bland & Altman 1986: bias and
+    limits with their t-based CIs), in the shape of :func:`parameter_agreement_rows`; with one participant the
+    nested analysis has no between-participant part, so the across-nights one is the informative one."""
+    rows = [r | {"n_nights": r.get("n"), "bias_ci": [r.get("bias_ci_lower"), r.get("bias_ci_upper")],
+                 "loa_lower_ci": [r.get("loa_lower_ci_lower"), r.get("loa_lower_ci_upper")],
+                 "loa_upper_ci": [r.get("loa_upper_ci_lower"), r.get("loa_upper_ci_upper")]}
+            for r in comparison.get("bland_altman", []) if r["method"] != ALWAYS_SLEEP]
+    return parameter_agreement_rows({"repeated_bland_altman": rows})
 
 
 def last_job(session: Session, *, study: registry.StudyInfo,
@@ -104,6 +131,12 @@ class ParticipantView:
     comparison: dict[str, Any] | None = None
     comparison_unavailable: str | None = None
     job: JobInfo | None = None
+    #: what ``auto`` scores with now, and the models it passed over with why (flagged: no better than
+    #: always-sleep, or below the study's floor)
+    auto_method: str | None = None
+    passed_over: dict[str, str] = field(default_factory=dict)
+    #: why a version must not be chosen by ``auto``, by version number (personal) or "pooled"
+    flags: dict[str, str] = field(default_factory=dict)
 
     @property
     def n_labelled(self) -> int:
@@ -115,11 +148,9 @@ class ParticipantView:
 
     @property
     def scored_with(self) -> str | None:
-        """The method ``auto`` scoring uses: the personal model if it was chosen (and is active), else the
-        pooled model with the participant's offset; None before any model exists."""
-        if self.chosen_method == "personal" and self.active is not None:
-            return "personal"
-        return "pooled+offset" if self.pooled is not None else None
+        """The method ``auto`` scoring uses (:func:`service.results.model_flags.auto_choice`); None before any
+        model exists."""
+        return self.auto_method
 
 
 def nights_table(nights: list[NightInfo]) -> pd.DataFrame:
@@ -171,12 +202,19 @@ def load_participant_view(factory: sessionmaker[Session], *, study_id: str, part
             trainable = None
         except Unprocessable as exc:
             trainable = exc.message
+        floor = protocol_info(session, study).model_floor
+        personal_versions = versions.list_versions(session, study=study, participant=participant)
+        pooled = versions.active_version(session, study=study, participant=None)
+        flags = {str(v.version): reason for v in personal_versions if (reason := model_flag(v, floor=floor))}
+        if pooled is not None and (reason := model_flag(pooled, floor=floor)):
+            flags["pooled"] = reason
+        auto = auto_choice(session, study=study, participant=participant)
         view = ParticipantView(
-            study_id=study_id, participant_id=participant_id, nights=nights,
-            versions=versions.list_versions(session, study=study, participant=participant),
-            pooled=versions.active_version(session, study=study, participant=None),
-            chosen_method=participant.chosen_method, choice=participant.choice, trainable=trainable,
-            job=last_job(session, study=study, participant=participant))
+            study_id=study_id, participant_id=participant_id, nights=nights, versions=personal_versions,
+            pooled=pooled, chosen_method=participant.chosen_method, choice=participant.choice, trainable=trainable,
+            job=last_job(session, study=study, participant=participant),
+            auto_method=None if auto is None else auto.method, passed_over={} if auto is None else auto.passed_over,
+            flags=flags)
     try:
         return replace(view, comparison=reports.participant_comparison(factory, study_id=study_id,
                                                                         participant_id=participant_id))

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -14,8 +14,10 @@ from models import ALWAYS_SLEEP, REFERENCE
 from ..errors import Unprocessable
 from ..jobs.queue import JobInfo
 from ..results import reports
+from ..results.model_flags import model_flag
 from ..store import registry, versions
 from ..store.db import session_scope
+from ..store.protocols import protocol_info
 from ..store.registry import ParticipantSummary
 from ..store.versions import VersionInfo
 from .participant_view import COMPARISON_METHODS, last_job
@@ -54,6 +56,9 @@ class StudyView:
     comparison: dict[str, Any] | None = None
     comparison_unavailable: str | None = None
     job: JobInfo | None = None
+    #: why a pooled version must not be chosen by ``auto`` (no better than always-sleep, or below the study's
+    #: floor), by version number
+    flags: dict[int, str] = field(default_factory=dict)
 
 
 def _mean(summary: list[dict[str, Any]], method: str, metric: str) -> float | None:
@@ -90,9 +95,12 @@ def participants_table(view: StudyView) -> pd.DataFrame:
 
 
 def bland_altman_stats(comparison: dict[str, Any], method: str) -> dict[str, dict[str, Any]]:
-    """Per figure parameter, the Bland-Altman row of ``method`` (bias, limits, n, ...)."""
+    """Per figure parameter, the repeated-measures Bland-Altman entry of ``method`` (bias, limits and their CIs,
+    ``n`` nights, ``k`` participants; Bland & Altman 2007), else the across-nights row (bias, limits, n)."""
     rows = {r["parameter"]: r for r in comparison.get("bland_altman", []) if r["method"] == method}
-    return {name: rows.get(name, {"n": 0}) for name in BLAND_ALTMAN_FIGURE_PARAMETERS}
+    repeated = {r["parameter"]: r | {"n": r.get("n_nights", 0), "k": r.get("n_participants", 0)}
+                for r in comparison.get("repeated_bland_altman", []) if r["method"] == method}
+    return {name: repeated.get(name) or rows.get(name, {"n": 0}) for name in BLAND_ALTMAN_FIGURE_PARAMETERS}
 
 
 def bland_altman_pairs(comparison: dict[str, Any], method: str) -> dict[str, tuple[np.ndarray, np.ndarray]]:
@@ -143,9 +151,11 @@ def load_study_view(factory: sessionmaker[Session], *, study_id: str, analyse: b
         if not analyse:
             return StudyView(study_id=study_id, participants=participants, pooled_versions=[])
         study = registry.find_study(session, study_id)
-        view = StudyView(study_id=study_id, participants=participants,
-                         pooled_versions=versions.list_versions(session, study=study, participant=None),
-                         job=last_job(session, study=study, participant=None))
+        pooled = versions.list_versions(session, study=study, participant=None)
+        floor = protocol_info(session, study).model_floor
+        view = StudyView(study_id=study_id, participants=participants, pooled_versions=pooled,
+                         job=last_job(session, study=study, participant=None),
+                         flags={v.version: reason for v in pooled if (reason := model_flag(v, floor=floor))})
     try:
         return replace(view, comparison=reports.study_comparison(factory, study_id=study_id))
     except Unprocessable as exc:

@@ -14,12 +14,22 @@ import xml.etree.ElementTree as ET
 
 import numpy as np
 import pytest
+from agreement_formulas import ba2007_limits
 from harness import bearer
 from ui_support import FEW_LABELS, STUDY, TRAINED, UNTRAINED, browser, site, tab  # noqa: F401
 
 pytestmark = pytest.mark.slow
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), section 5.2
+
+
+def _analyst(tab):  # noqa: F811
+    """A tab of the analyst token that waits long enough for a first comparison (computed on first view: the
+    repeated-measures statistics fit one mixed model per method and parameter)."""
+    t = tab("analyst")
+    t.page.set_default_timeout(120_000)
+    t.page.set_default_navigation_timeout(120_000)
+    return t
 
 
 def _night_path(site, pid: str, k: int = 0) -> str:  # noqa: F811
@@ -101,7 +111,7 @@ def test_ui_night_page_draws_the_night_and_compares_methods(tab, site) -> None: 
 
     from models import demo_nights
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(_night_path(site, TRAINED))
     select = t.page.get_by_label("Method shown")
     options = select.locator("option").all_inner_texts()
@@ -140,7 +150,7 @@ def test_ui_night_page_draws_the_night_and_compares_methods(tab, site) -> None: 
 def test_ui_participant_page_lists_nights_versions_and_cards(tab, site) -> None:  # noqa: F811
     import httpx
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
     rows = t.page.locator("#nights-table tbody tr")
     assert rows.count() == len(site.night_ids[TRAINED])
@@ -167,10 +177,11 @@ def test_ui_participant_page_compares_methods_on_held_out_nights(tab, site) -> N
 
     from models import demo_nights, score_with_rule
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
     methods = t.page.locator("#method-summary tbody td:first-child").all_inner_texts()
-    assert methods[:6] == ["personal", "pooled", "pooled + offset", "Cole-Kripke", "Sadeh", "count threshold"]
+    assert methods[:7] == ["personal", "pooled", "pooled + offset", "auto (as deployed)", "Cole-Kripke", "Sadeh",
+                           "count threshold"]
     assert _image_loaded(t, "#held-out-figure img") and _image_loaded(t, "#roc-figure img")
     csv = _download(t, t.page.get_by_role("link", name=re.compile("per-night comparison")))
     frame = pd.read_csv(csv.path())
@@ -196,7 +207,7 @@ def test_ui_participant_page_compares_methods_on_held_out_nights(tab, site) -> N
 
 
 def test_ui_train_button_follows_the_job_to_completion(tab, site) -> None:  # noqa: F811
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}/participants/{UNTRAINED}")
     assert "No personal model yet" in t.page.locator("#versions-h + *").inner_text()
     t.page.get_by_label("Hyper-parameter trials per search").fill("2")
@@ -212,7 +223,7 @@ def test_ui_train_button_follows_the_job_to_completion(tab, site) -> None:  # no
 def test_ui_study_page_sorts_participants(tab, site) -> None:  # noqa: F811
     import pandas as pd
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}")
     table = t.page.locator("#participants-table")
     assert table.locator("tbody tr").count() == 3
@@ -237,9 +248,9 @@ def test_ui_study_page_sorts_participants(tab, site) -> None:  # noqa: F811
 def test_ui_study_page_draws_bland_altman_with_bias_and_limits(tab, site) -> None:  # noqa: F811
     import pandas as pd
 
-    t = tab("analyst")
+    t = _analyst(tab)
     t.goto(f"/ui/studies/{STUDY}")
-    for method in ("personal", "pooled", "pooled+offset", "cole-kripke", "sadeh", "count-threshold"):
+    for method in ("personal", "pooled", "pooled+offset", "auto", "cole-kripke", "sadeh", "count-threshold"):
         assert _image_loaded(t, f"[id='bland-altman-{method}'] img"), method
     pairs = pd.read_csv(_download(t, t.page.get_by_role("link", name=re.compile("night parameters"))).path())
     stats = pd.read_csv(_download(t, t.page.get_by_role("link", name=re.compile("Bland-Altman table"))).path())
@@ -254,7 +265,13 @@ def test_ui_study_page_draws_bland_altman_with_bias_and_limits(tab, site) -> Non
     assert row["n"] == d.size and row["bias"] == pytest.approx(bias)
     assert row["loa_lower"] == pytest.approx(bias - 1.96 * sd) and row["loa_upper"] == pytest.approx(bias + 1.96 * sd)
     caption = t.page.locator("[id='bland-altman-sadeh'] figcaption").inner_text()
-    assert f"TST (min): bias {bias:.1f} [{bias - 1.96 * sd:.1f}, {bias + 1.96 * sd:.1f}], n = {d.size}" in caption
+    # the figures draw the limits over nights nested in participants (Bland & Altman 2007) with their CIs
+    pids = ref.index.get_level_values(0).to_numpy()
+    both = np.isfinite((own - ref).to_numpy())
+    _, low, high = ba2007_limits((own - ref).to_numpy()[both], pids[both])
+    k = len(set(pids[both]))
+    assert f"TST (min): bias {bias:.1f} [{low:.1f}, {high:.1f}], n = {d.size} nights of k = {k}; CIs: bias (CI" \
+        in caption
     svg = _download(t, t.page.locator("[id='bland-altman-sadeh'] .downloads a", has_text="SVG"))
     texts = " ".join(el.text or "" for el in _check_svg(open(svg.path(), "rb").read()).iter())
     assert f"bias {bias:.1f}" in texts  # the numbers are printed in the figure itself
@@ -292,3 +309,74 @@ def test_ui_ingest_role_sees_recordings_but_not_models(tab, site) -> None:  # no
         page = http.get(f"/ui/studies/{STUDY}")
         assert "script-src 'self'" in page.headers["content-security-policy"]
         assert "<script>" not in page.text and " style=" not in page.text  # no inline script or style
+
+
+def test_ui_participants_table_fits_a_1400_px_window(browser, site) -> None:  # noqa: F811
+    context = browser.new_context(viewport={"width": 1400, "height": 900})
+    try:
+        page = context.new_page()
+        errors: list[str] = []
+        page.on("console", lambda msg: errors.append(msg.text) if msg.type == "error" else None)
+        page.goto(f"{site.url}/ui/signin")
+        page.get_by_label("Access token").fill(site.tokens["analyst"])
+        page.get_by_role("button", name="Sign in").click()
+        page.goto(f"{site.url}/ui/studies/{STUDY}")
+        page.wait_for_load_state("networkidle")
+        # nothing sticks out of the window sideways (CSSOM View: scrollWidth of the document <= its width)
+        assert page.evaluate("() => document.documentElement.scrollWidth <= window.innerWidth")
+        box = page.evaluate("""() => { const t = document.querySelector('#participants-table');
+            const r = t.getBoundingClientRect(); const s = t.closest('.scroll').getBoundingClientRect();
+            return {right: r.right, scrollRight: s.right, width: window.innerWidth}; }""")
+        assert box["scrollRight"] <= box["width"]  # the table's scroll area stays inside the window
+        assert box["right"] <= box["scrollRight"] + 1  # every column shows without scrolling sideways
+        page.screenshot(path=str(_artifact("study-1400.png")), full_page=True)
+        assert errors == []
+    finally:
+        context.close()
+
+
+def _artifact(name: str):
+    from ui_support import ARTIFACTS
+
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    return ARTIFACTS / name
+
+
+def test_ui_downloaded_png_keeps_legends_and_labels_inside(tab, site) -> None:  # noqa: F811
+    t = _analyst(tab)
+    for path in (f"/ui/studies/{STUDY}/figures/bland-altman-sadeh.png",
+                 f"/ui/studies/{STUDY}/participants/{TRAINED}/figures/held-out.png"):
+        pixels = _check_png(t.context.request.get(site.url + path).body())
+        rgb = pixels[..., :3]
+        # the saved area is the drawn area plus a margin: the outermost rows and columns are blank paper
+        # (white), so no legend, tick label or text was cut at the border
+        for edge in (rgb[:4], rgb[-4:], rgb[:, :4], rgb[:, -4:]):
+            assert edge.min() > 0.95, path
+
+
+def test_ui_pages_show_parameter_agreement_with_cis_the_choice_and_the_report(tab, site, tmp_path) -> None:  # noqa: F811
+    t = _analyst(tab)
+    t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
+    table = t.page.locator("#parameter-agreement")
+    methods = set(table.locator("tbody td:first-child").all_inner_texts())
+    assert {"personal", "pooled + offset", "auto (as deployed)", "Sadeh"} <= methods
+    assert re.search(r"-?\d+\.\d \[", table.locator("tbody td:nth-child(4)").first.inner_text())
+    choice = t.page.locator("#choice").inner_text()
+    assert "Evidence:" in choice and "auto" in choice
+    _check_accessible(t)
+    t.shot("participant-parameters")
+    t.goto(f"/ui/studies/{STUDY}")
+    repeated = t.page.locator("#repeated-bland-altman-table tbody tr")
+    assert repeated.count() >= 5
+    sadeh = repeated.filter(has_text="Sadeh").first  # a rule: every participant's nights, so the CI exists
+    assert re.search(r"\[-?\d+\.\d, -?\d+\.\d\]", sadeh.locator("td:nth-child(5)").inner_text())
+    assert "Under the study protocol: WASO to lights on" in t.page.locator(".protocol-note").first.inner_text()
+    report = _download(t, t.page.get_by_role("link", name=re.compile("validation report")))
+    html = open(report.path(), encoding="utf-8").read()
+    assert "<svg" in html and "not a medical device" in html and TRAINED in html
+    saved = tmp_path / "report.html"
+    saved.write_text(html, encoding="utf-8")
+    t.page.goto(saved.as_uri())  # opened from disk, as a reader would: no console errors
+    t.page.wait_for_load_state("networkidle")
+    assert t.page.locator("svg").count() >= 4
+    t.shot("report")

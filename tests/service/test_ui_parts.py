@@ -75,3 +75,74 @@ def test_model_card_markdown_says_what_the_json_says() -> None:
     assert "higher held-out balanced accuracy" in text and "P-01 night ab12 (n1)" in text
     assert all(f"- {caution}" in text for caution in card["cautions"])
     assert any("not a medical device" in c for c in card["cautions"])
+
+
+def test_bland_altman_panels_keep_tick_labels_apart() -> None:
+    """In the small panels of the Bland-Altman figure no two tick labels of an axis overlap (their drawn
+    extents, from matplotlib's renderer)."""
+    import matplotlib as mpl
+    import numpy as np
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from service.ui import figures
+
+    rng = np.random.default_rng(0)
+    ref = {"sol_min": rng.uniform(0, 90, 30), "tst_min": rng.uniform(200, 480, 30),
+           "waso_min": rng.uniform(5, 150, 30), "awakenings": rng.integers(0, 40, 30).astype(float),
+           "sleep_efficiency_pct": rng.uniform(60, 99, 30)}
+    pairs = {k: (v + rng.normal(0, 0.1 * (v.std() + 1), v.size), v) for k, v in ref.items()}
+    stats = {k: {"bias": 1.0, "loa_lower": -5.0, "loa_upper": 7.0, "n": 30, "bias_ci": (0.0, 2.0)} for k in ref}
+    with mpl.rc_context(figures._STYLE):  # the pages' own style: sizes as the pages draw them
+        fig = Figure(figsize=(7.0, 4.8), layout="constrained")
+        figures.draw_bland_altman(fig, "sadeh", pairs, stats)
+        canvas = FigureCanvasAgg(fig)
+        canvas.draw()
+        renderer = canvas.get_renderer()
+    drawn = [ax for ax in fig.axes if ax.axison]
+    labels = {id(ax): [t.get_window_extent(renderer) for t in (*ax.get_xticklabels(), *ax.get_yticklabels())
+                       if t.get_text() and t.get_visible()] for ax in drawn}
+    for ax in drawn:
+        ticks = [t.get_window_extent(renderer) for t in ax.get_xticklabels() if t.get_text() and t.get_visible()]
+        for a, b in zip(ticks, ticks[1:], strict=False):
+            assert not a.overlaps(b), (ax.get_title(), a, b)
+        # the bias and limit values printed beside a panel stay clear of the neighbouring panels' tick labels
+        for text in ax.texts:
+            box = text.get_window_extent(renderer)
+            for other in drawn:
+                if other is not ax:
+                    assert not any(box.overlaps(t) for t in labels[id(other)]), (ax.get_title(), text.get_text())
+
+
+@pytest.mark.parametrize("n_nights", [3, 12, 40])
+def test_held_out_figure_keeps_rotated_night_names_apart(n_nights: int) -> None:
+    """Rotated tick labels do not touch when the gap between neighbouring labels, measured across their
+    direction (tick spacing x sin(angle)), is at least the text's height (plane geometry)."""
+    import math
+
+    import matplotlib as mpl
+    import numpy as np
+    import pandas as pd
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from service.ui import figures
+
+    rng = np.random.default_rng(1)
+    nights = [f"2031-03-{d % 28 + 1:02d} lab night {d}" for d in range(n_nights)]
+    table = pd.DataFrame([{"night": n, "method": m, "balanced_accuracy": rng.uniform(0.5, 1),
+                           "specificity": rng.uniform(0.3, 1)} for n in nights for m in ("personal", "sadeh")])
+    width = max(5.5, min(7.0, 3.0 + 0.9 * n_nights))  # the page's size for this many nights
+    with mpl.rc_context(figures._STYLE):
+        fig = Figure(figsize=(width, 3.2), layout="constrained")
+        figures.draw_held_out_nights(fig, table)
+        canvas = FigureCanvasAgg(fig)
+        canvas.draw()
+    for ax in fig.axes:
+        shown = [(tick, label) for tick, label in zip(ax.get_xticks(), ax.get_xticklabels(), strict=True)
+                 if label.get_text()]
+        x_in = [ax.transData.transform((tick, 0))[0] / fig.dpi for tick, _ in shown]
+        angle = math.radians(shown[0][1].get_rotation())
+        height_in = shown[0][1].get_fontsize() / 72
+        gaps = np.diff(x_in[:-1]) * math.sin(angle)  # the last label (the mean) sits apart, after a rule
+        assert (gaps >= height_in).all(), (n_nights, gaps.min(), height_in)

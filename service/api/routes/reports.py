@@ -6,9 +6,12 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Depends, Query, Response
 from fastapi.concurrency import run_in_threadpool
+from fastapi.responses import HTMLResponse
 
 from ...results import reports
 from ...store.tokens import Role
+from ...ui.report_page import build_report
+from ...ui.report_pdf import build_report_pdf
 from ..deps import FactoryDep, StudyAccess, study_access
 from .studies import ParticipantPath
 
@@ -43,3 +46,22 @@ async def export_parameters(access: AnalystAccess, factory: FactoryDep,
     filename = f"{access.study_id}-parameters.{format}"
     return Response(content=body, media_type=media,
                     headers={"Content-Disposition": f'attachment; filename="{filename}"'})
+
+
+@router.get("/report", response_class=HTMLResponse,
+            responses={200: {"content": {"text/html": {"schema": {"type": "string"}}}}})
+async def study_report(access: AnalystAccess, factory: FactoryDep) -> HTMLResponse:
+    """The study's validation report: one self-contained HTML page (inline figures, no external assets) with
+    the participant/night flow, protocol, agreement tables with CIs, Bland-Altman plots, epoch figures, paired
+    comparisons, equivalence results, model cards and software versions."""
+    body = await run_in_threadpool(build_report, factory, study_id=access.study_id)
+    return HTMLResponse(body, headers={"Content-Disposition": f'inline; filename="{access.study_id}-report.html"'})
+
+
+@router.get("/report.pdf", response_class=Response,
+            responses={200: {"content": {"application/pdf": {"schema": {"type": "string", "format": "binary"}}}}})
+async def study_report_pdf(access: AnalystAccess, factory: FactoryDep) -> Response:
+    """The validation report's tables and figures as a PDF (drawn on the server, no browser)."""
+    body = await run_in_threadpool(build_report_pdf, factory, study_id=access.study_id)
+    return Response(body, media_type="application/pdf",
+                    headers={"Content-Disposition": f'attachment; filename="{access.study_id}-report.pdf"'})

@@ -1,0 +1,220 @@
+"""The parameter export: one row per night and method, honest about where each value comes from.
+
+- **Labelled nights**: model rows (``personal``, ``pooled``, ``pooled+offset``, ``auto``) are the
+  *held-out* predictions stored with the active versions, so the night was left out of the model
+  that scored it (``held_out`` true; ``auto`` by nested choice, ``scored_as`` naming the model
+  chosen without the night). A model without a held-out prediction of the night (nights added
+  after training) is scored by the deployed version, ``held_out`` false. Every side of the night
+  and the reference are computed by one :func:`models.compare_night`, so reference and methods
+  are masked alike (the reference's unscored epochs and the epochs without counts).
+- **Unlabelled nights**: the deployed models (the cached scorings of
+  :func:`service.results.scoring.score_night`), ``held_out`` false.
+
+Every row states the study protocol it was computed under (``protocol``, its JSON form), the
+model version, the epoch length, the in-bed interval (``lights_off``, ``lights_on``), the unscored
+epochs and the night's QC flags. Columns are typed (timestamps in UTC, counts as integers); in CSV
+a text cell a spreadsheet would run as a formula is neutralised with a leading apostrophe
+(OWASP, "CSV Injection").
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import select
+from sqlalchemy.orm import Session, sessionmaker
+
+from models import (
+    AUTO,
+    METHOD_IDS,
+    MODEL_METHODS,
+    PARAMETER_NAMES,
+    HeldOutNight,
+    Night,
+    StudyProtocol,
+    TrainingConfig,
+    compare_night,
+    json_record,
+    score_with_rule,
+)
+
+from ..errors import Unprocessable
+from ..store import db, versions
+from ..store.codec import night_from_row
+from ..store.protocols import study_protocol
+from ..store.registry import find_study, study_participants
+from .held_out import active_held_out as _active_held_out
+from .held_out import add_auto, version_of
+from .scoring import score_night
+
+__all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "export_frame", "export_parameters", "neutralise_formulas"]
+
+#: Methods of the parameter export besides the reference (model methods only when trained).
+EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, *MODEL_METHODS, AUTO)
+EXPORT_COLUMNS: tuple[str, ...] = (
+    "study_id", "participant_id", "night_id", "label", "start", "lights_off", "lights_on", "epoch_seconds",
+    "method", "scored_as", "model_version", "held_out", "protocol", "qc_flags", *PARAMETER_NAMES)
+_INTEGER_COLUMNS = ("epoch_seconds", "model_version", "unscored_epochs", "awakenings")
+_TIME_COLUMNS = ("start", "lights_off", "lights_on")
+#: first characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection")
+_FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+@dataclass(frozen=True)
+class _Target:
+    participant_id: str
+    night: Night
+    night_id: str
+    label: str | None
+    qc: str
+    has_personal: bool
+
+
+def neutralise_formulas(frame: pd.DataFrame) -> pd.DataFrame:
+    """A copy of ``frame`` whose text cells starting like a formula (=, +, -, @, tab, CR) begin with ``'``."""
+    out = frame.copy()
+    for column in out.columns:
+        if out[column].dtype == object:
+            out[column] = out[column].map(
+                lambda v: "'" + v if isinstance(v, str) and v.startswith(_FORMULA_STARTS) else v)
+    return out
+
+
+def _targets(session: Session, study_id: str) -> tuple[list[_Target], bool, dict[str, str]]:
+    study = find_study(session, study_id)
+    pooled = versions.active_version(session, study=study, participant=None) is not None
+    targets, policies = [], {}
+    for participant in study_participants(session, study=study):
+        personal = versions.active_version(session, study=study, participant=participant) is not None
+        policies[participant.participant_id] = (participant.choice or {}).get("policy") or "balanced_accuracy"
+        for row in session.scalars(select(db.Night).where(db.Night.participant_pk == participant.pk)
+                                   .order_by(db.Night.start_utc)):
+            targets.append(_Target(participant.participant_id, night_from_row(row, participant_id=participant.
+                                                                               participant_id),
+                                   row.night_id, row.label, " ".join(f["code"] for f in row.qc), personal))
+    return targets, pooled, policies
+
+
+def _deployed(factory: sessionmaker[Session], study_id: str, t: _Target, method: str) -> dict[str, Any]:
+    return json.loads(score_night(factory, study_id=study_id, participant_id=t.participant_id, night_id=t.night_id,
+                                  method=method))
+
+
+def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, methods: list[str],
+                   held: dict[str, HeldOutNight], used: dict[str, int | None], protocol: StudyProtocol,
+                   auto_chosen: dict[str, str]) -> list[dict[str, Any]]:
+    """Reference and every method of a labelled night, from one comparison (masked alike)."""
+    night = t.night
+    sides: dict[str, tuple[Any, Any]] = {}
+    info: dict[str, tuple[str | None, int | None, bool | None]] = {}  # scored_as, version, held_out
+    for method in methods:
+        if method in METHOD_IDS:
+            scored = score_with_rule(night.counts, night.epoch_seconds, method)
+            sides[method], info[method] = (scored.sleep, scored.score), (None, None, None)
+        elif method in held:
+            chosen = method if method != AUTO else auto_chosen.get(t.night_id, "pooled+offset")
+            sides[method] = (held[method].sleep, held[method].p_sleep)
+            info[method] = (chosen, version_of(chosen, t.participant_id, used), True)
+        else:
+            body = _deployed(factory, study_id, t, method)
+            sleep = np.array([np.nan if v is None else v for v in body["sleep"]], dtype=np.float64)
+            sides[method], info[method] = (sleep, None), (body["method"], body["model_version"], False)
+    reference = night.reference_sleep(movement_time=TrainingConfig().movement_time)
+    assert reference is not None  # a labelled night
+    first, stop = night.in_bed
+    compared = compare_night(reference, sides, epoch_seconds=night.epoch_seconds, lights_off_idx=first,
+                             lights_on_idx=stop, missing=night.missing, parameter_options={"protocol": protocol})
+    rows = [{"method": "reference", "scored_as": None, "model_version": None, "held_out": None}
+            | _params(compared.reference_parameters.as_dict())]
+    for method in methods:
+        scored_as, version, held_out = info[method]
+        rows.append({"method": method, "scored_as": scored_as, "model_version": version, "held_out": held_out}
+                    | _params(compared.parameters[method].as_dict()))
+    return rows
+
+
+def _params(values: dict[str, Any]) -> dict[str, Any]:
+    return json_record({k: values[k] for k in PARAMETER_NAMES})
+
+
+def export_frame(factory: sessionmaker[Session], *, study_id: str) -> pd.DataFrame:
+    """The export as a typed table (:data:`EXPORT_COLUMNS`); see the module docstring.
+
+    Raises
+    ------
+    NotFound
+        If the study does not exist.
+    """
+    with db.session_scope(factory) as session:
+        targets, pooled, policies = _targets(session, study_id)
+        protocol = study_protocol(session, study_id)
+        held_out, used = _active_held_out(session, find_study(session, study_id))
+    auto_chosen: dict[str, dict[str, str]] = {}  # participant -> night id -> model auto chose without the night
+    for pid, policy in policies.items():
+        labelled = [t.night for t in targets if t.participant_id == pid and t.night.has_reference]
+        choice = add_auto(held_out.setdefault(pid, {}), labelled, policy=policy)
+        if choice is not None:
+            auto_chosen[pid] = dict(zip(choice.per_night["night_id"], choice.per_night["chosen"], strict=True))
+    protocol_text = json.dumps(protocol.to_dict(), sort_keys=True, separators=(",", ":"))
+    rows: list[dict[str, Any]] = []
+    for t in targets:
+        methods = [m for m in EXPORT_METHODS if not ((m == "personal" and not t.has_personal)
+                                                     or (m in MODEL_METHODS + (AUTO,) and m != "personal"
+                                                         and not pooled))]
+        night = t.night
+        first, stop = night.in_bed
+        step = pd.Timedelta(seconds=night.epoch_seconds)
+        ids = {"study_id": study_id, "participant_id": t.participant_id, "night_id": t.night_id, "label": t.label,
+               "start": night.start.tz_convert("UTC"), "lights_off": (night.start + first * step).tz_convert("UTC"),
+               "lights_on": (night.start + stop * step).tz_convert("UTC"), "epoch_seconds": night.epoch_seconds,
+               "protocol": protocol_text, "qc_flags": t.qc}
+        if night.has_reference:
+            found = _labelled_rows(factory, study_id, t, methods, held_out.get(t.participant_id, {})
+                                   .get(night.content_hash, {}), used, protocol,
+                                   auto_chosen.get(t.participant_id, {}))
+        else:
+            found = []
+            for method in methods:
+                body = _deployed(factory, study_id, t, method)
+                found.append({"method": method, "scored_as": None if method in METHOD_IDS else body["method"],
+                              "model_version": body["model_version"],
+                              "held_out": None if method in METHOD_IDS else False}
+                             | {k: body["parameters"].get(k) for k in PARAMETER_NAMES})
+        rows += [ids | r for r in found]
+    return _typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS)))
+
+
+def _typed(frame: pd.DataFrame) -> pd.DataFrame:
+    for column in _TIME_COLUMNS:
+        frame[column] = pd.to_datetime(frame[column], utc=True)
+    for column in _INTEGER_COLUMNS:
+        frame[column] = pd.array(frame[column].to_numpy(dtype=np.float64), dtype="Int64")
+    frame["held_out"] = frame["held_out"].astype("boolean")
+    for column in ("label", "scored_as", "qc_flags"):
+        frame[column] = frame[column].astype(object)
+    return frame
+
+
+def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv") -> bytes:
+    """The export as CSV (formulas neutralised) or Parquet (typed) bytes.
+
+    Raises
+    ------
+    NotFound
+        If the study does not exist.
+    Unprocessable
+        If ``fmt`` is neither ``csv`` nor ``parquet``.
+    """
+    if fmt not in ("csv", "parquet"):
+        raise Unprocessable(f"format {fmt!r}: choose csv or parquet", code="unknown_format")
+    frame = export_frame(factory, study_id=study_id)
+    if fmt == "csv":
+        return neutralise_formulas(frame).to_csv(index=False, date_format="%Y-%m-%dT%H:%M:%SZ").encode()
+    buffer = io.BytesIO()
+    frame.to_parquet(buffer, index=False)
+    return buffer.getvalue()
