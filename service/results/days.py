@@ -29,6 +29,7 @@ from models import DayRow, day_rows, recording_summary, sleep_regularity_index, 
 from ..errors import Unprocessable
 from ..store import recordings as store
 from ..store.db import session_scope
+from ..store.protocols import study_protocol
 from ..store.recording_codec import nonwear_from_records, period_from_record
 from .scoring import SCORING_METHODS, score_night
 
@@ -168,8 +169,11 @@ def recording_days(factory: sessionmaker[Session], *, study_id: str, participant
     rows, summary, used = day_table(factory, study_id=study_id, participant_id=participant_id,
                                     recording_id=recording_id, method=method)
     used_by_nights = sorted({r["method"] for r in rows if r["night_id"]})
+    with session_scope(factory) as session:
+        protocol = study_protocol(session, study_id).to_dict()
     return {"recording_id": recording_id, "method": used, "methods_used": used_by_nights, "rows": rows,
-            "summary": summary, "definitions": _definitions(used, method) | {"methods_used": used_by_nights}}
+            "summary": summary,
+            "definitions": _definitions(used, method) | {"methods_used": used_by_nights, "protocol": protocol}}
 
 
 def export_days(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv", method: str = "auto",

@@ -276,6 +276,26 @@ def test_the_day_table_has_a_row_per_day_and_a_summary_with_its_definitions(sqli
     assert auto["method"] == "cole-kripke" and "no model" in auto["definitions"]["scoring"]
 
 
+def test_the_day_table_applies_and_states_the_study_protocol(sqlite_world: World) -> None:
+    http = sqlite_world.http
+    sim = simulated(7, seed=4)[0]
+    rid = post_recording(http, sim).json()["recording_id"]
+    before = http.get(recordings_url("P-01", rid, "days"), params={"method": "cole-kripke"}).json()
+    assert before["definitions"]["protocol"]["waso_end"] == "lights_on"
+    put = http.put(f"/v1/studies/{STUDY}/protocol", json={"waso_end": "final_awakening"})
+    assert put.status_code == 200, put.text
+    after = http.get(recordings_url("P-01", rid, "days"), params={"method": "cole-kripke"}).json()
+    assert after["definitions"]["protocol"]["waso_end"] == "final_awakening"
+    pairs = [(b, a) for b, a in zip(before["rows"], after["rows"], strict=True) if b["night_id"]]
+    assert pairs
+    # with WASO ending at the final awakening, the final wake bout is neither WASO nor an awakening
+    # (the protocol's definition), so neither figure can grow and TST is unchanged
+    for b, a in pairs:
+        assert a["awakenings"] <= b["awakenings"] and a["waso_min"] <= b["waso_min"]
+        assert a["tst_min"] == pytest.approx(b["tst_min"])
+    assert any(a["waso_min"] < b["waso_min"] for b, a in pairs)
+
+
 # ---- refusals -------------------------------------------------------------------------------------
 def _nothing_stored(http: Any) -> bool:
     return http.get(f"/v1/studies/{STUDY}/participants").json()["count"] == 0
