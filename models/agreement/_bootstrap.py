@@ -20,11 +20,22 @@ from ..errors import NightbankError
 from ..records import json_value
 from ..scoring.protocol import StudyProtocol
 
-__all__ = ["InvalidAgreementInputError", "MIN_CI_PARTICIPANTS", "draw_counts", "effective_protocol", "json_dict",
+__all__ = ["InvalidAgreementInputError", "MIN_CI_PARTICIPANTS", "STUDENTIZED_MIN_PARTICIPANTS",
+           "ci_method_name", "draw_counts", "effective_protocol", "json_dict",
            "json_safe", "participant_codes", "percentile_interval", "studentized_interval", "weighted_mean_interval"]
 
 #: Fewest participants for a bootstrap interval (2 participants give only 3 distinct resamples).
 MIN_CI_PARTICIPANTS = 3
+#: fewer participants than this get percentile intervals: with so few, a resample's jackknife SE is
+#: often near zero and the studentized interval unstable (our choice, checked by simulation in the tests)
+STUDENTIZED_MIN_PARTICIPANTS = 8
+
+
+def ci_method_name(n_participants: int) -> str:
+    """How the participant-bootstrap intervals of ``n_participants`` participants are made."""
+    if n_participants >= STUDENTIZED_MIN_PARTICIPANTS:
+        return "participant bootstrap, studentized (bootstrap-t, jackknife SE)"
+    return f"participant bootstrap, percentile (fewer than {STUDENTIZED_MIN_PARTICIPANTS} participants)"
 
 
 class InvalidAgreementInputError(NightbankError):
@@ -78,14 +89,19 @@ def percentile_interval(values: NDArray[np.float64], ci_level: float) -> tuple[f
 
 
 def studentized_interval(estimate: float, se: float, values: NDArray[np.float64], value_se: NDArray[np.float64],
-                         ci_level: float) -> tuple[float, float]:
+                         ci_level: float, *, n_participants: int) -> tuple[float, float]:
     """Bootstrap-t interval (Efron & Tibshirani 1993, ch. 12; from memory).
 
-    ``t_b = (values_b - estimate) / value_se_b`` over the resamples with a finite, positive SE;
-    the interval is ``(estimate - t_(1-a/2) se, estimate - t_(a/2) se)``. Falls back to the
-    percentile interval when ``se`` is not finite or no resample has a usable SE.
+    ``t_b = (values_b - estimate) / value_se_b`` over the resamples with a finite SE above
+    ``1e-6 * se`` (a resample that repeats one participant has a zero SE up to rounding, whose
+    ``t`` would be unbounded); the interval is ``(estimate - t_(1-a/2) se, estimate - t_(a/2) se)``. Falls back to the
+    percentile interval when ``se`` is not finite, no resample has a usable SE, or there are fewer
+    than :data:`STUDENTIZED_MIN_PARTICIPANTS` participants.
     """
-    ok = np.isfinite(values) & np.isfinite(value_se) & (value_se > 0)
+    if n_participants < STUDENTIZED_MIN_PARTICIPANTS:
+        return percentile_interval(values, ci_level)
+    floor = 1e-6 * se if np.isfinite(se) and se > 0 else 0.0
+    ok = np.isfinite(values) & np.isfinite(value_se) & (value_se > floor)
     if not (np.isfinite(estimate) and np.isfinite(se)) or not ok.any():
         return percentile_interval(values, ci_level)
     t = (values[ok] - estimate) / value_se[ok]
@@ -112,7 +128,7 @@ def weighted_mean_interval(values: NDArray[np.float64], counts: NDArray[np.float
         spread = (c * (x[None, :] - means[:, None]) ** 2).sum(axis=1)
         se_boot = np.sqrt(spread / (draws * (draws - 1.0)))
     se = float(x.std(ddof=1)) / np.sqrt(x.size)
-    return studentized_interval(float(x.mean()), se, means, se_boot, ci_level)
+    return studentized_interval(float(x.mean()), se, means, se_boot, ci_level, n_participants=int(x.size))
 
 
 def json_dict(values: Mapping[str, Any]) -> dict[str, Any]:

@@ -42,6 +42,7 @@ from ._bias_regression import bias_regressions
 from ._bootstrap import (
     MIN_CI_PARTICIPANTS,
     InvalidAgreementInputError,
+    ci_method_name,
     draw_counts,
     effective_protocol,
     json_dict,
@@ -173,7 +174,7 @@ def repeated_limits_of_agreement(differences: ArrayLike, participant_ids: ArrayL
     boot_se = np.concatenate([se for _, se in parts], axis=1)
     for name, row in (("bias_ci", 0), ("loa_lower_ci", 4), ("loa_upper_ci", 5)):
         out[name] = studentized_interval(float(point[row, 0]), float(point_se[row, 0]), boot[row], boot_se[row],
-                                         ci_level)
+                                         ci_level, n_participants=k)
     return out
 
 
@@ -291,7 +292,7 @@ def repeated_bland_altman(method: ArrayLike, reference: ArrayLike | None, partic
         loa_upper=limits["loa_upper"], loa_lower_ci=limits["loa_lower_ci"], loa_upper_ci=limits["loa_upper_ci"],
         proportional_bias=proportional, regression_limits=regression, protocol=proto.to_dict(),
         sd_within=limits["sd_within"], sd_between=limits["sd_between"], sd_total=limits["sd_total"],
-        against=against)
+        against=against, ci_method=ci_method_name(int(limits["n_participants"])))
 
 
 def repeated_bland_altman_table(parameters: pd.DataFrame, *, reference_method: str = REFERENCE,

@@ -322,3 +322,19 @@ def test_study_protocol_flows_from_night_comparisons_to_the_repeated_analysis():
     # the protocol's WASO leaves out the 10 wake epochs after the last sleep epoch (5 min)
     assert nights[0].reference_parameters.waso_min == pytest.approx(
         sleep_parameters(references[0], 30).waso_min - 5.0)
+
+
+def test_few_participants_give_bounded_intervals():
+    # With 3 participants a resample that repeats one participant has a jackknife SE that is zero up to
+    # rounding; its studentized value must not stretch the interval without bound. A bootstrap interval
+    # lies within the range the data could produce: here every interval stays within 10 SDs of the data
+    # (a generous bound, common practice for a sanity check).
+    for seed in range(20):
+        rng = np.random.default_rng(seed)
+        ids = np.repeat(["a", "b", "c"], 3)
+        d = rng.normal(0, 5, 9) + np.repeat(rng.normal(0, 3, 3), 3)
+        r = repeated_limits_of_agreement(d, ids)
+        bound = abs(d).max() + 10 * d.std(ddof=1)
+        for key in ("bias_ci", "loa_lower_ci", "loa_upper_ci"):
+            low, high = r[key]
+            assert -bound <= low <= high <= bound, (seed, key, r[key])
