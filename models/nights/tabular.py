@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InvalidNightError, Problem
-from ._decoding import META_LINE, decode_text
+from ._decoding import META_LINE, decode_text, load_json, parquet_bounds_problem
 from ._table import night_from_table
 from .checks import NightOptions
 from .columns import ColumnRoles, find_columns
@@ -228,15 +228,16 @@ def night_from_parquet(data: bytes, *, participant_id: str = "", options: NightO
     import pyarrow.parquet as pq
 
     try:
-        table = pq.read_table(io.BytesIO(data))
+        parquet = pq.ParquetFile(io.BytesIO(data))
+        too_large = parquet_bounds_problem(parquet.metadata, options.max_epochs)
+        if too_large is not None:
+            raise InvalidNightError([too_large], source=source)
+        table = parquet.read()
     except (pa.ArrowException, OSError) as exc:
         raise InvalidNightError([Problem("malformed_parquet", f"not a readable Parquet file: {exc}", {})],
                                 source=source) from None
     raw_meta = (table.schema.metadata or {}).get(b"nightbank", b"{}")
-    try:
-        meta = json.loads(raw_meta)
-    except json.JSONDecodeError:
-        meta = {}
+    meta, _ = load_json(raw_meta.decode("utf-8", "replace"))  # unreadable metadata: no lights, no label
     problems: list[Problem] = []
     roles = find_columns(table.column_names, options, profile, 0, problems)
     first_tz = getattr(table.schema.field(roles.time).type, "tz", None) if roles.time is not None else None

@@ -32,7 +32,6 @@ from __future__ import annotations
 import csv
 import datetime as dt
 import io
-import json
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -43,6 +42,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 import pandas as pd
 
 from ..errors import NightbankError, Problem
+from ..nights._decoding import load_json
 
 __all__ = ["DiaryDay", "InvalidDiaryError", "read_diary"]
 
@@ -289,11 +289,9 @@ def read_diary(source: str | Path | bytes, *, fmt: str | None = None, tz: str,
     suffix = Path(name).suffix.lower().lstrip(".") if name else ""
     fmt = fmt or (suffix if suffix in ("csv", "json") else "json" if text.lstrip()[:1] in "[{" else "csv")
     if fmt == "json":
-        try:
-            obj = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise InvalidDiaryError([Problem("malformed_json", f"not valid JSON at line {exc.lineno}: {exc.msg}",
-                                             {"row": exc.lineno})], source=name) from None
+        obj, problem = load_json(text)
+        if problem is not None:
+            raise InvalidDiaryError([problem], source=name)
         found = _json_days(obj, tz, problems)
     else:
         found = _csv_days(text, tz, problems)

@@ -32,6 +32,7 @@ from numpy.typing import NDArray
 
 from ..errors import InvalidNightError, Problem
 from ..nights import ImportProfile, Night, NightOptions, detect_format, night_from_csv, night_from_json
+from ..nights._decoding import decode_json
 from ..nights.tabular import night_from_parquet
 from ._markers import csv_markers, json_markers, parquet_markers
 
@@ -226,9 +227,9 @@ def _from_json_bytes(data: bytes | dict[str, Any], participant_id: str | None, o
     obj: object = data
     if isinstance(data, bytes):
         try:
-            obj = json.loads(data.decode("utf-8-sig"))
-        except (UnicodeDecodeError, json.JSONDecodeError):
-            obj = None
+            obj = decode_json(data, name)
+        except InvalidNightError as exc:  # bad byte, syntax, nesting or number length: named by the reader
+            raise InvalidRecordingError(exc.problems, source=name) from None
     if not isinstance(obj, dict):  # the night reader names the defect (bad byte, line and column, top level)
         night_from_json(data if isinstance(data, bytes) else b"", options=options, source=name)
         raise InvalidRecordingError([Problem("malformed_json", "the top level must be an object", {"field": "$"})],
