@@ -37,12 +37,12 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
-from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import pandas as pd
 
 from ..errors import NightbankError, Problem
 from ..nights._decoding import load_json
+from ..nights.timestamps import zone_of
 
 __all__ = ["DiaryDay", "InvalidDiaryError", "read_diary"]
 
@@ -281,11 +281,8 @@ def read_diary(source: str | Path | bytes, *, fmt: str | None = None, tz: str,
     except UnicodeDecodeError as exc:
         raise InvalidDiaryError([Problem("not_utf8", f"the diary is not valid UTF-8 (byte {exc.start})",
                                          {"row": data[: exc.start].count(b"\n") + 1})], source=name) from None
-    try:
-        ZoneInfo(tz)
-    except (ZoneInfoNotFoundError, ValueError, TypeError):
-        raise InvalidDiaryError([Problem("unknown_time_zone", f"tz {tz!r} is not an IANA time zone",
-                                         {"field": "tz"})], source=name) from None
+    if zone_of(tz, problems) is None:
+        raise InvalidDiaryError(problems, source=name)
     suffix = Path(name).suffix.lower().lstrip(".") if name else ""
     fmt = fmt or (suffix if suffix in ("csv", "json") else "json" if text.lstrip()[:1] in "[{" else "csv")
     if fmt == "json":

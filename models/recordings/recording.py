@@ -34,6 +34,7 @@ from ..errors import InvalidNightError, Problem
 from ..nights import ImportProfile, Night, NightOptions, detect_format, night_from_csv, night_from_json
 from ..nights._decoding import decode_json
 from ..nights.tabular import night_from_parquet
+from ..nights.timestamps import zone_of
 from ._markers import csv_markers, json_markers, parquet_markers
 
 __all__ = [
@@ -203,6 +204,9 @@ def read_recording(source: str | Path | bytes, *, fmt: str | None = None, partic
         data, name = path.read_bytes(), source_name or str(path)
     fmt = fmt or detect_format(name, data)
     options = _options(tz, fill_gaps)
+    zone_problems: list[Problem] = []
+    if tz is not None and zone_of(tz, zone_problems) is None:  # stored with the recording: checked even if unused
+        raise InvalidRecordingError(zone_problems, source=name)
     try:
         if fmt == "json":
             return _from_json_bytes(data, participant_id, options, name, profile)
