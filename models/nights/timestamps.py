@@ -341,7 +341,7 @@ def zone_of(tz: str, problems: list[Problem]) -> ZoneInfo | None:
             return ZoneInfo(tz)
         except (ZoneInfoNotFoundError, ValueError, OSError):
             pass
-    problems.append(Problem("unknown_time_zone", "the time zone is not an IANA zone name (e.g. Europe/Berlin)",
+    problems.append(Problem("unknown_time_zone", "tz is not the name of an IANA time zone (e.g. Europe/Berlin)",
                             {"field": "tz"}))
     return None
 
