@@ -47,6 +47,11 @@ class NightOptions:
     time_column, counts_column, reference_column : str, optional
         Explicit column names; by default found through :data:`models.nights.columns.COLUMN_ALIASES`.
         An import profile's ``columns`` take precedence.
+    max_counts_per_second : float, default=10_000.0
+        Largest plausible count per second of epoch length (300,000 in a 30-s epoch); larger
+        counts, 1e308 among them, are refused (``implausible_count``) with their epochs. Common
+        practice: more than twice what a 16-bit count register holds per 15-s epoch (65,535,
+        about 4,400 counts/s), so no count device reaches it.
     min_present_pct : float, default=50.0
         Smallest accepted share (%) of present epochs, i.e. epochs whose counts are not missing
         (missing epochs come from gap filling or, with ``fill_gaps``, empty count cells). A night
@@ -65,6 +70,7 @@ class NightOptions:
     counts_column: str | None = None
     reference_column: str | None = None
     min_present_pct: float = 50.0
+    max_counts_per_second: float = 10_000.0
 
 
 def _first(idx: NDArray[np.intp]) -> list[int]:
@@ -240,6 +246,8 @@ def validate_night_fields(
     problems += count_problems
     if values is not None and n:
         problems += _presence_problems(values, options.min_present_pct)
+    if values is not None and seconds is not None:
+        problems += _plausibility_problems(values, seconds, options.max_counts_per_second, start)
     if n == 0:
         problems.append(Problem("empty_recording", "the recording has no epochs", {"field": "counts"}))
     elif seconds is not None:
@@ -289,4 +297,25 @@ def _presence_problems(values: NDArray[np.float64], min_present_pct: float) -> l
         f"only {n_present} of {values.size} epochs ({pct:.1f}%) have counts; at least {min_present_pct:g}% "
         "must be present" + ("" if n_present else " and a night needs at least one"),
         {"field": "counts", "values": [n_present, int(values.size)]},
+    )]
+
+
+def _plausibility_problems(values: NDArray[np.float64], epoch_seconds: int, max_per_second: float,
+                           start: pd.Timestamp | None) -> list[Problem]:
+    """``implausible_count`` for counts above ``max_per_second * epoch_seconds``, naming their epochs."""
+    limit = max_per_second * epoch_seconds
+    with np.errstate(invalid="ignore"):
+        above = np.flatnonzero(np.isfinite(values) & (values > limit))
+    if not above.size:
+        return []
+    first = int(above[0])
+    where: dict[str, Any] = {"field": "counts", "epoch": first, "epochs": _first(above),
+                             "values": [float(values[i]) for i in above[:MAX_LISTED]]}
+    if start is not None:
+        where["time"] = (start + pd.Timedelta(seconds=epoch_seconds * first)).isoformat()
+    return [Problem(
+        "implausible_count",
+        f"{above.size} count(s) exceed {limit:g} per {epoch_seconds}-s epoch ({max_per_second:g} counts per second), "
+        f"first at epoch {first} (value {values[first]:g}); no count device reports that many",
+        where,
     )]

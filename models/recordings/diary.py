@@ -42,7 +42,7 @@ import pandas as pd
 
 from ..errors import NightbankError, Problem
 from ..nights._decoding import load_json
-from ..nights.timestamps import zone_of
+from ..nights.timestamps import EARLIEST_PLAUSIBLE_DATE, LATEST_PLAUSIBLE_DATE, zone_of
 
 __all__ = ["DiaryDay", "InvalidDiaryError", "read_diary"]
 
@@ -143,6 +143,11 @@ def _build_day(cells: Mapping[str, str], naps: list[tuple[str, str]], where: dic
     except ValueError:
         problems.append(Problem("invalid_date", f"date {raw_date!r} at row {where.get('row', '?')} is not an ISO "
                                 "date YYYY-MM-DD", {**where, "field": "date"}))
+        day = None
+    if day is not None and not EARLIEST_PLAUSIBLE_DATE.year <= day.year < LATEST_PLAUSIBLE_DATE.year:
+        problems.append(Problem("implausible_date", f"date {raw_date!r} at row {where.get('row', '?')} lies outside "
+                                f"the plausible range {EARLIEST_PLAUSIBLE_DATE.date()} .. "
+                                f"{LATEST_PLAUSIBLE_DATE.date()}", {**where, "field": "date"}))
         day = None
     bed = _clock(cells.get("bed_time", ""), {**where, "field": "bed_time"}, problems)
     rise = _clock(cells.get("rise_time", ""), {**where, "field": "rise_time"}, problems)
