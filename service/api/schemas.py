@@ -133,6 +133,9 @@ class NightAccepted(BaseModel):
     source_epoch_seconds: int | None = Field(
         default=None, description="posted epoch length when the night was aggregated to the study's; else null")
     unused_columns: list[str] = Field(default_factory=list, description="columns of the file that were not read")
+    label_ignored: bool = Field(default=False, description="true when the same content was stored before under "
+                                "another label: the posted label was not stored (change it with PATCH)")
+    stored_label: str | None = Field(default=None, description="the stored night's label")
 
 
 class NightOut(BaseModel):
