@@ -18,9 +18,11 @@ from numpy.typing import NDArray
 from ..errors import InvalidNightError, Problem
 from .night import SUPPORTED_EPOCH_SECONDS, MovementTimePolicy, Night, canonical_stage
 
-__all__ = ["CodedLabels", "NightOptions", "validate_night_fields"]
+__all__ = ["MAX_LABEL_CHARS", "CodedLabels", "NightOptions", "validate_night_fields"]
 
 MAX_LISTED = 5  # offending values / locations quoted in one message
+#: longest night label, characters (what every database backend stores)
+MAX_LABEL_CHARS = 200
 
 
 @dataclass(frozen=True)
@@ -264,6 +266,10 @@ def validate_night_fields(
     if reference is not None:
         canon, ref_problems = _reference_problems(reference, n)
         problems += ref_problems
+    if label is not None and (len(label) > MAX_LABEL_CHARS or "\x00" in label):
+        problems.append(Problem("invalid_label", "label contains a NUL character (\\u0000)" if "\x00" in label
+                                else f"label has {len(label)} characters; at most {MAX_LABEL_CHARS}",
+                                {"field": "label"}))
     if start is not None and seconds is not None:
         end = start + pd.Timedelta(seconds=seconds * n)
         for name, ts in (("lights_off", lights_off), ("lights_on", lights_on)):

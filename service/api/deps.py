@@ -13,22 +13,24 @@ from __future__ import annotations
 import zlib
 from collections.abc import Awaitable, Callable, Iterator
 from dataclasses import dataclass
-from typing import Annotated
+from typing import Annotated, Any
 
 from fastapi import Depends, Path, Request, Security
 from fastapi.concurrency import run_in_threadpool
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy.orm import Session, sessionmaker
 
+from models import Problem
+
 from ..config import Settings
-from ..errors import BadRequest, Forbidden, NotFound, PayloadTooLarge, Unauthorized, UnsupportedMediaType
+from ..errors import BadRequest, Forbidden, NotFound, PayloadTooLarge, Unauthorized, Unprocessable, UnsupportedMediaType
 from ..store.db import session_scope
 from ..store.registry import ID_PATTERN
 from ..store.tokens import Principal, Role, TokenCache, verify_token
 
 __all__ = [
     "BODY_ENCODINGS", "FactoryDep", "PrincipalDep", "ReadSession", "SettingsDep", "StudyAccess", "read_body",
-    "require_lab_role", "study_access",
+    "refuse_nul", "require_lab_role", "study_access",
 ]
 
 _bearer = HTTPBearer(auto_error=False, description="Token from `nightbank token create`.")
@@ -95,15 +97,36 @@ class StudyAccess:
 def study_access(role: Role) -> Callable[..., Awaitable[StudyAccess]]:
     """Dependency for routes under ``/v1/studies/{study}`` needing at least ``role``."""
 
-    async def dependency(principal: PrincipalDep,
+    async def dependency(request: Request, principal: PrincipalDep,
                          study: Annotated[str, Path(pattern=ID_PATTERN, description="study id")]) -> StudyAccess:
         if not principal.sees(study):
             raise NotFound(f"no study {study!r}")
         _check_role(principal, role)
+        refuse_nul(dict(request.query_params), "query")
         return StudyAccess(study_id=study, principal=principal)
 
     dependency.required_role = role  # type: ignore[attr-defined]  # read by the route-table access tests
     return dependency
+
+
+def refuse_nul(values: dict[str, Any], where: str) -> None:
+    """422 ``nul_character`` naming the first field of ``values`` (texts, nested) holding a NUL character.
+
+    NUL cannot be stored in PostgreSQL text and is never meaningful in a label, name or header,
+    so it is refused everywhere text is stored, on every backend alike.
+    """
+    stack: list[tuple[str, Any]] = [(k, v) for k, v in values.items()]
+    while stack:
+        field, value = stack.pop(0)
+        if "\x00" in field or (isinstance(value, str) and "\x00" in value):
+            raise Unprocessable(f"{field.replace(chr(0), '?')} contains a NUL character (\\u0000), which is not "
+                                "stored", code="nul_character",
+                                problems=[Problem("nul_character", f"{field.replace(chr(0), '?')} contains a NUL "
+                                                  "character", {"in": where, "field": field.replace(chr(0), "?")})])
+        if isinstance(value, dict):
+            stack += [(f"{field}.{k}", v) for k, v in value.items()]
+        elif isinstance(value, list):
+            stack += [(f"{field}.{i}", v) for i, v in enumerate(value)]
 
 
 def require_lab_role(role: Role) -> Callable[..., Awaitable[Principal]]:
