@@ -270,6 +270,10 @@ def validate_night_fields(
         problems.append(Problem("invalid_label", "label contains a NUL character (\\u0000)" if "\x00" in label
                                 else f"label has {len(label)} characters; at most {MAX_LABEL_CHARS}",
                                 {"field": "label"}))
+    for column in unused_columns:
+        if "\x00" in column:
+            problems.append(Problem("nul_character", f"column header {column.replace(chr(0), '?')!r} contains a NUL "
+                                    "character (\\u0000)", {"field": "columns", "column": column.replace(chr(0), "?")}))
     if start is not None and seconds is not None:
         end = start + pd.Timedelta(seconds=seconds * n)
         for name, ts in (("lights_off", lights_off), ("lights_on", lights_on)):

@@ -22,13 +22,16 @@ PROFILES = "/v1/studies/s1/import-profiles"
 NUL = "\x00"
 
 
-def _csv_with_label(label: str) -> bytes:
+def _csv_with_label(label: str, *, extra: str | None = None) -> bytes:
+    """A CSV night with a ``# label:`` line (and an ``extra`` column of ones, unused by the reader)."""
     night = night_json(240, seed=5)
     import pandas as pd
 
     times = pd.date_range(pd.Timestamp(night["start"]), periods=240, freq="30s")
-    rows = "\n".join(f"{t.isoformat()},{c}" for t, c in zip(times, night["counts"], strict=True))
-    return f"# label: {label}\ntime,counts\n{rows}\n".encode()
+    tail = "" if extra is None else ",1"
+    rows = "\n".join(f"{t.isoformat()},{c}{tail}" for t, c in zip(times, night["counts"], strict=True))
+    header = "time,counts" + ("" if extra is None else f",{extra}")
+    return f"# label: {label}\n{header}\n{rows}\n".encode()
 
 
 def _answers(http: Any) -> list[tuple[str, int, str | None]]:
@@ -45,6 +48,8 @@ def _answers(http: Any) -> list[tuple[str, int, str | None]]:
                                                       params=OVERLAP)),
         ("source_name NUL", lambda: http.post(NIGHTS, json=night_json(240, seed=6),
                                               params={"source_name": f"f{NUL}.csv", **OVERLAP})),
+        ("csv unused header NUL", lambda: http.post(NIGHTS, content=_csv_with_label("ok", extra=f"no{NUL}te"),
+                                                    headers=csv, params=OVERLAP)),
         ("patch label NUL", lambda: http.patch(f"{NIGHTS}/{night_id}", json={"label": f"n{NUL}"})),
         ("patch label 201", lambda: http.patch(f"{NIGHTS}/{night_id}", json={"label": "x" * 201})),
         ("profile header NUL", lambda: http.post(PROFILES, json={"name": "p1", "columns": {"counts": f"a{NUL}"}})),
@@ -71,6 +76,7 @@ def _answers(http: Any) -> list[tuple[str, int, str | None]]:
 EXPECTED = [("label 201 chars", 422, "invalid_night"), ("label 200 chars", 201, None),
             ("label NUL", 422, "invalid_night"), ("csv label NUL", 422, "invalid_night"),
             ("csv label 300 chars", 422, "invalid_night"), ("source_name NUL", 422, "nul_character"),
+            ("csv unused header NUL", 422, "invalid_night"),
             ("patch label NUL", 422, "invalid_request"), ("patch label 201", 422, "invalid_request"),
             ("profile header NUL", 422, "nul_character"), ("profile code NUL", 422, "nul_character"),
             ("profile name NUL", 422, "nul_character"), ("study name NUL", 422, "invalid_request"),
