@@ -175,3 +175,23 @@ def test_a_parquet_footer_promising_millions_of_rows_is_refused_unread(
     assert _peak_mb(pid) - before < MEMORY_BOUND_MB
     body = _problem(response, 422, "too_many_epochs")
     assert "metadata" in body["problems"][0]["message"]
+
+
+def test_diaries_and_hypnograms_of_a_recording_refuse_hostile_json(http: Any, admin: dict[str, str],
+                                                                   study: str) -> None:
+    import pandas as pd
+
+    from models import RecordingSpec, simulate_recordings
+
+    sim = simulate_recordings(RecordingSpec(n_participants=1, n_days=3, psg_nights=0, id_prefix="P"), seed=3)[0]
+    csv = pd.DataFrame({"time": [t.isoformat() for t in sim.recording.timestamps()],
+                        "counts": sim.recording.counts}).to_csv(index=False, na_rep="").encode()
+    posted = http.post(RECORDINGS, content=csv, headers={**admin, "content-type": "text/csv"})
+    assert posted.status_code == 201, posted.text
+    base = f"{RECORDINGS}/{posted.json()['recording_id']}"
+    for part in ("diary", "reference"):
+        for body, code in ((b"[" * 100_000 + b"]" * 100_000, "json_too_deep"),
+                           (b'{"days": [' + b"7" * 5_000 + b"]}", "json_number_too_long")):
+            response = http.post(f"{base}/{part}", content=body, headers={**admin, **JSON}, params={"tz": "UTC"})
+            _problem(response, 422, code)
+        assert http.get(base, headers=admin).status_code == 200
