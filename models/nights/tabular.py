@@ -28,6 +28,8 @@ from .profiles import ImportProfile
 if TYPE_CHECKING:  # pyarrow has no type information: these names stand for what the values are
     import pyarrow as pa
 
+_BLANK_LINE = re.compile(r"\n(?=\r?\n)")  # a line break followed by an empty line
+
 __all__ = ["night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
 
 _DELIMITERS = (",", ";", "\t", "|")
@@ -129,6 +131,12 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
             except (ValueError, TypeError):
                 pass
     tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
+    rest = body[header_end + 1:].rstrip()
+    n_rows = rest.count("\n") + 1 - sum(1 for _ in _BLANK_LINE.finditer(rest)) if rest else 0
+    if n_rows > options.max_epochs:  # counted before any cell is parsed
+        raise InvalidNightError([Problem("too_many_epochs", f"the file has {n_rows} rows (lines counted before "
+                                         f"reading); the limit is {options.max_epochs} epochs",
+                                         {"field": "counts", "values": [n_rows, options.max_epochs]})], source=source)
     try:
         table = _read_table(_body_buffer(data, text, pos, profile), sep, decimal, roles, as_text, tz)
     except pa.ArrowInvalid as exc:

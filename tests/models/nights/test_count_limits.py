@@ -101,3 +101,11 @@ def test_parquet_with_more_rows_than_the_limit_is_refused_from_its_metadata() ->
     problem = one_problem(problems_of(night_from_parquet, buffer.getvalue(), options=NightOptions(max_epochs=299)),
                           "too_many_epochs")
     assert "metadata" in problem.message and problem.location["values"] == [300, 299]
+
+
+def test_csv_with_more_rows_than_the_limit_is_refused_before_its_cells_are_read() -> None:
+    text = night_to_csv(make_night(240))
+    problem = one_problem(problems_of(night_from_csv, text.encode(), options=NightOptions(max_epochs=239)),
+                          "too_many_epochs")
+    assert "before reading" in problem.message and problem.location["values"] == [240, 239]
+    assert night_from_csv((text + "\n\n").encode(), options=NightOptions(max_epochs=240)).n_epochs == 240
