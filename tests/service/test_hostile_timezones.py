@@ -15,7 +15,9 @@ from factories import make_night
 NIGHTS = "/v1/studies/s1/participants/P01/nights"
 PROBES = ["../../../../etc/passwd", "/etc/localtime", "/usr/share/zoneinfo/Europe/Oslo", "posixrules", "localtime",
           "zone.tab", "zone1970.tab", "tzdata.zi", "leapseconds", "Europe/../Europe/Oslo", "Europe//Oslo",
-          "./UTC", "UTC/", "Europe\\Oslo", "Europe/Oslo\x00", "Nowhere/Zone"]
+          "./UTC", "UTC/", "Europe\\Oslo", "Nowhere/Zone"]
+#: with a NUL character: refused as such (nul_character), the same for a zone that exists and one that does not
+NUL_PROBES = ["Europe/Oslo\x00", "Nowhere/Zone\x00", "/etc/localtime\x00"]
 
 
 def _naive_csv() -> bytes:
@@ -36,6 +38,8 @@ def test_night_tz_probes_answer_like_an_unknown_name(http: Any, admin: dict[str,
     for probe in PROBES:
         assert _comparable(http.post(NIGHTS, content=_naive_csv(), params={"tz": probe}, headers=csv)) == unknown, \
             probe
+    nul = [_comparable(http.post(NIGHTS, content=_naive_csv(), params={"tz": p}, headers=csv)) for p in NUL_PROBES]
+    assert nul[0][0] == 422 and nul[0][1]["code"] == "nul_character" and all(a == nul[0] for a in nul)
     assert http.post(NIGHTS, content=_naive_csv(), params={"tz": "Europe/Oslo"}, headers=csv).status_code == 201
 
 
