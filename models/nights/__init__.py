@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from .checks import (
+    MAX_LABEL_CHARS,
     CodedLabels,
     NightOptions,
     validate_night_fields,
@@ -76,6 +77,7 @@ __all__ = [
     "ImportProfile",
     "InvalidProfileError",
     "LATEST_PLAUSIBLE_DATE",
+    "MAX_LABEL_CHARS",
     "MovementTimePolicy",
     "Night",
     "NightOptions",

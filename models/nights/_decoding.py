@@ -6,8 +6,9 @@ import codecs
 import json
 import re
 from collections.abc import Mapping
-from typing import TypedDict
+from typing import Any, TypedDict
 
+import numpy as np
 import pandas as pd
 
 from ..errors import InvalidNightError, Problem
@@ -16,8 +17,18 @@ from .night import Night
 from .resample import aggregate_epochs
 from .timestamps import EARLIEST_PLAUSIBLE_DATE, ISO_8601_PATTERN, LATEST_PLAUSIBLE_DATE, zone_of
 
-__all__ = ["META_LINE", "NightMetadata", "decode_json", "decode_text", "finish_night", "metadata_fields",
-           "parse_time"]
+__all__ = ["JSON_MAX_DEPTH", "JSON_MAX_NUMBER_DIGITS", "META_LINE", "PARQUET_MAX_COLUMNS", "PARQUET_MAX_EXPANDED_BYTES",
+           "NightMetadata", "decode_json", "decode_text", "finish_night", "load_json", "metadata_fields",
+           "parquet_bounds_problem", "parse_time"]
+
+#: deepest nesting of arrays and objects accepted in a JSON file (a night needs 2)
+JSON_MAX_DEPTH = 64
+#: most digits in one JSON number (integer part, fraction and exponent each); no count needs more
+JSON_MAX_NUMBER_DIGITS = 30
+
+_JSON_STRING = re.compile(r'"(?:[^"\\]|\\.)*"', re.DOTALL)
+_NOT_BRACKET = re.compile(r"[^\[\]{}]+")
+_LONG_DIGITS = re.compile(f"[0-9]{{{JSON_MAX_NUMBER_DIGITS + 1},}}")
 
 #: an optional leading ``# key: value`` line of a CSV file
 META_LINE = re.compile(r"^#\s*([A-Za-z_]+)\s*:\s*(.*?)\s*$")
@@ -53,17 +64,82 @@ def decode_text(data: bytes | str, source: str | None, encoding: str = "utf-8") 
                                          f"(line {line}) cannot be decoded", {"row": line})], source=source) from None
 
 
+def _json_bounds_problem(text: str) -> Problem | None:
+    """``json_too_deep`` or ``json_number_too_long`` found by a scan outside strings, before parsing.
+
+    The scan is linear in the text: strings are blanked by one regular expression, then the
+    nesting depth is the running sum of opening minus closing brackets.
+    """
+    bare = _JSON_STRING.sub('""', text)
+    long_number = _LONG_DIGITS.search(bare)
+    if long_number is not None:
+        return Problem("json_number_too_long", f"a number has more than {JSON_MAX_NUMBER_DIGITS} digits "
+                       f"(at character {long_number.start()} outside strings)", {"field": "$"})
+    brackets = np.frombuffer(_NOT_BRACKET.sub("", bare).encode("ascii"), dtype=np.uint8)
+    depth, level = 0, 0
+    for at in range(0, brackets.size, 2**20):  # in chunks: the scan's memory stays a few MB
+        steps = np.where((brackets[at:at + 2**20] & 0x02) != 0, 1, -1).astype(np.int32)  # [{ vs ]}
+        running = level + np.cumsum(steps)
+        depth, level = max(depth, int(running.max())), int(running[-1])
+    if depth > JSON_MAX_DEPTH:
+        return Problem("json_too_deep", f"arrays and objects are nested {depth} deep; at most {JSON_MAX_DEPTH} "
+                       "levels are read", {"field": "$"})
+    return None
+
+
+#: most bytes a Parquet night's columns may expand to, read from the file's metadata before any data
+PARQUET_MAX_EXPANDED_BYTES = 256 * 2**20
+#: most columns a Parquet night may have
+PARQUET_MAX_COLUMNS = 64
+
+
+def parquet_bounds_problem(metadata: Any, max_rows: int) -> Problem | None:
+    """``too_many_epochs`` or ``parquet_too_large`` from a Parquet file's footer (``pyarrow`` FileMetaData).
+
+    Rows, columns and the uncompressed size of every column chunk are read from the footer, so a
+    small file that would expand to gigabytes is refused before a single page is decoded.
+    """
+    if metadata.num_rows > max_rows:
+        return Problem("too_many_epochs", f"the file has {metadata.num_rows} rows (from its metadata); the limit is "
+                       f"{max_rows} epochs", {"field": "counts", "values": [int(metadata.num_rows), max_rows]})
+    if metadata.num_columns > PARQUET_MAX_COLUMNS:
+        return Problem("parquet_too_large", f"the file has {metadata.num_columns} columns; at most "
+                       f"{PARQUET_MAX_COLUMNS} are read", {"field": "$"})
+    expanded = sum(metadata.row_group(g).column(c).total_uncompressed_size
+                   for g in range(metadata.num_row_groups) for c in range(metadata.num_columns))
+    if expanded > PARQUET_MAX_EXPANDED_BYTES:
+        return Problem("parquet_too_large", f"the file's columns expand to {expanded / 2**20:.0f} MB (from its "
+                       f"metadata); at most {PARQUET_MAX_EXPANDED_BYTES // 2**20} MB are read", {"field": "$"})
+    return None
+
+
+def load_json(text: str) -> tuple[object, Problem | None]:
+    """The JSON value of ``text`` and None, or None and the problem (bounds, syntax) naming where."""
+    found = _json_bounds_problem(text)
+    if found is not None:
+        return None, found
+    try:
+        return json.loads(text), None
+    except json.JSONDecodeError as exc:
+        return None, Problem("malformed_json", f"not valid JSON at line {exc.lineno} column {exc.colno}: "
+                             f"{exc.msg}", {"row": exc.lineno, "column": exc.colno})
+    except (ValueError, RecursionError) as exc:  # limits of the parser itself, reached despite the scan
+        return None, Problem("malformed_json", f"the JSON cannot be read: {type(exc).__name__}", {"field": "$"})
+
+
 def decode_json(data: bytes | str, source: str | None) -> object:
-    """The JSON value of a file's content; an empty file or invalid JSON is refused, naming the line."""
+    """The JSON value of a file's content; an empty file, invalid or too deeply nested JSON is refused.
+
+    Nesting deeper than :data:`JSON_MAX_DEPTH` and numbers longer than :data:`JSON_MAX_NUMBER_DIGITS`
+    digits are refused before the text is parsed (codes ``json_too_deep``, ``json_number_too_long``).
+    """
     text = decode_text(data, source)
     if not text.strip():
         raise InvalidNightError([Problem("empty_file", "the file is empty", {"row": 1})], source=source)
-    try:
-        return json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise InvalidNightError([Problem("malformed_json", f"not valid JSON at line {exc.lineno} column "
-                                         f"{exc.colno}: {exc.msg}", {"row": exc.lineno, "column": exc.colno})],
-                                source=source) from None
+    value, problem = load_json(text)
+    if problem is not None:
+        raise InvalidNightError([problem], source=source)
+    return value
 
 
 class NightMetadata(TypedDict, total=False):

@@ -18,9 +18,11 @@ from numpy.typing import NDArray
 from ..errors import InvalidNightError, Problem
 from .night import SUPPORTED_EPOCH_SECONDS, MovementTimePolicy, Night, canonical_stage
 
-__all__ = ["CodedLabels", "NightOptions", "validate_night_fields"]
+__all__ = ["MAX_LABEL_CHARS", "CodedLabels", "NightOptions", "validate_night_fields"]
 
 MAX_LISTED = 5  # offending values / locations quoted in one message
+#: longest night label, characters (what every database backend stores)
+MAX_LABEL_CHARS = 200
 
 
 @dataclass(frozen=True)
@@ -47,6 +49,11 @@ class NightOptions:
     time_column, counts_column, reference_column : str, optional
         Explicit column names; by default found through :data:`models.nights.columns.COLUMN_ALIASES`.
         An import profile's ``columns`` take precedence.
+    max_counts_per_second : float, default=10_000.0
+        Largest plausible count per second of epoch length (300,000 in a 30-s epoch); larger
+        counts, 1e308 among them, are refused (``implausible_count``) with their epochs. Common
+        practice: more than twice what a 16-bit count register holds per 15-s epoch (65,535,
+        about 4,400 counts/s), so no count device reaches it.
     min_present_pct : float, default=50.0
         Smallest accepted share (%) of present epochs, i.e. epochs whose counts are not missing
         (missing epochs come from gap filling or, with ``fill_gaps``, empty count cells). A night
@@ -65,6 +72,7 @@ class NightOptions:
     counts_column: str | None = None
     reference_column: str | None = None
     min_present_pct: float = 50.0
+    max_counts_per_second: float = 10_000.0
 
 
 def _first(idx: NDArray[np.intp]) -> list[int]:
@@ -240,6 +248,8 @@ def validate_night_fields(
     problems += count_problems
     if values is not None and n:
         problems += _presence_problems(values, options.min_present_pct)
+    if values is not None and seconds is not None:
+        problems += _plausibility_problems(values, seconds, options.max_counts_per_second, start)
     if n == 0:
         problems.append(Problem("empty_recording", "the recording has no epochs", {"field": "counts"}))
     elif seconds is not None:
@@ -256,6 +266,14 @@ def validate_night_fields(
     if reference is not None:
         canon, ref_problems = _reference_problems(reference, n)
         problems += ref_problems
+    if label is not None and (len(label) > MAX_LABEL_CHARS or "\x00" in label):
+        problems.append(Problem("invalid_label", "label contains a NUL character (\\u0000)" if "\x00" in label
+                                else f"label has {len(label)} characters; at most {MAX_LABEL_CHARS}",
+                                {"field": "label"}))
+    for column in unused_columns:
+        if "\x00" in column:
+            problems.append(Problem("nul_character", f"column header {column.replace(chr(0), '?')!r} contains a NUL "
+                                    "character (\\u0000)", {"field": "columns", "column": column.replace(chr(0), "?")}))
     if start is not None and seconds is not None:
         end = start + pd.Timedelta(seconds=seconds * n)
         for name, ts in (("lights_off", lights_off), ("lights_on", lights_on)):
@@ -289,4 +307,25 @@ def _presence_problems(values: NDArray[np.float64], min_present_pct: float) -> l
         f"only {n_present} of {values.size} epochs ({pct:.1f}%) have counts; at least {min_present_pct:g}% "
         "must be present" + ("" if n_present else " and a night needs at least one"),
         {"field": "counts", "values": [n_present, int(values.size)]},
+    )]
+
+
+def _plausibility_problems(values: NDArray[np.float64], epoch_seconds: int, max_per_second: float,
+                           start: pd.Timestamp | None) -> list[Problem]:
+    """``implausible_count`` for counts above ``max_per_second * epoch_seconds``, naming their epochs."""
+    limit = max_per_second * epoch_seconds
+    with np.errstate(invalid="ignore"):
+        above = np.flatnonzero(np.isfinite(values) & (values > limit))
+    if not above.size:
+        return []
+    first = int(above[0])
+    where: dict[str, Any] = {"field": "counts", "epoch": first, "epochs": _first(above),
+                             "values": [float(values[i]) for i in above[:MAX_LISTED]]}
+    if start is not None:
+        where["time"] = (start + pd.Timedelta(seconds=epoch_seconds * first)).isoformat()
+    return [Problem(
+        "implausible_count",
+        f"{above.size} count(s) exceed {limit:g} per {epoch_seconds}-s epoch ({max_per_second:g} counts per second), "
+        f"first at epoch {first} (value {values[first]:g}); no count device reports that many",
+        where,
     )]

@@ -14,9 +14,9 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
 from typing import Any
-from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from ..errors import NightbankError, Problem
+from .timestamps import zone_of
 
 __all__ = ["PROFILE_COLUMN_ROLES", "PROFILE_STAGE_TARGETS", "ImportProfile", "InvalidProfileError"]
 
@@ -196,10 +196,7 @@ def _problems(p: ImportProfile) -> list[Problem]:
     if p.datetime_format is not None:
         out.extend(_format_problems(p.datetime_format))
     if p.tz is not None:
-        try:
-            ZoneInfo(p.tz)
-        except (ZoneInfoNotFoundError, ValueError):
-            out.append(Problem("unknown_time_zone", f"tz {p.tz!r} is not an IANA time zone", {"field": "tz"}))
+        zone_of(p.tz, out)
     for code, target in p.stage_codes.items():
         if target not in PROFILE_STAGE_TARGETS:
             out.append(Problem("unknown_stage_target", f"stage_codes.{code} maps to {target!r}; targets are "

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InvalidNightError, Problem
-from ._decoding import META_LINE, decode_text
+from ._decoding import META_LINE, decode_text, load_json, parquet_bounds_problem
 from ._table import night_from_table
 from .checks import NightOptions
 from .columns import ColumnRoles, find_columns
@@ -27,6 +27,8 @@ from .profiles import ImportProfile
 
 if TYPE_CHECKING:  # pyarrow has no type information: these names stand for what the values are
     import pyarrow as pa
+
+_BLANK_LINE = re.compile(r"\n(?=\r?\n)")  # a line break followed by an empty line
 
 __all__ = ["night_from_csv", "night_from_parquet", "night_to_csv", "night_to_parquet"]
 
@@ -129,6 +131,12 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
             except (ValueError, TypeError):
                 pass
     tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
+    rest = body[header_end + 1:].rstrip()
+    n_rows = rest.count("\n") + 1 - sum(1 for _ in _BLANK_LINE.finditer(rest)) if rest else 0
+    if n_rows > options.max_epochs:  # counted before any cell is parsed
+        raise InvalidNightError([Problem("too_many_epochs", f"the file has {n_rows} rows (lines counted before "
+                                         f"reading); the limit is {options.max_epochs} epochs",
+                                         {"field": "counts", "values": [n_rows, options.max_epochs]})], source=source)
     try:
         table = _read_table(_body_buffer(data, text, pos, profile), sep, decimal, roles, as_text, tz)
     except pa.ArrowInvalid as exc:
@@ -228,15 +236,16 @@ def night_from_parquet(data: bytes, *, participant_id: str = "", options: NightO
     import pyarrow.parquet as pq
 
     try:
-        table = pq.read_table(io.BytesIO(data))
+        parquet = pq.ParquetFile(io.BytesIO(data))
+        too_large = parquet_bounds_problem(parquet.metadata, options.max_epochs)
+        if too_large is not None:
+            raise InvalidNightError([too_large], source=source)
+        table = parquet.read()
     except (pa.ArrowException, OSError) as exc:
         raise InvalidNightError([Problem("malformed_parquet", f"not a readable Parquet file: {exc}", {})],
                                 source=source) from None
     raw_meta = (table.schema.metadata or {}).get(b"nightbank", b"{}")
-    try:
-        meta = json.loads(raw_meta)
-    except json.JSONDecodeError:
-        meta = {}
+    meta, _ = load_json(raw_meta.decode("utf-8", "replace"))  # unreadable metadata: no lights, no label
     problems: list[Problem] = []
     roles = find_columns(table.column_names, options, profile, 0, problems)
     first_tz = getattr(table.schema.field(roles.time).type, "tz", None) if roles.time is not None else None

@@ -317,14 +317,33 @@ def _offset(delta: timedelta | None) -> str:
     return f"{sign}{abs(seconds) // 3600:02d}:{abs(seconds) % 3600 // 60:02d}"
 
 
+#: an IANA zone name's shape: letters first, then letters, digits, ``_ + -`` in up to three parts
+_ZONE_NAME = re.compile(r"[A-Za-z][A-Za-z0-9_+-]{0,29}(?:/[A-Za-z0-9_+-]{1,30}){0,2}")
+
+
+@lru_cache(maxsize=1)
+def _zone_names() -> frozenset[str]:
+    """The zone names of the zone database; ``localtime`` and ``posixrules`` are files, not zones."""
+    from zoneinfo import available_timezones
+
+    return frozenset(available_timezones()) - {"localtime", "posixrules"}
+
+
 def zone_of(tz: str, problems: list[Problem]) -> ZoneInfo | None:
-    """The IANA zone ``tz``, or None with an ``unknown_time_zone`` problem."""
-    try:
-        return ZoneInfo(tz)
-    except (ZoneInfoNotFoundError, ValueError):
-        problems.append(Problem("unknown_time_zone", f"time zone {tz!r} is not an IANA zone name (e.g. "
-                                "Europe/Berlin)", {"field": "tz"}))
-        return None
+    """The IANA zone named ``tz``, or None with an ``unknown_time_zone`` problem.
+
+    Only names of the zone database are looked up (never a path: ``../``, absolute paths and the
+    database's own files get the same problem as an unknown name, so the answer cannot tell which
+    files exist).
+    """
+    if isinstance(tz, str) and _ZONE_NAME.fullmatch(tz) and tz in _zone_names():
+        try:
+            return ZoneInfo(tz)
+        except (ZoneInfoNotFoundError, ValueError, OSError):
+            pass
+    problems.append(Problem("unknown_time_zone", "tz is not the name of an IANA time zone (e.g. Europe/Berlin)",
+                            {"field": "tz"}))
+    return None
 
 
 def localize(naive_ns: NDArray[np.int64], tz: str, quote: Quote | None, row0: int, field: str,

@@ -32,17 +32,17 @@ from __future__ import annotations
 import csv
 import datetime as dt
 import io
-import json
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
-from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import pandas as pd
 
 from ..errors import NightbankError, Problem
+from ..nights._decoding import load_json
+from ..nights.timestamps import EARLIEST_PLAUSIBLE_DATE, LATEST_PLAUSIBLE_DATE, zone_of
 
 __all__ = ["DiaryDay", "InvalidDiaryError", "read_diary"]
 
@@ -143,6 +143,11 @@ def _build_day(cells: Mapping[str, str], naps: list[tuple[str, str]], where: dic
     except ValueError:
         problems.append(Problem("invalid_date", f"date {raw_date!r} at row {where.get('row', '?')} is not an ISO "
                                 "date YYYY-MM-DD", {**where, "field": "date"}))
+        day = None
+    if day is not None and not EARLIEST_PLAUSIBLE_DATE.year <= day.year < LATEST_PLAUSIBLE_DATE.year:
+        problems.append(Problem("implausible_date", f"date {raw_date!r} at row {where.get('row', '?')} lies outside "
+                                f"the plausible range {EARLIEST_PLAUSIBLE_DATE.date()} .. "
+                                f"{LATEST_PLAUSIBLE_DATE.date()}", {**where, "field": "date"}))
         day = None
     bed = _clock(cells.get("bed_time", ""), {**where, "field": "bed_time"}, problems)
     rise = _clock(cells.get("rise_time", ""), {**where, "field": "rise_time"}, problems)
@@ -281,19 +286,14 @@ def read_diary(source: str | Path | bytes, *, fmt: str | None = None, tz: str,
     except UnicodeDecodeError as exc:
         raise InvalidDiaryError([Problem("not_utf8", f"the diary is not valid UTF-8 (byte {exc.start})",
                                          {"row": data[: exc.start].count(b"\n") + 1})], source=name) from None
-    try:
-        ZoneInfo(tz)
-    except (ZoneInfoNotFoundError, ValueError, TypeError):
-        raise InvalidDiaryError([Problem("unknown_time_zone", f"tz {tz!r} is not an IANA time zone",
-                                         {"field": "tz"})], source=name) from None
+    if zone_of(tz, problems) is None:
+        raise InvalidDiaryError(problems, source=name)
     suffix = Path(name).suffix.lower().lstrip(".") if name else ""
     fmt = fmt or (suffix if suffix in ("csv", "json") else "json" if text.lstrip()[:1] in "[{" else "csv")
     if fmt == "json":
-        try:
-            obj = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise InvalidDiaryError([Problem("malformed_json", f"not valid JSON at line {exc.lineno}: {exc.msg}",
-                                             {"row": exc.lineno})], source=name) from None
+        obj, problem = load_json(text)
+        if problem is not None:
+            raise InvalidDiaryError([problem], source=name)
         found = _json_days(obj, tz, problems)
     else:
         found = _csv_days(text, tz, problems)

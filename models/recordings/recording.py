@@ -32,7 +32,9 @@ from numpy.typing import NDArray
 
 from ..errors import InvalidNightError, Problem
 from ..nights import ImportProfile, Night, NightOptions, detect_format, night_from_csv, night_from_json
+from ..nights._decoding import decode_json
 from ..nights.tabular import night_from_parquet
+from ..nights.timestamps import zone_of
 from ._markers import csv_markers, json_markers, parquet_markers
 
 __all__ = [
@@ -202,6 +204,9 @@ def read_recording(source: str | Path | bytes, *, fmt: str | None = None, partic
         data, name = path.read_bytes(), source_name or str(path)
     fmt = fmt or detect_format(name, data)
     options = _options(tz, fill_gaps)
+    zone_problems: list[Problem] = []
+    if tz is not None and zone_of(tz, zone_problems) is None:  # stored with the recording: checked even if unused
+        raise InvalidRecordingError(zone_problems, source=name)
     try:
         if fmt == "json":
             return _from_json_bytes(data, participant_id, options, name, profile)
@@ -226,9 +231,9 @@ def _from_json_bytes(data: bytes | dict[str, Any], participant_id: str | None, o
     obj: object = data
     if isinstance(data, bytes):
         try:
-            obj = json.loads(data.decode("utf-8-sig"))
-        except (UnicodeDecodeError, json.JSONDecodeError):
-            obj = None
+            obj = decode_json(data, name)
+        except InvalidNightError as exc:  # bad byte, syntax, nesting or number length: named by the reader
+            raise InvalidRecordingError(exc.problems, source=name) from None
     if not isinstance(obj, dict):  # the night reader names the defect (bad byte, line and column, top level)
         night_from_json(data if isinstance(data, bytes) else b"", options=options, source=name)
         raise InvalidRecordingError([Problem("malformed_json", "the top level must be an object", {"field": "$"})],

@@ -10,24 +10,27 @@ Access rules, checked in this order for routes under ``/v1/studies/{study}``:
 
 from __future__ import annotations
 
+import zlib
 from collections.abc import Awaitable, Callable, Iterator
 from dataclasses import dataclass
-from typing import Annotated
+from typing import Annotated, Any
 
 from fastapi import Depends, Path, Request, Security
 from fastapi.concurrency import run_in_threadpool
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy.orm import Session, sessionmaker
 
+from models import Problem
+
 from ..config import Settings
-from ..errors import Forbidden, NotFound, PayloadTooLarge, Unauthorized
+from ..errors import BadRequest, Forbidden, NotFound, PayloadTooLarge, Unauthorized, Unprocessable, UnsupportedMediaType
 from ..store.db import session_scope
 from ..store.registry import ID_PATTERN
 from ..store.tokens import Principal, Role, TokenCache, verify_token
 
 __all__ = [
-    "FactoryDep", "PrincipalDep", "ReadSession", "SettingsDep", "StudyAccess", "read_body", "require_lab_role",
-    "study_access",
+    "BODY_ENCODINGS", "FactoryDep", "PrincipalDep", "ReadSession", "SettingsDep", "StudyAccess", "read_body",
+    "refuse_nul", "require_lab_role", "study_access",
 ]
 
 _bearer = HTTPBearer(auto_error=False, description="Token from `nightbank token create`.")
@@ -94,15 +97,36 @@ class StudyAccess:
 def study_access(role: Role) -> Callable[..., Awaitable[StudyAccess]]:
     """Dependency for routes under ``/v1/studies/{study}`` needing at least ``role``."""
 
-    async def dependency(principal: PrincipalDep,
+    async def dependency(request: Request, principal: PrincipalDep,
                          study: Annotated[str, Path(pattern=ID_PATTERN, description="study id")]) -> StudyAccess:
         if not principal.sees(study):
             raise NotFound(f"no study {study!r}")
         _check_role(principal, role)
+        refuse_nul(dict(request.query_params), "query")
         return StudyAccess(study_id=study, principal=principal)
 
     dependency.required_role = role  # type: ignore[attr-defined]  # read by the route-table access tests
     return dependency
+
+
+def refuse_nul(values: dict[str, Any], where: str) -> None:
+    """422 ``nul_character`` naming the first field of ``values`` (texts, nested) holding a NUL character.
+
+    NUL cannot be stored in PostgreSQL text and is never meaningful in a label, name or header,
+    so it is refused everywhere text is stored, on every backend alike.
+    """
+    stack: list[tuple[str, Any]] = [(k, v) for k, v in values.items()]
+    while stack:
+        field, value = stack.pop(0)
+        if "\x00" in field or (isinstance(value, str) and "\x00" in value):
+            raise Unprocessable(f"{field.replace(chr(0), '?')} contains a NUL character (\\u0000), which is not "
+                                "stored", code="nul_character",
+                                problems=[Problem("nul_character", f"{field.replace(chr(0), '?')} contains a NUL "
+                                                  "character", {"in": where, "field": field.replace(chr(0), "?")})])
+        if isinstance(value, dict):
+            stack += [(f"{field}.{k}", v) for k, v in value.items()]
+        elif isinstance(value, list):
+            stack += [(f"{field}.{i}", v) for i, v in enumerate(value)]
 
 
 def require_lab_role(role: Role) -> Callable[..., Awaitable[Principal]]:
@@ -116,15 +140,58 @@ def require_lab_role(role: Role) -> Callable[..., Awaitable[Principal]]:
     return dependency
 
 
+#: ``Content-Encoding`` of a request body -> zlib window bits (gzip with its header, deflate as zlib data)
+BODY_ENCODINGS = {"gzip": 16 + zlib.MAX_WBITS, "x-gzip": 16 + zlib.MAX_WBITS, "deflate": zlib.MAX_WBITS}
+_INFLATE_STEP = 2**20  # bytes expanded per step: the expanded body grows by at most this past the limit
+
+
+def _too_large(limit_bytes: int, what: str = "body") -> PayloadTooLarge:
+    return PayloadTooLarge(f"the {what} is larger than the limit of {limit_bytes / 2**20:g} MB",
+                           code="payload_too_large" if what == "body" else "decompressed_too_large")
+
+
 async def read_body(request: Request, limit_bytes: int) -> bytes:
-    """The request body, refused (413) as soon as it is larger than ``limit_bytes``."""
+    """The request body, refused (413) as soon as it is larger than ``limit_bytes``.
+
+    A body sent with ``Content-Encoding: gzip`` (or ``x-gzip``, ``deflate``) is expanded as it
+    arrives, in steps of at most 1 MB, and refused with 413 ``decompressed_too_large`` as soon as
+    the expanded size passes ``limit_bytes``; a broken stream gets 400 ``undecodable_body`` and
+    any other encoding 415 ``unsupported_content_encoding``. A body's memory is therefore bounded
+    by about twice ``limit_bytes`` whatever it expands to.
+    """
     declared = request.headers.get("content-length")
     if declared is not None and declared.isdigit() and int(declared) > limit_bytes:
-        raise PayloadTooLarge(f"the body is larger than the limit of {limit_bytes // 2**20} MB")
-    chunks, size = [], 0
-    async for chunk in request.stream():
-        size += len(chunk)
-        if size > limit_bytes:
-            raise PayloadTooLarge(f"the body is larger than the limit of {limit_bytes // 2**20} MB")
-        chunks.append(chunk)
+        raise _too_large(limit_bytes)
+    encoding = request.headers.get("content-encoding", "identity").strip().lower()
+    inflater = None
+    if encoding not in ("", "identity"):
+        if encoding not in BODY_ENCODINGS:
+            raise UnsupportedMediaType(f"Content-Encoding {encoding[:40]!r} is not read; send the body as is or "
+                                       f"with one of {', '.join(BODY_ENCODINGS)}", code="unsupported_content_encoding")
+        inflater = zlib.decompressobj(BODY_ENCODINGS[encoding])
+    chunks: list[bytes] = []
+    size = expanded = 0
+    try:
+        async for chunk in request.stream():
+            size += len(chunk)
+            if size > limit_bytes:
+                raise _too_large(limit_bytes)
+            if inflater is None:
+                chunks.append(chunk)
+                continue
+            data = chunk
+            while data:
+                part = inflater.decompress(data, _INFLATE_STEP)
+                expanded += len(part)
+                if expanded > limit_bytes:
+                    raise _too_large(limit_bytes, "expanded body")
+                chunks.append(part)
+                data = inflater.unconsumed_tail
+        if inflater is not None:
+            if not inflater.eof:
+                raise zlib.error("the compressed stream ends early")
+            if inflater.unused_data.strip(b"\0"):
+                raise zlib.error("data after the end of the compressed stream")
+    except zlib.error as exc:
+        raise BadRequest(f"the {encoding} body cannot be expanded: {exc}", code="undecodable_body") from None
     return b"".join(chunks)

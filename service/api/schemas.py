@@ -5,7 +5,7 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any, Generic, Literal, TypeVar
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from ..store.registry import ID_PATTERN
 
@@ -20,8 +20,32 @@ __all__ = [
 T = TypeVar("T")
 
 
+def _nul_path(value: Any, path: str) -> str | None:
+    """The path of the first text (or key) in ``value`` holding a NUL character, else None."""
+    if isinstance(value, str):
+        return path if "\x00" in value else None
+    items = value.items() if isinstance(value, dict) else enumerate(value) if isinstance(value, list) else ()
+    for key, item in items:
+        where = f"{path}.{key}" if path else str(key)
+        if isinstance(key, str) and "\x00" in key:
+            return where
+        found = _nul_path(item, where)
+        if found is not None:
+            return found
+    return None
+
+
 class _Strict(BaseModel):
     model_config = ConfigDict(strict=True, extra="forbid", allow_inf_nan=False)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _no_nul(cls, data: Any) -> Any:
+        """Text with a NUL character is refused in every field (no database stores it alike)."""
+        found = _nul_path(data, "")
+        if found is not None:
+            raise ValueError(f"{found or 'the body'} contains a NUL character (\\u0000), which is not stored")
+        return data
 
 
 # ---- problems -------------------------------------------------------------------------------
@@ -134,6 +158,9 @@ class NightAccepted(BaseModel):
     source_epoch_seconds: int | None = Field(
         default=None, description="posted epoch length when the night was aggregated to the study's; else null")
     unused_columns: list[str] = Field(default_factory=list, description="columns of the file that were not read")
+    label_ignored: bool = Field(default=False, description="true when the same content was stored before under "
+                                "another label: the posted label was not stored (change it with PATCH)")
+    stored_label: str | None = Field(default=None, description="the stored night's label")
 
 
 class NightOut(BaseModel):

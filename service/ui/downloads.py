@@ -7,7 +7,10 @@ bytes as an attachment. Access is the page's: the same sign-in, study scoping an
 from __future__ import annotations
 
 import json
+import re
+import unicodedata
 from typing import Annotated, Any
+from urllib.parse import quote
 
 import pandas as pd
 from fastapi import APIRouter, Path, Query
@@ -29,7 +32,7 @@ from .participant_view import held_out_table, load_participant_view, method_summ
 from .report_page import build_report
 from .study_view import bland_altman_pairs, bland_altman_stats, load_study_view, methods_with_pairs, participants_table
 
-__all__ = ["router"]
+__all__ = ["content_disposition", "router"]
 
 router = APIRouter()
 FormatPath = Annotated[str, Path(pattern=r"^(svg|png)$", description="figure format")]
@@ -41,10 +44,31 @@ MethodQuery = Annotated[str, Query(max_length=40, description="method shown")]
 _NIGHT_SIZE_IN = {True: (7.0, 5.4), False: (7.0, 3.6)}
 
 
+_UNSAFE_IN_NAME = re.compile(r'[\x00-\x1f\x7f/\\]+')  # control characters (line breaks too) and path separators
+_NOT_PLAIN_ASCII = re.compile(r"[^A-Za-z0-9._ +-]+")
+
+
+def content_disposition(disposition: str, filename: str) -> str:
+    """A ``Content-Disposition`` value naming ``filename`` safely for every client.
+
+    RFC 6266: ``filename="..."`` holds an ASCII fallback (accents dropped, anything but letters,
+    digits and ``. _ - +`` and blanks replaced by ``_``, so no quote, ``;`` or line break can end
+    the value), and ``filename*=UTF-8''...`` the full name percent-encoded as RFC 5987 says.
+    Control characters and path separators are replaced by ``_`` in both forms.
+    """
+    name = _UNSAFE_IN_NAME.sub("_", filename).strip().lstrip(".") or "download"
+    stem, dot, suffix = name.rpartition(".")
+    if not dot or not suffix.isascii() or not suffix.isalnum():
+        stem, suffix = name, ""
+    folded = unicodedata.normalize("NFKD", stem).encode("ascii", "ignore").decode("ascii")
+    fallback = (_NOT_PLAIN_ASCII.sub("_", folded).strip(" ._") or "download") + (f".{suffix}" if suffix else "")
+    return f"{disposition}; filename=\"{fallback}\"; filename*=UTF-8''{quote(name, safe='')}"
+
+
 def _file(body: bytes, *, media_type: str, filename: str, download: bool = True) -> Response:
     disposition = "attachment" if download else "inline"
     return Response(body, media_type=media_type,
-                    headers={"Content-Disposition": f'{disposition}; filename="{filename}"'})
+                    headers={"Content-Disposition": content_disposition(disposition, filename)})
 
 
 def _figure(body: bytes, fmt: str, stem: str, download: bool) -> Response:

@@ -91,6 +91,7 @@ _STYLE: dict[str, Any] = {
     "axes.linewidth": 0.8,
     "lines.linewidth": 1.1,
     "svg.fonttype": "none",
+    "text.parse_math": False,  # labels are the lab's text: a "$" is a dollar sign, not mathematics
     "svg.hashsalt": "nightbank",
     "figure.dpi": 100,
 }

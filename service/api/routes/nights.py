@@ -111,7 +111,9 @@ _INGEST_DOC = """Store a night (JSON, CSV or Parquet); the participant is create
 The night is stored at the study's epoch length: a night of a shorter length that divides it is
 aggregated (counts summed, reference by majority; `source_epoch_seconds` keeps the posted
 length); any other length is refused (422 `epoch_length_mismatch`). Posting the same content
-again to the same participant answers 200 with the stored night's id. Refused with 409:
+again to the same participant answers 200 with the stored night's id; the stored label stays
+(`stored_label`), and `label_ignored` is true when the post carried another label (change a
+label with `PATCH`). Refused with 409:
 
 - `duplicate_night`: another participant of the study has the same content (the message names
   them); `allow_duplicate=true` stores it anyway;
@@ -147,6 +149,7 @@ async def post_night(request: Request, access: Annotated[StudyAccess, Depends(st
     media_type = request.headers.get("content-type", "").split(";")[0].strip().lower()
 
     unused: list[str] = []
+    posted_label: list[str | None] = [None]
 
     def work() -> tuple[registry.NightInfo, bool]:
         with session_scope(factory) as session:
@@ -159,6 +162,7 @@ async def post_night(request: Request, access: Annotated[StudyAccess, Depends(st
         values = registry.night_values(night, source_format=fmt, source_epoch_seconds=source)
         values["qc"] = [*values["qc"], *flags]
         unused[:] = night.unused_columns
+        posted_label[0] = night.label
         for _ in range(3):  # a concurrent first night of the same participant may win the insert
             try:
                 with session_scope(factory, write=True) as session:
@@ -173,7 +177,8 @@ async def post_night(request: Request, access: Annotated[StudyAccess, Depends(st
     info, created = await run_in_threadpool(work)
     out = NightAccepted(night_id=info.night_id, created=created, qc=info.qc,  # type: ignore[arg-type]
                         epoch_seconds=info.epoch_seconds, source_epoch_seconds=info.source_epoch_seconds,
-                        unused_columns=unused)
+                        unused_columns=unused, stored_label=info.label,
+                        label_ignored=not created and posted_label[0] is not None and posted_label[0] != info.label)
     return JSONResponse(out.model_dump(mode="json"), status_code=201 if created else 200)
 
 

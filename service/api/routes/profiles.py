@@ -20,7 +20,7 @@ from ...store import profiles
 from ...store.db import session_scope
 from ...store.registry import ID_PATTERN
 from ...store.tokens import Role
-from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, read_body, study_access
+from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, read_body, refuse_nul, study_access
 from ..problems import problem_responses
 from ..schemas import ImportProfileOut, ProfileGuessOut
 
@@ -51,6 +51,7 @@ def save_profile(access: IngestAccess, body: ProfileBody, factory: FactoryDep,
 
     A name already saved in the study is refused (409 `profile_exists`) unless `replace=true`.
     """
+    refuse_nul(body, "body")
     for _ in range(2):  # a concurrent save of the same name may win the insert; the retry sees it
         try:
             with session_scope(factory, write=True) as session:
