@@ -91,6 +91,18 @@ class JobInfo:
     created_at: datetime
     started_at: datetime | None
     finished_at: datetime | None
+    lease_owner: str | None = None
+    lease_expires_at: datetime | None = None
+
+    def lease_state(self, now: datetime) -> str | None:
+        """``"held"`` or ``"expired"`` while running (an expired lease: its worker stopped), else None."""
+        if self.state is not JobState.running or self.lease_expires_at is None:
+            return None
+        return "held" if self.lease_expires_at >= now else "expired"
+
+    def taken_over_by(self, now: datetime) -> str | None:
+        """The worker holding the job after an earlier claim's lease ran out, else None."""
+        return self.lease_owner if self.attempts > 1 and self.lease_state(now) == "held" else None
 
 
 def _info(session: Session, row: db.Job) -> JobInfo:
@@ -101,7 +113,8 @@ def _info(session: Session, row: db.Job) -> JobInfo:
                    state=JobState(row.state), done=row.progress_done, total=row.progress_total,
                    stage=row.progress_stage, params=dict(row.params), result=row.result, error=row.error,
                    attempts=row.attempts, cancel_requested=row.cancel_requested, created_at=row.created_at,
-                   started_at=row.started_at, finished_at=row.finished_at)
+                   started_at=row.started_at, finished_at=row.finished_at, lease_owner=row.lease_owner,
+                   lease_expires_at=row.lease_expires_at)
 
 
 def _row(session: Session, job_id: str) -> db.Job:
@@ -180,7 +193,8 @@ def list_jobs(session: Session, *, study_pk: int, state: JobState | None = None,
                     state=JobState(row.state), done=row.progress_done, total=row.progress_total,
                     stage=row.progress_stage, params=dict(row.params), result=row.result, error=row.error,
                     attempts=row.attempts, cancel_requested=row.cancel_requested, created_at=row.created_at,
-                    started_at=row.started_at, finished_at=row.finished_at) for row, study_id, pid in rows], int(total)
+                    started_at=row.started_at, finished_at=row.finished_at, lease_owner=row.lease_owner,
+                    lease_expires_at=row.lease_expires_at) for row, study_id, pid in rows], int(total)
 
 
 def cancel_job(session: Session, job_id: str, *, actor: str) -> JobInfo:
