@@ -57,6 +57,7 @@ __all__ = [
     "list_jobs",
     "release_job",
     "report_progress",
+    "withdraw_jobs",
 ]
 
 
@@ -214,6 +215,27 @@ def cancel_job(session: Session, job_id: str, *, actor: str) -> JobInfo:
                  subject=job_id)
     session.flush()
     return _info(session, row)
+
+
+def withdraw_jobs(session: Session, *, participant_pk: int) -> list[str]:
+    """End a withdrawn participant's queued and running trainings as cancelled (``participant_withdrawn``).
+
+    Runs in the withdrawal's transaction, before the participant row is deleted: the jobs are detached
+    from it (``participant_pk`` NULL, so they outlive it and stay readable by the study's analysts) and
+    their lease is dropped, so a worker still training one stops at its next heartbeat or progress step
+    and can store nothing. Returns the ids of the jobs ended.
+    """
+    rows = session.scalars(select(db.Job).where(db.Job.participant_pk == participant_pk,
+                                                db.Job.state.in_([JobState.queued.value, JobState.running.value])))
+    ended = []
+    for row in rows.all():
+        row.state, row.active_key, row.finished_at = JobState.cancelled.value, None, db.utcnow()
+        row.lease_owner, row.lease_expires_at, row.participant_pk = None, None, None
+        row.progress_stage = "cancelled"
+        row.error = "participant_withdrawn: the participant was withdrawn from the study; nothing was stored"
+        ended.append(row.job_id)
+    session.flush()
+    return ended
 
 
 def count_jobs_by_state(session: Session) -> dict[str, int]:
