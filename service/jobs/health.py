@@ -19,7 +19,7 @@ from ..store import db
 from .queue import JobState
 from .supervisor import read_status
 
-__all__ = ["QueueHealth", "queue_health"]
+__all__ = ["QueueHealth", "count_jobs_by_study", "queue_health"]
 
 
 @dataclass(frozen=True)
@@ -54,3 +54,13 @@ def queue_health(session: Session, *, now: datetime, lease_s: float) -> QueueHea
         problem = f"{queued} training job(s) queued and no training worker alive ({where})"
     return QueueHealth(workers_alive=alive, supervised_workers=None if status is None else len(status.pids),
                        jobs_queued=int(queued), oldest_queued_age_s=age_s, problem=problem)
+
+
+def count_jobs_by_study(session: Session) -> dict[str, dict[str, int]]:
+    """Jobs per study id and state (every study and state present, zeros included)."""
+    out = {str(sid): {state.value: 0 for state in JobState} for sid in session.scalars(select(db.Study.study_id))}
+    for sid, state, n in session.execute(select(db.Study.study_id, db.Job.state, func.count())
+                                         .join(db.Job, db.Job.study_pk == db.Study.pk)
+                                         .group_by(db.Study.study_id, db.Job.state)):
+        out[str(sid)][str(state)] = int(n)
+    return out

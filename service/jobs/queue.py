@@ -238,9 +238,10 @@ def withdraw_jobs(session: Session, *, participant_pk: int) -> list[str]:
     return ended
 
 
-def count_jobs_by_state(session: Session) -> dict[str, int]:
-    """Number of jobs in each state (every state present, zeros included)."""
-    counts = dict(session.execute(select(db.Job.state, func.count()).group_by(db.Job.state)).all())
+def count_jobs_by_state(session: Session, *, study_pk: int | None = None) -> dict[str, int]:
+    """Number of jobs in each state (every state present, zeros included), of one study if given."""
+    where = [] if study_pk is None else [db.Job.study_pk == study_pk]
+    counts = dict(session.execute(select(db.Job.state, func.count()).where(*where).group_by(db.Job.state)).all())
     return {state.value: int(counts.get(state.value, 0)) for state in JobState}
 
 

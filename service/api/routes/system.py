@@ -7,10 +7,11 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import JSONResponse, PlainTextResponse
 from pydantic import BaseModel, Field
-from sqlalchemy import text
+from sqlalchemy import select, text
 
-from ...jobs.health import queue_health
+from ...jobs.health import count_jobs_by_study, queue_health
 from ...jobs.queue import count_jobs_by_state
+from ...store import db
 from ...store.db import utcnow
 from ...store.tokens import Principal, Role
 from ...telemetry import METRICS_MEDIA_TYPE, Metrics
@@ -45,7 +46,18 @@ def healthz(session: ReadSession, settings: SettingsDep) -> Any:
 @router.get("/metrics", response_class=PlainTextResponse,
             responses={200: {"content": {"text/plain": {"schema": {"type": "string"}}}}})
 def metrics(request: Request, session: ReadSession,
-            _: Annotated[Principal, Depends(require_lab_role(Role.ingest))]) -> PlainTextResponse:
-    """Prometheus text: requests and latencies (every HTTP worker process), and jobs by state."""
+            principal: Annotated[Principal, Depends(require_lab_role(Role.ingest))]) -> PlainTextResponse:
+    """Prometheus text: requests and latencies (every HTTP worker process) and jobs by state.
+
+    A study token gets its own study's job counts only; lab-wide admins also get them per study.
+    """
     metrics: Metrics = request.app.state.metrics
-    return PlainTextResponse(metrics.render(jobs_by_state=count_jobs_by_state(session)), media_type=METRICS_MEDIA_TYPE)
+    if principal.study_id is None:
+        by_state = count_jobs_by_state(session)
+        by_study = count_jobs_by_study(session) if principal.role >= Role.admin else None
+    else:
+        study_pk = session.scalar(select(db.Study.pk).where(db.Study.study_id == principal.study_id))
+        by_state = count_jobs_by_state(session, study_pk=-1 if study_pk is None else study_pk)
+        by_study = None
+    return PlainTextResponse(metrics.render(jobs_by_state=by_state, jobs_by_study=by_study),
+                             media_type=METRICS_MEDIA_TYPE)
