@@ -12,7 +12,8 @@ reports the sum over all of them, whichever process answers
 (:class:`prometheus_client.multiprocess.MultiProcessCollector`). A process that stops marks
 itself dead; the counts it made stay in the totals. Without that variable (one HTTP process,
 tests, an app built in-process) the metrics are those of the :class:`Metrics` object. The job
-counts come from the database at each scrape.
+counts come from the database at each scrape: a study token gets its own study's counts only, and
+only lab-wide admin tokens get the per-study series ``nightbank_study_jobs{study=...}``.
 """
 
 from __future__ import annotations
@@ -45,16 +46,24 @@ METRICS_MEDIA_TYPE = CONTENT_TYPE_PLAIN_0_0_4
 
 
 class _JobCounts(Collector):
-    """The ``nightbank_jobs`` gauge from counts read at scrape time."""
+    """The ``nightbank_jobs`` gauge (and ``nightbank_study_jobs`` when given) from counts read at scrape time."""
 
-    def __init__(self, jobs_by_state: dict[str, int]) -> None:
-        self.jobs_by_state = jobs_by_state
+    def __init__(self, jobs_by_state: dict[str, int], jobs_by_study: dict[str, dict[str, int]] | None) -> None:
+        self.jobs_by_state, self.jobs_by_study = jobs_by_state, jobs_by_study
 
     def collect(self) -> Iterable[Metric]:
-        family = GaugeMetricFamily("nightbank_jobs", "Training jobs in the database by state.", labels=["state"])
+        family = GaugeMetricFamily("nightbank_jobs", "Training jobs in the database by state (of the token's "
+                                   "study for a study token).", labels=["state"])
         for state, n in self.jobs_by_state.items():
             family.add_metric([state], n)
         yield family
+        if self.jobs_by_study is not None:
+            per_study = GaugeMetricFamily("nightbank_study_jobs", "Training jobs by study and state (lab-wide "
+                                          "admin tokens only).", labels=["study", "state"])
+            for study, counts in self.jobs_by_study.items():
+                for state, n in counts.items():
+                    per_study.add_metric([study, state], n)
+            yield per_study
 
 
 class Metrics:
@@ -89,15 +98,20 @@ class Metrics:
         self.requests.labels(method, route, str(status)).inc()
         self.latency.labels(method, route).observe(seconds)
 
-    def render(self, *, jobs_by_state: dict[str, int]) -> bytes:
-        """Prometheus text format (version 0.0.4) of the request metrics and the job counts."""
+    def render(self, *, jobs_by_state: dict[str, int], jobs_by_study: dict[str, dict[str, int]] | None = None) -> bytes:
+        """Prometheus text format (version 0.0.4) of the request metrics and the job counts.
+
+        ``jobs_by_study`` (study id -> state -> count) adds the per-study series; the caller gives
+        it to lab-wide admins only. The request series are labelled by route template, never by a
+        concrete path, so they name no study.
+        """
         if self.folder is not None:
             registry = CollectorRegistry()
             MultiProcessCollector(registry, path=self.folder)
         else:
             assert self._registry is not None
             registry = self._registry
-        return generate_latest(registry) + generate_latest(_JobCounts(jobs_by_state))
+        return generate_latest(registry) + generate_latest(_JobCounts(jobs_by_state, jobs_by_study))
 
     def close(self) -> None:
         """Mark this process dead in the multi-process folder (its counts stay in the totals)."""

@@ -243,6 +243,12 @@ class JobOut(BaseModel):
     created_at: datetime
     started_at: datetime | None
     finished_at: datetime | None
+    lease: Literal["held", "expired"] | None = Field(
+        None, description="while running: 'expired' when its worker stopped and no other worker took it yet")
+    worker: str | None = Field(None, description="the worker holding the job while running")
+    taken_over_by: str | None = Field(None, description="the worker that took the job after an expired lease")
+    reason: str | None = Field(None, description="why a job was cancelled: 'cancel_requested' or "
+                                                 "'participant_withdrawn'")
 
 
 class FlaggedTrainingNightOut(BaseModel):

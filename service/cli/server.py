@@ -5,6 +5,9 @@ from __future__ import annotations
 import contextlib
 import logging.config
 import os
+import shutil
+import signal
+import tempfile
 from typing import Annotated, Any
 
 import typer
@@ -96,7 +99,8 @@ def serve(
     import uvicorn
 
     from ..config import get_settings
-    from ..jobs.workers import settings_env, start_worker_processes, stop_worker_processes
+    from ..jobs.supervisor import STATUS_ENV, WorkerSupervisor
+    from ..jobs.workers import settings_env
     from ..store.db import make_engine
     from ..store.schema import check_schema, upgrade
     from ..telemetry import multiprocess_folder
@@ -112,7 +116,13 @@ def serve(
         engine.dispose()
     os.environ.update(settings_env(settings))  # the app factory and the workers read these
     get_settings.cache_clear()
-    processes = start_worker_processes(settings, settings.job_workers)
+    status_dir = tempfile.mkdtemp(prefix="nightbank-workers-")
+    os.environ[STATUS_ENV] = os.path.join(status_dir, "status.json")  # read by /healthz in every HTTP process
+    status_path = os.environ[STATUS_ENV] if settings.job_workers else None
+    supervisor = WorkerSupervisor(settings, settings.job_workers, status_path=status_path).start()
+    # uvicorn restores this handler after its own graceful shutdown and raises the signal again: leaving
+    # through SystemExit lets the ``finally`` below stop the training workers
+    signal.signal(signal.SIGTERM, _leave)
     console.print(f"nightbank on http://{settings.host}:{settings.port} (docs /docs), {settings.workers} HTTP "
                   f"worker(s), {settings.job_workers} training worker(s){_where(settings)}; database "
                   f"{_safe_url(settings.db)}")
@@ -122,7 +132,12 @@ def serve(
             uvicorn.run("service.app:app_from_env", factory=True, host=settings.host, port=settings.port,
                         workers=settings.workers, access_log=False, log_config=log_config(settings.log_level))
     finally:
-        stop_worker_processes(processes)
+        supervisor.stop()
+        shutil.rmtree(status_dir, ignore_errors=True)
+
+
+def _leave(*_: object) -> None:
+    raise SystemExit(0)
 
 
 def _where(settings: Any) -> str:

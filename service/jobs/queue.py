@@ -57,6 +57,7 @@ __all__ = [
     "list_jobs",
     "release_job",
     "report_progress",
+    "withdraw_jobs",
 ]
 
 
@@ -91,6 +92,18 @@ class JobInfo:
     created_at: datetime
     started_at: datetime | None
     finished_at: datetime | None
+    lease_owner: str | None = None
+    lease_expires_at: datetime | None = None
+
+    def lease_state(self, now: datetime) -> str | None:
+        """``"held"`` or ``"expired"`` while running (an expired lease: its worker stopped), else None."""
+        if self.state is not JobState.running or self.lease_expires_at is None:
+            return None
+        return "held" if self.lease_expires_at >= now else "expired"
+
+    def taken_over_by(self, now: datetime) -> str | None:
+        """The worker holding the job after an earlier claim's lease ran out, else None."""
+        return self.lease_owner if self.attempts > 1 and self.lease_state(now) == "held" else None
 
 
 def _info(session: Session, row: db.Job) -> JobInfo:
@@ -101,7 +114,8 @@ def _info(session: Session, row: db.Job) -> JobInfo:
                    state=JobState(row.state), done=row.progress_done, total=row.progress_total,
                    stage=row.progress_stage, params=dict(row.params), result=row.result, error=row.error,
                    attempts=row.attempts, cancel_requested=row.cancel_requested, created_at=row.created_at,
-                   started_at=row.started_at, finished_at=row.finished_at)
+                   started_at=row.started_at, finished_at=row.finished_at, lease_owner=row.lease_owner,
+                   lease_expires_at=row.lease_expires_at)
 
 
 def _row(session: Session, job_id: str) -> db.Job:
@@ -180,7 +194,8 @@ def list_jobs(session: Session, *, study_pk: int, state: JobState | None = None,
                     state=JobState(row.state), done=row.progress_done, total=row.progress_total,
                     stage=row.progress_stage, params=dict(row.params), result=row.result, error=row.error,
                     attempts=row.attempts, cancel_requested=row.cancel_requested, created_at=row.created_at,
-                    started_at=row.started_at, finished_at=row.finished_at) for row, study_id, pid in rows], int(total)
+                    started_at=row.started_at, finished_at=row.finished_at, lease_owner=row.lease_owner,
+                    lease_expires_at=row.lease_expires_at) for row, study_id, pid in rows], int(total)
 
 
 def cancel_job(session: Session, job_id: str, *, actor: str) -> JobInfo:
@@ -202,9 +217,31 @@ def cancel_job(session: Session, job_id: str, *, actor: str) -> JobInfo:
     return _info(session, row)
 
 
-def count_jobs_by_state(session: Session) -> dict[str, int]:
-    """Number of jobs in each state (every state present, zeros included)."""
-    counts = dict(session.execute(select(db.Job.state, func.count()).group_by(db.Job.state)).all())
+def withdraw_jobs(session: Session, *, participant_pk: int) -> list[str]:
+    """End a withdrawn participant's queued and running trainings as cancelled (``participant_withdrawn``).
+
+    Runs in the withdrawal's transaction, before the participant row is deleted: the jobs are detached
+    from it (``participant_pk`` NULL, so they outlive it and stay readable by the study's analysts) and
+    their lease is dropped, so a worker still training one stops at its next heartbeat or progress step
+    and can store nothing. Returns the ids of the jobs ended.
+    """
+    rows = session.scalars(select(db.Job).where(db.Job.participant_pk == participant_pk,
+                                                db.Job.state.in_([JobState.queued.value, JobState.running.value])))
+    ended = []
+    for row in rows.all():
+        row.state, row.active_key, row.finished_at = JobState.cancelled.value, None, db.utcnow()
+        row.lease_owner, row.lease_expires_at, row.participant_pk = None, None, None
+        row.progress_stage = "cancelled"
+        row.error = "participant_withdrawn: the participant was withdrawn from the study; nothing was stored"
+        ended.append(row.job_id)
+    session.flush()
+    return ended
+
+
+def count_jobs_by_state(session: Session, *, study_pk: int | None = None) -> dict[str, int]:
+    """Number of jobs in each state (every state present, zeros included), of one study if given."""
+    where = [] if study_pk is None else [db.Job.study_pk == study_pk]
+    counts = dict(session.execute(select(db.Job.state, func.count()).where(*where).group_by(db.Job.state)).all())
     return {state.value: int(counts.get(state.value, 0)) for state in JobState}
 
 

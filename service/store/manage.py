@@ -61,7 +61,10 @@ def delete_participant(session: Session, *, study_id: str, participant_id: str, 
     }
     for version in pooled:
         session.execute(delete(db.ModelVersion).where(db.ModelVersion.pk == version.pk))
-    # foreign keys cascade to nights, scorings, features, personal versions and jobs
+    from ..jobs.queue import withdraw_jobs  # deferred: the job queue builds on the store
+
+    withdraw_jobs(session, participant_pk=participant.pk)  # active trainings end as cancelled and stay readable
+    # foreign keys cascade to nights, scorings, features, personal versions and finished jobs
     session.execute(delete(db.Participant).where(db.Participant.pk == participant.pk))
     record_audit(session, actor=actor, action="participant.delete", study_id=study_id, subject=participant_id,
                  detail=removed)

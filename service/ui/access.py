@@ -20,14 +20,25 @@ The cookie is protected the way a session id would be:
   ``X-Forwarded-Proto: https``);
 - a lifetime of :data:`COOKIE_MAX_AGE_S` (8 hours); signing out deletes it.
 
-State-changing requests (sign-in, sign-out, training) are POST forms; besides SameSite, they are
-refused when the browser reports an ``Origin`` other than the page's own.
+State-changing requests (sign-in, sign-out, training) are POST forms, checked by :func:`check_form`:
+
+- the forms of a signed-in browser (sign-out, training) carry a form token (field
+  :data:`CSRF_FIELD`) that must match the session: an HMAC-SHA256 of the session cookie, a
+  per-session synchroniser token that needs no server state (the pages work behind several HTTP
+  processes) and that another site cannot compute, the cookie being unreadable to it;
+- every form (sign-in included, which has no session yet to bind a token to) is refused when its
+  ``Origin`` names another site, when it has no ``Origin`` and its ``Referer`` names another site,
+  or when the browser marks it ``Sec-Fetch-Site: cross-site``.
 """
 
 from __future__ import annotations
 
+import hashlib
+import hmac
+from contextvars import ContextVar
 from dataclasses import dataclass
 from typing import Annotated, cast
+from urllib.parse import urlsplit
 
 from fastapi import Depends, Path, Request
 from fastapi.responses import Response
@@ -42,12 +53,15 @@ __all__ = [
     "COOKIE_MAX_AGE_S",
     "COOKIE_NAME",
     "COOKIE_PATH",
+    "CSRF_FIELD",
+    "RENDERING",
     "PageAccess",
     "SignInRequired",
     "StudyPage",
     "UI_PREFIX",
-    "check_origin",
+    "check_form",
     "clear_cookie",
+    "csrf_token",
     "page_principal",
     "page_principal_or_none",
     "safe_next",
@@ -61,6 +75,10 @@ UI_PREFIX = "/ui"
 COOKIE_NAME = "nightbank_ui"
 COOKIE_PATH = UI_PREFIX
 COOKIE_MAX_AGE_S = 8 * 3600
+#: Name of the hidden form field that carries the form token.
+CSRF_FIELD = "csrf_token"
+#: The request whose page is being rendered (set around template rendering, read by ``csrf_token()``).
+RENDERING: ContextVar[Request | None] = ContextVar("nightbank_rendering", default=None)
 
 
 class SignInRequired(Unauthorized):
@@ -102,21 +120,57 @@ def clear_cookie(response: Response, request: Request) -> None:
                            secure=_is_https(request))
 
 
-def check_origin(request: Request) -> None:
-    """Refuse a form post whose ``Origin`` header names another site.
+def _session_form_token(session_token: str) -> str:
+    return hmac.new(session_token.encode(), b"nightbank form token v1", hashlib.sha256).hexdigest()
+
+
+def csrf_token(request: Request | None = None) -> str:
+    """The form token of ``request``'s session (default: the page being rendered); empty when signed out."""
+    request = request or RENDERING.get()
+    session = None if request is None else request.cookies.get(COOKIE_NAME)
+    return _session_form_token(session) if session else ""
+
+
+def _cross_site(request: Request) -> str | None:
+    own = {f"{request.url.scheme}://{request.url.netloc}", f"https://{request.url.netloc}"}
+    if request.headers.get("sec-fetch-site", "").strip().lower() == "cross-site":
+        return "the browser reports that this form was sent from another site"
+    origin = request.headers.get("origin")
+    if origin is not None:
+        return None if origin in own else "this form may only be sent from nightbank's own pages"
+    referer = request.headers.get("referer")
+    if referer:
+        parts = urlsplit(referer)
+        if f"{parts.scheme}://{parts.netloc}" not in own:
+            return "this form may only be sent from nightbank's own pages (it came from another site)"
+    return None
+
+
+def check_form(request: Request, submitted: str | None, *, signin: bool = False) -> None:
+    """Refuse a form post from another site or without this browser's form token.
+
+    Parameters
+    ----------
+    submitted : str or None
+        The :data:`CSRF_FIELD` value of the form.
+    signin : bool, default=False
+        The sign-in form: only the cross-site checks (there is no session to bind a token to).
 
     Raises
     ------
     Forbidden
-        If ``Origin`` is present and differs from the page's scheme, host and port.
+        If the request is cross-site (``Sec-Fetch-Site``, ``Origin`` or ``Referer``) or the token is
+        missing or wrong.
     """
-    origin = request.headers.get("origin")
-    if origin is None:
+    why = _cross_site(request)
+    if why is not None:
+        raise Forbidden(why)
+    if signin:
         return
-    own = f"{request.url.scheme}://{request.url.netloc}"
-    forwarded = f"https://{request.url.netloc}"
-    if origin not in (own, forwarded):
-        raise Forbidden("this form may only be sent from nightbank's own pages")
+    expected = csrf_token(request)
+    if not expected or not submitted or not hmac.compare_digest(expected.encode(), submitted.encode()):
+        raise Forbidden("this form has expired or was not sent from nightbank's pages; reload the page and "
+                        "send it again")
 
 
 def safe_next(target: str | None, default: str) -> str:

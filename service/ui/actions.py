@@ -19,13 +19,14 @@ from ..jobs import queue as jobs
 from ..jobs.training import queue_training
 from ..store.db import session_scope
 from ..store.tokens import Principal, Role
-from .access import UI_PREFIX, StudyPage, check_origin, page_principal
+from .access import CSRF_FIELD, UI_PREFIX, StudyPage, check_form, page_principal
 from .pages import ParticipantPath
 
 __all__ = ["router"]
 
 router = APIRouter()
 Trials = Annotated[int | None, Form(ge=1, le=500, description="hyper-parameter trials per search")]
+FormToken = Annotated[str | None, Form(alias=CSRF_FIELD, max_length=200, description="the page's form token")]
 
 
 def _params(n_trials: int | None, default: int) -> dict[str, Any]:
@@ -34,10 +35,10 @@ def _params(n_trials: int | None, default: int) -> dict[str, Any]:
 
 @router.post("/studies/{study}/participants/{pid}/training")
 def train_personal(request: Request, access: StudyPage, pid: ParticipantPath, factory: FactoryDep,
-                   settings: SettingsDep, n_trials: Trials = None) -> RedirectResponse:
+                   settings: SettingsDep, n_trials: Trials = None, csrf: FormToken = None) -> RedirectResponse:
     """Queue a personal training (analyst) and go back to the participant page, which shows its progress."""
-    check_origin(request)
     access.require(Role.analyst)
+    check_form(request, csrf)
     job, _ = queue_training(factory, study_id=access.study_id, participant_id=pid,
                             params=_params(n_trials, settings.n_trials), actor=access.actor)
     return RedirectResponse(f"{UI_PREFIX}/studies/{access.study_id}/participants/{pid}?job={job.job_id}#training",
@@ -46,10 +47,10 @@ def train_personal(request: Request, access: StudyPage, pid: ParticipantPath, fa
 
 @router.post("/studies/{study}/pooled/training")
 def train_pooled(request: Request, access: StudyPage, factory: FactoryDep, settings: SettingsDep,
-                 n_trials: Trials = None) -> RedirectResponse:
+                 n_trials: Trials = None, csrf: FormToken = None) -> RedirectResponse:
     """Queue the study's pooled training (analyst) and go back to the study page."""
-    check_origin(request)
     access.require(Role.analyst)
+    check_form(request, csrf)
     job, _ = queue_training(factory, study_id=access.study_id, participant_id=None,
                             params=_params(n_trials, settings.n_trials), actor=access.actor)
     return RedirectResponse(f"{UI_PREFIX}/studies/{access.study_id}?job={job.job_id}#training", status_code=303)

@@ -18,10 +18,11 @@ from ..store.db import session_scope
 from ..store.registry import StudyInfo
 from ..store.tokens import Principal
 from .access import (
+    CSRF_FIELD,
     UI_PREFIX,
     PageAccess,
     StudyPage,
-    check_origin,
+    check_form,
     clear_cookie,
     page_principal,
     safe_next,
@@ -113,7 +114,7 @@ def signin_form(request: Request, next: Annotated[str | None, Query(max_length=5
 def signin(request: Request, token: Annotated[str, Form(max_length=200)],
            next: Annotated[str, Form(max_length=500)] = "") -> Response:  # noqa: A002
     """Check the token and keep it in the session cookie."""
-    check_origin(request)
+    check_form(request, None, signin=True)
     try:
         principal = sign_in(request, token)
     except Unauthorized:
@@ -126,9 +127,10 @@ def signin(request: Request, token: Annotated[str, Form(max_length=200)],
 
 
 @router.post("/signout")
-def signout(request: Request) -> RedirectResponse:
+def signout(request: Request,
+            csrf: Annotated[str | None, Form(alias=CSRF_FIELD, max_length=200)] = None) -> RedirectResponse:
     """Forget the session cookie."""
-    check_origin(request)
+    check_form(request, csrf)
     response = RedirectResponse(f"{UI_PREFIX}/signin", status_code=303)
     clear_cookie(response, request)
     return response

@@ -14,7 +14,7 @@ from fastapi.templating import Jinja2Templates
 from models import DEMO_STUDY_ID
 
 from ..store.tokens import Principal
-from .access import UI_PREFIX
+from .access import RENDERING, UI_PREFIX, csrf_token
 from .figures import PARAMETER_LABELS, PARAMETER_UNITS, style_of
 
 __all__ = ["CAUTIONS", "TEMPLATES", "is_simulated", "method_label", "number", "page", "parameter_label", "records"]
@@ -60,6 +60,7 @@ TEMPLATES.env.filters["parameter_label"] = parameter_label
 TEMPLATES.env.filters["method_label"] = method_label
 TEMPLATES.env.globals["CAUTIONS"] = CAUTIONS
 TEMPLATES.env.globals["ui"] = UI_PREFIX
+TEMPLATES.env.globals["csrf_token"] = csrf_token
 
 
 def records(frame: pd.DataFrame) -> list[dict[str, Any]]:
@@ -76,4 +77,8 @@ def page(request: Request, template: str, *, principal: Principal | None, status
          **context: Any) -> HTMLResponse:
     """Render ``template`` with the shared context (viewer, role, cautions)."""
     shared = {"principal": principal, "role": None if principal is None else principal.role.name}
-    return TEMPLATES.TemplateResponse(request, template, shared | context, status_code=status_code)
+    rendering = RENDERING.set(request)  # the forms' token field reads it, also inside imported macros
+    try:
+        return TEMPLATES.TemplateResponse(request, template, shared | context, status_code=status_code)
+    finally:
+        RENDERING.reset(rendering)

@@ -13,7 +13,7 @@ from ...jobs import queue as jobs
 from ...jobs.queue import JobInfo
 from ...jobs.training import queue_training, refresh_choices
 from ...store import registry, versions
-from ...store.db import session_scope
+from ...store.db import session_scope, utcnow
 from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
@@ -61,10 +61,16 @@ def train_pooled(access: AnalystAccess, factory: FactoryDep, settings: SettingsD
 
 
 def _job_out(job: JobInfo) -> JobOut:
+    now = utcnow()
+    lease = job.lease_state(now)
+    reason = None
+    if job.state is jobs.JobState.cancelled:
+        reason = (job.error or "").split(":", 1)[0] if job.error else "cancel_requested"
     return JobOut(job_id=job.job_id, kind=job.kind, study_id=job.study_id, participant_id=job.participant_id,
                   state=job.state.value, progress=Progress(done=job.done, total=job.total, stage=job.stage),
                   error=job.error, result=job.result, attempts=job.attempts, created_at=job.created_at,
-                  started_at=job.started_at, finished_at=job.finished_at)
+                  started_at=job.started_at, finished_at=job.finished_at, lease=lease,  # type: ignore[arg-type]
+                  worker=job.lease_owner if lease else None, taken_over_by=job.taken_over_by(now), reason=reason)
 
 
 def _visible_job(session: Any, job_id: str, principal: Principal) -> JobInfo:
