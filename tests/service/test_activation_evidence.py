@@ -84,3 +84,6 @@ def test_second_version_records_the_paired_comparison_and_its_fresh_nights(http,
     assert card["validation"]["activation"] == {k: second[k] for k in card["validation"]["activation"]}
     assert card["validation"]["selection_figures"].startswith("selection figures")
     assert "### Activation" in markdown and "| not used to decide | 1 |" in markdown
+    # the validation report's model card says it beside the held-out figures
+    report = http.get(f"/v1/studies/{study}/report", headers=admin)
+    assert report.status_code == 200 and card["validation"]["selection_figures"] in report.text
