@@ -10,7 +10,8 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 from ..store.registry import ID_PATTERN
 
 __all__ = [
-    "FlaggedTrainingNightOut", "ImportProfileOut", "JobAccepted", "JobOut", "MarkedVersion", "ModelVersionOut",
+    "ActivationOut", "FlaggedTrainingNightOut", "ImportProfileOut", "JobAccepted", "JobOut", "MarkedVersion",
+    "ModelVersionOut",
     "NightAccepted", "NightDeleted", "NightDetailOut", "NightIn", "NightOut", "NightPatch", "Page", "ParticipantOut",
     "Problem", "ProblemItem", "ProfileGuessOut", "Progress", "QCFlagOut", "RenameIn", "RenameOut", "RenumberedVersion",
     "ScoringOut",
@@ -259,6 +260,22 @@ class FlaggedTrainingNightOut(BaseModel):
     label: str | None = None
 
 
+class ActivationOut(BaseModel):
+    metric: str
+    method: str
+    activate: bool = Field(description="whether the version became active when it was stored")
+    against_version: int | None = Field(description="the version active then (null: none was)")
+    compared_nights: list[str] = Field(description="content hashes of the nights both versions held out; "
+                                                   "the comparison used them")
+    candidate_value: float | None = Field(description="this version's mean over compared_nights")
+    active_value: float | None = Field(description="the then active version's mean over compared_nights")
+    fresh_nights: list[str] = Field(description="this version's other held-out nights")
+    fresh_value: float | None = Field(description="this version's mean over fresh_nights (not used to decide)")
+    selection_free: bool = Field(description="false: every held-out figure of this version was used to decide "
+                                             "its activation, so its metrics are selection figures (optimistic)")
+    note: str
+
+
 class ModelVersionOut(BaseModel):
     version: int
     kind: str
@@ -282,6 +299,9 @@ class ModelVersionOut(BaseModel):
         default_factory=list, description="training nights that carried a warning QC code when the model was "
                                           "trained (reference_implausible: a reference stored with "
                                           "accept_implausible); empty for versions stored before this was recorded")
+    activation: ActivationOut | None = Field(
+        default=None, description="the held-out comparison that decided activation when the version was stored; "
+                                  "null for versions stored before this was recorded")
 
 
 # ---- import profiles ------------------------------------------------------------------------

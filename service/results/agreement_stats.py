@@ -9,7 +9,9 @@ Built from the comparison's tables (:func:`models.comparison_tables`) under the 
 - ``participant_epochs``: epoch-by-epoch figures per participant (their nights pooled) and the
   group mean with a participant-bootstrap CI (:func:`models.participant_epoch_figures`);
 - ``paired_differences``: per-participant paired differences of an epoch metric: personal −
-  pooled, personal − pooled+offset, and each model (auto included) − the best classical rule;
+  pooled, personal − pooled+offset, and each model (auto included) − the best classical rule, the
+  best among the rules as published and calibrated leave-participants-out (``<rule>:calibrated``),
+  the entry naming it and saying which (``best_rule``, ``best_rule_kind``);
 - ``icc``: ICC(A,1) of each method and the reference per parameter (:func:`models.icc_a1`);
 - ``equivalence``: two one-sided tests on participant means against the protocol's margins
   (:func:`models.parameter_equivalence`).
@@ -26,6 +28,7 @@ import pandas as pd
 from models import (
     ALWAYS_SLEEP,
     AUTO,
+    CALIBRATED_SUFFIX,
     COMPARED_RULES,
     EQUIVALENCE_PARAMETERS,
     ScoredNight,
@@ -44,9 +47,14 @@ DIFFERENCE_METRICS: tuple[str, ...] = ("balanced_accuracy", "kappa")
 _MODELS = ("personal", "pooled", "pooled+offset", AUTO)
 
 
+#: The compared rules as published and calibrated.
+_RULES = (*COMPARED_RULES, *(f"{m}{CALIBRATED_SUFFIX}" for m in COMPARED_RULES))
+
+
 def best_rule(group: pd.DataFrame, metric: str = "balanced_accuracy") -> str | None:
-    """The classical rule with the highest group mean of ``metric`` (participant level), or None."""
-    rows = group[(group["metric"] == metric) & group["method"].isin(COMPARED_RULES)]
+    """The classical rule (as published or calibrated) with the highest group mean of ``metric``
+    (participant level), or None."""
+    rows = group[(group["metric"] == metric) & group["method"].isin(_RULES)]
     rows = rows[np.isfinite(rows["mean"].astype(float))].reset_index(drop=True)
     return None if rows.empty else str(rows["method"].iloc[int(np.argmax(rows["mean"].to_numpy(dtype=float)))])
 
@@ -62,7 +70,10 @@ def _paired(figures: Any, methods: set[str]) -> list[dict[str, Any]]:
         for metric in DIFFERENCE_METRICS:
             found = figures.difference(a, b, metric).to_dict()
             found.pop("per_participant", None)
-            out.append(found | {"kind": "model - best rule" if b == rule else "personal - pooled variant"})
+            extra = ({"kind": "model - best rule", "best_rule": rule,
+                      "best_rule_kind": "calibrated" if rule.endswith(CALIBRATED_SUFFIX) else "published"}
+                     if b == rule and rule is not None else {"kind": "personal - pooled variant"})
+            out.append(found | extra)
     return out
 
 

@@ -7,7 +7,11 @@ on the same labelled nights by :func:`models.held_out_comparison`, the same comp
 :func:`models.compare_study` makes when it trains everything at once; its tables (epoch metrics,
 parameters with the reference's unscored epochs masked on both sides, Bland-Altman statistics)
 come from :func:`models.comparison_tables`, under the study protocol; ``auto`` gets its own
-nested held-out predictions (:mod:`service.results.held_out`). A comparison is kept in memory until
+nested held-out predictions (:mod:`service.results.held_out`). Beside each rule as published stands
+the rule calibrated to the study's counts leave-participants-out (``<rule>:calibrated``,
+:func:`models.calibrate_rules` on every labelled night of the study, participants sharing a night
+left out together), as :func:`models.compare_study` makes it; ``rule_calibrations`` says which
+count scale (or threshold) each participant's nights were scored with. A comparison is kept in memory until
 its nights, their exclusion, the active versions or the protocol change.
 """
 
@@ -26,17 +30,22 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import (
     AUTO,
+    COMPARED_RULES,
     EPOCH_METRIC_NAMES,
     MODEL_METHODS,
     ComparisonTables,
     Night,
+    NightRecord,
+    RuleCalibration,
     ScoredNight,
     StudyProtocol,
     TrainingConfig,
+    calibrate_rules,
     comparison_tables,
     held_out_comparison,
     json_record,
     json_records,
+    participant_groups,
 )
 
 from ..store import db
@@ -51,12 +60,10 @@ __all__ = ["EXPORT_METHODS", "export_parameters", "participant_comparison", "stu
 
 def _fingerprint(session: Session, study: StudyInfo, participant_id: str | None, protocol: StudyProtocol) -> str:
     """Changes whenever the nights, their exclusion, the active versions or the protocol behind a comparison
-    change."""
+    change (every labelled night of the study: the rules are calibrated on them all)."""
     query = (select(db.Participant.participant_id, db.Night.content_hash, db.Night.excluded)
              .join(db.Night, db.Night.participant_pk == db.Participant.pk)
              .where(db.Participant.study_pk == study.pk, db.Night.labelled))
-    if participant_id is not None:
-        query = query.where(db.Participant.participant_id == participant_id)
     nights = sorted(f"{p}/{h}/{x}" for p, h, x in session.execute(query))
     active = sorted(session.scalars(select(db.ModelVersion.uid).where(db.ModelVersion.study_pk == study.pk,
                                                                       db.ModelVersion.is_active)))
@@ -114,8 +121,17 @@ def _flow(pid: str, labelled: list[Night], held: dict[str, dict[str, Any]], coun
             "epochs_left_out": left_out, "epochs_compared": in_bed - left_out}
 
 
+def _calibrations(every: dict[str, list[Night]]) -> dict[str, RuleCalibration]:
+    """The compared rules calibrated leave-participants-out on every labelled night of the study."""
+    movement_time = TrainingConfig().movement_time
+    labelled = {pid: nights for pid, nights in every.items() if nights}
+    records = [NightRecord.from_night(n, movement_time=movement_time) for nights in labelled.values() for n in nights]
+    return calibrate_rules(records, COMPARED_RULES, groups=participant_groups(labelled)) if records else {}
+
+
 def _assemble(nights: dict[str, list[Night]], held_out: HeldOut, policies: dict[str, str],
-              protocol: StudyProtocol) -> tuple[ComparisonTables, list[ScoredNight], list[str]]:
+              protocol: StudyProtocol, calibrations: dict[str, RuleCalibration],
+              ) -> tuple[ComparisonTables, list[ScoredNight], list[str]]:
     """The comparison tables of the labelled nights (:func:`models.comparison_tables`), their in-bed calls and
     notes; ``auto``'s nested predictions are added to ``held_out``."""
     movement_time = TrainingConfig().movement_time
@@ -128,7 +144,8 @@ def _assemble(nights: dict[str, list[Night]], held_out: HeldOut, policies: dict[
             models_here = held_out.get(pid, {}).get(night.content_hash, {})
             missing |= set(MODEL_METHODS) - set(models_here)
             compared.append(held_out_comparison(night, models_here, participant_id=pid, movement_time=movement_time,
-                                                parameter_options={"protocol": protocol}))
+                                                parameter_options={"protocol": protocol},
+                                                calibrations=calibrations))
         if missing:
             notes.append(f"{pid}: no held-out {', '.join(sorted(missing))} figures for some or all labelled nights "
                          "(model not trained, too few labelled nights, or nights added after training)")
@@ -138,21 +155,25 @@ def _assemble(nights: dict[str, list[Night]], held_out: HeldOut, policies: dict[
 def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str | None) -> dict[str, Any]:
     with db.session_scope(factory) as session:
         study = find_study(session, study_id)
-        participants = study_participants(session, study=study)
-        if participant_id is not None:
-            participants = [find_participant(session, study, participant_id)]
+        everyone = study_participants(session, study=study)
+        participants = everyone if participant_id is None else [find_participant(session, study, participant_id)]
         protocol = study_protocol(session, study)
         key = _fingerprint(session, study, participant_id, protocol)
         with _CACHE_LOCK:
             if key in _CACHE:
                 return _CACHE[key]
         held_out, used = active_held_out(session, study)
-        nights = {p.participant_id: load_nights(session, participant=p, labelled_only=True) for p in participants}
+        every = {p.participant_id: load_nights(session, participant=p, labelled_only=True) for p in everyone}
+        nights = {p.participant_id: every[p.participant_id] for p in participants}
         choices = {p.participant_id: (p.chosen_method, (p.choice or {}).get("reason")) for p in participants}
         policies = {p.participant_id: (p.choice or {}).get("policy") or TrainingConfig().choice_policy
                     for p in participants}
         counts = _night_counts(session, [p.pk for p in participants])
-    tables, scored, notes = _assemble(nights, held_out, policies, protocol)
+    calibrations = _calibrations(every)
+    tables, scored, notes = _assemble(nights, held_out, policies, protocol, calibrations)
+    if not calibrations:
+        notes.append("rules not calibrated: leave-participants-out calibration needs labelled nights of at least "
+                     "two participants not sharing a night")
     movement_time = TrainingConfig().movement_time
     epoch_metrics = tables.epoch_metrics
     night_rows = epoch_metrics[epoch_metrics["level"] == "night"]
@@ -170,11 +191,20 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
         "flow": [_flow(p.participant_id, nights[p.participant_id], held_out.get(p.participant_id, {}),
                        counts.get(p.pk, (0, 0)), movement_time) for p in participants],
         "protocol": protocol.to_dict(),
+        "rule_calibrations": [_calibration_entry(c, list(nights)) for c in calibrations.values()],
         "notes": notes,
     } | agreement_statistics(tables.parameters, scored, protocol=protocol)
     with _CACHE_LOCK:
         _CACHE[key] = result
     return result
+
+
+def _calibration_entry(calibration: RuleCalibration, participant_ids: list[str]) -> dict[str, Any]:
+    """A rule's calibration, with the value each compared participant's nights were scored with."""
+    found = calibration.to_dict()
+    per = found.get("per_participant", {})
+    return json_record(found | {"method": calibration.name, "rule": calibration.method,
+                                "per_participant": {pid: per[pid] for pid in participant_ids if pid in per}})
 
 
 def _night_counts(session: Session, participant_pks: list[int]) -> dict[int, tuple[int, int]]:
@@ -214,7 +244,7 @@ def participant_comparison(factory: sessionmaker[Session], *, study_id: str, par
             "model_versions": {k: v for k, v in out["model_versions"].items()
                                if k == "pooled" or k == f"personal:{participant_id}"},
             "summary": mine["summary"], "nights": out["nights"], "bland_altman": out["bland_altman"],
-            "notes": out["notes"]} | {k: out[k] for k in _SHARED_ENTRIES}
+            "rule_calibrations": out["rule_calibrations"], "notes": out["notes"]} | {k: out[k] for k in _SHARED_ENTRIES}
 
 
 def study_comparison(factory: sessionmaker[Session], *, study_id: str) -> dict[str, Any]:
@@ -232,6 +262,9 @@ def study_comparison(factory: sessionmaker[Session], *, study_id: str) -> dict[s
         (the definitions applied), ``flow`` (per participant: nights and epochs compared and left
         out, and why) and the entries of :func:`service.results.agreement_stats.agreement_statistics`
         (``repeated_bland_altman``, ``participant_epochs``, ``paired_differences``, ``icc``,
-        ``equivalence``). Every method includes ``auto`` with its own nested held-out figures.
+        ``equivalence``), ``rule_calibrations`` (per compared rule: its calibrated parameter, the
+        published value, the value chosen without each participant, the grid and its mean balanced
+        accuracies). Every method includes ``auto`` with its own nested held-out figures and each
+        rule's ``<rule>:calibrated`` variant (leave-participants-out).
     """
     return _compare(factory, study_id, None)

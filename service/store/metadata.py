@@ -14,7 +14,8 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field, model_serializer, model_validator
 
-__all__ = ["FlaggedNight", "HeldOutFigures", "MetricSummary", "ModelMetadata", "Selection", "TrainingNight"]
+__all__ = ["ActivationRecord", "FlaggedNight", "HeldOutFigures", "MetricSummary", "ModelMetadata", "Selection",
+           "TrainingNight"]
 
 
 class _Record(BaseModel):
@@ -65,6 +66,47 @@ class Selection(_Record):
 
     metric: str
     value: float | None = None
+
+
+class ActivationRecord(_Record):
+    """How a version's activation was decided, and which of its held-out figures the decision did not use.
+
+    The JSON form of :class:`models.ActivationEvidence`, taken when the version was stored.
+
+    Attributes
+    ----------
+    metric : str
+        The compared held-out metric (higher is better).
+    method : str
+        Held-out rows compared (``personal`` or ``pooled``).
+    activate : bool
+        Whether the version became active when stored.
+    against_version : int or None
+        The version active then (None: none was).
+    candidate_value, active_value : float or None
+        Means over ``compared_nights`` (None without shared nights).
+    compared_nights : tuple of str
+        Content hashes of the nights both versions held out (the comparison used them).
+    fresh_nights : tuple of str
+        Content hashes of the version's other held-out nights.
+    fresh_value : float or None
+        The version's mean over ``fresh_nights``: not used by the selection.
+    selection_free : bool
+        ``fresh_value`` rests on at least one night; False: every held-out figure is a selection figure.
+    note : str
+    """
+
+    metric: str
+    method: str = "personal"
+    activate: bool = True
+    against_version: int | None = None
+    candidate_value: float | None = None
+    active_value: float | None = None
+    compared_nights: tuple[str, ...] = ()
+    fresh_nights: tuple[str, ...] = ()
+    fresh_value: float | None = None
+    selection_free: bool = False
+    note: str = ""
 
 
 class TrainingNight(_Record):
@@ -134,6 +176,9 @@ class ModelMetadata(_Record):
     offset_rule : str or None
         Pooled models: how the offsets of participants the model trained on were estimated
         (:data:`models.OFFSET_RULE`); None for versions stored before this was recorded.
+    activation : ActivationRecord or None
+        The comparison with the version active when this one was stored (None for versions stored
+        without held-out night rows, or before this was recorded).
     """
 
     metrics: HeldOutFigures = Field(default_factory=HeldOutFigures)
@@ -154,6 +199,7 @@ class ModelMetadata(_Record):
     offset_shrinkage: float | None = None
     descriptors: dict[str, dict[str, float | None]] = Field(default_factory=dict)
     offset_rule: str | None = None
+    activation: ActivationRecord | None = None
 
     @property
     def selection_score(self) -> float | None:

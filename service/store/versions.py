@@ -14,8 +14,14 @@ feature-set version, hyperparameters, threshold, offsets, held-out validation fi
 versions; the version row also names the job that made it.
 
 Promotion rule: a new version becomes active only if its held-out balanced accuracy is not worse
-than the active version's (or no version is active); otherwise it is kept as a candidate, which
+than the active version's (or no version is active; paired on the nights both held out when they
+share any); otherwise it is kept as a candidate, which
 an admin may activate. Activating an older version is a rollback.
+
+The promotion is a selection on held-out nights, so those nights' figure flatters the version kept.
+Each stored version records its activation evidence (:func:`models.activation_evidence`, in
+``ModelMetadata.activation``): the paired comparison with the version active then, on the nights
+both held out, and the candidate's figure on its other held-out nights, which the choice did not use.
 """
 
 from __future__ import annotations
@@ -37,6 +43,7 @@ from models import HeldOutNight, SleepModel, model_from_bytes
 
 from ..errors import NotFound
 from . import db
+from .activation import activation_record
 from .audit import record_audit
 from .codec import decode_held_out
 from .metadata import FlaggedNight, ModelMetadata
@@ -190,13 +197,20 @@ def add_version(session: Session, *, study: StudyInfo, participant: ParticipantI
     gone = sorted(n for h, n in trained.items() if h not in stored)
     current = session.scalar(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
                                                            db.ModelVersion.scope == scope, db.ModelVersion.is_active))
-    promote = _not_worse(metadata.selection_score, None if current is None else _metadata(current).selection_score)
+    previous = None if current is None else _metadata(current)
+    promote = _not_worse(metadata.selection_score, None if previous is None else previous.selection_score)
+    kind = "pooled" if participant is None else "personal"
+    if (evidence := activation_record(metadata, previous, kind=kind)) is not None:
+        if evidence.compared_nights and evidence.candidate_value is not None and evidence.active_value is not None:
+            promote = evidence.activate  # paired: on the nights both versions held out
+        metadata = metadata.model_copy(update={"activation": evidence.model_copy(update={
+            "activate": promote, "against_version": None if current is None else current.version})})
     if promote and current is not None:
         current.is_active = False
         session.flush()
     row = db.ModelVersion(uid=uuid.uuid4().hex, study_pk=study.pk,
                           participant_pk=None if participant is None else participant.pk, scope=scope,
-                          kind="pooled" if participant is None else "personal", version=number, is_active=promote,
+                          kind=kind, version=number, is_active=promote,
                           booster=booster, model_meta=model_meta, info=metadata.to_json(), held_out=held_out,
                           job_id=job_id, trained_on_deleted_nights=gone or None, created_at=db.utcnow())
     session.add(row)

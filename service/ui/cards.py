@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from ..store.activation import selection_wording
 from ..store.metadata import FlaggedNight, ModelMetadata
 from ..store.versions import VersionInfo
 from .templating import CAUTIONS, TEMPLATES
@@ -119,7 +120,9 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
         },
         "validation": {"scheme": _VALIDATION.get(version.kind, ""), "held_out_nights": meta.metrics.n_nights,
                        "metrics": {name: metrics[name] for name in CARD_METRICS if name in metrics},
-                       "selection_metric": None if meta.selection is None else meta.selection.metric},
+                       "selection_metric": None if meta.selection is None else meta.selection.metric,
+                       "activation": None if meta.activation is None else meta.activation.model_dump(mode="json"),
+                       "selection_figures": selection_wording(meta.activation)},
         "threshold": {"p_sleep": meta.threshold,
                       "meaning": "an epoch is called sleep when the model's sleep probability is at least this"},
         "method_choice": choice,
@@ -158,6 +161,14 @@ def model_card_markdown(card: dict[str, Any]) -> str:
               "| metric | mean | SD |", "|---|---|---|"]
     for name, stats in validation["metrics"].items():
         lines.append(f"| {name.replace('_', ' ')} | {_fmt(stats.get('mean'))} | {_fmt(stats.get('sd'))} |")
+    if "selection_figures" in validation:
+        lines += ["", "### Activation", "", f"{validation['selection_figures'].capitalize()}."]
+        if (act := validation.get("activation")) and act["against_version"] is not None:
+            lines += ["", f"| {act['metric'].replace('_', ' ')} | nights | this version | version "
+                      f"{act['against_version']} |", "|---|---|---|---|",
+                      f"| compared (used to decide) | {len(act['compared_nights'])} | {_fmt(act['candidate_value'])} "
+                      f"| {_fmt(act['active_value'])} |",
+                      f"| not used to decide | {len(act['fresh_nights'])} | {_fmt(act['fresh_value'])} | – |"]
     lines += ["", "## Threshold", "", f"P(sleep) ≥ {_fmt(card['threshold']['p_sleep'])}: "
               f"{card['threshold']['meaning']}.", ""]
     if card["method_choice"]:

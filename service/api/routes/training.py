@@ -17,7 +17,16 @@ from ...store.db import session_scope, utcnow
 from ...store.tokens import Principal, Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, require_lab_role, study_access
 from ..problems import problem_responses
-from ..schemas import FlaggedTrainingNightOut, JobAccepted, JobOut, ModelVersionOut, Page, Progress, TrainingIn
+from ..schemas import (
+    ActivationOut,
+    FlaggedTrainingNightOut,
+    JobAccepted,
+    JobOut,
+    ModelVersionOut,
+    Page,
+    Progress,
+    TrainingIn,
+)
 from .studies import Limit, Offset, ParticipantPath
 
 __all__ = ["router"]
@@ -119,7 +128,8 @@ def _version_out(v: versions.VersionInfo) -> ModelVersionOut:
         library_versions=meta.library_versions, training_nights=[n.model_dump() for n in meta.training_nights],
         trained_on_deleted_nights=list(v.trained_on_deleted_nights),
         flagged_training_nights=[FlaggedTrainingNightOut.model_validate(n.model_dump())
-                                 for n in meta.flagged_nights])
+                                 for n in meta.flagged_nights],
+        activation=None if meta.activation is None else ActivationOut.model_validate(meta.activation.model_dump()))
 
 
 def _owner(session: Session, study_id: str,
