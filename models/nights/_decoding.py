@@ -64,12 +64,30 @@ def decode_text(data: bytes | str, source: str | None, encoding: str = "utf-8") 
                                          f"(line {line}) cannot be decoded", {"row": line})], source=source) from None
 
 
+#: every byte that is a digit becomes "0", every other byte a blank (for the quick bounds check)
+_DIGIT_MASK = bytes(48 if 48 <= i <= 57 else 32 for i in range(256))
+
+
+def _plainly_within_bounds(text: str) -> bool:
+    """True when the text cannot break the bounds, whatever its strings hold (a quick check in C).
+
+    Fewer opening brackets in the whole text than :data:`JSON_MAX_DEPTH` cannot nest deeper, and
+    no run of more than :data:`JSON_MAX_NUMBER_DIGITS` digits anywhere means no such number outside
+    strings either; otherwise the full scan decides.
+    """
+    if text.count("[") + text.count("{") > JSON_MAX_DEPTH:
+        return False
+    return b"0" * (JSON_MAX_NUMBER_DIGITS + 1) not in text.encode("utf-8", "surrogatepass").translate(_DIGIT_MASK)
+
+
 def _json_bounds_problem(text: str) -> Problem | None:
     """``json_too_deep`` or ``json_number_too_long`` found by a scan outside strings, before parsing.
 
     The scan is linear in the text: strings are blanked by one regular expression, then the
     nesting depth is the running sum of opening minus closing brackets.
     """
+    if _plainly_within_bounds(text):
+        return None
     bare = _JSON_STRING.sub('""', text)
     long_number = _LONG_DIGITS.search(bare)
     if long_number is not None:
