@@ -132,7 +132,9 @@ def night_from_csv(data: bytes | str, *, participant_id: str = "", options: Nigh
                 pass
     tz = options.tz if options.tz is not None else (profile.tz if profile is not None else None)
     rest = body[header_end + 1:].rstrip()
-    n_rows = rest.count("\n") + 1 - sum(1 for _ in _BLANK_LINE.finditer(rest)) if rest else 0
+    n_rows = rest.count("\n") + 1 if rest else 0
+    if n_rows > options.max_epochs:  # blank lines are not rows: counted only when the bound is passed
+        n_rows -= sum(1 for _ in _BLANK_LINE.finditer(rest))
     if n_rows > options.max_epochs:  # counted before any cell is parsed
         raise InvalidNightError([Problem("too_many_epochs", f"the file has {n_rows} rows (lines counted before "
                                          f"reading); the limit is {options.max_epochs} epochs",
