@@ -12,6 +12,7 @@ from contextlib import asynccontextmanager
 from fastapi import FastAPI
 from fastapi.routing import APIRoute
 
+from .api.body_limit import BodyLimit
 from .api.problems import PROBLEM_RESPONSES, install_problem_handlers
 from .api.routes import (
     nights,
@@ -88,6 +89,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     install_problem_handlers(app)
     for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens, protocol):
         app.include_router(module.router)
+    app.add_middleware(BodyLimit, limit_bytes=int(settings.max_json_body_mb * 2**20))
     app.add_middleware(RequestTelemetry, metrics=app.state.metrics)
     mount_ui(app, settings)
     _register_problem_schema(app)

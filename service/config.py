@@ -43,6 +43,8 @@ class Settings(BaseSettings):
     worker_nice: int = Field(default=10, ge=0, le=19, description="Niceness added to worker processes, so requests "
                                                                   "keep priority over training.")
     max_body_mb: float = Field(default=20.0, gt=0, description="Largest accepted request body, MB.")
+    max_json_body_mb: float = Field(default=1.0, gt=0, description="Largest JSON or form request body (every "
+                                                                   "route but the uploads), MB.")
     token_cache_s: float = Field(default=5.0, ge=0, description="Seconds a verified token is remembered (a "
                                                                 "revocation takes effect within it).")
     log_level: str = Field(default="INFO", description="Log level of the service and its workers.")
