@@ -20,7 +20,7 @@ def client(server, make_token):
 def test_client_round_trip(client, tmp_path) -> None:
     import json
 
-    assert client.health() == {"status": "ok"}
+    assert client.health()["status"] == "ok"
     assert client.create_study("s1", "One")["study_id"] == "s1"
     first = client.post_night("s1", "p1", night_json(240, seed=1))
     assert first["created"] is True

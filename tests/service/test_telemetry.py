@@ -50,7 +50,7 @@ def test_metrics_count_requests_by_route_template_and_jobs_by_state(http, study,
 def test_info_logs_name_no_participant_token_or_counts(http, study, admin, caplog) -> None:
     caplog.set_level(logging.INFO)
     body = night_json(240, seed=1)
-    body["counts"][0] = 987654
+    body["counts"][0] = 298761
     r = http.post(f"/v1/studies/{study}/participants/PID-4471/nights", json=body, headers=admin)
     night_id = r.json()["night_id"]
     http.get(f"/v1/studies/{study}/participants/PID-4471/nights/{night_id}/scoring", params={"method": "sadeh"},
@@ -60,7 +60,7 @@ def test_info_logs_name_no_participant_token_or_counts(http, study, admin, caplo
     logged = "\n".join(rec.getMessage() for rec in server_side)
     assert "/v1/studies/{study}/participants/{pid}/nights" in logged  # the template is logged
     token = admin["Authorization"].split()[1]
-    for secret in ("PID-4471", token, token.split("_", 2)[2], "987654", night_id):
+    for secret in ("PID-4471", token, token.split("_", 2)[2], "298761", night_id):
         assert secret not in logged
 
 
