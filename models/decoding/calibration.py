@@ -65,14 +65,19 @@ def _probabilities(p_sleep: ArrayLike, name: str = "p_sleep") -> NDArray[np.floa
     return p
 
 
-def _pairs(p_sleep: ArrayLike, labels: ArrayLike) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """The scored (probability, label) pairs; raises unless both classes are present."""
+def _scored(p_sleep: ArrayLike, labels: ArrayLike) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The (probability, label) pairs of the epochs both score; raises when their shapes differ."""
     p = _probabilities(p_sleep)
     y = np.asarray(labels, dtype=np.float64)
     if y.shape != p.shape:
         raise InvalidCalibrationError(f"labels ({y.shape}) and p_sleep ({p.shape}) must have the same shape")
     keep = ~np.isnan(p) & ~np.isnan(y)
-    p, y = p[keep], y[keep]
+    return p[keep], y[keep]
+
+
+def _pairs(p_sleep: ArrayLike, labels: ArrayLike) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The scored (probability, label) pairs; raises unless both classes are present."""
+    p, y = _scored(p_sleep, labels)
     bad = np.flatnonzero((y != 0) & (y != 1))
     if bad.size:
         raise InvalidCalibrationError(f"labels must be 0, 1 or NaN; first bad scored epochs: {bad[:5].tolist()}")
@@ -258,12 +263,8 @@ def brier_score(labels: ArrayLike, p_sleep: ArrayLike) -> float:
     p_sleep : array-like of shape (n_epochs,)
         Probability of sleep; NaN = unscored (left out).
     """
-    p = _probabilities(p_sleep)
-    y = np.asarray(labels, dtype=np.float64)
-    if y.shape != p.shape:
-        raise InvalidCalibrationError(f"labels ({y.shape}) and p_sleep ({p.shape}) must have the same shape")
-    keep = ~np.isnan(p) & ~np.isnan(y)
-    return float(np.mean((p[keep] - y[keep]) ** 2)) if keep.any() else float("nan")
+    p, y = _scored(p_sleep, labels)
+    return float(np.mean((p - y) ** 2)) if p.size else float("nan")
 
 
 @dataclass(frozen=True)
@@ -306,12 +307,7 @@ def reliability_curve(labels: ArrayLike, p_sleep: ArrayLike, *, n_bins: int = 10
     """
     if isinstance(n_bins, bool) or not isinstance(n_bins, int) or n_bins < 1:
         raise InvalidCalibrationError(f"n_bins must be an integer >= 1, got {n_bins!r}")
-    p = _probabilities(p_sleep)
-    y = np.asarray(labels, dtype=np.float64)
-    if y.shape != p.shape:
-        raise InvalidCalibrationError(f"labels ({y.shape}) and p_sleep ({p.shape}) must have the same shape")
-    keep = ~np.isnan(p) & ~np.isnan(y)
-    p, y = p[keep], y[keep]
+    p, y = _scored(p_sleep, labels)
     if strategy == "uniform":
         edges = np.linspace(0.0, 1.0, n_bins + 1)
     elif strategy == "quantile" and p.size:
