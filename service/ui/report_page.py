@@ -146,8 +146,9 @@ def build_report(factory: sessionmaker[Session], *, study_id: str) -> str:
         study = registry.find_study(session, study_id)
         protocol = protocols.protocol_info(session, study)
         cards = _cards(session, study)
-        participants = [p.participant_id for p in registry.study_participants(session, study=study)]
-        choices = {p.participant_id: p.choice for p in registry.study_participants(session, study=study)}
+        listed = registry.study_participants(session, study=study)
+        participants = [p.participant_id for p in listed]
+        choices = {p.participant_id: p.choice for p in listed}
     comparison = reports.study_comparison(factory, study_id=study_id)
     methods = report_methods(comparison)
     flow = comparison.get("flow", [])
