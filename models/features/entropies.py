@@ -19,7 +19,7 @@ from itertools import permutations
 from math import factorial
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
+from numpy.lib.stride_tricks import as_strided, sliding_window_view
 from numpy.typing import NDArray
 
 from .windows import CentredWindows, window_bounds
@@ -37,23 +37,16 @@ def _cumulative(mask: NDArray[np.bool_]) -> NDArray[np.int64]:
 
 
 def _pair_matches(values: FloatArray, usable: NDArray[np.bool_], max_lag: int, order: int,
-                  tolerance: float, *, backward: bool) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
+                  tolerance: float) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
     """Template-pair matches for every lag d = 1..max_lag, shapes (n_epochs, max_lag).
 
-    Forward: row i is the pair (i, i + d). Backward: row j is the pair (j - d, j). Returns the
-    matches on ``order`` values (B) and on ``order + 1`` values (A).
+    Row i, column d - 1 is the pair (i, i + d). Returns the matches on ``order`` values (B) and on
+    ``order + 1`` values (A).
     """
     n, m = values.shape[0], order
-    nan, tail = np.full(max_lag, np.nan), np.full(m, np.nan)
-    if backward:  # row j: y[j - max_lag] .. y[j]; |y[j] - y[j - d]| for d = 1..max_lag
-        lagged = sliding_window_view(np.concatenate([nan, values, tail]), max_lag + 1)
-        close = lagged[:, max_lag - 1::-1] - lagged[:, max_lag:]
-        padded = np.concatenate([np.zeros(max_lag, bool), usable])
-        partner = sliding_window_view(padded, max_lag + 1)[:, max_lag - 1::-1]
-    else:  # row i: y[i] .. y[i + max_lag]; |y[i] - y[i + d]|
-        lagged = sliding_window_view(np.concatenate([values, nan, tail]), max_lag + 1)
-        close = lagged[:, 1:] - lagged[:, :1]
-        partner = sliding_window_view(np.concatenate([usable, np.zeros(max_lag, bool)]), max_lag + 1)[:, 1:]
+    lagged = sliding_window_view(np.concatenate([values, np.full(max_lag + m, np.nan)]), max_lag + 1)
+    close = lagged[:, 1:] - lagged[:, :1]  # row i: y[i + d] - y[i]
+    partner = sliding_window_view(np.concatenate([usable, np.zeros(max_lag, bool)]), max_lag + 1)[:, 1:]
     close = np.abs(close, out=close) < tolerance  # NaN compares False: a missing value never matches
     match_b = close[:n] & usable[:, None] & partner
     for k in range(1, m):
@@ -61,13 +54,30 @@ def _pair_matches(values: FloatArray, usable: NDArray[np.bool_], max_lag: int, o
     return match_b, match_b & close[m:n + m]
 
 
-def _lag_prefix(matches: NDArray[np.bool_]) -> NDArray[np.signedinteger]:
-    """``out[t, D] = number of matches in rows < t with lag <= D + 1`` (exact integers)."""
-    rows, lags = matches.shape[0] + 1, matches.shape[1]
-    dtype = np.int32 if rows * lags < 2**31 else np.int64  # int32 halves the memory traffic
-    out = np.zeros((rows, lags), dtype=dtype)
-    np.cumsum(matches, axis=0, dtype=dtype, out=out[1:])
-    return np.cumsum(out, axis=1, dtype=dtype, out=out)
+def _lag_sums(matches: NDArray[np.bool_], lags: list[int]) -> dict[int, tuple[NDArray[np.int64], NDArray[np.int64]]]:
+    """Running pair counts over lags 1..L for each L in ``lags``.
+
+    Returns, for each L, ``(earlier, later)`` of shape (n_epochs + 1,): ``earlier[t]`` counts the
+    matching pairs (i, i + d), d <= L, with ``i < t``; ``later[t]`` those with ``i + d < t``.
+    """
+    n, max_lag = matches.shape
+    bounds = sorted(set(lags))
+    starts = [0, *bounds[:-1]]
+    # later partner: column d - 1 of row j holds the pair (j - d, j), read from a sheared view
+    padded = np.zeros((n + max_lag, max_lag), dtype=bool)
+    padded[max_lag:] = matches
+    row, col = padded.strides
+    sheared = as_strided(padded[max_lag - 1:], shape=(n, max_lag), strides=(row, col - row))
+    out = {}
+    parts = [np.cumsum(np.add.reduceat(m_, starts, axis=1, dtype=np.int64), axis=1) for m_ in (matches, sheared)]
+    for idx, lag in enumerate(bounds):
+        pair = []
+        for part in parts:
+            running = np.zeros(n + 1, dtype=np.int64)
+            np.cumsum(part[:, idx], out=running[1:])
+            pair.append(running)
+        out[lag] = (pair[0], pair[1])
+    return out
 
 
 def sample_entropy(values: FloatArray, half_widths: tuple[int, ...], *, order: int = 2,
@@ -110,10 +120,13 @@ def sample_entropy(values: FloatArray, half_widths: tuple[int, ...], *, order: i
 
     Notes
     -----
-    Pair counts of all windows come from prefix sums: with ``e = hi - order`` the last template
-    start of a window, its pairs ``lo <= i < j <= e`` are (pairs with ``j <= e``, counted by the
-    later template) minus (pairs with ``i < lo``, counted by the earlier one), both over lags
-    ``1 .. e - lo``; every pair with ``i < lo`` and such a lag ends before ``e``.
+    Pair counts of all windows come from running counts (exact integers): with ``e = hi - order``
+    the last template start of a window, its pairs ``lo <= i < j <= e`` are (pairs with
+    ``j <= e``, counted by the later template) minus (pairs with ``i < lo``, counted by the
+    earlier one), both over lags ``1 .. e - lo``; every pair with ``i < lo`` and such a lag ends
+    before ``e``. Full windows share one lag limit per window size; a window truncated at the
+    series' start holds every pair ending by ``e``, one truncated at its end every pair from
+    ``lo``, so only per-row sums over a few lag limits are needed.
     """
     y = np.asarray(values, dtype=np.float64)
     n, m = y.shape[0], int(order)
@@ -124,19 +137,26 @@ def sample_entropy(values: FloatArray, half_widths: tuple[int, ...], *, order: i
     observed = ~np.isnan(y)
     usable: NDArray[np.bool_] = np.all(sliding_window_view(np.concatenate([observed, np.zeros(m, dtype=bool)]), m + 1),
                                        axis=1)
-    fwd_b, fwd_a = (_lag_prefix(x) for x in _pair_matches(y, usable, max_lag, m, tolerance, backward=False))
-    bwd_b, bwd_a = (_lag_prefix(x) for x in _pair_matches(y, usable, max_lag, m, tolerance, backward=True))
+    full_lags = [min(2 * h - m, max_lag) for h in half_widths if 2 * h - m >= 1]
+    sums = [_lag_sums(x, [*full_lags, max_lag]) for x in _pair_matches(y, usable, max_lag, m, tolerance)]
     n_usable = np.zeros(n + 1, dtype=np.int64)
     np.cumsum(usable, out=n_usable[1:])
     for col, h in enumerate(half_widths):
         lo, hi = window_bounds(n, h)
         end = hi - m  # last template start
-        lags = np.minimum(end - lo, max_lag)
-        ok = lags >= 1
-        col_idx = np.maximum(lags - 1, 0)
+        ok = end - lo >= 1
         row_end = np.clip(end + 1, 0, n)
-        b = np.where(ok, bwd_b[row_end, col_idx] - fwd_b[lo, col_idx], 0)
-        a = np.where(ok, bwd_a[row_end, col_idx] - fwd_a[lo, col_idx], 0)
+        counts = []
+        for lag_sums in sums:  # B, then A
+            earlier_all, later_all = lag_sums[max_lag]
+            # left-truncated windows: every pair ending by ``end``; right-truncated: every pair from ``lo``
+            count = np.where(lo == 0, later_all[row_end], earlier_all[n] - earlier_all[lo])
+            full = np.flatnonzero((lo > 0) & (hi < n - 1) & ok)
+            if full.size:
+                earlier, later = lag_sums[min(2 * h - m, max_lag)]
+                count[full] = later[row_end[full]] - earlier[lo[full]]
+            counts.append(np.where(ok, count, 0))
+        b, a = counts
         t = (n_usable[np.maximum(end + 1, lo)] - n_usable[lo]).astype(np.float64)
         cap = np.log(np.maximum(t * (t - 1.0) / 2.0, 1.0))
         ratio = np.log(np.maximum(b, 1).astype(np.float64)) - np.log(np.maximum(a, 1).astype(np.float64))
