@@ -220,30 +220,46 @@ def permutation_entropy(values: FloatArray, half_widths: tuple[int, ...], *, ord
 
 
 @lru_cache(maxsize=16)
-def _dft_basis(length: int) -> FloatArray:
-    """Real DFT basis of one window length: columns cos(2 pi k t / N) then sin(...), k = 0..N//2."""
-    t = np.arange(length)[:, None]
+def _centred_dft_basis(length: int) -> tuple[FloatArray, FloatArray]:
+    """cos and sin of ``2 pi k u / N`` for u = 1..N//2 (rows) and k = 0..N//2 (columns), N = ``length`` (odd)."""
+    u = np.arange(1, length // 2 + 1)[:, None]
     k = np.arange(length // 2 + 1)[None, :]
-    angle = 2.0 * np.pi * ((t * k) % length) / length
-    return np.concatenate([np.cos(angle), np.sin(angle)], axis=1)
+    angle = 2.0 * np.pi * ((u * k) % length) / length
+    return np.cos(angle), np.sin(angle)
 
 
-def _normalised_spectral_entropy(power: FloatArray, lengths: NDArray[np.int64], *,
-                                 scratch: FloatArray | None = None) -> FloatArray:
+def _centred_power(rows: FloatArray) -> FloatArray:
+    """``|X_k|**2`` for k = 0..N//2 of each row of odd length N = 2h + 1, shape (n_rows, h + 1).
+
+    With the time origin at the middle epoch (a phase that cancels in the power), ``X_k`` has
+    real part ``x_h + sum_u (x_{h+u} + x_{h-u}) cos(2 pi k u / N)`` and imaginary part
+    ``-sum_u (x_{h+u} - x_{h-u}) sin(2 pi k u / N)``, u = 1..h: two products with h-row bases,
+    half the work of one product with the full N-row basis.
+    """
+    h = rows.shape[1] // 2
+    cos, sin = _centred_dft_basis(rows.shape[1])
+    later, earlier = rows[:, h + 1:], rows[:, h - 1::-1]
+    real = (later + earlier) @ cos
+    real += rows[:, h:h + 1]
+    imag = (later - earlier) @ sin
+    np.square(real, out=real)
+    real += np.square(imag, out=imag)
+    return real
+
+
+def _normalised_spectral_entropy(power: FloatArray, lengths: NDArray[np.int64]) -> FloatArray:
     """Entropy of one-sided periodogram rows over log2(bins); row r uses ``lengths[r] // 2 + 1`` bins.
 
     ``power`` holds ``|X_k|**2`` for k = 0.. (zero past a row's bins) and is modified in place. As
     scipy ``periodogram`` (density, one-sided), every bin except DC and, for even lengths, Nyquist
     is doubled. H = -sum p log2 p is computed as ``log2(T) - sum(P log2 P) / T``, T = sum(P).
-    ``scratch`` (same shape as ``power``) is used as work space when given.
     """
     bins = lengths // 2 + 1
     power[:, 1:] *= 2.0
     even = np.flatnonzero(lengths % 2 == 0)
     power[even, bins[even] - 1] *= 0.5
     total = power.sum(axis=1)
-    logs = np.zeros_like(power) if scratch is None else scratch
-    logs[...] = 0.0
+    logs = np.zeros_like(power)
     np.log2(power, out=logs, where=power > 0)
     plogp = np.einsum("ij,ij->i", power, logs)
     positive = total > 0
@@ -262,8 +278,9 @@ def spectral_entropy(windows: CentredWindows) -> FloatArray:
 
     Missing epochs inside a window are replaced by the window's observed mean (so they add no
     power); the window length N still counts them. Truncated windows at the night's ends use
-    their own length N. Full-length windows use one matrix product with a cached DFT basis
-    (window lengths like 61 and 181 are primes, where FFTs are slow).
+    their own length N. Full-length windows (odd N) use two matrix products with cached
+    half-length DFT bases (see :func:`_centred_power`; lengths like 61 and 181 are primes, where
+    FFTs are slow).
 
     Parameters
     ----------
@@ -281,11 +298,7 @@ def spectral_entropy(windows: CentredWindows) -> FloatArray:
     lengths = windows.hi - windows.lo + 1
     out = np.full(n, np.nan)
     if n >= width:  # full windows: the contiguous rows h .. n - h - 1
-        coef = dev[h:n - h] @ _dft_basis(width)
-        half = coef.shape[1] // 2
-        power, scratch = np.square(coef[:, :half], out=coef[:, :half]), np.square(coef[:, half:], out=coef[:, half:])
-        power += scratch
-        out[h:n - h] = _normalised_spectral_entropy(power, lengths[h:n - h], scratch=scratch)
+        out[h:n - h] = _normalised_spectral_entropy(_centred_power(dev[h:n - h]), lengths[h:n - h])
     edge = np.flatnonzero(lengths < width)  # truncated windows: at most 2 per length
     if edge.size:
         edge = edge[np.argsort(lengths[edge], kind="stable")]
