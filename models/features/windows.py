@@ -240,7 +240,7 @@ class CentredWindows:
         a, b = flat[row_start + below], flat[row_start + above]
         diff = b - a
         # numpy's lerp: a + diff * t, computed from the upper end when t >= 0.5
-        out = np.where(frac >= 0.5, b - diff * (1.0 - frac), a + diff * frac)
+        out: FloatArray = np.where(frac >= 0.5, b - diff * (1.0 - frac), a + diff * frac)
         out[~self.any_observed] = np.nan
         out.setflags(write=False)
         self._quantiles[q] = out
