@@ -265,18 +265,19 @@ def date_time_ns(date_col: pa.Array, time_col: pa.Array,
     since_midnight = fixed_clock_ns(time_col, split[1])  # the usual HH:MM:SS column, read by arithmetic
     try:
         days = pc.strptime(dates, format=split[0], unit="ns", error_is_null=True)
-        clock = None if since_midnight is not None else \
-            pc.strptime(time_col, format=split[1], unit="ns", error_is_null=True)
+        if since_midnight is None:
+            clock = pc.strptime(time_col, format=split[1], unit="ns", error_is_null=True)
+            if clock.null_count:
+                return None
+            since_midnight = np.asarray(clock.to_numpy(zero_copy_only=False)).view(np.int64) - _1900
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
         return None
-    if days.null_count or (clock is not None and clock.null_count):
+    if days.null_count:
         return None
     day_ns = np.asarray(days.to_numpy(zero_copy_only=False)).view(np.int64)
     if day_ns.size and (day_ns.min() < _1900 or day_ns.max() >= _LAST_DAY):
         return None
     codes = np.asarray(date_col.indices.to_numpy(zero_copy_only=False), dtype=np.intp)
-    if clock is not None:
-        since_midnight = np.asarray(clock.to_numpy(zero_copy_only=False)).view(np.int64) - _1900
     ns = day_ns[codes] + since_midnight
     before_day = fmt.partition("%d")[0]
     if "%" in before_day or any(c.isspace() for c in before_day):
