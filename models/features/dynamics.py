@@ -22,7 +22,6 @@ autocorrelation is NaN (undefined 0/0, as in R and statsmodels).
 from __future__ import annotations
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import NDArray
 
 from .windows import CentredWindows
@@ -45,7 +44,25 @@ def _max_shift(stat: FloatArray, windows: CentredWindows, width: int) -> FloatAr
     # window c allows starts c - h .. c + h - 2w + 1; starts outside 0..n-2w are NaN
     padded = np.full(n + span - 1, np.nan)
     padded[h:h + diff.shape[0]] = diff
-    largest: FloatArray = np.fmax.reduce(sliding_window_view(padded, span), axis=1)
+    return _sliding_fmax(padded, span)
+
+
+def _sliding_fmax(values: FloatArray, span: int) -> FloatArray:
+    """Largest non-NaN value of every run of ``span`` consecutive values (NaN if none), shape (n - span + 1,).
+
+    Van Herk / Gil-Werman: in aligned blocks of ``span`` values, running maxima from each block's
+    start and from its end; a run is the end of one block and the start of the next. Maxima are
+    exact, so this equals the maximum of each run taken directly.
+    """
+    n = values.shape[0]
+    n_blocks = -(-n // span)
+    blocks = np.full(n_blocks * span, np.nan)
+    blocks[:n] = values
+    blocks = blocks.reshape(n_blocks, span)
+    from_start = np.fmax.accumulate(blocks, axis=1).reshape(-1)
+    from_end = np.fmax.accumulate(blocks[:, ::-1], axis=1)[:, ::-1].reshape(-1)
+    runs = n - span + 1
+    largest: FloatArray = np.fmax(from_end[:runs], from_start[span - 1:span - 1 + runs])
     return largest
 
 
@@ -94,10 +111,8 @@ def max_var_shift(windows: CentredWindows, *, width: int) -> FloatArray:
 
 def _tile_spread(stat: FloatArray, windows: CentredWindows, width: int) -> FloatArray:
     """Sample variance (ddof=1) over each window's tiles of a per-tile statistic (NaN tiles skipped)."""
-    n_tiles = windows.width // width
-    starts = windows.lo[:, None] + width * np.arange(n_tiles)[None, :]  # tiles from the window's first epoch
-    inside = starts + width - 1 <= windows.hi[:, None]
-    vals = np.where(inside, stat[np.minimum(starts, stat.shape[0] - 1)], np.nan)
+    starts, inside = windows.tiles(width)  # tiles from the window's first epoch
+    vals = np.where(inside, stat[starts], np.nan)
     defined = ~np.isnan(vals)
     k = defined.sum(axis=1)
     low = np.fmin.reduce(vals, axis=1)

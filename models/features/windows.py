@@ -166,6 +166,7 @@ class CentredWindows:
         self.lo, self.hi = window_bounds(self.values.shape[0], self.half_width)
         self._rolling: dict[int, tuple[FloatArray, FloatArray]] = {} if shared is None else shared
         self._quantiles: dict[float, FloatArray] = {}
+        self._tiles: dict[int, tuple[IntArray, NDArray[np.bool_]]] = {}
 
     def rolling_mean_var(self, width: int) -> tuple[FloatArray, FloatArray]:
         """:func:`rolling_mean_var` of the series with sub-windows of ``width`` epochs (memoised).
@@ -176,6 +177,18 @@ class CentredWindows:
         if width not in self._rolling:
             self._rolling[width] = rolling_mean_var(self.values, width)
         return self._rolling[width]
+
+    def tiles(self, width: int) -> tuple[IntArray, NDArray[np.bool_]]:
+        """Start of each window's consecutive tiles of ``width`` epochs, from its first epoch (memoised).
+
+        Returns ``starts`` of shape (n_epochs, self.width // width), clipped to the last tile start
+        of the series, and ``inside``: whether the tile ends inside the (truncated) window.
+        """
+        if width not in self._tiles:
+            starts = self.lo[:, None] + width * np.arange(self.width // width)[None, :]
+            inside = starts + width - 1 <= self.hi[:, None]
+            self._tiles[width] = np.minimum(starts, max(self.values.shape[0] - width, 0)), inside
+        return self._tiles[width]
 
     @property
     def width(self) -> int:
