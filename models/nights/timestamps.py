@@ -32,7 +32,6 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..errors import Problem
-from ._clock import fixed_clock_ns
 from .checks import MAX_LISTED
 
 if TYPE_CHECKING:  # pyarrow has no type information
@@ -231,8 +230,7 @@ def date_time_ns(date_col: pa.Array, time_col: pa.Array,
     every date and every time reads as written (untrimmed, no nulls) and every date lies in
     1900..2261: then the sum is what ``strptime`` of the joined, trimmed text with ``fmt`` gives
     (each part sets its own fields, Arrow reads a text to its end and a blank in the format
-    takes any run of blanks). Times of day written at a fixed width are read by arithmetic
-    (:func:`~models.nights._clock.fixed_clock_ns`), with the same result.
+    takes any run of blanks).
 
     Parameters
     ----------
@@ -262,23 +260,18 @@ def date_time_ns(date_col: pa.Array, time_col: pa.Array,
     dates = date_col.dictionary
     if not pa.types.is_string(dates.type):
         return None
-    since_midnight = fixed_clock_ns(time_col, split[1])  # the usual HH:MM:SS column, read by arithmetic
     try:
         days = pc.strptime(dates, format=split[0], unit="ns", error_is_null=True)
-        if since_midnight is None:
-            clock = pc.strptime(time_col, format=split[1], unit="ns", error_is_null=True)
-            if clock.null_count:
-                return None
-            since_midnight = np.asarray(clock.to_numpy(zero_copy_only=False)).view(np.int64) - _1900
+        clock = pc.strptime(time_col, format=split[1], unit="ns", error_is_null=True)
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
         return None
-    if days.null_count:
+    if days.null_count or clock.null_count:
         return None
     day_ns = np.asarray(days.to_numpy(zero_copy_only=False)).view(np.int64)
     if day_ns.size and (day_ns.min() < _1900 or day_ns.max() >= _LAST_DAY):
         return None
     codes = np.asarray(date_col.indices.to_numpy(zero_copy_only=False), dtype=np.intp)
-    ns = day_ns[codes] + since_midnight
+    ns = day_ns[codes] + (np.asarray(clock.to_numpy(zero_copy_only=False)).view(np.int64) - _1900)
     before_day = fmt.partition("%d")[0]
     if "%" in before_day or any(c.isspace() for c in before_day):
         return ns, None

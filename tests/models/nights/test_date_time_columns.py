@@ -15,7 +15,6 @@ import pytest
 from factories import one_problem, problems_of
 
 from models import ImportProfile, night_from_csv
-from models.nights._clock import fixed_clock_ns
 from models.nights.timestamps import NAT, date_time_ns, parse_with_format, settle_doubtful
 
 BERLIN = "Europe/Berlin"
@@ -127,38 +126,3 @@ def test_date_and_time_pairs_agree_with_pandas_exact(fmt: str) -> None:
         expect = pd.DatetimeIndex(pd.to_datetime(text.to_pylist(), format=fmt, exact=True, errors="coerce"))
         np.testing.assert_array_equal(split == NAT, expect.isna())  # pandas: the reference
         np.testing.assert_array_equal(split[~expect.isna()], expect[~expect.isna()].as_unit("ns").asi8)
-
-
-# ---- times of day written at a fixed width, read by arithmetic -------------------------------
-
-@pytest.mark.parametrize("time_fmt", ["%H:%M:%S", "%H.%M.%S", "%H:%M"])
-def test_fixed_width_times_of_day_equal_arrow_strptime(time_fmt: str) -> None:
-    # every second of a day (minutes for %H:%M), in a sliced array: Arrow's strptime is the reference
-    step = 60 if time_fmt == "%H:%M" else 1
-    clock = pd.date_range("2031-03-02", periods=86_400 // step, freq=f"{step}s")
-    text = pa.array(["pad", *clock.strftime(time_fmt)])[1:]
-    got = fixed_clock_ns(text, time_fmt)
-    arrow = pc.strptime(text, format=time_fmt, unit="ns").to_numpy(zero_copy_only=False).view(np.int64)
-    assert got is not None
-    np.testing.assert_array_equal(got, arrow - pd.Timestamp("1900-01-01").value)
-    np.testing.assert_array_equal(got, np.arange(0, 86_400, step) * 1_000_000_000)  # pandas' own clock
-
-
-@pytest.mark.parametrize("odd", ["7:05:03", " 22:41:30", "22:41:30 ", "24:00:00", "23:60:00", "23:59:60",
-                                 "22-41-30", "2a:41:30", "22:41:3", "٢٢:41:30"])
-def test_times_of_day_not_written_strictly_are_left_to_strptime(odd: str) -> None:
-    text = pa.array(["22:41:00", odd, "22:42:00"])
-    assert fixed_clock_ns(text, "%H:%M:%S") is None
-    assert fixed_clock_ns(pa.array(["22:41:00", None]), "%H:%M:%S") is None
-    assert fixed_clock_ns(pa.array(["10:41:00"]), "%I:%M:%S") is None  # another shape of format
-    # the whole reader still agrees with pandas on such a row (pandas: the reference)
-    dates = pa.array(["02.03.2031"] * 3).dictionary_encode()
-    fast = date_time_ns(dates, text, "%d.%m.%Y %H:%M:%S")
-    if fast is not None:
-        joined = pc.utf8_trim_whitespace(pc.binary_join_element_wise(pa.array(["02.03.2031"] * 3), text, " "))
-        got = settle_doubtful(fast[0], "%d.%m.%Y %H:%M:%S", lambda idx: pc.take(joined, pa.array(idx)),
-                              days_written=fast[1])
-        want = pd.DatetimeIndex(pd.to_datetime(joined.to_pylist(), format="%d.%m.%Y %H:%M:%S", exact=True,
-                                               errors="coerce"))
-        np.testing.assert_array_equal(got == NAT, want.isna())
-        np.testing.assert_array_equal(got[~want.isna()], want[~want.isna()].as_unit("ns").asi8)
