@@ -22,7 +22,6 @@ autocorrelation is NaN (undefined 0/0, as in R and statsmodels).
 from __future__ import annotations
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import NDArray
 
 from .windows import CentredWindows
@@ -45,7 +44,25 @@ def _max_shift(stat: FloatArray, windows: CentredWindows, width: int) -> FloatAr
     # window c allows starts c - h .. c + h - 2w + 1; starts outside 0..n-2w are NaN
     padded = np.full(n + span - 1, np.nan)
     padded[h:h + diff.shape[0]] = diff
-    largest: FloatArray = np.fmax.reduce(sliding_window_view(padded, span), axis=1)
+    return _sliding_fmax(padded, span)
+
+
+def _sliding_fmax(values: FloatArray, span: int) -> FloatArray:
+    """Largest non-NaN value of every run of ``span`` consecutive values (NaN if none), shape (n - span + 1,).
+
+    Van Herk / Gil-Werman: in aligned blocks of ``span`` values, running maxima from each block's
+    start and from its end; a run is the end of one block and the start of the next. Maxima are
+    exact, so this equals the maximum of each run taken directly.
+    """
+    n = values.shape[0]
+    n_blocks = -(-n // span)
+    blocks = np.full(n_blocks * span, np.nan)
+    blocks[:n] = values
+    blocks = blocks.reshape(n_blocks, span)
+    from_start = np.fmax.accumulate(blocks, axis=1).reshape(-1)
+    from_end = np.fmax.accumulate(blocks[:, ::-1], axis=1)[:, ::-1].reshape(-1)
+    runs = n - span + 1
+    largest: FloatArray = np.fmax(from_end[:runs], from_start[span - 1:span - 1 + runs])
     return largest
 
 
@@ -94,10 +111,8 @@ def max_var_shift(windows: CentredWindows, *, width: int) -> FloatArray:
 
 def _tile_spread(stat: FloatArray, windows: CentredWindows, width: int) -> FloatArray:
     """Sample variance (ddof=1) over each window's tiles of a per-tile statistic (NaN tiles skipped)."""
-    n_tiles = windows.width // width
-    starts = windows.lo[:, None] + width * np.arange(n_tiles)[None, :]  # tiles from the window's first epoch
-    inside = starts + width - 1 <= windows.hi[:, None]
-    vals = np.where(inside, stat[np.minimum(starts, stat.shape[0] - 1)], np.nan)
+    starts, inside = windows.tiles(width)  # tiles from the window's first epoch
+    vals = np.where(inside, stat[starts], np.nan)
     defined = ~np.isnan(vals)
     k = defined.sum(axis=1)
     low = np.fmin.reduce(vals, axis=1)
@@ -164,16 +179,83 @@ def stability(windows: CentredWindows, *, width: int) -> FloatArray:
     return _tiles(windows, width, power=2, use_var=False)
 
 
-def _longest_true_run(mask: NDArray[np.bool_]) -> FloatArray:
-    """Length of the longest run of True in each row of a 2-D boolean array."""
-    n_rows, n_cols = mask.shape
-    framed = np.zeros((n_rows, n_cols + 2), dtype=np.int8)  # False columns keep runs inside rows
-    framed[:, 1:-1] = mask
-    step = np.diff(framed.ravel())
-    starts, stops = np.flatnonzero(step == 1), np.flatnonzero(step == -1)
-    longest = np.zeros(n_rows)
-    np.maximum.at(longest, starts // (n_cols + 2), (stops - starts).astype(np.float64))
-    return longest
+class _Stretches:
+    """Runs of consecutive windows sharing ``keys``, each with the epochs its windows cover, laid end to end.
+
+    Attributes: ``first_window`` (first window of each run), ``group`` and ``position`` (run and
+    epoch of each laid-out element), ``first_pair`` (laid-out index of each window's first epoch).
+    """
+
+    def __init__(self, windows: CentredWindows, *keys: FloatArray) -> None:
+        n = windows.values.shape[0]
+        new_run = np.zeros(n, dtype=bool)
+        new_run[0] = True
+        for key in keys:
+            new_run[1:] |= key[1:] != key[:-1]
+        first_window = np.flatnonzero(new_run)
+        last_window = np.append(first_window[1:] - 1, n - 1)
+        start = windows.lo[first_window]
+        length = windows.hi[last_window] + 1 - start
+        offset = np.concatenate([[0], np.cumsum(length)[:-1]]).astype(np.int64)
+        self.first_window = first_window
+        self.group = np.repeat(np.arange(first_window.shape[0]), length)
+        self.position = np.arange(self.group.shape[0]) - offset[self.group] + start[self.group]
+        window_run = np.cumsum(new_run) - 1
+        self.first_pair = offset[window_run] + windows.lo - start[window_run]
+
+
+def _bin_labels(values: FloatArray, low: FloatArray, step: FloatArray, n_bins: int) -> FloatArray:
+    """Bin label 1..n_bins of each value given its window's lowest value and bin width (NaN stays NaN).
+
+    Bin b holds (edge_b, edge_{b+1}] with edges ``low + b * step`` as ``np.linspace(min, max,
+    n_bins + 1)``; a value within rounding of an interior edge is placed by comparing it with
+    that edge.
+    """
+    scaled = values - low
+    scaled /= step
+    distance = np.rint(scaled)
+    distance -= scaled
+    near = np.abs(distance, out=distance) < 1e-9 * n_bins
+    near &= scaled > 0.5
+    (idx,) = np.nonzero(near)
+    label = np.ceil(scaled, out=scaled)  # NaN stays NaN
+    np.clip(label, 1.0, float(n_bins), out=label)
+    if idx.size:
+        edge_idx = np.rint((values[idx] - low[idx]) / step[idx])
+        keep = edge_idx < n_bins
+        idx, edge_idx = idx[keep], edge_idx[keep]
+        label[idx] = np.where(values[idx] > edge_idx * step[idx] + low[idx], edge_idx + 1, edge_idx)
+    return label
+
+
+def _run_lengths(flags: NDArray[np.bool_], *, reverse: bool = False) -> NDArray[np.int64]:
+    """Length of the run of True ending (``reverse``: starting) at each position, 0 at a False."""
+    f = flags[::-1] if reverse else flags
+    idx = np.arange(1, f.shape[0] + 1)
+    runs = idx - np.maximum.accumulate(np.where(f, 0, idx))
+    return runs[::-1] if reverse else runs
+
+
+def _range_max(values: NDArray[np.int64], first: NDArray[np.int64], last: NDArray[np.int64]) -> NDArray[np.int64]:
+    """``max(values[first[i] .. last[i]])`` (inclusive; 0 for an empty range), from a sparse table."""
+    length = last - first + 1
+    out = np.zeros(first.shape[0], dtype=np.int64)
+    ok = np.flatnonzero(length > 0)
+    if not ok.size:
+        return out
+    first, last, length = first[ok], last[ok], length[ok]
+    level = np.floor(np.log2(length)).astype(np.int64)
+    tables = [values]
+    while 2 ** len(tables) <= length.max():
+        prev, half = tables[-1], 2 ** (len(tables) - 1)
+        tables.append(np.maximum(prev[:-half], prev[half:]))
+    best = np.zeros(ok.size, dtype=np.int64)
+    for k in np.unique(level).tolist():
+        rows = np.flatnonzero(level == k)
+        table = tables[k]
+        best[rows] = np.maximum(table[first[rows]], table[last[rows] - 2 ** k + 1])
+    out[ok] = best
+    return out
 
 
 def flat_spots(windows: CentredWindows, *, n_bins: int = 10) -> FloatArray:
@@ -194,28 +276,31 @@ def flat_spots(windows: CentredWindows, *, n_bins: int = 10) -> FloatArray:
     ndarray of float64, shape (n_epochs,)
         Run length in epochs; for a constant window, the longest run of observed epochs (all of
         them when none is missing); NaN without observed epochs.
+
+    Notes
+    -----
+    Neighbouring windows usually share their minimum and maximum, hence their bins. Consecutive
+    windows with the same bins form a group; each group labels the epochs it covers once, and
+    each window's longest run is read from run lengths of that one labelled stretch (the run
+    that enters the window is cut at its first epoch; the rest come from a sparse-table range
+    maximum).
     """
-    rows = windows.rows
-    low, high = windows.minimum[:, None], windows.maximum[:, None]
+    low_all, high_all = np.nan_to_num(windows.minimum), np.nan_to_num(windows.maximum)
+    stretch = _Stretches(windows, low_all, high_all)
+    low, high = low_all[stretch.first_window], high_all[stretch.first_window]
     step = np.where(high > low, (high - low) / n_bins, 1.0)  # edges as np.linspace(min, max, n_bins + 1)
-    scaled = rows - low
-    scaled /= step
-    # a value within rounding of an interior edge is placed by comparing it with that edge
-    distance = np.rint(scaled)
-    distance -= scaled
-    near = np.abs(distance, out=distance) < 1e-9 * n_bins
-    near &= scaled > 0.5
-    r, c = np.nonzero(near)
-    label = np.ceil(scaled, out=scaled)  # bin b holds (edge_b, edge_{b+1}]: label b + 1; NaN stays NaN
-    np.maximum(label, 1.0, out=label)
-    np.minimum(label, float(n_bins), out=label)
-    if r.size:
-        edge_idx = np.rint((rows[r, c] - low[r, 0]) / step[r, 0])
-        keep = edge_idx < n_bins
-        r, c, edge_idx = r[keep], c[keep], edge_idx[keep]
-        label[r, c] = np.where(rows[r, c] > edge_idx * step[r, 0] + low[r, 0], edge_idx + 1, edge_idx)
-    same = label[:, 1:] == label[:, :-1]  # NaN never equals: missing epochs break runs
-    return np.where(windows.any_observed, _longest_true_run(same) + 1.0, np.nan)
+    group = stretch.group
+    label = _bin_labels(windows.values[stretch.position], low[group], step[group], n_bins)
+    same = label[1:] == label[:-1]  # NaN never equals: missing epochs break runs
+    same &= group[1:] == group[:-1]
+    ending, starting = _run_lengths(same), _run_lengths(same, reverse=True)
+    first, n_pairs = stretch.first_pair, windows.hi - windows.lo
+    if same.size:
+        entering = np.minimum(starting[np.minimum(first, same.shape[0] - 1)], n_pairs)
+        longest = np.maximum(entering, _range_max(ending, first + entering, first + n_pairs - 1))
+    else:
+        longest = np.zeros(first.shape[0], dtype=np.int64)
+    return np.where(windows.any_observed, longest + 1.0, np.nan)
 
 
 def crossing_points(windows: CentredWindows) -> FloatArray:
@@ -224,7 +309,8 @@ def crossing_points(windows: CentredWindows) -> FloatArray:
     Definition = R ``tsfeatures::crossing_points``: ``b_t = x_t <= median`` (ties at the median
     count as below), feature = number of ``t`` with ``b_t != b_{t+1}``. Pairs with a missing epoch
     are skipped (R: ``sum(..., na.rm = TRUE)``). In sleep windows the median is often 0, so only
-    transitions between 0 and positive counts count.
+    transitions between 0 and positive counts count. Consecutive windows with the same median
+    share one pass over the epochs they cover; each count is a difference of running counts.
 
     Parameters
     ----------
@@ -235,9 +321,16 @@ def crossing_points(windows: CentredWindows) -> FloatArray:
     ndarray of float64, shape (n_epochs,)
         Count of crossings; NaN without observed epochs.
     """
-    below = windows.rows <= windows.quantile(0.5)[:, None]
-    both = windows.observed[:, 1:] & windows.observed[:, :-1]
-    crossings = ((below[:, 1:] != below[:, :-1]) & both).sum(axis=1).astype(np.float64)
+    median = np.nan_to_num(windows.quantile(0.5))
+    stretch = _Stretches(windows, median)  # consecutive windows with the same median
+    group, values = stretch.group, windows.values[stretch.position]
+    below = values <= median[stretch.first_window][group]
+    both = ~np.isnan(values)
+    both = both[1:] & both[:-1] & (group[1:] == group[:-1])
+    changes = np.zeros(group.shape[0], dtype=np.int64)
+    np.cumsum((below[1:] != below[:-1]) & both, out=changes[1:])
+    first = stretch.first_pair
+    crossings = (changes[first + windows.hi - windows.lo] - changes[first]).astype(np.float64)
     return np.where(windows.any_observed, crossings, np.nan)
 
 

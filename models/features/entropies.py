@@ -19,7 +19,7 @@ from itertools import permutations
 from math import factorial
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
+from numpy.lib.stride_tricks import as_strided, sliding_window_view
 from numpy.typing import NDArray
 
 from .windows import CentredWindows, window_bounds
@@ -37,23 +37,16 @@ def _cumulative(mask: NDArray[np.bool_]) -> NDArray[np.int64]:
 
 
 def _pair_matches(values: FloatArray, usable: NDArray[np.bool_], max_lag: int, order: int,
-                  tolerance: float, *, backward: bool) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
+                  tolerance: float) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
     """Template-pair matches for every lag d = 1..max_lag, shapes (n_epochs, max_lag).
 
-    Forward: row i is the pair (i, i + d). Backward: row j is the pair (j - d, j). Returns the
-    matches on ``order`` values (B) and on ``order + 1`` values (A).
+    Row i, column d - 1 is the pair (i, i + d). Returns the matches on ``order`` values (B) and on
+    ``order + 1`` values (A).
     """
     n, m = values.shape[0], order
-    nan, tail = np.full(max_lag, np.nan), np.full(m, np.nan)
-    if backward:  # row j: y[j - max_lag] .. y[j]; |y[j] - y[j - d]| for d = 1..max_lag
-        lagged = sliding_window_view(np.concatenate([nan, values, tail]), max_lag + 1)
-        close = lagged[:, max_lag - 1::-1] - lagged[:, max_lag:]
-        padded = np.concatenate([np.zeros(max_lag, bool), usable])
-        partner = sliding_window_view(padded, max_lag + 1)[:, max_lag - 1::-1]
-    else:  # row i: y[i] .. y[i + max_lag]; |y[i] - y[i + d]|
-        lagged = sliding_window_view(np.concatenate([values, nan, tail]), max_lag + 1)
-        close = lagged[:, 1:] - lagged[:, :1]
-        partner = sliding_window_view(np.concatenate([usable, np.zeros(max_lag, bool)]), max_lag + 1)[:, 1:]
+    lagged = sliding_window_view(np.concatenate([values, np.full(max_lag + m, np.nan)]), max_lag + 1)
+    close = lagged[:, 1:] - lagged[:, :1]  # row i: y[i + d] - y[i]
+    partner = sliding_window_view(np.concatenate([usable, np.zeros(max_lag, bool)]), max_lag + 1)[:, 1:]
     close = np.abs(close, out=close) < tolerance  # NaN compares False: a missing value never matches
     match_b = close[:n] & usable[:, None] & partner
     for k in range(1, m):
@@ -61,13 +54,30 @@ def _pair_matches(values: FloatArray, usable: NDArray[np.bool_], max_lag: int, o
     return match_b, match_b & close[m:n + m]
 
 
-def _lag_prefix(matches: NDArray[np.bool_]) -> NDArray[np.signedinteger]:
-    """``out[t, D] = number of matches in rows < t with lag <= D + 1`` (exact integers)."""
-    rows, lags = matches.shape[0] + 1, matches.shape[1]
-    dtype = np.int32 if rows * lags < 2**31 else np.int64  # int32 halves the memory traffic
-    out = np.zeros((rows, lags), dtype=dtype)
-    np.cumsum(matches, axis=0, dtype=dtype, out=out[1:])
-    return np.cumsum(out, axis=1, dtype=dtype, out=out)
+def _lag_sums(matches: NDArray[np.bool_], lags: list[int]) -> dict[int, tuple[NDArray[np.int64], NDArray[np.int64]]]:
+    """Running pair counts over lags 1..L for each L in ``lags``.
+
+    Returns, for each L, ``(earlier, later)`` of shape (n_epochs + 1,): ``earlier[t]`` counts the
+    matching pairs (i, i + d), d <= L, with ``i < t``; ``later[t]`` those with ``i + d < t``.
+    """
+    n, max_lag = matches.shape
+    bounds = sorted(set(lags))
+    starts = [0, *bounds[:-1]]
+    # later partner: column d - 1 of row j holds the pair (j - d, j), read from a sheared view
+    padded = np.zeros((n + max_lag, max_lag), dtype=bool)
+    padded[max_lag:] = matches
+    row, col = padded.strides
+    sheared = as_strided(padded[max_lag - 1:], shape=(n, max_lag), strides=(row, col - row))
+    out = {}
+    parts = [np.cumsum(np.add.reduceat(m_, starts, axis=1, dtype=np.int64), axis=1) for m_ in (matches, sheared)]
+    for idx, lag in enumerate(bounds):
+        pair = []
+        for part in parts:
+            running = np.zeros(n + 1, dtype=np.int64)
+            np.cumsum(part[:, idx], out=running[1:])
+            pair.append(running)
+        out[lag] = (pair[0], pair[1])
+    return out
 
 
 def sample_entropy(values: FloatArray, half_widths: tuple[int, ...], *, order: int = 2,
@@ -110,10 +120,13 @@ def sample_entropy(values: FloatArray, half_widths: tuple[int, ...], *, order: i
 
     Notes
     -----
-    Pair counts of all windows come from prefix sums: with ``e = hi - order`` the last template
-    start of a window, its pairs ``lo <= i < j <= e`` are (pairs with ``j <= e``, counted by the
-    later template) minus (pairs with ``i < lo``, counted by the earlier one), both over lags
-    ``1 .. e - lo``; every pair with ``i < lo`` and such a lag ends before ``e``.
+    Pair counts of all windows come from running counts (exact integers): with ``e = hi - order``
+    the last template start of a window, its pairs ``lo <= i < j <= e`` are (pairs with
+    ``j <= e``, counted by the later template) minus (pairs with ``i < lo``, counted by the
+    earlier one), both over lags ``1 .. e - lo``; every pair with ``i < lo`` and such a lag ends
+    before ``e``. Full windows share one lag limit per window size; a window truncated at the
+    series' start holds every pair ending by ``e``, one truncated at its end every pair from
+    ``lo``, so only per-row sums over a few lag limits are needed.
     """
     y = np.asarray(values, dtype=np.float64)
     n, m = y.shape[0], int(order)
@@ -124,19 +137,26 @@ def sample_entropy(values: FloatArray, half_widths: tuple[int, ...], *, order: i
     observed = ~np.isnan(y)
     usable: NDArray[np.bool_] = np.all(sliding_window_view(np.concatenate([observed, np.zeros(m, dtype=bool)]), m + 1),
                                        axis=1)
-    fwd_b, fwd_a = (_lag_prefix(x) for x in _pair_matches(y, usable, max_lag, m, tolerance, backward=False))
-    bwd_b, bwd_a = (_lag_prefix(x) for x in _pair_matches(y, usable, max_lag, m, tolerance, backward=True))
+    full_lags = [min(2 * h - m, max_lag) for h in half_widths if 2 * h - m >= 1]
+    sums = [_lag_sums(x, [*full_lags, max_lag]) for x in _pair_matches(y, usable, max_lag, m, tolerance)]
     n_usable = np.zeros(n + 1, dtype=np.int64)
     np.cumsum(usable, out=n_usable[1:])
     for col, h in enumerate(half_widths):
         lo, hi = window_bounds(n, h)
         end = hi - m  # last template start
-        lags = np.minimum(end - lo, max_lag)
-        ok = lags >= 1
-        col_idx = np.maximum(lags - 1, 0)
+        ok = end - lo >= 1
         row_end = np.clip(end + 1, 0, n)
-        b = np.where(ok, bwd_b[row_end, col_idx] - fwd_b[lo, col_idx], 0)
-        a = np.where(ok, bwd_a[row_end, col_idx] - fwd_a[lo, col_idx], 0)
+        counts = []
+        for lag_sums in sums:  # B, then A
+            earlier_all, later_all = lag_sums[max_lag]
+            # left-truncated windows: every pair ending by ``end``; right-truncated: every pair from ``lo``
+            count = np.where(lo == 0, later_all[row_end], earlier_all[n] - earlier_all[lo])
+            full = np.flatnonzero((lo > 0) & (hi < n - 1) & ok)
+            if full.size:
+                earlier, later = lag_sums[min(2 * h - m, max_lag)]
+                count[full] = later[row_end[full]] - earlier[lo[full]]
+            counts.append(np.where(ok, count, 0))
+        b, a = counts
         t = (n_usable[np.maximum(end + 1, lo)] - n_usable[lo]).astype(np.float64)
         cap = np.log(np.maximum(t * (t - 1.0) / 2.0, 1.0))
         ratio = np.log(np.maximum(b, 1).astype(np.float64)) - np.log(np.maximum(a, 1).astype(np.float64))
@@ -200,30 +220,46 @@ def permutation_entropy(values: FloatArray, half_widths: tuple[int, ...], *, ord
 
 
 @lru_cache(maxsize=16)
-def _dft_basis(length: int) -> FloatArray:
-    """Real DFT basis of one window length: columns cos(2 pi k t / N) then sin(...), k = 0..N//2."""
-    t = np.arange(length)[:, None]
+def _centred_dft_basis(length: int) -> tuple[FloatArray, FloatArray]:
+    """cos and sin of ``2 pi k u / N`` for u = 1..N//2 (rows) and k = 0..N//2 (columns), N = ``length`` (odd)."""
+    u = np.arange(1, length // 2 + 1)[:, None]
     k = np.arange(length // 2 + 1)[None, :]
-    angle = 2.0 * np.pi * ((t * k) % length) / length
-    return np.concatenate([np.cos(angle), np.sin(angle)], axis=1)
+    angle = 2.0 * np.pi * ((u * k) % length) / length
+    return np.cos(angle), np.sin(angle)
 
 
-def _normalised_spectral_entropy(power: FloatArray, lengths: NDArray[np.int64], *,
-                                 scratch: FloatArray | None = None) -> FloatArray:
+def _centred_power(rows: FloatArray) -> FloatArray:
+    """``|X_k|**2`` for k = 0..N//2 of each row of odd length N = 2h + 1, shape (n_rows, h + 1).
+
+    With the time origin at the middle epoch (a phase that cancels in the power), ``X_k`` has
+    real part ``x_h + sum_u (x_{h+u} + x_{h-u}) cos(2 pi k u / N)`` and imaginary part
+    ``-sum_u (x_{h+u} - x_{h-u}) sin(2 pi k u / N)``, u = 1..h: two products with h-row bases,
+    half the work of one product with the full N-row basis.
+    """
+    h = rows.shape[1] // 2
+    cos, sin = _centred_dft_basis(rows.shape[1])
+    later, earlier = rows[:, h + 1:], rows[:, h - 1::-1]
+    real = (later + earlier) @ cos
+    real += rows[:, h:h + 1]
+    imag = (later - earlier) @ sin
+    np.square(real, out=real)
+    real += np.square(imag, out=imag)
+    return real
+
+
+def _normalised_spectral_entropy(power: FloatArray, lengths: NDArray[np.int64]) -> FloatArray:
     """Entropy of one-sided periodogram rows over log2(bins); row r uses ``lengths[r] // 2 + 1`` bins.
 
     ``power`` holds ``|X_k|**2`` for k = 0.. (zero past a row's bins) and is modified in place. As
     scipy ``periodogram`` (density, one-sided), every bin except DC and, for even lengths, Nyquist
     is doubled. H = -sum p log2 p is computed as ``log2(T) - sum(P log2 P) / T``, T = sum(P).
-    ``scratch`` (same shape as ``power``) is used as work space when given.
     """
     bins = lengths // 2 + 1
     power[:, 1:] *= 2.0
     even = np.flatnonzero(lengths % 2 == 0)
     power[even, bins[even] - 1] *= 0.5
     total = power.sum(axis=1)
-    logs = np.zeros_like(power) if scratch is None else scratch
-    logs[...] = 0.0
+    logs = np.zeros_like(power)
     np.log2(power, out=logs, where=power > 0)
     plogp = np.einsum("ij,ij->i", power, logs)
     positive = total > 0
@@ -242,8 +278,9 @@ def spectral_entropy(windows: CentredWindows) -> FloatArray:
 
     Missing epochs inside a window are replaced by the window's observed mean (so they add no
     power); the window length N still counts them. Truncated windows at the night's ends use
-    their own length N. Full-length windows use one matrix product with a cached DFT basis
-    (window lengths like 61 and 181 are primes, where FFTs are slow).
+    their own length N. Full-length windows (odd N) use two matrix products with cached
+    half-length DFT bases (see :func:`_centred_power`; lengths like 61 and 181 are primes, where
+    FFTs are slow).
 
     Parameters
     ----------
@@ -261,11 +298,7 @@ def spectral_entropy(windows: CentredWindows) -> FloatArray:
     lengths = windows.hi - windows.lo + 1
     out = np.full(n, np.nan)
     if n >= width:  # full windows: the contiguous rows h .. n - h - 1
-        coef = dev[h:n - h] @ _dft_basis(width)
-        half = coef.shape[1] // 2
-        power, scratch = np.square(coef[:, :half], out=coef[:, :half]), np.square(coef[:, half:], out=coef[:, half:])
-        power += scratch
-        out[h:n - h] = _normalised_spectral_entropy(power, lengths[h:n - h], scratch=scratch)
+        out[h:n - h] = _normalised_spectral_entropy(_centred_power(dev[h:n - h]), lengths[h:n - h])
     edge = np.flatnonzero(lengths < width)  # truncated windows: at most 2 per length
     if edge.size:
         edge = edge[np.argsort(lengths[edge], kind="stable")]

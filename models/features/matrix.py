@@ -274,8 +274,9 @@ def _window_columns(counts: NDArray[np.float64], epoch_seconds: float,
         sampen = sample_entropy(logs, half_widths, order=config.sampen_order, tolerance=config.sampen_tolerance)
         permen = permutation_entropy(logs, half_widths, order=config.permen_order)
     columns: list[NDArray[np.float64]] = []
+    shared: dict[int, tuple[NDArray[np.float64], NDArray[np.float64]]] = {}  # tile statistics of any window size
     for col, h in enumerate(half_widths):
-        windows = CentredWindows(logs, h)
+        windows = CentredWindows(logs, h, shared=shared)
         if "summary" in config.families:
             columns += list(window_summaries(windows).values())
             columns += list(window_shares(counts, h, movement_level=level).values())

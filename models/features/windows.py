@@ -138,6 +138,9 @@ class CentredWindows:
         The series (nightbank passes ``log1p(counts)``); NaN marks a missing epoch.
     half_width : int
         Half-width of each window in epochs; windows span ``2 * half_width + 1`` epochs.
+    shared : dict or None, default=None
+        Memo of :meth:`rolling_mean_var` results to share with other windows over the same
+        ``values`` (filled on demand); None for a private one.
 
     Attributes
     ----------
@@ -154,19 +157,38 @@ class CentredWindows:
     deviations that are exactly 0.
     """
 
-    def __init__(self, values: FloatArray, half_width: int) -> None:
+    def __init__(self, values: FloatArray, half_width: int, *,
+                 shared: dict[int, tuple[FloatArray, FloatArray]] | None = None) -> None:
         self.values = np.asarray(values, dtype=np.float64)
         self.half_width = int(half_width)
         pad = np.full(self.half_width, np.nan)
         self.rows = sliding_window_view(np.concatenate([pad, self.values, pad]), 2 * self.half_width + 1)
         self.lo, self.hi = window_bounds(self.values.shape[0], self.half_width)
-        self._rolling: dict[int, tuple[FloatArray, FloatArray]] = {}
+        self._rolling: dict[int, tuple[FloatArray, FloatArray]] = {} if shared is None else shared
+        self._quantiles: dict[float, FloatArray] = {}
+        self._tiles: dict[int, tuple[IntArray, NDArray[np.bool_]]] = {}
 
     def rolling_mean_var(self, width: int) -> tuple[FloatArray, FloatArray]:
-        """:func:`rolling_mean_var` of the series with sub-windows of ``width`` epochs (memoised)."""
+        """:func:`rolling_mean_var` of the series with sub-windows of ``width`` epochs (memoised).
+
+        They do not depend on the window size: windows of several sizes over the same series may
+        share one memo (``shared`` argument of the constructor).
+        """
         if width not in self._rolling:
             self._rolling[width] = rolling_mean_var(self.values, width)
         return self._rolling[width]
+
+    def tiles(self, width: int) -> tuple[IntArray, NDArray[np.bool_]]:
+        """Start of each window's consecutive tiles of ``width`` epochs, from its first epoch (memoised).
+
+        Returns ``starts`` of shape (n_epochs, self.width // width), clipped to the last tile start
+        of the series, and ``inside``: whether the tile ends inside the (truncated) window.
+        """
+        if width not in self._tiles:
+            starts = self.lo[:, None] + width * np.arange(self.width // width)[None, :]
+            inside = starts + width - 1 <= self.hi[:, None]
+            self._tiles[width] = np.minimum(starts, max(self.values.shape[0] - width, 0)), inside
+        return self._tiles[width]
 
     @property
     def width(self) -> int:
@@ -203,7 +225,7 @@ class CentredWindows:
     def maximum(self) -> FloatArray:
         """Largest observed value of each window (NaN if none), shape (n_epochs,)."""
         last = np.maximum(self.n_observed - 1, 0)
-        return np.take_along_axis(self.sorted_rows, last[:, None], axis=1)[:, 0]
+        return self.sorted_rows.reshape(-1)[np.arange(last.shape[0]) * self.width + last]
 
     @cached_property
     def is_constant(self) -> NDArray[np.bool_]:
@@ -217,30 +239,41 @@ class CentredWindows:
         Same definition as ``np.percentile(x, 100 * q)`` (R type 7): with ``k`` observed values
         sorted as ``s``, position ``p = q * (k - 1)``, value ``s[floor(p)]`` linearly
         interpolated towards ``s[floor(p) + 1]``. NaN for a window with no observed value.
+        Memoised per ``q``.
         """
+        if q in self._quantiles:
+            return self._quantiles[q]
         k = self.n_observed
         pos = q * np.maximum(k - 1, 0).astype(np.float64)
         below = np.floor(pos).astype(np.int64)
         above = np.minimum(below + 1, np.maximum(k - 1, 0))
         frac = pos - below
-        a = np.take_along_axis(self.sorted_rows, below[:, None], axis=1)[:, 0]
-        b = np.take_along_axis(self.sorted_rows, above[:, None], axis=1)[:, 0]
+        flat = self.sorted_rows.reshape(-1)
+        row_start = np.arange(k.shape[0], dtype=np.int64) * self.width
+        a, b = flat[row_start + below], flat[row_start + above]
         diff = b - a
         # numpy's lerp: a + diff * t, computed from the upper end when t >= 0.5
-        out = np.where(frac >= 0.5, b - diff * (1.0 - frac), a + diff * frac)
+        out: FloatArray = np.where(frac >= 0.5, b - diff * (1.0 - frac), a + diff * frac)
         out[~self.any_observed] = np.nan
+        out.setflags(write=False)
+        self._quantiles[q] = out
         return out
 
     @cached_property
     def _centred(self) -> tuple[FloatArray, FloatArray]:
         """Mean (anchored at the minimum) and deviations, computed in one buffer."""
         dev = self.rows - self.minimum[:, None]
-        missing = ~self.observed
-        np.copyto(dev, 0.0, where=missing)
+        gapped = np.flatnonzero(self.n_observed < self.width)  # rows with a missing or outside epoch
+        missing = np.isnan(self.rows[gapped])
+        part = dev[gapped]
+        part[missing] = 0.0
+        dev[gapped] = part
         total = dev.sum(axis=1)
         offset = np.divide(total, self.n_observed, out=np.full_like(total, np.nan), where=self.any_observed)
         dev -= offset[:, None]
-        np.copyto(dev, 0.0, where=missing)
+        part = dev[gapped]
+        part[missing] = 0.0
+        dev[gapped] = part
         return self.minimum + offset, dev
 
     @property

@@ -17,7 +17,7 @@ from __future__ import annotations
 from typing import Any
 
 from sqlalchemy import delete, func, select, update
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, aliased
 
 from ..errors import Conflict, Unprocessable
 from . import db, versions
@@ -166,8 +166,29 @@ def update_night(session: Session, *, study_id: str, participant_id: str, night_
     return night_snapshot(row, participant_id)
 
 
+def _refuse_overlaps(session: Session, *, source_pk: int, target_pk: int, dropped: list[int], participant_id: str,
+                     to: str) -> None:
+    """Refuse a merge whose moving nights overlap in clock time, [start, end), nights of the target."""
+    moving, staying = aliased(db.Night), aliased(db.Night)
+    pairs = session.execute(
+        select(moving.night_id, moving.start, staying.night_id, staying.label, staying.start)
+        .join(staying, (staying.participant_pk == target_pk) & (moving.start_utc < staying.end_utc)
+              & (moving.end_utc > staying.start_utc))
+        .where(moving.participant_pk == source_pk, moving.pk.not_in(dropped or [-1]))
+        .order_by(moving.start_utc, staying.start_utc)).all()
+    if not pairs:
+        return
+    named = "; ".join(f"night {m!r} (starts {m_start}) overlaps night {t!r}"
+                      f"{'' if label is None else f' (label {label!r})'} (starts {t_start})"
+                      for m, m_start, t, label, t_start in pairs[:5])
+    more = f"; and {len(pairs) - 5} more pair(s)" if len(pairs) > 5 else ""
+    raise Conflict(f"{len({p[0] for p in pairs})} night(s) of participant {participant_id!r} overlap in time nights of "
+                   f"participant {to!r}: {named}{more}; rename with allow_overlap=true to merge anyway",
+                   code="overlapping_night")
+
+
 def rename_participant(session: Session, *, study_id: str, participant_id: str, to: str,
-                       actor: str) -> dict[str, Any]:
+                       actor: str, allow_overlap: bool = False) -> dict[str, Any]:
     """Give a participant the id ``to``, merging it into participant ``to`` when that one exists.
 
     Without a participant ``to``, the participant keeps everything under the new id. Otherwise
@@ -179,6 +200,8 @@ def rename_participant(session: Session, *, study_id: str, participant_id: str, 
     version (else the active one stays active). Cached scorings of the moved nights are dropped
     (they name version numbers and offsets of the old id). Pooled versions keep their records
     under the old id: offsets learnt for it apply to ``to`` once the pooled model is trained again.
+    A merge is refused while a night that would move overlaps in clock time, [start, end), a night
+    of ``to`` (duplicates, which do not move, aside), unless ``allow_overlap``.
 
     Returns
     -------
@@ -194,7 +217,8 @@ def rename_participant(session: Session, *, study_id: str, participant_id: str, 
         Code ``same_participant`` if ``to`` is the participant's own id.
     Conflict
         Code ``training_in_progress`` while a training of the participant is queued or running;
-        ``participant_id_case_clash`` if ``to`` differs from another participant's id only by case.
+        ``participant_id_case_clash`` if ``to`` differs from another participant's id only by case;
+        ``overlapping_night`` (naming the nights) if moving nights overlap nights of ``to``.
     """
     check_id(to, "participant id")
     if to == participant_id:
@@ -223,6 +247,9 @@ def rename_participant(session: Session, *, study_id: str, participant_id: str, 
         for pk, content_hash in session.execute(select(db.Night.pk, db.Night.content_hash)
                                                 .where(db.Night.participant_pk == source.pk)):
             (dropped if content_hash in have else []).append(pk)
+        if not allow_overlap:
+            _refuse_overlaps(session, source_pk=source.pk, target_pk=target.pk, dropped=dropped,
+                             participant_id=participant_id, to=to)
         _delete_nights(session, dropped)
         session.execute(update(db.Night).where(db.Night.participant_pk == source.pk).values(participant_pk=target.pk))
         keep_active = versions.active_version(session, study=study, participant=target) is None

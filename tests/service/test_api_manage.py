@@ -303,6 +303,29 @@ def test_rename_merges_into_the_target_and_keeps_its_versions_readable(world: Wo
     assert "'p07'" in clash.json()["detail"]
 
 
+def test_rename_refuses_to_merge_nights_that_overlap_in_time(world: World) -> None:
+    http = world.http
+    moving = http.post(_nights("s1", "P01"), json=_body(seed=1)).json()["night_id"]  # 22:41 .. 00:41
+    later = http.post(_nights("s1", "P01"), json=_body(seed=2, start="2031-03-04T22:41:00+01:00")).json()["night_id"]
+    staying = http.post(_nights("s1", "P02"), json=_body(seed=3, start="2031-03-03T00:11:00+01:00",
+                                                         label="lab copy")).json()["night_id"]  # 00:11 .. 02:11
+    rename = "/v1/studies/s1/participants/P01/rename"
+    refused = http.post(rename, json={"to": "P02"})
+    assert refused.status_code == 409 and refused.headers["content-type"] == "application/problem+json"
+    assert refused.json()["code"] == "overlapping_night"
+    detail = refused.json()["detail"]
+    assert f"{moving!r}" in detail and f"{staying!r}" in detail and "'lab copy'" in detail and later not in detail
+    assert {n["night_id"] for n in http.get(_nights("s1", "P01")).json()["data"]} == {moving, later}  # nothing moved
+    assert {n["night_id"] for n in http.get(_nights("s1", "P02")).json()["data"]} == {staying}
+    # touching ends are not an overlap: [start, end) intervals (a night ending as the other starts)
+    assert http.post(_nights("s1", "P03"), json=_body(seed=4, start="2031-03-02T20:41:00+01:00")).status_code == 201
+    assert http.post("/v1/studies/s1/participants/P03/rename", json={"to": "P01"}).status_code == 200
+    merged = http.post(rename, json={"to": "P02"}, params={"allow_overlap": "true"})
+    assert merged.status_code == 200, merged.text
+    assert (merged.json()["nights_moved"], merged.json()["duplicates_dropped"]) == (3, 0)
+    assert len(http.get(_nights("s1", "P02")).json()["data"]) == 4
+
+
 def test_rename_waits_for_a_queued_training(world: World) -> None:
     http = world.http
     for i in range(3):

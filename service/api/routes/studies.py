@@ -66,7 +66,9 @@ def delete_participant(access: Annotated[StudyAccess, Depends(study_access(Role.
 
 @router.post("/{study}/participants/{pid}/rename", response_model=RenameOut, responses=problem_responses(409))
 def rename_participant(access: Annotated[StudyAccess, Depends(study_access(Role.admin))], pid: ParticipantPath,
-                       body: RenameIn, factory: FactoryDep) -> Any:
+                       body: RenameIn, factory: FactoryDep,
+                       allow_overlap: Annotated[bool, Query(
+                           description="merge even if moving nights overlap nights of the target")] = False) -> Any:
     """Give a participant another id, merging it into the participant of that id if there is one (admin; audited).
 
     Without a participant `to` the participant simply takes the new id. Otherwise its nights move
@@ -74,13 +76,14 @@ def rename_participant(access: Annotated[StudyAccess, Depends(study_access(Role.
     (`duplicates_dropped`). Personal model versions stay readable under `to`: they get new
     numbers after every number `to` has had (`personal_versions` maps them), as candidates when
     `to` has an active version. Refused with 409 while a training of the participant is queued or
-    running (`training_in_progress`), and when `to` differs from another participant's id only by
-    case (`participant_id_case_clash`).
+    running (`training_in_progress`), when `to` differs from another participant's id only by
+    case (`participant_id_case_clash`), and when a night that would move overlaps in time,
+    [start, end), a night of `to` (`overlapping_night`, naming both; `allow_overlap=true` merges anyway).
     """
     try:
         with session_scope(factory, write=True) as session:
             out = manage.rename_participant(session, study_id=access.study_id, participant_id=pid, to=body.to,
-                                            actor=access.actor)
+                                            actor=access.actor, allow_overlap=allow_overlap)
             study = registry.find_study(session, access.study_id)
             refresh_choices(session, study=study, participants=[registry.find_participant(session, study, body.to)])
             return out

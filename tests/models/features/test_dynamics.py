@@ -181,6 +181,39 @@ def test_missing_epochs_are_skipped_not_zero():
     assert lag1_autocorrelation(w)[0] == pytest.approx(ref, rel=1e-12)
 
 
+@pytest.mark.parametrize("h", [3, 10, 30])
+def test_runs_and_crossings_on_a_restless_series_with_gaps(h):
+    # a restless start and end around quiet epochs, with a gap: window minima, maxima and medians
+    # change from one window to the next, and runs are cut at window edges and at the gap
+    rng = np.random.default_rng(40 + h)
+    counts = np.concatenate([rng.poisson(150, 60), rng.poisson(4, 80) * (rng.random(80) < 0.3),
+                             rng.poisson(120, 60)]).astype(float)
+    counts[100:107] = np.nan
+    x = np.log1p(counts)
+    w = CentredWindows(x, h)
+    cross, flat = crossing_points(w), flat_spots(w)
+    for i, win in _windows(x, h):
+        obs = ~np.isnan(win)
+        if not obs.any():
+            assert np.isnan(cross[i]) and np.isnan(flat[i])
+            continue
+        below = win <= np.median(win[obs])  # R crossing_points, pairs with a missing epoch skipped
+        assert cross[i] == np.sum((below[1:] != below[:-1]) & obs[1:] & obs[:-1]), f"crossings at {i}"
+        # pandas cut (the Python port's binning) on each observed stretch; a missing epoch ends a run
+        low, high = win[obs].min(), win[obs].max()
+        stretches = np.split(win, np.flatnonzero(~obs))
+        longest = 0.0
+        for part in stretches:
+            part = part[~np.isnan(part)]
+            if part.size and high > low:
+                labels = pd.cut(np.r_[low, high, part], bins=10, labels=False)[2:]
+                runs = np.diff(np.flatnonzero(np.diff(np.r_[np.nan, labels, np.nan]) != 0))
+                longest = max(longest, float(runs.max()))
+            elif part.size:
+                longest = max(longest, float(part.size))
+        assert flat[i] == longest, f"flat spots at {i}"
+
+
 @pytest.mark.filterwarnings("error")
 @pytest.mark.parametrize("value", [0.0, 2.5])
 def test_constant_windows_have_defined_values_without_warnings(value):
