@@ -15,6 +15,8 @@ grid point (grid order is the product of the grid's values in the order given).
 Each night is decoded once per (method, stickiness, emission weight): the Viterbi path does not
 depend on ``threshold`` (Viterbi grid points differing only in it share one result and the first
 of them stands for all), and the marginals are thresholded for every ``threshold`` of the grid.
+A stickiness below 1 that would push a switching probability of the chain to 1 or more is left out
+of the grid (the trials list only the settings tried).
 """
 
 from __future__ import annotations
@@ -148,6 +150,9 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
     cache: dict[tuple[Any, ...], list[NDArray[np.float64]]] = {}
     seen: set[tuple[Any, ...]] = set()
     for point in _grid_points(grid):
+        stickiness = float(point.get("stickiness", 1.0))
+        if 0.0 < stickiness < 1.0 and max(chain.transition[0, 1], chain.transition[1, 0]) / stickiness >= 1.0:
+            continue  # the chain switches too often for this stickiness (a switching probability >= 1)
         decoder = HmmDecoder(chain, **point)
         key = (decoder.method, decoder.stickiness, decoder.emission_weight)
         if decoder.method == "viterbi":
@@ -170,6 +175,8 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
         trials.append(point | {"objective": float(objective), "balanced_accuracy": float(ba),
                                "awakenings_mae": errors["awakenings"], "waso_mae_min": errors["waso_min"]})
         decoders.append(decoder)
+    if not trials:
+        raise InvalidHmmError("no setting of the grid fits the chain (every stickiness is too small)")
     ok = [i for i, t in enumerate(trials) if t["balanced_accuracy"] >= ba_floor and np.isfinite(t["objective"])]
     if ok:
         best = min(ok, key=lambda i: trials[i]["objective"])

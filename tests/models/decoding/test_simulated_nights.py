@@ -121,3 +121,15 @@ def test_decoders_keep_unscored_epochs_unscored() -> None:
         make_decoder("argmax")
     with pytest.raises(ValueError, match="fitted chain"):
         make_decoder("hmm", stickiness=2.0)
+
+
+def test_settings_the_chain_cannot_take_are_left_out() -> None:
+    """A chain fitted on shuffled labels switches at most epochs: a stickiness of 0.5 would make its
+    switching probabilities exceed 1, so that grid point is skipped (and only that one)."""
+    rng = np.random.default_rng(5)
+    labels = [rng.integers(0, 2, 400).astype(float) for _ in range(3)]
+    p = [np.clip(y * 0.6 + 0.2 + rng.normal(0, 0.1, y.size), 0, 1) for y in labels]
+    choice = tune_decoder(p, labels, ba_floor=0.0, grid={"stickiness": [0.5, 1.0], "method": ["viterbi"]})
+    assert [t["stickiness"] for t in choice.trials] == [1.0]
+    with pytest.raises(ValueError, match="no setting of the grid"):
+        tune_decoder(p, labels, grid={"stickiness": [0.5], "method": ["viterbi"]})
