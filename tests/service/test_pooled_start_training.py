@@ -80,3 +80,10 @@ def test_personal_training_starts_from_the_active_pooled_version(http, study, ad
     assert out.status_code == 200, out.text
     p = np.array(out.json()["p_sleep"], dtype=float)
     assert out.json()["model_version"] == 2 and np.all((p >= 0) & (p <= 1))
+    # consent withdrawal of P-02 removes the pooled version trained on their nights and a personal
+    # version that carries its trees; P-01's from-scratch version stays
+    removed = http.delete(f"/v1/studies/{study}/participants/P-02", headers=admin).json()
+    carries = model.info_["start"] == "pooled"
+    assert removed["pooled_versions"] == 1 and removed["personal_versions"] == int(carries)
+    left = [v["version"] for v in http.get(f"{personal}/models", headers=admin).json()]
+    assert left == ([1] if carries else [2, 1])
