@@ -93,7 +93,7 @@ class PooledBase:
     descriptors: dict[str, float] = field(repr=False)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class StartChoice:
     """The pooled-start setting chosen in an inner loop (:func:`tune_start`).
 
@@ -108,6 +108,9 @@ class StartChoice:
     base_balanced_accuracy : float
         The same figure of the pooled model itself (0 added rounds).
     n_inner_splits : int
+    validation : tuple of (ndarray, ndarray), default=()
+        Per inner split, the chosen cell's P(sleep) on the validation rows and their reference
+        (each of shape (n_rows,)): what a calibration or decoder of this model may be fitted on.
     """
 
     added_rounds: int
@@ -117,6 +120,7 @@ class StartChoice:
     auc: float
     base_balanced_accuracy: float
     n_inner_splits: int
+    validation: tuple[tuple[NDArray[np.float64], NDArray[np.float64]], ...] = field(default=(), repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able form."""
@@ -236,6 +240,7 @@ def tune_start(nights: Sequence[NightRows], base: SleepModel, descriptors: Mappi
     top = max(ADDED_ROUNDS)
     ba: dict[tuple[float, float, int], list[float]] = {}
     auc: dict[tuple[float, float, int], list[float]] = {}
+    kept: dict[tuple[float, float, int], list[tuple[NDArray[np.float64], NDArray[np.float64]]]] = {}
     for train, val in splits:
         y_val = y[val]
         for lr, lam in START_GRID:
@@ -250,6 +255,7 @@ def tune_start(nights: Sequence[NightRows], base: SleepModel, descriptors: Mappi
                     float(balanced_accuracy_score(y_val, p >= base.threshold_)) if np.unique(y_val).size == 2
                     else float(np.mean((p >= base.threshold_) == y_val)))
                 auc.setdefault((lr, lam, r), []).append(_auc(y_val, p))
+                kept.setdefault((lr, lam, r), []).append((p, y_val))
     scores = {key: _mean(v) for key, v in ba.items()}
     # best mean balanced accuracy; ties to fewer added rounds, then the grid's order
     order = {cell: i for i, cell in enumerate(START_GRID)}
@@ -257,7 +263,8 @@ def tune_start(nights: Sequence[NightRows], base: SleepModel, descriptors: Mappi
     lr, lam, r = best
     base_key = (START_GRID[0][0], START_GRID[0][1], 0)
     return StartChoice(added_rounds=r, learning_rate=lr, reg_lambda=lam, balanced_accuracy=scores[best],
-                       auc=_mean(auc[best]), base_balanced_accuracy=scores[base_key], n_inner_splits=len(splits))
+                       auc=_mean(auc[best]), base_balanced_accuracy=scores[base_key], n_inner_splits=len(splits),
+                       validation=tuple(kept[best]))
 
 
 def prefer_scratch(scratch_auc: float, start: StartChoice) -> bool:
