@@ -11,6 +11,19 @@ Nested validation, so that nothing about a held-out night reaches its prediction
   model predicts every night of the held-out group;
 - final model: the same search on all labelled nights, refitted on all of them.
 
+Given a :class:`~models.learning.pooled_start.PooledBase` (``base``), every study (outer fold
+and final) also tunes a *pooled-start* model (:func:`~models.learning.pooled_start.tune_start`:
+the pooled booster boosted further on the study's nights, settings chosen on the same
+forward-chained inner splits, always starting from ``base.held_out``, a pooled model that never
+saw the participant) and keeps the from-scratch model only if it wins by the rule of
+:func:`~models.learning.pooled_start.prefer_scratch`. The outer held-out night is then predicted
+by the chosen model refitted on the other nights (pooled start: continuing ``base.held_out``);
+the final model continues ``base.final``, the deployed pooled model, with the settings chosen
+with ``base.held_out``. ``info_["start"]`` says which one (``"pooled"`` or ``"scratch"``) and
+``info_["added_rounds"]`` how many trees were fitted on the participant's nights (0 = the pooled
+model itself; a from-scratch model's number of trees). Without ``base`` every model starts from
+scratch, as before.
+
 With ``n`` groups of labelled nights (``n`` nights when none overlap) that is ``n + 1``
 independent studies; they run on ``n_jobs`` threads, each seeded from ``config.seed`` and its
 position, so results do not depend on ``n_jobs``. ``config.min_personal_nights`` counts
@@ -26,12 +39,14 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..decoding.fitting import NightDecoding, fit_night_decoding
 from ..features.source import FeatureSource
 from ..nights.night import Night
 from .artifacts import library_versions
 from .classifier import SleepModel
 from .config import TrainingConfig, TrainingDataError
 from .held_out import HeldOutNight, night_metrics_table, summary_table
+from .pooled_start import PooledBase, StartChoice, continue_boosting, prefer_scratch, start_design, tune_start
 from .rows import NightRows, labelled_nights, prepare_nights, study_seed
 from .splits import SPLITTERS, fold_groups
 from .tasks import Progress, Reporter, run_tasks
@@ -75,6 +90,8 @@ class PersonalResult:
         return {
             "participant_id": self.model.participant_id_,
             "threshold": self.model.threshold_,
+            "start": self.model.info_.get("start", "scratch"),
+            "added_rounds": self.model.info_.get("added_rounds"),
             "best_params": self.best_params,
             "summary": self.summary.reset_index(names="metric").to_dict(orient="records"),
             "night_metrics": self.night_metrics.to_dict(orient="records"),
@@ -82,14 +99,71 @@ class PersonalResult:
         }
 
 
-def _model(pipe: TunedPipeline, nights: Sequence[NightRows], config: TrainingConfig, seed: int) -> SleepModel:
+def _model(pipe: TunedPipeline, nights: Sequence[NightRows], config: TrainingConfig, seed: int,
+           start: StartChoice | None = None) -> SleepModel:
     features = nights[0].features
+    info: dict[str, Any] = {"seed": seed, "inner_auc": pipe.best_value, "tuning": pipe.trials,
+                            "libraries": library_versions(), "start": "scratch", "added_rounds": pipe.n_rounds}
+    if start is not None:
+        info["pooled_start"] = start.to_dict()
     return SleepModel(
         kind="personal", booster=pipe.booster, threshold=pipe.threshold, feature_config=config.features,
         feature_version=features.version, feature_names=features.names, params=pipe.hyperparameters,
         n_rounds=pipe.n_rounds, projection=pipe.projection, participant_id=nights[0].night.participant_id,
-        training_nights=tuple(n.night.content_hash for n in nights), decoding=pipe.decoding,
-        info={"seed": seed, "inner_auc": pipe.best_value, "tuning": pipe.trials, "libraries": library_versions()})
+        training_nights=tuple(n.night.content_hash for n in nights), decoding=pipe.decoding, info=info)
+
+
+def _started(base: SleepModel, descriptors: dict[str, float], nights: Sequence[NightRows], choice: StartChoice,
+             pipe: TunedPipeline, config: TrainingConfig, seed: int) -> SleepModel:
+    """The pooled model ``base`` continued on ``nights`` with the chosen setting (``pipe``: the scratch rival)."""
+    Z, y, _ = start_design(base, nights, descriptors)
+    booster = continue_boosting(base, Z, y, added_rounds=choice.added_rounds, learning_rate=choice.learning_rate,
+                                reg_lambda=choice.reg_lambda, config=config, seed=seed)
+    own = tuple(n.night.content_hash for n in nights)
+    params = dict(base.params_) | {"added_rounds": choice.added_rounds, "added_learning_rate": choice.learning_rate,
+                                   "added_reg_lambda": choice.reg_lambda,
+                                   "n_rounds": base.n_rounds_ + choice.added_rounds}
+    return SleepModel(
+        kind="personal", booster=booster, threshold=base.threshold_, feature_config=base.feature_config_,
+        feature_version=base.feature_version_, feature_names=base.feature_names_, params=params,
+        n_rounds=base.n_rounds_ + choice.added_rounds, projection=base.projection_,
+        descriptor_names=base.descriptor_names_, participant_id=nights[0].night.participant_id,
+        training_nights=own + tuple(h for h in base.training_nights_ if h not in set(own)),
+        decoding=_start_decoding(base, nights, choice, config, seed),
+        info={"seed": seed, "start": "pooled", "added_rounds": choice.added_rounds, "inner_auc": choice.auc,
+              "pooled_start": choice.to_dict(), "tuning": pipe.trials, "scratch_inner_auc": pipe.best_value,
+              "base_n_rounds": base.n_rounds_, "base_threshold": base.threshold_,
+              "base_training_nights": len(base.training_nights_), "descriptors": dict(descriptors),
+              "libraries": library_versions()})
+
+
+def _start_decoding(base: SleepModel, nights: Sequence[NightRows], choice: StartChoice, config: TrainingConfig,
+                    seed: int) -> NightDecoding | None:
+    """Decoding of a pooled-start model, fitted on the chosen setting's inner validation predictions.
+
+    Each inner split's validation rows (the scored in-bed epochs of its validation nights, in epoch
+    order) are one sequence; the chain is counted from the participant's training rows. Without
+    inner predictions, and with no added rounds (the model is then the pooled model itself), the
+    pooled model's own decoding is kept.
+    """
+    if choice.added_rounds == 0 or not choice.validation:
+        return base.decoding_
+    train = [r.reference[r.rows] for r in nights]  # type: ignore[index]
+    return fit_night_decoding([p for p, _ in choice.validation], [y for _, y in choice.validation], train,
+                              epoch_seconds=nights[0].night.epoch_seconds, decoder=config.decoder,
+                              calibration=config.calibration, seed=seed, min_sensitivity=config.min_sensitivity)
+
+
+def _fit_study(rows: Sequence[NightRows], *, config: TrainingConfig, seed: int, reporter: Reporter, stage: str,
+               base: PooledBase | None, final: bool) -> SleepModel:
+    """One study: the from-scratch search, and with ``base`` the pooled start and the choice between them."""
+    pipe = tune_and_fit(rows, config=config, seed=seed, reporter=reporter, stage=stage)
+    if base is None:
+        return _model(pipe, rows, config, seed)
+    choice = tune_start(rows, base.held_out, base.descriptors, config=config, seed=seed, reporter=reporter)
+    if prefer_scratch(pipe.best_value, choice):
+        return _model(pipe, rows, config, seed, start=choice)
+    return _started(base.final if final else base.held_out, base.descriptors, rows, choice, pipe, config, seed)
 
 
 def personal_studies(nights: Sequence[Night], config: TrainingConfig = TrainingConfig()) -> int:
@@ -128,7 +202,8 @@ def _labelled(nights: Sequence[Night], config: TrainingConfig, source: FeatureSo
 
 
 def train_personal(nights: Sequence[Night], *, config: TrainingConfig = TrainingConfig(),
-                   progress: Progress | None = None, feature_cache: FeatureSource | None = None) -> PersonalResult:
+                   progress: Progress | None = None, feature_cache: FeatureSource | None = None,
+                   base: PooledBase | None = None) -> PersonalResult:
     """Tune, evaluate (nested) and train a participant's personal model.
 
     Parameters
@@ -142,6 +217,9 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     feature_cache : FeatureSource, default=None
         Where night features are looked up and misses kept (:mod:`models.features.source`);
         None = a :class:`~models.features.cache.FeatureCache` for this call only.
+    base : PooledBase, default=None
+        The pooled models to start from (module docstring); its ``held_out`` model must never
+        have seen this participant. None = every model from scratch.
 
     Returns
     -------
@@ -167,16 +245,16 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
             others = [rows[i] for i in train_idx]
             seed = study_seed(config.seed, k + 1)
             what = "night" if held_idx.size == 1 else f"group of {held_idx.size} nights"
-            model = _model(tune_and_fit(others, config=config, seed=seed, reporter=reporter,
-                                        stage=f"personal: {what} {k + 1}/{n} held out"), others, config, seed)
+            model = _fit_study(others, config=config, seed=seed, reporter=reporter,
+                               stage=f"personal: {what} {k + 1}/{n} held out", base=base, final=False)
             out = [(int(i), _held_out(model, rows[i], config)) for i in held_idx]
             return out, _trial_row("+".join(h.night_id for _, h in out), model)
         return run
 
     def final_task(reporter: Reporter) -> SleepModel:
         seed = study_seed(config.seed, 0)
-        pipe = tune_and_fit(rows, config=config, seed=seed, reporter=reporter, stage="personal: final model")
-        return _model(pipe, rows, config, seed)
+        return _fit_study(rows, config=config, seed=seed, reporter=reporter, stage="personal: final model",
+                          base=base, final=True)
 
     results = run_tasks([final_task, *(outer_task(k) for k in range(len(outer)))], n_jobs=config.n_jobs,
                         total=(n + 1) * per_study, progress=progress)
@@ -189,7 +267,7 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
 
 
 def _held_out(model: SleepModel, held: NightRows, config: TrainingConfig) -> HeldOutNight:
-    p = model.predict_proba(held.night, features=held.features)
+    p = model.predict_proba(held.night, features=held.features, descriptors=model.info_.get("descriptors"))
     return HeldOutNight(participant_id=held.night.participant_id, night_hash=held.night.content_hash,
                         label=held.night.label, method="personal", p_sleep=p, sleep=model.calls(p),
                         reference=held.reference, in_bed=held.night.in_bed, threshold=model.threshold_,
@@ -199,4 +277,5 @@ def _held_out(model: SleepModel, held: NightRows, config: TrainingConfig) -> Hel
 
 def _trial_row(study: str, model: SleepModel) -> dict[str, Any]:
     tuning = model.info_["tuning"]
-    return {"study": study, **tuning, "threshold": model.threshold_, **model.params_}
+    return {"study": study, **tuning, "start": model.info_["start"], "added_rounds": model.info_["added_rounds"],
+            "threshold": model.threshold_, **model.params_}

@@ -66,6 +66,7 @@ from .config import POOLED_PARAMS, TrainingConfig, TrainingDataError
 from .descriptors import DESCRIPTOR_NAMES, participant_descriptors
 from .held_out import HeldOutNight, night_metrics_table, summary_table
 from .offset import ShrinkageChoice, choose_shrinkage, estimate_offset
+from .pooled_start import PooledBase
 from .rows import NightRows, iter_prepared, labelled_nights, study_seed
 from .splits import fold_groups, participant_groups
 from .tasks import Progress, Reporter, run_tasks
@@ -111,6 +112,9 @@ class PooledResult:
         per method.
     offset_rule : str, default=OFFSET_RULE
         How ``offsets`` were estimated (see the module docstring).
+    fold_models : dict of int to SleepModel, default={}
+        The model of each outer fold (key = ``folds`` value): fold ``k``'s model never saw the
+        participants of fold ``k``.
     """
 
     model: SleepModel
@@ -125,6 +129,40 @@ class PooledResult:
     night_metrics: pd.DataFrame = field(repr=False)
     summary: pd.DataFrame = field(repr=False)
     offset_rule: str = OFFSET_RULE
+    fold_models: dict[int, SleepModel] = field(default_factory=dict, repr=False)
+
+    def base_for(self, participant_id: str, *, nights: Sequence[Night] | None = None) -> PooledBase:
+        """The pooled models a personal model of ``participant_id`` starts from.
+
+        Parameters
+        ----------
+        participant_id : str
+        nights : sequence of Night, default=None
+            The participant's nights, for the descriptors of a participant the pooled models were
+            not given (ignored otherwise).
+
+        Returns
+        -------
+        PooledBase
+            ``held_out`` = the fold model that left the participant out (the final model for a
+            participant it never saw); ``final`` = :attr:`model`.
+
+        Raises
+        ------
+        TrainingDataError
+            If the participant is unknown to the pooled training and no ``nights`` are given
+            (code ``no_descriptors``).
+        """
+        if participant_id in self.descriptors:
+            descriptors = dict(self.descriptors[participant_id])
+        elif nights is not None:
+            descriptors = participant_descriptors(list(nights))
+        else:
+            raise TrainingDataError(f"the pooled model has no descriptors of participant {participant_id!r}; "
+                                    "pass their nights", code="no_descriptors")
+        fold = self.folds.get(participant_id)
+        held_out = self.model if fold is None else self.fold_models[fold]
+        return PooledBase(final=self.model, held_out=held_out, descriptors=descriptors)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able summary (no per-epoch arrays)."""
@@ -364,4 +402,5 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     summary = night_metrics.groupby("method", sort=False).apply(summary_table)
     return PooledResult(model=final, held_out=held_out, offsets=offsets, shrinkage=search.shrinkage,
                         shrinkage_search=search, offset_held_out=offset_held_out, descriptors=descriptors,
-                        folds=fold_of, baselines=baselines, night_metrics=night_metrics, summary=summary)
+                        folds=fold_of, baselines=baselines, night_metrics=night_metrics, summary=summary,
+                        fold_models=dict(enumerate(fitted)))

@@ -282,7 +282,8 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
     stages = _Stages(progress, pooled_total + sum(personal_totals.values()))
     pooled = train_pooled(nights, config=config, progress=stages.part(pooled_total), feature_cache=feature_cache)
     personal = {pid: train_personal(nights[pid], config=config, progress=stages.part(personal_totals[pid]),
-                                    feature_cache=feature_cache) for pid in personal_pids}
+                                    feature_cache=feature_cache, base=pooled.base_for(pid))
+                for pid in personal_pids}
 
     linked = participant_groups({pid: labelled[pid] for pid in pids if labelled[pid]})
     records = [NightRecord.from_night(n, movement_time=config.movement_time) for pid in pids for n in labelled[pid]]

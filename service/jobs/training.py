@@ -21,6 +21,11 @@ the job is still held by the same claim (``attempts`` unchanged), so a worker wh
 taken over never adds a version; the version row holds its bytes, written in one transaction.
 A job that already stored its version (its worker died before recording the outcome) returns
 that version when claimed again instead of training twice.
+
+A pooled version is stored with its fold models. A personal training starts from the study's
+active pooled version (:mod:`service.store.pooled_bases`: the deployed model continues its final
+model, the held-out nights the fold model that left the participant out), or from scratch without
+one (or with another feature set); the version's hyperparameters and ``info_["start_note"]`` say which.
 """
 
 from __future__ import annotations
@@ -49,7 +54,7 @@ from models import (
 
 from ..config import Settings
 from ..errors import Conflict, NotFound, Unprocessable
-from ..store import db, versions
+from ..store import db, pooled_bases, versions
 from ..store.codec import encode_held_out
 from ..store.db import session_scope
 from ..store.features import load_features_of, store_features
@@ -252,13 +257,21 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
         night_pks = _night_pks(session, study_pk=study.pk, nights=nights)
         flags = versions.night_flags(session, study_pk=study.pk, participant_pk=participant.pk,
                                       codes=TRAINING_WARNING_CODES)
+        start = pooled_bases.pooled_base(session, study=study, participant_id=job.participant_id,
+                                         nights=load_nights(session, participant=participant, include_excluded=False))
     progress(0, 1, "personal: loading nights")
     features = _training_features(factory, nights, night_pks, config=config.features, n_jobs=config.n_jobs,
                                   progress=progress, stage="personal: night features")
-    result = compute(train_personal, {"nights": nights, "config": config, "feature_cache": features}, progress)
-    booster, meta = model_to_bytes(result.model)
-    metadata = _metadata(result.model, nights, config, _summary(result.summary), flags=flags,
+    start = pooled_bases.usable_start(start, features=features, nights=nights, config=config.features)
+    result = compute(train_personal, {"nights": nights, "config": config, "feature_cache": features,
+                                      "base": start.base}, progress)
+    model = result.model
+    model.info_["start_note"] = start.note
+    booster, meta = model_to_bytes(model)
+    metadata = _metadata(model, nights, config, _summary(result.summary), flags=flags,
                          night_metrics=tuple(_records(result.night_metrics)))
+    metadata = metadata.model_copy(update=start.metadata(model, participant_id=job.participant_id,
+                                                         hyperparameters=metadata.hyperparameters))
     with db.session_scope(factory, write=True) as session:
         _check_claim(session, job)
         study = find_study(session, job.study_id)
@@ -311,6 +324,7 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
         version = versions.add_version(session, study=study, participant=None, booster=booster, model_meta=meta,
                                        metadata=metadata, job_id=job.job_id, actor=_actor(session, job),
                                        held_out=encode_held_out(held_out))
+        pooled_bases.add_fold_models(session, version=version, fold_models=result.fold_models, folds=result.folds)
         refresh_choices(session, study=study, policy=config.choice_policy)
     return {"model_version": version.version, "active": version.active}
 

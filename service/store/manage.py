@@ -37,10 +37,11 @@ def delete_participant(session: Session, *, study_id: str, participant_id: str, 
     """Remove a participant after consent withdrawal.
 
     Deletes the participant's nights, cached scorings, personal model versions and training jobs,
-    and every pooled model version trained on their nights (named in its participants, or trained
-    on content the participant has: those models hold information from them). The audit log keeps
-    a record of the deletion (participant id and the numbers removed). Version numbers are not
-    given out again (:mod:`service.store.versions`).
+    every pooled model version trained on their nights (named in its participants, or trained
+    on content the participant has: those models hold information from them), and other
+    participants' personal versions started from such a pooled model (counted in
+    ``personal_versions``). The audit log keeps a record of the deletion (participant id and the
+    numbers removed). Version numbers are not given out again (:mod:`service.store.versions`).
 
     Returns
     -------
@@ -53,13 +54,16 @@ def delete_participant(session: Session, *, study_id: str, participant_id: str, 
     hashes = set(session.scalars(select(db.Night.content_hash).where(db.Night.participant_pk == participant.pk)))
     pooled = [v for v in versions.list_versions(session, study=study, participant=None)
               if participant_id in v.metadata.participants or hashes & set(v.metadata.training_hashes)]
+    # other participants' personal versions that started from a pooled model trained on these nights
+    derived = versions.personal_versions_trained_on(session, study=study, hashes=hashes, other_than=participant.pk)
     removed = {
         "nights": len(hashes),
         "scorings": _count(session, db.Scoring, db.Scoring.night_pk.in_(night_pks)),
-        "personal_versions": _count(session, db.ModelVersion, db.ModelVersion.participant_pk == participant.pk),
+        "personal_versions": _count(session, db.ModelVersion, db.ModelVersion.participant_pk == participant.pk)
+        + len(derived),
         "pooled_versions": len(pooled),
     }
-    for version in pooled:
+    for version in [*pooled, *derived]:
         session.execute(delete(db.ModelVersion).where(db.ModelVersion.pk == version.pk))
     from ..jobs.queue import withdraw_jobs  # deferred: the job queue builds on the store
 

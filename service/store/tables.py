@@ -218,6 +218,21 @@ class ModelVersion(Base):
     created_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)
 
 
+class PooledFoldModel(Base):
+    """A stored pooled version's fold model: the model that left out ``participants`` (XGBoost UBJSON + JSON)."""
+
+    __tablename__ = "pooled_fold_models"
+    __table_args__ = (UniqueConstraint("version_pk", "fold", name="uq_pooled_fold_model"),)
+
+    pk: Mapped[int] = mapped_column(Integer, primary_key=True)
+    version_pk: Mapped[int] = mapped_column(ForeignKey("model_versions.pk", ondelete="CASCADE"), index=True)
+    fold: Mapped[int] = mapped_column(Integer)
+    #: participant ids the fold model never saw
+    participants: Mapped[list[str]] = mapped_column(JSON)
+    booster: Mapped[bytes] = mapped_column(LargeBinary, deferred=True)
+    model_meta: Mapped[dict[str, Any]] = mapped_column(JSON, deferred=True)
+
+
 class VersionCounter(Base):
     """Last version number given out per numbering key; numbers are never given out twice.
 

@@ -52,7 +52,7 @@ from .snapshots import ParticipantInfo, StudyInfo
 __all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_personal_versions",
            "active_version", "add_version", "counter_key", "get_version", "list_versions", "load_held_out",
            "load_model", "mark_deleted_night", "move_personal_versions", "next_version_number", "night_flags",
-           "scope_of"]
+           "personal_versions_trained_on", "scope_of"]
 
 POOLED_SCOPE = "pooled"
 #: Held-out metric that decides promotion ("higher is better").
@@ -220,6 +220,16 @@ def add_version(session: Session, *, study: StudyInfo, participant: ParticipantI
                  detail={"version": number, "active": promote, "job_id": job_id,
                          "previous_active": None if current is None else current.version})
     return _info(row)
+
+
+def personal_versions_trained_on(session: Session, *, study: StudyInfo, hashes: set[str],
+                                 other_than: int) -> list[VersionInfo]:
+    """Personal versions of the study's participants but ``other_than`` (a participant pk) trained on any of
+    these contents: those that started from a pooled model trained on them."""
+    rows = session.scalars(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
+                                                         db.ModelVersion.participant_pk.is_not(None),
+                                                         db.ModelVersion.participant_pk != other_than))
+    return [_info(r) for r in rows if hashes & set(_metadata(r).training_hashes)]
 
 
 def list_versions(session: Session, *, study: StudyInfo, participant: ParticipantInfo | None) -> list[VersionInfo]:
