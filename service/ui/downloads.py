@@ -22,6 +22,7 @@ from ..store import registry, versions
 from ..store.db import session_scope
 from ..store.tokens import Role
 from .access import StudyPage
+from .calibration_view import version_calibration
 from .cards import model_card, model_card_markdown
 from .curves import held_out_roc
 from .figures import FIGURE_FORMATS, draw_bland_altman, draw_held_out_nights, draw_roc, render
@@ -237,8 +238,9 @@ def _card(access: StudyPage, factory: FactoryDep, pid: str | None, version: int,
         study = registry.find_study(session, access.study_id)
         owner = None if pid is None else registry.find_participant(session, study, pid)
         found = versions.get_version(session, study=study, participant=owner, version=version)
+        calibration = version_calibration(session, found)
     choice = None if owner is None or (owner.choice or {}).get("personal_version") != version else owner.choice
-    card = model_card(found, study_id=access.study_id, participant_id=pid, choice=choice)
+    card = model_card(found, study_id=access.study_id, participant_id=pid, choice=choice, calibration=calibration)
     stem = f"{access.study_id}-{pid or 'pooled'}-v{version}-model-card"
     if fmt == "json":
         return _file(json.dumps(card, indent=1).encode(), media_type="application/json", filename=f"{stem}.json")

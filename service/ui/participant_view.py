@@ -22,6 +22,7 @@ from ..store.db import session_scope
 from ..store.protocols import protocol_info
 from ..store.registry import NightInfo
 from ..store.versions import VersionInfo
+from .calibration_view import version_calibration
 
 __all__ = ["AGREEMENT_PARAMETERS", "COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "ParticipantView",
            "held_out_table", "last_job", "load_participant_view", "method_summary_table", "nights_table",
@@ -137,6 +138,9 @@ class ParticipantView:
     passed_over: dict[str, str] = field(default_factory=dict)
     #: why a version must not be chosen by ``auto``, by version number (personal) or "pooled"
     flags: dict[str, str] = field(default_factory=dict)
+    #: calibration facts of the active models with decoding (:func:`service.ui.calibration_view.calibration_facts`),
+    #: by label ("personal v2", "pooled v1")
+    calibrations: dict[str, dict[str, Any]] = field(default_factory=dict)
 
     @property
     def n_labelled(self) -> int:
@@ -209,12 +213,15 @@ def load_participant_view(factory: sessionmaker[Session], *, study_id: str, part
         if pooled is not None and (reason := model_flag(pooled, floor=floor)):
             flags["pooled"] = reason
         auto = auto_choice(session, study=study, participant=participant)
+        active = [(f"{v.kind} v{v.version}", v) for v in (next((v for v in personal_versions if v.active), None),
+                                                          pooled) if v is not None]
+        calibrations = {label: facts for label, v in active if (facts := version_calibration(session, v)) is not None}
         view = ParticipantView(
             study_id=study_id, participant_id=participant_id, nights=nights, versions=personal_versions,
             pooled=pooled, chosen_method=participant.chosen_method, choice=participant.choice, trainable=trainable,
             job=last_job(session, study=study, participant=participant),
             auto_method=None if auto is None else auto.method, passed_over={} if auto is None else auto.passed_over,
-            flags=flags)
+            flags=flags, calibrations=calibrations)
     try:
         return replace(view, comparison=reports.participant_comparison(factory, study_id=study_id,
                                                                         participant_id=participant_id))
