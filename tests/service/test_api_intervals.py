@@ -27,7 +27,10 @@ import pytest
 from backends import BACKENDS
 from harness import LiveServer, bearer, cohort_bodies, free_port, wait_for, worker_env
 
-pytestmark = pytest.mark.slow
+import models
+
+pytestmark = [pytest.mark.slow,
+              pytest.mark.skipif("NightDecoding" not in models.__all__, reason="models without decoding")]
 ROOT = Path(__file__).resolve().parents[2]
 PARAMETERS = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
 
