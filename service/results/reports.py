@@ -139,13 +139,15 @@ _CoverageInputs = dict[tuple[str, float], list[tuple[dict[str, list[float]], dic
 def _coverage_records(inputs: _CoverageInputs) -> list[dict[str, Any]]:
     """Per method and parameter: ``level`` (nominal), ``coverage`` (observed share of nights whose reference
     value lies in the interval), ``n_nights`` (nights with a defined interval and reference value) and
-    ``median_width`` (of those intervals, the parameter's unit)."""
+    ``median_width`` (over the nights' defined intervals, the parameter's unit), as
+    :attr:`models.StudyComparison.interval_coverage` has them."""
     out = []
-    for (method, level), pairs in inputs.items():
+    order = {m: i for i, m in enumerate((*MODEL_METHODS, AUTO))}
+    for (method, level), pairs in sorted(inputs.items(), key=lambda item: (order.get(item[0][0], len(order)),
+                                                                           item[0][0], item[0][1])):
         found = interval_coverage([iv for iv, _ in pairs], [truth for _, truth in pairs], level=level)
         for name, figures in found.items():
-            widths = [float(iv[name][1]) - float(iv[name][0]) for iv, truth in pairs
-                      if np.isfinite(iv[name]).all() and np.isfinite(float(truth[name]))]
+            widths = [float(iv[name][1]) - float(iv[name][0]) for iv, _ in pairs if np.isfinite(iv[name]).all()]
             out.append(json_record({"method": method, "parameter": name, "level": figures["nominal"],
                                     "coverage": figures["observed"], "n_nights": int(figures["n_nights"]),
                                     "median_width": float(np.median(widths)) if widths else float("nan")}))
