@@ -160,10 +160,10 @@ def test_rules_and_models_without_decoding_answer_null(trained) -> None:
     with session_scope(trained.factory) as session:
         row = session.get(db.ModelVersion, version.pk)
         booster, meta = row.booster, row.model_meta
-    meta_doc = json.loads(meta)
-    assert "decoding" in meta_doc
+    meta_doc = dict(meta)  # the artifact's metadata (a JSON column)
+    assert meta_doc["decoding"] is not None
     del meta_doc["decoding"]
-    old = model_from_bytes(booster, json.dumps(meta_doc).encode() if isinstance(meta, bytes) else json.dumps(meta_doc))
+    old = model_from_bytes(booster, meta_doc)
     assert old.decoding_ is None
     body = compute_scoring(night_from_json(trained.bodies["P-01"][3]), method="personal", model=old, version=1)
     assert body["intervals"] is None and body["uncertainty_min"] is None and body["p_sleep_posterior"] is None
