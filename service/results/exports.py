@@ -124,7 +124,7 @@ def _interval_cells(intervals: Any, uncertainty_min: Any) -> dict[str, Any]:
 
 
 def _held_out_cells(held: HeldOutNight) -> dict[str, Any]:
-    found = getattr(held, "intervals", None)
+    found = held.intervals
     return _interval_cells(None if found is None else found.intervals,
                            None if found is None else found.uncertainty_min)
 

@@ -175,7 +175,7 @@ def _assemble(nights: dict[str, list[Night]], held_out: HeldOut, policies: dict[
             reference = {k: float("nan") if v is None else float(v)
                          for k, v in compared[-1].reference_parameters.as_dict().items()}
             for method, held in models_here.items():
-                found = getattr(held, "intervals", None)
+                found = held.intervals
                 if found is not None:
                     coverage.setdefault((method, float(found.level)), []).append((found.intervals, reference))
         if missing:

@@ -27,10 +27,7 @@ import pytest
 from backends import BACKENDS
 from harness import LiveServer, bearer, cohort_bodies, free_port, wait_for, worker_env
 
-import models
-
-pytestmark = [pytest.mark.slow,
-              pytest.mark.skipif("NightDecoding" not in models.__all__, reason="models without decoding")]
+pytestmark = pytest.mark.slow
 ROOT = Path(__file__).resolve().parents[2]
 PARAMETERS = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
 
