@@ -14,14 +14,14 @@ from typing import Any
 
 import numpy as np
 
-from models import Night, StudyProtocol
+from models import HmmDecoder, Night, SleepModel, StudyProtocol, TrainingConfig
 
 __all__ = ["INTERVAL_PARAMETERS", "INTERVAL_PATHS", "decoded_extras", "interval_seed", "probabilities"]
 
 #: Parameters that get a per-night interval (model methods with decoding), in table order.
 INTERVAL_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
-#: Posterior paths drawn per night for the intervals (the training default of ``interval_paths``).
-INTERVAL_PATHS = 200
+#: Posterior paths drawn per night for the intervals (as for the held-out intervals of training).
+INTERVAL_PATHS: int = TrainingConfig().interval_paths
 
 
 def interval_seed(night_id: str, model_uid: str) -> int:
@@ -45,8 +45,8 @@ def probabilities(values: Any) -> list[float | None]:
     return [None if math.isnan(v) else v for v in np.round(np.asarray(values, dtype=np.float64), 5).tolist()]
 
 
-def decoded_extras(model: Any, night: Night, p_sleep: Any, *, protocol: StudyProtocol,
-                    seed: int) -> dict[str, Any]:
+def decoded_extras(model: SleepModel, night: Night, p_sleep: Any, *, protocol: StudyProtocol,
+                   seed: int) -> dict[str, Any]:
     """``intervals``, ``interval_level``, ``uncertainty_min`` and ``p_sleep_posterior`` of a model's scoring.
 
     Parameters
@@ -68,7 +68,7 @@ def decoded_extras(model: Any, night: Night, p_sleep: Any, *, protocol: StudyPro
     """
     out: dict[str, Any] = {"intervals": None, "interval_level": None, "uncertainty_min": None,
                            "p_sleep_posterior": None}
-    decoding = getattr(model, "decoding_", None)
+    decoding = model.decoding_
     if decoding is None:
         return out
     found = model.intervals(p_sleep, night, level=protocol.interval_level, n_paths=INTERVAL_PATHS, seed=seed,
@@ -77,9 +77,8 @@ def decoded_extras(model: Any, night: Night, p_sleep: Any, *, protocol: StudyPro
         out["intervals"] = {name: [_finite(v) for v in found.intervals[name]] for name in INTERVAL_PARAMETERS}
         out["interval_level"] = float(found.level)
         out["uncertainty_min"] = _finite(found.uncertainty_min)
-    marginals = getattr(decoding.decoder, "marginals", None)
-    if marginals is not None:
-        posterior = np.asarray(marginals(p_sleep), dtype=np.float64)
+    if isinstance(decoding.decoder, HmmDecoder):
+        posterior = decoding.decoder.marginals(p_sleep)
         out["p_sleep_posterior"] = probabilities(np.where(np.isnan(np.asarray(p_sleep, dtype=np.float64)),
                                                            np.nan, posterior))
     return out

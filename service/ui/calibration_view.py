@@ -21,6 +21,8 @@ import numpy as np
 from matplotlib.figure import Figure
 from sqlalchemy.orm import Session
 
+from models import SleepModel
+
 from ..store import versions
 from ..store.versions import VersionInfo
 from .figures import GREY, OKABE_ITO, inline_svg
@@ -30,7 +32,7 @@ __all__ = ["calibration_facts", "draw_reliability", "reliability_svg", "version_
 _COLOURS = (OKABE_ITO["blue"], OKABE_ITO["vermillion"], OKABE_ITO["bluish_green"], OKABE_ITO["orange"])
 
 
-def calibration_facts(model: Any) -> dict[str, Any] | None:
+def calibration_facts(model: SleepModel) -> dict[str, Any] | None:
     """The calibration and decoder facts of a fitted model, JSON-able; None without decoding.
 
     Returns
@@ -40,7 +42,7 @@ def calibration_facts(model: Any) -> dict[str, Any] | None:
         (``predicted``, ``observed``, ``count`` per bin), ``decoder`` (its settings and tuning
         figures) and ``n_inner_nights``.
     """
-    decoding = getattr(model, "decoding_", None)
+    decoding = model.decoding_
     if decoding is None:
         return None
     info = decoding.info
