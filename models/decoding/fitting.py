@@ -65,7 +65,7 @@ CALIBRATION_CHOICES: tuple[str, ...] = ("isotonic", "platt", "none")
 #: Default floor of the HMM tuning = threshold decoder's inner balanced accuracy minus this (common practice).
 DEFAULT_BA_MARGIN = 0.02
 #: Factors on the tuned emission weight tried for the interval paths (largest first).
-INTERVAL_WEIGHT_FACTORS: tuple[float, ...] = (1.0, 0.7, 0.5, 0.35, 0.25, 0.18)
+INTERVAL_WEIGHT_FACTORS: tuple[float, ...] = (1.0, 0.5, 0.25, 0.12, 0.06, 0.03)
 _TUNING_PATHS = 100
 _INTERVAL_PARAMETERS = ("tst_min", "waso_min")
 _ERROR_PARAMETERS = ("awakenings", "waso_min")

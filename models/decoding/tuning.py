@@ -11,6 +11,12 @@ under the study protocol on the decoded calls and on the labels, and scaled by t
 equivalence margin so that counts and minutes add up. When no setting reaches the floor, the
 setting of highest balanced accuracy is kept and ``floor_met`` is False. Ties keep the earlier
 grid point (grid order is the product of the grid's values in the order given).
+
+Each night is decoded once per (method, stickiness, emission weight): the Viterbi path does not
+depend on ``threshold`` (Viterbi grid points differing only in it share one result and the first
+of them stands for all), and the marginals are thresholded for every ``threshold`` of the grid.
+A stickiness below 1 that would push a switching probability of the chain to 1 or more is left out
+of the grid (the trials list only the settings tried).
 """
 
 from __future__ import annotations
@@ -21,7 +27,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from numpy.typing import ArrayLike
+from numpy.typing import ArrayLike, NDArray
 
 from ..agreement.epoch_metrics import epoch_agreement
 from ..scoring.parameters import sleep_parameters
@@ -35,8 +41,8 @@ __all__ = ["DEFAULT_DECODER_GRID", "DecoderChoice", "tune_decoder"]
 DEFAULT_DECODER_GRID: Mapping[str, Sequence[Any]] = {
     "method": ("viterbi", "marginal"),
     "stickiness": (0.5, 1.0, 2.0, 4.0),
-    "emission_weight": (0.5, 1.0),
-    "threshold": (0.5,),
+    "emission_weight": (0.25, 0.5, 1.0),
+    "threshold": (0.5, 0.35, 0.2),
 }
 _ERROR_PARAMETERS = ("awakenings", "waso_min")
 
@@ -141,9 +147,24 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
     pooled_labels = np.concatenate(labels)
     trials: list[dict[str, Any]] = []
     decoders: list[HmmDecoder] = []
+    cache: dict[tuple[Any, ...], list[NDArray[np.float64]]] = {}
+    seen: set[tuple[Any, ...]] = set()
     for point in _grid_points(grid):
+        stickiness = float(point.get("stickiness", 1.0))
+        if 0.0 < stickiness < 1.0 and max(chain.transition[0, 1], chain.transition[1, 0]) / stickiness >= 1.0:
+            continue  # the chain switches too often for this stickiness (a switching probability >= 1)
         decoder = HmmDecoder(chain, **point)
-        calls = [decoder.decode(p) for p in probs]
+        key = (decoder.method, decoder.stickiness, decoder.emission_weight)
+        if decoder.method == "viterbi":
+            if key in seen:  # the same path as an earlier grid point: its threshold plays no part
+                continue
+            seen.add(key)
+            calls = [decoder.decode(p) for p in probs]
+        else:
+            if key not in cache:
+                cache[key] = [decoder.marginals(p) for p in probs]
+            calls = [np.where(np.isnan(p), np.nan, (m >= decoder.threshold).astype(np.float64))
+                     for p, m in zip(probs, cache[key], strict=True)]
         decoded = [params(c, k) for k, c in enumerate(calls)]
         errors: dict[str, float] = {}
         for name in _ERROR_PARAMETERS:
@@ -154,6 +175,8 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
         trials.append(point | {"objective": float(objective), "balanced_accuracy": float(ba),
                                "awakenings_mae": errors["awakenings"], "waso_mae_min": errors["waso_min"]})
         decoders.append(decoder)
+    if not trials:
+        raise InvalidHmmError("no setting of the grid fits the chain (every stickiness is too small)")
     ok = [i for i, t in enumerate(trials) if t["balanced_accuracy"] >= ba_floor and np.isfinite(t["objective"])]
     if ok:
         best = min(ok, key=lambda i: trials[i]["objective"])

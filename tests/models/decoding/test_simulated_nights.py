@@ -10,11 +10,12 @@ import json
 
 import numpy as np
 import pytest
+from sklearn.metrics import balanced_accuracy_score
 
 from models.decoding.calibration import IsotonicCalibrator
 from models.decoding.decoders import HmmDecoder, ThresholdDecoder, make_decoder
 from models.decoding.hmm import SleepWakeHmm, fit_sleep_wake_hmm
-from models.decoding.tuning import tune_decoder
+from models.decoding.tuning import DEFAULT_DECODER_GRID, tune_decoder
 from models.nights.night import stages_to_sleep
 from models.scoring.parameters import sleep_parameters
 from models.scoring.protocol import StudyProtocol
@@ -69,8 +70,16 @@ def test_tuned_decoder_holds_up_on_other_nights(nights: list[dict]) -> None:
     choice = tune_decoder([n["p"] for n in inner], [n["truth"] for n in inner], protocol=protocol, ba_floor=0.7,
                           in_bed=[n["in_bed"] for n in inner])
     assert choice.floor_met and choice.balanced_accuracy >= 0.7
-    assert len(choice.trials) == 2 * 4 * 2 * 1  # the default grid's product
+    g = DEFAULT_DECODER_GRID
+    n_paths = len(g["stickiness"]) * len(g["emission_weight"])
+    assert len(choice.trials) == n_paths * (1 + len(g["threshold"]))  # Viterbi ignores the threshold
     assert choice.objective == min(t["objective"] for t in choice.trials if t["balanced_accuracy"] >= 0.7)
+    # the shared decoding passes give what each grid point's own decoder gives
+    for trial in choice.trials[:: max(1, len(choice.trials) // 7)]:
+        decoder = make_decoder("hmm", hmm=choice.decoder.hmm, **{k: trial[k] for k in g})
+        calls = np.concatenate([decoder.decode(n["p"]) for n in inner])
+        truth = np.concatenate([n["truth"] for n in inner])
+        assert trial["balanced_accuracy"] == pytest.approx(balanced_accuracy_score(truth, calls))  # scikit-learn
     # on nights it did not see, the tuned decoder beats the untuned chain on awakenings and WASO together
     untuned = make_decoder("hmm", hmm=choice.decoder.hmm)
     error = {"tuned": 0.0, "untuned": 0.0}
@@ -112,3 +121,15 @@ def test_decoders_keep_unscored_epochs_unscored() -> None:
         make_decoder("argmax")
     with pytest.raises(ValueError, match="fitted chain"):
         make_decoder("hmm", stickiness=2.0)
+
+
+def test_settings_the_chain_cannot_take_are_left_out() -> None:
+    """A chain fitted on shuffled labels switches at most epochs: a stickiness of 0.5 would make its
+    switching probabilities exceed 1, so that grid point is skipped (and only that one)."""
+    rng = np.random.default_rng(5)
+    labels = [rng.integers(0, 2, 400).astype(float) for _ in range(3)]
+    p = [np.clip(y * 0.6 + 0.2 + rng.normal(0, 0.1, y.size), 0, 1) for y in labels]
+    choice = tune_decoder(p, labels, ba_floor=0.0, grid={"stickiness": [0.5, 1.0], "method": ["viterbi"]})
+    assert [t["stickiness"] for t in choice.trials] == [1.0]
+    with pytest.raises(ValueError, match="no setting of the grid"):
+        tune_decoder(p, labels, grid={"stickiness": [0.5], "method": ["viterbi"]})

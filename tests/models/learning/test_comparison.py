@@ -106,3 +106,27 @@ def test_choose_method(means: dict, policy: str, expected: str) -> None:
     method, reason = choose_method(_metrics(**means), policy=policy)
     assert method == expected
     assert policy in reason
+
+
+def test_interval_coverage_counts_the_held_out_nights_inside_their_intervals(study) -> None:
+    nights, result, _ = study
+    table = result.interval_coverage
+    assert list(table.columns) == ["method", "parameter", "level", "coverage", "n_nights", "median_width"]
+    assert {"personal", "pooled", "auto"} <= set(table["method"])
+    p = result.parameters
+    reference = p[p.method == "reference"].set_index(["participant_id", "night_id"])
+    night_id = {n.content_hash: n.night_id for v in nights.values() for n in v}
+    held = [h for pid in sorted(nights) for h in result.pooled.held_out[pid]]
+    for name in ("tst_min", "waso_min"):
+        # counted here by hand from each held-out night's interval and the reference parameter table
+        inside, widths = [], []
+        for h in held:
+            low, high = h.intervals.intervals[name]
+            value = reference.loc[(h.participant_id, night_id[h.night_hash]), name]
+            inside.append(low <= value <= high)
+            widths.append(high - low)
+        row = table[(table.method == "pooled") & (table.parameter == name)].iloc[0]
+        assert row["level"] == CONFIG.interval_level and row["n_nights"] == len(held)
+        assert row["coverage"] == pytest.approx(np.mean(inside))
+        assert row["median_width"] == pytest.approx(np.median(widths))
+    assert json.loads(json.dumps(result.to_dict()["interval_coverage"], allow_nan=False))
