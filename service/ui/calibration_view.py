@@ -24,10 +24,11 @@ from sqlalchemy.orm import Session
 from models import SleepModel
 
 from ..store import versions
+from ..store.snapshots import ParticipantInfo, StudyInfo
 from ..store.versions import VersionInfo
 from .figures import GREY, OKABE_ITO, inline_svg
 
-__all__ = ["calibration_facts", "draw_reliability", "reliability_svg", "version_calibration"]
+__all__ = ["active_calibrations", "calibration_facts", "draw_reliability", "reliability_svg", "version_calibration"]
 
 _COLOURS = (OKABE_ITO["blue"], OKABE_ITO["vermillion"], OKABE_ITO["bluish_green"], OKABE_ITO["orange"])
 
@@ -57,6 +58,16 @@ def calibration_facts(model: SleepModel) -> dict[str, Any] | None:
 def version_calibration(session: Session, version: VersionInfo) -> dict[str, Any] | None:
     """:func:`calibration_facts` of a stored model version (None for a version without decoding)."""
     return calibration_facts(versions.load_model(session, version))
+
+
+def active_calibrations(session: Session, *, study: StudyInfo,
+                        participant: ParticipantInfo) -> dict[str, dict[str, Any]]:
+    """:func:`version_calibration` of the participant's active personal model and the study's active pooled
+    model, by label (``"personal v2"``, ``"pooled v1"``); models without decoding are left out."""
+    found = [versions.active_version(session, study=study, participant=participant),
+             versions.active_version(session, study=study, participant=None)]
+    return {f"{v.kind} v{v.version}": facts for v in found
+            if v is not None and (facts := version_calibration(session, v)) is not None}
 
 
 def draw_reliability(fig: Figure, curves: Mapping[str, Mapping[str, Any]]) -> None:

@@ -22,7 +22,7 @@ from ..store import registry, versions
 from ..store.db import session_scope
 from ..store.tokens import Role
 from .access import StudyPage
-from .calibration_view import version_calibration
+from .calibration_view import active_calibrations, draw_reliability, version_calibration
 from .cards import model_card, model_card_markdown
 from .curves import held_out_roc
 from .figures import FIGURE_FORMATS, draw_bland_altman, draw_held_out_nights, draw_roc, render
@@ -143,6 +143,20 @@ def participant_held_out_figure(access: StudyPage, pid: ParticipantPath, fmt: Fo
     width = min(7.0, 3.0 + 0.9 * table["night_id"].nunique())
     body = render(draw_held_out_nights, table, fmt=fmt, size_in=(max(width, 5.5), 3.2))
     return _figure(body, fmt, f"{access.study_id}-{pid}-held-out-nights", download)
+
+
+@router.get("/studies/{study}/participants/{pid}/figures/reliability.{fmt}")
+def participant_reliability_figure(access: StudyPage, pid: ParticipantPath, fmt: FormatPath, factory: FactoryDep,
+                                   download: Download = False) -> Response:
+    """Reliability curves of the participant's active calibrated models."""
+    access.require(Role.analyst)
+    with session_scope(factory) as session:
+        study = registry.find_study(session, access.study_id)
+        curves = active_calibrations(session, study=study, participant=registry.find_participant(session, study, pid))
+    if not curves:
+        raise Unprocessable("not available — no active model with calibrated probabilities")
+    body = render(draw_reliability, curves, fmt=fmt, size_in=(4.2, 4.2))
+    return _figure(body, fmt, f"{access.study_id}-{pid}-reliability", download)
 
 
 @router.get("/studies/{study}/participants/{pid}/figures/roc.{fmt}")

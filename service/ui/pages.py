@@ -29,7 +29,6 @@ from .access import (
     set_cookie,
     sign_in,
 )
-from .calibration_view import reliability_svg
 from .captions import bland_altman_alt, bland_altman_caption, held_out_alt, roc_alt
 from .curves import held_out_roc
 from .night_view import AGREEMENT_METRICS, AUTO, NIGHT_METHODS, load_night_view
@@ -189,7 +188,7 @@ def participant_page(request: Request, access: StudyPage, pid: ParticipantPath, 
     with session_scope(factory) as session:
         found = recordings.list_recordings(session, study_id=access.study_id, participant_id=pid, limit=500)[0]
     return page(request, "participant.html", principal=access.principal, view=view, pid=pid, follow_job=follow,
-                recordings=found, reliability=reliability_svg(view.calibrations, salt="reliability"),
+                recordings=found,
                 default_trials=_default_trials(request), version_metrics=VERSION_METRICS,
                 comparison_metrics=COMPARISON_METRICS,
                 base=f"{UI_PREFIX}/studies/{access.study_id}/participants/{pid}", **comparison, **context)

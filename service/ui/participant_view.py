@@ -22,7 +22,7 @@ from ..store.db import session_scope
 from ..store.protocols import protocol_info
 from ..store.registry import NightInfo
 from ..store.versions import VersionInfo
-from .calibration_view import version_calibration
+from .calibration_view import active_calibrations
 
 __all__ = ["AGREEMENT_PARAMETERS", "COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "ParticipantView",
            "held_out_table", "last_job", "load_participant_view", "method_summary_table", "nights_table",
@@ -213,9 +213,7 @@ def load_participant_view(factory: sessionmaker[Session], *, study_id: str, part
         if pooled is not None and (reason := model_flag(pooled, floor=floor)):
             flags["pooled"] = reason
         auto = auto_choice(session, study=study, participant=participant)
-        active = [(f"{v.kind} v{v.version}", v) for v in (next((v for v in personal_versions if v.active), None),
-                                                          pooled) if v is not None]
-        calibrations = {label: facts for label, v in active if (facts := version_calibration(session, v)) is not None}
+        calibrations = active_calibrations(session, study=study, participant=participant)
         view = ParticipantView(
             study_id=study_id, participant_id=participant_id, nights=nights, versions=personal_versions,
             pooled=pooled, chosen_method=participant.chosen_method, choice=participant.choice, trainable=trainable,

@@ -287,7 +287,9 @@ def test_participant_page_and_model_card_show_the_calibration(trained) -> None:
     table = html[html.index('id="calibration-table"'):]
     table = table[:table.index("</table>")]
     assert f'{calibration["brier_raw"]:.4f}' in table and f'{calibration["brier_calibrated"]:.4f}' in table
-    assert 'id="reliability-figure"' in html and "<svg" in html[html.index('id="reliability-figure"'):]
+    assert 'id="reliability-figure"' in html
+    figure = _page(trained, "/ui/studies/s/participants/P-01/figures/reliability.svg")
+    assert figure.lstrip().startswith("<?xml") and "predicted P(sleep)" in figure
     card = json.loads(_page(trained, f"/ui/studies/s/participants/P-01/models/{version.version}/card.json"))
     assert card["calibration"]["brier_raw"] == pytest.approx(calibration["brier_raw"])
     assert card["calibration"]["reliability"]["observed"] == pytest.approx(
