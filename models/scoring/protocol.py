@@ -21,6 +21,9 @@ Parameter definitions (see :func:`models.scoring.parameters.sleep_parameters`):
   unscored epoch neither ends nor splits a bout; True ends a sleep or wake bout at every unscored
   epoch (wake, unscored, wake are two bouts of one epoch).
 
+Per-night intervals of the model methods: ``interval_level`` (the level of every per-night
+parameter interval, in (0, 1); 0.9 by default, common practice).
+
 Agreement statistics: ``equivalence_margins`` (per parameter, for two one-sided tests; the
 defaults are common practice, not a published standard, and a study should set its own in
 advance), ``ci_level``, ``bootstrap_resamples`` and ``seed`` (participant bootstrap).
@@ -54,7 +57,7 @@ EQUIVALENCE_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "aw
 DEFAULT_EQUIVALENCE_MARGINS: Mapping[str, float] = {
     "sol_min": 10.0, "tst_min": 15.0, "waso_min": 15.0, "awakenings": 3.0, "sleep_efficiency_pct": 5.0}
 _FIELDS = ("waso_end", "min_awakening_epochs", "persistent_sleep_min", "sol", "unscored_breaks_bouts",
-           "equivalence_margins", "ci_level", "bootstrap_resamples", "seed")
+           "equivalence_margins", "ci_level", "bootstrap_resamples", "seed", "interval_level")
 MIN_BOOTSTRAP_RESAMPLES = 100
 
 
@@ -111,6 +114,8 @@ def _field_problems(values: Mapping[str, Any]) -> list[Problem]:
          and values["bootstrap_resamples"] >= MIN_BOOTSTRAP_RESAMPLES,
          f"must be an integer >= {MIN_BOOTSTRAP_RESAMPLES}"),
         ("seed", _is_int(values["seed"]) and values["seed"] >= 0, "must be an integer >= 0"),
+        ("interval_level", _is_number(values["interval_level"]) and 0 < values["interval_level"] < 1,
+         "must be a number in (0, 1)"),
     ]
     problems = [_problem(name, message, values[name]) for name, ok, message in checks if not ok]
     return problems + _margin_problems(values["equivalence_margins"])
@@ -139,6 +144,8 @@ class StudyProtocol:
         Participant-bootstrap resamples (>= 100; >= 2,000 is common practice).
     seed : int, default=0
         Seed of the participant bootstrap.
+    interval_level : float, default=0.9
+        Level of the per-night parameter intervals of the model methods, in (0, 1).
 
     Raises
     ------
@@ -155,6 +162,7 @@ class StudyProtocol:
     ci_level: float = 0.95
     bootstrap_resamples: int = 2000
     seed: int = 0
+    interval_level: float = 0.9
 
     def __post_init__(self) -> None:
         problems = _field_problems({name: getattr(self, name) for name in _FIELDS})
@@ -165,6 +173,7 @@ class StudyProtocol:
                            MappingProxyType({k: margins[k] for k in EQUIVALENCE_PARAMETERS}))  # read-only
         object.__setattr__(self, "persistent_sleep_min", float(self.persistent_sleep_min))
         object.__setattr__(self, "ci_level", float(self.ci_level))
+        object.__setattr__(self, "interval_level", float(self.interval_level))
 
     def __hash__(self) -> int:
         return hash(self.fingerprint())

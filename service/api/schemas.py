@@ -332,6 +332,15 @@ class ScoringOut(BaseModel):
     parameters: dict[str, float | int | None]
     agreement: dict[str, Any] | None
     offset: float | None = Field(default=None, description="log-odds offset applied (model methods)")
+    intervals: dict[str, list[float | None]] | None = Field(
+        default=None, description="per-night [low, high] of sol_min, tst_min, waso_min, awakenings and "
+        "sleep_efficiency_pct at interval_level (model methods with decoding; null otherwise)")
+    interval_level: float | None = Field(default=None, description="level of the intervals (the study protocol's)")
+    uncertainty_min: float | None = Field(
+        default=None, description="review score: expected absolute error of the posterior median TST plus WASO, "
+        "minutes (model methods with decoding)")
+    p_sleep_posterior: list[float | None] | None = Field(
+        default=None, description="posterior probability of sleep per epoch under the HMM decoder; null otherwise")
 
 
 # ---- tokens ---------------------------------------------------------------------------------

@@ -10,6 +10,12 @@
 - **Unlabelled nights**: the deployed models (the cached scorings of
   :func:`service.results.scoring.score_night`), ``held_out`` false.
 
+Model rows carry the night's parameter intervals (``<parameter>_low`` / ``<parameter>_high`` for
+:data:`~service.results.night_intervals.INTERVAL_PARAMETERS`, at the protocol's ``interval_level``)
+and its review score ``uncertainty_min``: for held-out rows those of the held-out prediction
+(:attr:`models.HeldOutNight.intervals`), for deployed rows those of the scoring body; empty for
+the reference, the rules and models without decoding.
+
 Every row states the study protocol it was computed under (``protocol``, its JSON form), the
 model version, the epoch length, the in-bed interval (``lights_off``, ``lights_on``), the unscored
 epochs and the night's QC flags. Columns are typed (timestamps in UTC, counts as integers); in CSV
@@ -50,16 +56,24 @@ from ..store.protocols import study_protocol
 from ..store.registry import find_study, study_participants
 from .held_out import active_held_out as _active_held_out
 from .held_out import add_auto, version_of
+from .night_intervals import INTERVAL_PARAMETERS
 from .scoring import score_night
 
-__all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "export_frame", "export_parameters", "neutralise_formulas"]
+__all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "INTERVAL_COLUMNS", "export_frame", "export_parameters",
+           "neutralise_formulas"]
 
 #: Methods of the parameter export besides the reference (model methods only when trained).
 EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, *MODEL_METHODS, AUTO)
+#: Interval ends of every parameter of :data:`INTERVAL_PARAMETERS`, then the review score (minutes).
+INTERVAL_COLUMNS: tuple[str, ...] = (*(f"{name}_{end}" for name in INTERVAL_PARAMETERS for end in ("low", "high")),
+                                     "uncertainty_min")
 EXPORT_COLUMNS: tuple[str, ...] = (
     "study_id", "participant_id", "night_id", "label", "start", "lights_off", "lights_on", "epoch_seconds",
-    "method", "scored_as", "model_version", "held_out", "protocol", "qc_flags", *PARAMETER_NAMES)
-_INTEGER_COLUMNS = ("epoch_seconds", "model_version", "unscored_epochs", "awakenings")
+    "method", "scored_as", "model_version", "held_out", "protocol", "qc_flags", *PARAMETER_NAMES,
+    *INTERVAL_COLUMNS)
+_INTEGER_COLUMNS = ("epoch_seconds", "model_version", "unscored_epochs", "awakenings", "awakenings_low",
+                    "awakenings_high")
+_FLOAT_COLUMNS = tuple(c for c in INTERVAL_COLUMNS if c not in _INTEGER_COLUMNS)
 _TIME_COLUMNS = ("start", "lights_off", "lights_on")
 #: first characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection")
 _FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
@@ -100,6 +114,25 @@ def _targets(session: Session, study_id: str) -> tuple[list[_Target], bool, dict
     return targets, pooled, policies
 
 
+def _interval_cells(intervals: Any, uncertainty_min: Any) -> dict[str, Any]:
+    """The interval columns of a row from ``{name: [low, high]}`` (None: no intervals) and the review score."""
+    out: dict[str, Any] = {"uncertainty_min": uncertainty_min}
+    for name in INTERVAL_PARAMETERS:
+        low, high = (None, None) if intervals is None else intervals.get(name, (None, None))
+        out |= {f"{name}_low": low, f"{name}_high": high}
+    return json_record(out)
+
+
+def _held_out_cells(held: HeldOutNight) -> dict[str, Any]:
+    found = held.intervals
+    return _interval_cells(None if found is None else found.intervals,
+                           None if found is None else found.uncertainty_min)
+
+
+def _body_cells(body: dict[str, Any]) -> dict[str, Any]:
+    return _interval_cells(body.get("intervals"), body.get("uncertainty_min"))
+
+
 def _deployed(factory: sessionmaker[Session], study_id: str, t: _Target, method: str) -> dict[str, Any]:
     return json.loads(score_night(factory, study_id=study_id, participant_id=t.participant_id, night_id=t.night_id,
                                   method=method))
@@ -112,6 +145,7 @@ def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, me
     night = t.night
     sides: dict[str, tuple[Any, Any]] = {}
     info: dict[str, tuple[str | None, int | None, bool | None]] = {}  # scored_as, version, held_out
+    cells: dict[str, dict[str, Any]] = {}  # interval columns
     for method in methods:
         if method in METHOD_IDS:
             scored = score_with_rule(night.counts, night.epoch_seconds, method)
@@ -120,10 +154,12 @@ def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, me
             chosen = method if method != AUTO else auto_chosen.get(t.night_id, "pooled+offset")
             sides[method] = (held[method].sleep, held[method].p_sleep)
             info[method] = (chosen, version_of(chosen, t.participant_id, used), True)
+            cells[method] = _held_out_cells(held[method])
         else:
             body = _deployed(factory, study_id, t, method)
             sleep = np.array([np.nan if v is None else v for v in body["sleep"]], dtype=np.float64)
             sides[method], info[method] = (sleep, None), (body["method"], body["model_version"], False)
+            cells[method] = _body_cells(body)
     reference = night.reference_sleep(movement_time=TrainingConfig().movement_time)
     assert reference is not None  # a labelled night
     first, stop = night.in_bed
@@ -134,7 +170,7 @@ def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, me
     for method in methods:
         scored_as, version, held_out = info[method]
         rows.append({"method": method, "scored_as": scored_as, "model_version": version, "held_out": held_out}
-                    | _params(compared.parameters[method].as_dict()))
+                    | _params(compared.parameters[method].as_dict()) | cells.get(method, {}))
     return rows
 
 
@@ -184,7 +220,7 @@ def export_frame(factory: sessionmaker[Session], *, study_id: str) -> pd.DataFra
                 found.append({"method": method, "scored_as": None if method in METHOD_IDS else body["method"],
                               "model_version": body["model_version"],
                               "held_out": None if method in METHOD_IDS else False}
-                             | {k: body["parameters"].get(k) for k in PARAMETER_NAMES})
+                             | {k: body["parameters"].get(k) for k in PARAMETER_NAMES} | _body_cells(body))
         rows += [ids | r for r in found]
     return _typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS)))
 
@@ -194,6 +230,8 @@ def _typed(frame: pd.DataFrame) -> pd.DataFrame:
         frame[column] = pd.to_datetime(frame[column], utc=True)
     for column in _INTEGER_COLUMNS:
         frame[column] = pd.array(frame[column].to_numpy(dtype=np.float64), dtype="Int64")
+    for column in _FLOAT_COLUMNS:
+        frame[column] = frame[column].astype("float64")
     frame["held_out"] = frame["held_out"].astype("boolean")
     for column in ("label", "scored_as", "qc_flags"):
         frame[column] = frame[column].astype(object)

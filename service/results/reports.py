@@ -11,8 +11,10 @@ nested held-out predictions (:mod:`service.results.held_out`). Beside each rule 
 the rule calibrated to the study's counts leave-participants-out (``<rule>:calibrated``,
 :func:`models.calibrate_rules` on every labelled night of the study, participants sharing a night
 left out together), as :func:`models.compare_study` makes it; ``rule_calibrations`` says which
-count scale (or threshold) each participant's nights were scored with. A comparison is kept in memory until
-its nights, their exclusion, the active versions or the protocol change.
+count scale (or threshold) each participant's nights were scored with. ``interval_coverage`` sets
+the nominal level of the held-out per-night intervals of each model method against the share of
+nights whose reference value lies inside (:func:`models.interval_coverage`). A comparison is kept
+in memory until its nights, their exclusion, the active versions or the protocol change.
 """
 
 from __future__ import annotations
@@ -43,6 +45,7 @@ from models import (
     calibrate_rules,
     comparison_tables,
     held_out_comparison,
+    interval_coverage,
     json_record,
     json_records,
     participant_groups,
@@ -129,13 +132,36 @@ def _calibrations(every: dict[str, list[Night]]) -> dict[str, RuleCalibration]:
     return calibrate_rules(records, COMPARED_RULES, groups=participant_groups(labelled)) if records else {}
 
 
+#: (method, interval level) -> per night: the held-out intervals and the reference's parameters
+_CoverageInputs = dict[tuple[str, float], list[tuple[dict[str, list[float]], dict[str, float]]]]
+
+
+def _coverage_records(inputs: _CoverageInputs) -> list[dict[str, Any]]:
+    """Per method and parameter: ``level`` (nominal), ``coverage`` (observed share of nights whose reference
+    value lies in the interval), ``n_nights`` (nights with a defined interval and reference value) and
+    ``median_width`` (over the nights' defined intervals, the parameter's unit), as
+    :attr:`models.StudyComparison.interval_coverage` has them."""
+    out = []
+    order = {m: i for i, m in enumerate((*MODEL_METHODS, AUTO))}
+    for (method, level), pairs in sorted(inputs.items(), key=lambda item: (order.get(item[0][0], len(order)),
+                                                                           item[0][0], item[0][1])):
+        found = interval_coverage([iv for iv, _ in pairs], [truth for _, truth in pairs], level=level)
+        for name, figures in found.items():
+            widths = [float(iv[name][1]) - float(iv[name][0]) for iv, _ in pairs if np.isfinite(iv[name]).all()]
+            out.append(json_record({"method": method, "parameter": name, "level": figures["nominal"],
+                                    "coverage": figures["observed"], "n_nights": int(figures["n_nights"]),
+                                    "median_width": float(np.median(widths)) if widths else float("nan")}))
+    return out
+
+
 def _assemble(nights: dict[str, list[Night]], held_out: HeldOut, policies: dict[str, str],
               protocol: StudyProtocol, calibrations: dict[str, RuleCalibration],
-              ) -> tuple[ComparisonTables, list[ScoredNight], list[str]]:
-    """The comparison tables of the labelled nights (:func:`models.comparison_tables`), their in-bed calls and
-    notes; ``auto``'s nested predictions are added to ``held_out``."""
+              ) -> tuple[ComparisonTables, list[ScoredNight], list[str], list[dict[str, Any]]]:
+    """The comparison tables of the labelled nights (:func:`models.comparison_tables`), their in-bed calls,
+    notes and the interval coverage; ``auto``'s nested predictions are added to ``held_out``."""
     movement_time = TrainingConfig().movement_time
     compared = []
+    coverage: _CoverageInputs = {}
     notes: list[str] = []
     for pid, labelled in nights.items():
         add_auto(held_out.setdefault(pid, {}), labelled, policy=policies[pid], movement_time=movement_time)
@@ -146,10 +172,17 @@ def _assemble(nights: dict[str, list[Night]], held_out: HeldOut, policies: dict[
             compared.append(held_out_comparison(night, models_here, participant_id=pid, movement_time=movement_time,
                                                 parameter_options={"protocol": protocol},
                                                 calibrations=calibrations))
+            reference = {k: float("nan") if v is None else float(v)
+                         for k, v in compared[-1].reference_parameters.as_dict().items()}
+            for method, held in models_here.items():
+                found = held.intervals
+                if found is not None:
+                    coverage.setdefault((method, float(found.level)), []).append((found.intervals, reference))
         if missing:
             notes.append(f"{pid}: no held-out {', '.join(sorted(missing))} figures for some or all labelled nights "
                          "(model not trained, too few labelled nights, or nights added after training)")
-    return comparison_tables(compared), [s for c in compared for s in c.scored], notes
+    return (comparison_tables(compared), [s for c in compared for s in c.scored], notes,
+            _coverage_records(coverage))
 
 
 def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str | None) -> dict[str, Any]:
@@ -170,7 +203,7 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
                     for p in participants}
         counts = _night_counts(session, [p.pk for p in participants])
     calibrations = _calibrations(every)
-    tables, scored, notes = _assemble(nights, held_out, policies, protocol, calibrations)
+    tables, scored, notes, coverage = _assemble(nights, held_out, policies, protocol, calibrations)
     if not calibrations:
         notes.append("rules not calibrated: leave-participants-out calibration needs labelled nights of at least "
                      "two participants not sharing a night")
@@ -192,6 +225,7 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
                        counts.get(p.pk, (0, 0)), movement_time) for p in participants],
         "protocol": protocol.to_dict(),
         "rule_calibrations": [_calibration_entry(c, list(nights)) for c in calibrations.values()],
+        "interval_coverage": coverage,
         "notes": notes,
     } | agreement_statistics(tables.parameters, scored, protocol=protocol)
     with _CACHE_LOCK:
@@ -220,7 +254,7 @@ def _night_counts(session: Session, participant_pks: list[int]) -> dict[int, tup
 
 #: entries of the study comparison that a participant's comparison has too (computed on their nights only)
 _SHARED_ENTRIES = ("parameters", "flow", "protocol", "repeated_bland_altman", "participant_epochs",
-                   "paired_differences", "icc", "equivalence")
+                   "paired_differences", "icc", "equivalence", "interval_coverage")
 _CACHE: LRUCache[str, dict[str, Any]] = LRUCache(maxsize=64)
 _CACHE_LOCK = threading.Lock()
 
@@ -264,7 +298,9 @@ def study_comparison(factory: sessionmaker[Session], *, study_id: str) -> dict[s
         (``repeated_bland_altman``, ``participant_epochs``, ``paired_differences``, ``icc``,
         ``equivalence``), ``rule_calibrations`` (per compared rule: its calibrated parameter, the
         published value, the value chosen without each participant, the grid and its mean balanced
-        accuracies). Every method includes ``auto`` with its own nested held-out figures and each
+        accuracies), ``interval_coverage`` (per model method and parameter: nominal ``level``, observed
+        ``coverage``, ``n_nights``, ``median_width``; empty for models without decoding). Every method
+        includes ``auto`` with its own nested held-out figures and each
         rule's ``<rule>:calibrated`` variant (leave-participants-out).
     """
     return _compare(factory, study_id, None)

@@ -17,6 +17,16 @@ Methods (the ``method`` query parameter):
 Pooled models also take the participant's descriptors: those used in training for participants
 the model saw, otherwise computed from all the participant's current nights.
 
+Model methods of a model with decoding (a fitted :attr:`SleepModel.decoding_ <models.SleepModel>`)
+add per-night intervals of the sleep parameters (``intervals``: ``[low, high]`` per name of
+:data:`INTERVAL_PARAMETERS`, at the study protocol's ``interval_level``), the review score
+``uncertainty_min`` and, for the HMM decoder, the posterior P(sleep) per epoch
+(``p_sleep_posterior``); all from the model's own :meth:`SleepModel.intervals` and decoder, with
+:data:`INTERVAL_PATHS` posterior paths drawn from a seed derived from the night id and the model
+version's uid (:func:`interval_seed`), so the same request gives the same numbers. Rules and
+models without decoding answer ``null`` for these. The per-night score is part of the stored body;
+:func:`study_uncertainty` reads it for every night of a study at once.
+
 Each result is stored (zlib-compressed JSON) under the night and a key naming the rule, or the
 model version's uid plus the participant inputs (offset, descriptors); a repeat request returns the
 stored body. The stored row records the model version that produced it.
@@ -64,13 +74,15 @@ from ..store.protocols import study_protocol
 from ..store.registry import find_participant, find_study, participant_snapshot, study_snapshot
 from ..store.snapshots import ParticipantInfo, StudyInfo
 from .model_flags import auto_choice
+from .night_intervals import decoded_extras, interval_seed, probabilities
 
-__all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night"]
+__all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night", "study_uncertainty"]
 
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 #: part of every cache key: bump when a stored scoring body would now come out differently
-#: (2: epochs without counts are unscored, ``null``, instead of sleep or wake)
-SCORING_REVISION = "s2"
+#: (2: epochs without counts are unscored, ``null``, instead of sleep or wake; 3: intervals, the review
+#: score and the posterior P(sleep) of models with decoding)
+SCORING_REVISION = "s3"
 
 
 @dataclass(frozen=True)
@@ -133,7 +145,7 @@ def _descriptors(session: Session, participant: ParticipantInfo) -> dict[str, fl
 def compute_scoring(night: Night, *, method: str, model: Any = None, version: int | None = None,
                     offset: float = 0.0, descriptors: dict[str, float] | None = None,
                     features: FeatureMatrix | None = None,
-                    protocol: StudyProtocol = DEFAULT_PROTOCOL) -> dict[str, Any]:
+                    protocol: StudyProtocol = DEFAULT_PROTOCOL, seed: int = 0) -> dict[str, Any]:
     """Score one night and build the response body (pure computation, no database).
 
     Parameters
@@ -152,7 +164,10 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
     features : FeatureMatrix, optional
         The night's stored features for the model's feature set (computed when None).
     protocol : StudyProtocol, default=DEFAULT_PROTOCOL
-        The study's parameter definitions, applied to the night's and the reference's parameters.
+        The study's parameter definitions, applied to the night's and the reference's parameters;
+        its ``interval_level`` is the level of the intervals.
+    seed : int, default=0
+        Seed of the interval paths (:func:`interval_seed` in :func:`score_night`).
 
     Returns
     -------
@@ -162,7 +177,9 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         epochs, ``agreement`` with the reference (None without one; the night's
         :func:`models.compare_night`: epoch metrics, the reference's parameters, and method -
         reference differences with the reference's unscored epochs masked), ``protocol`` (the
-        definitions applied) and, for models, ``offset``. NaN values are None.
+        definitions applied), ``intervals``, ``interval_level``, ``uncertainty_min`` and
+        ``p_sleep_posterior`` (see the module docstring; None for rules and models without decoding)
+        and, for models, ``offset``. NaN values are None.
     """
     first, stop = night.in_bed
     if model is None:
@@ -190,14 +207,16 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
         "method": method, "model_version": version,
         "epoch_seconds": int(night.epoch_seconds), "start": night.start.isoformat(), "n_epochs": night.n_epochs,
         "in_bed": [int(first), int(stop)],
-        "p_sleep": None if p_sleep is None else [None if math.isnan(v) else v for v in np.round(p_sleep, 5).tolist()],
+        "p_sleep": None if p_sleep is None else probabilities(p_sleep),
         "sleep": [None if math.isnan(v) else int(v) for v in np.asarray(sleep, dtype=np.float64).tolist()],
         "parameters": json_record(params),
         "agreement": agreement,
         "protocol": protocol.to_dict(),
     }
+    body |= {"intervals": None, "interval_level": None, "uncertainty_min": None, "p_sleep_posterior": None}
     if model is not None:
         body["offset"] = float(offset)
+        body |= decoded_extras(model, night, p_sleep, protocol=protocol, seed=seed)
     return body
 
 
@@ -251,16 +270,18 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         if cached is not None:
             return zlib.decompress(cached)
         night = night_from_row(row, participant_id=participant_id)
-        night_pk, night_hash = row.pk, row.content_hash
+        night_pk, night_hash, stored_id = row.pk, row.content_hash, row.night_id
         features = None if model is None else load_features(session, night_pk=night_pk, config=model.feature_config_)
     if model is not None and features is None:
         features = night_features(night, model.feature_config_)
         _save(factory, writer, features_row(night_pk=night_pk, config=model.feature_config_, features=features))
     number = None if resolved.version is None else resolved.version.version
+    seed = 0 if resolved.version is None else interval_seed(stored_id, resolved.version.uid)
     # stored descriptors keep a missing value as None (JSON); the model reads it as NaN
     numeric = None if descriptors is None else {k: math.nan if v is None else v for k, v in descriptors.items()}
     result = compute_scoring(night, method=resolved.method, model=model, version=number,
-                             offset=offset, descriptors=numeric, features=features, protocol=protocol)
+                             offset=offset, descriptors=numeric, features=features, protocol=protocol,
+                             seed=seed)
     if resolved.passed_over:
         result["auto"] = {"method": resolved.method, "passed_over": resolved.passed_over}
     body = json.dumps(result, separators=(",", ":"), allow_nan=False).encode()
@@ -268,6 +289,56 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
                                       else resolved.version.pk, cache_key=key, night_hash=night_hash,
                                       method=resolved.method, body=zlib.compress(body, 1), created_at=db.utcnow()))
     return body
+
+
+def study_uncertainty(factory: sessionmaker[Session], *, study_id: str, method: str = "auto",
+                      writer: CacheWriter | None = None) -> list[dict[str, Any]]:
+    """Every night's review score in a study, from the stored scoring bodies (computed and stored when missing).
+
+    Parameters
+    ----------
+    method : str, default="auto"
+        As for :func:`score_night`.
+
+    Returns
+    -------
+    list of dict
+        One per night (participants and nights in storage order): ``participant_id``, ``night_id``,
+        ``label``, ``method`` (the concrete method; None when the participant has no model for it),
+        ``model_version``, ``uncertainty_min`` (minutes; None for rules, models without decoding
+        and nights without a model) and ``interval_level``.
+
+    Raises
+    ------
+    NotFound
+        If the study does not exist.
+    BadRequest
+        If the method is unknown.
+    """
+    if method not in SCORING_METHODS:
+        raise BadRequest(f"unknown method {method!r}; choose one of {', '.join(SCORING_METHODS)}")
+    with db.session_scope(factory) as session:
+        study = find_study(session, study_id)
+        nights = session.execute(
+            select(db.Participant.participant_id, db.Night.night_id, db.Night.label)
+            .join(db.Night, db.Night.participant_pk == db.Participant.pk)
+            .where(db.Participant.study_pk == study.pk)
+            .order_by(db.Participant.participant_id, db.Night.start_utc, db.Night.night_id)).all()
+    out = []
+    for participant_id, night_id, label in nights:
+        row: dict[str, Any] = {"participant_id": participant_id, "night_id": night_id, "label": label,
+                               "method": None, "model_version": None, "uncertainty_min": None,
+                               "interval_level": None}
+        try:
+            body = json.loads(score_night(factory, study_id=study_id, participant_id=participant_id,
+                                          night_id=night_id, method=method, writer=writer))
+        except Unprocessable as exc:
+            if exc.code != "no_model":
+                raise
+        else:
+            row |= {k: body.get(k) for k in ("method", "model_version", "uncertainty_min", "interval_level")}
+        out.append(row)
+    return out
 
 
 def _save(factory: sessionmaker[Session], writer: CacheWriter | None, row: db.Base) -> None:

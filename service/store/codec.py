@@ -4,7 +4,8 @@ Counts are stored as zlib-compressed little-endian float64 bytes (NaN kept for f
 the rebuilt :class:`models.Night` has the same content hash as the one posted; reference labels
 as zlib-compressed text, one canonical code per epoch separated by ``\\x1f``. Held-out
 predictions (:class:`models.HeldOutNight`) are a compressed NumPy archive read without pickle:
-one JSON entry with the scalar fields, and the arrays of each night.
+one JSON entry with the scalar fields (and the night's parameter intervals, NaN as null), and the
+arrays of each night.
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from models import HeldOutNight, Night
+from models import HeldOutNight, Night, NightIntervals, json_record
 
 from . import db
 
@@ -93,7 +94,8 @@ def encode_held_out(nights: Sequence[HeldOutNight]) -> bytes:
     """Held-out predictions -> bytes (``np.savez_compressed``, no object arrays)."""
     meta = [{"participant_id": h.participant_id, "night_hash": h.night_hash, "label": h.label, "method": h.method,
              "in_bed": [int(h.in_bed[0]), int(h.in_bed[1])], "threshold": float(h.threshold),
-             "offset": float(h.offset)} for h in nights]
+             "offset": float(h.offset),
+             "intervals": None if h.intervals is None else json_record(h.intervals.to_dict())} for h in nights]
     arrays: dict[str, np.ndarray] = {"meta": np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)}
     for i, h in enumerate(nights):
         for name in _ARRAYS:
@@ -103,6 +105,21 @@ def encode_held_out(nights: Sequence[HeldOutNight]) -> bytes:
     buffer = io.BytesIO()
     np.savez_compressed(buffer, **arrays)  # type: ignore[arg-type]  # the stub reads the names as options
     return buffer.getvalue()
+
+
+def _nan(value: Any) -> float:
+    return float("nan") if value is None else float(value)
+
+
+def _intervals(stored: dict[str, Any] | None) -> NightIntervals | None:
+    """The :class:`models.NightIntervals` of a held-out entry (None for models without decoding)."""
+    if stored is None:
+        return None
+    return NightIntervals(level=float(stored["level"]),
+                          intervals={k: [_nan(v[0]), _nan(v[1])] for k, v in stored["intervals"].items()},
+                          median={k: _nan(v) for k, v in stored["median"].items()},
+                          expected_abs_error={k: _nan(v) for k, v in stored["expected_abs_error"].items()},
+                          uncertainty_min=_nan(stored["uncertainty_min"]), n_paths=int(stored["n_paths"]))
 
 
 def decode_held_out(blob: bytes) -> list[HeldOutNight]:
@@ -115,5 +132,6 @@ def decode_held_out(blob: bytes) -> list[HeldOutNight]:
                                       for name in _ARRAYS}
             out.append(HeldOutNight(participant_id=m["participant_id"], night_hash=m["night_hash"], label=m["label"],
                                     method=m["method"], in_bed=(m["in_bed"][0], m["in_bed"][1]),
-                                    threshold=m["threshold"], offset=m["offset"], **arrays))
+                                    threshold=m["threshold"], offset=m["offset"],
+                                    intervals=_intervals(m.get("intervals")), **arrays))
     return out

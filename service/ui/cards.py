@@ -5,7 +5,9 @@ and its :class:`~service.store.metadata.ModelMetadata`) as a plain dict (the JSO
 rendered from that dict as Markdown, so the two downloads always say the same thing. A version
 trained on nights whose PSG reference was stored although it looked implausible (its
 ``flagged_nights``) gets a warning naming them, first among the card's ``warnings`` and at the top
-of the Markdown; the participant and study pages repeat it beside the card's links.
+of the Markdown; the participant and study pages repeat it beside the card's links. A version with
+a calibrated, decoded model states its calibration (Brier score before and after, the reliability
+curve as a table: :mod:`service.ui.calibration_view`) and its decoder.
 """
 
 from __future__ import annotations
@@ -85,7 +87,7 @@ TEMPLATES.env.globals["training_warnings"] = training_warnings
 
 
 def model_card(version: VersionInfo, *, study_id: str, participant_id: str | None,
-               choice: dict[str, Any] | None = None) -> dict[str, Any]:
+               choice: dict[str, Any] | None = None, calibration: dict[str, Any] | None = None) -> dict[str, Any]:
     """The card of one model version as a JSON-able dict.
 
     Parameters
@@ -97,6 +99,9 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
     choice : dict, optional
         The participant's choice of method made with this version (``method``, ``reason``), if
         any; shown as the card's method choice.
+    calibration : dict, optional
+        :func:`service.ui.calibration_view.calibration_facts` of the version's model; None (a
+        model without decoding) gives ``calibration: null``.
     """
     meta = version.metadata
     metrics = meta.metrics.as_dict()
@@ -125,6 +130,7 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
                        "selection_figures": selection_wording(meta.activation)},
         "threshold": {"p_sleep": meta.threshold,
                       "meaning": "an epoch is called sleep when the model's sleep probability is at least this"},
+        "calibration": calibration,
         "method_choice": choice,
         "hyperparameters": dict(meta.hyperparameters),
         "library_versions": dict(meta.library_versions),
@@ -137,6 +143,28 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
 
 def _fmt(value: Any) -> str:
     return "–" if value is None else f"{value:.3f}" if isinstance(value, float) else str(value)
+
+
+def _calibration_lines(calibration: dict[str, Any] | None) -> list[str]:
+    """The card's calibration section in Markdown."""
+    lines = ["## Calibration", ""]
+    if calibration is None:
+        return lines + ["No calibration: the model's raw P(sleep) is thresholded (trained before calibrated, "
+                        "decoded models).", ""]
+    lines += [f"Calibrator: {calibration.get('method') or '–'}, fitted on the validation predictions of "
+              f"{calibration.get('n_inner_nights') or '–'} night(s) of the training.", "",
+              "| Brier score (lower is better) | value |", "|---|---|",
+              f"| raw P(sleep) | {_fmt(calibration.get('brier_raw'))} |",
+              f"| calibrated P(sleep) | {_fmt(calibration.get('brier_calibrated'))} |", "",
+              "Reliability curve (mean predicted P(sleep) against the observed share of sleep epochs per bin):", "",
+              "| predicted | observed | epochs |", "|---|---|---|"]
+    curve = calibration.get("reliability") or {}
+    for p, o, n in zip(curve.get("predicted", []), curve.get("observed", []), curve.get("count", []), strict=False):
+        lines.append(f"| {_fmt(p)} | {_fmt(o)} | {_fmt(n)} |")
+    decoder = calibration.get("decoder") or {}
+    if decoder:
+        lines += ["", "Decoder: " + ", ".join(f"{k} {_fmt(v)}" for k, v in decoder.items())]
+    return lines + [""]
 
 
 def model_card_markdown(card: dict[str, Any]) -> str:
@@ -171,6 +199,7 @@ def model_card_markdown(card: dict[str, Any]) -> str:
                       f"| not used to decide | {len(act['fresh_nights'])} | {_fmt(act['fresh_value'])} | – |"]
     lines += ["", "## Threshold", "", f"P(sleep) ≥ {_fmt(card['threshold']['p_sleep'])}: "
               f"{card['threshold']['meaning']}.", ""]
+    lines += _calibration_lines(card.get("calibration"))
     if card["method_choice"]:
         choice = card["method_choice"]
         lines += ["## Method choice", "", f"Chosen: {choice.get('method', '–')}. {choice.get('reason', '')}", ""]

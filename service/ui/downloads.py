@@ -22,6 +22,7 @@ from ..store import registry, versions
 from ..store.db import session_scope
 from ..store.tokens import Role
 from .access import StudyPage
+from .calibration_view import active_calibrations, draw_reliability, version_calibration
 from .cards import model_card, model_card_markdown
 from .curves import held_out_roc
 from .figures import FIGURE_FORMATS, draw_bland_altman, draw_held_out_nights, draw_roc, render
@@ -144,6 +145,20 @@ def participant_held_out_figure(access: StudyPage, pid: ParticipantPath, fmt: Fo
     return _figure(body, fmt, f"{access.study_id}-{pid}-held-out-nights", download)
 
 
+@router.get("/studies/{study}/participants/{pid}/figures/reliability.{fmt}")
+def participant_reliability_figure(access: StudyPage, pid: ParticipantPath, fmt: FormatPath, factory: FactoryDep,
+                                   download: Download = False) -> Response:
+    """Reliability curves of the participant's active calibrated models."""
+    access.require(Role.analyst)
+    with session_scope(factory) as session:
+        study = registry.find_study(session, access.study_id)
+        curves = active_calibrations(session, study=study, participant=registry.find_participant(session, study, pid))
+    if not curves:
+        raise Unprocessable("not available — no active model with calibrated probabilities")
+    body = render(draw_reliability, curves, fmt=fmt, size_in=(4.2, 4.2))
+    return _figure(body, fmt, f"{access.study_id}-{pid}-reliability", download)
+
+
 @router.get("/studies/{study}/participants/{pid}/figures/roc.{fmt}")
 def participant_roc_figure(access: StudyPage, pid: ParticipantPath, fmt: FormatPath, factory: FactoryDep,
                            download: Download = False) -> Response:
@@ -237,8 +252,9 @@ def _card(access: StudyPage, factory: FactoryDep, pid: str | None, version: int,
         study = registry.find_study(session, access.study_id)
         owner = None if pid is None else registry.find_participant(session, study, pid)
         found = versions.get_version(session, study=study, participant=owner, version=version)
+        calibration = version_calibration(session, found)
     choice = None if owner is None or (owner.choice or {}).get("personal_version") != version else owner.choice
-    card = model_card(found, study_id=access.study_id, participant_id=pid, choice=choice)
+    card = model_card(found, study_id=access.study_id, participant_id=pid, choice=choice, calibration=calibration)
     stem = f"{access.study_id}-{pid or 'pooled'}-v{version}-model-card"
     if fmt == "json":
         return _file(json.dumps(card, indent=1).encode(), media_type="application/json", filename=f"{stem}.json")

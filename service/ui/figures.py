@@ -15,6 +15,7 @@ metadata carry no date.
 from __future__ import annotations
 
 import io
+import re
 import threading
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
@@ -39,6 +40,7 @@ __all__ = [
     "draw_bland_altman",
     "draw_held_out_nights",
     "draw_roc",
+    "inline_svg",
     "render",
     "style_of",
 ]
@@ -143,6 +145,21 @@ def render(draw: Callable[..., None], /, *args: Any, fmt: str, size_in: tuple[fl
         fig.savefig(buffer, format=fmt, dpi=_PNG_DPI if fmt == "png" else 72, metadata=metadata,
                     bbox_inches="tight", pad_inches=0.05)
     return buffer.getvalue()
+
+
+_XML_HEAD = re.compile(r"^<\?xml[^>]*>\s*(<!DOCTYPE[^>]*>\s*)?", re.S)
+_ID = re.compile(r'\b(id)="([^"]+)"')
+_REF = re.compile(r'(url\(|href=")#([^)"]+)')
+
+
+def inline_svg(draw: Callable[..., None], /, *args: Any, size_in: tuple[float, float], salt: str,
+               **kwargs: Any) -> str:
+    """A figure of :func:`render` as an inline ``<svg>`` element whose element ids all start with ``salt``
+    (so several figures in one page never share an id)."""
+    text = _XML_HEAD.sub("", render(draw, *args, fmt="svg", size_in=size_in, salt=salt, **kwargs).decode())
+    # matplotlib numbers its element ids per figure (figure_1, axes_1, ...): give each figure its own prefix
+    text = _ID.sub(lambda m: f'{m.group(1)}="{salt}-{m.group(2)}"', text)
+    return _REF.sub(lambda m: f"{m.group(1)}#{salt}-{m.group(2)}", text)
 
 
 # ---- participant --------------------------------------------------------------------------------

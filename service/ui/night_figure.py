@@ -46,7 +46,9 @@ class NightPanels:
     sleep : ndarray of int of shape (n_epochs,) or None
         The method's calls, 1 = sleep.
     p_sleep : ndarray of float of shape (n_epochs,) or None
-        The method's sleep probability (models only).
+        The method's sleep probability (models only; calibrated for models with decoding).
+    p_posterior : ndarray of float of shape (n_epochs,) or None
+        Posterior P(sleep) of the HMM decoder (drawn dashed), NaN = unscored.
     threshold : float or None
         Probability threshold of the calls.
     disagree : ndarray of bool of shape (n_epochs,) or None
@@ -63,6 +65,7 @@ class NightPanels:
     method: str | None = None
     sleep: NDArray[np.float64] | None = None  # 1 sleep, 0 wake, NaN unscored
     p_sleep: NDArray[np.float64] | None = None
+    p_posterior: NDArray[np.float64] | None = None
     threshold: float | None = None
     disagree: NDArray[np.bool_] | None = None
     qc: Sequence[tuple[int, int, str]] = ()
@@ -132,6 +135,9 @@ def draw_night(fig: Figure, panels: NightPanels) -> None:
         if panels.p_sleep is not None:
             ax.stairs(panels.p_sleep, edges, baseline=None, color=OKABE_ITO["blue"], linewidth=0.9,
                       label=f"{label}: P(sleep)")
+        if panels.p_posterior is not None:
+            ax.stairs(panels.p_posterior, edges, baseline=None, color=OKABE_ITO["reddish_purple"], linewidth=0.9,
+                      linestyle="--", label="posterior P(sleep) (HMM)")
         if panels.threshold is not None:
             ax.axhline(panels.threshold, color=GREY, linestyle=":", linewidth=0.9,
                        label=f"threshold {panels.threshold:.2f}")

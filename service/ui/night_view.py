@@ -1,7 +1,10 @@
 """What the night page shows: the night, every method's scoring, the parameter table, the figure data.
 
 Scorings come from :func:`service.results.scoring.score_night` (cached in the database after the first
-request), so the page, its figure and its CSV show the same numbers as the API's scoring route.
+request), so the page, its figure and its CSV show the same numbers as the API's scoring route. A model
+with calibrated, decoded probabilities also brings its per-night intervals (shown beside the parameter
+values and as whiskers, with the reference value where the night has one) and, for the HMM decoder, the
+posterior P(sleep) drawn in the figure.
 """
 
 from __future__ import annotations
@@ -17,6 +20,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from models import COMPARED_RULES, MODEL_METHODS, PARAMETER_NAMES, Night, compare_night
 
 from ..errors import BadRequest, Unprocessable
+from ..results.night_intervals import INTERVAL_PARAMETERS
 from ..results.scoring import SCORING_METHODS, score_night
 from ..store import registry, versions
 from ..store.db import session_scope
@@ -136,7 +140,9 @@ class NightView:
             in_bed=self.night.in_bed, stages=self.night.reference if self.night.has_reference else None,
             method=self.shown if body is not None else None,
             sleep=None if body is None else _calls(body["sleep"]),
-            p_sleep=None if body is None or body.get("p_sleep") is None else np.asarray(body["p_sleep"], dtype=float),
+            p_sleep=None if body is None or body.get("p_sleep") is None else _floats(body["p_sleep"]),
+            p_posterior=None if body is None or body.get("p_sleep_posterior") is None
+            else _floats(body["p_sleep_posterior"]),
             threshold=threshold, disagree=self.disagreement(),
             qc=[(int(a), int(b), flag["code"]) for flag in self.info.qc for a, b in flag["ranges"]])
 
@@ -162,6 +168,41 @@ class NightView:
         table = pd.DataFrame({name: [values.get(p) for p in TABLE_PARAMETERS] for name, values in columns.items()},
                              index=pd.Index(TABLE_PARAMETERS, name="parameter"))
         return table.astype("float64")
+
+    def interval_cells(self) -> dict[tuple[str, str], tuple[float | None, float | None]]:
+        """``(method, parameter) -> (low, high)`` of every available method with per-night intervals."""
+        return {(method, name): (_number(ends[0]), _number(ends[1]))
+                for method, outcome in self.outcomes.items() if outcome.body and outcome.body.get("intervals")
+                for name, ends in outcome.body["intervals"].items()}
+
+    def interval_rows(self) -> list[dict[str, Any]]:
+        """The shown method's intervals, one row per parameter of :data:`INTERVAL_PARAMETERS` (empty without).
+
+        Each row: ``parameter``, ``value`` (the method's), ``low``, ``high``, ``reference`` (None
+        when unlabelled), ``inside`` (whether the reference lies in the interval, None without both)
+        and the whisker positions ``x_low``, ``x_high``, ``x_value``, ``x_reference`` in percent of
+        the row's own range (smallest to largest of those values).
+        """
+        body = self.shown_body
+        if body is None or not body.get("intervals"):
+            return []
+        reference = self.reference_parameters() or {}
+        rows = []
+        for name in INTERVAL_PARAMETERS:
+            low, high = (_number(v) for v in body["intervals"].get(name, (None, None)))
+            value, ref = _number(body["parameters"].get(name)), _number(reference.get(name))
+            finite = [v for v in (low, high, value, ref) if v is not None]
+            start = min(finite) if finite else 0.0
+            width = (max(finite) - start) if finite and max(finite) > start else 1.0
+
+            def at(v: float | None, start: float = start, width: float = width) -> float | None:
+                return None if v is None else 100.0 * (v - start) / width
+
+            inside = None if low is None or high is None or ref is None else bool(low <= ref <= high)
+            rows.append({"parameter": name, "value": value, "low": low, "high": high, "reference": ref,
+                         "inside": inside, "x_low": at(low), "x_high": at(high), "x_value": at(value),
+                         "x_reference": at(ref)})
+        return rows
 
     def agreement_table(self) -> pd.DataFrame:
         """Epoch-by-epoch agreement with the reference: one row per available method (empty if unlabelled)."""
@@ -210,6 +251,8 @@ class NightView:
                          "in-bed epochs disagree with the reference (shaded)")
         elif self.shown is not None and self.shown_body is not None:
             parts.append(f"{style_of(self.shown).label} calls")
+        if self.shown_body is not None and self.shown_body.get("p_sleep_posterior") is not None:
+            parts.append("the decoder's posterior P(sleep) dashed")
         return "; ".join(parts) + "; QC flags hatched grey."
 
     def alt_text(self) -> str:
@@ -225,6 +268,8 @@ class NightView:
         if self.shown is not None and self.shown_body is not None:
             parts.append(f"Bottom: {style_of(self.shown).label} sleep/wake calls"
                          + (" and sleep probability" if self.shown_body.get("p_sleep") else "")
+                         + (" with the decoder's posterior sleep probability"
+                            if self.shown_body.get("p_sleep_posterior") else "")
                          + f"; TST {_fmt(s.get('method_tst_min'))} min.")
             if "disagree" in s:
                 parts.append(f"{s['disagree']} of {s['scored_in_bed']} scored in-bed epochs "
@@ -277,6 +322,16 @@ def load_night_view(factory: sessionmaker[Session], *, study_id: str, participan
         if outcomes[method].body is None:
             notice = f"{style_of(method).label}: not available — {outcomes[method].unavailable}."
     return NightView(info=info, night=night, requested=method, shown=shown, outcomes=outcomes, notice=notice)
+
+
+def _number(value: Any) -> float | None:
+    """A finite float, else None."""
+    return None if value is None or not np.isfinite(float(value)) else float(value)
+
+
+def _floats(values: list[float | None]) -> np.ndarray:
+    """A body's per-epoch values as floats, None -> NaN."""
+    return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
 
 
 def _calls(sleep: list[int | None]) -> np.ndarray:

@@ -213,4 +213,5 @@ def night_page(request: Request, access: StudyPage, pid: ParticipantPath, night_
                 figure_query="?" + urlencode({"method": view.requested}), agreement_keys=AGREEMENT_METRICS,
                 agreement_rows=list(agreement.iterrows()), any_in_sample=bool(agreement["trained_on_night"].any()),
                 table_columns=list(table.columns), table_rows=list(table.iterrows()),
+                intervals=view.interval_cells(), interval_rows=view.interval_rows(),
                 base=f"{UI_PREFIX}/studies/{access.study_id}/participants/{pid}/nights/{night_id}", **context)

@@ -22,6 +22,7 @@ from ..store.db import session_scope
 from ..store.protocols import protocol_info
 from ..store.registry import NightInfo
 from ..store.versions import VersionInfo
+from .calibration_view import active_calibrations
 
 __all__ = ["AGREEMENT_PARAMETERS", "COMPARISON_METHODS", "COMPARISON_METRICS", "VERSION_METRICS", "ParticipantView",
            "held_out_table", "last_job", "load_participant_view", "method_summary_table", "nights_table",
@@ -137,6 +138,9 @@ class ParticipantView:
     passed_over: dict[str, str] = field(default_factory=dict)
     #: why a version must not be chosen by ``auto``, by version number (personal) or "pooled"
     flags: dict[str, str] = field(default_factory=dict)
+    #: calibration facts of the active models with decoding (:func:`service.ui.calibration_view.calibration_facts`),
+    #: by label ("personal v2", "pooled v1")
+    calibrations: dict[str, dict[str, Any]] = field(default_factory=dict)
 
     @property
     def n_labelled(self) -> int:
@@ -209,12 +213,13 @@ def load_participant_view(factory: sessionmaker[Session], *, study_id: str, part
         if pooled is not None and (reason := model_flag(pooled, floor=floor)):
             flags["pooled"] = reason
         auto = auto_choice(session, study=study, participant=participant)
+        calibrations = active_calibrations(session, study=study, participant=participant)
         view = ParticipantView(
             study_id=study_id, participant_id=participant_id, nights=nights, versions=personal_versions,
             pooled=pooled, chosen_method=participant.chosen_method, choice=participant.choice, trainable=trainable,
             job=last_job(session, study=study, participant=participant),
             auto_method=None if auto is None else auto.method, passed_over={} if auto is None else auto.passed_over,
-            flags=flags)
+            flags=flags, calibrations=calibrations)
     try:
         return replace(view, comparison=reports.participant_comparison(factory, study_id=study_id,
                                                                         participant_id=participant_id))

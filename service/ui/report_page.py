@@ -12,7 +12,6 @@ only) and the stored versions; nothing is fetched at view time.
 from __future__ import annotations
 
 import platform
-import re
 from datetime import UTC, datetime
 from importlib import metadata
 from typing import Any
@@ -26,8 +25,9 @@ from ..results import reports
 from ..results.agreement_stats import STATISTIC_PARAMETERS
 from ..store import protocols, registry, versions
 from ..store.db import session_scope
+from .calibration_view import reliability_svg, version_calibration
 from .cards import model_card
-from .figures import render
+from .figures import inline_svg
 from .participant_view import COMPARISON_METHODS
 from .report_figures import draw_paired_differences, draw_participant_epochs, draw_repeated_bland_altman
 from .templating import CAUTIONS, TEMPLATES, is_simulated, number
@@ -40,9 +40,6 @@ LIBRARIES: tuple[str, ...] = ("nightbank", "numpy", "pandas", "scipy", "scikit-l
                               "xgboost", "optuna", "matplotlib", "fastapi", "sqlalchemy", "pyarrow")
 #: Epoch metrics of the participant-level figures and tables.
 REPORT_METRICS: tuple[str, ...] = ("balanced_accuracy", "sensitivity", "specificity", "kappa")
-_XML_HEAD = re.compile(r"^<\?xml[^>]*>\s*(<!DOCTYPE[^>]*>\s*)?", re.S)
-_ID = re.compile(r'\b(id)="([^"]+)"')
-_REF = re.compile(r'(url\(|href=")#([^)"]+)')
 
 
 def software_versions() -> dict[str, str]:
@@ -57,11 +54,7 @@ def software_versions() -> dict[str, str]:
 
 
 def _svg(draw: Any, *args: Any, size_in: tuple[float, float], salt: str, **kwargs: Any) -> str:
-    """A figure as an inline ``<svg>`` element (its own id salt, so ids never collide in the page)."""
-    text = _XML_HEAD.sub("", render(draw, *args, fmt="svg", size_in=size_in, salt=salt, **kwargs).decode())
-    # matplotlib numbers its element ids per figure (figure_1, axes_1, ...): give each figure its own prefix
-    text = _ID.sub(lambda m: f'{m.group(1)}="{salt}-{m.group(2)}"', text)
-    return _REF.sub(lambda m: f"{m.group(1)}#{salt}-{m.group(2)}", text)
+    return inline_svg(draw, *args, size_in=size_in, salt=salt, **kwargs)
 
 
 def report_methods(comparison: dict[str, Any]) -> list[str]:
@@ -113,14 +106,15 @@ def _cards(session: Session, study: registry.StudyInfo) -> list[dict[str, Any]]:
     cards = []
     pooled = versions.active_version(session, study=study, participant=None)
     if pooled is not None:
-        cards.append(model_card(pooled, study_id=study.study_id, participant_id=None))
+        cards.append(model_card(pooled, study_id=study.study_id, participant_id=None,
+                                calibration=version_calibration(session, pooled)))
     for participant in registry.study_participants(session, study=study):
         personal = versions.active_version(session, study=study, participant=participant)
         if personal is not None:
             choice = participant.choice if (participant.choice or {}).get("personal_version") == personal.version \
                 else None
             cards.append(model_card(personal, study_id=study.study_id, participant_id=participant.participant_id,
-                                    choice=choice))
+                                    choice=choice, calibration=version_calibration(session, personal)))
     return cards
 
 
@@ -167,7 +161,10 @@ def build_report(factory: sessionmaker[Session], *, study_id: str) -> str:
         paired_svg=_svg(draw_paired_differences, comparison["paired_differences"],
                         size_in=(7.0, 0.5 * len(comparison["paired_differences"]) + 1.0), salt="paired")
         if comparison.get("paired_differences") else None,
-        by_key=_index(comparison))
+        by_key=_index(comparison),
+        reliability=[None if c.get("calibration") is None else reliability_svg({c["title"]: c["calibration"]},
+                                                                               salt=f"rel-{k}")
+                     for k, c in enumerate(cards)])
 
 
 def _index(comparison: dict[str, Any]) -> dict[str, dict[tuple[str, str], dict[str, Any]]]:

@@ -380,3 +380,45 @@ def test_ui_pages_show_parameter_agreement_with_cis_the_choice_and_the_report(ta
     t.page.wait_for_load_state("networkidle")
     assert t.page.locator("svg").count() >= 4
     t.shot("report")
+
+
+def test_ui_night_page_shows_the_models_intervals_beside_its_parameters(tab, site) -> None:  # noqa: F811
+    import httpx
+
+    t = _analyst(tab)
+    night_id = site.night_ids[TRAINED][0]
+    t.goto(_night_path(site, TRAINED) + "?method=personal")
+    with httpx.Client(base_url=site.url, timeout=120) as http:
+        body = http.get(f"/v1/studies/{STUDY}/participants/{TRAINED}/nights/{night_id}/scoring",
+                        params={"method": "personal"}, headers=bearer(site.tokens["analyst"])).json()
+    assert body["intervals"] is not None
+    rows = t.page.locator("#interval-table tbody tr")
+    assert rows.count() == len(body["intervals"]) == 5
+    for k in range(rows.count()):
+        row = rows.nth(k)
+        low, high = body["intervals"][row.get_attribute("data-parameter")]
+        assert row.get_attribute("data-low") == str(low) and row.get_attribute("data-high") == str(high)
+        assert row.locator("td.low").inner_text() == ("–" if low is None else f"{low:.1f}")
+        assert row.locator("svg.whisker").is_visible()
+    level = f"{body['interval_level'] * 100:.0f}%"
+    assert level in t.page.locator("#interval-table caption").inner_text()
+    assert t.page.locator("#parameter-table span.interval").count() >= 5  # beside the values, per model
+    assert "posterior" in t.page.get_attribute("#night-figure img", "alt")
+    _check_accessible(t)
+    t.shot("night-intervals")
+
+
+def test_ui_participant_page_shows_the_calibration_of_the_active_models(tab, site) -> None:  # noqa: F811
+    t = _analyst(tab)
+    t.goto(f"/ui/studies/{STUDY}/participants/{TRAINED}")
+    table = t.page.locator("#calibration-table")
+    assert table.locator("tbody tr").count() == 2  # the personal and the pooled model
+    card = _download(t, t.page.locator("#versions-table tr.active a", has_text="JSON"))
+    calibration = json.loads(open(card.path(), encoding="utf-8").read())["calibration"]
+    row = table.locator("tbody tr", has_text="personal")
+    assert row.locator("td.brier-raw").inner_text() == f"{calibration['brier_raw']:.4f}"
+    assert row.locator("td.brier-calibrated").inner_text() == f"{calibration['brier_calibrated']:.4f}"
+    assert _image_loaded(t, "#reliability-figure img")
+    assert t.page.locator("#interval-coverage tbody tr").count() >= 5
+    _check_accessible(t)
+    t.shot("participant-calibration")

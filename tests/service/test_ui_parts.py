@@ -146,3 +146,39 @@ def test_held_out_figure_keeps_rotated_night_names_apart(n_nights: int) -> None:
         height_in = shown[0][1].get_fontsize() / 72
         gaps = np.diff(x_in[:-1]) * math.sin(angle)  # the last label (the mean) sits apart, after a rule
         assert (gaps >= height_in).all(), (n_nights, gaps.min(), height_in)
+
+
+def test_model_card_states_the_calibration_it_is_given() -> None:
+    """The card's calibration section: Brier scores and the reliability table as given (here computed with
+    scikit-learn's brier_score_loss and calibration_curve on simulated probabilities), and a plain statement
+    for a model without calibration."""
+    import numpy as np
+    from sklearn.calibration import calibration_curve
+    from sklearn.metrics import brier_score_loss
+
+    from service.store.metadata import ModelMetadata
+    from service.store.versions import VersionInfo
+    from service.ui.calibration_view import reliability_svg
+    from service.ui.cards import model_card, model_card_markdown
+
+    rng = np.random.default_rng(3)
+    p = rng.uniform(0, 1, 400)
+    y = (rng.uniform(0, 1, 400) < p ** 0.7).astype(int)  # simulated labels, miscalibrated on purpose
+    observed, predicted = calibration_curve(y, p, n_bins=5)
+    facts = {"method": "isotonic", "brier_raw": brier_score_loss(y, p), "brier_calibrated": 0.1234,
+             "reliability": {"predicted": predicted.tolist(), "observed": observed.tolist(), "count": [80] * 5},
+             "decoder": {"decoder": "hmm"}, "n_inner_nights": 3}
+    info = {"metrics": {"n_nights": 3}, "threshold": 0.5, "training_nights": []}
+    version = VersionInfo(pk=1, uid="u", kind="personal", version=1, active=True,
+                          created_at=datetime(2031, 3, 2, tzinfo=UTC), job_id="j",
+                          metadata=ModelMetadata.from_json(info))
+    card = model_card(version, study_id="s1", participant_id="P-01", calibration=facts)
+    text = model_card_markdown(card)
+    assert card["calibration"] == facts
+    assert f"| raw P(sleep) | {brier_score_loss(y, p):.3f} |" in text and "| calibrated P(sleep) | 0.123 |" in text
+    assert all(f"| {a:.3f} | {b:.3f} | 80 |" in text for a, b in zip(predicted, observed, strict=True))
+    assert "<svg" in (reliability_svg({"P-01 v1": facts}, salt="t") or "")
+    assert reliability_svg({"none": {"reliability": {"predicted": [], "observed": [], "count": []}}},
+                           salt="t") is None
+    bare = model_card_markdown(model_card(version, study_id="s1", participant_id="P-01"))
+    assert "## Calibration" in bare and "No calibration" in bare

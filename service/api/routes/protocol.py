@@ -29,7 +29,7 @@ _EXAMPLE = {"waso_end": "final_awakening", "min_awakening_epochs": 2, "sol": "fi
 ProtocolBody = Annotated[dict[str, Any], Body(
     description="the protocol's JSON form; fields left out take their defaults: waso_end, min_awakening_epochs, "
                 "persistent_sleep_min, sol, unscored_breaks_bouts, equivalence_margins, ci_level, "
-                "bootstrap_resamples, seed", examples=[_EXAMPLE])]
+                "bootstrap_resamples, seed, interval_level", examples=[_EXAMPLE])]
 
 
 @router.get("", response_model=dict[str, Any])

@@ -68,7 +68,7 @@ def test_every_field_changes_the_fingerprint():
     changed = [
         {"waso_end": "final_awakening"}, {"min_awakening_epochs": 2}, {"persistent_sleep_min": 5.0},
         {"sol": "persistent_sleep"}, {"unscored_breaks_bouts": True}, {"equivalence_margins": {"tst_min": 20.0}},
-        {"ci_level": 0.9}, {"bootstrap_resamples": 5000}, {"seed": 7},
+        {"ci_level": 0.9}, {"bootstrap_resamples": 5000}, {"seed": 7}, {"interval_level": 0.8},
     ]
     prints = {StudyProtocol.from_dict(c).fingerprint() for c in changed}
     assert len(prints) == len(changed) and DEFAULT_PROTOCOL.fingerprint() not in prints
