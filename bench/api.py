@@ -43,6 +43,7 @@ import time
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
+from urllib.parse import urlencode
 
 import httpx
 import numpy as np
@@ -98,7 +99,7 @@ def main() -> None:
 
 
 def _paths(answered: list[tuple[str, str, str]]) -> list[str]:
-    return [f"/v1/studies/bench/participants/{pid}/nights/{night_id}/scoring?method={method}"
+    return [f"/v1/studies/bench/participants/{pid}/nights/{night_id}/scoring?{urlencode({'method': method})}"
             for pid, night_id, method in answered]
 
 

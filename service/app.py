@@ -87,7 +87,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.cache_writer = writer
     app.state.metrics = metrics
     app.state.token_cache = TokenCache(settings.token_cache_s)
-    app.state.scoring_cache = ScoringCache()
+    app.state.scoring_cache = ScoringCache(engine)
     install_problem_handlers(app)
     for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens, protocol):
         app.include_router(module.router)

@@ -30,7 +30,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from cachetools import LRUCache
-from sqlalchemy import String, and_, bindparam, cast, select
+from sqlalchemy import Engine, String, and_, bindparam, cast, select
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import MODEL_METHODS, NightbankError, StudyProtocol
@@ -74,7 +74,7 @@ def _lookup(*, requested: str | None) -> Any:
 
 
 _LOOKUP = {requested: _lookup(requested=requested) for requested in (None, "pooled", "personal")}
-_STORED_BODY = select(db.Scoring.body).where(db.Scoring.night_pk == bindparam("night_pk"),
+_STORED_BODY = select(db.Scoring.body, db.Scoring.night_hash).where(db.Scoring.night_pk == bindparam("night_pk"),
                                               db.Scoring.cache_key == bindparam("cache_key"))
 
 
@@ -89,21 +89,107 @@ class _Resolution:
     protocol: StudyProtocol
 
 
+class _DriverQuery:
+    """A statement compiled once for the engine's dialect, run on a pooled DBAPI connection."""
+
+    def __init__(self, statement: Any, engine: Engine) -> None:
+        compiled = statement.compile(dialect=engine.dialect)
+        self.sql = str(compiled)
+        self.names = compiled.positiontup if compiled.positional else None
+        self.constants = {k: v for k, v in compiled.construct_params(_check=False).items() if v is not None}
+
+    def params(self, values: dict[str, Any]) -> Any:
+        merged = {**self.constants, **values}
+        return merged if self.names is None else [merged[name] for name in self.names]
+
+
 class ScoringCache:
     """Per-process resolutions (by stamp) and ready response bytes (LRU, bounded in bytes).
 
     Parameters
     ----------
+    engine : Engine, optional
+        For :meth:`kept`, the lookup of a kept answer on a pooled DBAPI connection.
     max_bytes : int, default=64 MiB
         Total size of the kept response bodies.
     max_resolutions : int, default=8192
         Number of kept resolutions.
     """
 
-    def __init__(self, *, max_bytes: int = 64 * 2**20, max_resolutions: int = 8192) -> None:
+    def __init__(self, engine: Engine | None = None, *, max_bytes: int = 64 * 2**20,
+                 max_resolutions: int = 8192) -> None:
         self._bodies: LRUCache[tuple[Any, ...], bytes] = LRUCache(maxsize=max_bytes, getsizeof=len)
         self._resolutions: LRUCache[tuple[Any, ...], _Resolution] = LRUCache(maxsize=max_resolutions)
         self._lock = threading.Lock()
+        self._engine = engine
+        self._held = threading.local()
+        self._lookups = {} if engine is None else {k: _DriverQuery(q, engine) for k, q in _LOOKUP.items()}
+        self._stored_body = None if engine is None else _DriverQuery(_STORED_BODY, engine)
+        #: SQLite file: :meth:`kept` runs on the event loop (a read in WAL mode waits for no writer)
+        self.inline = engine is not None and engine.dialect.name == "sqlite"
+
+    def kept(self, *, study_id: str, participant_id: str, night_id: str, method: str,
+             version: int | None = None) -> bytes | None:
+        """The answer when its resolution and bytes are kept (or its row is stored): one or two queries.
+
+        None when anything else is needed (not resolved here yet, not stored, descriptors from the
+        current nights, an invalid request, a database error): then :func:`serve_scoring` answers.
+        """
+        if self._engine is None or method not in SCORING_METHODS or (version is not None
+                                                                     and method not in MODEL_METHODS):
+            return None
+        requested = _requested(method, version)
+        values: dict[str, Any] = {"study_id": study_id, "participant_id": participant_id, "night_id": night_id}
+        if version is not None:
+            values["version"] = version
+        try:
+            conn = self._connection()
+        except Exception:  # noqa: BLE001 - serve_scoring meets the same failure and answers it
+            return None
+        broken = False
+        try:
+            cursor = conn.cursor()
+            try:
+                return self._kept_on(cursor, values, requested=requested, method=method, version=version)
+            finally:
+                cursor.close()
+        except Exception:  # noqa: BLE001 - as above; the connection is opened afresh next time
+            broken = True
+            self._held.__dict__.pop("conn", None)
+            return None
+        finally:
+            if broken or not self.inline:
+                conn.close()  # back to the pool (held, it would keep a transaction open on other databases)
+
+    def _kept_on(self, cursor: Any, values: dict[str, Any], *, requested: str | None, method: str,
+                 version: int | None) -> bytes | None:
+        lookup = self._lookups[requested]
+        cursor.execute(lookup.sql, lookup.params(values))
+        row = cursor.fetchone()
+        resolution = None if row is None else self.resolution(_stamp_of(row, method=method, version=version))
+        if resolution is None or resolution.key is None:
+            return None
+        body_key = (row[0], row[1], resolution.key, resolution.number)
+        body = self.body(body_key)
+        if body is None and self._stored_body is not None:
+            query = self._stored_body
+            cursor.execute(query.sql, query.params({"night_pk": row[0], "cache_key": resolution.key}))
+            stored = cursor.fetchone()
+            if stored is None or stored[1] != row[1]:  # not stored yet (or for other content under this pk)
+                return None
+            body = zlib.decompress(stored[0])
+            self.keep_body(body_key, body)
+        return body
+
+    def _connection(self) -> Any:
+        """This thread's DBAPI connection, taken from the pool once and held (reads only, autocommit on SQLite)."""
+        assert self._engine is not None
+        if not self.inline:
+            return self._engine.raw_connection()
+        conn = getattr(self._held, "conn", None)
+        if conn is None:
+            conn = self._held.conn = self._engine.raw_connection()
+        return conn
 
     def body(self, key: tuple[Any, ...]) -> bytes | None:
         """The kept body under ``key``, or None."""
@@ -123,6 +209,11 @@ class ScoringCache:
     def keep_resolution(self, stamp: tuple[Any, ...], resolution: _Resolution) -> None:
         with self._lock:
             self._resolutions[stamp] = resolution
+
+
+def _requested(method: str, version: int | None) -> str | None:
+    """Which lookup a request needs: None, or the scope (``pooled``, ``personal``) of its ``version``."""
+    return None if version is None else ("personal" if method == "personal" else "pooled")
 
 
 def _stamp_of(row: Any, *, method: str, version: int | None) -> tuple[Any, ...]:
@@ -153,8 +244,13 @@ def serve_scoring(cache: ScoringCache, factory: sessionmaker[Session], *, study_
     Same answers and errors as :func:`~service.results.scoring.score_night`, which serves
     everything but a stored result.
     """
+    if not cache.inline:  # on the event loop otherwise, before this
+        kept = cache.kept(study_id=study_id, participant_id=participant_id, night_id=night_id, method=method,
+                          version=version)
+        if kept is not None:
+            return kept
     if method in SCORING_METHODS and (version is None or method in MODEL_METHODS):
-        requested = None if version is None else ("personal" if method == "personal" else "pooled")
+        requested = _requested(method, version)
         params: dict[str, Any] = {"study_id": study_id, "participant_id": participant_id, "night_id": night_id}
         if version is not None:
             params["version"] = version
@@ -178,8 +274,7 @@ def _stored(cache: ScoringCache, session: Session, row: Any, params: dict[str, A
             resolution = _resolve(session, row, study_id=params["study_id"], method=method, version=version)
         except NightbankError:  # score_night answers with the same error
             return None
-        again = session.execute(_LOOKUP[None if version is None else ("personal" if method == "personal"
-                                                                       else "pooled")], params).first()
+        again = session.execute(_LOOKUP[_requested(method, version)], params).first()
         if again is None or _stamp_of(again, method=method, version=version) != stamp:
             return None  # changed meanwhile: score_night resolves afresh
         cache.keep_resolution(stamp, resolution)
@@ -191,9 +286,9 @@ def _stored(cache: ScoringCache, session: Session, row: Any, params: dict[str, A
     body = cache.body(body_key)
     if body is not None:
         return body
-    stored = session.scalar(_STORED_BODY, {"night_pk": row[0], "cache_key": key})
-    if stored is None:
+    stored = session.execute(_STORED_BODY, {"night_pk": row[0], "cache_key": key}).first()
+    if stored is None or stored[1] != row[1]:  # not stored yet (or stored for other content under this pk)
         return None
-    body = zlib.decompress(stored)
+    body = zlib.decompress(stored[0])
     cache.keep_body(body_key, body)
     return body

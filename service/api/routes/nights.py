@@ -253,7 +253,11 @@ async def get_scoring(request: Request, access: Annotated[StudyAccess, Depends(s
                       version: Annotated[int | None, Query(ge=1, le=10**9, description="model version")] = None,
                       ) -> Response:
     """Sleep/wake per epoch, sleep parameters and (for labelled nights) agreement with the reference."""
-    body = await run_in_threadpool(serve_scoring, request.app.state.scoring_cache, factory, study_id=access.study_id,
-                                   participant_id=pid, night_id=night_id, method=method, version=version,
-                                   writer=request.app.state.cache_writer)
+    cache = request.app.state.scoring_cache
+    body = cache.kept(study_id=access.study_id, participant_id=pid, night_id=night_id, method=method,
+                      version=version) if cache.inline else None
+    if body is None:
+        body = await run_in_threadpool(serve_scoring, cache, factory, study_id=access.study_id, participant_id=pid,
+                                       night_id=night_id, method=method, version=version,
+                                       writer=request.app.state.cache_writer)
     return Response(content=body, media_type="application/json")
