@@ -28,6 +28,7 @@ from .api.routes import (
 )
 from .api.schemas import Problem
 from .config import Settings, get_settings
+from .results.scoring_cache import ScoringCache
 from .store import db
 from .store.cachewriter import CacheWriter
 from .store.schema import check_schema
@@ -86,6 +87,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.cache_writer = writer
     app.state.metrics = metrics
     app.state.token_cache = TokenCache(settings.token_cache_s)
+    app.state.scoring_cache = ScoringCache(engine)
     install_problem_handlers(app)
     for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens, protocol):
         app.include_router(module.router)

@@ -129,8 +129,11 @@ def serve(
     try:
         # several HTTP workers share their metrics through a folder, so /metrics counts for all of them
         with multiprocess_folder() if settings.workers > 1 else contextlib.nullcontext():
+            # a worker process imports the whole service before it first answers the supervisor's health
+            # check; on a loaded machine that takes longer than uvicorn's 5 s and the worker is killed
             uvicorn.run("service.app:app_from_env", factory=True, host=settings.host, port=settings.port,
-                        workers=settings.workers, access_log=False, log_config=log_config(settings.log_level))
+                        workers=settings.workers, access_log=False, log_config=log_config(settings.log_level),
+                        timeout_worker_healthcheck=60)
     finally:
         supervisor.stop()
         shutil.rmtree(status_dir, ignore_errors=True)

@@ -76,7 +76,8 @@ from ..store.snapshots import ParticipantInfo, StudyInfo
 from .model_flags import auto_choice
 from .night_intervals import decoded_extras, interval_seed, probabilities
 
-__all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night", "study_uncertainty"]
+__all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night", "scoring_key", "study_uncertainty",
+           "uses_current_nights"]
 
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 #: part of every cache key: bump when a stored scoring body would now come out differently
@@ -220,6 +221,38 @@ def compute_scoring(night: Night, *, method: str, model: Any = None, version: in
     return body
 
 
+def uses_current_nights(resolved: _Resolved, model: Any, participant_id: str) -> bool:
+    """Whether the scoring's inputs include descriptors computed from the participant's current nights."""
+    return (resolved.version is not None and bool(model.descriptor_names_)
+            and not resolved.version.metadata.descriptors.get(participant_id))
+
+
+def scoring_key(session: Session, *, participant: ParticipantInfo, resolved: _Resolved,
+                protocol: StudyProtocol) -> tuple[str, Any, float, Mapping[str, float | None] | None]:
+    """The cache key of a resolved scoring, with the model, offset and descriptors it scores with.
+
+    The key names the scoring revision, the protocol's fingerprint, the rule or the model
+    version's uid with the participant inputs (offset, descriptors), and what ``auto`` passed over.
+    """
+    revision = f"{SCORING_REVISION}:{protocol.fingerprint()}"  # a new protocol never finds old results
+    offset, model = 0.0, None
+    descriptors: Mapping[str, float | None] | None = None
+    if resolved.version is None:
+        key = f"{revision}:{resolved.method}"
+    else:
+        model = versions.load_model(session, resolved.version)
+        if resolved.method == "pooled+offset":
+            offset = resolved.version.metadata.offset_of(participant.participant_id)
+        if model.descriptor_names_:  # as in training for participants it saw, else from all current nights
+            descriptors = (resolved.version.metadata.descriptors.get(participant.participant_id)
+                           or _descriptors(session, participant))
+        inputs = json.dumps([resolved.method, offset, descriptors], sort_keys=True)
+        key = f"{revision}:m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
+    if resolved.passed_over:  # auto passed over flagged models: its body says so, so it is kept apart
+        key += ":a" + hashlib.sha1(json.dumps(resolved.passed_over, sort_keys=True).encode()).hexdigest()[:6]
+    return key, model, offset, descriptors
+
+
 def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id: str, night_id: str, method: str,
                 version: int | None = None, writer: CacheWriter | None = None) -> bytes:
     """JSON body of a night's scoring, from the cache or computed (and then cached).
@@ -249,22 +282,8 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         participant = participant_snapshot(participant_row, study.study_id)
         resolved = resolve_method(session, study=study, participant=participant, method=method, version=version)
         protocol = study_protocol(session, study)
-        revision = f"{SCORING_REVISION}:{protocol.fingerprint()}"  # a new protocol never finds old results
-        offset, model = 0.0, None
-        descriptors: Mapping[str, float | None] | None = None
-        if resolved.version is None:
-            key = f"{revision}:{resolved.method}"
-        else:
-            model = versions.load_model(session, resolved.version)
-            if resolved.method == "pooled+offset":
-                offset = resolved.version.metadata.offset_of(participant_id)
-            if model.descriptor_names_:  # as in training for participants it saw, else from all current nights
-                descriptors = (resolved.version.metadata.descriptors.get(participant_id)
-                               or _descriptors(session, participant))
-            inputs = json.dumps([resolved.method, offset, descriptors], sort_keys=True)
-            key = f"{revision}:m:{resolved.version.uid[:16]}:{hashlib.sha1(inputs.encode()).hexdigest()[:16]}"
-        if resolved.passed_over:  # auto passed over flagged models: its body says so, so it is kept apart
-            key += ":a" + hashlib.sha1(json.dumps(resolved.passed_over, sort_keys=True).encode()).hexdigest()[:6]
+        key, model, offset, descriptors = scoring_key(session, participant=participant, resolved=resolved,
+                                                      protocol=protocol)
         cached = session.scalar(select(db.Scoring.body).where(db.Scoring.night_pk == row.pk,
                                                               db.Scoring.cache_key == key))
         if cached is not None:

@@ -27,7 +27,8 @@ from models import (
 )
 
 from ...errors import Conflict, Unprocessable, UnsupportedMediaType
-from ...results.scoring import SCORING_METHODS, score_night
+from ...results.scoring import SCORING_METHODS
+from ...results.scoring_cache import serve_scoring
 from ...store import manage, profiles, registry
 from ...store.db import session_scope
 from ...store.tokens import Role
@@ -252,7 +253,11 @@ async def get_scoring(request: Request, access: Annotated[StudyAccess, Depends(s
                       version: Annotated[int | None, Query(ge=1, le=10**9, description="model version")] = None,
                       ) -> Response:
     """Sleep/wake per epoch, sleep parameters and (for labelled nights) agreement with the reference."""
-    body = await run_in_threadpool(score_night, factory, study_id=access.study_id, participant_id=pid,
-                                   night_id=night_id, method=method, version=version,
-                                   writer=request.app.state.cache_writer)
+    cache = request.app.state.scoring_cache
+    body = cache.kept(study_id=access.study_id, participant_id=pid, night_id=night_id, method=method,
+                      version=version) if cache.inline else None
+    if body is None:
+        body = await run_in_threadpool(serve_scoring, cache, factory, study_id=access.study_id, participant_id=pid,
+                                       night_id=night_id, method=method, version=version,
+                                       writer=request.app.state.cache_writer)
     return Response(content=body, media_type="application/json")
