@@ -68,6 +68,7 @@ from .pooled import (
 )
 from .rows import (
     NightRows,
+    corrected_rows,
     iter_prepared,
     labelled_nights,
     prepare_nights,
@@ -144,6 +145,7 @@ __all__ = [
     "choose_method",
     "choose_shrinkage",
     "compare_study",
+    "corrected_rows",
     "estimate_offset",
     "fold_groups",
     "held_out_comparison",
