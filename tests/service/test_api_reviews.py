@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -271,3 +272,47 @@ def test_personal_training_fits_corrected_nights_with_the_study_weight_but_never
     assert card["data"]["corrected_nights"] == 2
     assert "Corrected nights (reviewed labels, not PSG; final fit only, never held out): 2 at weight 0.3" \
         in model_card_markdown(card)
+
+
+def test_queue_command_and_client_review_methods(server: Any, http: Any, study: str, admin: dict[str, str],
+                                                 make_token: Any) -> None:
+    from typer.testing import CliRunner
+
+    from service.cli import app
+    from service.client import NightbankClient
+    from service.errors import Conflict
+
+    ids = []
+    for body in cohort_bodies(n_participants=1, nights=3, seed=9)["P-01"]:
+        body = {k: v for k, v in body.items() if k != "reference"}
+        ids.append(http.post(NIGHTS.format(pid="P-01"), json=body, headers=admin).json()["night_id"])
+    reviewer_token = make_token("reviewer", study_id=study)
+    runner = CliRunner()
+    common = ["--study", study, "--server", server.url, "--token", reviewer_token]
+    listed = runner.invoke(app, ["queue", *common, "--limit", "2", "--json"])
+    assert listed.exit_code == 0, listed.output
+    items = json.loads(listed.output)
+    assert len(items) == 2 and {i["night_id"] for i in items} <= set(ids)
+    table = runner.invoke(app, ["queue", *common], terminal_width=200)
+    assert table.exit_code == 0 and "Review queue of study s1" in table.output and "not for diagnosis" in table.output
+    bad = runner.invoke(app, ["queue", *common, "--status", "done"])
+    assert bad.exit_code == 2 and "--status" in bad.output
+    with NightbankClient(server.url, token=reviewer_token) as client, \
+            NightbankClient(server.url, token=make_token("reviewer", study_id=study)) as other, \
+            NightbankClient(server.url, token=make_token("analyst", study_id=study)) as analyst:
+        assert [i["night_id"] for i in client.review_queue(study)][:2] == [i["night_id"] for i in items]
+        nid = items[0]["night_id"]
+        context = client.review_context(study, "P-01", nid)
+        n = len(context["calls"])
+        preview = client.preview_review(study, "P-01", nid, sleep_intervals=[{"start_epoch": 0, "end_epoch": n}])
+        assert preview["labels_summary"]["sleep_epochs"] == n
+        first = client.post_review(study, "P-01", nid, reviewer="ana", wake_intervals=[{"start_epoch": 0,
+                                                                                        "end_epoch": 20}])
+        with pytest.raises(Conflict):
+            client.post_review(study, "P-01", nid, reviewer="ana", labels=[1] * n)
+        other.post_review(study, "P-01", nid, reviewer="ben", labels=[1] * n, note="all asleep")
+        assert client.night_reviews(study, "P-01", nid)["discrepancy"]["epochs_compared"] > 0
+        done = analyst.adjudicate(study, "P-01", nid, adjudicator="chief", accept=first["review_id"])
+        assert done["status"] == "adjudicated"
+        assert analyst.review_agreement(study)["n_nights_reviewed"] == 1
+        assert client.review_queue(study, status="adjudicated")[0]["night_id"] == nid
