@@ -39,7 +39,7 @@ _ABS_ERROR_PER_WIDTH = float(np.sqrt(2.0 / np.pi) / (2.0 * 1.6448536))
 
 #: The evidence terms, each in minutes (qc_flags: a count), in the order reasons are built.
 EVIDENCE_TERMS: tuple[str, ...] = ("uncertainty", "sol_interval", "model_disagreement", "rule_disagreement",
-                                   "nonwear", "diary", "unusual", "qc_flags")
+                                   "wake_in_bed", "nonwear", "diary", "unusual", "qc_flags")
 
 
 @dataclass(frozen=True)
@@ -176,6 +176,17 @@ def _disagreement(e: NightEvidence, *, rules: bool) -> EvidenceFigure | None:
     return EvidenceFigure("rule_disagreement" if rules else "model_disagreement", total, reason)
 
 
+def _wake_in_bed(e: NightEvidence) -> EvidenceFigure | None:
+    """Wake the deployed scoring finds in bed (SOL + WASO): count-based scoring errs most on wakeful nights."""
+    auto = e.parameters["auto"]
+    parts = [_value(auto, n) for n in ("sol_min", "waso_min")]
+    if not all(np.isfinite(parts)):
+        return None
+    total = float(sum(parts))
+    return EvidenceFigure("wake_in_bed", total, f"{total:.0f} min awake in bed (SOL {parts[0]:.0f}, WASO "
+                          f"{parts[1]:.0f}): scoring errs most on wakeful nights")
+
+
 def _rest_minutes(auto: Mapping[str, float]) -> float:
     tib = _value(auto, "time_in_bed_min")
     if np.isfinite(tib):
@@ -259,6 +270,8 @@ def evidence_figures(evidence: NightEvidence) -> dict[str, EvidenceFigure]:
         - ``sol_interval``: the SOL interval's width, minutes;
         - ``model_disagreement`` / ``rule_disagreement``: per TST, WASO and SOL the median over
           the other model methods (classical rules) of |method - auto|, summed, minutes;
+        - ``wake_in_bed``: SOL + WASO of the deployed scoring, minutes (wear-based scoring is
+          least specific to wake, so wakeful nights carry the largest errors; Sadeh 2011, from memory);
         - ``nonwear``: off-wrist share x time in bed, minutes;
         - ``diary``: per diary time, |offset| beyond :data:`DIARY_TOLERANCE_MIN`, summed, minutes;
         - ``unusual``: per TST, WASO and SOL, |value - the participant's median| beyond 2 robust SDs
@@ -266,6 +279,6 @@ def evidence_figures(evidence: NightEvidence) -> dict[str, EvidenceFigure]:
         - ``qc_flags``: the number of distinct quality flags.
     """
     found = (_uncertainty(evidence), _sol_interval(evidence), _disagreement(evidence, rules=False),
-             _disagreement(evidence, rules=True), _nonwear(evidence), _diary(evidence), _unusual(evidence),
-             _qc(evidence))
+             _disagreement(evidence, rules=True), _wake_in_bed(evidence), _nonwear(evidence), _diary(evidence),
+             _unusual(evidence), _qc(evidence))
     return {f.term: f for f in found if f is not None and np.isfinite(f.value)}
