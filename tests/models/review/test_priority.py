@@ -91,3 +91,9 @@ def test_repeated_night_and_unknown_weight_are_refused() -> None:
         rank_nights([_clean("a")], weights={"nonsense": 1.0})
     with pytest.raises(InvalidReviewError, match="weights.diary"):
         rank_nights([_clean("a")], weights={"diary": -1.0})
+
+
+def test_wake_in_bed_is_sol_plus_waso_of_auto() -> None:
+    figures = evidence_figures(_clean("x"))
+    assert figures["wake_in_bed"].value == 60.0  # SOL 20 + WASO 40 of AUTO
+    assert figures["wake_in_bed"].reason.startswith("60 min awake in bed (SOL 20, WASO 40)")
