@@ -82,6 +82,7 @@ from .splits import (
 )
 from .study_comparison import (
     COMPARED_RULES,
+    COVERAGE_COLUMNS,
     StudyComparison,
     compare_study,
     held_out_comparison,
@@ -109,6 +110,7 @@ __all__ = [
     "ActivationEvidence",
     "CHOICE_POLICIES",
     "COMPARED_RULES",
+    "COVERAGE_COLUMNS",
     "DEFAULT_SHRINKAGE_GRID",
     "DESCRIPTOR_NAMES",
     "FORMAT",
