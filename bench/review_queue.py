@@ -5,12 +5,12 @@ stages) is split per participant: the first ``--labelled`` nights keep their PSG
 the pooled model (:func:`models.learning.pooled.train_pooled`, participant offsets included); the
 other nights lose their labels and form the queue. Each queue night is scored as the service would:
 
-- ``auto``: the pooled model with the participant's offset, calls at its threshold;
+- ``auto``: the pooled model with the participant's offset, its calibrated P(sleep) decoded into
+  calls by the model's own decoding (:class:`models.decoding.fitting.NightDecoding`, fitted in
+  training on validation nights only);
 - ``pooled`` (no offset) and the classical rules ``cole-kripke`` and ``sadeh``, for disagreement;
-- per-night intervals and ``uncertainty_min``: paths drawn from a sleep/wake chain fitted on the
-  training labels (:func:`models.decoding.hmm.fit_sleep_wake_hmm`,
-  :func:`models.decoding.intervals.night_intervals`), on P(sleep) calibrated by isotonic regression
-  on the pooled model's leave-participants-out predictions of the training nights;
+- per-night intervals and ``uncertainty_min`` of ``auto``: :meth:`models.learning.classifier.SleepModel.intervals`
+  (paths drawn from the decoding's sleep/wake chain);
 - quality flags (:func:`models.nights.quality.quality_flags`), the off-wrist share of the in-bed
   interval (the flagged runs of zeros), a simulated diary, and the participant's other nights.
 
@@ -53,14 +53,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 from scipy.optimize import nnls
-from scipy.special import expit
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from models.decoding.calibration import IsotonicCalibrator  # noqa: E402
-from models.decoding.hmm import fit_sleep_wake_hmm  # noqa: E402
-from models.decoding.intervals import night_intervals  # noqa: E402
 from models.learning.config import TrainingConfig  # noqa: E402
 from models.learning.descriptors import participant_descriptors  # noqa: E402
 from models.learning.pooled import train_pooled  # noqa: E402
@@ -146,10 +142,6 @@ def _evidence(nights: dict[str, list[Night]], queue: list[QueueNight], *, seed: 
     t0 = time.perf_counter()
     pooled = train_pooled(nights, config=TrainingConfig(seed=seed, n_jobs=2, pooled_folds=3))
     train_s = time.perf_counter() - t0
-    held = [h for hs in pooled.offset_held_out.values() for h in hs]
-    calibrator = IsotonicCalibrator().fit(np.concatenate([h.p_sleep for h in held]),
-                                          np.concatenate([h.reference for h in held]))
-    chain = fit_sleep_wake_hmm([n.reference_sleep() for ns in nights.values() for n in ns if n.reference is not None])
     model = pooled.model
     auto_params: dict[str, dict[str, float]] = {}
     evidence_parts = []
@@ -158,14 +150,16 @@ def _evidence(nights: dict[str, list[Night]], queue: list[QueueNight], *, seed: 
         pid, n = q.participant_id, q.night
         desc = pooled.descriptors.get(pid) or participant_descriptors(nights[pid])
         margin = model.decision_function(n, descriptors=desc)
-        p_auto = expit(margin + pooled.offsets[pid])
+        p_auto = model.proba_from_margin(margin + pooled.offsets[pid])
         auto = model.calls(p_auto)
         in_bed = n.in_bed
-        params = {"auto": _params(auto, in_bed), "pooled": _params(model.calls(expit(margin)), in_bed)}
+        pooled_calls = model.calls(model.proba_from_margin(margin))
+        params = {"auto": _params(auto, in_bed), "pooled": _params(pooled_calls, in_bed)}
         for rule in RULES:
             params[rule] = _params(score_with_rule(n.counts, 30, rule).sleep, in_bed)
-        iv = night_intervals(calibrator.transform(p_auto), chain, 30, lights_off_idx=in_bed[0],
-                             lights_on_idx=in_bed[1], n_paths=200, seed=seed)
+        iv = model.intervals(p_auto, n, n_paths=200, seed=seed)
+        if iv is None:
+            raise SystemExit("the pooled model has no decoding: per-night intervals are unavailable")
         flags = quality_flags(n)
         off_wrist = np.zeros(n.n_epochs, dtype=bool)
         for f in flags:

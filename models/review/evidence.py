@@ -92,8 +92,18 @@ class NightEvidence:
         def bad(name: str, message: str) -> None:
             problems.append(Problem("invalid_review", f"{where}: {name} {message}", {"field": name}))
 
-        if "auto" not in self.parameters:
+        if not isinstance(self.parameters, Mapping) or "auto" not in self.parameters:
             bad("parameters", "must hold the deployed scoring under 'auto'")
+        else:
+            for method, values in self.parameters.items():
+                if not isinstance(values, Mapping):
+                    bad(f"parameters.{method}", f"must map parameter names to minutes, got {values!r}")
+        for k, item in enumerate(self.history):
+            if not isinstance(item, Mapping):
+                bad(f"history[{k}]", f"must map parameter names to minutes, got {item!r}")
+        for k, code in enumerate(self.qc_flags):
+            if not isinstance(code, str):
+                bad(f"qc_flags[{k}]", f"must be a quality-flag code, got {code!r}")
         if not _is_number(self.nonwear_share) or not 0.0 <= float(self.nonwear_share) <= 1.0:
             bad("nonwear_share", f"must be a share between 0 and 1, got {self.nonwear_share!r}")
         if self.uncertainty_min is not None and (not _is_number(self.uncertainty_min) or self.uncertainty_min < 0):
@@ -102,7 +112,8 @@ class NightEvidence:
             if not _is_number(value):
                 bad(f"diary_offsets_min.{key}", f"must be minutes, got {value!r}")
         for name, bounds in (self.intervals or {}).items():
-            if len(bounds) != 2 or not all(_is_number(b) for b in bounds):
+            if isinstance(bounds, (str, bytes)) or not isinstance(bounds, Sequence) or len(bounds) != 2 \
+                    or not all(_is_number(b) for b in bounds):
                 bad(f"intervals.{name}", f"must be [low, high], got {bounds!r}")
         if problems:
             raise InvalidReviewError(problems)

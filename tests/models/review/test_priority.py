@@ -97,3 +97,16 @@ def test_wake_in_bed_is_sol_plus_waso_of_auto() -> None:
     figures = evidence_figures(_clean("x"))
     assert figures["wake_in_bed"].value == 60.0  # SOL 20 + WASO 40 of AUTO
     assert figures["wake_in_bed"].reason.startswith("60 min awake in bed (SOL 20, WASO 40)")
+
+
+@pytest.mark.parametrize(("kwargs", "field"), [
+    ({"qc_flags": ["off_wrist", 3]}, "qc_flags[1]"),
+    ({"history": [AUTO, 5]}, "history[1]"),
+    ({"intervals": {"tst_min": [1.0]}}, "intervals.tst_min"),
+    ({"diary_offsets_min": {"bed_time": "late"}}, "diary_offsets_min.bed_time"),
+    ({"uncertainty_min": -1.0}, "uncertainty_min"),
+])
+def test_malformed_evidence_names_its_field(kwargs: dict, field: str) -> None:
+    with pytest.raises(InvalidReviewError) as err:
+        _clean("x", **kwargs)
+    assert [p.location["field"] for p in err.value.problems] == [field]
