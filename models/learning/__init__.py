@@ -83,6 +83,7 @@ from .splits import (
 )
 from .study_comparison import (
     COMPARED_RULES,
+    COVERAGE_COLUMNS,
     StudyComparison,
     compare_study,
     held_out_comparison,
@@ -110,6 +111,7 @@ __all__ = [
     "ActivationEvidence",
     "CHOICE_POLICIES",
     "COMPARED_RULES",
+    "COVERAGE_COLUMNS",
     "DEFAULT_SHRINKAGE_GRID",
     "DESCRIPTOR_NAMES",
     "FORMAT",

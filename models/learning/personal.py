@@ -89,7 +89,7 @@ def _model(pipe: TunedPipeline, nights: Sequence[NightRows], config: TrainingCon
         kind="personal", booster=pipe.booster, threshold=pipe.threshold, feature_config=config.features,
         feature_version=features.version, feature_names=features.names, params=pipe.hyperparameters,
         n_rounds=pipe.n_rounds, projection=pipe.projection, participant_id=nights[0].night.participant_id,
-        training_nights=tuple(n.night.content_hash for n in nights),
+        training_nights=tuple(n.night.content_hash for n in nights), decoding=pipe.decoding,
         info={"seed": seed, "inner_auc": pipe.best_value, "tuning": pipe.trials, "libraries": library_versions()})
 
 
@@ -180,7 +180,7 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
             what = "night" if held_idx.size == 1 else f"group of {held_idx.size} nights"
             model = _model(tune_and_fit(others, config=config, seed=seed, reporter=reporter,
                                         stage=f"personal: {what} {k + 1}/{n} held out"), others, config, seed)
-            out = [(int(i), _held_out(model, rows[i])) for i in held_idx]
+            out = [(int(i), _held_out(model, rows[i], config)) for i in held_idx]
             return out, _trial_row("+".join(h.night_id for _, h in out), model)
         return run
 
@@ -202,11 +202,13 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
                           summary=summary_table(night_metrics), best_params=dict(model.params_), trials=trials)
 
 
-def _held_out(model: SleepModel, held: NightRows) -> HeldOutNight:
+def _held_out(model: SleepModel, held: NightRows, config: TrainingConfig) -> HeldOutNight:
     p = model.predict_proba(held.night, features=held.features)
     return HeldOutNight(participant_id=held.night.participant_id, night_hash=held.night.content_hash,
                         label=held.night.label, method="personal", p_sleep=p, sleep=model.calls(p),
-                        reference=held.reference, in_bed=held.night.in_bed, threshold=model.threshold_)
+                        reference=held.reference, in_bed=held.night.in_bed, threshold=model.threshold_,
+                        intervals=model.intervals(p, held.night, level=config.interval_level,
+                                                  n_paths=config.interval_paths))
 
 
 def _trial_row(study: str, model: SleepModel) -> dict[str, Any]:
