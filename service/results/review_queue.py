@@ -20,15 +20,18 @@ recording); nights with PSG are never queued. Each candidate's evidence is built
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
+import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from sqlalchemy import select
+from cachetools import LRUCache
+from sqlalchemy import Row, select
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import NightEvidence, rank_nights
@@ -177,8 +180,41 @@ def _evidence(factory: sessionmaker[Session], study_id: str, candidates: Sequenc
     return out
 
 
+def _inputs_key(session: Session, study_id: str) -> str:
+    """A digest of everything the ranking reads: the candidate nights, the models ``auto`` may choose,
+    the participants' choices, the protocol and the recordings' diaries and non-wear."""
+    study = find_study(session, study_id)
+    parts: list[Any] = [study.pk]
+    parts.append(session.execute(
+        select(db.Night.pk, db.Night.content_hash, db.Night.labelled, db.Night.label)
+        .join(db.Participant, db.Participant.pk == db.Night.participant_pk)
+        .where(db.Participant.study_pk == study.pk).order_by(db.Night.pk)).all())
+    parts.append(session.execute(select(db.ModelVersion.uid).where(
+        db.ModelVersion.study_pk == study.pk, db.ModelVersion.is_active).order_by(db.ModelVersion.uid)).all())
+    parts.append(session.execute(select(db.Participant.pk, db.Participant.chosen_method).where(
+        db.Participant.study_pk == study.pk).order_by(db.Participant.pk)).all())
+    parts.append(session.execute(select(db.StudyProtocolRow.fingerprint, db.StudyProtocolRow.model_floor).where(
+        db.StudyProtocolRow.study_pk == study.pk)).all())
+    parts.append(session.execute(
+        select(db.RecordingRow.pk, db.RecordingRow.content_hash, db.RecordingRow.diary, db.RecordingRow.nonwear)
+        .join(db.Participant, db.Participant.pk == db.RecordingRow.participant_pk)
+        .where(db.Participant.study_pk == study.pk).order_by(db.RecordingRow.pk)).all())
+    text = json.dumps([[list(r) if isinstance(r, tuple | Row) else r for r in p] if isinstance(p, list) else p
+                       for p in parts], default=str, sort_keys=True)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+#: ranked queues by (study id, digest of their inputs): a repeat request ranks nothing again
+_RANKED: LRUCache[tuple[str, str], list[tuple[Any, _Candidate]]] = LRUCache(maxsize=16)
+_RANKED_LOCK = threading.Lock()
+
+
 def review_queue(factory: sessionmaker[Session], *, study_id: str) -> list[QueueEntry]:
     """Every candidate night of the study, highest priority first, with its review status.
+
+    The ranking is kept in memory per digest of its inputs (:func:`_inputs_key`), so it is
+    computed again exactly when a night, a model choice, the protocol or a recording changes;
+    the statuses are read on every call.
 
     Raises
     ------
@@ -186,13 +222,21 @@ def review_queue(factory: sessionmaker[Session], *, study_id: str) -> list[Queue
         If the study does not exist.
     """
     with db.session_scope(factory) as session:
-        candidates = _candidates(session, study_id)
-        statuses = review_statuses(session, [c.pk for c in candidates])
-    ranked = rank_nights(_evidence(factory, study_id, candidates))
-    by_key = {(c.participant_id, c.night_id): c for c in candidates}
+        key = (study_id, _inputs_key(session, study_id))
+    with _RANKED_LOCK:
+        found = _RANKED.get(key)
+    if found is None:
+        with db.session_scope(factory) as session:
+            candidates = _candidates(session, study_id)
+        ranked = rank_nights(_evidence(factory, study_id, candidates))
+        by_key = {(c.participant_id, c.night_id): c for c in candidates}
+        found = [(item, by_key[(item.participant_id, item.night_id)]) for item in ranked]
+        with _RANKED_LOCK:
+            _RANKED[key] = found
+    with db.session_scope(factory) as session:
+        statuses = review_statuses(session, [c.pk for _, c in found])
     out = []
-    for item in ranked:
-        c = by_key[(item.participant_id, item.night_id)]
+    for item, c in found:
         out.append(QueueEntry(night_id=item.night_id, participant_id=item.participant_id,
                               priority=float(item.priority), expected_change_min=float(item.expected_change_min),
                               reasons=list(item.reasons), status=statuses[c.pk], label=c.label, start=c.start))

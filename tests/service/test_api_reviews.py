@@ -163,6 +163,11 @@ def test_queue_leaves_out_psg_nights_pages_and_filters_by_status(world: World) -
     assert len(context["calls"]) == len(context["counts"]) == _n_epochs(world, pid, nid)
     psg = world.http.get(f"{_night_url(*nights['psg'][0])}/review-context")
     assert psg.status_code == 409 and psg.json()["code"] == "has_reference"
+    extra = cohort_bodies(n_participants=1, nights=5, seed=4)["P-01"][4]  # the ranking follows new nights
+    added = world.http.post(NIGHTS.format(pid="P-01"), json={k: v for k, v in extra.items() if k != "reference"})
+    assert added.status_code == 201, added.text
+    again = world.http.get("/v1/studies/s1/review-queue", params={"limit": 500}).json()
+    assert again["count"] == len(queued) + 1 and added.json()["night_id"] in {x["night_id"] for x in again["data"]}
 
 
 def test_bad_intervals_are_refused_naming_the_index_and_nothing_is_stored(world: World) -> None:
