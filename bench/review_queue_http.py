@@ -1,4 +1,5 @@
-"""Benchmark: the review queue and review context over HTTP (SIMULATED data, `nightbank serve` on SQLite).
+"""Benchmark: the review queue and review context over HTTP (SIMULATED data, `nightbank serve` on SQLite,
+one HTTP worker).
 
 A simulated study (``models.simulate_cohort``, seeded): 12 participants with 12 nights each, the
 first 2 of each labelled (PSG), the rest without a reference. The pooled model is trained (few
@@ -47,7 +48,7 @@ def _timed_ms(client: httpx.Client, url: str) -> float:
 
 
 def main() -> None:
-    with served("nightbank-bench-queue-", workers=2, job_workers=1) as inst, \
+    with served("nightbank-bench-queue-", workers=1, job_workers=1, start_timeout_s=240) as inst, \
             httpx.Client(base_url=inst.base, headers=inst.headers, timeout=900) as client:
         client.post("/v1/studies", json={"study_id": "q", "name": "queue bench (simulated)"}).raise_for_status()
         for pid, bodies in _bodies().items():
