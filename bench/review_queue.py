@@ -12,7 +12,8 @@ other nights lose their labels and form the queue. Each queue night is scored as
 - per-night intervals and ``uncertainty_min`` of ``auto``: :meth:`models.learning.classifier.SleepModel.intervals`
   (paths drawn from the decoding's sleep/wake chain);
 - quality flags (:func:`models.nights.quality.quality_flags`), the off-wrist share of the in-bed
-  interval (the flagged runs of zeros), a simulated diary, and the participant's other nights.
+  interval (the flagged runs of zeros), a simulated diary, and the ``auto`` parameters of the
+  participant's other queue nights (for "unusual for this participant").
 
 Two situations of real studies are simulated on top of the cohort's nights (shares below):
 
