@@ -21,6 +21,8 @@ from .api.routes import (
     recording_days,
     recordings,
     reports,
+    review_queue,
+    reviews,
     studies,
     system,
     tokens,
@@ -89,7 +91,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.token_cache = TokenCache(settings.token_cache_s)
     app.state.scoring_cache = ScoringCache(engine)
     install_problem_handlers(app)
-    for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens, protocol):
+    for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens, protocol,
+                   review_queue, reviews):
         app.include_router(module.router)
     app.add_middleware(BodyLimit, limit_bytes=int(settings.max_json_body_mb * 2**20))
     app.add_middleware(RequestTelemetry, metrics=app.state.metrics)

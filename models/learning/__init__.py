@@ -80,6 +80,7 @@ from .pooled_start import (
 )
 from .rows import (
     NightRows,
+    corrected_rows,
     iter_prepared,
     labelled_nights,
     prepare_nights,
@@ -165,6 +166,7 @@ __all__ = [
     "choose_shrinkage",
     "compare_study",
     "continue_boosting",
+    "corrected_rows",
     "estimate_offset",
     "fold_groups",
     "held_out_comparison",

@@ -38,6 +38,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from numpy.typing import NDArray
 
 from ..decoding.fitting import NightDecoding, fit_night_decoding
 from ..features.source import FeatureSource
@@ -47,7 +48,7 @@ from .classifier import SleepModel
 from .config import TrainingConfig, TrainingDataError
 from .held_out import HeldOutNight, night_metrics_table, summary_table
 from .pooled_start import PooledBase, StartChoice, continue_boosting, prefer_scratch, start_design, tune_start
-from .rows import NightRows, labelled_nights, prepare_nights, study_seed
+from .rows import NightRows, corrected_rows, labelled_nights, prepare_nights, study_seed
 from .splits import SPLITTERS, fold_groups
 from .tasks import Progress, Reporter, run_tasks
 from .tuning import TunedPipeline, tune_and_fit
@@ -117,8 +118,10 @@ def _started(base: SleepModel, descriptors: dict[str, float], nights: Sequence[N
              pipe: TunedPipeline, config: TrainingConfig, seed: int) -> SleepModel:
     """The pooled model ``base`` continued on ``nights`` with the chosen setting (``pipe``: the scratch rival)."""
     Z, y, _ = start_design(base, nights, descriptors)
+    order = sorted(range(len(nights)), key=lambda i: nights[i].night.start)  # start_design's row order
+    weight = np.concatenate([np.full(nights[i].rows.size, nights[i].weight) for i in order])
     booster = continue_boosting(base, Z, y, added_rounds=choice.added_rounds, learning_rate=choice.learning_rate,
-                                reg_lambda=choice.reg_lambda, config=config, seed=seed)
+                                reg_lambda=choice.reg_lambda, config=config, seed=seed, sample_weight=weight)
     own = tuple(n.night.content_hash for n in nights)
     params = dict(base.params_) | {"added_rounds": choice.added_rounds, "added_learning_rate": choice.learning_rate,
                                    "added_reg_lambda": choice.reg_lambda,
@@ -203,7 +206,8 @@ def _labelled(nights: Sequence[Night], config: TrainingConfig, source: FeatureSo
 
 def train_personal(nights: Sequence[Night], *, config: TrainingConfig = TrainingConfig(),
                    progress: Progress | None = None, feature_cache: FeatureSource | None = None,
-                   base: PooledBase | None = None) -> PersonalResult:
+                   base: PooledBase | None = None, corrected: Sequence[tuple[Night, NDArray[np.float64]]] = (),
+                   correction_weight: float = 0.5) -> PersonalResult:
     """Tune, evaluate (nested) and train a participant's personal model.
 
     Parameters
@@ -220,6 +224,13 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     base : PooledBase, default=None
         The pooled models to start from (module docstring); its ``held_out`` model must never
         have seen this participant. None = every model from scratch.
+    corrected : sequence of (Night, ndarray of shape (n_epochs,)), default=()
+        Nights without PSG and their reviewed corrected labels (1 sleep, 0 wake, NaN not judged).
+        They join the final model's fit (and its inner tuning) with sample weight
+        ``correction_weight`` and are never held out: the held-out figures stay PSG-only.
+        ``model.info_["corrected_nights"]`` counts those used.
+    correction_weight : float, default=0.5
+        Sample weight of a corrected night's rows (a PSG night's weigh 1).
 
     Returns
     -------
@@ -233,6 +244,7 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
         overlapping copies of a night count once) or they mix epoch lengths (``mixed_epoch_lengths``).
     """
     rows = _labelled(nights, config, feature_cache)
+    extra = corrected_rows(corrected, config, weight=correction_weight, feature_cache=feature_cache)
     per_study = config.n_trials + 1
     # one entry per night (chronological), grouped by its fold group: split k holds out the k-th group
     groups = np.asarray(fold_groups([r.night for r in rows]))
@@ -253,8 +265,10 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
 
     def final_task(reporter: Reporter) -> SleepModel:
         seed = study_seed(config.seed, 0)
-        return _fit_study(rows, config=config, seed=seed, reporter=reporter, stage="personal: final model",
-                          base=base, final=True)
+        model = _fit_study([*rows, *extra], config=config, seed=seed, reporter=reporter,
+                           stage="personal: final model", base=base, final=True)
+        model.info_["corrected_nights"] = len(extra)
+        return model
 
     results = run_tasks([final_task, *(outer_task(k) for k in range(len(outer)))], n_jobs=config.n_jobs,
                         total=(n + 1) * per_study, progress=progress)

@@ -175,7 +175,8 @@ def _params(base: SleepModel, y: NDArray[np.float64], *, learning_rate: float, r
 
 
 def continue_boosting(base: SleepModel, Z: NDArray[np.float32], y: NDArray[np.float64], *, added_rounds: int,
-                      learning_rate: float, reg_lambda: float, config: TrainingConfig, seed: int) -> xgb.Booster:
+                      learning_rate: float, reg_lambda: float, config: TrainingConfig, seed: int,
+                      sample_weight: NDArray[np.float64] | None = None) -> xgb.Booster:
     """The pooled booster with ``added_rounds`` more trees fitted on rows ``Z``, ``y``.
 
     Parameters
@@ -191,6 +192,8 @@ def continue_boosting(base: SleepModel, Z: NDArray[np.float32], y: NDArray[np.fl
     config : TrainingConfig
         ``max_bin``.
     seed : int
+    sample_weight : ndarray of float64, shape (n_rows,), default=None
+        Per-row weights (a PSG night's rows weigh 1, a reviewed correction's less); None = all 1.
 
     Returns
     -------
@@ -201,7 +204,7 @@ def continue_boosting(base: SleepModel, Z: NDArray[np.float32], y: NDArray[np.fl
     if added_rounds == 0:
         return start
     params = _params(base, y, learning_rate=learning_rate, reg_lambda=reg_lambda, config=config, seed=seed)
-    return xgb.train(params, xgb.DMatrix(Z, y, nthread=1), added_rounds, xgb_model=start)
+    return xgb.train(params, xgb.DMatrix(Z, y, weight=sample_weight, nthread=1), added_rounds, xgb_model=start)
 
 
 def _auc(y: NDArray[np.float64], p: NDArray[np.float64]) -> float:

@@ -151,6 +151,8 @@ class _InnerData:
         # group numbers follow each group's first night in start order, so they sort chronologically
         rank = fold_groups([nights[i].night for i in order])
         groups = np.concatenate([np.full(nights[i].rows.size, rank[k]) for k, i in enumerate(order)])
+        weights = np.concatenate([np.full(nights[i].rows.size, nights[i].weight) for i in order])
+        self.w = None if np.all(weights == 1.0) else weights  # per-row sample weights (None: all 1)
         self.splits = list(ForwardChainedSplit().split(self.X, self.y, groups))
         self.nights = [nights[i] for i in order]
         self.night_of = np.concatenate([np.full(nights[i].rows.size, k) for k, i in enumerate(order)])
@@ -167,7 +169,8 @@ class _InnerData:
             if pca_variance:
                 projection = Projection.fit(Xt, variance=pca_variance)
                 Xt, Xv = projection.transform(Xt), projection.transform(Xv)
-            dtrain = xgb.QuantileDMatrix(Xt, self.y[train], max_bin=self.config.max_bin, nthread=1)
+            dtrain = xgb.QuantileDMatrix(Xt, self.y[train], max_bin=self.config.max_bin, nthread=1,
+                                         weight=None if self.w is None else self.w[train])
             self._cache[key] = (dtrain, xgb.DMatrix(Xv, self.y[val], nthread=1))
         return self._cache[key]
 
@@ -232,7 +235,8 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
             dtrain, dval = data.matrices(k, hp["pca_variance"])
             params = booster_params(hp, y=data.y[train], config=config, seed=seed)
             y_val = data.y[val]
-            dval.set_weight(np.where(y_val == 1, params["scale_pos_weight"], 1.0))
+            dval.set_weight(np.where(y_val == 1, params["scale_pos_weight"], 1.0) * (1.0 if data.w is None
+                                                                                    else data.w[val]))
             booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
                                 early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False)
             n = booster.best_iteration + 1
@@ -263,7 +267,8 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
     projection = Projection.fit(data.X, variance=hp["pca_variance"]) if hp["pca_variance"] else None
     X_all = data.X if projection is None else projection.transform(data.X)
     params = booster_params(hp, y=data.y, config=config, seed=seed)
-    booster = xgb.train(params, xgb.QuantileDMatrix(X_all, data.y, max_bin=config.max_bin, nthread=1), n_rounds)
+    booster = xgb.train(params, xgb.QuantileDMatrix(X_all, data.y, max_bin=config.max_bin, nthread=1,
+                                                    weight=data.w), n_rounds)
     reporter.tick(stage)
     best_value = float("nan") if best.value is None else float(best.value)
     states = [t.state for t in study.trials]

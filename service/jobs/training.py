@@ -40,9 +40,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import (
     EPOCH_METRIC_NAMES,
-    FeatureConfig,
     Night,
-    PrecomputedFeatures,
     Progress,
     TrainingConfig,
     choose_method,
@@ -57,8 +55,8 @@ from ..errors import Conflict, NotFound, Unprocessable
 from ..store import db, pooled_bases, versions
 from ..store.codec import encode_held_out
 from ..store.db import session_scope
-from ..store.features import load_features_of, store_features
 from ..store.metadata import FlaggedNight, HeldOutFigures, MetricSummary, ModelMetadata, Selection, TrainingNight
+from ..store.protocols import protocol_info
 from ..store.registry import (
     ParticipantInfo,
     StudyInfo,
@@ -68,7 +66,10 @@ from ..store.registry import (
     record_choice,
     study_participants,
 )
+from ..store.reviews import corrections_by_participant, participant_corrections
 from .queue import JobInfo, enqueue_job
+from .training_inputs import night_pks_of as _night_pks
+from .training_inputs import training_features as _training_features
 
 __all__ = ["TRAINING_WARNING_CODES", "Compute", "check_trainable", "compute_here", "queue_training",
            "refresh_choices", "run_training_job"]
@@ -207,45 +208,6 @@ def _metadata(model: Any, nights: Sequence[Night], config: TrainingConfig, metri
     )
 
 
-def _night_pks(session: Session, *, study_pk: int, nights: Sequence[Night]) -> list[int]:
-    """Database keys of ``nights`` (of the study), in order."""
-    pk_of = {(pid, content_hash): pk for pk, pid, content_hash in session.execute(
-        select(db.Night.pk, db.Participant.participant_id, db.Night.content_hash)
-        .join(db.Participant, db.Participant.pk == db.Night.participant_pk)
-        .where(db.Participant.study_pk == study_pk))}
-    return [pk_of[(n.participant_id, n.content_hash)] for n in nights]
-
-
-def _training_features(factory: sessionmaker[Session], nights: Sequence[Night], night_pks: Sequence[int], *,
-                       config: FeatureConfig, n_jobs: int, progress: Progress, stage: str) -> PrecomputedFeatures:
-    """Features of ``nights`` for training: the stored ones, and the missing ones computed here and stored.
-
-    Parameters
-    ----------
-    nights : sequence of Night
-        The nights training computes features of (the labelled ones).
-    night_pks : sequence of int
-        Their database keys, in the same order.
-    config : FeatureConfig
-    n_jobs : int
-        Processes computing missing features.
-    progress : callable
-        Called after each computed night (it raises to stop the job).
-    stage : str
-        Progress label.
-    """
-    with db.session_scope(factory) as session:
-        stored = load_features_of(session, night_pks=night_pks, config=config)
-    source = PrecomputedFeatures({n.content_hash: stored[pk] for n, pk in zip(nights, night_pks, strict=True)
-                                  if pk in stored})
-    missing = [(n, pk) for n, pk in zip(nights, night_pks, strict=True) if source.lookup(n, config) is None]
-    computed = source.features_of([n for n, _ in missing], config, n_jobs=n_jobs)
-    for done, ((_, pk), features) in enumerate(zip(missing, computed, strict=True), start=1):
-        store_features(factory, night_pk=pk, config=config, features=features)
-        progress(done, len(missing), stage)
-    return source
-
-
 def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
                   progress: Progress, compute: Compute) -> dict[str, Any]:
     config = _config(job, settings)
@@ -254,22 +216,28 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
         study = find_study(session, job.study_id)
         participant = find_participant(session, study, job.participant_id)
         nights = load_nights(session, participant=participant, labelled_only=True, include_excluded=False)
-        night_pks = _night_pks(session, study_pk=study.pk, nights=nights)
+        weight = protocol_info(session, study).correction_weight
+        corrected = [] if weight <= 0 else participant_corrections(
+            session, participant_pk=participant.pk, participant_id=participant.participant_id)
+        night_pks = _night_pks(session, study_pk=study.pk, nights=[*nights, *(n for n, _ in corrected)])
         flags = versions.night_flags(session, study_pk=study.pk, participant_pk=participant.pk,
                                       codes=TRAINING_WARNING_CODES)
         start = pooled_bases.pooled_base(session, study=study, participant_id=job.participant_id,
                                          nights=load_nights(session, participant=participant, include_excluded=False))
     progress(0, 1, "personal: loading nights")
-    features = _training_features(factory, nights, night_pks, config=config.features, n_jobs=config.n_jobs,
-                                  progress=progress, stage="personal: night features")
+    features = _training_features(factory, [*nights, *(n for n, _ in corrected)], night_pks, config=config.features,
+                                  n_jobs=config.n_jobs, progress=progress, stage="personal: night features")
     start = pooled_bases.usable_start(start, features=features, nights=nights, config=config.features)
     result = compute(train_personal, {"nights": nights, "config": config, "feature_cache": features,
-                                      "base": start.base}, progress)
+                                      "base": start.base, "corrected": corrected, "correction_weight": weight},
+                     progress)
     model = result.model
     model.info_["start_note"] = start.note
     booster, meta = model_to_bytes(model)
-    metadata = _metadata(model, nights, config, _summary(result.summary), flags=flags,
-                         night_metrics=tuple(_records(result.night_metrics)))
+    n_corrected = int(model.info_.get("corrected_nights", 0))
+    metadata = _metadata(model, [*nights, *(n for n, _ in corrected)], config, _summary(result.summary),
+                         flags=flags, night_metrics=tuple(_records(result.night_metrics)),
+                         corrected_nights=n_corrected, correction_weight=weight if n_corrected else None)
     metadata = metadata.model_copy(update=start.metadata(model, participant_id=job.participant_id,
                                                          hyperparameters=metadata.hyperparameters))
     with db.session_scope(factory, write=True) as session:
@@ -293,14 +261,19 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
                   for p in study_participants(session, study=study)}
         by_participant = {pid: nights for pid, nights in loaded.items() if nights}
         labelled = [n for nights in by_participant.values() for n in nights if n.reference is not None]
-        night_pks = _night_pks(session, study_pk=study.pk, nights=labelled)
+        weight = protocol_info(session, study).correction_weight
+        corrected = {} if weight <= 0 else corrections_by_participant(session, study_participants(session, study=study))
+        corrected_nights = [n for pairs in corrected.values() for n, _ in pairs]
+        night_pks = _night_pks(session, study_pk=study.pk, nights=[*labelled, *corrected_nights])
         flags = versions.night_flags(session, study_pk=study.pk, codes=TRAINING_WARNING_CODES)
     progress(0, 1, "pooled: loading nights")
-    features = _training_features(factory, labelled, night_pks, config=config.features, n_jobs=config.n_jobs,
-                                  progress=progress, stage="pooled: night features")
-    result = compute(train_pooled, {"nights": by_participant, "config": config, "feature_cache": features}, progress)
+    features = _training_features(factory, [*labelled, *corrected_nights], night_pks, config=config.features,
+                                  n_jobs=config.n_jobs, progress=progress, stage="pooled: night features")
+    result = compute(train_pooled, {"nights": by_participant, "config": config, "feature_cache": features,
+                                    "corrected": corrected, "correction_weight": weight}, progress)
     booster, meta = model_to_bytes(result.model)
     all_nights = [n for nights in by_participant.values() for n in nights]
+    n_corrected = int(result.model.info_.get("corrected_nights", 0))
     held = result.night_metrics
     by_method = set(result.summary.index.get_level_values(0))
     metadata = _metadata(
@@ -310,7 +283,8 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
         offsets={pid: float(v) for pid, v in result.offsets.items()}, offset_shrinkage=float(result.shrinkage),
         offset_rule=result.offset_rule,
         descriptors={pid: {k: _finite(v) for k, v in d.items()} for pid, d in result.descriptors.items()},
-        night_metrics=tuple(_records(held)))
+        night_metrics=tuple(_records(held)), corrected_nights=n_corrected,
+        correction_weight=weight if n_corrected else None)
     held_out = [h for rows in result.held_out.values() for h in rows]
     held_out += [h for rows in result.offset_held_out.values() for h in rows]
     with db.session_scope(factory, write=True) as session:

@@ -23,6 +23,7 @@ from models import EPOCH_METRIC_NAMES, REFERENCE
 
 from ..results import reports
 from ..results.agreement_stats import STATISTIC_PARAMETERS
+from ..results.review_agreement import study_agreement
 from ..store import protocols, registry, versions
 from ..store.db import session_scope
 from .calibration_view import reliability_svg, version_calibration
@@ -144,6 +145,7 @@ def build_report(factory: sessionmaker[Session], *, study_id: str) -> str:
         participants = [p.participant_id for p in listed]
         choices = {p.participant_id: p.choice for p in listed}
     comparison = reports.study_comparison(factory, study_id=study_id)
+    reviews = study_agreement(factory, study_id=study_id)
     methods = report_methods(comparison)
     flow = comparison.get("flow", [])
     totals = {k: sum(f[k] for f in flow) for k in ("n_nights", "n_labelled_nights", "n_unlabelled_nights",
@@ -161,7 +163,7 @@ def build_report(factory: sessionmaker[Session], *, study_id: str) -> str:
         paired_svg=_svg(draw_paired_differences, comparison["paired_differences"],
                         size_in=(7.0, 0.5 * len(comparison["paired_differences"]) + 1.0), salt="paired")
         if comparison.get("paired_differences") else None,
-        by_key=_index(comparison),
+        by_key=_index(comparison), reviews=reviews,
         reliability=[None if c.get("calibration") is None else reliability_svg({c["title"]: c["calibration"]},
                                                                                salt=f"rel-{k}")
                      for k, c in enumerate(cards)])
