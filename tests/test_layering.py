@@ -31,7 +31,8 @@ PROJECT = ("models", "service")
 FORBIDDEN_IN_MODELS = {"service", "fastapi", "starlette", "sqlalchemy", "alembic", "pydantic", "httpx", "uvicorn",
                        "typer", "rich"}
 #: models/ sub-packages (and models/errors.py) from the bottom layer up; the ``models`` facade sits above all
-LAYERS = ("errors", "nights", "scoring", "agreement", "recordings", "decoding", "features", "learning", "simulation")
+LAYERS = ("errors", "nights", "scoring", "agreement", "recordings", "decoding", "features", "learning", "review",
+          "simulation")
 #: modules directly in models/ that hold plain definitions (errors, JSON-safe records) usable by every layer
 TOP_LEVEL_FOUNDATION = ("errors", "records")
 MAX_TOP_LEVEL_MODULES = 8

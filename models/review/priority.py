@@ -1,0 +1,148 @@
+"""The review queue: nights ranked by how much a review is expected to change their parameters.
+
+For each night the evidence terms of :func:`models.review.evidence.evidence_figures` (minutes, the
+quality flags a count) are weighed into one figure, the **expected absolute change** a review makes
+to TST, WASO and SOL together, in minutes::
+
+    expected_change_min = base_min + sum(weight[term] * value[term])
+
+``priority`` is the same figure: the queue is ordered by it, highest first, ties by ``night_id``
+(so the order is deterministic). ``reasons`` are the sentences of the terms that add at least
+:data:`REASON_MIN` minutes, largest contribution first.
+
+Where the weights come from
+---------------------------
+:data:`DEFAULT_PRIORITY_WEIGHTS` are an own choice: ``uncertainty`` is already an expected absolute
+error in minutes (weight 1); the other weights say what share of a disagreement, off-wrist time or
+diary conflict a review is expected to turn into a change of the parameters.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from types import MappingProxyType
+
+from ..errors import Problem
+from .corrections import InvalidReviewError
+from .evidence import EVIDENCE_TERMS, NightEvidence, evidence_figures
+
+__all__ = ["DEFAULT_PRIORITY_WEIGHTS", "REASON_MIN", "QueueItem", "expected_change", "rank_nights"]
+
+#: Minutes per unit of each evidence term, plus ``base_min`` (the expected change of a night
+#: without any evidence). See "Where the weights come from" in the module docstring.
+DEFAULT_PRIORITY_WEIGHTS: Mapping[str, float] = MappingProxyType({
+    "base_min": 10.0,
+    "uncertainty": 1.0,
+    "sol_interval": 0.1,
+    "model_disagreement": 0.5,
+    "rule_disagreement": 0.1,
+    "nonwear": 0.8,
+    "diary": 0.5,
+    "unusual": 0.5,
+    "qc_flags": 5.0,
+})
+#: A term adds a reason when its contribution reaches this many minutes.
+REASON_MIN = 2.0
+
+
+@dataclass(frozen=True)
+class QueueItem:
+    """One night in the review queue.
+
+    Attributes
+    ----------
+    night_id, participant_id : str
+    priority : float
+        The ordering key (equals ``expected_change_min``).
+    expected_change_min : float
+        Expected |change| of TST + WASO + SOL a review makes, minutes.
+    reasons : list of str
+        Readable sentences naming the figures behind the priority, largest first.
+    contributions : dict of str to float
+        Minutes each evidence term adds (``base_min`` included).
+    """
+
+    night_id: str
+    participant_id: str
+    priority: float
+    expected_change_min: float
+    reasons: list[str]
+    contributions: dict[str, float] = field(default_factory=dict)
+
+
+def _check_weights(weights: Mapping[str, float]) -> dict[str, float]:
+    known = ("base_min", *EVIDENCE_TERMS)
+    problems = [Problem("invalid_review", f"weights.{k}: unknown term (known: {', '.join(known)})",
+                        {"field": f"weights.{k}"}) for k in weights if k not in known]
+    out = dict(DEFAULT_PRIORITY_WEIGHTS) | {k: v for k, v in weights.items() if k in known}
+    for k, v in out.items():
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not v >= 0:
+            problems.append(Problem("invalid_review", f"weights.{k}: must be a number >= 0, got {v!r}",
+                                    {"field": f"weights.{k}"}))
+    if problems:
+        raise InvalidReviewError(problems)
+    return {k: float(v) for k, v in out.items()}
+
+
+def _item(e: NightEvidence, w: Mapping[str, float]) -> QueueItem:
+    figures = evidence_figures(e)
+    contributions = {"base_min": w["base_min"]} | {t: w[t] * f.value for t, f in figures.items()}
+    total = float(sum(contributions.values()))
+    shown = sorted((t for t in figures if contributions[t] >= REASON_MIN), key=lambda t: (-contributions[t], t))
+    reasons = [figures[t].reason for t in shown] or ["no evidence that a review would change much"]
+    return QueueItem(night_id=e.night_id, participant_id=e.participant_id, priority=total,
+                     expected_change_min=total, reasons=reasons, contributions=contributions)
+
+
+def expected_change(evidence: NightEvidence, *, weights: Mapping[str, float] = DEFAULT_PRIORITY_WEIGHTS) -> QueueItem:
+    """The queue item of one night (see the module docstring for the figure).
+
+    Parameters
+    ----------
+    evidence : NightEvidence
+    weights : mapping of str to float, default=DEFAULT_PRIORITY_WEIGHTS
+        Terms left out keep their default weight.
+
+    Returns
+    -------
+    QueueItem
+
+    Raises
+    ------
+    InvalidReviewError
+        For an unknown term or a negative weight.
+    """
+    return _item(evidence, _check_weights(weights))
+
+
+def rank_nights(evidence: Sequence[NightEvidence], *,
+                weights: Mapping[str, float] = DEFAULT_PRIORITY_WEIGHTS) -> list[QueueItem]:
+    """Rank nights for review, the night a review is expected to change most first.
+
+    Parameters
+    ----------
+    evidence : sequence of NightEvidence
+        One per night (night ids unique).
+    weights : mapping of str to float, default=DEFAULT_PRIORITY_WEIGHTS
+        Minutes per unit of each evidence term (module docstring); terms left out keep their default.
+
+    Returns
+    -------
+    list of QueueItem
+        Highest ``priority`` first, ties by ``night_id``.
+
+    Raises
+    ------
+    InvalidReviewError
+        For a repeated night id, an unknown term or a negative weight.
+    """
+    w = _check_weights(weights)
+    seen: set[str] = set()
+    for k, e in enumerate(evidence):
+        if e.night_id in seen:
+            raise InvalidReviewError([Problem("invalid_review", f"evidence[{k}].night_id: {e.night_id!r} repeated",
+                                              {"field": f"evidence[{k}].night_id"})])
+        seen.add(e.night_id)
+    items = [_item(e, w) for e in evidence]
+    return sorted(items, key=lambda it: (-it.priority, it.night_id))
