@@ -40,7 +40,6 @@ REVIEW_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "awakeni
 StatusQuery = Annotated[str | None, Query(pattern="^(open|in_review|reviewed|adjudicated)$",
                                           description="only nights in this review state")]
 OffsetQuery = Annotated[int, Query(ge=0, le=1_000_000, description="rows skipped")]
-ReviewerQuery = Annotated[str | None, Query(max_length=80, description="the reviewer's name")]
 _NIGHT = "/studies/{study}/participants/{pid}/nights/{night_id}"
 
 
@@ -114,11 +113,10 @@ async def review_night_page(request: Request, access: StudyPage, pid: Participan
 
 
 @router.get(_NIGHT + "/review/reviews.json")
-async def night_reviews(request: Request, access: StudyPage, pid: ParticipantPath, night_id: NightIdPath,
-                        reviewer: ReviewerQuery = None) -> JSONResponse:
+async def night_reviews(request: Request, access: StudyPage, pid: ParticipantPath,
+                        night_id: NightIdPath) -> JSONResponse:
     """The night's reviews as the API shows them to this viewer (blind until both are in)."""
-    answer = await call_api(request, "GET", _api_night(access, pid, night_id) + "/reviews",
-                            params={"reviewer": reviewer})
+    answer = await call_api(request, "GET", _api_night(access, pid, night_id) + "/reviews")
     return answer.json_response()
 
 

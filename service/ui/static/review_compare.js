@@ -15,8 +15,9 @@
     const pa = d.parameters_a || a.parameters || {}, pb = d.parameters_b || b.parameters || {};
     const diff = d.parameter_differences || {};
 
-    page.figure.addStrip("review-a", "first: " + a.reviewer, a.labels);
-    page.figure.addStrip("review-b", "second: " + b.reviewer, b.labels);
+    const short = function (name) { return name.length > 12 ? name.slice(0, 11) + "…" : name; };
+    page.figure.addStrip("review-a", "1st " + short(a.reviewer), a.labels);
+    page.figure.addStrip("review-b", "2nd " + short(b.reviewer), b.labels);
     page.figure.setHighlights(d.differing_intervals || []);
 
     $("compare-a").textContent = "First review (" + a.reviewer + ")";
@@ -51,20 +52,26 @@
       page.setBase(choice.value, labels || page.data.context.calls);
     });
     box.hidden = false;
+    if (page.correction) {
+      $("adjudication-status").textContent = "A correction is stored (by " + page.correction.adjudicated_by + " at " +
+        page.correction.adjudicated_at + "); storing another replaces it.";
+    }
 
     const status = $("adjudication-status");
     function settle(body) {
-      const name = $("reviewer-name").value.trim();
-      if (!name) { status.textContent = "Give your name (Reviewer name) first."; return; }
+      const name = $("adjudicator-name").value.trim();
+      if (!name) { status.textContent = "Give your name first."; return; }
       body.reviewer = name;
       body.note = $("adjudication-note").value.trim() || null;
       box.querySelectorAll("button").forEach(function (button) { button.disabled = true; });
       status.textContent = "Storing the correction…";
       page.send(page.data.urls.adjudication, body).then(function (stored) {
-        status.textContent = "Correction stored" + (stored && stored.adjudicated_at ? " at " + stored.adjudicated_at : "") +
+        const c = stored.correction || {};
+        status.textContent = "Correction stored by " + c.adjudicated_by + " at " + c.adjudicated_at +
           (body.accept ? " (review " + body.accept + " accepted)" : " (your marks)") + ".";
         status.setAttribute("data-state", "stored");
-        $("review-state").textContent = "adjudicated";
+        $("review-state").textContent = String(stored.status || "adjudicated").replace("_", " ");
+        box.querySelectorAll("button").forEach(function (button) { button.disabled = false; });
       }).catch(function (err) {
         box.querySelectorAll("button").forEach(function (button) { button.disabled = false; });
         status.textContent = "Not stored: " + err.message;

@@ -132,7 +132,8 @@
       const change = Number.isFinite(model) && Number.isFinite(marked) ? marked - model : NaN;
       const cell = row.querySelector(".change");
       cell.textContent = Number.isFinite(change) ? (change > 0 ? "+" : "") + fmt(change) : "–";
-      const outside = Array.isArray(span) && Number.isFinite(marked) && (marked < span[0] || marked > span[1]);
+      const outside = Array.isArray(span) && Number.isFinite(marked) && change !== 0 &&
+        (marked < span[0] || marked > span[1]);
       cell.classList.toggle("beyond", outside);
       row.querySelector(".marked").classList.toggle("beyond", outside);
     });
@@ -140,6 +141,7 @@
 
   function schedulePreview() {
     window.clearTimeout(state.previewTimer);
+    $("preview-status").setAttribute("data-state", "pending");
     state.previewTimer = window.setTimeout(preview, 150);
   }
 
@@ -149,7 +151,7 @@
     status.textContent = "Updating the parameters…";
     status.setAttribute("data-state", "pending");
     const body = reviewBody();
-    body.reviewer = body.reviewer || "preview";
+    delete body.reviewer;
     send(data.urls.preview, body).then(function (result) {
       if (seq !== state.previewSeq) return;
       showParameters(result.parameters || {});
@@ -198,9 +200,7 @@
 
   // ---- the reviews already in ----
   function loadReviews() {
-    const name = $("reviewer-name").value.trim();
-    const url = data.urls.reviews + (name ? "?reviewer=" + encodeURIComponent(name) : "");
-    fetch(url, { credentials: "same-origin", headers: { "Accept": "application/json" } }).then(answer)
+    fetch(data.urls.reviews, { credentials: "same-origin", headers: { "Accept": "application/json" } }).then(answer)
       .then(function (body) {
         state.reviews = body;
         showReviews(body);
@@ -209,30 +209,41 @@
       });
   }
 
-  function reviewList(body) {
-    if (!body) return [];
-    return body.data || body.reviews || [];
-  }
+  function plural(k, word) { return k + " " + word + (k === 1 ? "" : "s"); }
 
   function showReviews(body) {
-    const reviews = reviewList(body);
-    const name = $("reviewer-name").value.trim();
+    const reviews = body.data || [];
     const withContent = reviews.filter(function (r) { return Array.isArray(r.labels); });
-    const count = Number.isFinite(body.count) ? body.count : reviews.length;
-    const own = reviews.find(function (r) { return r.reviewer === name && (r.own === undefined || r.own); });
-    let text = count === 0 ? "No review submitted yet." : count + " review" + (count === 1 ? "" : "s") + " submitted";
-    if (count === 1 && !body.discrepancy) text += "; what was marked stays hidden until the second review is in.";
-    else if (count > 0) text += ".";
-    if (own) text += " Yours was submitted at " + own.submitted_at + ".";
+    const own = reviews.find(function (r) { return r.own; });
+    const needed = Number.isFinite(body.reviews_needed) ? body.reviews_needed : 0;
+    // Two reviews per night: the ones submitted are those no longer needed (some may be hidden from this viewer).
+    const count = needed > 0 ? Math.max(reviews.length, 2 - needed) : reviews.length;
+    let text = count === 0 ? "No review submitted yet." : plural(count, "review") + " submitted";
+    text += reviews.length ? " (" + reviews.map(function (r) {
+      return (r.own ? "yours, as " : "") + r.reviewer + " at " + r.submitted_at; }).join("; ") + ")." : ".";
+    if (needed > 0) text += " " + plural(needed, "more review") + " needed; what each reviewer marked stays hidden " +
+      "until both are in.";
+    if (body.correction) {
+      text += " Correction stored by " + body.correction.adjudicated_by + " at " + body.correction.adjudicated_at +
+        (body.correction.accepted_review_id ? " (review " + body.correction.accepted_review_id + " accepted)." : " (own judgement).");
+    }
     $("reviews-summary").textContent = text;
     $("reviews-summary").setAttribute("data-count", String(count));
-    if (own && !state.locked && !body.discrepancy) {
-      lock("You have reviewed this night already.");
+    $("reviews-summary").setAttribute("data-needed", String(body.reviews_needed));
+    if (body.status) $("review-state").textContent = String(body.status).replace("_", " ");
+    const bothIn = body.reviews_needed === 0;
+    if (bothIn) $("submit-section").hidden = true;
+    else if (own && !state.locked) {
+      lock("You reviewed this night at " + own.submitted_at + ".");
       if (Array.isArray(own.labels)) figure.setLabels("marked", own.labels);
+      if (own.parameters) showParameters(own.parameters);
     }
     if (data.analyse && body.discrepancy && withContent.length >= 2 && window.NightbankReviewCompare) {
       window.NightbankReviewCompare({ data: data, figure: figure, reviews: withContent, discrepancy: body.discrepancy,
-        send: send, setBase: setBase, reviewBody: reviewBody, markCount: function () { return state.marks.length; } });
+        correction: body.correction, send: send, setBase: setBase, reviewBody: reviewBody,
+        markCount: function () { return state.marks.length; }, reload: loadReviews });
+    } else if (bothIn && !data.analyse) {
+      lock("Both reviews are in; an analyst settles the night.");
     }
   }
 
@@ -265,7 +276,6 @@
   $("undo-mark").addEventListener("click", undo);
   $("clear-marks").addEventListener("click", function () { state.marks = []; changed(); });
   $("review-form").addEventListener("submit", submit);
-  $("reviewer-name").addEventListener("change", loadReviews);
 
   document.addEventListener("keydown", function (event) {
     const target = event.target;
