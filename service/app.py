@@ -21,6 +21,8 @@ from .api.routes import (
     recording_days,
     recordings,
     reports,
+    review_queue,
+    reviews,
     studies,
     system,
     tokens,
@@ -87,7 +89,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.metrics = metrics
     app.state.token_cache = TokenCache(settings.token_cache_s)
     install_problem_handlers(app)
-    for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens, protocol):
+    for module in (system, studies, nights, recordings, recording_days, training, reports, profiles, tokens, protocol,
+                   review_queue, reviews):
         app.include_router(module.router)
     app.add_middleware(BodyLimit, limit_bytes=int(settings.max_json_body_mb * 2**20))
     app.add_middleware(RequestTelemetry, metrics=app.state.metrics)

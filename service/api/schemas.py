@@ -184,12 +184,18 @@ class NightOut(BaseModel):
 
 
 class NightDetailOut(NightOut):
-    """A night's metadata; with ``epochs=true`` also its arrays (``counts``, ``reference``)."""
+    """A night's metadata; with ``epochs=true`` also its arrays (``counts``, ``reference``, ``corrected``)."""
 
     counts: list[float | None] | None = Field(
         default=None, description="with epochs=true: counts per epoch of epoch_seconds; null for missing epochs")
     reference: list[str] | None = Field(
         default=None, description="with epochs=true: reference stage code per epoch; null for an unlabelled night")
+    corrected: list[int | None] | None = Field(
+        default=None, description="with epochs=true: the adjudicated review's corrected labels per epoch (1 sleep, "
+        "0 wake, null not judged), null without a correction; never a PSG reference")
+    correction: dict[str, Any] | None = Field(
+        default=None, description="who adjudicated the correction, from which reviewers, when, and the scoring "
+        "shown (adjudicated_by, reviewers, adjudicated_at, model_version_shown); null without one")
 
 
 class NightPatch(_Strict):
@@ -336,7 +342,7 @@ class ScoringOut(BaseModel):
 
 # ---- tokens ---------------------------------------------------------------------------------
 class TokenIn(_Strict):
-    role: Literal["ingest", "analyst", "admin"]
+    role: Literal["ingest", "reviewer", "analyst", "admin"]
     study_id: str | None = Field(default=None, pattern=ID_PATTERN)
     label: str | None = Field(default=None, max_length=200)
 

@@ -30,7 +30,7 @@ def _factory(db: str | None) -> Any:
 
 @token_app.command("create")
 def create(
-    role: Annotated[str, typer.Option("--role", help="ingest, analyst or admin.")],
+    role: Annotated[str, typer.Option("--role", help="ingest, reviewer, analyst or admin.")],
     study: StudyOption = None,
     label: Annotated[str | None, typer.Option(help="A note to recognise the token by.")] = None,
     db: DbOption = None,

@@ -9,7 +9,8 @@ comparison is constant-time (:func:`hmac.compare_digest`).
 Roles, each including the ones before it:
 
 - ``ingest``: posts nights, reads and corrects them (label, exclusion from training), saves import profiles;
-- ``analyst``: also scores, trains, lists jobs, compares and exports;
+- ``reviewer``: also reads the review queue and a night's review context, and posts reviews of nights;
+- ``analyst``: also scores, trains, lists jobs, compares and exports, and adjudicates reviews;
 - ``admin``: also creates studies, activates versions, deletes nights and participants, renames
   participants, manages tokens.
 
@@ -46,15 +47,16 @@ class Role(IntEnum):
     """Token roles, ordered: a higher role may do everything a lower one may."""
 
     ingest = 1
-    analyst = 2
-    admin = 3
+    reviewer = 2
+    analyst = 3
+    admin = 4
 
     @classmethod
     def parse(cls, name: str) -> Role:
         try:
             return cls[name]
         except KeyError:
-            raise BadRequest(f"unknown role {name!r}; choose ingest, analyst or admin") from None
+            raise BadRequest(f"unknown role {name!r}; choose ingest, reviewer, analyst or admin") from None
 
 
 @dataclass(frozen=True)
@@ -98,7 +100,7 @@ def create_token(session: Session, *, role: str, study_id: str | None = None, la
     Parameters
     ----------
     session : Session
-    role : {"ingest", "analyst", "admin"}
+    role : {"ingest", "reviewer", "analyst", "admin"}
     study_id : str, optional
         Scope the token to this study (which need not exist yet). Without it only an admin token
         may be created (lab-wide).
@@ -114,7 +116,8 @@ def create_token(session: Session, *, role: str, study_id: str | None = None, la
     """
     parsed = Role.parse(role)
     if study_id is None and parsed is not Role.admin:
-        raise BadRequest("a lab-wide token must have the admin role; give a study for ingest or analyst tokens")
+        raise BadRequest("a lab-wide token must have the admin role; give a study for ingest, reviewer or analyst "
+                         "tokens")
     token_id = secrets.token_hex(_ID_HEX // 2)
     secret = secrets.token_urlsafe(32)
     salt = secrets.token_hex(16)

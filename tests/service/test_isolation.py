@@ -30,7 +30,7 @@ def world(server: Any, http: Any, admin: dict[str, str], make_token: Any) -> dic
     bodies = cohort_bodies(n_participants=1, nights=3)["P-01"]
     night_id = [http.post("/v1/studies/s1/participants/P-01/nights", json=b, headers=admin).json()["night_id"]
                 for b in bodies][0]
-    tokens = {role: make_token(role, "s1") for role in ("ingest", "analyst", "admin")}
+    tokens = {role: make_token(role, "s1") for role in ("ingest", "reviewer", "analyst", "admin")}
     job = http.post("/v1/studies/s1/participants/P-01/training", json={}, headers=bearer(tokens["analyst"]))
     assert job.status_code == 202, job.text
     listed = http.get("/v1/tokens", headers=admin).json()
@@ -75,7 +75,7 @@ def test_every_route_needs_a_token_the_role_and_the_study(http: Any, world: dict
     from service.store.tokens import Role
 
     checked, failures = 0, []
-    below = {Role.analyst: "ingest", Role.admin: "analyst"}
+    below = {Role.reviewer: "ingest", Role.analyst: "reviewer", Role.admin: "analyst"}
     for route, path, method in _routes(world["app"]):
         url = _fill(path, world)
         kwargs = _body(path)

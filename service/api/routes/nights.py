@@ -27,9 +27,11 @@ from models import (
 )
 
 from ...errors import Conflict, Unprocessable, UnsupportedMediaType
+from ...results.reviews import labels_list
 from ...results.scoring import SCORING_METHODS, score_night
 from ...store import manage, profiles, registry
 from ...store.db import session_scope
+from ...store.reviews import night_correction
 from ...store.tokens import Role
 from ..deps import FactoryDep, ReadSession, SettingsDep, StudyAccess, read_body, study_access
 from ..problems import problem_responses
@@ -203,14 +205,21 @@ def get_night(access: Annotated[StudyAccess, Depends(study_access(Role.ingest))]
     """One night's metadata, QC flags and whether it is labelled; with `epochs=true` also its arrays.
 
     The arrays are the stored night's, at the study's epoch length (`epoch_seconds`): `counts`
-    (null where an epoch is missing) and `reference` (stage codes, null for an unlabelled night).
+    (null where an epoch is missing), `reference` (stage codes, null for an unlabelled night) and
+    `corrected` (an adjudicated review's labels: 1 sleep, 0 wake, null not judged; null without
+    one). `correction` says who adjudicated it, from which reviewers and when.
     """
+    row = registry.night_row(session, access.study_id, pid, night_id)
+    correction = night_correction(session, row.pk)
+    provenance = None if correction is None else correction.provenance()
     if not epochs:
         return NightDetailOut(**vars(registry.get_night(session, study_id=access.study_id, participant_id=pid,
-                                                        night_id=night_id)))
+                                                        night_id=night_id)), correction=provenance)
     info, night = registry.load_night(session, study_id=access.study_id, participant_id=pid, night_id=night_id)
     return NightDetailOut(**vars(info), counts=_json_counts(night.counts),
-                          reference=None if night.reference is None else night.reference.tolist())
+                          reference=None if night.reference is None else night.reference.tolist(),
+                          corrected=None if correction is None else labels_list(correction.labels),
+                          correction=provenance)
 
 
 @router.patch("/{night_id}", response_model=NightOut)

@@ -1,0 +1,217 @@
+"""Review queue, blind double review, adjudication and corrections over the real HTTP server (SQLite, PostgreSQL)."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+from backends import BACKENDS, World, live_world
+from harness import cohort_bodies
+
+NIGHTS = "/v1/studies/s1/participants/{pid}/nights"
+
+
+def _night_url(pid: str, night_id: str) -> str:
+    return f"{NIGHTS.format(pid=pid)}/{night_id}"
+
+
+@pytest.fixture(params=BACKENDS)
+def world(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[World]:
+    with live_world(request.param, tmp_path) as out:
+        yield out
+
+
+def _post_cohort(w: World, *, n_participants: int = 2, nights: int = 3, labelled: int = 1) -> dict[str, Any]:
+    """Simulated nights; the first ``labelled`` of each participant keep their PSG reference."""
+    out: dict[str, Any] = {"psg": [], "unlabelled": []}
+    for pid, bodies in cohort_bodies(n_participants=n_participants, nights=nights, seed=4).items():
+        for i, body in enumerate(bodies):
+            if i >= labelled:
+                body = {k: v for k, v in body.items() if k != "reference"}
+            r = w.http.post(NIGHTS.format(pid=pid), json=body)
+            assert r.status_code == 201, r.text
+            out["psg" if i < labelled else "unlabelled"].append((pid, r.json()["night_id"]))
+    return out
+
+
+def _n_epochs(w: World, pid: str, night_id: str) -> int:
+    return int(w.http.get(_night_url(pid, night_id)).json()["n_epochs"])
+
+
+def _labels(n: int, seed: int) -> list[int | None]:
+    rng = np.random.default_rng(seed)
+    values: list[int | None] = [int(v) for v in rng.integers(0, 2, n)]
+    values[:3] = [None, None, None]  # not judged
+    return values
+
+
+def test_reviewer_role_sits_between_ingest_and_analyst(world: World) -> None:
+    made = world.http.post("/v1/tokens", json={"role": "reviewer", "study_id": "s1"})
+    assert made.status_code == 201 and made.json()["role"] == "reviewer"
+    nights = _post_cohort(world, n_participants=1, nights=2)
+    pid, nid = nights["unlabelled"][0]
+    reviewer = {"Authorization": f"Bearer {made.json()['token']}"}
+    assert world.http.get(_night_url(pid, nid), headers=reviewer).status_code == 200
+    assert world.http.get("/v1/studies/s1/review-queue", headers=reviewer).status_code == 200
+    assert world.http.get(f"{_night_url(pid, nid)}/review-context", headers=reviewer).status_code == 200
+    assert world.http.get(f"{_night_url(pid, nid)}/scoring", headers=reviewer).status_code == 403
+    assert world.http.get("/v1/studies/s1/review-queue", headers=world.token("ingest", "s1")).status_code == 403
+    bad = world.http.post("/v1/tokens", json={"role": "judge", "study_id": "s1"})
+    assert bad.status_code == 422
+
+
+@pytest.mark.parametrize("role", ["reviewer", "analyst", "admin"])
+def test_reviews_stay_blind_until_both_are_in_for_every_role(world: World, role: str) -> None:
+    pid, nid = _post_cohort(world, n_participants=1, nights=2)["unlabelled"][0]
+    first, second = world.token(role, "s1"), world.token(role, "s1")
+    n = _n_epochs(world, pid, nid)
+    url = f"{_night_url(pid, nid)}/reviews"
+    r = world.http.post(url, json={"reviewer": "ana", "wake_intervals": [{"start_epoch": 10, "end_epoch": 40}],
+                                   "rest_interval": {"start_epoch": 5, "end_epoch": n - 5}, "note": "restless"},
+                        headers=first)
+    assert r.status_code == 201, r.text
+    assert r.json()["status"] == "in_review" and r.json()["reviewer"] == "ana"
+    own = world.http.get(url, headers=first).json()
+    assert [x["reviewer"] for x in own["data"]] == ["ana"] and own["data"][0]["labels"] is not None
+    assert own["discrepancy"] is None
+    other = world.http.get(url, headers=second).json()
+    assert all(x.get("labels") is None and x.get("parameters") is None and x.get("note") is None
+               for x in other["data"])
+    assert "restless" not in repr(other)
+    if role == "reviewer":
+        assert other["data"] == []  # a reviewer does not even see whose review exists
+    else:
+        assert [x["reviewer"] for x in other["data"]] == ["ana"]
+    assert world.http.post(url, json={"reviewer": "ana2", "labels": [1] * n}, headers=first).status_code == 409
+    assert world.http.post(url, json={"reviewer": "ana", "labels": [1] * n}, headers=second).status_code == 409
+    r = world.http.post(url, json={"reviewer": "ben", "sleep_intervals": [{"start_epoch": 10, "end_epoch": 20}]},
+                        headers=second)
+    assert r.status_code == 201 and r.json()["status"] == "reviewed"
+    for headers in (first, second):
+        both = world.http.get(url, headers=headers).json()
+        assert sorted(x["reviewer"] for x in both["data"]) == ["ana", "ben"]
+        assert all(x["labels"] is not None and x["parameters"] is not None for x in both["data"])
+        assert both["discrepancy"]["epochs_compared"] > 0 and both["status"] == "reviewed"
+    third = world.http.post(url, json={"reviewer": "cy", "labels": [1] * n}, headers=world.token(role, "s1"))
+    assert third.status_code == 409 and third.json()["code"] == "review_complete"
+
+
+def test_adjudication_needs_analyst_and_both_reviews_and_is_kept_apart_from_psg(world: World) -> None:
+    nights = _post_cohort(world, n_participants=1, nights=3)
+    pid, nid = nights["unlabelled"][0]
+    n = _n_epochs(world, pid, nid)
+    url = f"{_night_url(pid, nid)}/reviews"
+    a, b = world.token("reviewer", "s1"), world.token("reviewer", "s1")
+    first = world.http.post(url, json={"reviewer": "ana", "labels": _labels(n, 1)}, headers=a).json()
+    adj = {"reviewer": "chief", "accept": first["review_id"]}
+    early = world.http.post(f"{url}/adjudication", json=adj, headers=world.token("analyst", "s1"))
+    assert early.status_code == 409 and early.json()["code"] == "reviews_incomplete"
+    assert world.http.post(url, json={"reviewer": "ben", "labels": _labels(n, 2)}, headers=b).status_code == 201
+    assert world.http.post(f"{url}/adjudication", json=adj, headers=a).status_code == 403
+    unknown = world.http.post(f"{url}/adjudication", json={"reviewer": "chief", "accept": "abc"},
+                              headers=world.token("analyst", "s1"))
+    assert unknown.status_code == 422 and "accept" in unknown.json()["detail"]
+    done = world.http.post(f"{url}/adjudication", json=adj, headers=world.token("analyst", "s1"))
+    assert done.status_code == 201, done.text
+    assert done.json()["correction"]["reviewers"] == ["ana", "ben"]
+    detail = world.http.get(_night_url(pid, nid), params={"epochs": "true"}).json()
+    assert detail["corrected"] == _labels(n, 1)  # the accepted review's labels
+    assert detail["reference"] is None and detail["labelled"] is False
+    assert detail["correction"]["adjudicated_by"] == "chief"
+    assert detail["correction"]["model_version_shown"] == "cole-kripke"  # no model trained: the default rule
+    # a corrected night is never a PSG night: its scoring has no agreement, the PSG night's has
+    scored = world.http.get(f"{_night_url(pid, nid)}/scoring", params={"method": "sadeh"}).json()
+    assert scored["agreement"] is None
+    psg_pid, psg_nid = nights["psg"][0]
+    assert world.http.get(f"{_night_url(psg_pid, psg_nid)}/scoring",
+                          params={"method": "sadeh"}).json()["agreement"] is not None
+    flow = world.http.get(f"/v1/studies/s1/participants/{pid}/comparison").json()
+    assert [f["n_labelled_nights"] for f in flow["flow"]] == [1]  # the PSG night only, not the corrected one
+    assert world.http.post(url, json={"reviewer": "dan", "labels": [1] * n},
+                           headers=world.token("reviewer", "s1")).json()["code"] == "already_adjudicated"
+
+
+def test_queue_leaves_out_psg_nights_pages_and_filters_by_status(world: World) -> None:
+    nights = _post_cohort(world, n_participants=2, nights=4)
+    everything = world.http.get("/v1/studies/s1/review-queue", params={"limit": 500}).json()
+    queued = {(x["participant_id"], x["night_id"]) for x in everything["data"]}
+    assert queued == set(nights["unlabelled"]) and everything["count"] == len(nights["unlabelled"])
+    assert not queued & set(nights["psg"])
+    priorities = [x["priority"] for x in everything["data"]]
+    assert priorities == sorted(priorities, reverse=True)
+    assert all(x["status"] == "open" and isinstance(x["reasons"], list) for x in everything["data"])
+    pages = [world.http.get("/v1/studies/s1/review-queue", params={"limit": 2, "offset": o}).json()
+             for o in range(0, len(queued), 2)]
+    assert [x["night_id"] for p in pages for x in p["data"]] == [x["night_id"] for x in everything["data"]]
+    pid, nid = everything["data"][0]["participant_id"], everything["data"][0]["night_id"]
+    assert world.http.post(f"{_night_url(pid, nid)}/reviews", json={"reviewer": "ana", "labels": None},
+                           headers=world.token("reviewer", "s1")).status_code == 201
+    in_review = world.http.get("/v1/studies/s1/review-queue", params={"status": "in_review"}).json()
+    assert [x["night_id"] for x in in_review["data"]] == [nid] and in_review["count"] == 1
+    assert world.http.get("/v1/studies/s1/review-queue", params={"status": "open"}).json()["count"] == len(queued) - 1
+    bad = world.http.get("/v1/studies/s1/review-queue", params={"status": "done"})
+    assert bad.status_code == 422 and "status" in bad.text
+    assert world.http.get("/v1/studies/s1/review-queue", params={"limit": 0}).status_code == 422
+    context = world.http.get(f"{_night_url(pid, nid)}/review-context").json()
+    assert context["status"] == "in_review" and context["queue_neighbours"]["previous"] is None
+    assert context["queue_neighbours"]["next"] == {"participant_id": everything["data"][1]["participant_id"],
+                                                   "night_id": everything["data"][1]["night_id"]}
+    assert len(context["calls"]) == len(context["counts"]) == _n_epochs(world, pid, nid)
+    psg = world.http.get(f"{_night_url(*nights['psg'][0])}/review-context")
+    assert psg.status_code == 409 and psg.json()["code"] == "has_reference"
+
+
+def test_bad_intervals_are_refused_naming_the_index_and_nothing_is_stored(world: World) -> None:
+    pid, nid = _post_cohort(world, n_participants=1, nights=2)["unlabelled"][0]
+    n = _n_epochs(world, pid, nid)
+    url = f"{_night_url(pid, nid)}/reviews"
+    reviewer = world.token("reviewer", "s1")
+    body = {"reviewer": "ana", "wake_intervals": [{"start_epoch": 1, "end_epoch": 5},
+                                                  {"start_epoch": 10, "end_epoch": n + 3}]}
+    r = world.http.post(url, json=body, headers=reviewer)
+    assert r.status_code == 422 and r.json()["code"] == "invalid_review"
+    assert "wake_intervals[1].end_epoch" in r.json()["detail"]
+    backwards = world.http.post(url, json={"reviewer": "ana", "sleep_intervals": [{"start_epoch": 9, "end_epoch": 9}]},
+                                headers=reviewer)
+    assert backwards.status_code == 422 and "sleep_intervals[0]" in backwards.json()["detail"]
+    typed = world.http.post(url, json={"reviewer": "ana", "wake_intervals": [{"start_epoch": "a", "end_epoch": 3}]},
+                            headers=reviewer)
+    assert typed.status_code == 422 and "wake_intervals" in typed.text and ".0." in typed.text
+    short = world.http.post(url, json={"reviewer": "ana", "labels": [1, 0]}, headers=reviewer)
+    assert short.status_code == 422 and "labels" in short.json()["detail"]
+    both = world.http.post(url, json={"reviewer": "ana", "labels": [1] * n,
+                                      "rest_interval": {"start_epoch": 0, "end_epoch": n}}, headers=reviewer)
+    assert both.status_code == 422
+    assert world.http.get(url, headers=reviewer).json()["data"] == []
+    preview = world.http.post(f"{url}/preview", json={"wake_intervals": [{"start_epoch": 0, "end_epoch": n}]},
+                              headers=reviewer)
+    assert preview.status_code == 200 and preview.json()["labels_summary"]["wake_epochs"] == n
+    assert preview.json()["parameters"]["tst_min"] == 0
+    assert world.http.get(url, headers=reviewer).json()["status"] == "open"
+
+
+def test_agreement_kappa_matches_scikit_learn(world: World) -> None:
+    from sklearn.metrics import cohen_kappa_score
+
+    nights = _post_cohort(world, n_participants=1, nights=3)
+    expected = []
+    for k, (pid, nid) in enumerate(nights["unlabelled"]):
+        n = _n_epochs(world, pid, nid)
+        a, b = _labels(n, 10 + k), _labels(n, 20 + k)
+        b[: n // 2] = a[: n // 2]  # agree on the first half
+        for name, labels in (("ana", a), ("ben", b)):
+            assert world.http.post(f"{_night_url(pid, nid)}/reviews", json={"reviewer": name, "labels": labels},
+                                   headers=world.token("reviewer", "s1")).status_code == 201
+        both = [i for i in range(n) if a[i] is not None and b[i] is not None]
+        expected.append(cohen_kappa_score([a[i] for i in both], [b[i] for i in both]))  # scikit-learn reference
+    assert world.http.get("/v1/studies/s1/reviews/agreement",
+                          headers=world.token("reviewer", "s1")).status_code == 403
+    out = world.http.get("/v1/studies/s1/reviews/agreement").json()
+    assert out["n_nights_reviewed"] == 2 and out["n_reviews"] == 4
+    got = {(x["participant_id"], x["night_id"]): x["kappa"] for x in out["nights"]}
+    assert [got[key] for key in nights["unlabelled"]] == pytest.approx(expected, abs=1e-12)
+    assert out["reviewer_vs_reviewer"]["kappa_mean"] == pytest.approx(float(np.mean(expected)), abs=1e-12)
+    assert out["reviewers_vs_model"]["n_nights"] == 4
