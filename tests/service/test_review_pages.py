@@ -172,6 +172,7 @@ def test_review_preview_equals_the_api_and_moves_tst_by_the_epochs_marked(browse
     headers = {"Origin": server.url, "X-Form-Token": data["form_token"]}
     unmarked = client.post(f"{path}/preview.json", json={}, headers=headers).json()["parameters"]
     marked = client.post(f"{path}/preview.json", json={"wake_intervals": [wake]}, headers=headers).json()["parameters"]
+    assert marked["tst_min"] < unmarked["tst_min"]
     api = httpx.post(f"{server.url}/v1/studies/{study}/participants/{pid}/nights/{night_id}/reviews/preview",
                      json={"wake_intervals": [wake]}, headers=bearer(client.token), timeout=60).json()["parameters"]
     assert marked == api
@@ -179,7 +180,11 @@ def test_review_preview_equals_the_api_and_moves_tst_by_the_epochs_marked(browse
     turned = sum(1 for c in calls[wake["start_epoch"]:wake["end_epoch"]] if c == 1)
     assert turned > 0
     assert marked["tst_min"] == pytest.approx(unmarked["tst_min"] - turned * minutes)
-    assert unmarked["tst_min"] == pytest.approx(data["context"]["parameters"]["tst_min"])
+    # no marks: the parameters of the scoring shown, over the in-bed period the page outlines
+    in_bed = {"start_epoch": first, "end_epoch": stop}
+    as_shown = client.post(f"{path}/preview.json", json={"rest_interval": in_bed}, headers=headers).json()
+    assert as_shown["parameters"] == pytest.approx(
+        {k: data["context"]["parameters"][k] for k in as_shown["parameters"]}, nan_ok=True)
 
 
 def test_review_post_passes_on_the_services_refusal_naming_the_interval(browser_like, server, nights, study,

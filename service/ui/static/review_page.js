@@ -40,6 +40,13 @@
     return null;
   }
 
+  // The rest interval judged: the last one marked, else the recorded in-bed period the figure outlines.
+  function restInterval() {
+    const marked = restMark();
+    if (marked) return range(marked);
+    return Array.isArray(night.in_bed) ? { start_epoch: night.in_bed[0], end_epoch: night.in_bed[1] } : null;
+  }
+
   function range(m) { return { start_epoch: m.start_epoch, end_epoch: m.end_epoch }; }
 
   // The scoring shown in the "with the marks" strip: the base, wake marks, then sleep marks, and
@@ -52,7 +59,7 @@
         for (let i = m.start_epoch; i < m.end_epoch; i += 1) out[i] = kind === "sleep" ? 1 : 0;
       });
     });
-    const rest = restMark();
+    const rest = restInterval();
     if (rest) for (let i = 0; i < out.length; i += 1) if (i < rest.start_epoch || i >= rest.end_epoch) out[i] = null;
     return out;
   }
@@ -63,8 +70,7 @@
     if (state.base.key === "model") {
       body.wake_intervals = state.marks.filter(function (m) { return m.kind === "wake"; }).map(range);
       body.sleep_intervals = state.marks.filter(function (m) { return m.kind === "sleep"; }).map(range);
-      const rest = restMark();
-      body.rest_interval = rest ? range(rest) : null;
+      body.rest_interval = restInterval();
     } else {
       body.labels = markedLabels();
     }
