@@ -35,6 +35,7 @@ def nights(http, study, admin) -> dict[str, object]:
         r = http.post(f"/v1/studies/{study}/participants/{pid}/nights", json=bodies[0], headers=admin)
         assert r.status_code == 201, r.text
         posted["labelled"].append(r.json()["night_id"])
+        posted["labelled_pid"] = pid
     return posted
 
 
@@ -201,3 +202,24 @@ def test_review_post_passes_on_the_services_refusal_naming_the_interval(browser_
     assert "wake_intervals[1]" in r.text and "wake_intervals[0]" not in r.text
     stored = http.get(f"/v1/studies/{study}/participants/{pid}/nights/{night_id}/reviews", headers=admin).json()
     assert stored["data"] == []
+
+
+def test_review_page_of_a_night_with_psg_says_why_it_is_not_reviewed(browser_like, nights, study) -> None:
+    client = browser_like("reviewer")
+    night_id = nights["labelled"][0]
+    page = client.get(_review_path(study, nights["labelled_pid"], night_id))
+    assert page.status_code == 409, page.text
+    assert "has a PSG reference" in unescape(page.text) and "not a medical device" in unescape(page.text)
+
+
+def test_study_and_night_pages_link_to_the_review_pages(browser_like, nights, study) -> None:
+    client = browser_like("analyst")
+    assert f'href="/ui/studies/{study}/review"' in client.get(f"/ui/studies/{study}").text
+    night_id, pid = next(iter(nights["unlabelled"].items()))
+    night_page = client.get(f"/ui/studies/{study}/participants/{pid}/nights/{night_id}").text
+    assert f'href="{_review_path(study, pid, night_id)}"' in night_page
+    labelled = client.get(f"/ui/studies/{study}/participants/{nights['labelled_pid']}/nights/"
+                          f"{nights['labelled'][0]}").text
+    assert 'id="review-link"' not in labelled
+    ingest = browser_like("ingest").get(f"/ui/studies/{study}").text
+    assert 'id="review-queue-link"' not in ingest

@@ -4,6 +4,7 @@
 "use strict";
 (function () {
   const $ = function (id) { return document.getElementById(id); };
+  const when = function (iso) { return window.NightbankReviewTime(iso); };
 
   function fmt(v, digits) { return Number.isFinite(v) ? v.toFixed(digits === undefined ? 1 : digits) : "–"; }
 
@@ -54,7 +55,7 @@
     box.hidden = false;
     if (page.correction) {
       $("adjudication-status").textContent = "A correction is stored (by " + page.correction.adjudicated_by + " at " +
-        page.correction.adjudicated_at + "); storing another replaces it.";
+        when(page.correction.adjudicated_at) + "); storing another replaces it.";
     }
 
     const status = $("adjudication-status");
@@ -67,7 +68,7 @@
       status.textContent = "Storing the correction…";
       page.send(page.data.urls.adjudication, body).then(function (stored) {
         const c = stored.correction || {};
-        status.textContent = "Correction stored by " + c.adjudicated_by + " at " + c.adjudicated_at +
+        status.textContent = "Correction stored by " + c.adjudicated_by + " at " + when(c.adjudicated_at) +
           (body.accept ? " (review " + body.accept + " accepted)" : " (your marks)") + ".";
         status.setAttribute("data-state", "stored");
         $("review-state").textContent = String(stored.status || "adjudicated").replace("_", " ");

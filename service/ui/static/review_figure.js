@@ -52,6 +52,12 @@
     return finite[Math.min(finite.length - 1, Math.floor(q * (finite.length - 1)))];
   }
 
+  // A stored time stamp for people: "2026-12-03 19:06 UTC" (the text itself when it is not a time).
+  window.NightbankReviewTime = function (iso) {
+    const t = new Date(iso);
+    return Number.isNaN(t.getTime()) ? String(iso) : t.toISOString().slice(0, 16).replace("T", " ") + " UTC";
+  };
+
   window.NightbankReviewFigure = function (container, night) {
     const n = night.counts.length;
     const epochW = PLOT / Math.max(n, 1);
@@ -159,8 +165,8 @@
     function draw() {
       layout = computeLayout();
       container.textContent = "";
-      svg = el("svg", { viewBox: "0 0 " + WIDTH + " " + layout.height, "class": "review-svg" + (locked ? " locked" : ""),
-        role: "img",
+      svg = el("svg", { viewBox: "0 0 " + WIDTH + " " + layout.height,
+        "class": "review-svg" + (locked ? " locked" : ""), role: "img",
         "aria-label": "Counts, P(sleep), the model's calls and the scoring with the marks, epoch by epoch; " +
           "drag across it to mark" }, container);
       const base = el("g", {}, svg);

@@ -7,6 +7,7 @@
   const night = data.context;
   const figure = window.NightbankReviewFigure(document.getElementById("review-plot"), night);
   const $ = function (id) { return document.getElementById(id); };
+  const when = function (iso) { return window.NightbankReviewTime(iso); };
   const KIND_NAMES = { wake: "wake", sleep: "sleep", rest: "rest interval" };
   const state = { mode: "wake", marks: [], base: { key: "model", labels: night.calls.slice() }, locked: false,
     previewSeq: 0, previewTimer: null, reviews: null };
@@ -187,12 +188,15 @@
     event.preventDefault();
     const body = reviewBody();
     if (!body.reviewer) { $("submit-status").textContent = "Give your reviewer name first."; return; }
-    if (body.labels) { $("submit-status").textContent = "Reviews start from the model's calls; choose it under \"Marks change\"."; return; }
+    if (body.labels) {
+      $("submit-status").textContent = "Reviews start from the model's calls; choose it under \"Marks change\".";
+      return;
+    }
     $("submit-review").disabled = true;
     $("submit-status").textContent = "Submitting…";
     send(data.urls.reviews, body).then(function (stored) {
-      lock("Review submitted by " + stored.reviewer + " at " + stored.submitted_at + " (review " + stored.review_id +
-        "). The night is now " + String(stored.status || "").replace("_", " ") + ".");
+      lock("Review submitted by " + stored.reviewer + " at " + when(stored.submitted_at) + " (review " +
+        stored.review_id + "). The night is now " + String(stored.status || "").replace("_", " ") + ".");
       $("submit-status").setAttribute("data-state", "submitted");
       if (stored.status) $("review-state").textContent = String(stored.status).replace("_", " ");
       if (stored.parameters) showParameters(stored.parameters);
@@ -226,12 +230,13 @@
     const count = needed > 0 ? Math.max(reviews.length, 2 - needed) : reviews.length;
     let text = count === 0 ? "No review submitted yet." : plural(count, "review") + " submitted";
     text += reviews.length ? " (" + reviews.map(function (r) {
-      return (r.own ? "yours, as " : "") + r.reviewer + " at " + r.submitted_at; }).join("; ") + ")." : ".";
+      return (r.own ? "yours, as " : "") + r.reviewer + " at " + when(r.submitted_at); }).join("; ") + ")." : ".";
     if (needed > 0) text += " " + plural(needed, "more review") + " needed; what each reviewer marked stays hidden " +
       "until both are in.";
-    if (body.correction) {
-      text += " Correction stored by " + body.correction.adjudicated_by + " at " + body.correction.adjudicated_at +
-        (body.correction.accepted_review_id ? " (review " + body.correction.accepted_review_id + " accepted)." : " (own judgement).");
+    const c = body.correction;
+    if (c) {
+      text += " Correction stored by " + c.adjudicated_by + " at " + when(c.adjudicated_at) +
+        (c.accepted_review_id ? " (review " + c.accepted_review_id + " accepted)." : " (the adjudicator's own marks).");
     }
     $("reviews-summary").textContent = text;
     $("reviews-summary").setAttribute("data-count", String(count));
@@ -240,7 +245,7 @@
     const bothIn = body.reviews_needed === 0;
     if (bothIn) $("submit-section").hidden = true;
     else if (own && !state.locked) {
-      lock("You reviewed this night at " + own.submitted_at + ".");
+      lock("You reviewed this night at " + when(own.submitted_at) + ".");
       if (Array.isArray(own.labels)) figure.setLabels("marked", own.labels);
       if (own.parameters) showParameters(own.parameters);
     }
