@@ -24,6 +24,14 @@ their specificity >= 0.70 with sensitivity >= 0.90; their SOL mean absolute erro
 count-threshold rule's;
 their awakening-count bias at most half the count-threshold rule's (absolute values);
 pooled+offset no worse than pooled for participants with 1-2 labelled nights.
+
+Decoding goals (held-out, for ``auto``, the default ``decoder="hmm"`` with isotonic calibration): mean
+awakenings error within +/-2 per night, mean WASO and TST errors within +/-10 min, SOL mean absolute
+error and balanced accuracy no worse than the same study run with ``decoder="threshold"`` (calls at
+Youden's threshold on the calibrated probabilities, epoch by epoch; same seed, same models), personal
+balanced accuracy >= pooled on the personal nights, and the 90 % intervals of TST and WASO covering
+85-95 % of the held-out nights (``StudyComparison.interval_coverage``; median widths reported).
+``--no-threshold-run`` skips the comparison run (those two goals are then not evaluated).
 ``--without-time-context`` is an ablation: the time-context features ``since_lights_off_min`` and
 ``to_lights_on_min`` (:func:`models.features.context.time_context`) are blanked (NaN, so no tree
 splits on them) for this run only, features computed in this process; the defaults are unchanged.
@@ -34,6 +42,7 @@ The last printed line is one JSON object (with the 1-minute load average before 
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 import json
 import os
@@ -93,19 +102,76 @@ def _one_night_offsets(result) -> dict[str, float]:
     return {"n_pairs": int(g.size), "mean_gain": float(g.mean()), "share_no_worse": float((g >= 0).mean())}
 
 
-def _evaluate(name: str, sims: list, config: TrainingConfig, *, in_process: bool = False) -> dict[str, object]:
+def _table(result) -> pd.DataFrame:
+    keys = ["participant_id", "night_id", "method"]
+    night_rows = result.epoch_metrics[result.epoch_metrics["level"] == "night"]
+    return night_rows.merge(result.parameter_errors, on=keys)
+
+
+def _decoding_figures(table: pd.DataFrame, method: str) -> dict[str, float]:
+    mine = table[table["method"] == method]
+    return {"n_nights": int(len(mine)), "balanced_accuracy": float(mine["balanced_accuracy"].mean()),
+            "sol_mae_min": float(mine["sol_min_error"].abs().mean()),
+            "tst_bias_min": float(mine["tst_min_error"].mean()), "waso_bias_min": float(mine["waso_min_error"].mean()),
+            "awakenings_bias": float(mine["awakenings_error"].mean()),
+            "awakenings_mae": float(mine["awakenings_error"].abs().mean())}
+
+
+def _decoding_goals(result, table: pd.DataFrame, baseline: pd.DataFrame | None) -> dict[str, object]:
+    """The decoding goals for auto (module docstring), with the threshold-decoder run as the baseline."""
+    auto = _decoding_figures(table, "auto")
+    goals: dict[str, bool] = {
+        "auto_awakenings_bias_within_2": bool(abs(auto["awakenings_bias"]) <= 2.0),
+        "auto_waso_bias_within_10_min": bool(abs(auto["waso_bias_min"]) <= 10.0),
+        "auto_tst_bias_within_10_min": bool(abs(auto["tst_bias_min"]) <= 10.0),
+    }
+    before = None if baseline is None else _decoding_figures(baseline, "auto")
+    if before is not None:
+        goals["auto_sol_mae_no_worse_than_threshold_decoder"] = bool(auto["sol_mae_min"] <= before["sol_mae_min"])
+        goals["auto_balanced_accuracy_no_worse_than_threshold_decoder"] = bool(
+            auto["balanced_accuracy"] >= before["balanced_accuracy"])
+    personal_ids = table[table["method"] == "personal"][["participant_id", "night_id"]]
+    on_personal = table.merge(personal_ids, on=["participant_id", "night_id"])
+    ba = on_personal.groupby("method")["balanced_accuracy"].mean()
+    goals["personal_no_worse_than_pooled_on_personal_nights"] = bool(
+        len(personal_ids) > 0 and ba.get("personal", np.nan) >= ba.get("pooled", np.nan))
+    coverage = result.interval_coverage
+    cover = {f"{r.method}:{r.parameter}": {"coverage": float(r.coverage), "n_nights": int(r.n_nights),
+                                             "median_width": float(r.median_width), "level": float(r.level)}
+             for r in coverage.itertuples()}
+    for name in ("tst_min", "waso_min"):
+        c = cover.get(f"auto:{name}", {}).get("coverage", np.nan)
+        goals[f"auto_{name}_90pct_interval_covers_85_95pct"] = bool(0.85 <= c <= 0.95)
+    return {"auto": auto, "threshold_decoder_auto": before, "goals": goals, "interval_coverage": cover,
+            "personal_vs_pooled_balanced_accuracy": {"personal": float(ba.get("personal", np.nan)),
+                                                     "pooled": float(ba.get("pooled", np.nan)),
+                                                     "n_nights": int(len(personal_ids))}}
+
+
+def _study(sims: list) -> dict[str, list]:
     study: dict[str, list] = {}
     for s in sims:
         study.setdefault(s.night.participant_id, []).append(s.night)
+    return study
+
+
+def _evaluate(name: str, sims: list, config: TrainingConfig, *, in_process: bool = False,
+              threshold_run: bool = True) -> dict[str, object]:
+    study = _study(sims)
     start = time.perf_counter()
     cache = FeatureCache()
     if in_process:  # the ablation's patch lives in this process only: compute every night's features here
         list(cache.features_of([n for v in study.values() for n in v], config.features, n_jobs=1))
     result = compare_study(study, config=config, feature_cache=cache)
     seconds = time.perf_counter() - start
-    keys = ["participant_id", "night_id", "method"]
-    night_rows = result.epoch_metrics[result.epoch_metrics["level"] == "night"]
-    table = night_rows.merge(result.parameter_errors, on=keys)
+    table = _table(result)
+    baseline = None
+    if threshold_run:
+        start_b = time.perf_counter()
+        other = compare_study(study, config=dataclasses.replace(config, decoder="threshold"), feature_cache=cache)
+        baseline = _table(other)
+        print(f"  (threshold-decoder run: {time.perf_counter() - start_b:.0f} s)")
+    decoding = _decoding_goals(result, table, baseline)
 
     def on(method: str, ids: pd.DataFrame) -> pd.DataFrame:
         mine = table[table["method"] == method]
@@ -150,7 +216,16 @@ def _evaluate(name: str, sims: list, config: TrainingConfig, *, in_process: bool
         print(f"  rules {m:32s} BA={f['balanced_accuracy']:.3f} sens={f['sensitivity']:.3f} "
               f"spec={f['specificity']:.3f}")
     print(f"  participants whose nested choice differs on some night from the overall one: {switched}")
-    return {"methods": methods, "goals": goals, "chosen": {k: int(v) for k, v in chosen.items()},
+    for label, fig in (("auto (hmm)", decoding["auto"]), ("auto (threshold)", decoding["threshold_decoder_auto"])):
+        if fig is not None:
+            print(f"  decoding {label:17s} " + " ".join(f"{k}={v:.3f}" if isinstance(v, float) else f"{k}={v}"
+                                                     for k, v in fig.items()))
+    for key, c in decoding["interval_coverage"].items():
+        if c["level"] and key.split(":")[1] in ("tst_min", "waso_min", "sol_min", "awakenings"):
+            print(f"  interval {key:26s} coverage={c['coverage']:.3f} n={c['n_nights']} "
+                  f"median_width={c['median_width']:.1f}")
+    goals |= decoding["goals"]
+    return {"methods": methods, "goals": goals, "decoding": decoding, "chosen": {k: int(v) for k, v in chosen.items()},
             "auto_switched_participants": switched,
             "calibrations": {m: c.to_dict() for m, c in result.calibrations.items()}, "rules": rules,
             "few_label": {"participants": few, "n_nights": int(len(few_ids)), "pooled": pooled_few,
@@ -198,7 +273,8 @@ def main(argv: list[str]) -> None:
         cohorts = {argv[argv.index("--only") + 1]: cohorts[argv[argv.index("--only") + 1]]}
     load_before = os.getloadavg()[0]
     print(f"load average (1 min) before: {load_before:.2f}")
-    report: dict[str, object] = {name: _evaluate(name, sims, config, in_process=ablation)
+    report: dict[str, object] = {name: _evaluate(name, sims, config, in_process=ablation,
+                                                 threshold_run="--no-threshold-run" not in argv)
                                  for name, sims in cohorts.items()}
     load_after = os.getloadavg()[0]
     print(f"load average (1 min) after: {load_after:.2f}")

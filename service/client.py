@@ -34,6 +34,7 @@ import httpx
 
 from .client_errors import problem_error
 from .client_recordings import RecordingMethods
+from .client_reviews import ReviewMethods
 from .errors import BadRequest, ServiceError
 
 __all__ = ["FORMAT_MEDIA_TYPES", "KEEP", "NightbankClient", "problem_error"]
@@ -57,7 +58,7 @@ def _flags(**flags: bool) -> dict[str, str]:
     return {name: "true" for name, on in flags.items() if on}
 
 
-class NightbankClient(RecordingMethods):
+class NightbankClient(RecordingMethods, ReviewMethods):
     """Client of one nightbank server.
 
     Parameters

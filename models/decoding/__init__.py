@@ -20,6 +20,14 @@ from .decoders import (
     ThresholdDecoder,
     make_decoder,
 )
+from .fitting import (
+    CALIBRATION_CHOICES,
+    DECODER_CHOICES,
+    DEFAULT_BA_MARGIN,
+    INTERVAL_WEIGHT_FACTORS,
+    NightDecoding,
+    fit_night_decoding,
+)
 from .hmm import (
     DEFAULT_PSEUDO_COUNT,
     InvalidHmmError,
@@ -49,18 +57,23 @@ from .tuning import (
 )
 
 __all__ = [
+    "CALIBRATION_CHOICES",
     "CALIBRATORS",
     "Calibrator",
     "DECODERS",
+    "DECODER_CHOICES",
+    "DEFAULT_BA_MARGIN",
     "DEFAULT_DECODER_GRID",
     "DEFAULT_INTERVAL_LEVEL",
     "DEFAULT_PSEUDO_COUNT",
     "Decoder",
     "DecoderChoice",
     "HmmDecoder",
+    "INTERVAL_WEIGHT_FACTORS",
     "InvalidCalibrationError",
     "InvalidHmmError",
     "IsotonicCalibrator",
+    "NightDecoding",
     "NightIntervals",
     "PATH_PARAMETER_NAMES",
     "PlattCalibrator",
@@ -69,6 +82,7 @@ __all__ = [
     "ThresholdDecoder",
     "brier_score",
     "calibrator_from_dict",
+    "fit_night_decoding",
     "fit_sleep_wake_hmm",
     "forward_backward",
     "interval_coverage",

@@ -68,6 +68,7 @@ from .pooled import (
 )
 from .rows import (
     NightRows,
+    corrected_rows,
     iter_prepared,
     labelled_nights,
     prepare_nights,
@@ -82,6 +83,7 @@ from .splits import (
 )
 from .study_comparison import (
     COMPARED_RULES,
+    COVERAGE_COLUMNS,
     StudyComparison,
     compare_study,
     held_out_comparison,
@@ -109,6 +111,7 @@ __all__ = [
     "ActivationEvidence",
     "CHOICE_POLICIES",
     "COMPARED_RULES",
+    "COVERAGE_COLUMNS",
     "DEFAULT_SHRINKAGE_GRID",
     "DESCRIPTOR_NAMES",
     "FORMAT",
@@ -144,6 +147,7 @@ __all__ = [
     "choose_method",
     "choose_shrinkage",
     "compare_study",
+    "corrected_rows",
     "estimate_offset",
     "fold_groups",
     "held_out_comparison",

@@ -9,7 +9,11 @@ restored model predicts bit-identical probabilities.
 Metadata keys (``format_version`` 1): ``format``, ``format_version``, ``kind``,
 ``participant_id``, ``threshold``, ``n_rounds``, ``params``, ``feature_set`` (``version``,
 ``names``, ``config``), ``descriptor_names``, ``offset_baseline``, ``projection`` (or null),
-``training_nights``, ``info`` (seed, library versions, tuning summary).
+``training_nights``, ``info`` (seed, library versions, tuning summary) and ``decoding``
+(:meth:`NightDecoding.to_dict() <models.decoding.fitting.NightDecoding.to_dict>`: calibrator,
+decoder settings, the sleep/wake chain and the fit record; null for a model without decoding).
+Metadata written before ``decoding`` existed has no such key: it reads as None, and the model
+calls at ``threshold_`` as it always did.
 
 Errors::
 
@@ -27,6 +31,9 @@ from typing import Any
 
 import xgboost as xgb
 
+from ..decoding.calibration import InvalidCalibrationError
+from ..decoding.fitting import NightDecoding
+from ..decoding.hmm import InvalidHmmError
 from ..errors import NightbankError
 from ..features.matrix import FeatureConfig
 from .classifier import Projection, SleepModel
@@ -86,6 +93,7 @@ def model_to_bytes(model: SleepModel) -> tuple[bytes, dict[str, Any]]:
         "projection": None if model.projection_ is None else model.projection_.to_dict(),
         "training_nights": list(model.training_nights_),
         "info": model.info_,
+        "decoding": None if model.decoding_ is None else model.decoding_.to_dict(),
     }
     try:
         metadata = json.loads(json.dumps(metadata, allow_nan=False))
@@ -121,6 +129,7 @@ def model_from_bytes(booster: bytes, metadata: Mapping[str, Any]) -> SleepModel:
         loaded = xgb.Booster(model_file=bytearray(booster))
         features = metadata["feature_set"]
         projection = metadata["projection"]
+        decoding = metadata.get("decoding")
         return SleepModel(
             kind=metadata["kind"], booster=loaded, threshold=float(metadata["threshold"]),
             feature_config=FeatureConfig.from_dict(features["config"]), feature_version=features["version"],
@@ -128,8 +137,9 @@ def model_from_bytes(booster: bytes, metadata: Mapping[str, Any]) -> SleepModel:
             projection=None if projection is None else Projection.from_dict(projection),
             descriptor_names=tuple(metadata["descriptor_names"]), offset_baseline=float(metadata["offset_baseline"]),
             participant_id=metadata["participant_id"],
-            training_nights=tuple(metadata["training_nights"]), info=metadata["info"])
-    except (KeyError, TypeError, ValueError, xgb.core.XGBoostError) as exc:
+            training_nights=tuple(metadata["training_nights"]), info=metadata["info"],
+            decoding=None if decoding is None else NightDecoding.from_dict(decoding))
+    except (KeyError, TypeError, ValueError, xgb.core.XGBoostError, InvalidHmmError, InvalidCalibrationError) as exc:
         raise InvalidModelArtifactError(f"cannot restore the model: {exc}") from exc
 
 

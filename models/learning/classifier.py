@@ -1,9 +1,15 @@
-"""The fitted sleep/wake model: features -> optional standardise + PCA -> XGBoost -> threshold.
+"""The fitted sleep/wake model: features -> optional standardise + PCA -> XGBoost -> calibration -> decoding.
 
 A :class:`SleepModel` is built by :func:`models.learning.personal.train_personal` or
 :func:`models.learning.pooled.train_pooled`, saved and restored by :mod:`models.learning.artifacts`; it
 is never pickled. Prediction always goes through the same numpy and XGBoost calls, so a restored model
 gives bit-identical probabilities.
+
+A model with a :class:`~models.decoding.fitting.NightDecoding` (``decoding_``, fitted on inner
+validation nights only) returns *calibrated* probabilities from :meth:`SleepModel.predict_proba`
+(:meth:`SleepModel.raw_proba` gives the uncalibrated ones), makes its calls with the fitted
+decoder and gives per-night parameter intervals (:meth:`SleepModel.intervals`). A model without
+one (stored before decoding existed) thresholds its raw probabilities at ``threshold_``.
 
 Missing epochs (NaN counts, :attr:`Night.missing <models.nights.night.Night.missing>`) are never
 trained on (:mod:`models.learning.rows`) and never predicted: their margin, probability and call
@@ -24,9 +30,12 @@ from scipy.special import expit
 from sklearn.decomposition import PCA
 from sklearn.preprocessing import StandardScaler
 
+from ..decoding.fitting import NightDecoding
+from ..decoding.intervals import DEFAULT_INTERVAL_LEVEL, NightIntervals
 from ..features.matrix import FeatureConfig, FeatureMatrix, FeatureSetMismatchError, check_feature_set
 from ..features.source import FeatureSource, night_features
 from ..nights.night import Night
+from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
 from .descriptors import participant_descriptors
 
 __all__ = ["ModelKind", "Projection", "SleepModel"]
@@ -106,9 +115,12 @@ class SleepModel:
     booster_ : xgboost.Booster
         Trained with ``tree_method="hist"``; exactly ``n_rounds_`` trees are used.
     threshold_ : float
-        Probability of sleep at or above which an epoch is called sleep: chosen on validation
-        predictions (never on held-out nights) to maximise Youden's J = balanced accuracy among
-        thresholds meeting ``TrainingConfig.min_sensitivity``.
+        Raw probability of sleep at or above which an epoch is called sleep when there is no
+        ``decoding_``: chosen on validation predictions (never on held-out nights) to maximise
+        Youden's J = balanced accuracy among thresholds meeting ``TrainingConfig.min_sensitivity``.
+    decoding_ : NightDecoding or None
+        Calibration, decoder and interval settings fitted on validation predictions (never on
+        held-out nights); None for models without decoding (calls at ``threshold_``).
     feature_config_ : FeatureConfig
     feature_version_ : str
         Version of the feature set, e.g. ``fs2-...-30s`` (includes the epoch length).
@@ -136,7 +148,8 @@ class SleepModel:
                  feature_version: str, feature_names: tuple[str, ...], params: Mapping[str, Any], n_rounds: int,
                  projection: Projection | None = None, descriptor_names: tuple[str, ...] = (),
                  offset_baseline: float = 0.0, participant_id: str | None = None,
-                 training_nights: tuple[str, ...] = (), info: Mapping[str, Any] | None = None) -> None:
+                 training_nights: tuple[str, ...] = (), info: Mapping[str, Any] | None = None,
+                 decoding: NightDecoding | None = None) -> None:
         self.kind_ = kind
         self.booster_ = booster
         self.threshold_ = float(threshold)
@@ -151,6 +164,7 @@ class SleepModel:
         self.participant_id_ = participant_id
         self.training_nights_ = tuple(training_nights)
         self.info_ = dict(info or {})
+        self.decoding_ = decoding
         self.booster_.set_param({"nthread": 1})
 
     def __repr__(self) -> str:
@@ -227,39 +241,86 @@ class SleepModel:
             margin[missing] = np.nan
         return margin
 
-    def predict_proba(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
-                      features: FeatureMatrix | None = None,
-                      feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
-        """Probability of sleep per epoch, shape (n_epochs,), float64, NaN at missing epochs (see
-        :meth:`decision_function`)."""
+    def raw_proba(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
+                  features: FeatureMatrix | None = None,
+                  feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
+        """Uncalibrated probability of sleep per epoch, ``expit(decision_function)``, shape (n_epochs,),
+        NaN at missing epochs (arguments as :meth:`decision_function`)."""
         margin = self.decision_function(night, offset=offset, descriptors=descriptors, features=features,
                                         feature_cache=feature_cache)
         return np.asarray(expit(margin), dtype=np.float64)
 
+    def proba_from_margin(self, margin: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Probability of sleep from log-odds (offset included): calibrated when ``decoding_`` is set.
+
+        Parameters
+        ----------
+        margin : ndarray of float64, shape (n_epochs,)
+            As :meth:`decision_function` (NaN stays NaN). A participant offset is added to the
+            margin *before* calibration.
+        """
+        p = np.asarray(expit(np.asarray(margin, dtype=np.float64)), dtype=np.float64)
+        return p if self.decoding_ is None else self.decoding_.calibrate(p)
+
+    def predict_proba(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
+                      features: FeatureMatrix | None = None,
+                      feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
+        """Probability of sleep per epoch, shape (n_epochs,), float64, NaN at missing epochs: calibrated
+        by ``decoding_`` when set, raw otherwise (arguments as :meth:`decision_function`)."""
+        margin = self.decision_function(night, offset=offset, descriptors=descriptors, features=features,
+                                        feature_cache=feature_cache)
+        return self.proba_from_margin(margin)
+
     def predict(self, night: Night, *, offset: float = 0.0, descriptors: Mapping[str, float] | None = None,
                 features: FeatureMatrix | None = None,
                 feature_cache: FeatureSource | None = None) -> NDArray[np.float64]:
-        """Sleep (1.0) / wake (0.0) per epoch at ``threshold_``, NaN at missing epochs; shape (n_epochs,)."""
+        """Sleep (1.0) / wake (0.0) per epoch (:meth:`calls`), NaN at missing epochs; shape (n_epochs,)."""
         p = self.predict_proba(night, offset=offset, descriptors=descriptors, features=features,
                                feature_cache=feature_cache)
         return self.calls(p)
 
     def calls(self, p_sleep: NDArray[np.float64]) -> NDArray[np.float64]:
-        """Calls at ``threshold_`` from probabilities of sleep.
+        """Calls from probabilities of sleep: decoded by ``decoding_`` when set, else at ``threshold_``.
 
         Parameters
         ----------
         p_sleep : ndarray of float64, shape (n_epochs,)
-            As :meth:`predict_proba`; NaN = unscored.
+            As :meth:`predict_proba` (the whole recording); NaN = unscored.
 
         Returns
         -------
         sleep : ndarray of float64, shape (n_epochs,)
-            1.0 where ``p_sleep >= threshold_``, 0.0 below, NaN where ``p_sleep`` is NaN.
+            1.0 sleep, 0.0 wake, NaN where ``p_sleep`` is NaN.
 
         Examples
         --------
-        A model with threshold 0.6 calls ``[0.7, 0.2, nan]`` ``[1.0, 0.0, nan]``.
+        A model without decoding and threshold 0.6 calls ``[0.7, 0.2, nan]`` ``[1.0, 0.0, nan]``.
         """
         p = np.asarray(p_sleep, dtype=np.float64)
+        if self.decoding_ is not None:
+            return self.decoding_.decode(p)
         return np.where(np.isnan(p), np.nan, (p >= self.threshold_).astype(np.float64))
+
+    def intervals(self, p_sleep: NDArray[np.float64], night: Night, *, level: float = DEFAULT_INTERVAL_LEVEL,
+                  n_paths: int = 200, seed: int = 0,
+                  protocol: StudyProtocol = DEFAULT_PROTOCOL) -> NightIntervals | None:
+        """Per-night intervals of the sleep parameters (:meth:`NightDecoding.intervals`), or None without
+        ``decoding_``.
+
+        Parameters
+        ----------
+        p_sleep : ndarray of float64, shape (n_epochs,)
+            Output of :meth:`predict_proba` for ``night``.
+        night : Night
+            Gives the epoch length and lights off/on (``night.in_bed``).
+        level : float, default=0.9
+        n_paths : int, default=200
+        seed : int, default=0
+        protocol : StudyProtocol, default=DEFAULT_PROTOCOL
+        """
+        if self.decoding_ is None:
+            return None
+        first, stop = night.in_bed
+        return self.decoding_.intervals(p_sleep, epoch_seconds=night.epoch_seconds, lights_off_idx=first,
+                                        lights_on_idx=stop, level=level, n_paths=n_paths, seed=seed,
+                                        protocol=protocol)

@@ -16,6 +16,7 @@ from typing import Any
 
 import numpy as np
 
+from ..decoding.fitting import CALIBRATION_CHOICES, DECODER_CHOICES
 from ..errors import NightbankError
 from ..features.matrix import FeatureConfig
 from ..nights.night import MovementTimePolicy
@@ -108,6 +109,17 @@ class TrainingConfig:
         loses little). The validation participants' epochs are capped at half of it.
     shrinkage_grid : tuple of float, default=DEFAULT_SHRINKAGE_GRID
         Candidate offset penalties (see :mod:`models.learning.offset`).
+    decoder : {"hmm", "threshold"}, default="hmm"
+        How a model's calls are made from its calibrated probabilities
+        (:func:`models.decoding.fitting.fit_night_decoding`): the sleep/wake chain with settings
+        tuned on the validation nights, or Youden's threshold (under ``min_sensitivity``) on
+        the calibrated validation predictions, epoch by epoch.
+    calibration : {"isotonic", "platt", "none"}, default="isotonic"
+        Calibration of the raw probabilities, fitted on validation predictions only.
+    interval_level : float, default=0.9
+        Level of the per-night parameter intervals of held-out nights, in (0, 1).
+    interval_paths : int, default=200
+        Posterior paths drawn per night for those intervals (>= 10).
     """
 
     n_trials: int = 30
@@ -128,6 +140,10 @@ class TrainingConfig:
     pooled_validation_share: float = 0.2
     pooled_max_rows: int = 150_000
     shrinkage_grid: tuple[float, ...] = DEFAULT_SHRINKAGE_GRID
+    decoder: str = "hmm"
+    calibration: str = "isotonic"
+    interval_level: float = 0.9
+    interval_paths: int = 200
 
     def __post_init__(self) -> None:
         problems = []
@@ -149,6 +165,14 @@ class TrainingConfig:
             problems.append("pooled_validation_share must be in (0, 1)")
         if self.pooled_max_rows < 1000:
             problems.append(f"pooled_max_rows must be >= 1000, got {self.pooled_max_rows}")
+        if self.decoder not in DECODER_CHOICES:
+            problems.append(f"decoder must be one of {DECODER_CHOICES}, got {self.decoder!r}")
+        if self.calibration not in CALIBRATION_CHOICES:
+            problems.append(f"calibration must be one of {CALIBRATION_CHOICES}, got {self.calibration!r}")
+        if not 0.0 < self.interval_level < 1.0:
+            problems.append(f"interval_level must be in (0, 1), got {self.interval_level}")
+        if self.interval_paths < 10:
+            problems.append(f"interval_paths must be >= 10, got {self.interval_paths}")
         unknown = sorted(set(self.pooled_params) - set(POOLED_PARAMS))
         if unknown:
             problems.append(f"unknown pooled_params {unknown}; known: {sorted(POOLED_PARAMS)}")

@@ -10,6 +10,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..agreement.epoch_metrics import EPOCH_COUNT_NAMES, EPOCH_METRIC_NAMES, epoch_agreement
+from ..decoding.intervals import NightIntervals
 from .config import TrainingDataError
 
 __all__ = ["HeldOutNight", "night_metrics_table", "summary_table"]
@@ -29,9 +30,11 @@ class HeldOutNight:
     method : str
         ``"personal"``, ``"pooled"`` or ``"pooled+offset"``.
     p_sleep : ndarray of float64, shape (n_epochs,)
-        Probability of sleep for every epoch of the night, NaN at missing epochs (unscored).
+        Probability of sleep for every epoch of the night (calibrated when the model has a
+        decoding), NaN at missing epochs (unscored).
     sleep : ndarray of float64, shape (n_epochs,)
-        Calls at the model's threshold: 1.0 = sleep, 0.0 = wake, NaN at missing epochs.
+        The model's calls (:meth:`SleepModel.calls <models.learning.classifier.SleepModel.calls>`):
+        1.0 = sleep, 0.0 = wake, NaN at missing epochs.
     reference : ndarray of float64, shape (n_epochs,) or None
         1 = sleep, 0 = wake, NaN = unscored; None for an unlabelled night.
     in_bed : tuple of int
@@ -43,6 +46,8 @@ class HeldOutNight:
     margin : ndarray of float64, shape (n_epochs,) or None
         Log-odds of sleep before the offset (pooled models; used to estimate offsets), NaN at
         missing epochs.
+    intervals : NightIntervals or None, default=None
+        Per-night parameter intervals from the same model (None for a model without decoding).
     """
 
     participant_id: str
@@ -56,6 +61,7 @@ class HeldOutNight:
     threshold: float
     offset: float = 0.0
     margin: NDArray[np.float64] | None = field(default=None, repr=False)
+    intervals: NightIntervals | None = field(default=None, repr=False)
 
     @property
     def night_id(self) -> str:

@@ -25,6 +25,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from numpy.typing import NDArray
 
 from ..features.source import FeatureSource
 from ..nights.night import Night
@@ -32,7 +33,7 @@ from .artifacts import library_versions
 from .classifier import SleepModel
 from .config import TrainingConfig, TrainingDataError
 from .held_out import HeldOutNight, night_metrics_table, summary_table
-from .rows import NightRows, labelled_nights, prepare_nights, study_seed
+from .rows import NightRows, corrected_rows, labelled_nights, prepare_nights, study_seed
 from .splits import SPLITTERS, fold_groups
 from .tasks import Progress, Reporter, run_tasks
 from .tuning import TunedPipeline, tune_and_fit
@@ -88,7 +89,7 @@ def _model(pipe: TunedPipeline, nights: Sequence[NightRows], config: TrainingCon
         kind="personal", booster=pipe.booster, threshold=pipe.threshold, feature_config=config.features,
         feature_version=features.version, feature_names=features.names, params=pipe.hyperparameters,
         n_rounds=pipe.n_rounds, projection=pipe.projection, participant_id=nights[0].night.participant_id,
-        training_nights=tuple(n.night.content_hash for n in nights),
+        training_nights=tuple(n.night.content_hash for n in nights), decoding=pipe.decoding,
         info={"seed": seed, "inner_auc": pipe.best_value, "tuning": pipe.trials, "libraries": library_versions()})
 
 
@@ -128,7 +129,9 @@ def _labelled(nights: Sequence[Night], config: TrainingConfig, source: FeatureSo
 
 
 def train_personal(nights: Sequence[Night], *, config: TrainingConfig = TrainingConfig(),
-                   progress: Progress | None = None, feature_cache: FeatureSource | None = None) -> PersonalResult:
+                   progress: Progress | None = None, feature_cache: FeatureSource | None = None,
+                   corrected: Sequence[tuple[Night, NDArray[np.float64]]] = (),
+                   correction_weight: float = 0.5) -> PersonalResult:
     """Tune, evaluate (nested) and train a participant's personal model.
 
     Parameters
@@ -142,6 +145,13 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     feature_cache : FeatureSource, default=None
         Where night features are looked up and misses kept (:mod:`models.features.source`);
         None = a :class:`~models.features.cache.FeatureCache` for this call only.
+    corrected : sequence of (Night, ndarray of shape (n_epochs,)), default=()
+        Nights without PSG and their reviewed corrected labels (1 sleep, 0 wake, NaN not judged).
+        They join the final model's fit (and its inner tuning) with sample weight
+        ``correction_weight`` and are never held out: the held-out figures stay PSG-only.
+        ``model.info_["corrected_nights"]`` counts those used.
+    correction_weight : float, default=0.5
+        Sample weight of a corrected night's rows (a PSG night's weigh 1).
 
     Returns
     -------
@@ -155,6 +165,7 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
         overlapping copies of a night count once) or they mix epoch lengths (``mixed_epoch_lengths``).
     """
     rows = _labelled(nights, config, feature_cache)
+    extra = corrected_rows(corrected, config, weight=correction_weight, feature_cache=feature_cache)
     per_study = config.n_trials + 1
     # one entry per night (chronological), grouped by its fold group: split k holds out the k-th group
     groups = np.asarray(fold_groups([r.night for r in rows]))
@@ -169,14 +180,17 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
             what = "night" if held_idx.size == 1 else f"group of {held_idx.size} nights"
             model = _model(tune_and_fit(others, config=config, seed=seed, reporter=reporter,
                                         stage=f"personal: {what} {k + 1}/{n} held out"), others, config, seed)
-            out = [(int(i), _held_out(model, rows[i])) for i in held_idx]
+            out = [(int(i), _held_out(model, rows[i], config)) for i in held_idx]
             return out, _trial_row("+".join(h.night_id for _, h in out), model)
         return run
 
     def final_task(reporter: Reporter) -> SleepModel:
         seed = study_seed(config.seed, 0)
-        pipe = tune_and_fit(rows, config=config, seed=seed, reporter=reporter, stage="personal: final model")
-        return _model(pipe, rows, config, seed)
+        pipe = tune_and_fit([*rows, *extra], config=config, seed=seed, reporter=reporter,
+                            stage="personal: final model")
+        model = _model(pipe, [*rows, *extra], config, seed)
+        model.info_["corrected_nights"] = len(extra)
+        return model
 
     results = run_tasks([final_task, *(outer_task(k) for k in range(len(outer)))], n_jobs=config.n_jobs,
                         total=(n + 1) * per_study, progress=progress)
@@ -188,11 +202,13 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
                           summary=summary_table(night_metrics), best_params=dict(model.params_), trials=trials)
 
 
-def _held_out(model: SleepModel, held: NightRows) -> HeldOutNight:
+def _held_out(model: SleepModel, held: NightRows, config: TrainingConfig) -> HeldOutNight:
     p = model.predict_proba(held.night, features=held.features)
     return HeldOutNight(participant_id=held.night.participant_id, night_hash=held.night.content_hash,
                         label=held.night.label, method="personal", p_sleep=p, sleep=model.calls(p),
-                        reference=held.reference, in_bed=held.night.in_bed, threshold=model.threshold_)
+                        reference=held.reference, in_bed=held.night.in_bed, threshold=model.threshold_,
+                        intervals=model.intervals(p, held.night, level=config.interval_level,
+                                                  n_paths=config.interval_paths))
 
 
 def _trial_row(study: str, model: SleepModel) -> dict[str, Any]:

@@ -7,8 +7,13 @@ Hyperparameters are fixed (``TrainingConfig.pooled_params``: depth 6, learning r
 child weight 5, 80% rows and 70% features per tree, L2 1, ``class_balance`` 0.5, no PCA) rather
 than searched: with tens of thousands of rows per fold the model is far less sensitive to them
 than a personal model, and a search would multiply the cost of the largest fits. What is tuned is
-the number of trees (early stopping) and the threshold, both on *validation participants*: a
-share ``pooled_validation_share`` of each fit's training participants, held back from that fit.
+the number of trees (early stopping), the threshold and the decoding, all on *validation
+participants*: a share ``pooled_validation_share`` of each fit's training participants, held back
+from that fit. The decoding (:func:`models.decoding.fitting.fit_night_decoding`) is fitted on the
+fit model's raw predictions of the validation participants' nights (in-bed epochs, no offset),
+with the sleep/wake chain counted from the labels of the fit's training participants.
+``pooled+offset`` adds the participant's offset to the margin *before* calibration: the
+calibrated probability is ``calibrator(expit(margin + offset))``, then decoded.
 
 Evaluation is leave-participants-out (GroupKFold over participant groups, ``pooled_folds``
 folds): every participant's held-out predictions come from a fold model that never saw any of
@@ -52,6 +57,7 @@ from numpy.typing import NDArray
 from scipy.special import expit
 from sklearn.model_selection import GroupKFold, GroupShuffleSplit
 
+from ..decoding.fitting import fit_night_decoding
 from ..features.source import FeatureSource
 from ..nights.night import Night
 from .artifacts import library_versions
@@ -204,15 +210,39 @@ def _fit(rows: _Rows, train_idx: NDArray[np.intp], *, config: TrainingConfig, se
               "libraries": library_versions()})
 
 
-def _held_out(model: SleepModel, r: NightRows, descriptors: Mapping[str, float], *, method: str = "pooled",
-              offset: float = 0.0, margin: NDArray[np.float64] | None = None) -> HeldOutNight:
+def _in_bed(r: NightRows, values: NDArray[np.float64]) -> NDArray[np.float64]:
+    """A night's in-bed epochs of ``values``, NaN where the night has no training row."""
+    first, stop = r.night.in_bed
+    out = np.full(stop - first, np.nan)
+    out[r.rows - first] = values[r.rows]
+    return out
+
+
+def _with_decoding(model: SleepModel, data: Mapping[str, list[NightRows]],
+                   descriptors: Mapping[str, Mapping[str, float]], training: Sequence[str],
+                   config: TrainingConfig, seed: int) -> SleepModel:
+    """``model`` with its decoding fitted on its validation participants' nights (module docstring)."""
+    val_rows = [r for pid in model.info_["validation_participants"] for r in data[pid] if r.labelled]
+    p_raw = [_in_bed(r, model.raw_proba(r.night, descriptors=descriptors[r.night.participant_id],
+                                        features=r.features)) for r in val_rows]
+    labels = [_in_bed(r, r.reference) for r in val_rows]  # type: ignore[arg-type]
+    train = [_in_bed(r, r.reference) for pid in training for r in data[pid] if r.labelled]  # type: ignore[arg-type]
+    model.decoding_ = fit_night_decoding(p_raw, labels, train, epoch_seconds=val_rows[0].night.epoch_seconds,
+                                         decoder=config.decoder, calibration=config.calibration, seed=seed,
+                                         min_sensitivity=config.min_sensitivity)
+    return model
+
+
+def _held_out(model: SleepModel, r: NightRows, descriptors: Mapping[str, float], config: TrainingConfig, *,
+              method: str = "pooled", offset: float = 0.0, margin: NDArray[np.float64] | None = None) -> HeldOutNight:
     if margin is None:
         margin = model.decision_function(r.night, descriptors=descriptors, features=r.features)
-    p = expit(margin + offset)
+    p = model.proba_from_margin(margin + offset)
     return HeldOutNight(participant_id=r.night.participant_id, night_hash=r.night.content_hash, label=r.night.label,
                         method=method, p_sleep=p, sleep=model.calls(p),
                         reference=r.reference, in_bed=r.night.in_bed, threshold=model.threshold_, offset=offset,
-                        margin=margin)
+                        margin=margin, intervals=model.intervals(p, r.night, level=config.interval_level,
+                                                                 n_paths=config.interval_paths))
 
 
 def _margins(held: list[HeldOutNight], rows: list[NightRows], baseline: float) -> list[tuple[NDArray[np.float64],
@@ -232,14 +262,14 @@ def _by_group(pairs: list[tuple[NDArray[np.float64], NDArray[np.float64]]],
 
 def _offset_held_out(held: list[HeldOutNight], rows: list[NightRows],
                      pairs: list[tuple[NDArray[np.float64], NDArray[np.float64]]], groups: list[int],
-                     model: SleepModel, shrinkage: float) -> list[HeldOutNight]:
+                     model: SleepModel, shrinkage: float, config: TrainingConfig) -> list[HeldOutNight]:
     """``pooled+offset`` for each labelled night: offset fitted on the participant's nights outside its group."""
     out = []
     for k, (h, r) in enumerate(zip(held, rows, strict=True)):
         rest = [pair for i, pair in enumerate(pairs) if groups[i] != groups[k]]
         b = estimate_offset(np.concatenate([m for m, _ in rest]), np.concatenate([y for _, y in rest]),
                             shrinkage=shrinkage)
-        out.append(_held_out(model, r, {}, method="pooled+offset", offset=b, margin=h.margin))
+        out.append(_held_out(model, r, {}, config, method="pooled+offset", offset=b, margin=h.margin))
     return out
 
 
@@ -300,9 +330,11 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
             train_idx = np.arange(rows.y.size) if k < 0 else folds[k][0]
             training = tuple(r.night.content_hash for pid in pids for r in data[pid]
                              if k < 0 or fold_of.get(pid) != k)
-            model = _fit(rows, train_idx, config=config, seed=study_seed(config.seed, 1000 + k + 1),
-                         training_nights=training, reporter=reporter,
+            seed = study_seed(config.seed, 1000 + k + 1)
+            model = _fit(rows, train_idx, config=config, seed=seed, training_nights=training, reporter=reporter,
                          feature_names=feature_names, feature_version=feature_version)
+            model = _with_decoding(model, data, descriptors, [pid for pid in pids if k < 0 or fold_of.get(pid) != k],
+                                   config, seed)
             reporter.tick("pooled: final model" if k < 0 else f"pooled: fold {k + 1}/{n_folds}")
             return model
         return run
@@ -311,7 +343,8 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
                        progress=progress, done=len(flat))
     final, fitted = fitted[0], fitted[1:]
     final.info_["offset_rule"] = OFFSET_RULE
-    held_out = {pid: [_held_out(fitted[fold_of[pid]], r, descriptors[pid]) for r in data[pid]] for pid in pids}
+    held_out = {pid: [_held_out(fitted[fold_of[pid]], r, descriptors[pid], config) for r in data[pid]]
+                for pid in pids}
     baselines = {pid: fitted[k].offset_baseline_ for pid, k in fold_of.items()}
     pairs = {pid: _margins(held_out[pid], data[pid], baselines[pid]) for pid in pids if data[pid]}
     night_groups = {pid: fold_groups([r.night for r in data[pid]]) for pid in pairs}
@@ -324,7 +357,7 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
         return [q for q in linked if q != pid and linked[q] == linked[pid]]
 
     offset_held_out = {pid: _offset_held_out(held_out[pid], data[pid], pairs[pid], night_groups[pid],
-                                             fitted[fold_of[pid]], search.excluding(pid, linked=linked_to(pid)))
+                                             fitted[fold_of[pid]], search.excluding(pid, linked=linked_to(pid)), config)
                        for pid in pairs if len(grouped[pid]) >= 2}
     everything = [h for pid in pids for h in held_out[pid]] + [h for v in offset_held_out.values() for h in v]
     night_metrics = night_metrics_table(everything)

@@ -20,7 +20,7 @@ from ..features.source import FeatureSource
 from ..nights.night import Night
 from .config import TrainingConfig, TrainingDataError
 
-__all__ = ["NightRows", "iter_prepared", "labelled_nights", "prepare_nights", "study_seed"]
+__all__ = ["NightRows", "corrected_rows", "iter_prepared", "labelled_nights", "prepare_nights", "study_seed"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -36,12 +36,16 @@ class NightRows:
         1 sleep, 0 wake, NaN unscored.
     rows : ndarray of int
         In-bed epochs with a scored reference and present counts (empty for an unlabelled night).
+    weight : float, default=1.0
+        Sample weight of each of the night's rows: 1 for a PSG reference, less for a night whose
+        reference is a reviewed correction (:func:`corrected_rows`).
     """
 
     night: Night
     features: FeatureMatrix
     reference: NDArray[np.float64] | None
     rows: NDArray[np.intp]
+    weight: float = 1.0
 
     @property
     def labelled(self) -> bool:
@@ -90,6 +94,36 @@ def iter_prepared(nights: Sequence[Night], config: TrainingConfig, *, feature_ca
         rows = (np.zeros(0, dtype=np.intp) if ref is None
                 else first + np.flatnonzero(~np.isnan(ref[first:stop]) & ~night.missing[first:stop]))
         yield NightRows(night=night, features=features, reference=ref, rows=rows)
+
+
+def corrected_rows(corrected: Sequence[tuple[Night, NDArray[np.float64]]], config: TrainingConfig, *,
+                   weight: float, feature_cache: FeatureSource | None = None) -> list[NightRows]:
+    """Training rows of nights labelled by a reviewed correction instead of PSG.
+
+    Parameters
+    ----------
+    corrected : sequence of (Night, ndarray of shape (n_epochs,))
+        A night without PSG and its corrected labels (1 sleep, 0 wake, NaN not judged).
+    config : TrainingConfig
+    weight : float
+        Sample weight of every row of these nights, in (0, 1].
+    feature_cache : FeatureSource, default=None
+
+    Returns
+    -------
+    list of NightRows
+        Rows: the in-bed epochs with a judged label and counts; nights without any are left out.
+    """
+    nights = [n for n, _ in corrected]
+    out = []
+    source = FeatureCache() if feature_cache is None else feature_cache
+    for (night, labels), features in zip(corrected, source.features_of(nights, config.features), strict=True):
+        ref = np.asarray(labels, dtype=np.float64)
+        first, stop = night.in_bed
+        rows = first + np.flatnonzero(~np.isnan(ref[first:stop]) & ~night.missing[first:stop])
+        if rows.size:
+            out.append(NightRows(night=night, features=features, reference=ref, rows=rows, weight=float(weight)))
+    return out
 
 
 def prepare_nights(nights: Sequence[Night], config: TrainingConfig, *,

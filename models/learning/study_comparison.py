@@ -43,10 +43,12 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
+from ..agreement.bland_altman import REFERENCE
 from ..agreement.comparison import NightComparison, compare_night, comparison_tables
 from ..agreement.epoch_metrics import ALWAYS_SLEEP, always_sleep
 from ..agreement.rule_calibration import RuleCalibration, calibrate_rules
 from ..agreement.rule_comparison import NightRecord
+from ..decoding.intervals import interval_coverage
 from ..features.cache import FeatureCache
 from ..features.source import FeatureSource
 from ..nights.night import MovementTimePolicy, Night
@@ -61,10 +63,40 @@ from .rows import labelled_nights
 from .splits import fold_groups, participant_groups
 from .tasks import Progress
 
-__all__ = ["COMPARED_RULES", "StudyComparison", "compare_study", "held_out_comparison"]
+__all__ = ["COMPARED_RULES", "COVERAGE_COLUMNS", "StudyComparison", "compare_study", "held_out_comparison"]
 
 #: Classical rules in the comparison (default options).
 COMPARED_RULES: tuple[str, ...] = ("cole-kripke", "sadeh", "count-threshold")
+#: Columns of :attr:`StudyComparison.interval_coverage`.
+COVERAGE_COLUMNS: tuple[str, ...] = ("method", "parameter", "level", "coverage", "n_nights", "median_width")
+
+
+def _coverage_table(held: Sequence[tuple[str, str, Mapping[str, HeldOutNight]]],
+                    parameters: pd.DataFrame) -> pd.DataFrame:
+    """Observed against nominal coverage of the held-out intervals, per model method and parameter."""
+    reference = parameters[parameters["method"] == REFERENCE]
+    truth: dict[tuple[str, str], Mapping[Any, Any]] = {
+        (str(r["participant_id"]), str(r["night_id"])): r for r in reference.to_dict(orient="records")}
+    rows = []
+    for method in (*MODEL_METHODS, AUTO):
+        mine = [(h.intervals, truth[(pid, night_id)]) for pid, night_id, by_method in held
+                if (h := by_method.get(method)) is not None and h.intervals is not None and (pid, night_id) in truth]
+        if not mine:
+            continue
+        levels = {iv.level for iv, _ in mine}
+        for level in sorted(levels):
+            nights = [(iv, t) for iv, t in mine if iv.level == level]
+            names = list(nights[0][0].intervals)
+            cover = interval_coverage([iv.intervals for iv, _ in nights],
+                                      [{n: float(t[n]) if t[n] is not None else np.nan for n in names}
+                                       for _, t in nights], level=level)
+            for name in names:
+                widths = np.array([iv.intervals[name][1] - iv.intervals[name][0] for iv, _ in nights], dtype=float)
+                widths = widths[np.isfinite(widths)]
+                rows.append({"method": method, "parameter": name, "level": level,
+                             "coverage": cover[name]["observed"], "n_nights": int(cover[name]["n_nights"]),
+                             "median_width": float(np.median(widths)) if widths.size else np.nan})
+    return pd.DataFrame(rows, columns=list(COVERAGE_COLUMNS))
 
 
 @dataclass(frozen=True, eq=False)
@@ -97,6 +129,12 @@ class StudyComparison:
         fewer than two participant groups).
     notes : list of str
         What is missing and why (e.g. no held-out figure for a single labelled night).
+    interval_coverage : pandas.DataFrame
+        Per model method (``auto`` included) and parameter: nominal ``level``, observed
+        ``coverage`` (share of held-out nights whose reference value lies in the night's
+        interval, :func:`~models.decoding.intervals.interval_coverage`), ``n_nights`` and the
+        ``median_width`` of the intervals (parameter units). Reference values are those of
+        ``parameters``.
     """
 
     epoch_metrics: pd.DataFrame = field(repr=False)
@@ -109,6 +147,8 @@ class StudyComparison:
     notes: list[str] = field(default_factory=list)
     choices: dict[str, MethodChoice] = field(default_factory=dict, repr=False)
     calibrations: dict[str, RuleCalibration] = field(default_factory=dict, repr=False)
+    interval_coverage: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=list(COVERAGE_COLUMNS)),
+                                            repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able tables (:func:`models.records.json_records`: NaN becomes None)."""
@@ -116,7 +156,8 @@ class StudyComparison:
                 "parameters": json_records(self.parameters), "parameter_errors": json_records(self.parameter_errors),
                 "bland_altman": json_records(self.bland_altman), "shrinkage": self.pooled.shrinkage,
                 "offset_rule": self.pooled.offset_rule,
-                "rule_calibrations": {m: c.to_dict() for m, c in self.calibrations.items()}, "notes": self.notes}
+                "rule_calibrations": {m: c.to_dict() for m, c in self.calibrations.items()}, "notes": self.notes,
+                "interval_coverage": json_records(self.interval_coverage)}
 
 
 class _Stages:
@@ -247,6 +288,7 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
     records = [NightRecord.from_night(n, movement_time=config.movement_time) for pid in pids for n in labelled[pid]]
     calibrations = calibrate_rules(records, COMPARED_RULES, groups=linked, rule_options=rule_options)
     compared: list[NightComparison] = []
+    held: list[tuple[str, str, dict[str, HeldOutNight]]] = []
     choices: dict[str, MethodChoice] = {}
     for pid in pids:
         by_hash: dict[str, dict[str, HeldOutNight]] = {}
@@ -258,13 +300,15 @@ def compare_study(nights: Mapping[str, Sequence[Night]], *, config: TrainingConf
                                          movement_time=config.movement_time, rule_options=rule_options,
                                          parameter_options=parameter_options, calibrations=calibrations)
                      for night in labelled[pid]]
+        held += [(pid, night.night_id, by_hash.get(night.content_hash, {})) for night in labelled[pid]]
     tables = comparison_tables(compared)
     participants, notes = _participants(pids, nights, labelled, studies, pooled, tables.epoch_metrics, choices,
                                         calibrations, config)
     return StudyComparison(epoch_metrics=tables.epoch_metrics, parameters=tables.parameters,
                            parameter_errors=tables.parameter_errors, bland_altman=tables.bland_altman,
                            participants=participants, personal=personal, pooled=pooled, notes=notes,
-                           choices=choices, calibrations=calibrations)
+                           choices=choices, calibrations=calibrations,
+                           interval_coverage=_coverage_table(held, tables.parameters))
 
 
 def _nested(pid: str, labelled: Sequence[Night], by_hash: dict[str, dict[str, HeldOutNight]],

@@ -40,6 +40,12 @@ After the search, the best trial's configuration is refitted on all the nights w
 ``n_rounds`` = mean best iteration over its inner splits, and the threshold maximises Youden's J
 (= balanced accuracy) on its pooled inner validation predictions (scikit-learn ``roc_curve``)
 among the thresholds whose validation sensitivity reaches ``min_sensitivity``.
+
+The same inner validation predictions of the best trial, kept night by night (each night's in-bed
+epochs, NaN where a row was not predicted), fit the model's decoding
+(:func:`models.decoding.fitting.fit_night_decoding`: calibration ``config.calibration``, decoder
+``config.decoder``, interval settings), with the sleep/wake chain counted from the labels of the
+study's nights (the training nights of the model; never a held-out night).
 """
 
 from __future__ import annotations
@@ -54,6 +60,7 @@ import xgboost as xgb
 from numpy.typing import NDArray
 from sklearn.metrics import roc_auc_score
 
+from ..decoding.fitting import NightDecoding, fit_night_decoding
 from .classifier import Projection
 from .config import TrainingConfig
 from .rows import NightRows
@@ -120,6 +127,8 @@ class TunedPipeline:
         Mean inner validation AUC of the best trial.
     trials : dict
         ``n_trials``, ``n_complete``, ``n_pruned``, ``best_trial``, ``best_value``.
+    decoding : NightDecoding or None
+        Fitted on the best trial's inner validation nights.
     """
 
     booster: xgb.Booster
@@ -129,6 +138,7 @@ class TunedPipeline:
     n_rounds: int
     best_value: float
     trials: dict[str, Any] = field(default_factory=dict)
+    decoding: NightDecoding | None = None
 
 
 class _InnerData:
@@ -141,7 +151,12 @@ class _InnerData:
         # group numbers follow each group's first night in start order, so they sort chronologically
         rank = fold_groups([nights[i].night for i in order])
         groups = np.concatenate([np.full(nights[i].rows.size, rank[k]) for k, i in enumerate(order)])
+        weights = np.concatenate([np.full(nights[i].rows.size, nights[i].weight) for i in order])
+        self.w = None if np.all(weights == 1.0) else weights  # per-row sample weights (None: all 1)
         self.splits = list(ForwardChainedSplit().split(self.X, self.y, groups))
+        self.nights = [nights[i] for i in order]
+        self.night_of = np.concatenate([np.full(nights[i].rows.size, k) for k, i in enumerate(order)])
+        self.epoch_of = np.concatenate([nights[i].rows for i in order])
         self.config = config
         self._cache: dict[tuple[int, float], tuple[xgb.QuantileDMatrix, xgb.DMatrix]] = {}
 
@@ -154,9 +169,34 @@ class _InnerData:
             if pca_variance:
                 projection = Projection.fit(Xt, variance=pca_variance)
                 Xt, Xv = projection.transform(Xt), projection.transform(Xv)
-            dtrain = xgb.QuantileDMatrix(Xt, self.y[train], max_bin=self.config.max_bin, nthread=1)
+            dtrain = xgb.QuantileDMatrix(Xt, self.y[train], max_bin=self.config.max_bin, nthread=1,
+                                         weight=None if self.w is None else self.w[train])
             self._cache[key] = (dtrain, xgb.DMatrix(Xv, self.y[val], nthread=1))
         return self._cache[key]
+
+
+def _in_bed(r: NightRows, idx: NDArray[np.intp], values: NDArray[np.float64]) -> NDArray[np.float64]:
+    """A night's in-bed epochs with ``values`` at epochs ``idx`` and NaN elsewhere."""
+    first, stop = r.night.in_bed
+    out = np.full(stop - first, np.nan)
+    out[idx - first] = values
+    return out
+
+
+def _decoding(data: _InnerData, val_rows: list[NDArray[np.intp]], val_p: list[NDArray[np.float64]],
+              config: TrainingConfig, seed: int) -> NightDecoding:
+    """The decoding fitted on the inner validation nights, night by night (in-bed epochs)."""
+    idx, p = np.concatenate(val_rows), np.concatenate(val_p)
+    ps, ys = [], []
+    for k in np.unique(data.night_of[idx]):
+        mine = data.night_of[idx] == k
+        r = data.nights[int(k)]
+        ps.append(_in_bed(r, data.epoch_of[idx][mine], p[mine]))
+        ys.append(_in_bed(r, data.epoch_of[idx][mine], data.y[idx][mine]))
+    train = [_in_bed(r, r.rows, r.reference[r.rows]) for r in data.nights]  # type: ignore[index]
+    return fit_night_decoding(ps, ys, train, epoch_seconds=data.nights[0].night.epoch_seconds,
+                              decoder=config.decoder, calibration=config.calibration, seed=seed,
+                              min_sensitivity=config.min_sensitivity)
 
 
 def _auc(y: NDArray[np.float64], p: NDArray[np.float64]) -> float:
@@ -184,31 +224,32 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
     TunedPipeline
     """
     data = _InnerData(nights, config)
-    inner: dict[int, tuple[NDArray[np.float64], NDArray[np.float64], list[int]]] = {}
+    inner: dict[int, tuple[list[NDArray[np.intp]], list[NDArray[np.float64]], list[int]]] = {}
 
     def objective(trial: optuna.Trial) -> float:
         reporter.check()
         hp = suggest_hyperparameters(trial)
         aucs: list[float] = []
-        ys, ps, rounds = [], [], []
+        vals, ps, rounds = [], [], []
         for k, (train, val) in enumerate(data.splits):
             dtrain, dval = data.matrices(k, hp["pca_variance"])
             params = booster_params(hp, y=data.y[train], config=config, seed=seed)
             y_val = data.y[val]
-            dval.set_weight(np.where(y_val == 1, params["scale_pos_weight"], 1.0))
+            dval.set_weight(np.where(y_val == 1, params["scale_pos_weight"], 1.0) * (1.0 if data.w is None
+                                                                                    else data.w[val]))
             booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
                                 early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False)
             n = booster.best_iteration + 1
             p = booster.predict(dval, iteration_range=(0, n))
             aucs.append(_auc(y_val, p))
-            ys.append(y_val)
+            vals.append(val)
             ps.append(p.astype(np.float64))
             rounds.append(n)
             running = float(np.nanmean(aucs)) if np.isfinite(aucs).any() else 0.5
             trial.report(running, k)
             if trial.should_prune():
                 raise optuna.TrialPruned()
-        inner[trial.number] = (np.concatenate(ys), np.concatenate(ps), rounds)
+        inner[trial.number] = (vals, ps, rounds)
         return float(np.nanmean(aucs)) if np.isfinite(aucs).any() else 0.5
 
     optuna.logging.set_verbosity(optuna.logging.ERROR)  # errors propagate; trial logs are noise
@@ -219,13 +260,15 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
     study.enqueue_trial(dict(WARM_START))
     study.optimize(objective, n_trials=config.n_trials, callbacks=[lambda s, t: reporter.tick(stage)])
     best = study.best_trial
-    y_inner, p_inner, rounds = inner[best.number]
+    val_rows, val_p, rounds = inner[best.number]
+    y_inner, p_inner = data.y[np.concatenate(val_rows)], np.concatenate(val_p)
     n_rounds = max(1, int(round(float(np.mean(rounds)))))
     hp = dict(best.params)
     projection = Projection.fit(data.X, variance=hp["pca_variance"]) if hp["pca_variance"] else None
     X_all = data.X if projection is None else projection.transform(data.X)
     params = booster_params(hp, y=data.y, config=config, seed=seed)
-    booster = xgb.train(params, xgb.QuantileDMatrix(X_all, data.y, max_bin=config.max_bin, nthread=1), n_rounds)
+    booster = xgb.train(params, xgb.QuantileDMatrix(X_all, data.y, max_bin=config.max_bin, nthread=1,
+                                                    weight=data.w), n_rounds)
     reporter.tick(stage)
     best_value = float("nan") if best.value is None else float(best.value)
     states = [t.state for t in study.trials]
@@ -235,5 +278,5 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
     hyperparameters = hp | {"n_rounds": n_rounds, "scale_pos_weight": params["scale_pos_weight"]}
     return TunedPipeline(booster=booster, projection=projection, hyperparameters=hyperparameters,
                          threshold=youden_threshold(y_inner, p_inner, min_sensitivity=config.min_sensitivity),
-                         n_rounds=n_rounds,
-                         best_value=best_value, trials=trials)
+                         n_rounds=n_rounds, best_value=best_value, trials=trials,
+                         decoding=_decoding(data, val_rows, val_p, config, seed))

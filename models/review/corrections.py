@@ -17,7 +17,10 @@ None/NaN (not judged).
 The parameters of a review are those of the study
 (:func:`models.scoring.parameters.sleep_parameters` under its
 :class:`~models.scoring.protocol.StudyProtocol`); nothing is redefined here. Their in-bed interval
-is the span of the judged epochs unless the caller gives it.
+is the span of the judged epochs unless the caller gives it: a review with a rest interval is judged
+over it; a review without one keeps every epoch of ``base_calls``, so the caller passes the night's
+in-bed interval (``lights_off_idx`` / ``lights_on_idx``) to get the parameters over lights-off to
+lights-on.
 """
 
 from __future__ import annotations
@@ -249,7 +252,8 @@ def _cohen_kappa(a: NDArray[np.float64], b: NDArray[np.float64]) -> float:
 
 
 def review_discrepancy(labels_a: ArrayLike, labels_b: ArrayLike, *, epoch_seconds: int,
-                       protocol: StudyProtocol = DEFAULT_PROTOCOL) -> dict[str, Any]:
+                       protocol: StudyProtocol = DEFAULT_PROTOCOL, lights_off_idx: int | None = None,
+                       lights_on_idx: int | None = None) -> dict[str, Any]:
     """Where and by how much two reviews of one night differ.
 
     Parameters
@@ -258,6 +262,9 @@ def review_discrepancy(labels_a: ArrayLike, labels_b: ArrayLike, *, epoch_second
         1 sleep, 0 wake, NaN not judged.
     epoch_seconds : {15, 30, 60}
     protocol : StudyProtocol, default=DEFAULT_PROTOCOL
+    lights_off_idx, lights_on_idx : int or None, default=None
+        In-bed interval of both parameter sets (as :func:`review_parameters`); None = each review's
+        own judged span (its rest interval).
 
     Returns
     -------
@@ -266,7 +273,7 @@ def review_discrepancy(labels_a: ArrayLike, labels_b: ArrayLike, *, epoch_second
         ``epochs_judged_by_one`` (judged by one review only), ``kappa`` (Cohen's kappa over the
         compared epochs; NaN when there are none or both reviews use one same label throughout),
         ``differing_intervals`` (runs of differing epochs, end exclusive), ``parameters_a``,
-        ``parameters_b`` (:func:`review_parameters`, each over its own judged span) and
+        ``parameters_b`` (:func:`review_parameters`) and
         ``parameter_differences`` (b - a per parameter).
 
     Raises
@@ -279,8 +286,9 @@ def review_discrepancy(labels_a: ArrayLike, labels_b: ArrayLike, *, epoch_second
         raise InvalidReviewError([_problem("labels_b", f"has {b.size} epochs, labels_a {a.size}")])
     both = ~np.isnan(a) & ~np.isnan(b)
     differing = both & (a != b)
-    pa = review_parameters(a, epoch_seconds=epoch_seconds, protocol=protocol)
-    pb = review_parameters(b, epoch_seconds=epoch_seconds, protocol=protocol)
+    in_bed = {"lights_off_idx": lights_off_idx, "lights_on_idx": lights_on_idx}
+    pa = review_parameters(a, epoch_seconds=epoch_seconds, protocol=protocol, **in_bed)
+    pb = review_parameters(b, epoch_seconds=epoch_seconds, protocol=protocol, **in_bed)
     diffs = {k: float(pb[k]) - float(pa[k]) for k in pa
              if isinstance(pa[k], (int, float)) and isinstance(pb[k], (int, float)) and not k.endswith("_idx")}
     return {"epochs_compared": int(both.sum()), "epochs_differing": int(differing.sum()),

@@ -39,7 +39,7 @@ _ABS_ERROR_PER_WIDTH = float(np.sqrt(2.0 / np.pi) / (2.0 * 1.6448536))
 
 #: The evidence terms, each in minutes (qc_flags: a count), in the order reasons are built.
 EVIDENCE_TERMS: tuple[str, ...] = ("uncertainty", "sol_interval", "model_disagreement", "rule_disagreement",
-                                   "nonwear", "diary", "unusual", "qc_flags")
+                                   "wake_in_bed", "nonwear", "diary", "unusual", "qc_flags")
 
 
 @dataclass(frozen=True)
@@ -92,8 +92,18 @@ class NightEvidence:
         def bad(name: str, message: str) -> None:
             problems.append(Problem("invalid_review", f"{where}: {name} {message}", {"field": name}))
 
-        if "auto" not in self.parameters:
+        if not isinstance(self.parameters, Mapping) or "auto" not in self.parameters:
             bad("parameters", "must hold the deployed scoring under 'auto'")
+        else:
+            for method, values in self.parameters.items():
+                if not isinstance(values, Mapping):
+                    bad(f"parameters.{method}", f"must map parameter names to minutes, got {values!r}")
+        for k, item in enumerate(self.history):
+            if not isinstance(item, Mapping):
+                bad(f"history[{k}]", f"must map parameter names to minutes, got {item!r}")
+        for k, code in enumerate(self.qc_flags):
+            if not isinstance(code, str):
+                bad(f"qc_flags[{k}]", f"must be a quality-flag code, got {code!r}")
         if not _is_number(self.nonwear_share) or not 0.0 <= float(self.nonwear_share) <= 1.0:
             bad("nonwear_share", f"must be a share between 0 and 1, got {self.nonwear_share!r}")
         if self.uncertainty_min is not None and (not _is_number(self.uncertainty_min) or self.uncertainty_min < 0):
@@ -102,7 +112,8 @@ class NightEvidence:
             if not _is_number(value):
                 bad(f"diary_offsets_min.{key}", f"must be minutes, got {value!r}")
         for name, bounds in (self.intervals or {}).items():
-            if len(bounds) != 2 or not all(_is_number(b) for b in bounds):
+            if isinstance(bounds, (str, bytes)) or not isinstance(bounds, Sequence) or len(bounds) != 2 \
+                    or not all(_is_number(b) for b in bounds):
                 bad(f"intervals.{name}", f"must be [low, high], got {bounds!r}")
         if problems:
             raise InvalidReviewError(problems)
@@ -174,6 +185,17 @@ def _disagreement(e: NightEvidence, *, rules: bool) -> EvidenceFigure | None:
     reason = (f"{kind} disagree on {_SHORT[name]} by {d:.0f} min ({method} {_value(others[method], name):.0f} "
               f"vs auto {_value(auto, name):.0f})") if name else f"{kind} agree with auto"
     return EvidenceFigure("rule_disagreement" if rules else "model_disagreement", total, reason)
+
+
+def _wake_in_bed(e: NightEvidence) -> EvidenceFigure | None:
+    """Wake the deployed scoring finds in bed (SOL + WASO): count-based scoring errs most on wakeful nights."""
+    auto = e.parameters["auto"]
+    parts = [_value(auto, n) for n in ("sol_min", "waso_min")]
+    if not all(np.isfinite(parts)):
+        return None
+    total = float(sum(parts))
+    return EvidenceFigure("wake_in_bed", total, f"{total:.0f} min awake in bed (SOL {parts[0]:.0f}, WASO "
+                          f"{parts[1]:.0f}): scoring errs most on wakeful nights")
 
 
 def _rest_minutes(auto: Mapping[str, float]) -> float:
@@ -259,6 +281,8 @@ def evidence_figures(evidence: NightEvidence) -> dict[str, EvidenceFigure]:
         - ``sol_interval``: the SOL interval's width, minutes;
         - ``model_disagreement`` / ``rule_disagreement``: per TST, WASO and SOL the median over
           the other model methods (classical rules) of |method - auto|, summed, minutes;
+        - ``wake_in_bed``: SOL + WASO of the deployed scoring, minutes (wear-based scoring is
+          least specific to wake, so wakeful nights carry the largest errors; Sadeh 2011, from memory);
         - ``nonwear``: off-wrist share x time in bed, minutes;
         - ``diary``: per diary time, |offset| beyond :data:`DIARY_TOLERANCE_MIN`, summed, minutes;
         - ``unusual``: per TST, WASO and SOL, |value - the participant's median| beyond 2 robust SDs
@@ -266,6 +290,6 @@ def evidence_figures(evidence: NightEvidence) -> dict[str, EvidenceFigure]:
         - ``qc_flags``: the number of distinct quality flags.
     """
     found = (_uncertainty(evidence), _sol_interval(evidence), _disagreement(evidence, rules=False),
-             _disagreement(evidence, rules=True), _nonwear(evidence), _diary(evidence), _unusual(evidence),
-             _qc(evidence))
+             _disagreement(evidence, rules=True), _wake_in_bed(evidence), _nonwear(evidence), _diary(evidence),
+             _unusual(evidence), _qc(evidence))
     return {f.term: f for f in found if f is not None and np.isfinite(f.value)}

@@ -25,3 +25,4 @@ from . import manage as _manage  # noqa: E402, F401
 from . import profiles as _profiles  # noqa: E402, F401
 from . import recordings as _recordings  # noqa: E402, F401
 from . import protocol as _protocol  # noqa: E402, F401
+from . import reviews as _reviews  # noqa: E402, F401

@@ -54,6 +54,7 @@ from ..store.codec import encode_held_out
 from ..store.db import session_scope
 from ..store.features import load_features_of, store_features
 from ..store.metadata import FlaggedNight, HeldOutFigures, MetricSummary, ModelMetadata, Selection, TrainingNight
+from ..store.protocols import protocol_info
 from ..store.registry import (
     ParticipantInfo,
     StudyInfo,
@@ -63,6 +64,7 @@ from ..store.registry import (
     record_choice,
     study_participants,
 )
+from ..store.reviews import participant_corrections
 from .queue import JobInfo, enqueue_job
 
 __all__ = ["TRAINING_WARNING_CODES", "Compute", "check_trainable", "compute_here", "queue_training",
@@ -249,16 +251,22 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
         study = find_study(session, job.study_id)
         participant = find_participant(session, study, job.participant_id)
         nights = load_nights(session, participant=participant, labelled_only=True, include_excluded=False)
-        night_pks = _night_pks(session, study_pk=study.pk, nights=nights)
+        weight = protocol_info(session, study).correction_weight
+        corrected = [] if weight <= 0 else participant_corrections(
+            session, participant_pk=participant.pk, participant_id=participant.participant_id)
+        night_pks = _night_pks(session, study_pk=study.pk, nights=[*nights, *(n for n, _ in corrected)])
         flags = versions.night_flags(session, study_pk=study.pk, participant_pk=participant.pk,
                                       codes=TRAINING_WARNING_CODES)
     progress(0, 1, "personal: loading nights")
-    features = _training_features(factory, nights, night_pks, config=config.features, n_jobs=config.n_jobs,
-                                  progress=progress, stage="personal: night features")
-    result = compute(train_personal, {"nights": nights, "config": config, "feature_cache": features}, progress)
+    features = _training_features(factory, [*nights, *(n for n, _ in corrected)], night_pks, config=config.features,
+                                  n_jobs=config.n_jobs, progress=progress, stage="personal: night features")
+    result = compute(train_personal, {"nights": nights, "config": config, "feature_cache": features,
+                                      "corrected": corrected, "correction_weight": weight}, progress)
     booster, meta = model_to_bytes(result.model)
-    metadata = _metadata(result.model, nights, config, _summary(result.summary), flags=flags,
-                         night_metrics=tuple(_records(result.night_metrics)))
+    n_corrected = int(result.model.info_.get("corrected_nights", 0))
+    metadata = _metadata(result.model, [*nights, *(n for n, _ in corrected)], config, _summary(result.summary),
+                         flags=flags, night_metrics=tuple(_records(result.night_metrics)),
+                         corrected_nights=n_corrected, correction_weight=weight if n_corrected else None)
     with db.session_scope(factory, write=True) as session:
         _check_claim(session, job)
         study = find_study(session, job.study_id)

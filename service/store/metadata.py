@@ -179,6 +179,11 @@ class ModelMetadata(_Record):
     activation : ActivationRecord or None
         The comparison with the version active when this one was stored (None for versions stored
         without held-out night rows, or before this was recorded).
+    corrected_nights : int
+        Nights without PSG whose adjudicated corrected labels the final model was also fitted on
+        (never held out); 0 for versions stored before this was recorded.
+    correction_weight : float or None
+        The sample weight those nights' rows had (PSG rows weigh 1); None without corrected nights.
     """
 
     metrics: HeldOutFigures = Field(default_factory=HeldOutFigures)
@@ -200,6 +205,8 @@ class ModelMetadata(_Record):
     descriptors: dict[str, dict[str, float | None]] = Field(default_factory=dict)
     offset_rule: str | None = None
     activation: ActivationRecord | None = None
+    corrected_nights: int = 0
+    correction_weight: float | None = None
 
     @property
     def selection_score(self) -> float | None:

@@ -24,7 +24,10 @@ from .audit import record_audit
 from .registry import find_study
 from .snapshots import StudyInfo
 
-__all__ = ["ProtocolInfo", "protocol_info", "save_protocol", "study_protocol"]
+__all__ = ["DEFAULT_CORRECTION_WEIGHT", "ProtocolInfo", "protocol_info", "save_protocol", "study_protocol"]
+
+#: training weight of corrected labels when the study sets none (common practice: below PSG's 1)
+DEFAULT_CORRECTION_WEIGHT = 0.5
 
 
 @dataclass(frozen=True)
@@ -38,6 +41,8 @@ class ProtocolInfo:
     #: lowest held-out balanced accuracy a model may have to be chosen by ``auto`` (None: no floor beyond
     #: always-sleep's 0.5)
     model_floor: float | None = None
+    #: training weight of a night's adjudicated corrected labels, 0..1 (a PSG night's weigh 1)
+    correction_weight: float = DEFAULT_CORRECTION_WEIGHT
 
     @property
     def is_default(self) -> bool:
@@ -47,7 +52,7 @@ class ProtocolInfo:
         """The JSON answer of the protocol routes."""
         return {"study_id": self.study_id, "protocol": self.protocol.to_dict(),
                 "fingerprint": self.protocol.fingerprint(), "is_default": self.is_default,
-                "model_floor": self.model_floor,
+                "model_floor": self.model_floor, "correction_weight": self.correction_weight,
                 "updated_at": None if self.updated_at is None else self.updated_at.isoformat(),
                 "updated_by": self.updated_by}
 
@@ -58,6 +63,10 @@ def _study(session: Session, study: str | StudyInfo) -> StudyInfo:
 
 def _row(session: Session, study: StudyInfo) -> db.StudyProtocolRow | None:
     return session.scalar(select(db.StudyProtocolRow).where(db.StudyProtocolRow.study_pk == study.pk))
+
+
+def _weight(value: float | None) -> float:
+    return DEFAULT_CORRECTION_WEIGHT if value is None else float(value)
 
 
 def protocol_info(session: Session, study: str | StudyInfo) -> ProtocolInfo:
@@ -73,7 +82,7 @@ def protocol_info(session: Session, study: str | StudyInfo) -> ProtocolInfo:
     if row is None:
         return ProtocolInfo(found.study_id, DEFAULT_PROTOCOL, None, None)
     return ProtocolInfo(found.study_id, StudyProtocol.from_dict(row.body), row.updated_at, row.updated_by,
-                        row.model_floor)
+                        row.model_floor, _weight(row.correction_weight))
 
 
 def study_protocol(session: Session, study: str | StudyInfo) -> StudyProtocol:
@@ -88,7 +97,8 @@ def save_protocol(session: Session, *, study_id: str, body: Mapping[str, Any], a
     ----------
     body : mapping
         The protocol's JSON form; fields left out take their defaults. ``model_floor`` (optional,
-        a balanced accuracy in (0.5, 1), or null for none) is the study's floor for models.
+        a balanced accuracy in (0.5, 1), or null for none) is the study's floor for models;
+        ``correction_weight`` (optional, 0..1, null: 0.5) the training weight of corrected labels.
 
     Raises
     ------
@@ -103,6 +113,12 @@ def save_protocol(session: Session, *, study_id: str, body: Mapping[str, Any], a
                                        and 0.5 < floor < 1) else [
         Problem(code="invalid_protocol_field", message=f"model_floor: must be a balanced accuracy in (0.5, 1) "
                 f"or null, got {floor!r}", location={"field": "model_floor"})]
+    weight = fields.pop("correction_weight", None) if isinstance(fields, dict) else None
+    if weight is not None and not (isinstance(weight, int | float) and not isinstance(weight, bool)
+                                   and 0 <= weight <= 1):
+        problems.append(Problem(code="invalid_protocol_field", message=f"correction_weight: must be a training "
+                                f"weight between 0 and 1 or null, got {weight!r}", location={"field":
+                                                                                             "correction_weight"}))
     try:
         protocol = StudyProtocol.from_dict(fields)
     except InvalidProtocolError as exc:
@@ -114,12 +130,15 @@ def save_protocol(session: Session, *, study_id: str, body: Mapping[str, Any], a
     before = None if row is None else row.fingerprint
     if row is None:
         row = db.StudyProtocolRow(study_pk=study.pk, body=protocol.to_dict(), fingerprint=protocol.fingerprint(),
-                                  model_floor=floor, updated_at=db.utcnow(), updated_by=actor)
+                                  model_floor=floor, correction_weight=weight, updated_at=db.utcnow(),
+                                  updated_by=actor)
         session.add(row)
     else:
         row.body, row.fingerprint, row.model_floor = protocol.to_dict(), protocol.fingerprint(), floor
+        row.correction_weight = weight
         row.updated_at, row.updated_by = db.utcnow(), actor
     session.flush()
     record_audit(session, actor=actor, action="protocol.set", study_id=study_id, subject=protocol.fingerprint(),
                  detail={"previous": before or DEFAULT_PROTOCOL.fingerprint()})
-    return ProtocolInfo(study_id, protocol, row.updated_at, row.updated_by, row.model_floor)
+    return ProtocolInfo(study_id, protocol, row.updated_at, row.updated_by, row.model_floor,
+                        _weight(row.correction_weight))

@@ -27,13 +27,16 @@ from numpy.typing import ArrayLike, NDArray
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from models import Night
+
 from ..errors import Conflict
 from . import db
 from .audit import record_audit
+from .codec import night_from_row
 
 __all__ = ["REVIEWS_PER_NIGHT", "REVIEW_STATUSES", "CorrectionInfo", "ReviewInfo", "add_review", "decode_labels",
-           "encode_labels", "night_correction", "night_reviews", "review_statuses", "save_correction",
-           "study_corrections", "study_review_pairs"]
+           "encode_labels", "night_correction", "night_reviews", "participant_corrections", "review_statuses",
+           "save_correction", "study_corrections", "study_review_pairs"]
 
 REVIEWS_PER_NIGHT = 2
 REVIEW_STATUSES: tuple[str, ...] = ("open", "in_review", "reviewed", "adjudicated")
@@ -229,4 +232,25 @@ def study_review_pairs(session: Session, study_id: str) -> dict[int, tuple[str, 
                                .order_by(db.NightReview.submitted_at, db.NightReview.pk))
         for row in rows:
             out.setdefault(row.night_pk, (*nights[row.night_pk], []))[2].append(_review(row))
+    return out
+
+
+def participant_corrections(session: Session, *, participant_pk: int, participant_id: str,
+                            include_excluded: bool = False) -> list[tuple[Night, NDArray[np.float64]]]:
+    """The participant's corrected nights without PSG, in start order, each with its corrected labels.
+
+    Nights excluded from training are left out unless ``include_excluded``; a night whose labels
+    no longer match its length (never expected: nights do not change) is left out.
+    """
+    query = (select(db.Night, db.NightCorrection.labels)
+             .join(db.NightCorrection, db.NightCorrection.night_pk == db.Night.pk)
+             .where(db.Night.participant_pk == participant_pk, db.Night.labelled.is_(False))
+             .order_by(db.Night.start_utc, db.Night.pk))
+    if not include_excluded:
+        query = query.where(db.Night.excluded.is_(False))
+    out = []
+    for row, blob in session.execute(query):
+        labels = decode_labels(blob)
+        if labels.size == row.n_epochs:
+            out.append((night_from_row(row, participant_id=participant_id), labels))
     return out

@@ -117,6 +117,8 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
                         "qc_warnings": flagged.get((n.participant_id, n.night_id), [])} for n in nights],
             "flagged_nights": [n.model_dump(mode="json") for n in meta.flagged_nights],
             "feature_set_version": meta.feature_set_version,
+            "corrected_nights": meta.corrected_nights,
+            "correction_weight": meta.correction_weight,
         },
         "validation": {"scheme": _VALIDATION.get(version.kind, ""), "held_out_nights": meta.metrics.n_nights,
                        "metrics": {name: metrics[name] for name in CARD_METRICS if name in metrics},
@@ -152,6 +154,9 @@ def model_card_markdown(card: dict[str, Any]) -> str:
              "## Data used", "",
              f"- Training nights: {data['training_nights']} "
              f"(participants: {', '.join(data['participants']) or '–'})",
+             f"- Corrected nights (reviewed labels, not PSG; final fit only, never held out): "
+             f"{data.get('corrected_nights', 0)}"
+             + (f" at weight {data['correction_weight']:g}" if data.get("correction_weight") is not None else ""),
              f"- Feature set version: {data['feature_set_version'] or '–'}", ""]
     for n in data["nights"]:
         lines.append(f"  - {n['participant_id']} night {n['night_id']}" + (f" ({n['label']})" if n["label"] else "")

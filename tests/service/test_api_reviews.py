@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -215,3 +216,103 @@ def test_agreement_kappa_matches_scikit_learn(world: World) -> None:
     assert [got[key] for key in nights["unlabelled"]] == pytest.approx(expected, abs=1e-12)
     assert out["reviewer_vs_reviewer"]["kappa_mean"] == pytest.approx(float(np.mean(expected)), abs=1e-12)
     assert out["reviewers_vs_model"]["n_nights"] == 4
+
+
+@pytest.mark.slow
+def test_personal_training_fits_corrected_nights_with_the_study_weight_but_never_holds_them_out(
+        http: Any, study: str, admin: dict[str, str], settings: Any, factory: Any, make_token: Any) -> None:
+    from sqlalchemy import select
+
+    from service.jobs.queue import JobState, claim_job, finish_job
+    from service.jobs.training import run_training_job
+    from service.store import db, versions
+    from service.store.registry import find_participant, find_study
+    from service.ui.cards import model_card, model_card_markdown
+
+    psg, corrected = [], []
+    for i, body in enumerate(cohort_bodies(n_participants=1, nights=5, seed=6)["P-01"]):
+        if i >= 3:
+            body = {k: v for k, v in body.items() if k != "reference"}
+        r = http.post(NIGHTS.format(pid="P-01"), json=body, headers=admin)
+        assert r.status_code == 201, r.text
+        (psg if i < 3 else corrected).append(r.json()["night_id"])
+    for nid in corrected:
+        url = f"{_night_url('P-01', nid)}/reviews"
+        n = int(http.get(_night_url("P-01", nid), headers=admin).json()["n_epochs"])
+        first = http.post(url, json={"reviewer": "ana", "labels": _labels(n, 7)},
+                          headers={"Authorization": f"Bearer {make_token('reviewer', 's1')}"}).json()
+        http.post(url, json={"reviewer": "ben", "labels": _labels(n, 8)},
+                  headers={"Authorization": f"Bearer {make_token('reviewer', 's1')}"})
+        assert http.post(f"{url}/adjudication", json={"reviewer": "chief", "accept": first["review_id"]},
+                         headers=admin).status_code == 201
+    bad = http.put("/v1/studies/s1/protocol", json={"correction_weight": 1.5}, headers=admin)
+    assert bad.status_code == 422 and "correction_weight" in bad.text
+    assert http.get("/v1/studies/s1/protocol", headers=admin).json()["correction_weight"] == 0.5  # the default
+    assert http.put("/v1/studies/s1/protocol", json={"correction_weight": 0.3}, headers=admin).status_code == 200
+    assert http.get("/v1/studies/s1/protocol", headers=admin).json()["correction_weight"] == 0.3
+    job_id = http.post("/v1/studies/s1/participants/P-01/training", json={"n_trials": 2, "seed": 0},
+                       headers=admin).json()["job_id"]
+    job = claim_job(factory, worker_id="here", lease_s=60, max_attempts=3)
+    assert job.job_id == job_id
+    result = run_training_job(job, factory=factory, settings=settings, progress=lambda *_: None)
+    assert finish_job(factory, job_id, worker_id="here", state=JobState.succeeded, result=result)
+    with db.session_scope(factory) as session:
+        study_info = find_study(session, "s1")
+        version = versions.active_version(session, study=study_info,
+                                          participant=find_participant(session, study_info, "P-01"))
+        hashes = dict(session.execute(select(db.Night.night_id, db.Night.content_hash)).all())
+    assert version is not None
+    meta = version.metadata
+    assert meta.corrected_nights == 2 and meta.correction_weight == 0.3
+    assert meta.metrics.n_nights == 3  # held out: the PSG nights only
+    held_out_hashes = {r["night_hash"] for r in meta.night_metrics}
+    assert held_out_hashes == {hashes[nid] for nid in psg}  # corrected nights are never held out
+    assert {hashes[nid] for nid in psg + corrected} <= set(meta.training_hashes)
+    card = model_card(version, study_id="s1", participant_id="P-01")
+    assert card["data"]["corrected_nights"] == 2
+    assert "Corrected nights (reviewed labels, not PSG; final fit only, never held out): 2 at weight 0.3" \
+        in model_card_markdown(card)
+
+
+def test_queue_command_and_client_review_methods(server: Any, http: Any, study: str, admin: dict[str, str],
+                                                 make_token: Any) -> None:
+    from typer.testing import CliRunner
+
+    from service.cli import app
+    from service.client import NightbankClient
+    from service.errors import Conflict
+
+    ids = []
+    for body in cohort_bodies(n_participants=1, nights=3, seed=9)["P-01"]:
+        body = {k: v for k, v in body.items() if k != "reference"}
+        ids.append(http.post(NIGHTS.format(pid="P-01"), json=body, headers=admin).json()["night_id"])
+    reviewer_token = make_token("reviewer", study_id=study)
+    runner = CliRunner()
+    common = ["--study", study, "--server", server.url, "--token", reviewer_token]
+    listed = runner.invoke(app, ["queue", *common, "--limit", "2", "--json"])
+    assert listed.exit_code == 0, listed.output
+    items = json.loads(listed.output)
+    assert len(items) == 2 and {i["night_id"] for i in items} <= set(ids)
+    table = runner.invoke(app, ["queue", *common], terminal_width=200)
+    assert table.exit_code == 0 and "Review queue of study s1" in table.output and "not for diagnosis" in table.output
+    bad = runner.invoke(app, ["queue", *common, "--status", "done"])
+    assert bad.exit_code == 2 and "--status" in bad.output
+    with NightbankClient(server.url, token=reviewer_token) as client, \
+            NightbankClient(server.url, token=make_token("reviewer", study_id=study)) as other, \
+            NightbankClient(server.url, token=make_token("analyst", study_id=study)) as analyst:
+        assert [i["night_id"] for i in client.review_queue(study)][:2] == [i["night_id"] for i in items]
+        nid = items[0]["night_id"]
+        context = client.review_context(study, "P-01", nid)
+        n = len(context["calls"])
+        preview = client.preview_review(study, "P-01", nid, sleep_intervals=[{"start_epoch": 0, "end_epoch": n}])
+        assert preview["labels_summary"]["sleep_epochs"] == n
+        first = client.post_review(study, "P-01", nid, reviewer="ana", wake_intervals=[{"start_epoch": 0,
+                                                                                        "end_epoch": 20}])
+        with pytest.raises(Conflict):
+            client.post_review(study, "P-01", nid, reviewer="ana", labels=[1] * n)
+        other.post_review(study, "P-01", nid, reviewer="ben", labels=[1] * n, note="all asleep")
+        assert client.night_reviews(study, "P-01", nid)["discrepancy"]["epochs_compared"] > 0
+        done = analyst.adjudicate(study, "P-01", nid, adjudicator="chief", accept=first["review_id"])
+        assert done["status"] == "adjudicated"
+        assert analyst.review_agreement(study)["n_nights_reviewed"] == 1
+        assert client.review_queue(study, status="adjudicated")[0]["night_id"] == nid

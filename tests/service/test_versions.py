@@ -100,7 +100,9 @@ def test_metadata_of_rows_stored_before_reads_as_attributes(owners) -> None:
     assert json.loads(json.dumps(meta.to_json())) == {k: v for k, v in _STORED_POOLED_INFO.items()
                                                       if k != "retired_key"} | {"metrics_with_offset": None,
                                                                                 "flagged_nights": [],
-                                                                                "offset_rule": None, "activation": None}
+                                                                                "offset_rule": None, "activation": None,
+                                                                                "corrected_nights": 0,
+                                                                                "correction_weight": None}
 
 
 def test_flagged_training_nights_read_back_from_their_stored_form(owners) -> None:

@@ -46,3 +46,23 @@ def test_training_rows_leave_out_epochs_without_counts() -> None:
     blank = np.where(np.arange(40) < 10, np.nan, counts)
     only_missing_scored = Night("P", night.start, 30, blank, reference=np.array(["W"] * 10 + ["?"] * 30))
     assert labelled_nights([only_missing_scored], TrainingConfig()) == []
+
+
+def test_corrected_rows_take_the_judged_in_bed_epochs_with_the_given_weight_into_the_xgboost_matrices() -> None:
+    from models.learning.rows import corrected_rows
+    from models.learning.tuning import _InnerData
+
+    config = TrainingConfig()
+    psg = prepare_nights([_night(["W"] * 10 + ["N2"] * 30, day=d) for d in (1, 2, 3)], config,
+                         feature_cache=FeatureCache())
+    labels = np.r_[np.full(5, np.nan), np.zeros(10), np.ones(25)]
+    (corrected,) = corrected_rows([(_night(None, day=4), labels)], config, weight=0.25, feature_cache=FeatureCache())
+    assert corrected.rows.tolist() == list(range(5, 40)) and corrected.weight == 0.25
+    np.testing.assert_array_equal(corrected.reference, labels)
+    assert _InnerData(psg, config).w is None  # PSG only: no weights given to XGBoost
+    data = _InnerData([*psg, corrected], config)
+    expected = np.r_[np.ones(3 * 40), np.full(35, 0.25)]  # nights in start order, the corrected one last
+    np.testing.assert_array_equal(data.w, expected)
+    train, val = data.splits[-1]
+    dtrain, dval = data.matrices(len(data.splits) - 1, 0.0)
+    np.testing.assert_array_equal(dtrain.get_weight(), expected[train])  # read back from XGBoost itself

@@ -124,3 +124,13 @@ def test_review_discrepancy_kappa_undefined_for_one_label_throughout() -> None:
 def test_review_discrepancy_refuses_different_lengths() -> None:
     with pytest.raises(InvalidReviewError, match="labels_b"):
         review_discrepancy([1, 0], [1, 0, 1], epoch_seconds=30)
+
+
+def test_review_discrepancy_over_a_given_in_bed_interval() -> None:
+    a = np.array([0, 0, 1, 1, 1, 1, 0, 1, 1, 0], dtype=float)
+    b = np.array([0, 1, 1, 1, 0, 1, 0, 1, 1, 0], dtype=float)
+    d = review_discrepancy(a, b, epoch_seconds=60, lights_off_idx=1, lights_on_idx=9)
+    for key, labels in (("parameters_a", a), ("parameters_b", b)):
+        want = sleep_parameters(labels, 60, lights_off_idx=1, lights_on_idx=9).as_dict()
+        assert d[key]["sol_min"] == want["sol_min"] and d[key]["waso_min"] == want["waso_min"]
+    assert d["differing_intervals"] == [{"start_epoch": 1, "end_epoch": 2}, {"start_epoch": 4, "end_epoch": 5}]

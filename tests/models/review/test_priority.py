@@ -1,0 +1,112 @@
+"""The review queue: evidence terms in minutes, readable reasons, and a ranking that puts the night with a
+wide interval and disagreeing methods above a clean night, deterministically (ties by night id)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from models.review.corrections import InvalidReviewError
+from models.review.evidence import NightEvidence, evidence_figures
+from models.review.priority import DEFAULT_PRIORITY_WEIGHTS, expected_change, rank_nights
+
+AUTO = {"sol_min": 20.0, "tst_min": 400.0, "waso_min": 40.0, "awakenings": 8.0, "sleep_efficiency_pct": 87.0}
+
+
+def _clean(night_id: str, **kwargs: object) -> NightEvidence:
+    params = {"auto": AUTO, "pooled": dict(AUTO, tst_min=402.0, waso_min=39.0)}
+    base: dict[str, object] = {"parameters": params, "intervals": {"tst_min": [395.0, 405.0],
+                                                                   "waso_min": [37.0, 43.0],
+                                                                   "sol_min": [18.0, 22.0]},
+                               "uncertainty_min": 4.0}
+    return NightEvidence(night_id=night_id, participant_id="P1", epoch_seconds=30, **(base | kwargs))  # type: ignore[arg-type]
+
+
+def test_wide_interval_and_disagreement_rank_above_a_clean_night() -> None:
+    doubtful = _clean("b-doubtful", intervals={"tst_min": [340.0, 435.0], "waso_min": [20.0, 90.0],
+                                               "sol_min": [10.0, 60.0]}, uncertainty_min=45.0,
+                      parameters={"auto": AUTO, "pooled": dict(AUTO, tst_min=360.0, waso_min=90.0)})
+    ranked = rank_nights([_clean("a-clean"), doubtful, _clean("c-clean")])
+    assert [it.night_id for it in ranked] == ["b-doubtful", "a-clean", "c-clean"]  # equal priorities: by id
+    top = ranked[0]
+    assert top.expected_change_min > ranked[1].expected_change_min
+    assert top.priority == top.expected_change_min
+    assert "TST interval 95 min wide, WASO interval 70 min wide" in top.reasons
+    assert any(r.startswith("models disagree on WASO by 50 min (pooled 90 vs auto 40)") for r in top.reasons)
+
+
+def test_order_is_deterministic_whatever_the_input_order() -> None:
+    nights = [_clean(f"n{k}", diary_offsets_min={"bed_time": float(10 * k)}) for k in range(6)]
+    first = [it.night_id for it in rank_nights(nights)]
+    again = [it.night_id for it in rank_nights(list(reversed(nights)))]
+    assert first == again
+    # diary offsets beyond the 15-min tolerance raise the priority in order of their size
+    assert first[:4] == ["n5", "n4", "n3", "n2"]
+
+
+def test_expected_change_adds_weighted_terms_in_minutes() -> None:
+    e = _clean("x", nonwear_share=0.12, qc_flags=["off_wrist"], diary_offsets_min={"bed_time": 70.0})
+    item = expected_change(e)
+    w = DEFAULT_PRIORITY_WEIGHTS
+    figures = evidence_figures(e)
+    assert figures["diary"].value == 55.0  # |70| minus the 15-min tolerance
+    assert figures["nonwear"].value == pytest.approx(0.12 * 100 * 400 / 87)  # share x 100 x TST / efficiency
+    want = w["base_min"] + sum(w[t] * f.value for t, f in figures.items())
+    assert item.expected_change_min == pytest.approx(want)
+    assert "12 % of the rest period off-wrist (55 min)" in item.reasons
+    assert "diary bed time 70 min after the detected rest start" in item.reasons
+
+
+def test_unusual_night_for_the_participant() -> None:
+    history = [dict(AUTO, tst_min=t) for t in (540.0, 550.0, 555.0, 560.0)]
+    item = expected_change(_clean("x", history=history))
+    # median of the other nights 552.5; 152.5 min below it
+    assert "TST 152 min below this participant's usual" in item.reasons or \
+        "TST 153 min below this participant's usual" in item.reasons
+    assert expected_change(_clean("y", history=history[:2])).reasons == \
+        expected_change(_clean("y")).reasons  # fewer than 3 other nights: not judged
+
+
+def test_missing_uncertainty_falls_back_to_interval_widths_and_then_to_nothing() -> None:
+    with_widths = evidence_figures(_clean("x", uncertainty_min=None))
+    # E|X - median| of a normal variable per unit of 90 % interval width: sqrt(2/pi) / (2 z_0.95)
+    factor = np.sqrt(2 / np.pi) / (2 * 1.6448536)
+    assert with_widths["uncertainty"].value == pytest.approx(factor * (10.0 + 6.0))
+    bare = evidence_figures(_clean("x", uncertainty_min=None, intervals=None))
+    assert "uncertainty" not in bare and "sol_interval" not in bare
+
+
+def test_evidence_without_auto_or_with_bad_share_is_refused() -> None:
+    with pytest.raises(InvalidReviewError, match="parameters") as err:
+        NightEvidence(night_id="x", participant_id="P", epoch_seconds=30, parameters={"pooled": AUTO})
+    assert err.value.code == "invalid_review"
+    with pytest.raises(InvalidReviewError, match="nonwear_share"):
+        _clean("x", nonwear_share=1.5)
+
+
+def test_repeated_night_and_unknown_weight_are_refused() -> None:
+    with pytest.raises(InvalidReviewError, match=r"evidence\[1\].night_id"):
+        rank_nights([_clean("a"), _clean("a")])
+    with pytest.raises(InvalidReviewError, match="weights.nonsense"):
+        rank_nights([_clean("a")], weights={"nonsense": 1.0})
+    with pytest.raises(InvalidReviewError, match="weights.diary"):
+        rank_nights([_clean("a")], weights={"diary": -1.0})
+
+
+def test_wake_in_bed_is_sol_plus_waso_of_auto() -> None:
+    figures = evidence_figures(_clean("x"))
+    assert figures["wake_in_bed"].value == 60.0  # SOL 20 + WASO 40 of AUTO
+    assert figures["wake_in_bed"].reason.startswith("60 min awake in bed (SOL 20, WASO 40)")
+
+
+@pytest.mark.parametrize(("kwargs", "field"), [
+    ({"qc_flags": ["off_wrist", 3]}, "qc_flags[1]"),
+    ({"history": [AUTO, 5]}, "history[1]"),
+    ({"intervals": {"tst_min": [1.0]}}, "intervals.tst_min"),
+    ({"diary_offsets_min": {"bed_time": "late"}}, "diary_offsets_min.bed_time"),
+    ({"uncertainty_min": -1.0}, "uncertainty_min"),
+])
+def test_malformed_evidence_names_its_field(kwargs: dict, field: str) -> None:
+    with pytest.raises(InvalidReviewError) as err:
+        _clean("x", **kwargs)
+    assert [p.location["field"] for p in err.value.problems] == [field]
