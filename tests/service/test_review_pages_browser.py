@@ -254,3 +254,31 @@ def test_review_keys_n_and_p_walk_the_queue(tab, site, queued) -> None:  # noqa:
     t.page.wait_for_url(f"**/participants/{order[0][0]}/nights/{order[0][1]}/review")
     t.page.wait_for_selector("svg.review-svg")
     assert t.page.locator("#queue-previous").count() == 0  # the first night has no previous one
+
+
+def test_review_marks_can_be_typed_as_clock_times(tab, site, queued) -> None:  # noqa: F811
+    from datetime import datetime, timedelta
+
+    night_id = queued[2]
+    t = _open(tab, "reader2", night_id)
+    context = _api(site, "reader2", "GET", _night_api(night_id) + "/review-context")
+    start = datetime.fromisoformat(context["start"])
+    frm = (start + timedelta(hours=2)).replace(second=0, microsecond=0)
+    until = frm + timedelta(minutes=25)
+
+    def epoch(at: datetime) -> int:
+        return round((at - start).total_seconds() / context["epoch_seconds"])
+
+    t.page.keyboard.press("s")
+    t.page.locator("#mark-from").fill(frm.strftime("%H:%M"))
+    t.page.locator("#mark-to").fill(until.strftime("%H:%M"))
+    t.page.get_by_role("button", name="Add the mark").click()
+    t.page.wait_for_selector("#mark-list li")
+    t.page.wait_for_selector("#preview-status[data-state=done]")
+    item = t.page.locator("#mark-list li").first.inner_text()
+    assert item.startswith("sleep:") and f"epochs {epoch(frm)}–{epoch(until) - 1}" in item
+    t.page.locator("#mark-from").fill(until.strftime("%H:%M"))
+    t.page.locator("#mark-to").fill(frm.strftime("%H:%M"))
+    t.page.get_by_role("button", name="Add the mark").click()
+    assert t.page.locator("#mark-by-time-status[data-state=failed]").count() == 1
+    assert t.page.locator("#mark-list li").count() == 1

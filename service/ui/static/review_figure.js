@@ -247,6 +247,13 @@
       onMark: function (callback) { onMark = callback; },
       onHover: function (callback) { onHover = callback; },
       cancelDrag: cancel,
+      // The epoch at a clock time "HH:MM" of the recording's clock (the first such time after the start).
+      epochAtClock: function (hhmm) {
+        const m = /^(\d\d):(\d\d)/.exec(hhmm || "");
+        if (!m || t0 === null) return null;
+        const after = (((+m[1]) * 3600 + (+m[2]) * 60 - t0) % 86400 + 86400) % 86400;
+        return Math.round(after / night.epoch_seconds);
+      },
       clock: function (epoch) {
         return t0 === null ? (epoch * night.epoch_seconds / 3600).toFixed(2) + " h"
           : clock(t0 + epoch * night.epoch_seconds);

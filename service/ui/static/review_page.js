@@ -287,6 +287,20 @@
   $("undo-mark").addEventListener("click", undo);
   $("clear-marks").addEventListener("click", function () { state.marks = []; changed(); });
   $("review-form").addEventListener("submit", submit);
+  $("mark-by-time").addEventListener("submit", function (event) {
+    event.preventDefault();
+    const from = figure.epochAtClock($("mark-from").value), until = figure.epochAtClock($("mark-to").value);
+    const out = $("mark-by-time-status");
+    if (from === null || until === null || until <= from || until > figure.n_epochs) {
+      out.textContent = "Give two times inside the recording (" + figure.clock(0) + " – " +
+        figure.clock(figure.n_epochs) + "), the second after the first.";
+      out.setAttribute("data-state", "failed");
+      return;
+    }
+    out.textContent = "";
+    out.removeAttribute("data-state");
+    addMark({ start_epoch: from, end_epoch: until });
+  });
 
   document.addEventListener("keydown", function (event) {
     const target = event.target;
