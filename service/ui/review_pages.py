@@ -37,7 +37,7 @@ QUEUE_STATUSES: tuple[str, ...] = ("open", "in_review", "reviewed", "adjudicated
 QUEUE_PAGE_SIZE = 50
 #: The parameters the review page shows, in order.
 REVIEW_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
-StatusQuery = Annotated[str | None, Query(pattern="^(open|in_review|reviewed|adjudicated)$",
+StatusQuery = Annotated[str | None, Query(pattern=f"^({'|'.join(QUEUE_STATUSES)})$",
                                           description="only nights in this review state")]
 OffsetQuery = Annotated[int, Query(ge=0, le=1_000_000, description="rows skipped")]
 _NIGHT = "/studies/{study}/participants/{pid}/nights/{night_id}"
