@@ -228,7 +228,7 @@
     const needed = Number.isFinite(body.reviews_needed) ? body.reviews_needed : 0;
     // Two reviews per night: the ones submitted are those no longer needed (some may be hidden from this viewer).
     const count = needed > 0 ? Math.max(reviews.length, 2 - needed) : reviews.length;
-    let text = count === 0 ? "No review submitted yet." : plural(count, "review") + " submitted";
+    let text = count === 0 ? "No review submitted yet" : plural(count, "review") + " submitted";
     text += reviews.length ? " (" + reviews.map(function (r) {
       return (r.own ? "yours, as " : "") + r.reviewer + " at " + when(r.submitted_at); }).join("; ") + ")." : ".";
     if (needed > 0) text += " " + plural(needed, "more review") + " needed; what each reviewer marked stays hidden " +
