@@ -24,6 +24,7 @@ from models import EPOCH_METRIC_NAMES, REFERENCE
 
 from ..results import reports
 from ..results.agreement_stats import STATISTIC_PARAMETERS
+from ..results.review_agreement import study_agreement
 from ..store import protocols, registry, versions
 from ..store.db import session_scope
 from .cards import model_card
@@ -150,6 +151,7 @@ def build_report(factory: sessionmaker[Session], *, study_id: str) -> str:
         participants = [p.participant_id for p in listed]
         choices = {p.participant_id: p.choice for p in listed}
     comparison = reports.study_comparison(factory, study_id=study_id)
+    reviews = study_agreement(factory, study_id=study_id)
     methods = report_methods(comparison)
     flow = comparison.get("flow", [])
     totals = {k: sum(f[k] for f in flow) for k in ("n_nights", "n_labelled_nights", "n_unlabelled_nights",
@@ -167,7 +169,7 @@ def build_report(factory: sessionmaker[Session], *, study_id: str) -> str:
         paired_svg=_svg(draw_paired_differences, comparison["paired_differences"],
                         size_in=(7.0, 0.5 * len(comparison["paired_differences"]) + 1.0), salt="paired")
         if comparison.get("paired_differences") else None,
-        by_key=_index(comparison))
+        by_key=_index(comparison), reviews=reviews)
 
 
 def _index(comparison: dict[str, Any]) -> dict[str, dict[tuple[str, str], dict[str, Any]]]:

@@ -316,3 +316,28 @@ def test_queue_command_and_client_review_methods(server: Any, http: Any, study: 
         assert done["status"] == "adjudicated"
         assert analyst.review_agreement(study)["n_nights_reviewed"] == 1
         assert client.review_queue(study, status="adjudicated")[0]["night_id"] == nid
+
+
+def test_validation_report_has_the_reviewed_nights_section(http: Any, study: str, admin: dict[str, str],
+                                                           make_token: Any) -> None:
+    import re
+
+    from sklearn.metrics import cohen_kappa_score
+
+    bodies = cohort_bodies(n_participants=1, nights=2, seed=5)["P-01"]
+    assert http.post(NIGHTS.format(pid="P-01"), json=bodies[0], headers=admin).status_code == 201
+    nid = http.post(NIGHTS.format(pid="P-01"), json={k: v for k, v in bodies[1].items() if k != "reference"},
+                    headers=admin).json()["night_id"]
+    n = int(http.get(_night_url("P-01", nid), headers=admin).json()["n_epochs"])
+    a, b = _labels(n, 31), _labels(n, 32)
+    for name, labels in (("ana", a), ("ben", b)):
+        http.post(f"{_night_url('P-01', nid)}/reviews", json={"reviewer": name, "labels": labels},
+                  headers={"Authorization": f"Bearer {make_token('reviewer', 's1')}"})
+    page = http.get("/v1/studies/s1/report", headers=admin)
+    assert page.status_code == 200
+    section = page.text.split('<h2 id="reviews">')[1].split("<h2")[0]
+    assert "1 with both reviews in (2 reviews), 0 adjudicated" in section
+    both = [i for i in range(n) if a[i] is not None and b[i] is not None]
+    kappa = cohen_kappa_score([a[i] for i in both], [b[i] for i in both])  # scikit-learn reference
+    row = re.search(r"Reviewer vs reviewer</td><td class=\"n\">1</td><td class=\"n\">([-0-9.]+)</td>", section)
+    assert row is not None and float(row.group(1)) == pytest.approx(kappa, abs=5e-4)
