@@ -234,6 +234,21 @@ def test_review_second_reader_sees_nothing_of_the_first_until_both_are_in(tab, s
     analyst.page.wait_for_selector("#adjudication-status[data-state=stored]")
     settled = _api(site, "analyst", "GET", _night_api(night_id) + "/reviews")
     assert settled["status"] == "adjudicated" and settled["correction"]["accepted_review_id"] == a["review_id"]
+    detail = _api(site, "analyst", "GET", _night_api(night_id), params={"epochs": "true"})
+    assert detail["corrected"] == a["labels"]
+
+    # the analyst's own correction: the second review's labels with one more stretch marked sleep
+    analyst.page.select_option("#base-choice", "review-b")
+    fix = (b_start, b_start + 20)
+    analyst.page.locator('input[name="mark-mode"][value="sleep"]').check()  # the keys go to the focused list
+    _drag(analyst, fix[0], fix[1] - 1, n)
+    expected = [1 if fix[0] <= i < fix[1] else v for i, v in enumerate(b["labels"])]
+    preview = _api(site, "analyst", "POST", _night_api(night_id) + "/reviews/preview", json={"labels": expected})
+    assert _shown(analyst) == _expected(preview["parameters"])
+    analyst.page.get_by_role("button", name="Store my marks as the correction").click()
+    analyst.page.wait_for_selector("#adjudication-status[data-state=stored]")
+    detail = _api(site, "analyst", "GET", _night_api(night_id), params={"epochs": "true"})
+    assert detail["corrected"] == expected and detail["correction"]["adjudicated_by"]
 
 
 def test_review_keys_n_and_p_walk_the_queue(tab, site, queued) -> None:  # noqa: F811
