@@ -28,13 +28,15 @@ from .pages import NightIdPath, ParticipantPath, study_info
 from .review_bridge import api_error, call_api
 from .templating import is_simulated, page
 
-__all__ = ["FORM_TOKEN_HEADER", "QUEUE_PAGE_SIZE", "QUEUE_STATUSES", "REVIEW_PARAMETERS", "router"]
+__all__ = ["FORM_TOKEN_HEADER", "QUEUE_PAGE_SIZE", "QUEUE_STATUSES", "REVIEWER_NAME_MAX", "REVIEW_PARAMETERS", "router"]
 
 router = APIRouter()
 #: Header in which the review page's script sends the session's form token with each POST.
 FORM_TOKEN_HEADER = "X-Form-Token"
 QUEUE_STATUSES: tuple[str, ...] = ("open", "in_review", "reviewed", "adjudicated")
 QUEUE_PAGE_SIZE = 50
+#: Longest reviewer name the service accepts.
+REVIEWER_NAME_MAX = 64
 #: The parameters the review page shows, in order.
 REVIEW_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
 StatusQuery = Annotated[str | None, Query(pattern=f"^({'|'.join(QUEUE_STATUSES)})$",
@@ -63,7 +65,7 @@ def _night_and_name(factory: sessionmaker[Session], access: PageAccess, pid: str
         info = registry.get_night(session, study_id=access.study_id, participant_id=pid, night_id=night_id)
         labels = [t.label for t in list_tokens(session, study_id=access.principal.study_id)
                   if t.token_id == access.principal.token_id]
-    return info, (labels[0] if labels and labels[0] else access.principal.token_id)
+    return info, (labels[0] if labels and labels[0] else access.principal.token_id).strip()[:REVIEWER_NAME_MAX]
 
 
 def _queue_query(status: str | None, offset: int) -> str:
@@ -109,6 +111,7 @@ async def review_night_page(request: Request, access: StudyPage, pid: Participan
     return page(request, "review_night.html", principal=access.principal, pid=pid, info=info,
                 night_name=info.label or info.night_id, review=review, reviewer=reviewer, here=here,
                 neighbours=neighbours, parameters=REVIEW_PARAMETERS, form_token_header=FORM_TOKEN_HEADER,
+                name_max=REVIEWER_NAME_MAX,
                 queue_url=f"{UI_PREFIX}/studies/{access.study_id}/review", **context)
 
 

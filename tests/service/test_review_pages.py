@@ -108,8 +108,11 @@ def test_queue_page_needs_sign_in_the_reviewer_role_and_the_study(browser_like, 
     with httpx.Client(base_url=server.url, timeout=30) as anonymous:
         r = anonymous.get(f"/ui/studies/{study}/review")
     assert r.status_code == 303 and r.headers["location"].startswith("/ui/signin?next=")
-    ingest = browser_like("ingest").get(f"/ui/studies/{study}/review")
+    ingest_client = browser_like("ingest")
+    ingest = ingest_client.get(f"/ui/studies/{study}/review")
     assert ingest.status_code == 403 and "reviewer" in unescape(ingest.text)
+    night_id, pid = next(iter(nights["unlabelled"].items()))
+    assert ingest_client.get(_review_path(study, pid, night_id)).status_code == 403
     assert browser_like("admin", study_id="other").get(f"/ui/studies/{study}/review").status_code == 404
 
 
