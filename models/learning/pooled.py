@@ -66,7 +66,7 @@ from .config import POOLED_PARAMS, TrainingConfig, TrainingDataError
 from .descriptors import DESCRIPTOR_NAMES, participant_descriptors
 from .held_out import HeldOutNight, night_metrics_table, summary_table
 from .offset import ShrinkageChoice, choose_shrinkage, estimate_offset
-from .rows import NightRows, iter_prepared, labelled_nights, study_seed
+from .rows import NightRows, corrected_rows, iter_prepared, labelled_nights, study_seed
 from .splits import fold_groups, participant_groups
 from .tasks import Progress, Reporter, run_tasks
 from .threshold import youden_threshold
@@ -143,7 +143,7 @@ class _Rows:
     def __init__(self, data: Mapping[str, list[NightRows]], descriptors: Mapping[str, Mapping[str, float]],
                  linked: Mapping[str, int]) -> None:
         self.participants = [pid for pid, rows in data.items() if any(r.labelled for r in rows)]
-        blocks, ys, owners, groups = [], [], [], []
+        blocks, ys, owners, groups, weights = [], [], [], [], []
         for k, pid in enumerate(self.participants):
             desc = np.array([descriptors[pid][n] for n in DESCRIPTOR_NAMES], dtype=np.float32)
             for r in data[pid]:
@@ -153,6 +153,9 @@ class _Rows:
                     ys.append(r.reference[r.rows])  # type: ignore[index]
                     owners.append(np.full(r.rows.size, k))
                     groups.append(np.full(r.rows.size, linked[pid]))
+                    weights.append(np.full(r.rows.size, r.weight))
+        w = np.concatenate(weights)
+        self.w = None if np.all(w == 1.0) else w  # per-row sample weights (None: all 1)
         self.X = np.vstack(blocks)
         self.y = np.concatenate(ys)
         self.owners = np.concatenate(owners)
@@ -186,11 +189,12 @@ def _fit(rows: _Rows, train_idx: NDArray[np.intp], *, config: TrainingConfig, se
     fit_idx = _at_most(train_idx[fit_pos], config.pooled_max_rows, rng)
     val_idx = _at_most(train_idx[val_pos], config.pooled_max_rows // 2, rng)
     params = booster_params(hp, y=rows.y[fit_idx], config=config, seed=seed)
-    dtrain = xgb.QuantileDMatrix(rows.X[fit_idx], rows.y[fit_idx], max_bin=config.max_bin, nthread=1)
+    dtrain = xgb.QuantileDMatrix(rows.X[fit_idx], rows.y[fit_idx], max_bin=config.max_bin, nthread=1,
+                                 weight=None if rows.w is None else rows.w[fit_idx])
     y_val = rows.y[val_idx]
     # a plain DMatrix: XGBoost evaluates it incrementally, a QuantileDMatrix validation set ~10x slower
-    dval = xgb.DMatrix(rows.X[val_idx], y_val, weight=np.where(y_val == 1, params["scale_pos_weight"], 1.0),
-                       nthread=1)
+    dval = xgb.DMatrix(rows.X[val_idx], y_val, weight=np.where(y_val == 1, params["scale_pos_weight"], 1.0)
+                       * (1.0 if rows.w is None else rows.w[val_idx]), nthread=1)
     booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
                         early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False,
                         callbacks=[_CancelCallback(reporter)])
@@ -274,7 +278,9 @@ def _offset_held_out(held: list[HeldOutNight], rows: list[NightRows],
 
 
 def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfig = TrainingConfig(),
-                 progress: Progress | None = None, feature_cache: FeatureSource | None = None) -> PooledResult:
+                 progress: Progress | None = None, feature_cache: FeatureSource | None = None,
+                 corrected: Mapping[str, Sequence[tuple[Night, NDArray[np.float64]]]] | None = None,
+                 correction_weight: float = 0.5) -> PooledResult:
     """Train the pooled model, evaluate it leave-participants-out and estimate participant offsets.
 
     Parameters
@@ -289,6 +295,13 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     feature_cache : FeatureSource, default=None
         Where night features are looked up and misses kept (:mod:`models.features.source`);
         None = a :class:`~models.features.cache.FeatureCache` for this call only.
+    corrected : mapping of str to sequence of (Night, ndarray of shape (n_epochs,)), optional
+        Participant id -> nights without PSG and their reviewed corrected labels. Those of
+        participants with labelled nights join the final model's fit (rows weighted
+        ``correction_weight``); the folds never see them, so the held-out figures stay PSG-only.
+        ``model.info_["corrected_nights"]`` counts those used.
+    correction_weight : float, default=0.5
+        Sample weight of a corrected night's rows (a PSG night's weigh 1).
 
     Returns
     -------
@@ -321,18 +334,23 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
             progress(done, total, "pooled: features")
     prepared = [r for pid in pids for r in data[pid]]
     rows = _Rows(data, descriptors, linked)
+    extra = {pid: corrected_rows(list((corrected or {}).get(pid, ())), config, weight=correction_weight,
+                                 feature_cache=feature_cache) for pid in pids if pid in linked}
+    n_extra = sum(len(v) for v in extra.values())
+    final_rows = _Rows({pid: data[pid] + extra.get(pid, []) for pid in pids}, descriptors, linked) if n_extra else rows
     feature_names, feature_version = tuple(prepared[0].features.names), prepared[0].features.version
     folds = list(GroupKFold(n_splits=n_folds).split(rows.X, rows.y, rows.groups))
     fold_of = {rows.participants[o]: k for k, (_, test) in enumerate(folds) for o in np.unique(rows.owners[test])}
 
     def fit_task(k: int) -> Any:
         def run(reporter: Reporter) -> SleepModel:
-            train_idx = np.arange(rows.y.size) if k < 0 else folds[k][0]
-            training = tuple(r.night.content_hash for pid in pids for r in data[pid]
-                             if k < 0 or fold_of.get(pid) != k)
+            train_idx = np.arange(final_rows.y.size) if k < 0 else folds[k][0]
+            used = {pid: data[pid] + extra.get(pid, []) if k < 0 else data[pid] for pid in pids}
+            training = tuple(r.night.content_hash for pid in pids for r in used[pid] if k < 0 or fold_of.get(pid) != k)
             seed = study_seed(config.seed, 1000 + k + 1)
-            model = _fit(rows, train_idx, config=config, seed=seed, training_nights=training, reporter=reporter,
-                         feature_names=feature_names, feature_version=feature_version)
+            model = _fit(final_rows if k < 0 else rows, train_idx, config=config, seed=seed,
+                         training_nights=training, reporter=reporter, feature_names=feature_names,
+                         feature_version=feature_version)
             model = _with_decoding(model, data, descriptors, [pid for pid in pids if k < 0 or fold_of.get(pid) != k],
                                    config, seed)
             reporter.tick("pooled: final model" if k < 0 else f"pooled: fold {k + 1}/{n_folds}")
@@ -343,6 +361,7 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
                        progress=progress, done=len(flat))
     final, fitted = fitted[0], fitted[1:]
     final.info_["offset_rule"] = OFFSET_RULE
+    final.info_["corrected_nights"] = n_extra
     held_out = {pid: [_held_out(fitted[fold_of[pid]], r, descriptors[pid], config) for r in data[pid]]
                 for pid in pids}
     baselines = {pid: fitted[k].offset_baseline_ for pid, k in fold_of.items()}

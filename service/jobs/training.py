@@ -64,7 +64,7 @@ from ..store.registry import (
     record_choice,
     study_participants,
 )
-from ..store.reviews import participant_corrections
+from ..store.reviews import corrections_by_participant, participant_corrections
 from .queue import JobInfo, enqueue_job
 
 __all__ = ["TRAINING_WARNING_CODES", "Compute", "check_trainable", "compute_here", "queue_training",
@@ -288,14 +288,19 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
                   for p in study_participants(session, study=study)}
         by_participant = {pid: nights for pid, nights in loaded.items() if nights}
         labelled = [n for nights in by_participant.values() for n in nights if n.reference is not None]
-        night_pks = _night_pks(session, study_pk=study.pk, nights=labelled)
+        weight = protocol_info(session, study).correction_weight
+        corrected = {} if weight <= 0 else corrections_by_participant(session, study_participants(session, study=study))
+        corrected_nights = [n for pairs in corrected.values() for n, _ in pairs]
+        night_pks = _night_pks(session, study_pk=study.pk, nights=[*labelled, *corrected_nights])
         flags = versions.night_flags(session, study_pk=study.pk, codes=TRAINING_WARNING_CODES)
     progress(0, 1, "pooled: loading nights")
-    features = _training_features(factory, labelled, night_pks, config=config.features, n_jobs=config.n_jobs,
-                                  progress=progress, stage="pooled: night features")
-    result = compute(train_pooled, {"nights": by_participant, "config": config, "feature_cache": features}, progress)
+    features = _training_features(factory, [*labelled, *corrected_nights], night_pks, config=config.features,
+                                  n_jobs=config.n_jobs, progress=progress, stage="pooled: night features")
+    result = compute(train_pooled, {"nights": by_participant, "config": config, "feature_cache": features,
+                                    "corrected": corrected, "correction_weight": weight}, progress)
     booster, meta = model_to_bytes(result.model)
     all_nights = [n for nights in by_participant.values() for n in nights]
+    n_corrected = int(result.model.info_.get("corrected_nights", 0))
     held = result.night_metrics
     by_method = set(result.summary.index.get_level_values(0))
     metadata = _metadata(
@@ -305,7 +310,8 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
         offsets={pid: float(v) for pid, v in result.offsets.items()}, offset_shrinkage=float(result.shrinkage),
         offset_rule=result.offset_rule,
         descriptors={pid: {k: _finite(v) for k, v in d.items()} for pid, d in result.descriptors.items()},
-        night_metrics=tuple(_records(held)))
+        night_metrics=tuple(_records(held)), corrected_nights=n_corrected,
+        correction_weight=weight if n_corrected else None)
     held_out = [h for rows in result.held_out.values() for h in rows]
     held_out += [h for rows in result.offset_held_out.values() for h in rows]
     with db.session_scope(factory, write=True) as session:

@@ -33,8 +33,10 @@ from ..errors import Conflict
 from . import db
 from .audit import record_audit
 from .codec import night_from_row
+from .snapshots import ParticipantInfo
 
-__all__ = ["REVIEWS_PER_NIGHT", "REVIEW_STATUSES", "CorrectionInfo", "ReviewInfo", "add_review", "decode_labels",
+__all__ = ["REVIEWS_PER_NIGHT", "REVIEW_STATUSES", "CorrectionInfo", "ReviewInfo", "add_review",
+           "corrections_by_participant", "decode_labels",
            "encode_labels", "night_correction", "night_reviews", "participant_corrections", "review_statuses",
            "save_correction", "study_corrections", "study_review_pairs"]
 
@@ -253,4 +255,15 @@ def participant_corrections(session: Session, *, participant_pk: int, participan
         labels = decode_labels(blob)
         if labels.size == row.n_epochs:
             out.append((night_from_row(row, participant_id=participant_id), labels))
+    return out
+
+
+def corrections_by_participant(session: Session, participants: Iterable[ParticipantInfo]
+                               ) -> dict[str, list[tuple[Night, NDArray[np.float64]]]]:
+    """:func:`participant_corrections` of each participant that has any, by participant id."""
+    out = {}
+    for p in participants:
+        found = participant_corrections(session, participant_pk=p.pk, participant_id=p.participant_id)
+        if found:
+            out[p.participant_id] = found
     return out

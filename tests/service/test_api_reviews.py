@@ -341,3 +341,44 @@ def test_validation_report_has_the_reviewed_nights_section(http: Any, study: str
     kappa = cohen_kappa_score([a[i] for i in both], [b[i] for i in both])  # scikit-learn reference
     row = re.search(r"Reviewer vs reviewer</td><td class=\"n\">1</td><td class=\"n\">([-0-9.]+)</td>", section)
     assert row is not None and float(row.group(1)) == pytest.approx(kappa, abs=5e-4)
+
+
+@pytest.mark.slow
+def test_pooled_training_fits_corrected_nights_in_the_final_model_only(
+        http: Any, study: str, admin: dict[str, str], settings: Any, factory: Any, make_token: Any) -> None:
+    from sqlalchemy import select
+
+    from service.jobs.queue import JobState, claim_job, finish_job
+    from service.jobs.training import run_training_job
+    from service.store import db, versions
+    from service.store.registry import find_study
+
+    psg, corrected = [], []
+    for pid, bodies in cohort_bodies(n_participants=3, nights=3, seed=12).items():
+        for i, body in enumerate(bodies):
+            if pid == "P-01" and i == 2:
+                body = {k: v for k, v in body.items() if k != "reference"}
+            r = http.post(NIGHTS.format(pid=pid), json=body, headers=admin)
+            (corrected if pid == "P-01" and i == 2 else psg).append(r.json()["night_id"])
+    nid = corrected[0]
+    url = f"{_night_url('P-01', nid)}/reviews"
+    n = int(http.get(_night_url("P-01", nid), headers=admin).json()["n_epochs"])
+    first = http.post(url, json={"reviewer": "ana", "labels": _labels(n, 3)},
+                      headers={"Authorization": f"Bearer {make_token('reviewer', 's1')}"}).json()
+    http.post(url, json={"reviewer": "ben", "labels": _labels(n, 4)},
+              headers={"Authorization": f"Bearer {make_token('reviewer', 's1')}"})
+    assert http.post(f"{url}/adjudication", json={"reviewer": "chief", "accept": first["review_id"]},
+                     headers=admin).status_code == 201
+    job_id = http.post("/v1/studies/s1/pooled/training", headers=admin).json()["job_id"]
+    job = claim_job(factory, worker_id="here", lease_s=60, max_attempts=3)
+    assert job.job_id == job_id
+    result = run_training_job(job, factory=factory, settings=settings, progress=lambda *_: None)
+    assert finish_job(factory, job_id, worker_id="here", state=JobState.succeeded, result=result)
+    with db.session_scope(factory) as session:
+        version = versions.active_version(session, study=find_study(session, "s1"), participant=None)
+        hashes = dict(session.execute(select(db.Night.night_id, db.Night.content_hash)).all())
+    assert version is not None
+    meta = version.metadata
+    assert meta.corrected_nights == 1 and meta.correction_weight == 0.5  # the study's default weight
+    assert {r["night_hash"] for r in meta.night_metrics} == {hashes[i] for i in psg}  # held out: PSG only
+    assert hashes[nid] in meta.training_hashes
