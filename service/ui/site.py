@@ -22,7 +22,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from models import NightbankError
 
 from ..config import Settings
-from . import actions, downloads, pages, recording_view
+from . import actions, downloads, pages, recording_view, review_pages
 from .access import UI_PREFIX, SignInRequired, page_principal_or_none
 from .templating import page
 
@@ -79,8 +79,9 @@ def _ui_app(settings: Settings, parent: FastAPI) -> FastAPI:
     ui = FastAPI(title="nightbank pages", openapi_url=None, docs_url=None, redoc_url=None)
     ui.state.settings = settings
     ui.state.factory = parent.state.factory
+    ui.state.api = parent  # the review pages pass their requests on to the API (review_bridge)
     ui.mount("/static", StaticFiles(directory=Path(__file__).parent / "static"), name="static")
-    for router in (pages.router, actions.router, downloads.router, recording_view.router):
+    for router in (pages.router, actions.router, downloads.router, recording_view.router, review_pages.router):
         ui.include_router(router)
     ui.add_exception_handler(SignInRequired, _sign_in_required)
     ui.add_exception_handler(NightbankError, _nightbank_error)

@@ -147,7 +147,7 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Site]:
     url = f"http://127.0.0.1:{settings.port}"
     try:
         with httpx.Client(base_url=url, timeout=120) as http:
-            wait_for(lambda: _healthy(http, server, folder), timeout_s=30, poll_s=0.1)
+            wait_for(lambda: _healthy(http, server, folder), timeout_s=120, poll_s=0.1)
             admin = bearer(tokens["admin"])
             night_ids = _load_demo_subset(http, admin)
             _train(http, admin, f"/v1/studies/{STUDY}/pooled/training")
