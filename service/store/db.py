@@ -22,6 +22,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from ..config import Settings
 from ..errors import StorageError
+from .review_tables import NightCorrection, NightReview
 from .tables import (
     AuditEntry,
     Base,
@@ -29,9 +30,7 @@ from .tables import (
     Job,
     ModelVersion,
     Night,
-    NightCorrection,
     NightFeatures,
-    NightReview,
     Participant,
     PooledFoldModel,
     RecordingRow,
