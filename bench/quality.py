@@ -260,6 +260,7 @@ def _without_time_context() -> None:
 
 
 def main(argv: list[str]) -> None:
+    sys.stdout.reconfigure(line_buffering=True)  # type: ignore[attr-defined]  # progress lines show in a log
     ablation = "--without-time-context" in argv
     if ablation:
         _without_time_context()
