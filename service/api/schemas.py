@@ -195,7 +195,7 @@ class NightDetailOut(NightOut):
         "0 wake, null not judged), null without a correction; never a PSG reference")
     correction: dict[str, Any] | None = Field(
         default=None, description="who adjudicated the correction, from which reviewers, when, and the scoring "
-        "shown (adjudicated_by, reviewers, adjudicated_at, model_version_shown); null without one")
+        "shown (adjudicated_by, reviewers, adjudicated_at, model_version_shown); absent without one")
 
 
 class NightPatch(_Strict):

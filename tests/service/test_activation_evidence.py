@@ -84,6 +84,8 @@ def test_second_version_records_the_paired_comparison_and_its_fresh_nights(http,
     assert card["validation"]["activation"] == {k: second[k] for k in card["validation"]["activation"]}
     assert card["validation"]["selection_figures"].startswith("selection figures")
     assert "### Activation" in markdown and "| not used to decide | 1 |" in markdown
-    # the validation report's model card says it beside the held-out figures
+    # the validation report shows the active models' cards: version 2's says it beside the held-out
+    # figures when the paired comparison activated it, and is absent otherwise
     report = http.get(f"/v1/studies/{study}/report", headers=admin)
-    assert report.status_code == 200 and card["validation"]["selection_figures"] in report.text
+    assert report.status_code == 200
+    assert (card["validation"]["selection_figures"] in report.text) is promoted

@@ -97,7 +97,12 @@ def _direct_intervals(world, pid: str, k: int, *, protocol=None):
     protocol = protocol or DEFAULT_PROTOCOL
     model, version = _stored_model(world, pid)
     night = night_from_json(world.bodies[pid][k])
-    p_sleep = model.predict_proba(night)
+    # a personal model continued from the pooled one reads the participant's descriptors as stored with it
+    descriptors = (version.metadata.descriptors.get(pid) or model.info_.get("descriptors")) if model.descriptor_names_ \
+        else None
+    if descriptors is not None:
+        descriptors = {k: math.nan if v is None else v for k, v in descriptors.items()}
+    p_sleep = model.predict_proba(night, descriptors=descriptors)
     found = model.intervals(p_sleep, night, level=protocol.interval_level, n_paths=INTERVAL_PATHS,
                             seed=interval_seed(world.ids[pid][k], version.uid), protocol=protocol)
     return found, model, p_sleep

@@ -485,7 +485,11 @@ def test_a_participant_renamed_or_merged_keeps_its_recording_and_nights(sqlite_w
     first, second = simulated(3, seed=53, n_participants=2, psg_nights=0)
     for sim in (first, second):
         assert post_recording(http, sim).status_code == 201
-    merged = http.post(f"/v1/studies/{STUDY}/participants/P-02/rename", json={"to": "P-01"})
+    rename = f"/v1/studies/{STUDY}/participants/P-02/rename"
+    # the two simulated wearers' recordings cover the same dates: their nights overlap in clock time
+    refused = http.post(rename, json={"to": "P-01"})
+    assert refused.status_code == 409 and refused.json()["code"] == "overlapping_night"
+    merged = http.post(rename, params={"allow_overlap": "true"}, json={"to": "P-01"})
     assert merged.status_code == 200, merged.text
     listed = http.get(recordings_url("P-01")).json()
     assert listed["count"] == 2

@@ -215,12 +215,17 @@ def get_night(access: Annotated[StudyAccess, Depends(study_access(Role.ingest))]
     provenance = None if correction is None else correction.provenance()
     if not epochs:
         return NightDetailOut(**vars(registry.get_night(session, study_id=access.study_id, participant_id=pid,
-                                                        night_id=night_id)), correction=provenance)
+                                                        night_id=night_id)), **_correction(provenance))
     info, night = registry.load_night(session, study_id=access.study_id, participant_id=pid, night_id=night_id)
     return NightDetailOut(**vars(info), counts=_json_counts(night.counts),
                           reference=None if night.reference is None else night.reference.tolist(),
                           corrected=None if correction is None else labels_list(correction.labels),
-                          correction=provenance)
+                          **_correction(provenance))
+
+
+def _correction(provenance: Any) -> dict[str, Any]:
+    """``correction`` only for a corrected night, so an uncorrected night reads as the PATCH answer does."""
+    return {} if provenance is None else {"correction": provenance}
 
 
 @router.patch("/{night_id}", response_model=NightOut)
