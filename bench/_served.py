@@ -42,6 +42,21 @@ def free_port() -> int:
         return int(s.getsockname()[1])
 
 
+def _wait_until_up(server: subprocess.Popen[bytes], url: str, *, what: str, timeout_s: float,
+                   headers: dict[str, str] | None = None) -> None:
+    """Poll ``url`` until it answers 200; RuntimeError if ``server`` exits or ``timeout_s`` passes first."""
+    deadline = time.monotonic() + timeout_s
+    while True:
+        try:
+            if httpx.get(url, headers=headers, timeout=5).status_code == 200:
+                return
+        except httpx.TransportError:
+            pass
+        if time.monotonic() > deadline or server.poll() is not None:
+            raise RuntimeError(f"{what} did not start")
+        time.sleep(0.2)
+
+
 @contextmanager
 def served(prefix: str, *, workers: int, job_workers: int, start_timeout_s: float = 300) -> Iterator[Instance]:
     """Migrate a fresh database, create an admin token, serve it; stop and remove everything afterwards."""
@@ -59,16 +74,7 @@ def served(prefix: str, *, workers: int, job_workers: int, start_timeout_s: floa
     instance = Instance(base=f"http://127.0.0.1:{port}", headers={"Authorization": f"Bearer {token}"},
                         db_path=db_path)
     try:
-        deadline = time.monotonic() + start_timeout_s
-        while True:
-            try:
-                if httpx.get(f"{instance.base}/healthz", timeout=5).status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            if time.monotonic() > deadline or server.poll() is not None:
-                raise RuntimeError("the server did not start")
-            time.sleep(0.2)
+        _wait_until_up(server, f"{instance.base}/healthz", what="the server", timeout_s=start_timeout_s)
         yield instance
     finally:
         server.terminate()
@@ -121,17 +127,8 @@ def served_bare(prefix: str, *, body: bytes, token: str, workers: int,
     instance = Instance(base=f"http://127.0.0.1:{port}", headers={"Authorization": f"Bearer {token}"},
                         db_path=workdir / "none")
     try:
-        deadline = time.monotonic() + start_timeout_s
-        probe = "/v1/studies/s/participants/p/nights/n/scoring"
-        while True:
-            try:
-                if httpx.get(instance.base + probe, headers=instance.headers, timeout=5).status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            if time.monotonic() > deadline or server.poll() is not None:
-                raise RuntimeError("the bare server did not start")
-            time.sleep(0.2)
+        _wait_until_up(server, instance.base + "/v1/studies/s/participants/p/nights/n/scoring", what="the bare server",
+                       timeout_s=start_timeout_s, headers=instance.headers)
         yield instance
     finally:
         server.terminate()

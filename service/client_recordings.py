@@ -3,12 +3,11 @@
 from __future__ import annotations
 
 import json
-from collections.abc import Iterator, Mapping
+from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
-import httpx
-
+from .client_base import ClientCalls
 from .errors import BadRequest
 
 __all__ = ["RecordingMethods"]
@@ -27,18 +26,8 @@ def _format(path: Path, allowed: tuple[str, ...]) -> str:
     return fmt
 
 
-class RecordingMethods:
+class RecordingMethods(ClientCalls):
     """Recordings, diaries, PSG references and day tables (mixed into the client)."""
-
-    def _request(self, method: str, url: str, **kwargs: Any) -> httpx.Response:  # provided by the client
-        raise NotImplementedError
-
-    def _json(self, method: str, url: str, **kwargs: Any) -> Any:
-        raise NotImplementedError
-
-    def _pages(self, url: str, page_size: int = 500, params: Mapping[str, Any] | None = None
-               ) -> Iterator[dict[str, Any]]:
-        raise NotImplementedError
 
     @staticmethod
     def _recordings_url(study: str, participant: str, recording_id: str | None = None) -> str:

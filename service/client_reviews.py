@@ -3,10 +3,10 @@ queue, a night's reviews, previews, adjudication, the review context and the stu
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any
 
-import httpx
+from .client_base import ClientCalls
 
 __all__ = ["ReviewMethods"]
 
@@ -26,18 +26,8 @@ def _review_body(reviewer: str | None, *, wake_intervals: Sequence[Mapping[str, 
     return body
 
 
-class ReviewMethods:
+class ReviewMethods(ClientCalls):
     """The review queue and blind double review of nights without PSG (mixed into the client)."""
-
-    def _request(self, method: str, url: str, **kwargs: Any) -> httpx.Response:  # provided by the client
-        raise NotImplementedError
-
-    def _json(self, method: str, url: str, **kwargs: Any) -> Any:
-        raise NotImplementedError
-
-    def _pages(self, url: str, page_size: int = 500, params: Mapping[str, Any] | None = None
-               ) -> Iterator[dict[str, Any]]:
-        raise NotImplementedError
 
     def _night_url(self, study: str, participant: str, night_id: str) -> str:  # provided by the client
         raise NotImplementedError
