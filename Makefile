@@ -21,8 +21,11 @@ demo: install
 	mkdir -p var
 	$(BIN)/nightbank demo
 
+# the suite runs in TEST_WORKERS processes (pytest-xdist; one per core by default); --dist loadfile keeps each
+# test file in one process, so module fixtures (trained models, servers) are built once
+TEST_WORKERS ?= auto
 test: install
-	$(BIN)/python -m pytest -q
+	$(BIN)/python -m pytest -q -n $(TEST_WORKERS) --dist loadfile
 
 # static checks: ruff (pyflakes, pycodestyle, isort, bugbear, pyupgrade) and mypy; settings in pyproject.toml
 lint: install

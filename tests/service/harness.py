@@ -55,7 +55,7 @@ def worker_env(settings: Any) -> dict[str, str]:
     return {**os.environ, **settings_env(settings)}
 
 
-def wait_for(predicate: Callable[[], Any], *, timeout_s: float = 120, poll_s: float = 0.2) -> Any:
+def wait_for(predicate: Callable[[], Any], *, timeout_s: float = 300, poll_s: float = 0.2) -> Any:
     """Poll ``predicate`` until it returns a truthy value (returned) or time runs out."""
     deadline = time.monotonic() + timeout_s
     while True:

@@ -19,11 +19,11 @@ from hypothesis import settings as hyp_settings
 from schemathesis import checks
 
 #: Examples per operation and run: three runs (path parameters pinned to stored data, free, and
-#: negative) of every operation keep the test near a minute and over 1,000 requests.
-EXAMPLES_PER_RUN = 25
+#: negative) of every operation keep the test to a few minutes and over 1,000 requests.
+EXAMPLES_PER_RUN = 12
 MIN_REQUESTS = 1000
-#: PostgreSQL answers each request slower; fewer examples (same seed) keep its run near a minute too.
-PG_EXAMPLES_PER_RUN = 6
+#: PostgreSQL answers each request slower; fewer examples (same seed) keep its run shorter.
+PG_EXAMPLES_PER_RUN = 4
 PG_MIN_REQUESTS = 400
 #: A schema-valid night may still be refused (422) for what a JSON schema cannot state (at least
 #: 1 h of recording, times that parse), so acceptance of positive data is not required.

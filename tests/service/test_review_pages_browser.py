@@ -84,6 +84,9 @@ def _drag(t, first_epoch: int, last_epoch: int, n_epochs: int, key: str | None =
         return box["x"] + (PLOT_LEFT + (epoch + 0.5) * epoch_w) * scale
 
     y = box["y"] + 60 * scale
+    # the status of the previous preview still reads "done": mark it stale so that the wait below
+    # waits for the preview this drag starts
+    t.page.evaluate("document.getElementById('preview-status').setAttribute('data-state', 'stale')")
     t.page.mouse.move(x(first_epoch), y)
     t.page.mouse.down()
     t.page.mouse.move(x(last_epoch), y, steps=8)

@@ -116,11 +116,20 @@ def test_with_no_added_rounds_the_personal_model_is_the_pooled_model(pooled, coh
                                   pooled.model.predict_proba(night, descriptors=pooled.descriptors[pid]))
 
 
+@pytest.fixture
+def small_start_grid(monkeypatch) -> None:
+    """Two added-round counts and one learning rate/L2 pair: the leakage checks need a pooled start
+    with added trees, not the whole grid (which only costs time here)."""
+    monkeypatch.setattr(pooled_start, "ADDED_ROUNDS", (0, 10))
+    monkeypatch.setattr(pooled_start, "START_GRID", ((0.15, 1.0),))
+
+
 def _held_out_night(result, night: Night) -> np.ndarray:
     return next(h.p_sleep for h in result.outer if h.night_hash == night.content_hash)
 
 
-def test_a_held_out_nights_labels_never_reach_its_pooled_start_prediction(pooled, cohort, pid, monkeypatch) -> None:
+def test_a_held_out_nights_labels_never_reach_its_pooled_start_prediction(pooled, cohort, pid, monkeypatch,
+                                                                          small_start_grid) -> None:
     monkeypatch.setattr(pooled_start, "SCRATCH_MARGIN_AUC", math.inf)  # the pooled start is what is tested
     k = 1
     changed = {p: list(v) for p, v in cohort.items()}
@@ -140,8 +149,8 @@ def test_a_held_out_nights_labels_never_reach_its_pooled_start_prediction(pooled
     assert not np.array_equal(_held_out_night(mine, cohort[pid][k]), _held_out_night(other, changed[pid][k]))
 
 
-def test_another_participants_labels_never_reach_the_fold_that_left_them_out(pooled, cohort, pid,
-                                                                          monkeypatch) -> None:
+def test_another_participants_labels_never_reach_the_fold_that_left_them_out(pooled, cohort, pid, monkeypatch,
+                                                                          small_start_grid) -> None:
     """Flipping every label of a participant in the same outer fold changes nothing in ``pid``'s held-out
     predictions (neither their fold model nor the personal part saw that participant)."""
     same_fold = [p for p in sorted(cohort) if p != pid and pooled.folds[p] == pooled.folds[pid]]
