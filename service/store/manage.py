@@ -215,7 +215,7 @@ def rename_participant(session: Session, *, study_id: str, participant_id: str, 
     and pooled: training and held-out night lists, night metrics, offsets, descriptors, fold models)
     name ``to`` from then on (:func:`service.store.version_edits.rename_in_versions`); in a merge
     ``to`` keeps its own pooled offset and descriptors where the pooled version has them. The
-    audit entry (``versions_rewritten``) is the one record of the old id.
+    audit log keeps ids as they were (this entry names both and counts ``versions_rewritten``).
     A merge is refused while a night that would move overlaps in clock time, [start, end), a night
     of ``to`` (duplicates, which do not move, aside), unless ``allow_overlap``.
 

@@ -26,7 +26,7 @@ from dataclasses import dataclass, replace
 from typing import Any
 
 from sqlalchemy import select
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, undefer
 
 from models import HeldOutNight
 
@@ -39,8 +39,13 @@ __all__ = ["forget_deleted_night", "rename_in_versions"]
 
 
 def _study_rows(session: Session, study: StudyInfo) -> list[db.ModelVersion]:
+    """The study's versions with the records edited here, locked until the transaction ends (PostgreSQL:
+    two deletions in one study rewrite a pooled version one after the other, neither undoing the other)."""
     return list(session.scalars(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk)
-                                .order_by(db.ModelVersion.pk)))
+                                .options(undefer(db.ModelVersion.info), undefer(db.ModelVersion.model_meta),
+                                         undefer(db.ModelVersion.held_out))
+                                .order_by(db.ModelVersion.pk).with_for_update()
+                                .execution_options(populate_existing=True)))  # rows read before: as locked
 
 
 def _renamed_keys(values: Mapping[str, Any], old: str, new: str) -> dict[str, Any]:

@@ -16,6 +16,7 @@ import httpx
 import pandas as pd
 import pytest
 from backends import BACKENDS, World, live_world
+from factories import make_night
 from trained import post_cohort, train_here
 
 pytestmark = pytest.mark.slow
@@ -46,6 +47,7 @@ def _served(world: World, pid: str, *, computed: bool = True) -> dict[str, str]:
            "personal_models": http.get(f"/v1/studies/s1/participants/{pid}/models").text}
     if computed:
         out |= {"export": http.get("/v1/studies/s1/exports/parameters").text,
+                "review_queue": http.get("/v1/studies/s1/review-queue").text,
                 "comparison": http.get("/v1/studies/s1/comparison").text,
                 "participant_comparison": http.get(f"/v1/studies/s1/participants/{pid}/comparison").text}
     with _pages(world) as pages:
@@ -105,10 +107,16 @@ def _pooled_meta(world: World) -> Any:
 
 
 def test_a_rename_carries_into_every_stored_version_and_nothing_served_names_the_old_id(world: World) -> None:
+    from models import night_to_json
+
     http = world.http
     nights = post_cohort(http)
     train_here(world)  # pooled v1 (its held-out predictions and fold models name P-01, P-02, P-03)
     train_here(world, "P-01")  # personal v1 of P-01, started from the pooled model
+    unlabelled = night_to_json(make_night(600, seed=41, start="2031-06-01T22:41:00+02:00", stages=False))
+    assert http.post("/v1/studies/s1/participants/P-01/nights", json=unlabelled).status_code == 201
+    queue = http.get("/v1/studies/s1/review-queue").text
+    assert "P-01" in queue  # the unlabelled night is a review candidate
     before = _served(world, "P-01", computed=False)
     assert all("P-01" in before[k] for k in ("pooled_models", "pooled_card_1.json", "pooled_card_1.md",
                                              "personal_models"))
@@ -121,15 +129,16 @@ def test_a_rename_carries_into_every_stored_version_and_nothing_served_names_the
     after = _served(world, "Q-07")
     for name, text in after.items():
         assert "P-01" not in text, name
-    assert "Q-07" in after["pooled_card_1.json"] and "Q-07" in after["export"]
+    assert all("Q-07" in after[k] for k in ("pooled_card_1.json", "export", "review_queue"))
     assert "P-01" not in _stored_records(world)
     meta, held = _pooled_meta(world)
     assert meta.revision == 1 and meta.metadata.offsets["Q-07"] == offsets["P-01"]
     assert {h.participant_id for h in held} == {"Q-07", "P-02", "P-03"}
     # readers apply it: the export's pooled rows of the renamed participant are its held-out predictions
     export = pd.read_csv(io.StringIO(after["export"]))
-    mine = export[(export["participant_id"] == "Q-07") & (export["method"] == "pooled")]
-    assert len(mine) == len(nights["P-01"]) and mine["held_out"].all()
+    mine = export[(export["participant_id"] == "Q-07") & (export["method"] == "pooled")
+                  & export["night_id"].isin(nights["P-01"])]
+    assert len(mine) == len(nights["P-01"]) and (mine["held_out"].astype(str) == "True").all()
     # and the deployed pooled+offset scoring uses the offset learnt for the participant
     body = http.get(f"/v1/studies/s1/participants/Q-07/nights/{nights['P-01'][0]}/scoring",
                     params={"method": "pooled+offset"}).json()
