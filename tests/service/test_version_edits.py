@@ -212,3 +212,32 @@ def test_a_deleted_nights_held_out_predictions_leave_every_stored_version(world:
     assert _roc_nights(roc_before) == {"pooled": 3, "pooled + offset": 3}
     assert _roc_nights(roc_after) == {"pooled": 2, "pooled + offset": 2}
     assert http.get("/v1/studies/s1/participants/P-01/comparison").status_code == 200
+
+
+def test_deletions_at_the_same_time_each_leave_the_versions(world: World) -> None:
+    import threading
+
+    http = world.http
+    nights = post_cohort(http)
+    train_here(world)
+    gone = [nights["P-01"][0], nights["P-02"][0]]  # two participants' nights: both in the pooled version
+    barrier, statuses = threading.Barrier(len(gone)), {}
+
+    def delete(pid: str, night_id: str) -> None:
+        with httpx.Client(base_url=world.url, headers=http.headers, timeout=120) as client:
+            barrier.wait()
+            statuses[night_id] = client.delete(f"/v1/studies/s1/participants/{pid}/nights/{night_id}").status_code
+
+    threads = [threading.Thread(target=delete, args=(pid, nid)) for pid, nid in zip(("P-01", "P-02"), gone,
+                                                                                    strict=True)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(120)
+    assert statuses == {nid: 200 for nid in gone}
+    meta, held = _pooled_meta(world)
+    # each rewrite started from the other's (the version rows are locked): neither night came back
+    assert sorted(meta.metadata.removed_held_out_nights) == sorted(gone) and meta.revision == 2
+    assert sorted(meta.trained_on_deleted_nights) == sorted(gone) and meta.metadata.metrics.n_nights == 7
+    assert {h.participant_id for h in held if h.method == "pooled"} == {"P-01", "P-02", "P-03"}
+    assert sum(h.method == "pooled" for h in held) == 7
