@@ -115,7 +115,8 @@ def delete_night(session: Session, *, study_id: str, participant_id: str, night_
     NotFound
         If the study, participant or night does not exist.
     """
-    study = find_study(session, study_id)
+    # the study lock first, as renames and ingest take it: a deletion and a rename in one study never deadlock
+    study = study_snapshot(lock_study(session, study_id))
     row = night_row(session, study_id, participant_id, night_id)
     night_pk, content_hash, label = row.pk, row.content_hash, row.label
     scorings = _count(session, db.Scoring, db.Scoring.night_pk == night_pk)

@@ -258,6 +258,7 @@ def load_recording(session: Session, *, study_id: str, participant_id: str,
 def delete_recording(session: Session, *, study_id: str, participant_id: str, recording_id: str,
                      actor: str) -> dict[str, Any]:
     """Delete a recording with its nights (their scorings and features); trained versions are marked."""
+    lock_study(session, study_id)  # first, as every writer of the study's nights and versions takes it
     row, study, participant = recording_row(session, study_id=study_id, participant_id=participant_id,
                                             recording_id=recording_id)
     removed = _drop_nights(session, study=study, night_pks=list(
