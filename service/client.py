@@ -360,9 +360,11 @@ class NightbankClient(RecordingMethods, ReviewMethods):
     def study_comparison(self, study: str) -> dict[str, Any]:
         return self._json("GET", f"/v1/studies/{study}/comparison")
 
-    def export_parameters(self, study: str, *, fmt: str = "csv") -> bytes:
-        return self._request("GET", f"/v1/studies/{study}/exports/parameters", params={"format": fmt},
-                             timeout=600).content
+    def export_parameters(self, study: str, *, fmt: str = "csv", interval_level: float | None = None) -> bytes:
+        params: dict[str, Any] = {"format": fmt}
+        if interval_level is not None:
+            params["interval_level"] = interval_level
+        return self._request("GET", f"/v1/studies/{study}/exports/parameters", params=params, timeout=600).content
 
     def get_protocol(self, study: str) -> dict[str, Any]:
         """The study's protocol (``protocol``, ``fingerprint``, ``is_default``, ``updated_at``, ``updated_by``)."""

@@ -301,6 +301,9 @@ class ModelVersionOut(BaseModel):
     training_nights: list[dict[str, Any]]
     trained_on_deleted_nights: list[str] = Field(
         default_factory=list, description="ids of training nights deleted since; the version stays usable")
+    removed_held_out_nights: list[str] = Field(
+        default_factory=list, description="ids of nights deleted since whose held-out predictions were removed; "
+                                          "metrics were computed again over the held-out nights left")
     flagged_training_nights: list[FlaggedTrainingNightOut] = Field(
         default_factory=list, description="training nights that carried a warning QC code when the model was "
                                           "trained (reference_implausible: a reference stored with "

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+from dataclasses import replace
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -16,6 +17,7 @@ from models import Night, NightOptions, TrainingConfig, compare_study, read_nigh
 from ..errors import BadRequest, Unprocessable
 from .application import app
 from .console import FillGapsOption, JsonOption, TzOption, console, err_console
+from .protocol_options import IntervalLevelOption
 
 __all__ = ["compare", "read_study"]
 
@@ -81,17 +83,21 @@ def compare(
     trials: Annotated[int, typer.Option("--trials", min=1, help="Optuna trials per tuning study.")] = 30,
     seed: Annotated[int, typer.Option("--seed", help="Seed of every random choice.")] = 0,
     jobs: Annotated[int, typer.Option("--jobs", min=1, help="Worker threads.")] = 1,
+    interval_level: IntervalLevelOption = None,
     tz: TzOption = None,
     fill_gaps: FillGapsOption = False,
     as_json: JsonOption = False,
 ) -> None:
-    """Train personal and pooled models and compare them with classical rules on held-out nights."""
+    """Train personal and pooled models and compare them with classical rules on held-out nights (per-night
+    intervals of the models at ``--interval-level``)."""
     if not directory.is_dir():
         raise BadRequest(f"{directory} is not a folder", code="not_a_directory")
     study = read_study(directory, NightOptions(tz=tz, fill_gaps=fill_gaps))
     if not study:
         raise Unprocessable(f"no participant folders with night files in {directory}", code="no_nights")
     config = TrainingConfig(n_trials=trials, seed=seed, n_jobs=jobs)
+    if interval_level is not None:
+        config = replace(config, interval_level=interval_level)
     with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
                   console=err_console, transient=True) as bar:
         task = bar.add_task("reading", total=None)

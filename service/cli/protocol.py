@@ -14,6 +14,7 @@ from .console import DEFAULT_URL, JsonOption, ServerOption, TokenOption, connect
 from .protocol_options import (
     BootstrapOption,
     CiLevelOption,
+    IntervalLevelOption,
     MarginOption,
     MinAwakeningOption,
     PersistentSleepOption,
@@ -68,6 +69,7 @@ def set_protocol(
     ci_level: CiLevelOption = None,
     bootstrap_resamples: BootstrapOption = None,
     protocol_seed: ProtocolSeedOption = None,
+    interval_level: IntervalLevelOption = None,
     default: Annotated[bool, typer.Option("--default", help="Start from the default protocol, not the study's.")]
     = False,
     server: ServerOption = DEFAULT_URL,
@@ -82,7 +84,7 @@ def set_protocol(
                                           persistent_sleep_min=persistent_sleep_min, sol=sol,
                                           unscored_breaks_bouts=unscored_breaks_bouts, margin=margin,
                                           ci_level=ci_level, bootstrap_resamples=bootstrap_resamples,
-                                          seed=protocol_seed)
+                                          seed=protocol_seed, interval_level=interval_level)
         _print(client.set_protocol(study, protocol.to_dict()), as_json=as_json)
 
 

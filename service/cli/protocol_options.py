@@ -1,4 +1,5 @@
-"""The study-protocol options shared by ``protocol set``, ``score`` and ``agree``.
+"""The study-protocol options shared by ``protocol set``, ``score`` and ``agree`` (``--interval-level``
+also by ``export`` and ``compare``).
 
 Each option left out keeps the value of the protocol it is applied to (the study's protocol for
 ``protocol set``, the default protocol for the commands that read files).
@@ -15,9 +16,9 @@ from models import StudyProtocol
 
 from ..errors import BadRequest
 
-__all__ = ["BootstrapOption", "CiLevelOption", "MarginOption", "MinAwakeningOption", "PersistentSleepOption",
-           "ProtocolSeedOption", "SolOption", "UnscoredBreaksOption", "WasoEndOption", "apply_protocol_options",
-           "protocol_line"]
+__all__ = ["BootstrapOption", "CiLevelOption", "IntervalLevelOption", "MarginOption", "MinAwakeningOption",
+           "PersistentSleepOption", "ProtocolSeedOption", "SolOption", "UnscoredBreaksOption", "WasoEndOption",
+           "apply_protocol_options", "protocol_line"]
 
 WasoEndOption = Annotated[str | None, typer.Option(
     "--waso-end", help="Where WASO and the awakening count stop: lights-on or final-awakening.")]
@@ -38,6 +39,17 @@ BootstrapOption = Annotated[int | None, typer.Option(
 ProtocolSeedOption = Annotated[int | None, typer.Option("--protocol-seed", help="Seed of the participant bootstrap.")]
 
 
+def _level(value: float | None) -> float | None:
+    if value is not None and not 0.0 < value < 1.0:
+        raise typer.BadParameter(f"{value:g} is not in (0, 1); write e.g. 0.8 for 80% intervals")
+    return value
+
+
+IntervalLevelOption = Annotated[float | None, typer.Option(
+    "--interval-level", callback=_level, help="Level of the per-night parameter intervals of the model methods, "
+    "in (0, 1) (default: the study protocol's, 0.9 unless set).")]
+
+
 def _margins(items: list[str]) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for item in items:
@@ -55,7 +67,8 @@ def apply_protocol_options(base: Mapping[str, Any], *, waso_end: str | None = No
                            min_awakening_epochs: int | None = None, persistent_sleep_min: float | None = None,
                            sol: str | None = None, unscored_breaks_bouts: bool | None = None,
                            margin: list[str] | None = None, ci_level: float | None = None,
-                           bootstrap_resamples: int | None = None, seed: int | None = None) -> StudyProtocol:
+                           bootstrap_resamples: int | None = None, seed: int | None = None,
+                           interval_level: float | None = None) -> StudyProtocol:
     """``base`` (a protocol's JSON form) with the given options changed, validated.
 
     Option values may use ``-`` for ``_`` (``final-awakening``).
@@ -71,7 +84,7 @@ def apply_protocol_options(base: Mapping[str, Any], *, waso_end: str | None = No
     given: dict[str, Any] = {"waso_end": waso_end, "min_awakening_epochs": min_awakening_epochs,
                              "persistent_sleep_min": persistent_sleep_min, "sol": sol,
                              "unscored_breaks_bouts": unscored_breaks_bouts, "ci_level": ci_level,
-                             "bootstrap_resamples": bootstrap_resamples, "seed": seed}
+                             "bootstrap_resamples": bootstrap_resamples, "seed": seed, "interval_level": interval_level}
     for name, value in given.items():
         if value is not None:
             body[name] = value.replace("-", "_") if isinstance(value, str) else value

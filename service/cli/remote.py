@@ -29,6 +29,7 @@ from .application import app
 from .console import DEFAULT_URL, ServerOption, TokenOption, TzOption, connect, console, err_console, problem_line
 from .data import night_summary
 from .profiles import fetch_profile, read_night_file
+from .protocol_options import IntervalLevelOption
 from .recordings import check_recording_files, is_recording_file, push_recording_files
 
 __all__ = ["NIGHT_SUFFIXES", "PUSH_STATUSES", "STORED", "check_folder", "night_files", "progress_bar", "push_folder",
@@ -307,13 +308,15 @@ def export(
     study: StudyOption,
     output: Annotated[Path, typer.Option("--output", "-o", help="File to write.")],
     fmt: Annotated[str, typer.Option("--format", help="csv or parquet.")] = "csv",
+    interval_level: IntervalLevelOption = None,
     server: ServerOption = DEFAULT_URL,
     token: TokenOption = "",
 ) -> None:
-    """Download the sleep parameters of every night and method (CSV or Parquet)."""
+    """Download the sleep parameters of every night and method (CSV or Parquet); model rows carry their
+    per-night intervals and the level of those (held-out intervals only where computed at that level)."""
     if fmt not in ("csv", "parquet"):
         raise typer.BadParameter("choose csv or parquet", param_hint="--format")
     with connect(server, token) as client, console.status("computing the export"):
-        data = client.export_parameters(study, fmt=fmt)
+        data = client.export_parameters(study, fmt=fmt, interval_level=interval_level)
     output.write_bytes(data)
     console.print(f"wrote {output} ({len(data)} bytes)")

@@ -102,9 +102,11 @@ def _check_claim(session: Session, job: JobInfo) -> None:
                        "was discarded", code="lease_lost")
 
 
-def _config(job: JobInfo, settings: Settings) -> TrainingConfig:
+def _config(job: JobInfo, settings: Settings, *, interval_level: float) -> TrainingConfig:
+    """The job's training options; held-out intervals at the study protocol's ``interval_level``."""
     return TrainingConfig(n_trials=int(job.params.get("n_trials", settings.n_trials)),
-                          seed=int(job.params.get("seed", 0)), n_jobs=settings.training_threads)
+                          seed=int(job.params.get("seed", 0)), n_jobs=settings.training_threads,
+                          interval_level=interval_level)
 
 
 def check_trainable(session: Session, *, participant: ParticipantInfo) -> None:
@@ -203,20 +205,22 @@ def _metadata(model: Any, nights: Sequence[Night], config: TrainingConfig, metri
         threshold=float(model.threshold_),
         library_versions=dict(model.info_.get("libraries", {})),
         config={k: v for k, v in config.to_dict().items() if k in ("n_trials", "seed", "min_personal_nights",
-                                                                    "choice_policy", "movement_time")},
+                                                                    "choice_policy", "movement_time",
+                                                                    "interval_level")},
         **pooled,
     )
 
 
 def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
                   progress: Progress, compute: Compute) -> dict[str, Any]:
-    config = _config(job, settings)
     assert job.participant_id is not None
     with db.session_scope(factory) as session:
         study = find_study(session, job.study_id)
         participant = find_participant(session, study, job.participant_id)
         nights = load_nights(session, participant=participant, labelled_only=True, include_excluded=False)
-        weight = protocol_info(session, study).correction_weight
+        protocol = protocol_info(session, study)
+        weight = protocol.correction_weight
+        config = _config(job, settings, interval_level=protocol.protocol.interval_level)
         corrected = [] if weight <= 0 else participant_corrections(
             session, participant_pk=participant.pk, participant_id=participant.participant_id)
         night_pks = _night_pks(session, study_pk=study.pk, nights=[*nights, *(n for n, _ in corrected)])
@@ -254,14 +258,15 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
 
 def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings,
                 progress: Progress, compute: Compute) -> dict[str, Any]:
-    config = _config(job, settings)
     with db.session_scope(factory) as session:
         study = find_study(session, job.study_id)
         loaded = {p.participant_id: load_nights(session, participant=p, include_excluded=False)
                   for p in study_participants(session, study=study)}
         by_participant = {pid: nights for pid, nights in loaded.items() if nights}
         labelled = [n for nights in by_participant.values() for n in nights if n.reference is not None]
-        weight = protocol_info(session, study).correction_weight
+        protocol = protocol_info(session, study)
+        weight = protocol.correction_weight
+        config = _config(job, settings, interval_level=protocol.protocol.interval_level)
         corrected = {} if weight <= 0 else corrections_by_participant(session, study_participants(session, study=study))
         corrected_nights = [n for pairs in corrected.values() for n, _ in pairs]
         night_pks = _night_pks(session, study_pk=study.pk, nights=[*labelled, *corrected_nights])

@@ -11,10 +11,13 @@
   :func:`service.results.scoring.score_night`), ``held_out`` false.
 
 Model rows carry the night's parameter intervals (``<parameter>_low`` / ``<parameter>_high`` for
-:data:`~service.results.night_intervals.INTERVAL_PARAMETERS`, at the protocol's ``interval_level``)
-and its review score ``uncertainty_min``: for held-out rows those of the held-out prediction
-(:attr:`models.HeldOutNight.intervals`), for deployed rows those of the scoring body; empty for
-the reference, the rules and models without decoding.
+:data:`~service.results.night_intervals.INTERVAL_PARAMETERS`) at ``interval_level`` (the column
+says it) and its review score ``uncertainty_min``: for held-out rows those of the held-out
+prediction (:attr:`models.HeldOutNight.intervals`, at the protocol's level when the version was
+trained), for deployed rows those of the scoring body (at the protocol's level now); empty for
+the reference, the rules and models without decoding. An export asked for at a level
+(``interval_level``) has deployed rows at that level and keeps held-out intervals only where they
+were computed at it (the held-out models are not stored to compute them again).
 
 Every row states the study protocol it was computed under (``protocol``, its JSON form), the
 model version, the epoch length, the in-bed interval (``lights_off``, ``lights_on``), the unscored
@@ -56,7 +59,7 @@ from ..store.protocols import study_protocol
 from ..store.registry import find_study, study_participants
 from .held_out import active_held_out as _active_held_out
 from .held_out import add_auto, version_of
-from .night_intervals import INTERVAL_PARAMETERS
+from .night_intervals import INTERVAL_PARAMETERS, at_level
 from .scoring import score_night
 
 __all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "INTERVAL_COLUMNS", "export_frame", "export_parameters",
@@ -66,7 +69,7 @@ __all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "INTERVAL_COLUMNS", "export_frame
 EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, *MODEL_METHODS, AUTO)
 #: Interval ends of every parameter of :data:`INTERVAL_PARAMETERS`, then the review score (minutes).
 INTERVAL_COLUMNS: tuple[str, ...] = (*(f"{name}_{end}" for name in INTERVAL_PARAMETERS for end in ("low", "high")),
-                                     "uncertainty_min")
+                                     "uncertainty_min", "interval_level")
 EXPORT_COLUMNS: tuple[str, ...] = (
     "study_id", "participant_id", "night_id", "label", "start", "lights_off", "lights_on", "epoch_seconds",
     "method", "scored_as", "model_version", "held_out", "protocol", "qc_flags", *PARAMETER_NAMES,
@@ -114,34 +117,40 @@ def _targets(session: Session, study_id: str) -> tuple[list[_Target], bool, dict
     return targets, pooled, policies
 
 
-def _interval_cells(intervals: Any, uncertainty_min: Any) -> dict[str, Any]:
-    """The interval columns of a row from ``{name: [low, high]}`` (None: no intervals) and the review score."""
-    out: dict[str, Any] = {"uncertainty_min": uncertainty_min}
+def _interval_cells(intervals: Any, uncertainty_min: Any, level: Any = None) -> dict[str, Any]:
+    """The interval columns of a row from ``{name: [low, high]}`` (None: no intervals) at ``level``, and the
+    review score."""
+    out: dict[str, Any] = {"uncertainty_min": uncertainty_min, "interval_level": None if intervals is None else level}
     for name in INTERVAL_PARAMETERS:
         low, high = (None, None) if intervals is None else intervals.get(name, (None, None))
         out |= {f"{name}_low": low, f"{name}_high": high}
     return json_record(out)
 
 
-def _held_out_cells(held: HeldOutNight) -> dict[str, Any]:
+def _held_out_cells(held: HeldOutNight, level: float | None) -> dict[str, Any]:
+    """Interval columns of a held-out row (at the level they were computed at): empty unless that is
+    ``level`` (None: any level)."""
     found = held.intervals
-    return _interval_cells(None if found is None else found.intervals,
-                           None if found is None else found.uncertainty_min)
+    if found is None or (level is not None and not np.isclose(found.level, level)):
+        return _interval_cells(None, None)
+    return _interval_cells(found.intervals, found.uncertainty_min, found.level)
 
 
 def _body_cells(body: dict[str, Any]) -> dict[str, Any]:
-    return _interval_cells(body.get("intervals"), body.get("uncertainty_min"))
+    return _interval_cells(body.get("intervals"), body.get("uncertainty_min"), body.get("interval_level"))
 
 
-def _deployed(factory: sessionmaker[Session], study_id: str, t: _Target, method: str) -> dict[str, Any]:
+def _deployed(factory: sessionmaker[Session], study_id: str, t: _Target, method: str,
+              protocol: StudyProtocol) -> dict[str, Any]:
     return json.loads(score_night(factory, study_id=study_id, participant_id=t.participant_id, night_id=t.night_id,
-                                  method=method))
+                                  method=method, interval_level=protocol.interval_level))
 
 
 def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, methods: list[str],
                    held: dict[str, HeldOutNight], used: dict[str, int | None], protocol: StudyProtocol,
-                   auto_chosen: dict[str, str]) -> list[dict[str, Any]]:
-    """Reference and every method of a labelled night, from one comparison (masked alike)."""
+                   auto_chosen: dict[str, str], asked_level: float | None) -> list[dict[str, Any]]:
+    """Reference and every method of a labelled night, from one comparison (masked alike); held-out intervals
+    only at ``asked_level`` when one was asked for."""
     night = t.night
     sides: dict[str, tuple[Any, Any]] = {}
     info: dict[str, tuple[str | None, int | None, bool | None]] = {}  # scored_as, version, held_out
@@ -154,9 +163,9 @@ def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, me
             chosen = method if method != AUTO else auto_chosen.get(t.night_id, "pooled+offset")
             sides[method] = (held[method].sleep, held[method].p_sleep)
             info[method] = (chosen, version_of(chosen, t.participant_id, used), True)
-            cells[method] = _held_out_cells(held[method])
+            cells[method] = _held_out_cells(held[method], asked_level)
         else:
-            body = _deployed(factory, study_id, t, method)
+            body = _deployed(factory, study_id, t, method, protocol)
             sleep = np.array([np.nan if v is None else v for v in body["sleep"]], dtype=np.float64)
             sides[method], info[method] = (sleep, None), (body["method"], body["model_version"], False)
             cells[method] = _body_cells(body)
@@ -178,8 +187,10 @@ def _params(values: dict[str, Any]) -> dict[str, Any]:
     return json_record({k: values[k] for k in PARAMETER_NAMES})
 
 
-def export_frame(factory: sessionmaker[Session], *, study_id: str) -> pd.DataFrame:
+def export_frame(factory: sessionmaker[Session], *, study_id: str, interval_level: float | None = None) -> pd.DataFrame:
     """The export as a typed table (:data:`EXPORT_COLUMNS`); see the module docstring.
+
+    ``interval_level`` (in (0, 1); None: the protocol's) is the level of the exported intervals.
 
     Raises
     ------
@@ -188,7 +199,7 @@ def export_frame(factory: sessionmaker[Session], *, study_id: str) -> pd.DataFra
     """
     with db.session_scope(factory) as session:
         targets, pooled, policies = _targets(session, study_id)
-        protocol = study_protocol(session, study_id)
+        protocol = at_level(study_protocol(session, study_id), interval_level)
         held_out, used = _active_held_out(session, find_study(session, study_id))
     auto_chosen: dict[str, dict[str, str]] = {}  # participant -> night id -> model auto chose without the night
     for pid, policy in policies.items():
@@ -212,11 +223,11 @@ def export_frame(factory: sessionmaker[Session], *, study_id: str) -> pd.DataFra
         if night.has_reference:
             found = _labelled_rows(factory, study_id, t, methods, held_out.get(t.participant_id, {})
                                    .get(night.content_hash, {}), used, protocol,
-                                   auto_chosen.get(t.participant_id, {}))
+                                   auto_chosen.get(t.participant_id, {}), interval_level)
         else:
             found = []
             for method in methods:
-                body = _deployed(factory, study_id, t, method)
+                body = _deployed(factory, study_id, t, method, protocol)
                 found.append({"method": method, "scored_as": None if method in METHOD_IDS else body["method"],
                               "model_version": body["model_version"],
                               "held_out": None if method in METHOD_IDS else False}
@@ -238,8 +249,10 @@ def _typed(frame: pd.DataFrame) -> pd.DataFrame:
     return frame
 
 
-def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv") -> bytes:
-    """The export as CSV (formulas neutralised) or Parquet (typed) bytes.
+def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv",
+                      interval_level: float | None = None) -> bytes:
+    """The export as CSV (formulas neutralised) or Parquet (typed) bytes (intervals at ``interval_level``,
+    None: the protocol's).
 
     Raises
     ------
@@ -250,7 +263,7 @@ def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str
     """
     if fmt not in ("csv", "parquet"):
         raise Unprocessable(f"format {fmt!r}: choose csv or parquet", code="unknown_format")
-    frame = export_frame(factory, study_id=study_id)
+    frame = export_frame(factory, study_id=study_id, interval_level=interval_level)
     if fmt == "csv":
         return neutralise_formulas(frame).to_csv(index=False, date_format="%Y-%m-%dT%H:%M:%SZ").encode()
     buffer = io.BytesIO()

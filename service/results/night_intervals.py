@@ -16,12 +16,25 @@ import numpy as np
 
 from models import HmmDecoder, Night, SleepModel, StudyProtocol, TrainingConfig
 
-__all__ = ["INTERVAL_PARAMETERS", "INTERVAL_PATHS", "decoded_extras", "interval_seed", "probabilities"]
+__all__ = ["INTERVAL_PARAMETERS", "INTERVAL_PATHS", "at_level", "decoded_extras", "interval_seed", "probabilities"]
 
 #: Parameters that get a per-night interval (model methods with decoding), in table order.
 INTERVAL_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
 #: Posterior paths drawn per night for the intervals (as for the held-out intervals of training).
 INTERVAL_PATHS: int = TrainingConfig().interval_paths
+
+
+def at_level(protocol: StudyProtocol, interval_level: float | None) -> StudyProtocol:
+    """``protocol`` with its intervals at ``interval_level`` (None: as it is).
+
+    Raises
+    ------
+    InvalidProtocolError
+        If the level is not a number in (0, 1) (a 422 naming ``interval_level``).
+    """
+    if interval_level is None:
+        return protocol
+    return StudyProtocol.from_dict(protocol.to_dict() | {"interval_level": interval_level})
 
 
 def interval_seed(night_id: str, model_uid: str) -> int:

@@ -191,7 +191,8 @@ def _inputs_key(session: Session, study_id: str) -> str:
         .where(db.Participant.study_pk == study.pk).order_by(db.Night.pk)).all())
     parts.append(session.execute(select(db.ModelVersion.uid).where(
         db.ModelVersion.study_pk == study.pk, db.ModelVersion.is_active).order_by(db.ModelVersion.uid)).all())
-    parts.append(session.execute(select(db.Participant.pk, db.Participant.chosen_method).where(
+    parts.append(session.execute(select(db.Participant.pk, db.Participant.participant_id,  # ids: renames
+                                        db.Participant.chosen_method).where(
         db.Participant.study_pk == study.pk).order_by(db.Participant.pk)).all())
     parts.append(session.execute(select(db.StudyProtocolRow.fingerprint, db.StudyProtocolRow.model_floor).where(
         db.StudyProtocolRow.study_pk == study.pk)).all())

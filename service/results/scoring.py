@@ -74,7 +74,7 @@ from ..store.protocols import study_protocol
 from ..store.registry import find_participant, find_study, participant_snapshot, study_snapshot
 from ..store.snapshots import ParticipantInfo, StudyInfo
 from .model_flags import auto_choice
-from .night_intervals import decoded_extras, interval_seed, probabilities
+from .night_intervals import at_level, decoded_extras, interval_seed, probabilities
 
 __all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night", "scoring_key", "study_uncertainty",
            "uses_current_nights"]
@@ -254,11 +254,14 @@ def scoring_key(session: Session, *, participant: ParticipantInfo, resolved: _Re
 
 
 def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id: str, night_id: str, method: str,
-                version: int | None = None, writer: CacheWriter | None = None) -> bytes:
+                version: int | None = None, writer: CacheWriter | None = None,
+                interval_level: float | None = None) -> bytes:
     """JSON body of a night's scoring, from the cache or computed (and then cached).
 
     With a ``writer`` the new cache rows (scoring, features) are stored in the background;
-    without, before returning.
+    without, before returning. ``interval_level`` (in (0, 1)) replaces the study protocol's level
+    of the intervals (None: the protocol's); the protocol's fingerprint keys the cache, so each
+    level is cached apart.
 
     Raises
     ------
@@ -281,7 +284,7 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
         study = study_snapshot(study_row)
         participant = participant_snapshot(participant_row, study.study_id)
         resolved = resolve_method(session, study=study, participant=participant, method=method, version=version)
-        protocol = study_protocol(session, study)
+        protocol = at_level(study_protocol(session, study), interval_level)
         key, model, offset, descriptors = scoring_key(session, participant=participant, resolved=resolved,
                                                       protocol=protocol)
         cached = session.scalar(select(db.Scoring.body).where(db.Scoring.night_pk == row.pk,

@@ -20,7 +20,7 @@ from sqlalchemy import delete, func, select, update
 from sqlalchemy.orm import Session, aliased
 
 from ..errors import Conflict, Unprocessable
-from . import db, versions
+from . import db, version_edits, versions
 from .audit import record_audit
 from .ingest import case_clash, lock_study
 from .registry import find_participant, find_study, night_row
@@ -100,7 +100,9 @@ def delete_night(session: Session, *, study_id: str, participant_id: str, night_
     """Delete one night, its cached scorings and its stored feature matrices.
 
     Model versions trained on the night are kept (readable, usable for scoring) and list its id
-    in ``trained_on_deleted_nights`` (:func:`service.store.versions.mark_deleted_night`).
+    in ``trained_on_deleted_nights``; the night's held-out predictions and night metrics leave
+    every stored version, whose held-out figures are computed again over the nights left
+    (:func:`service.store.version_edits.forget_deleted_night`).
 
     Returns
     -------
@@ -113,7 +115,8 @@ def delete_night(session: Session, *, study_id: str, participant_id: str, night_
     NotFound
         If the study, participant or night does not exist.
     """
-    study = find_study(session, study_id)
+    # the study lock first, as renames and ingest take it: a deletion and a rename in one study never deadlock
+    study = study_snapshot(lock_study(session, study_id))
     row = night_row(session, study_id, participant_id, night_id)
     night_pk, content_hash, label = row.pk, row.content_hash, row.label
     scorings = _count(session, db.Scoring, db.Scoring.night_pk == night_pk)
@@ -123,16 +126,23 @@ def delete_night(session: Session, *, study_id: str, participant_id: str, night_
         if recording is not None:
             recording.periods = [p | {"night_id": None} if p.get("night_id") == night_id else p
                                  for p in recording.periods]
+    owner_pk = row.participant_pk
     _delete_nights(session, [night_pk])
-    marked = versions.mark_deleted_night(session, study=study, content_hash=content_hash, night_id=night_id)
-    owners = [m["participant_pk"] for m in marked if m["participant_pk"] is not None]
+    changed = version_edits.forget_deleted_night(session, study=study, participant_pk=owner_pk,
+                                                 participant_id=participant_id, content_hash=content_hash,
+                                                 night_id=night_id, label=label)
+    owners = [m["participant_pk"] for m in changed if m["participant_pk"] is not None]
     ids = {pk: pid for pk, pid in session.execute(select(db.Participant.pk, db.Participant.participant_id)
                                                   .where(db.Participant.pk.in_(owners)))}
+
+    def named(m: dict[str, Any]) -> dict[str, Any]:
+        return {"kind": m["kind"], "participant_id": ids.get(m["participant_pk"]), "version": m["version"]}
+
     out = {"night_id": night_id, "scorings": scorings, "features": features,
-           "marked_versions": [{"kind": m["kind"], "participant_id": ids.get(m["participant_pk"]),
-                                "version": m["version"]} for m in marked]}
+           "marked_versions": [named(m) for m in changed if m["marked"]]}
     record_audit(session, actor=actor, action="night.delete", study_id=study_id, subject=participant_id,
-                 detail=out | {"label": label})
+                 detail=out | {"label": label,
+                               "held_out_removed_from": [named(m) for m in changed if m["held_out_removed"]]})
     return out
 
 
@@ -202,8 +212,11 @@ def rename_participant(session: Session, *, study_id: str, participant_id: str, 
     versions stay readable: they take new numbers under ``to`` after every number ``to`` has had
     (``personal_versions`` maps old to new numbers), and are candidates if ``to`` has an active
     version (else the active one stays active). Cached scorings of the moved nights are dropped
-    (they name version numbers and offsets of the old id). Pooled versions keep their records
-    under the old id: offsets learnt for it apply to ``to`` once the pooled model is trained again.
+    (they name version numbers and offsets of the old id). Every stored version's records (personal
+    and pooled: training and held-out night lists, night metrics, offsets, descriptors, fold models)
+    name ``to`` from then on (:func:`service.store.version_edits.rename_in_versions`); in a merge
+    ``to`` keeps its own pooled offset and descriptors where the pooled version has them. The
+    audit log keeps ids as they were (this entry names both and counts ``versions_rewritten``).
     A merge is refused while a night that would move overlaps in clock time, [start, end), a night
     of ``to`` (duplicates, which do not move, aside), unless ``allow_overlap``.
 
@@ -265,9 +278,10 @@ def rename_participant(session: Session, *, study_id: str, participant_id: str, 
     moved = [pk for pk in night_pks if pk not in set(dropped)]
     if moved:
         session.execute(delete(db.Scoring).where(db.Scoring.night_pk.in_(moved)))
+    rewritten = version_edits.rename_in_versions(session, study=study, previous_id=participant_id, to=to)
     out = {"participant_id": to, "previous_id": participant_id, "merged": target_row is not None,
            "nights_moved": len(moved), "duplicates_dropped": len(dropped),
            "personal_versions": [{"previous_version": old, "version": new} for old, new in numbers.items()]}
     record_audit(session, actor=actor, action="participant.rename", study_id=study_id, subject=participant_id,
-                 detail=out)
+                 detail=out | {"versions_rewritten": rewritten})
     return out

@@ -1,6 +1,7 @@
 """Typed metadata of a stored model version, and the one place that knows its JSON form.
 
-A version's metadata is written once, when the version is stored, and never changes. It lives as
+A version's metadata is written when the version is stored; it changes only by the edits of
+:mod:`service.store.version_edits` (a participant rename, a deleted night's held-out rows). It lives as
 JSON in the ``model_versions.info`` column; :meth:`ModelMetadata.to_json` and
 :meth:`ModelMetadata.from_json` are the only code that writes or reads that form, with the JSON
 keys named like the attributes. Reading is tolerant: keys missing from a stored row take their
@@ -184,6 +185,10 @@ class ModelMetadata(_Record):
         (never held out); 0 for versions stored before this was recorded.
     correction_weight : float or None
         The sample weight those nights' rows had (PSG rows weigh 1); None without corrected nights.
+    removed_held_out_nights : tuple of str
+        Ids of nights deleted after the version was stored whose held-out predictions and night
+        metrics were removed from it; ``metrics``, ``metrics_with_offset`` and ``selection`` were
+        computed again without them (:mod:`service.store.version_edits`).
     """
 
     metrics: HeldOutFigures = Field(default_factory=HeldOutFigures)
@@ -207,6 +212,7 @@ class ModelMetadata(_Record):
     activation: ActivationRecord | None = None
     corrected_nights: int = 0
     correction_weight: float | None = None
+    removed_held_out_nights: tuple[str, ...] = ()
 
     @property
     def selection_score(self) -> float | None:

@@ -21,7 +21,7 @@ from sqlalchemy.orm import Session
 from models import DiaryDay, Recording
 
 from ..errors import Conflict, NotFound
-from . import db, versions
+from . import db, version_edits
 from .audit import record_audit
 from .codec import encode_reference, night_columns
 from .ingest import case_clash, lock_study
@@ -83,14 +83,19 @@ def _drop_nights(session: Session, *, study: StudyInfo, night_pks: list[int]) ->
     """Remove nights of a recording (scorings and features too); versions trained on them are marked."""
     if not night_pks:
         return []
-    rows = session.execute(select(db.Night.content_hash, db.Night.night_id).where(db.Night.pk.in_(night_pks))).all()
+    rows = session.execute(select(db.Night.content_hash, db.Night.night_id, db.Night.label, db.Participant.pk,
+                                  db.Participant.participant_id)
+                           .join(db.Participant, db.Participant.pk == db.Night.participant_pk)
+                           .where(db.Night.pk.in_(night_pks))).all()
     for table in (db.Scoring, db.NightFeatures):
         session.execute(delete(table).where(table.night_pk.in_(night_pks)))  # type: ignore[attr-defined]
     session.execute(delete(db.Night).where(db.Night.pk.in_(night_pks)))
     session.flush()
-    for content_hash, night_id in rows:
-        versions.mark_deleted_night(session, study=study, content_hash=content_hash, night_id=night_id)
-    return [night_id for _, night_id in rows]
+    for content_hash, night_id, label, participant_pk, participant_id in rows:
+        version_edits.forget_deleted_night(session, study=study, participant_pk=participant_pk,
+                                           participant_id=participant_id, content_hash=content_hash,
+                                           night_id=night_id, label=label)
+    return [row.night_id for row in rows]
 
 
 def replace_derived(session: Session, *, study: StudyInfo, row: db.RecordingRow, participant_pk: int,
@@ -253,6 +258,7 @@ def load_recording(session: Session, *, study_id: str, participant_id: str,
 def delete_recording(session: Session, *, study_id: str, participant_id: str, recording_id: str,
                      actor: str) -> dict[str, Any]:
     """Delete a recording with its nights (their scorings and features); trained versions are marked."""
+    lock_study(session, study_id)  # first, as every writer of the study's nights and versions takes it
     row, study, participant = recording_row(session, study_id=study_id, participant_id=participant_id,
                                             recording_id=recording_id)
     removed = _drop_nights(session, study=study, night_pks=list(

@@ -214,8 +214,11 @@ class ModelVersion(Base):
     #: held-out predictions of the nested validation (see :func:`service.store.codec.encode_held_out`)
     held_out: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True, deferred=True)
     job_id: Mapped[str | None] = mapped_column(String(32), nullable=True)
-    #: night ids of training nights deleted since (the only column that changes after the version is stored)
+    #: night ids of training nights deleted since
     trained_on_deleted_nights: Mapped[list[str] | None] = mapped_column(JSON(none_as_null=True), nullable=True)
+    #: raised whenever the stored records are rewritten (rename carried in, deleted night's held-out rows
+    #: removed: :mod:`service.store.version_edits`); keys the per-process caches with ``uid``
+    revision: Mapped[int] = mapped_column(Integer, default=0, server_default=text("0"))
     created_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)
 
 

@@ -1,12 +1,14 @@
 """The model registry: immutable, numbered versions of personal and pooled models.
 
 Versions are numbered per participant (personal) and per study (pooled), from 1, and never
-change once stored. A number is never given out twice: the last one of each numbering key
+change once stored but by the edits below. A number is never given out twice: the last one of each numbering key
 (``pooled``, or ``personal:<participant id>``) is kept in ``version_counters`` and taken in the
 transaction that stores the version, so deleting a participant (and with it versions), or adding
-a participant again under the same id, never brings a number back. The one later change to a
-version is the list of its training nights deleted since (``trained_on_deleted_nights``); a
-participant rename moves personal versions to new numbers (:func:`move_personal_versions`).
+a participant again under the same id, never brings a number back. Later changes to a version: the
+list of its training nights deleted since (``trained_on_deleted_nights``) with the deleted nights'
+held-out predictions removed, and a participant rename carried into its records (both
+:mod:`service.store.version_edits`, each raising ``revision``); a rename also moves personal
+versions to new numbers (:func:`move_personal_versions`).
 
 Each version holds the model bytes (XGBoost UBJSON plus JSON metadata; no pickle) and its
 metadata (:class:`~service.store.metadata.ModelMetadata`): training nights with their hashes,
@@ -51,8 +53,8 @@ from .snapshots import ParticipantInfo, StudyInfo
 
 __all__ = ["POOLED_SCOPE", "SELECTION_METRIC", "VersionInfo", "activate_version", "active_personal_versions",
            "active_version", "add_version", "counter_key", "get_version", "list_versions", "load_held_out",
-           "load_model", "mark_deleted_night", "move_personal_versions", "next_version_number", "night_flags",
-           "personal_versions_trained_on", "scope_of"]
+           "load_model", "move_personal_versions", "next_version_number", "night_flags",
+           "personal_versions_trained_on", "row_metadata", "scope_of", "stored_hashes"]
 
 POOLED_SCOPE = "pooled"
 #: Held-out metric that decides promotion ("higher is better").
@@ -73,6 +75,8 @@ class VersionInfo:
     metadata: ModelMetadata
     #: night ids of the training nights no longer stored (deleted after, or while, the model trained)
     trained_on_deleted_nights: tuple[str, ...] = ()
+    #: times the stored records were rewritten since (:mod:`service.store.version_edits`)
+    revision: int = 0
 
     @property
     def status(self) -> str:
@@ -133,23 +137,24 @@ def _highest(session: Session, study_pk: int, scope: str) -> int:
         db.ModelVersion.study_pk == study_pk, db.ModelVersion.scope == scope)) or 0, 0)
 
 
-def _stored_hashes(session: Session, study_pk: int, hashes: set[str]) -> set[str]:
+def stored_hashes(session: Session, study_pk: int, hashes: set[str]) -> set[str]:
     """Those of ``hashes`` that some night of the study has."""
     return set(session.scalars(select(db.Night.content_hash).join(
         db.Participant, db.Participant.pk == db.Night.participant_pk).where(
         db.Participant.study_pk == study_pk, db.Night.content_hash.in_(sorted(hashes)))))
 
 
-@cached(LRUCache(maxsize=256), key=lambda row: row.uid, lock=threading.Lock())
-def _metadata(row: db.ModelVersion) -> ModelMetadata:
-    """A version's metadata, read once per process (it is immutable like the version)."""
+@cached(LRUCache(maxsize=256), key=lambda row: (row.uid, row.revision or 0), lock=threading.Lock())
+def row_metadata(row: db.ModelVersion) -> ModelMetadata:
+    """A version's metadata, read once per process and revision (records change only by a new revision)."""
     return ModelMetadata.from_json(row.info)  # loads the deferred column
 
 
 def _info(row: db.ModelVersion) -> VersionInfo:
     return VersionInfo(pk=row.pk, uid=row.uid, kind=row.kind, version=row.version, active=row.is_active,
-                       created_at=row.created_at, job_id=row.job_id, metadata=_metadata(row),
-                       trained_on_deleted_nights=tuple(row.trained_on_deleted_nights or ()))
+                       created_at=row.created_at, job_id=row.job_id, metadata=row_metadata(row),
+                       trained_on_deleted_nights=tuple(row.trained_on_deleted_nights or ()),
+                       revision=row.revision or 0)
 
 
 def _not_worse(new: float | None, old: float | None) -> bool:
@@ -193,11 +198,11 @@ def add_version(session: Session, *, study: StudyInfo, participant: ParticipantI
                                  key=counter_key(None if participant is None else participant.participant_id),
                                  floor=_highest(session, study.pk, scope))
     trained = {n.content_hash: n.night_id for n in metadata.training_nights if n.content_hash}
-    stored = _stored_hashes(session, study.pk, set(trained)) if trained else set()
+    stored = stored_hashes(session, study.pk, set(trained)) if trained else set()
     gone = sorted(n for h, n in trained.items() if h not in stored)
     current = session.scalar(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
                                                            db.ModelVersion.scope == scope, db.ModelVersion.is_active))
-    previous = None if current is None else _metadata(current)
+    previous = None if current is None else row_metadata(current)
     promote = _not_worse(metadata.selection_score, None if previous is None else previous.selection_score)
     kind = "pooled" if participant is None else "personal"
     if (evidence := activation_record(metadata, previous, kind=kind)) is not None:
@@ -229,7 +234,7 @@ def personal_versions_trained_on(session: Session, *, study: StudyInfo, hashes: 
     rows = session.scalars(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk,
                                                          db.ModelVersion.participant_pk.is_not(None),
                                                          db.ModelVersion.participant_pk != other_than))
-    return [_info(r) for r in rows if hashes & set(_metadata(r).training_hashes)]
+    return [_info(r) for r in rows if hashes & set(row_metadata(r).training_hashes)]
 
 
 def list_versions(session: Session, *, study: StudyInfo, participant: ParticipantInfo | None) -> list[VersionInfo]:
@@ -294,39 +299,14 @@ def load_held_out(session: Session, version: VersionInfo) -> list[HeldOutNight]:
     return [] if blob is None else decode_held_out(blob)
 
 
-@cached(LRUCache(maxsize=64), key=lambda session, version: version.uid, condition=threading.Condition())
+@cached(LRUCache(maxsize=64), key=lambda session, version: (version.uid, version.revision),
+        condition=threading.Condition())
 def load_model(session: Session, version: VersionInfo) -> SleepModel:
     """The :class:`models.SleepModel` of a version (kept in a small per-process cache by ``uid``)."""
     row = session.get(db.ModelVersion, version.pk)
     if row is None:
         raise NotFound(f"model version {version.version} was removed")
     return model_from_bytes(row.booster, row.model_meta)
-
-
-def mark_deleted_night(session: Session, *, study: StudyInfo, content_hash: str, night_id: str) -> list[dict[str, Any]]:
-    """Record on every version of the study trained on this content that the night was deleted.
-
-    Call after the night row is deleted: a version is marked only if no night of the study has
-    the content any more (another participant's copy keeps the training data stored). The
-    versions stay readable and usable.
-
-    Returns
-    -------
-    marked : list of dict
-        ``kind``, ``version`` and ``participant_pk`` (None for pooled) of each marked version.
-    """
-    if _stored_hashes(session, study.pk, {content_hash}):
-        return []
-    marked = []
-    for row in session.scalars(select(db.ModelVersion).where(db.ModelVersion.study_pk == study.pk)
-                               .order_by(db.ModelVersion.pk)):
-        if content_hash in _metadata(row).training_hashes:
-            gone = list(row.trained_on_deleted_nights or [])
-            if night_id not in gone:
-                row.trained_on_deleted_nights = [*gone, night_id]
-            marked.append({"kind": row.kind, "version": row.version, "participant_pk": row.participant_pk})
-    session.flush()
-    return marked
 
 
 def move_personal_versions(session: Session, *, study: StudyInfo, source_pk: int, target_pk: int,

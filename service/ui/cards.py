@@ -126,6 +126,7 @@ def model_card(version: VersionInfo, *, study_id: str, participant_id: str | Non
             "correction_weight": meta.correction_weight,
         },
         "validation": {"scheme": _VALIDATION.get(version.kind, ""), "held_out_nights": meta.metrics.n_nights,
+                       "removed_held_out_nights": list(meta.removed_held_out_nights),
                        "metrics": {name: metrics[name] for name in CARD_METRICS if name in metrics},
                        "selection_metric": None if meta.selection is None else meta.selection.metric,
                        "activation": None if meta.activation is None else meta.activation.model_dump(mode="json"),
@@ -190,7 +191,9 @@ def model_card_markdown(card: dict[str, Any]) -> str:
         lines.append(f"  - {n['participant_id']} night {n['night_id']}" + (f" ({n['label']})" if n["label"] else "")
                      + (f" — flagged: {', '.join(n['qc_warnings'])}" if n.get("qc_warnings") else ""))
     lines += ["", "## Validation", "", validation["scheme"], "",
-              f"Held-out nights: {validation['held_out_nights'] or '–'}", "",
+              f"Held-out nights: {validation['held_out_nights'] or '–'}"
+              + (f" (figures computed again without {len(removed)} night(s) deleted since: {', '.join(removed)})"
+                 if (removed := validation.get("removed_held_out_nights")) else ""), "",
               "| metric | mean | SD |", "|---|---|---|"]
     for name, stats in validation["metrics"].items():
         lines.append(f"| {name.replace('_', ' ')} | {_fmt(stats.get('mean'))} | {_fmt(stats.get('sd'))} |")

@@ -35,9 +35,11 @@ def _invoke(*args: str):
 
 def test_compare_json_holds_every_participant_and_the_rules_figures(tmp_path: Path) -> None:
     nights = _study(tmp_path)
-    out = _invoke(str(tmp_path), "--trials", "2", "--json")
+    out = _invoke(str(tmp_path), "--trials", "2", "--interval-level", "0.8", "--json")
     assert out.exit_code == 0, out.output
     report = json.loads(out.stdout)
+    # the held-out intervals, and so their coverage, are at the level asked for (the default is 0.9)
+    assert report["interval_coverage"] and {r["level"] for r in report["interval_coverage"]} == {0.8}
     assert sorted(r["participant_id"] for r in report["participants"]) == sorted(nights)
     ours = {r["night_id"]: r for r in report["epoch_metrics"] if r["level"] == "night" and r["method"] == "sadeh"}
     records = [NightRecord.from_night(n) for v in nights.values() for n in v if n.reference is not None]
@@ -51,3 +53,6 @@ def test_compare_json_holds_every_participant_and_the_rules_figures(tmp_path: Pa
 def test_compare_rejects_a_missing_folder(tmp_path: Path) -> None:
     out = _invoke(str(tmp_path / "nope"))
     assert out.exit_code == 1 and "not_a_directory" in out.output and "Traceback" not in out.output
+    for level in ("1", "0", "-0.5"):
+        bad = _invoke(str(tmp_path), "--interval-level", level)
+        assert bad.exit_code == 2 and "--interval-level" in bad.output and "Traceback" not in bad.output, level

@@ -102,7 +102,8 @@ def test_metadata_of_rows_stored_before_reads_as_attributes(owners) -> None:
                                                                                 "flagged_nights": [],
                                                                                 "offset_rule": None, "activation": None,
                                                                                 "corrected_nights": 0,
-                                                                                "correction_weight": None}
+                                                                                "correction_weight": None,
+                                                                                "removed_held_out_nights": []}
 
 
 def test_flagged_training_nights_read_back_from_their_stored_form(owners) -> None:

@@ -39,9 +39,14 @@ async def study_comparison(access: AnalystAccess, factory: FactoryDep) -> Any:
                                          "application/vnd.apache.parquet": {"schema": {"type": "string",
                                                                                        "format": "binary"}}}}})
 async def export_parameters(access: AnalystAccess, factory: FactoryDep,
-                            format: Annotated[Literal["csv", "parquet"], Query()] = "csv") -> Response:  # noqa: A002
-    """Sleep parameters, one row per night and method (CSV or Parquet)."""
-    body = await run_in_threadpool(reports.export_parameters, factory, study_id=access.study_id, fmt=format)
+                            format: Annotated[Literal["csv", "parquet"], Query()] = "csv",  # noqa: A002
+                            interval_level: Annotated[float | None, Query(
+                                gt=0, lt=1, description="level of the per-night intervals (default: the study "
+                                                        "protocol's); held-out intervals are kept only where they "
+                                                        "were computed at this level")] = None) -> Response:
+    """Sleep parameters, one row per night and method (CSV or Parquet), intervals with their level."""
+    body = await run_in_threadpool(reports.export_parameters, factory, study_id=access.study_id, fmt=format,
+                                   interval_level=interval_level)
     media = "text/csv" if format == "csv" else "application/vnd.apache.parquet"
     filename = f"{access.study_id}-parameters.{format}"
     return Response(content=body, media_type=media,

@@ -127,6 +127,7 @@ def _version_out(v: versions.VersionInfo) -> ModelVersionOut:
         hyperparameters=meta.hyperparameters,
         library_versions=meta.library_versions, training_nights=[n.model_dump() for n in meta.training_nights],
         trained_on_deleted_nights=list(v.trained_on_deleted_nights),
+        removed_held_out_nights=list(meta.removed_held_out_nights),
         flagged_training_nights=[FlaggedTrainingNightOut.model_validate(n.model_dump())
                                  for n in meta.flagged_nights],
         activation=None if meta.activation is None else ActivationOut.model_validate(meta.activation.model_dump()))
