@@ -5,8 +5,8 @@ Sleep is the positive class (1 = sleep, 0 = wake). Epochs that are NaN in the re
 dropped before anything is computed: ``n_epochs`` counts the compared epochs,
 ``excluded_epochs`` the dropped ones and ``unscored_epochs`` those the prediction left unscored.
 The metrics are scikit-learn's (``sklearn.metrics``), computed here from the 2 x 2 confusion
-with its formulas and order of operations (the tests compare both); where a metric is undefined for the data at hand it is
-NaN, never a warning:
+with its formulas and order of operations (the tests compare both); where a metric is undefined
+for the data at hand it is NaN, never a warning:
 
 =====================  =====================================  ==========================================
 name                   definition                             NaN when

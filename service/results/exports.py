@@ -27,8 +27,8 @@ from __future__ import annotations
 
 import io
 import json
-from dataclasses import dataclass
 from collections.abc import Iterator
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -55,10 +55,10 @@ from ..store import db, versions
 from ..store.codec import night_from_row
 from ..store.protocols import study_protocol
 from ..store.registry import find_study, study_participants
+from .bulk_scoring import CHUNK_NIGHTS, bulk_scorings
 from .held_out import active_held_out as _active_held_out
 from .held_out import add_auto, version_of
 from .night_intervals import INTERVAL_PARAMETERS
-from .bulk_scoring import CHUNK_NIGHTS, bulk_scorings
 
 __all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "INTERVAL_COLUMNS", "ExportStream", "export_frame",
            "export_parameters", "export_stream", "neutralise_formulas"]

@@ -76,8 +76,8 @@ from ..store.snapshots import ParticipantInfo, StudyInfo
 from .model_flags import auto_choice
 from .night_intervals import decoded_extras, interval_seed, probabilities
 
-__all__ = ["SCORING_METHODS", "compute_scoring", "fresh_scoring", "resolve_method", "score_night", "scoring_key", "study_uncertainty",
-           "uses_current_nights"]
+__all__ = ["SCORING_METHODS", "compute_scoring", "fresh_scoring", "resolve_method", "score_night", "scoring_key",
+           "study_uncertainty", "uses_current_nights"]
 
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 #: part of every cache key: bump when a stored scoring body would now come out differently
