@@ -37,10 +37,12 @@ from .client_recordings import RecordingMethods
 from .client_reviews import ReviewMethods
 from .errors import BadRequest, ServiceError
 
-__all__ = ["FORMAT_MEDIA_TYPES", "KEEP", "NightbankClient", "problem_error"]
+__all__ = ["FORMAT_MEDIA_TYPES", "KEEP", "NightbankClient", "Progress", "problem_error"]
 
 #: night file format -> content type of the ingest request
 FORMAT_MEDIA_TYPES = {"json": "application/json", "csv": "text/csv", "parquet": "application/vnd.apache.parquet"}
+#: ``progress(done, total)`` of a streamed download (total None when the server did not announce it)
+Progress = Callable[[int, "int | None"], None]
 #: the epoch length a study gets when none is given, seconds
 DEFAULT_EPOCH_SECONDS = 30
 
@@ -68,7 +70,7 @@ class NightbankClient(RecordingMethods, ReviewMethods):
     token : str
         Bearer token (``nightbank token create``).
     timeout_s : float, default=60.0
-        Per-request timeout, seconds.
+        Per-request timeout, seconds; for streamed exports, the longest wait between two chunks.
     transport : httpx.BaseTransport, optional
         A custom transport (``httpx.MockTransport``, a proxy); default: plain HTTP.
     """
@@ -100,6 +102,31 @@ class NightbankClient(RecordingMethods, ReviewMethods):
 
     def _json(self, method: str, url: str, **kwargs: Any) -> Any:
         return self._request(method, url, **kwargs).json()
+
+    def _download(self, url: str, *, params: Mapping[str, Any], total_header: str,
+                  progress: Progress | None = None) -> bytes:
+        """A streamed body, read chunk by chunk: the client's timeout applies between chunks, not to the whole body.
+
+        ``progress(done, total)`` is called after each chunk with the CSV lines received after the
+        header and the total the server announced in ``total_header`` (None when not sent).
+        """
+        try:
+            with self._http.stream("GET", url, params=params) as response:
+                if response.is_error:
+                    response.read()
+                    raise problem_error(response)
+                announced = response.headers.get(total_header)
+                total = int(announced) if announced and announced.isdigit() else None
+                chunks, lines = [], 0
+                for chunk in response.iter_bytes():
+                    chunks.append(chunk)
+                    lines += chunk.count(b"\n")
+                    if progress is not None:
+                        progress(max(lines - 1, 0), total)
+        except httpx.TransportError as exc:
+            raise ServiceError(f"cannot reach the server at {self.base_url} or it stopped sending: "
+                               f"{exc or type(exc).__name__}", code="server_unreachable") from None
+        return b"".join(chunks)
 
     # ---- studies, participants, nights ----------------------------------------------------
     def health(self) -> dict[str, Any]:
@@ -360,9 +387,14 @@ class NightbankClient(RecordingMethods, ReviewMethods):
     def study_comparison(self, study: str) -> dict[str, Any]:
         return self._json("GET", f"/v1/studies/{study}/comparison")
 
-    def export_parameters(self, study: str, *, fmt: str = "csv") -> bytes:
-        return self._request("GET", f"/v1/studies/{study}/exports/parameters", params={"format": fmt},
-                             timeout=600).content
+    def export_parameters(self, study: str, *, fmt: str = "csv", progress: Progress | None = None) -> bytes:
+        """Every night's and method's sleep parameters, CSV or Parquet bytes.
+
+        The server streams the export as it computes it; the client's timeout is the longest wait
+        between two chunks. ``progress(rows_received, rows_total)`` follows a CSV export.
+        """
+        return self._download(f"/v1/studies/{study}/exports/parameters", params={"format": fmt},
+                              total_header="X-Export-Rows", progress=progress)
 
     def get_protocol(self, study: str) -> dict[str, Any]:
         """The study's protocol (``protocol``, ``fingerprint``, ``is_default``, ``updated_at``, ``updated_by``)."""
