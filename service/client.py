@@ -35,14 +35,13 @@ import httpx
 from .client_errors import problem_error
 from .client_recordings import RecordingMethods
 from .client_reviews import ReviewMethods
+from .client_stream import Progress, download
 from .errors import BadRequest, ServiceError
 
 __all__ = ["FORMAT_MEDIA_TYPES", "KEEP", "NightbankClient", "Progress", "problem_error"]
 
 #: night file format -> content type of the ingest request
 FORMAT_MEDIA_TYPES = {"json": "application/json", "csv": "text/csv", "parquet": "application/vnd.apache.parquet"}
-#: ``progress(done, total)`` of a streamed download (total None when the server did not announce it)
-Progress = Callable[[int, "int | None"], None]
 #: the epoch length a study gets when none is given, seconds
 DEFAULT_EPOCH_SECONDS = 30
 
@@ -105,28 +104,7 @@ class NightbankClient(RecordingMethods, ReviewMethods):
 
     def _download(self, url: str, *, params: Mapping[str, Any], total_header: str,
                   progress: Progress | None = None) -> bytes:
-        """A streamed body, read chunk by chunk: the client's timeout applies between chunks, not to the whole body.
-
-        ``progress(done, total)`` is called after each chunk with the CSV lines received after the
-        header and the total the server announced in ``total_header`` (None when not sent).
-        """
-        try:
-            with self._http.stream("GET", url, params=params) as response:
-                if response.is_error:
-                    response.read()
-                    raise problem_error(response)
-                announced = response.headers.get(total_header)
-                total = int(announced) if announced and announced.isdigit() else None
-                chunks, lines = [], 0
-                for chunk in response.iter_bytes():
-                    chunks.append(chunk)
-                    lines += chunk.count(b"\n")
-                    if progress is not None:
-                        progress(max(lines - 1, 0), total)
-        except httpx.TransportError as exc:
-            raise ServiceError(f"cannot reach the server at {self.base_url} or it stopped sending: "
-                               f"{exc or type(exc).__name__}", code="server_unreachable") from None
-        return b"".join(chunks)
+        return download(self._http, url, params=params, total_header=total_header, progress=progress)
 
     # ---- studies, participants, nights ----------------------------------------------------
     def health(self) -> dict[str, Any]:
@@ -388,11 +366,8 @@ class NightbankClient(RecordingMethods, ReviewMethods):
         return self._json("GET", f"/v1/studies/{study}/comparison")
 
     def export_parameters(self, study: str, *, fmt: str = "csv", progress: Progress | None = None) -> bytes:
-        """Every night's and method's sleep parameters, CSV or Parquet bytes.
-
-        The server streams the export as it computes it; the client's timeout is the longest wait
-        between two chunks. ``progress(rows_received, rows_total)`` follows a CSV export.
-        """
+        """Every night's and method's sleep parameters, CSV or Parquet bytes, streamed as the server computes them
+        (the timeout is the longest wait between chunks); ``progress(rows_received, rows_total)`` follows CSV."""
         return self._download(f"/v1/studies/{study}/exports/parameters", params={"format": fmt},
                               total_header="X-Export-Rows", progress=progress)
 

@@ -353,24 +353,20 @@ def study_uncertainty(factory: sessionmaker[Session], *, study_id: str, method: 
             .join(db.Night, db.Night.participant_pk == db.Participant.pk)
             .where(db.Participant.study_pk == study.pk)
             .order_by(db.Participant.participant_id, db.Night.start_utc, db.Night.night_id)).all()
-    labels = {(pid, night_id): label for pid, night_id, label in nights}
-    from .bulk_scoring import bulk_scorings  # it builds on this module
-
     out = []
-    for chunk in bulk_scorings(factory, study_id=study_id, method=method,
-                               nights=[(pid, night_id) for pid, night_id, _ in nights], writer=writer):
-        for pid, night_id, found in chunk:
-            label = labels[(pid, night_id)]
-            row: dict[str, Any] = {"participant_id": pid, "night_id": night_id, "label": label,
-                                   "method": None, "model_version": None, "uncertainty_min": None,
-                                   "interval_level": None}
-            if isinstance(found, Exception):
-                if not isinstance(found, Unprocessable) or found.code != "no_model":
-                    raise found
-            else:
-                body = json.loads(found)
-                row |= {k: body.get(k) for k in ("method", "model_version", "uncertainty_min", "interval_level")}
-            out.append(row)
+    for participant_id, night_id, label in nights:
+        row: dict[str, Any] = {"participant_id": participant_id, "night_id": night_id, "label": label,
+                               "method": None, "model_version": None, "uncertainty_min": None,
+                               "interval_level": None}
+        try:
+            body = json.loads(score_night(factory, study_id=study_id, participant_id=participant_id,
+                                          night_id=night_id, method=method, writer=writer))
+        except Unprocessable as exc:
+            if exc.code != "no_model":
+                raise
+        else:
+            row |= {k: body.get(k) for k in ("method", "model_version", "uncertainty_min", "interval_level")}
+        out.append(row)
     return out
 
 
