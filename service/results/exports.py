@@ -28,7 +28,7 @@ from __future__ import annotations
 import io
 import json
 from collections.abc import Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -193,7 +193,22 @@ class _Export:
     protocol_text: str
     held_out: Any
     used: dict[str, int | None]
-    auto_chosen: dict[str, dict[str, str]]
+    policies: dict[str, str]
+    #: participant -> night id -> the model auto chose without the night (filled as participants come up)
+    auto_chosen: dict[str, dict[str, str]] = field(default_factory=dict)
+    auto_done: set[str] = field(default_factory=set)
+
+    def add_auto(self, participant_id: str) -> None:
+        """``auto``'s nested held-out predictions of a participant's labelled nights (once, when first needed)."""
+        if participant_id in self.auto_done:
+            return
+        labelled = [t.night for t in self.targets if t.participant_id == participant_id and t.night.has_reference]
+        choice = add_auto(self.held_out.setdefault(participant_id, {}), labelled,
+                          policy=self.policies[participant_id])
+        if choice is not None:
+            self.auto_chosen[participant_id] = dict(zip(choice.per_night["night_id"], choice.per_night["chosen"],
+                                                        strict=True))
+        self.auto_done.add(participant_id)
 
     def methods(self, t: _Target) -> list[str]:
         return [m for m in EXPORT_METHODS if not ((m == "personal" and not t.has_personal)
@@ -217,14 +232,8 @@ def _prepare(factory: sessionmaker[Session], study_id: str) -> _Export:
         targets, pooled, policies = _targets(session, study_id)
         protocol = study_protocol(session, study_id)
         held_out, used = _active_held_out(session, find_study(session, study_id))
-    auto_chosen: dict[str, dict[str, str]] = {}  # participant -> night id -> model auto chose without the night
-    for pid, policy in policies.items():
-        labelled = [t.night for t in targets if t.participant_id == pid and t.night.has_reference]
-        choice = add_auto(held_out.setdefault(pid, {}), labelled, policy=policy)
-        if choice is not None:
-            auto_chosen[pid] = dict(zip(choice.per_night["night_id"], choice.per_night["chosen"], strict=True))
     protocol_text = json.dumps(protocol.to_dict(), sort_keys=True, separators=(",", ":"))
-    return _Export(study_id, targets, pooled, protocol, protocol_text, held_out, used, auto_chosen)
+    return _Export(study_id, targets, pooled, protocol, protocol_text, held_out, used, policies)
 
 
 def _deployed_bodies(factory: sessionmaker[Session], export: _Export, targets: list[_Target]) -> _Bodies:
@@ -246,6 +255,8 @@ def _deployed_bodies(factory: sessionmaker[Session], export: _Export, targets: l
 
 def _rows(factory: sessionmaker[Session], export: _Export, targets: list[_Target]) -> list[dict[str, Any]]:
     """The export's rows of ``targets`` (a slice of ``export.targets``)."""
+    for pid in dict.fromkeys(t.participant_id for t in targets):
+        export.add_auto(pid)
     bodies = _deployed_bodies(factory, export, targets)
     rows: list[dict[str, Any]] = []
     for t in targets:
