@@ -102,7 +102,7 @@ class NightbankClient(RecordingMethods, ReviewMethods):
     def _json(self, method: str, url: str, **kwargs: Any) -> Any:
         return self._request(method, url, **kwargs).json()
 
-    def _download(self, url: str, *, params: Mapping[str, Any], total_header: str,
+    def _download(self, url: str, *, params: Mapping[str, Any], total_header: str | None,
                   progress: Progress | None = None) -> bytes:
         return download(self._http, url, params=params, total_header=total_header, progress=progress)
 

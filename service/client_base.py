@@ -23,7 +23,7 @@ class ClientCalls:
     def _json(self, method: str, url: str, **kwargs: Any) -> Any:
         raise NotImplementedError
 
-    def _download(self, url: str, *, params: Mapping[str, Any], total_header: str,
+    def _download(self, url: str, *, params: Mapping[str, Any], total_header: str | None,
                   progress: Callable[[int, int | None], None] | None = None) -> bytes:
         raise NotImplementedError
 

@@ -132,5 +132,5 @@ class RecordingMethods(ClientCalls):
         longest wait between chunks); ``progress(rows_received, None)`` follows a CSV export.
         """
         params = {"format": fmt, "method": method} | ({"participant": participant} if participant else {})
-        return self._download(f"/v1/studies/{study}/exports/days", params=params, total_header="X-Export-Day-Rows",
+        return self._download(f"/v1/studies/{study}/exports/days", params=params, total_header=None,
                               progress=progress)

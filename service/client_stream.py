@@ -16,12 +16,12 @@ __all__ = ["Progress", "download"]
 Progress = Callable[[int, "int | None"], None]
 
 
-def download(http: httpx.Client, url: str, *, params: Mapping[str, Any], total_header: str,
+def download(http: httpx.Client, url: str, *, params: Mapping[str, Any], total_header: str | None,
              progress: Progress | None = None) -> bytes:
     """A streamed body, read chunk by chunk: the client's timeout applies between chunks, not to the whole body.
 
     ``progress(done, total)`` is called after each chunk with the CSV lines received after the
-    header and the total the server announced in ``total_header`` (None when not sent).
+    header and the total the server announced in ``total_header`` (None when not sent or not asked for).
 
     Raises
     ------
@@ -33,7 +33,7 @@ def download(http: httpx.Client, url: str, *, params: Mapping[str, Any], total_h
             if response.is_error:
                 response.read()
                 raise problem_error(response)
-            announced = response.headers.get(total_header)
+            announced = None if total_header is None else response.headers.get(total_header)
             total = int(announced) if announced and announced.isdigit() else None
             chunks, lines = [], 0
             for chunk in response.iter_bytes():
