@@ -35,9 +35,10 @@ import httpx
 from .client_errors import problem_error
 from .client_recordings import RecordingMethods
 from .client_reviews import ReviewMethods
+from .client_stream import Progress, download
 from .errors import BadRequest, ServiceError
 
-__all__ = ["FORMAT_MEDIA_TYPES", "KEEP", "NightbankClient", "problem_error"]
+__all__ = ["FORMAT_MEDIA_TYPES", "KEEP", "NightbankClient", "Progress", "problem_error"]
 
 #: night file format -> content type of the ingest request
 FORMAT_MEDIA_TYPES = {"json": "application/json", "csv": "text/csv", "parquet": "application/vnd.apache.parquet"}
@@ -68,7 +69,7 @@ class NightbankClient(RecordingMethods, ReviewMethods):
     token : str
         Bearer token (``nightbank token create``).
     timeout_s : float, default=60.0
-        Per-request timeout, seconds.
+        Per-request timeout, seconds; for streamed exports, the longest wait between two chunks.
     transport : httpx.BaseTransport, optional
         A custom transport (``httpx.MockTransport``, a proxy); default: plain HTTP.
     """
@@ -100,6 +101,10 @@ class NightbankClient(RecordingMethods, ReviewMethods):
 
     def _json(self, method: str, url: str, **kwargs: Any) -> Any:
         return self._request(method, url, **kwargs).json()
+
+    def _download(self, url: str, *, params: Mapping[str, Any], total_header: str | None,
+                  progress: Progress | None = None) -> bytes:
+        return download(self._http, url, params=params, total_header=total_header, progress=progress)
 
     # ---- studies, participants, nights ----------------------------------------------------
     def health(self) -> dict[str, Any]:
@@ -360,11 +365,16 @@ class NightbankClient(RecordingMethods, ReviewMethods):
     def study_comparison(self, study: str) -> dict[str, Any]:
         return self._json("GET", f"/v1/studies/{study}/comparison")
 
-    def export_parameters(self, study: str, *, fmt: str = "csv", interval_level: float | None = None) -> bytes:
+    def export_parameters(self, study: str, *, fmt: str = "csv", interval_level: float | None = None,
+                          progress: Progress | None = None) -> bytes:
+        """Every night's and method's sleep parameters, CSV or Parquet bytes, streamed as the server computes them
+        (the timeout is the longest wait between chunks); ``progress(rows_received, rows_total)`` follows CSV.
+        ``interval_level`` (in (0, 1); None: the study protocol's) is the level of the intervals."""
         params: dict[str, Any] = {"format": fmt}
         if interval_level is not None:
             params["interval_level"] = interval_level
-        return self._request("GET", f"/v1/studies/{study}/exports/parameters", params=params, timeout=600).content
+        return self._download(f"/v1/studies/{study}/exports/parameters", params=params,
+                              total_header="X-Export-Rows", progress=progress)
 
     def get_protocol(self, study: str) -> dict[str, Any]:
         """The study's protocol (``protocol``, ``fingerprint``, ``is_default``, ``updated_at``, ``updated_by``)."""

@@ -6,7 +6,7 @@ resource module can be read and type-checked on its own.
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from typing import Any
 
 import httpx
@@ -21,6 +21,10 @@ class ClientCalls:
         raise NotImplementedError
 
     def _json(self, method: str, url: str, **kwargs: Any) -> Any:
+        raise NotImplementedError
+
+    def _download(self, url: str, *, params: Mapping[str, Any], total_header: str | None,
+                  progress: Callable[[int, int | None], None] | None = None) -> bytes:
         raise NotImplementedError
 
     def _pages(self, url: str, page_size: int = 500, params: Mapping[str, Any] | None = None

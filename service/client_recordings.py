@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -124,7 +124,13 @@ class RecordingMethods(ClientCalls):
                           params={"method": method, "day_start": day_start}, timeout=600)
 
     def export_days(self, study: str, *, fmt: str = "csv", method: str = "auto",
-                    participant: str | None = None) -> bytes:
-        """Every recording's day rows of the study (or of one participant), CSV or Parquet bytes."""
+                    participant: str | None = None,
+                    progress: Callable[[int, int | None], None] | None = None) -> bytes:
+        """Every recording's day rows of the study (or of one participant), CSV or Parquet bytes.
+
+        Streamed like :meth:`~service.client.NightbankClient.export_parameters` (the timeout is the
+        longest wait between chunks); ``progress(rows_received, None)`` follows a CSV export.
+        """
         params = {"format": fmt, "method": method} | ({"participant": participant} if participant else {})
-        return self._request("GET", f"/v1/studies/{study}/exports/days", params=params, timeout=600).content
+        return self._download(f"/v1/studies/{study}/exports/days", params=params, total_header=None,
+                              progress=progress)

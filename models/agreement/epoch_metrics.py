@@ -4,8 +4,9 @@ Sleep is the positive class (1 = sleep, 0 = wake). Epochs that are NaN in the re
 (unscored, excluded) or in the prediction (unscored by the method, e.g. missing counts) are
 dropped before anything is computed: ``n_epochs`` counts the compared epochs,
 ``excluded_epochs`` the dropped ones and ``unscored_epochs`` those the prediction left unscored.
-The metrics come from scikit-learn; where a metric is undefined for the data at hand it is
-NaN, never a warning:
+The metrics are scikit-learn's (``sklearn.metrics``), computed here from the 2 x 2 confusion
+with its formulas and order of operations (the tests compare both); where a metric is undefined
+for the data at hand it is NaN, never a warning:
 
 =====================  =====================================  ==========================================
 name                   definition                             NaN when
@@ -36,14 +37,6 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from sklearn.metrics import (
-    accuracy_score,
-    balanced_accuracy_score,
-    cohen_kappa_score,
-    matthews_corrcoef,
-    precision_recall_fscore_support,
-    roc_auc_score,
-)
 
 from ..scoring.rescoring import InvalidSleepVectorError, as_sleep_vector
 
@@ -121,24 +114,69 @@ def epoch_agreement(reference: ArrayLike, predicted: ArrayLike, *,
     if y.size == 0:
         return out | dict.fromkeys(EPOCH_METRIC_NAMES, float("nan"))
     two_ref, two_pred = y.min() != y.max(), p.min() != p.max()
-    precision, recall, f1, _ = precision_recall_fscore_support(
-        y, p, labels=_LABELS, average=None, zero_division=np.nan)
-    accuracy = float(accuracy_score(y, p))
+    # the 2 x 2 confusion (rows: reference wake, sleep; columns: predicted), then scikit-learn's formulas
+    tp = float(np.count_nonzero(y & p))
+    true_sleep, predicted_sleep = float(np.count_nonzero(y)), float(np.count_nonzero(p))
+    fn, fp = true_sleep - tp, predicted_sleep - tp
+    tn = float(y.size) - tp - fn - fp
     nan = float("nan")
+    sensitivity, specificity = _ratio(tp, tp + fn), _ratio(tn, tn + fp)
+    accuracy = (tp + tn) / float(y.size)
     out |= {
-        "sensitivity": float(recall[1]), "specificity": float(recall[0]),
-        "ppv": float(precision[1]), "npv": float(precision[0]),
+        "sensitivity": sensitivity, "specificity": specificity,
+        "ppv": _ratio(tp, tp + fp), "npv": _ratio(tn, tn + fn),
         "accuracy": accuracy,
-        "balanced_accuracy": float(balanced_accuracy_score(y, p)) if two_ref else nan,
-        "f1_sleep": float(f1[1]), "f1_wake": float(f1[0]),
-        "kappa": float(cohen_kappa_score(y, p, labels=_LABELS)) if (two_ref or two_pred or y[0] != p[0]) else nan,
+        "balanced_accuracy": float(np.mean(np.array([specificity, sensitivity]))) if two_ref else nan,
+        "f1_sleep": _ratio(2.0 * tp, true_sleep + predicted_sleep),
+        "f1_wake": _ratio(2.0 * tn, (float(y.size) - true_sleep) + (float(y.size) - predicted_sleep)),
+        "kappa": _kappa(tn, fp, fn, tp) if (two_ref or two_pred or y[0] != p[0]) else nan,
         "pabak": 2.0 * accuracy - 1.0,  # Byrt et al. 1993; Menghini et al. 2021 glossary
-        "mcc": float(matthews_corrcoef(y, p)) if (two_ref and two_pred) else nan,
+        "mcc": _mcc(tn, fp, fn, tp) if (two_ref and two_pred) else nan,
         "auc": nan,
     }
     if scores is not None and two_ref and np.isfinite(scores[keep]).all():
-        out["auc"] = float(roc_auc_score(y, scores[keep]))
+        out["auc"] = _roc_auc(y, scores[keep])
     return out
+
+
+def _ratio(numerator: float, denominator: float) -> float:
+    return numerator / denominator if denominator else float("nan")
+
+
+def _kappa(tn: float, fp: float, fn: float, tp: float) -> float:
+    """Cohen's kappa of a 2 x 2 confusion, in the order of operations of ``sklearn.metrics.cohen_kappa_score``."""
+    confusion = np.array([[tn, fp], [fn, tp]])
+    sum0, sum1 = confusion.sum(axis=0), confusion.sum(axis=1)
+    expected = np.outer(sum0, sum1) / np.sum(sum0)
+    off = np.ones((2, 2)) - np.eye(2)
+    return float(1 - np.sum(off * confusion) / np.sum(off * expected))
+
+
+def _mcc(tn: float, fp: float, fn: float, tp: float) -> float:
+    """Matthews correlation of a 2 x 2 confusion, as ``sklearn.metrics.matthews_corrcoef`` computes it."""
+    t_sum, p_sum = np.array([tn + fp, fn + tp]), np.array([tn + fn, fp + tp])
+    n_samples = p_sum.sum()
+    cov_ytyp = (tn + tp) * n_samples - np.dot(t_sum, p_sum)
+    cov_ypyp_ytyt = (n_samples**2 - np.dot(p_sum, p_sum)) * (n_samples**2 - np.dot(t_sum, t_sum))
+    return float(cov_ytyp / np.sqrt(cov_ypyp_ytyt)) if cov_ypyp_ytyt else 0.0
+
+
+def _roc_auc(y: NDArray[np.int8], score: NDArray[np.float64]) -> float:
+    """Area under the ROC curve (both classes present), the trapezoids of ``sklearn.metrics.roc_curve``.
+
+    The curve's points are those of ``roc_curve(drop_intermediate=True)``, so the sum of the
+    trapezoids is taken over the same points in the same order.
+    """
+    order = np.argsort(-score, kind="stable")
+    ordered, truth = score[order], y[order].astype(np.float64)
+    thresholds = np.r_[np.flatnonzero(np.diff(ordered)), truth.size - 1]
+    tps = np.cumsum(truth)[thresholds]
+    fps = 1 + thresholds.astype(np.float64) - tps
+    if fps.shape[0] > 2:
+        keep = np.r_[True, np.logical_or(np.diff(fps, 2), np.diff(tps, 2)), True]
+        fps, tps = fps[keep], tps[keep]
+    fpr, tpr = np.r_[0.0, fps] / fps[-1], np.r_[0.0, tps] / tps[-1]
+    return float(np.trapezoid(tpr, fpr))
 
 
 @dataclass(frozen=True, eq=False)

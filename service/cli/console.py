@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
 from rich.markup import escape
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
 from models import NightbankError, Problem
 
@@ -25,6 +26,7 @@ __all__ = [
     "TzOption",
     "YesOption",
     "connect",
+    "download_progress",
     "console",
     "err_console",
     "exit_code_of",
@@ -52,6 +54,19 @@ def connect(server: str, token: str) -> NightbankClient:
     from ..client import NightbankClient
 
     return NightbankClient(server, token=token)
+
+
+def download_progress(description: str) -> tuple[Progress, Callable[[int, int | None], None]]:
+    """A progress bar for a streamed download and the ``progress(done, total)`` callback that moves it
+    (rows received; the bar fills once the server has announced the total)."""
+    bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
+                   console=console)
+    task = bar.add_task(description, total=None)
+
+    def advance(done: int, total: int | None) -> None:
+        bar.update(task, completed=done, total=total)
+
+    return bar, advance
 
 
 def exit_code_of(exc: NightbankError) -> int:

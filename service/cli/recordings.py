@@ -19,7 +19,7 @@ from models import InvalidNightError, NightbankError, read_diary, read_hypnogram
 
 from ..errors import InvalidSettings
 from .application import app
-from .console import DEFAULT_URL, ServerOption, TokenOption, connect, console
+from .console import DEFAULT_URL, ServerOption, TokenOption, connect, console, download_progress
 
 __all__ = ["check_recording_files", "is_recording_file", "push_recording_files", "recording_files"]
 
@@ -132,7 +132,8 @@ def days(
     fmt = output.suffix.lower().lstrip(".")
     if fmt not in ("csv", "parquet"):
         raise InvalidSettings(f"{output.name}: write the day table to a .csv or .parquet file")
-    with connect(server, token) as client, console.status("scoring the nights of the recordings"):
-        data = client.export_days(study, fmt=fmt, method=method, participant=participant)
+    bar, advance = download_progress("day rows received")
+    with connect(server, token) as client, bar:
+        data = client.export_days(study, fmt=fmt, method=method, participant=participant, progress=advance)
     output.write_bytes(data)
     console.print(f"wrote {output} ({len(data)} bytes)")

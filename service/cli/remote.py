@@ -26,7 +26,17 @@ from models import InvalidNightError, NightbankError, NightOptions
 
 from ..errors import Incomplete
 from .application import app
-from .console import DEFAULT_URL, ServerOption, TokenOption, TzOption, connect, console, err_console, problem_line
+from .console import (
+    DEFAULT_URL,
+    ServerOption,
+    TokenOption,
+    TzOption,
+    connect,
+    console,
+    download_progress,
+    err_console,
+    problem_line,
+)
 from .data import night_summary
 from .profiles import fetch_profile, read_night_file
 from .protocol_options import IntervalLevelOption
@@ -316,7 +326,8 @@ def export(
     per-night intervals and the level of those (held-out intervals only where computed at that level)."""
     if fmt not in ("csv", "parquet"):
         raise typer.BadParameter("choose csv or parquet", param_hint="--format")
-    with connect(server, token) as client, console.status("computing the export"):
-        data = client.export_parameters(study, fmt=fmt, interval_level=interval_level)
+    bar, advance = download_progress("rows of the export")
+    with connect(server, token) as client, bar:
+        data = client.export_parameters(study, fmt=fmt, interval_level=interval_level, progress=advance)
     output.write_bytes(data)
     console.print(f"wrote {output} ({len(data)} bytes)")

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import json
 import math
+from collections.abc import Iterator
 from dataclasses import replace
 from typing import Any
 
@@ -31,9 +32,10 @@ from ..store import recordings as store
 from ..store.db import session_scope
 from ..store.protocols import study_protocol
 from ..store.recording_codec import nonwear_from_records, period_from_record
+from .bulk_scoring import bulk_scorings
 from .scoring import SCORING_METHODS, score_night
 
-__all__ = ["DAY_COLUMNS", "FALLBACK_RULE", "day_table", "export_days", "recording_days"]
+__all__ = ["DAY_COLUMNS", "FALLBACK_RULE", "day_table", "export_days", "export_days_stream", "recording_days"]
 
 #: the columns of a day row, in order
 DAY_COLUMNS: tuple[str, ...] = (
@@ -46,10 +48,19 @@ FALLBACK_RULE = "cole-kripke"
 FREE_EVENINGS = (4, 5)
 
 
+#: (participant id, night id, method) -> a scoring body (or the error scoring it raised), computed ahead in bulk
+Scored = dict[tuple[str, str, str], "bytes | Exception"]
+
+
 def _scored(factory: sessionmaker[Session], *, study_id: str, participant_id: str, night_id: str,
-            method: str) -> dict[str, Any]:
-    return json.loads(score_night(factory, study_id=study_id, participant_id=participant_id, night_id=night_id,
-                                  method=method))
+            method: str, ahead: Scored | None = None) -> dict[str, Any]:
+    found = None if ahead is None else ahead.get((participant_id, night_id, method))
+    if isinstance(found, Exception):
+        raise found
+    if found is None:
+        found = score_night(factory, study_id=study_id, participant_id=participant_id, night_id=night_id,
+                            method=method)
+    return json.loads(found)  # type: ignore[no-any-return]
 
 
 def _finite(value: float | None) -> float | None:
@@ -57,8 +68,8 @@ def _finite(value: float | None) -> float | None:
 
 
 def day_table(factory: sessionmaker[Session], *, study_id: str, participant_id: str, recording_id: str,
-              method: str = "auto") -> tuple[list[dict[str, Any]], dict[str, Any], str]:
-    """Day rows and summary of a recording, its nights scored with ``method``.
+              method: str = "auto", ahead: Scored | None = None) -> tuple[list[dict[str, Any]], dict[str, Any], str]:
+    """Day rows and summary of a recording, its nights scored with ``method`` (``ahead``: scorings computed in bulk).
 
     Returns
     -------
@@ -86,13 +97,13 @@ def day_table(factory: sessionmaker[Session], *, study_id: str, participant_id: 
             continue
         try:
             body = _scored(factory, study_id=study_id, participant_id=participant_id, night_id=record["night_id"],
-                           method=used)
+                           method=used, ahead=ahead)
         except Unprocessable as exc:
             if method != "auto" or exc.code != "no_model":
                 raise
             used = FALLBACK_RULE
             body = _scored(factory, study_id=study_id, participant_id=participant_id, night_id=record["night_id"],
-                           method=used)
+                           method=used, ahead=ahead)
         first = record["start_epoch"]
         sleep = np.array([np.nan if v is None else v for v in body["sleep"]], dtype=np.float64)
         calls[first:first + sleep.size] = sleep
@@ -176,23 +187,72 @@ def recording_days(factory: sessionmaker[Session], *, study_id: str, participant
             "definitions": _definitions(used, method) | {"methods_used": used_by_nights, "protocol": protocol}}
 
 
-def export_days(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv", method: str = "auto",
-                participant_id: str | None = None) -> bytes:
-    """Day rows of every recording of the study (or of one participant), as CSV or Parquet bytes."""
-    with session_scope(factory) as session:
-        infos, _ = store.list_recordings(session, study_id=study_id, participant_id=participant_id, limit=10**6)
+#: recordings computed and sent together by :func:`export_days_stream`
+CHUNK_RECORDINGS = 10
+_EXPORT_COLUMNS = ["participant_id", "recording_id", *DAY_COLUMNS]
+
+
+def _ahead(factory: sessionmaker[Session], study_id: str, infos: list[Any], method: str) -> Scored:
+    """The scorings of the recordings' main-period nights with ``method``, in bulk (:func:`bulk_scorings`)."""
+    nights = [(info.participant_id, p["night_id"]) for info in infos for p in info.periods
+              if p["kind"] == "main" and p.get("night_id")]
+    out: Scored = {}
+    if method in SCORING_METHODS and nights:
+        for chunk in bulk_scorings(factory, study_id=study_id, method=method, nights=nights, chunk=len(nights)):
+            out |= {(pid, night_id, method): body for pid, night_id, body in chunk}
+    return out
+
+
+def _frame(factory: sessionmaker[Session], study_id: str, infos: list[Any], method: str) -> pd.DataFrame:
+    """The day rows of ``infos`` (recordings), typed as the export has them."""
+    ahead = _ahead(factory, study_id, infos, method)
     frames = []
     for info in infos:
         rows, _, _ = day_table(factory, study_id=study_id, participant_id=info.participant_id,
-                               recording_id=info.recording_id, method=method)
+                               recording_id=info.recording_id, method=method, ahead=ahead)
         frames.append(pd.DataFrame(rows, columns=list(DAY_COLUMNS)).assign(
             participant_id=info.participant_id, recording_id=info.recording_id))
-    columns = ["participant_id", "recording_id", *DAY_COLUMNS]
-    frame = pd.concat(frames, ignore_index=True)[columns] if frames else pd.DataFrame(columns=columns)
+    frame = pd.concat(frames, ignore_index=True)[_EXPORT_COLUMNS] if frames else pd.DataFrame(columns=_EXPORT_COLUMNS)
     for c in ("bed_time", "sleep_onset", "sleep_offset", "rise_time"):
         frame[c] = frame[c].map(lambda t: None if t is None or t is pd.NaT else pd.Timestamp(t).isoformat())
     frame["model_version"] = pd.to_numeric(frame["model_version"]).astype("Int64")
     frame["awakenings"] = pd.to_numeric(frame["awakenings"]).astype("Int64")
+    return frame
+
+
+def _recordings(factory: sessionmaker[Session], study_id: str, participant_id: str | None) -> list[Any]:
+    with session_scope(factory) as session:
+        infos, _ = store.list_recordings(session, study_id=study_id, participant_id=participant_id, limit=10**6)
+    return infos
+
+
+def export_days(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv", method: str = "auto",
+                participant_id: str | None = None) -> bytes:
+    """Day rows of every recording of the study (or of one participant), as CSV or Parquet bytes."""
+    frame = _frame(factory, study_id, _recordings(factory, study_id, participant_id), method)
     if fmt == "parquet":
         return frame.to_parquet(index=False)  # type: ignore[no-any-return]
     return frame.to_csv(index=False).encode()
+
+
+def export_days_stream(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv", method: str = "auto",
+                       participant_id: str | None = None) -> tuple[int, Iterator[bytes]]:
+    """:func:`export_days` as a stream: the number of recordings and the bytes, CSV a chunk of recordings at a time.
+
+    The study and participant are checked before the stream starts (NotFound); Parquet comes as one piece.
+    """
+    infos = _recordings(factory, study_id, participant_id)
+    if infos and method not in SCORING_METHODS:  # the answer day_table gives, before the stream starts
+        raise Unprocessable(f"unknown method {method!r}; choose one of {', '.join(SCORING_METHODS)}",
+                            code="unknown_method")
+
+    def chunks() -> Iterator[bytes]:
+        if fmt == "parquet":
+            yield export_days(factory, study_id=study_id, fmt=fmt, method=method, participant_id=participant_id)
+            return
+        yield pd.DataFrame(columns=_EXPORT_COLUMNS).to_csv(index=False).encode()
+        for start in range(0, len(infos), CHUNK_RECORDINGS):
+            frame = _frame(factory, study_id, infos[start:start + CHUNK_RECORDINGS], method)
+            yield frame.to_csv(index=False, header=False).encode()
+
+    return len(infos), chunks()

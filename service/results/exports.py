@@ -30,7 +30,8 @@ from __future__ import annotations
 
 import io
 import json
-from dataclasses import dataclass
+from collections.abc import Iterator
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -57,13 +58,13 @@ from ..store import db, versions
 from ..store.codec import night_from_row
 from ..store.protocols import study_protocol
 from ..store.registry import find_study, study_participants
+from .bulk_scoring import CHUNK_NIGHTS, bulk_scorings
 from .held_out import active_held_out as _active_held_out
 from .held_out import add_auto, version_of
 from .night_intervals import INTERVAL_PARAMETERS, at_level
-from .scoring import score_night
 
-__all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "INTERVAL_COLUMNS", "export_frame", "export_parameters",
-           "neutralise_formulas"]
+__all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "INTERVAL_COLUMNS", "ExportStream", "export_frame",
+           "export_parameters", "export_stream", "neutralise_formulas"]
 
 #: Methods of the parameter export besides the reference (model methods only when trained).
 EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, *MODEL_METHODS, AUTO)
@@ -140,13 +141,15 @@ def _body_cells(body: dict[str, Any]) -> dict[str, Any]:
     return _interval_cells(body.get("intervals"), body.get("uncertainty_min"), body.get("interval_level"))
 
 
-def _deployed(factory: sessionmaker[Session], study_id: str, t: _Target, method: str,
-              protocol: StudyProtocol) -> dict[str, Any]:
-    return json.loads(score_night(factory, study_id=study_id, participant_id=t.participant_id, night_id=t.night_id,
-                                  method=method, interval_level=protocol.interval_level))
+#: (participant id, night id, method) -> the deployed scoring's body
+_Bodies = dict[tuple[str, str, str], dict[str, Any]]
 
 
-def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, methods: list[str],
+def _deployed(bodies: _Bodies, t: _Target, method: str) -> dict[str, Any]:
+    return bodies[(t.participant_id, t.night_id, method)]
+
+
+def _labelled_rows(bodies: _Bodies, t: _Target, methods: list[str],
                    held: dict[str, HeldOutNight], used: dict[str, int | None], protocol: StudyProtocol,
                    auto_chosen: dict[str, str], asked_level: float | None) -> list[dict[str, Any]]:
     """Reference and every method of a labelled night, from one comparison (masked alike); held-out intervals
@@ -165,7 +168,7 @@ def _labelled_rows(factory: sessionmaker[Session], study_id: str, t: _Target, me
             info[method] = (chosen, version_of(chosen, t.participant_id, used), True)
             cells[method] = _held_out_cells(held[method], asked_level)
         else:
-            body = _deployed(factory, study_id, t, method, protocol)
+            body = _deployed(bodies, t, method)
             sleep = np.array([np.nan if v is None else v for v in body["sleep"]], dtype=np.float64)
             sides[method], info[method] = (sleep, None), (body["method"], body["model_version"], False)
             cells[method] = _body_cells(body)
@@ -187,6 +190,111 @@ def _params(values: dict[str, Any]) -> dict[str, Any]:
     return json_record({k: values[k] for k in PARAMETER_NAMES})
 
 
+@dataclass(frozen=True)
+class _Export:
+    """What every night's rows need: the nights, the held-out predictions and auto's choices, the protocol."""
+
+    study_id: str
+    targets: list[_Target]
+    pooled: bool
+    protocol: StudyProtocol
+    protocol_text: str
+    held_out: Any
+    used: dict[str, int | None]
+    policies: dict[str, str]
+    #: the interval level asked for (None: the protocol's, already in ``protocol``)
+    asked_level: float | None = None
+    #: participant -> night id -> the model auto chose without the night (filled as participants come up)
+    auto_chosen: dict[str, dict[str, str]] = field(default_factory=dict)
+    auto_done: set[str] = field(default_factory=set)
+
+    def add_auto(self, participant_id: str) -> None:
+        """``auto``'s nested held-out predictions of a participant's labelled nights (once, when first needed)."""
+        if participant_id in self.auto_done:
+            return
+        labelled = [t.night for t in self.targets if t.participant_id == participant_id and t.night.has_reference]
+        choice = add_auto(self.held_out.setdefault(participant_id, {}), labelled,
+                          policy=self.policies[participant_id])
+        if choice is not None:
+            self.auto_chosen[participant_id] = dict(zip(choice.per_night["night_id"], choice.per_night["chosen"],
+                                                        strict=True))
+        self.auto_done.add(participant_id)
+
+    def methods(self, t: _Target) -> list[str]:
+        return [m for m in EXPORT_METHODS if not ((m == "personal" and not t.has_personal)
+                                                  or (m in MODEL_METHODS + (AUTO,) and m != "personal"
+                                                      and not self.pooled))]
+
+    def deployed_needed(self, t: _Target) -> list[str]:
+        """The methods of a night answered by the deployed scoring (not held out, not computed here)."""
+        if not t.night.has_reference:
+            return self.methods(t)
+        held = self.held_out.get(t.participant_id, {}).get(t.night.content_hash, {})
+        return [m for m in self.methods(t) if m not in METHOD_IDS and m not in held]
+
+    @property
+    def n_rows(self) -> int:
+        return sum(len(self.methods(t)) + t.night.has_reference for t in self.targets)
+
+
+def _prepare(factory: sessionmaker[Session], study_id: str, interval_level: float | None) -> _Export:
+    with db.session_scope(factory) as session:
+        targets, pooled, policies = _targets(session, study_id)
+        protocol = at_level(study_protocol(session, study_id), interval_level)
+        held_out, used = _active_held_out(session, find_study(session, study_id))
+    protocol_text = json.dumps(protocol.to_dict(), sort_keys=True, separators=(",", ":"))
+    return _Export(study_id, targets, pooled, protocol, protocol_text, held_out, used, policies, interval_level)
+
+
+def _deployed_bodies(factory: sessionmaker[Session], export: _Export, targets: list[_Target]) -> _Bodies:
+    """The deployed scorings these nights' rows need, per method in bulk (:func:`bulk_scorings`)."""
+    wanted: dict[str, list[tuple[str, str]]] = {}
+    for t in targets:
+        for method in export.deployed_needed(t):
+            wanted.setdefault(method, []).append((t.participant_id, t.night_id))
+    out: _Bodies = {}
+    for method, nights in wanted.items():
+        for chunk in bulk_scorings(factory, study_id=export.study_id, method=method, nights=nights,
+                                   chunk=len(nights), interval_level=export.protocol.interval_level):
+            for pid, night_id, body in chunk:
+                if isinstance(body, Exception):
+                    raise body
+                out[(pid, night_id, method)] = json.loads(body)
+    return out
+
+
+def _rows(factory: sessionmaker[Session], export: _Export, targets: list[_Target]) -> list[dict[str, Any]]:
+    """The export's rows of ``targets`` (a slice of ``export.targets``)."""
+    for pid in dict.fromkeys(t.participant_id for t in targets):
+        export.add_auto(pid)
+    bodies = _deployed_bodies(factory, export, targets)
+    rows: list[dict[str, Any]] = []
+    for t in targets:
+        methods = export.methods(t)
+        night = t.night
+        first, stop = night.in_bed
+        step = pd.Timedelta(seconds=night.epoch_seconds)
+        ids = {"study_id": export.study_id, "participant_id": t.participant_id, "night_id": t.night_id,
+               "label": t.label, "start": night.start.tz_convert("UTC"),
+               "lights_off": (night.start + first * step).tz_convert("UTC"),
+               "lights_on": (night.start + stop * step).tz_convert("UTC"), "epoch_seconds": night.epoch_seconds,
+               "protocol": export.protocol_text, "qc_flags": t.qc}
+        if night.has_reference:
+            found = _labelled_rows(bodies, t, methods, export.held_out.get(t.participant_id, {})
+                                   .get(night.content_hash, {}), export.used, export.protocol,
+                                   export.auto_chosen.get(t.participant_id, {}), export.asked_level)
+        else:
+            found = []
+            for method in methods:
+                body = _deployed(bodies, t, method)
+                found.append({"method": method, "scored_as": None if method in METHOD_IDS else body["method"],
+                              "model_version": body["model_version"],
+                              "held_out": None if method in METHOD_IDS else False}
+                             | {k: body["parameters"].get(k) for k in PARAMETER_NAMES} | _body_cells(body))
+        rows += [ids | r for r in found]
+    return rows
+
+
 def export_frame(factory: sessionmaker[Session], *, study_id: str, interval_level: float | None = None) -> pd.DataFrame:
     """The export as a typed table (:data:`EXPORT_COLUMNS`); see the module docstring.
 
@@ -197,42 +305,10 @@ def export_frame(factory: sessionmaker[Session], *, study_id: str, interval_leve
     NotFound
         If the study does not exist.
     """
-    with db.session_scope(factory) as session:
-        targets, pooled, policies = _targets(session, study_id)
-        protocol = at_level(study_protocol(session, study_id), interval_level)
-        held_out, used = _active_held_out(session, find_study(session, study_id))
-    auto_chosen: dict[str, dict[str, str]] = {}  # participant -> night id -> model auto chose without the night
-    for pid, policy in policies.items():
-        labelled = [t.night for t in targets if t.participant_id == pid and t.night.has_reference]
-        choice = add_auto(held_out.setdefault(pid, {}), labelled, policy=policy)
-        if choice is not None:
-            auto_chosen[pid] = dict(zip(choice.per_night["night_id"], choice.per_night["chosen"], strict=True))
-    protocol_text = json.dumps(protocol.to_dict(), sort_keys=True, separators=(",", ":"))
+    export = _prepare(factory, study_id, interval_level)
     rows: list[dict[str, Any]] = []
-    for t in targets:
-        methods = [m for m in EXPORT_METHODS if not ((m == "personal" and not t.has_personal)
-                                                     or (m in MODEL_METHODS + (AUTO,) and m != "personal"
-                                                         and not pooled))]
-        night = t.night
-        first, stop = night.in_bed
-        step = pd.Timedelta(seconds=night.epoch_seconds)
-        ids = {"study_id": study_id, "participant_id": t.participant_id, "night_id": t.night_id, "label": t.label,
-               "start": night.start.tz_convert("UTC"), "lights_off": (night.start + first * step).tz_convert("UTC"),
-               "lights_on": (night.start + stop * step).tz_convert("UTC"), "epoch_seconds": night.epoch_seconds,
-               "protocol": protocol_text, "qc_flags": t.qc}
-        if night.has_reference:
-            found = _labelled_rows(factory, study_id, t, methods, held_out.get(t.participant_id, {})
-                                   .get(night.content_hash, {}), used, protocol,
-                                   auto_chosen.get(t.participant_id, {}), interval_level)
-        else:
-            found = []
-            for method in methods:
-                body = _deployed(factory, study_id, t, method, protocol)
-                found.append({"method": method, "scored_as": None if method in METHOD_IDS else body["method"],
-                              "model_version": body["model_version"],
-                              "held_out": None if method in METHOD_IDS else False}
-                             | {k: body["parameters"].get(k) for k in PARAMETER_NAMES} | _body_cells(body))
-        rows += [ids | r for r in found]
+    for start in range(0, len(export.targets), CHUNK_NIGHTS):
+        rows += _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
     return _typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS)))
 
 
@@ -249,6 +325,22 @@ def _typed(frame: pd.DataFrame) -> pd.DataFrame:
     return frame
 
 
+def _check_format(fmt: str) -> None:
+    if fmt not in ("csv", "parquet"):
+        raise Unprocessable(f"format {fmt!r}: choose csv or parquet", code="unknown_format")
+
+
+def _csv(frame: pd.DataFrame, *, header: bool) -> bytes:
+    return neutralise_formulas(frame).to_csv(index=False, header=header,
+                                             date_format="%Y-%m-%dT%H:%M:%SZ").encode()
+
+
+def _parquet(frame: pd.DataFrame) -> bytes:
+    buffer = io.BytesIO()
+    frame.to_parquet(buffer, index=False)
+    return buffer.getvalue()
+
+
 def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv",
                       interval_level: float | None = None) -> bytes:
     """The export as CSV (formulas neutralised) or Parquet (typed) bytes (intervals at ``interval_level``,
@@ -261,11 +353,56 @@ def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str
     Unprocessable
         If ``fmt`` is neither ``csv`` nor ``parquet``.
     """
-    if fmt not in ("csv", "parquet"):
-        raise Unprocessable(f"format {fmt!r}: choose csv or parquet", code="unknown_format")
+    _check_format(fmt)
     frame = export_frame(factory, study_id=study_id, interval_level=interval_level)
-    if fmt == "csv":
-        return neutralise_formulas(frame).to_csv(index=False, date_format="%Y-%m-%dT%H:%M:%SZ").encode()
-    buffer = io.BytesIO()
-    frame.to_parquet(buffer, index=False)
-    return buffer.getvalue()
+    return _csv(frame, header=True) if fmt == "csv" else _parquet(frame)
+
+
+@dataclass(frozen=True)
+class ExportStream:
+    """An export being made: its row and night counts (known before anything is computed) and its bytes.
+
+    ``chunks`` computes :data:`~service.results.bulk_scoring.CHUNK_NIGHTS` nights at a time; for
+    CSV each chunk's rows are sent as soon as they are made (the same bytes as
+    :func:`export_parameters`), Parquet comes as one piece at the end.
+    """
+
+    n_rows: int
+    n_nights: int
+    chunks: Iterator[bytes]
+
+
+def export_stream(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv",
+                  interval_level: float | None = None) -> ExportStream:
+    """:func:`export_parameters` as a stream; the study and format are checked now, the nights computed lazily.
+
+    Raises
+    ------
+    NotFound, Unprocessable
+        As :func:`export_parameters`, before the stream starts.
+    """
+    _check_format(fmt)
+    export = _prepare(factory, study_id, interval_level)
+
+    def csv_chunks() -> Iterator[bytes]:
+        yield _csv(pd.DataFrame(columns=list(EXPORT_COLUMNS)), header=True)
+        for start in range(0, len(export.targets), CHUNK_NIGHTS):
+            rows = _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
+            yield _csv(_fixed(_typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS)))), header=False)
+
+    def parquet_chunks() -> Iterator[bytes]:
+        rows: list[dict[str, Any]] = []
+        for start in range(0, len(export.targets), CHUNK_NIGHTS):
+            rows += _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
+        yield _parquet(_typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS))))
+
+    return ExportStream(export.n_rows, len(export.targets), csv_chunks() if fmt == "csv" else parquet_chunks())
+
+
+def _fixed(frame: pd.DataFrame) -> pd.DataFrame:
+    """A chunk's parameter columns as float64, as the whole table has them (a chunk alone may infer another
+    type from its few values: all missing, or all whole numbers)."""
+    for column in PARAMETER_NAMES:
+        if column not in _INTEGER_COLUMNS:
+            frame[column] = frame[column].astype("float64")
+    return frame

@@ -76,8 +76,8 @@ from ..store.snapshots import ParticipantInfo, StudyInfo
 from .model_flags import auto_choice
 from .night_intervals import at_level, decoded_extras, interval_seed, probabilities
 
-__all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night", "scoring_key", "study_uncertainty",
-           "uses_current_nights"]
+__all__ = ["SCORING_METHODS", "compute_scoring", "fresh_scoring", "resolve_method", "score_night", "scoring_key",
+           "study_uncertainty", "uses_current_nights"]
 
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 #: part of every cache key: bump when a stored scoring body would now come out differently
@@ -297,8 +297,19 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
     if model is not None and features is None:
         features = night_features(night, model.feature_config_)
         _save(factory, writer, features_row(night_pk=night_pk, config=model.feature_config_, features=features))
+    body, stored = fresh_scoring(night, night_pk=night_pk, night_hash=night_hash, night_id=stored_id,
+                                 resolved=resolved, key=key, model=model, offset=offset, descriptors=descriptors,
+                                 protocol=protocol, features=features)
+    _save(factory, writer, stored)
+    return body
+
+
+def fresh_scoring(night: Night, *, night_pk: int, night_hash: str, night_id: str, resolved: _Resolved, key: str,
+                  model: Any, offset: float, descriptors: Mapping[str, float | None] | None,
+                  protocol: StudyProtocol, features: FeatureMatrix | None) -> tuple[bytes, db.Scoring]:
+    """A night's scoring computed now: the JSON body and the ``scorings`` row that stores it (not added yet)."""
     number = None if resolved.version is None else resolved.version.version
-    seed = 0 if resolved.version is None else interval_seed(stored_id, resolved.version.uid)
+    seed = 0 if resolved.version is None else interval_seed(night_id, resolved.version.uid)
     # stored descriptors keep a missing value as None (JSON); the model reads it as NaN
     numeric = None if descriptors is None else {k: math.nan if v is None else v for k, v in descriptors.items()}
     result = compute_scoring(night, method=resolved.method, model=model, version=number,
@@ -307,10 +318,9 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
     if resolved.passed_over:
         result["auto"] = {"method": resolved.method, "passed_over": resolved.passed_over}
     body = json.dumps(result, separators=(",", ":"), allow_nan=False).encode()
-    _save(factory, writer, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
-                                      else resolved.version.pk, cache_key=key, night_hash=night_hash,
-                                      method=resolved.method, body=zlib.compress(body, 1), created_at=db.utcnow()))
-    return body
+    return body, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
+                            else resolved.version.pk, cache_key=key, night_hash=night_hash,
+                            method=resolved.method, body=zlib.compress(body, 1), created_at=db.utcnow())
 
 
 def study_uncertainty(factory: sessionmaker[Session], *, study_id: str, method: str = "auto",

@@ -6,6 +6,7 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Depends, Query, Response
 from fastapi.concurrency import run_in_threadpool
+from fastapi.responses import StreamingResponse
 
 from ...results import days
 from ...results.scoring import SCORING_METHODS
@@ -45,10 +46,15 @@ async def export_days(access: AnalystAccess, factory: FactoryDep,
                       method: MethodQuery = "auto",
                       participant: Annotated[str | None, Query(max_length=64, description="only this participant")]
                       = None) -> Response:
-    """Day rows of every recording of the study, with participant and recording ids (CSV or Parquet)."""
-    body = await run_in_threadpool(days.export_days, factory, study_id=access.study_id, fmt=format, method=method,
-                                   participant_id=participant)
+    """Day rows of every recording of the study, with participant and recording ids (CSV or Parquet).
+
+    Streamed: CSV rows are sent a few recordings at a time as they are computed
+    (`X-Export-Recordings` says how many recordings will come); Parquet is sent when complete.
+    """
+    n_recordings, chunks = await run_in_threadpool(days.export_days_stream, factory, study_id=access.study_id,
+                                                   fmt=format, method=method, participant_id=participant)
     media = "text/csv" if format == "csv" else "application/vnd.apache.parquet"
     filename = f"{access.study_id}-days.{format}"
-    return Response(content=body, media_type=media,
-                    headers={"Content-Disposition": f'attachment; filename="{filename}"'})
+    return StreamingResponse(chunks, media_type=media,
+                             headers={"Content-Disposition": f'attachment; filename="{filename}"',
+                                      "X-Export-Recordings": str(n_recordings)})

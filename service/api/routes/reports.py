@@ -6,16 +6,20 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Depends, Query, Response
 from fastapi.concurrency import run_in_threadpool
-from fastapi.responses import HTMLResponse
+from fastapi.responses import HTMLResponse, StreamingResponse
 
-from ...results import reports
+from ...results import exports, reports
 from ...store.tokens import Role
 from ...ui.report_page import build_report
 from ...ui.report_pdf import build_report_pdf
 from ..deps import FactoryDep, StudyAccess, study_access
 from .studies import ParticipantPath
 
-__all__ = ["router"]
+__all__ = ["EXPORT_NIGHTS_HEADER", "EXPORT_ROWS_HEADER", "router"]
+
+#: response headers of a streamed export: how many rows (CSV lines after the header) and nights will come
+EXPORT_ROWS_HEADER = "X-Export-Rows"
+EXPORT_NIGHTS_HEADER = "X-Export-Nights"
 
 router = APIRouter(prefix="/v1/studies/{study}", tags=["reports"])
 AnalystAccess = Annotated[StudyAccess, Depends(study_access(Role.analyst))]
@@ -44,13 +48,19 @@ async def export_parameters(access: AnalystAccess, factory: FactoryDep,
                                 gt=0, lt=1, description="level of the per-night intervals (default: the study "
                                                         "protocol's); held-out intervals are kept only where they "
                                                         "were computed at this level")] = None) -> Response:
-    """Sleep parameters, one row per night and method (CSV or Parquet), intervals with their level."""
-    body = await run_in_threadpool(reports.export_parameters, factory, study_id=access.study_id, fmt=format,
-                                   interval_level=interval_level)
+    """Sleep parameters, one row per night and method (CSV or Parquet), intervals with their level.
+
+    Streamed: CSV rows are sent as their nights are computed (`X-Export-Rows` and `X-Export-Nights`
+    say how many rows and nights there will be); Parquet is sent when complete.
+    """
+    stream = await run_in_threadpool(exports.export_stream, factory, study_id=access.study_id, fmt=format,
+                                     interval_level=interval_level)
     media = "text/csv" if format == "csv" else "application/vnd.apache.parquet"
     filename = f"{access.study_id}-parameters.{format}"
-    return Response(content=body, media_type=media,
-                    headers={"Content-Disposition": f'attachment; filename="{filename}"'})
+    return StreamingResponse(stream.chunks, media_type=media,
+                             headers={"Content-Disposition": f'attachment; filename="{filename}"',
+                                      EXPORT_ROWS_HEADER: str(stream.n_rows),
+                                      EXPORT_NIGHTS_HEADER: str(stream.n_nights)})
 
 
 @router.get("/report", response_class=HTMLResponse,

@@ -220,3 +220,17 @@ def test_agreement_table_groups_rows_by_method_with_mean_before_sd():
 def test_agreement_table_empty():
     table = agreement_table([])
     assert table.empty and "level" in table.columns and isinstance(table, pd.DataFrame)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_metrics_are_sklearns_to_the_last_bit(seed):
+    """The confusion-count formulas give scikit-learn's floats exactly (ties in the score included), so stored
+    and fresh results do not differ by rounding."""
+    rng = np.random.default_rng(100 + seed)
+    n = int(rng.integers(20, 400))
+    y = rng.integers(0, 2, n)
+    p = np.where(rng.random(n) < 0.8, y, 1 - y)
+    score = np.round(rng.random(n) * 0.5 + 0.5 * p, 1 + seed % 3)  # few distinct values: many ties
+    got = epoch_agreement(y, p, score=score)
+    for name, value in _sklearn(y, p, score).items():
+        assert got[name] == float(value), name
