@@ -367,12 +367,9 @@ class NightbankClient(RecordingMethods, ReviewMethods):
 
     def export_parameters(self, study: str, *, fmt: str = "csv", interval_level: float | None = None,
                           progress: Progress | None = None) -> bytes:
-        """Every night's and method's sleep parameters, CSV or Parquet bytes, streamed as the server computes them
-        (the timeout is the longest wait between chunks); ``progress(rows_received, rows_total)`` follows CSV.
-        ``interval_level`` (in (0, 1); None: the study protocol's) is the level of the intervals."""
-        params: dict[str, Any] = {"format": fmt}
-        if interval_level is not None:
-            params["interval_level"] = interval_level
+        """Every night's and method's sleep parameters (CSV or Parquet bytes; intervals at ``interval_level``, None:
+        the protocol's), streamed (the timeout is the longest wait between chunks); ``progress(rows, total)``."""
+        params = {"format": fmt} | ({} if interval_level is None else {"interval_level": interval_level})
         return self._download(f"/v1/studies/{study}/exports/parameters", params=params,
                               total_header="X-Export-Rows", progress=progress)
 

@@ -30,7 +30,6 @@ from __future__ import annotations
 
 import io
 import json
-from collections.abc import Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -63,8 +62,8 @@ from .held_out import active_held_out as _active_held_out
 from .held_out import add_auto, version_of
 from .night_intervals import INTERVAL_PARAMETERS, at_level
 
-__all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "INTERVAL_COLUMNS", "ExportStream", "export_frame",
-           "export_parameters", "export_stream", "neutralise_formulas"]
+__all__ = ["EXPORT_COLUMNS", "EXPORT_METHODS", "INTERVAL_COLUMNS", "export_frame", "export_parameters",
+           "neutralise_formulas"]
 
 #: Methods of the parameter export besides the reference (model methods only when trained).
 EXPORT_METHODS: tuple[str, ...] = (*METHOD_IDS, *MODEL_METHODS, AUTO)
@@ -356,53 +355,3 @@ def export_parameters(factory: sessionmaker[Session], *, study_id: str, fmt: str
     _check_format(fmt)
     frame = export_frame(factory, study_id=study_id, interval_level=interval_level)
     return _csv(frame, header=True) if fmt == "csv" else _parquet(frame)
-
-
-@dataclass(frozen=True)
-class ExportStream:
-    """An export being made: its row and night counts (known before anything is computed) and its bytes.
-
-    ``chunks`` computes :data:`~service.results.bulk_scoring.CHUNK_NIGHTS` nights at a time; for
-    CSV each chunk's rows are sent as soon as they are made (the same bytes as
-    :func:`export_parameters`), Parquet comes as one piece at the end.
-    """
-
-    n_rows: int
-    n_nights: int
-    chunks: Iterator[bytes]
-
-
-def export_stream(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv",
-                  interval_level: float | None = None) -> ExportStream:
-    """:func:`export_parameters` as a stream; the study and format are checked now, the nights computed lazily.
-
-    Raises
-    ------
-    NotFound, Unprocessable
-        As :func:`export_parameters`, before the stream starts.
-    """
-    _check_format(fmt)
-    export = _prepare(factory, study_id, interval_level)
-
-    def csv_chunks() -> Iterator[bytes]:
-        yield _csv(pd.DataFrame(columns=list(EXPORT_COLUMNS)), header=True)
-        for start in range(0, len(export.targets), CHUNK_NIGHTS):
-            rows = _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
-            yield _csv(_fixed(_typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS)))), header=False)
-
-    def parquet_chunks() -> Iterator[bytes]:
-        rows: list[dict[str, Any]] = []
-        for start in range(0, len(export.targets), CHUNK_NIGHTS):
-            rows += _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
-        yield _parquet(_typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS))))
-
-    return ExportStream(export.n_rows, len(export.targets), csv_chunks() if fmt == "csv" else parquet_chunks())
-
-
-def _fixed(frame: pd.DataFrame) -> pd.DataFrame:
-    """A chunk's parameter columns as float64, as the whole table has them (a chunk alone may infer another
-    type from its few values: all missing, or all whole numbers)."""
-    for column in PARAMETER_NAMES:
-        if column not in _INTEGER_COLUMNS:
-            frame[column] = frame[column].astype("float64")
-    return frame

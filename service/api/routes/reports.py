@@ -8,7 +8,7 @@ from fastapi import APIRouter, Depends, Query, Response
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import HTMLResponse, StreamingResponse
 
-from ...results import exports, reports
+from ...results import export_stream, reports
 from ...store.tokens import Role
 from ...ui.report_page import build_report
 from ...ui.report_pdf import build_report_pdf
@@ -53,7 +53,7 @@ async def export_parameters(access: AnalystAccess, factory: FactoryDep,
     Streamed: CSV rows are sent as their nights are computed (`X-Export-Rows` and `X-Export-Nights`
     say how many rows and nights there will be); Parquet is sent when complete.
     """
-    stream = await run_in_threadpool(exports.export_stream, factory, study_id=access.study_id, fmt=format,
+    stream = await run_in_threadpool(export_stream.export_stream, factory, study_id=access.study_id, fmt=format,
                                      interval_level=interval_level)
     media = "text/csv" if format == "csv" else "application/vnd.apache.parquet"
     filename = f"{access.study_id}-parameters.{format}"
