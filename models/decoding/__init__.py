@@ -38,6 +38,15 @@ from .hmm import (
     scaled_likelihoods,
     viterbi,
 )
+from .interval_scaling import (
+    conformal_scale,
+    covered,
+    inner_scales,
+    posterior_sides,
+    required_scale,
+    resolutions,
+    scaled_intervals,
+)
 from .intervals import (
     DEFAULT_INTERVAL_LEVEL,
     NightIntervals,
@@ -51,12 +60,16 @@ from .path_parameters import (
     path_parameters,
 )
 from .tuning import (
+    BIAS_PARAMETERS,
     DEFAULT_DECODER_GRID,
+    MAE_PARAMETERS,
     DecoderChoice,
+    parameter_objective,
     tune_decoder,
 )
 
 __all__ = [
+    "BIAS_PARAMETERS",
     "CALIBRATION_CHOICES",
     "CALIBRATORS",
     "Calibrator",
@@ -73,6 +86,7 @@ __all__ = [
     "InvalidCalibrationError",
     "InvalidHmmError",
     "IsotonicCalibrator",
+    "MAE_PARAMETERS",
     "NightDecoding",
     "NightIntervals",
     "PATH_PARAMETER_NAMES",
@@ -82,17 +96,25 @@ __all__ = [
     "ThresholdDecoder",
     "brier_score",
     "calibrator_from_dict",
+    "conformal_scale",
+    "covered",
     "fit_night_decoding",
     "fit_sleep_wake_hmm",
     "forward_backward",
+    "inner_scales",
     "interval_coverage",
     "make_decoder",
     "night_intervals",
     "parameter_intervals",
+    "parameter_objective",
     "path_parameters",
+    "posterior_sides",
     "reliability_curve",
+    "required_scale",
+    "resolutions",
     "sample_paths",
     "sampled_parameters",
+    "scaled_intervals",
     "scaled_likelihoods",
     "tune_decoder",
     "viterbi",

@@ -13,16 +13,21 @@ nights (never a held-out night) into a :class:`NightDecoding`:
    computed here with scikit-learn's ``roc_curve``); its pooled inner balanced accuracy minus
    :data:`DEFAULT_BA_MARGIN` is the default balanced-accuracy floor of the next step;
 4. **HMM decoder**: :func:`~models.decoding.tuning.tune_decoder` over :data:`DEFAULT_DECODER_GRID`
-   on the calibrated inner nights: the settings with the smallest inner awakenings + WASO error
-   (each scaled by its equivalence margin) among those meeting the floor;
+   on the calibrated inner nights: the settings with the smallest inner objective
+   (:func:`~models.decoding.tuning.parameter_objective`: awakenings and WASO mean absolute
+   errors plus the absolute mean signed errors of awakenings, WASO and TST, each scaled by its
+   equivalence margin) among those meeting the floor;
 5. **interval settings**: paths for the per-night intervals are drawn from the chain with the
    tuned HMM stickiness and its emission weight multiplied by a factor of
    :data:`INTERVAL_WEIGHT_FACTORS` (a factor < 1 tempers the epoch evidence, which the chain
-   treats as independent although the classifier's errors are not). The factor minimises the
-   mean interval score of TST and WASO at the nominal level on the inner nights (Gneiting &
-   Raftery 2007, "Strictly proper scoring rules, prediction, and estimation", section 6.2,
-   from memory: ``width + (2 / alpha) * distance outside``, a proper score of central intervals),
-   ties to the earlier (larger) factor.
+   treats as independent although the classifier's errors are not). For each factor, the
+   intervals are centred on the chosen decoder's values of the night and their sides scaled per
+   parameter by the split-conformal scale of the inner nights
+   (:mod:`models.decoding.interval_scaling`), so that they cover about the nominal share of the
+   inner nights; the factor kept minimises the mean interval score of TST and WASO of those
+   scaled intervals at the nominal level (Gneiting & Raftery 2007, "Strictly proper scoring
+   rules, prediction, and estimation", section 6.2, from memory: ``width + (2 / alpha) *
+   distance outside``, a proper score of central intervals), ties to the earlier (larger) factor.
 
 ``decoder`` picks which of steps 3 and 4 makes the calls; both are computed so that the model
 card can show them side by side. Everything is deterministic given ``seed``.
@@ -52,8 +57,9 @@ from .calibration import (
 )
 from .decoders import HmmDecoder, ThresholdDecoder, make_decoder
 from .hmm import InvalidHmmError, SleepWakeHmm, fit_sleep_wake_hmm
+from .interval_scaling import covered, inner_scales, scaled_intervals
 from .intervals import DEFAULT_INTERVAL_LEVEL, NightIntervals, night_intervals, sampled_parameters
-from .tuning import DEFAULT_DECODER_GRID, tune_decoder
+from .tuning import DEFAULT_DECODER_GRID, parameter_objective, tune_decoder
 
 __all__ = ["CALIBRATION_CHOICES", "DECODER_CHOICES", "DEFAULT_BA_MARGIN", "INTERVAL_WEIGHT_FACTORS",
            "NightDecoding", "fit_night_decoding"]
@@ -63,12 +69,11 @@ DECODER_CHOICES: tuple[str, ...] = ("hmm", "threshold")
 #: Calibrations of the raw probabilities ("none" keeps them as they are).
 CALIBRATION_CHOICES: tuple[str, ...] = ("isotonic", "platt", "none")
 #: Default floor of the HMM tuning = threshold decoder's inner balanced accuracy minus this (common practice).
-DEFAULT_BA_MARGIN = 0.02
+DEFAULT_BA_MARGIN = 0.01
 #: Factors on the tuned emission weight tried for the interval paths (largest first).
 INTERVAL_WEIGHT_FACTORS: tuple[float, ...] = (1.0, 0.5, 0.25, 0.12, 0.06, 0.03)
 _TUNING_PATHS = 100
 _INTERVAL_PARAMETERS = ("tst_min", "waso_min")
-_ERROR_PARAMETERS = ("awakenings", "waso_min")
 
 
 def _clean(value: Any) -> Any:
@@ -104,8 +109,10 @@ class NightDecoding:
         JSON-able record of the fit: ``calibration`` (method, Brier raw/calibrated, reliability
         curve), ``decoder`` (name, settings, inner ``objective``, ``balanced_accuracy``,
         ``floor_met``), ``threshold_decoder`` and ``hmm_decoder`` (both candidates),
-        ``intervals`` (``stickiness``, ``emission_weight`` of the interval paths) and
-        ``n_inner_nights``.
+        ``intervals`` (``stickiness``, ``emission_weight`` of the interval paths, and, from
+        this version on, ``centre`` = ``"decoded"`` with ``spread_scale`` per parameter and the
+        ``inner_coverage`` of TST and WASO; a stored decoding without ``spread_scale`` keeps the
+        posterior's own intervals) and ``n_inner_nights``.
     """
 
     calibrator: PlattCalibrator | IsotonicCalibrator | None
@@ -127,6 +134,9 @@ class NightDecoding:
                   seed: int = 0, protocol: StudyProtocol = DEFAULT_PROTOCOL) -> NightIntervals:
         """Per-night intervals from ``n_paths`` posterior paths (:func:`~models.decoding.intervals.night_intervals`).
 
+        With fitted spread scales (``info["intervals"]["spread_scale"]``) they are centred on the
+        parameters of :meth:`decode`'s calls and scaled (:mod:`models.decoding.interval_scaling`).
+
         Parameters
         ----------
         p_calibrated : array-like of shape (n_epochs,)
@@ -140,10 +150,18 @@ class NightDecoding:
         protocol : StudyProtocol, default=DEFAULT_PROTOCOL
         """
         settings = self.info["intervals"]
+        scale = settings.get("spread_scale")
+        centre = None
+        if scale is not None:
+            p = np.asarray(p_calibrated, dtype=np.float64)
+            stop = p.size if lights_on_idx is None else lights_on_idx
+            centre = _parameters(self.decode(p), epoch_seconds, (lights_off_idx, stop), protocol)
+            scale = {str(k): float(v) for k, v in scale.items()}
         return night_intervals(p_calibrated, self.chain, epoch_seconds, lights_off_idx=lights_off_idx,
                                lights_on_idx=lights_on_idx, protocol=protocol, level=level, n_paths=n_paths,
                                seed=seed, stickiness=float(settings["stickiness"]),
-                               emission_weight=float(settings["emission_weight"]))
+                               emission_weight=float(settings["emission_weight"]), centre=centre,
+                               spread_scale=scale)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able form (floats written by ``json`` read back bit-identically)."""
@@ -191,43 +209,44 @@ def _number(value: float | int | None) -> float:
     return float("nan") if value is None else float(value)
 
 
-def _objective(calls: Sequence[NDArray[np.float64]], truth: Sequence[Mapping[str, Any]], epoch_seconds: int,
-               bounds: Sequence[tuple[int, int]], protocol: StudyProtocol) -> float:
-    """The tuning objective of :func:`~models.decoding.tuning.tune_decoder` for given calls."""
-    decoded = [_parameters(c, epoch_seconds, bounds[k], protocol) for k, c in enumerate(calls)]
-    total = 0.0
-    for name in _ERROR_PARAMETERS:
-        diffs = np.array([abs(_number(d[name]) - _number(truth[k][name])) for k, d in enumerate(decoded)])
-        mean = float(np.nanmean(diffs)) if np.isfinite(diffs).any() else float("nan")
-        total += mean / protocol.equivalence_margins[name]
-    return total
-
-
-def _interval_score(samples: Mapping[str, NDArray[np.float64]], truth: Mapping[str, Any], level: float) -> float:
+def _interval_score(intervals: Mapping[str, Sequence[float]], truth: Mapping[str, Any], level: float) -> float:
     alpha = 1.0 - level
     score = 0.0
     for name in _INTERVAL_PARAMETERS:
-        v = samples[name][~np.isnan(samples[name])]
+        low, high = intervals[name]
         ref = truth[name]
-        if v.size == 0 or ref is None or not np.isfinite(ref):
+        if not (np.isfinite(low) and np.isfinite(high)) or ref is None or not np.isfinite(ref):
             continue
-        low, high = np.quantile(v, [alpha / 2.0, 1.0 - alpha / 2.0], method="inverted_cdf")
         score += (high - low) + (2.0 / alpha) * (max(low - ref, 0.0) + max(ref - high, 0.0))
     return float(score)
 
 
-def _interval_factor(probs: Sequence[NDArray[np.float64]], truth: Sequence[Mapping[str, Any]], chain: SleepWakeHmm,
-                     stickiness: float, weight: float, *, epoch_seconds: int, bounds: Sequence[tuple[int, int]],
-                     protocol: StudyProtocol, seed: int) -> tuple[float, list[float]]:
-    scores = []
+def _interval_settings(probs: Sequence[NDArray[np.float64]], truth: Sequence[Mapping[str, Any]],
+                       centres: Sequence[Mapping[str, Any]], chain: SleepWakeHmm, stickiness: float, weight: float, *,
+                       epoch_seconds: int, bounds: Sequence[tuple[int, int]], protocol: StudyProtocol,
+                       seed: int) -> dict[str, Any]:
+    """Weight factor and conformal spread scales of the interval paths (module docstring, step 5)."""
+    level = DEFAULT_INTERVAL_LEVEL
+    spans = [b[1] - b[0] for b in bounds]
+    scores, fits = [], []
     for factor in INTERVAL_WEIGHT_FACTORS:
-        per_night = [_interval_score(sampled_parameters(p, chain, epoch_seconds, lights_off_idx=bounds[k][0],
-                                                        lights_on_idx=bounds[k][1], protocol=protocol,
-                                                        n_paths=_TUNING_PATHS, seed=seed + k, stickiness=stickiness,
-                                                        emission_weight=weight * factor),
-                                     truth[k], DEFAULT_INTERVAL_LEVEL) for k, p in enumerate(probs)]
-        scores.append(float(np.mean(per_night)))
-    return INTERVAL_WEIGHT_FACTORS[int(np.argmin(scores))], scores
+        samples = [sampled_parameters(p, chain, epoch_seconds, lights_off_idx=bounds[k][0], lights_on_idx=bounds[k][1],
+                                      protocol=protocol, n_paths=_TUNING_PATHS, seed=seed + k, stickiness=stickiness,
+                                      emission_weight=weight * factor) for k, p in enumerate(probs)]
+        scale = inner_scales(samples, centres, truth, level=level, epoch_seconds=epoch_seconds, in_bed_epochs=spans)
+        intervals = [scaled_intervals(s, {n: _number(c.get(n)) for n in s}, scale, level=level,
+                                      epoch_seconds=epoch_seconds, in_bed_epochs=spans[k])
+                     for k, (s, c) in enumerate(zip(samples, centres, strict=True))]
+        scores.append(float(np.mean([_interval_score(iv, truth[k], level) for k, iv in enumerate(intervals)])))
+        inside = [covered(iv, truth[k]) for k, iv in enumerate(intervals)]
+        coverage = {n: float(np.nanmean(v)) if np.isfinite(v := np.array([c[n] for c in inside])).any() else None
+                    for n in _INTERVAL_PARAMETERS}
+        fits.append((factor, scale, coverage))
+    best = int(np.argmin(scores))
+    factor, scale, coverage = fits[best]
+    return {"stickiness": stickiness, "emission_weight": weight * factor, "weight_factor": factor,
+            "interval_scores": dict(zip((str(f) for f in INTERVAL_WEIGHT_FACTORS), scores, strict=True)),
+            "centre": "decoded", "spread_scale": scale, "inner_coverage": coverage}
 
 
 def _fit_calibrator(method: str, p: NDArray[np.float64],
@@ -307,14 +326,18 @@ def fit_night_decoding(val_p_raw: Sequence[ArrayLike], val_labels: Sequence[Arra
         floor = 0.0
     choice = tune_decoder(probs, labels, protocol=protocol, ba_floor=floor, grid=DEFAULT_DECODER_GRID,
                           epoch_seconds=epoch_seconds, in_bed=bounds, hmm=chain)
+    threshold_params = [_parameters(c, epoch_seconds, bounds[k], protocol) for k, c in enumerate(threshold_calls)]
     threshold_info = {"decoder": "threshold", "threshold": threshold.threshold, "balanced_accuracy": threshold_ba,
-                      "objective": _objective(threshold_calls, truth, epoch_seconds, bounds, protocol),
+                      "objective": parameter_objective(threshold_params, truth, protocol.equivalence_margins)[0],
                       "floor_met": True}
     hmm_info = {"decoder": "hmm", **choice.settings, "objective": choice.objective,
                 "balanced_accuracy": choice.balanced_accuracy, "floor_met": choice.floor_met, "ba_floor": floor}
     stickiness, weight = float(choice.settings["stickiness"]), float(choice.settings["emission_weight"])
-    factor, scores = _interval_factor(probs, truth, chain, stickiness, weight, epoch_seconds=epoch_seconds,
-                                      bounds=bounds, protocol=protocol, seed=seed)
+    chosen: ThresholdDecoder | HmmDecoder = choice.decoder if decoder == "hmm" else threshold
+    centres = threshold_params if decoder == "threshold" else [
+        _parameters(chosen.decode(p), epoch_seconds, bounds[k], protocol) for k, p in enumerate(probs)]
+    intervals = _interval_settings(probs, truth, centres, chain, stickiness, weight, epoch_seconds=epoch_seconds,
+                                   bounds=bounds, protocol=protocol, seed=seed)
     info = {
         "calibration": {"method": method, "brier_raw": brier_score(y_all, p_all),
                         "brier_calibrated": brier_score(y_all, c_all),
@@ -322,9 +345,7 @@ def fit_night_decoding(val_p_raw: Sequence[ArrayLike], val_labels: Sequence[Arra
                                         "count": curve.counts}},
         "decoder": hmm_info if decoder == "hmm" else threshold_info,
         "threshold_decoder": threshold_info, "hmm_decoder": hmm_info,
-        "intervals": {"stickiness": stickiness, "emission_weight": weight * factor, "weight_factor": factor,
-                      "interval_scores": dict(zip((str(f) for f in INTERVAL_WEIGHT_FACTORS), scores, strict=True))},
+        "intervals": intervals,
         "n_inner_nights": len(raw),
     }
-    chosen: ThresholdDecoder | HmmDecoder = choice.decoder if decoder == "hmm" else threshold
     return NightDecoding(calibrator=calibrator, decoder=chosen, chain=chain, info=_clean(info))

@@ -10,6 +10,9 @@ sampling (:func:`models.decoding.hmm.sample_paths`), computes the sleep paramete
   samples (the inverse of the empirical distribution function), so that a parameter counted in
   whole epochs gets endpoints it can take and the interval holds at least ``level`` of the draws;
 - the posterior median of each parameter;
+- with ``centre`` and ``spread_scale`` (settings fitted on inner nights, see
+  :mod:`models.decoding.interval_scaling`), the intervals are instead centred on the decoded
+  night's values and their sides scaled per parameter;
 - a review score, ``uncertainty_min``: the expected absolute error of the posterior median under
   the posterior, E|TST - median TST| + E|WASO - median WASO|, in minutes (nights to look at first).
 
@@ -28,6 +31,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
 from .hmm import InvalidHmmError, SleepWakeHmm, sample_paths
+from .interval_scaling import scaled_intervals
 from .path_parameters import PATH_PARAMETER_NAMES, path_parameters
 
 __all__ = ["DEFAULT_INTERVAL_LEVEL", "NightIntervals", "interval_coverage", "night_intervals",
@@ -142,13 +146,21 @@ def sampled_parameters(p_sleep: ArrayLike, hmm: SleepWakeHmm, epoch_seconds: int
 def night_intervals(p_sleep: ArrayLike, hmm: SleepWakeHmm, epoch_seconds: int, *, lights_off_idx: int = 0,
                     lights_on_idx: int | None = None, protocol: StudyProtocol = DEFAULT_PROTOCOL,
                     level: float = DEFAULT_INTERVAL_LEVEL, n_paths: int = 1000, seed: int = 0,
-                    stickiness: float = 1.0, emission_weight: float = 1.0) -> NightIntervals:
+                    stickiness: float = 1.0, emission_weight: float = 1.0,
+                    centre: Mapping[str, float | None] | None = None,
+                    spread_scale: Mapping[str, float] | None = None) -> NightIntervals:
     """Intervals, medians and review score of one night (arguments as for :func:`sampled_parameters`).
 
     Parameters
     ----------
     level : float, default=DEFAULT_INTERVAL_LEVEL
         Level of every interval, in (0, 1).
+    centre : mapping of str to float or None, default=None
+        Decoded value per parameter (None values fall back to the posterior median); with
+        ``spread_scale``, the intervals are
+        :func:`~models.decoding.interval_scaling.scaled_intervals`.
+    spread_scale : mapping of str to float or None, default=None
+        Scale per parameter; None (the default) = the posterior's own equal-tailed intervals.
 
     Returns
     -------
@@ -164,7 +176,15 @@ def night_intervals(p_sleep: ArrayLike, hmm: SleepWakeHmm, epoch_seconds: int, *
         median[name] = float(np.median(v)) if v.size else float("nan")
     error = {name: float(np.nanmean(np.abs(samples[name] - median[name]))) if np.isfinite(median[name])
              else float("nan") for name in _REVIEW_PARAMETERS}
-    return NightIntervals(level=lev, intervals=parameter_intervals(samples, level=lev), median=median,
+    if spread_scale is None:
+        intervals = parameter_intervals(samples, level=lev)
+    else:
+        p = np.asarray(p_sleep, dtype=np.float64)
+        stop = p.size if lights_on_idx is None else int(lights_on_idx)
+        centres = {k: float("nan") if v is None else float(v) for k, v in (centre or {}).items()}
+        intervals = scaled_intervals(samples, centres, spread_scale, level=lev, epoch_seconds=epoch_seconds,
+                                     in_bed_epochs=stop - int(lights_off_idx))
+    return NightIntervals(level=lev, intervals=intervals, median=median,
                           expected_abs_error=error, uncertainty_min=float(sum(error.values())), n_paths=int(n_paths))
 
 

@@ -2,13 +2,17 @@
 
 :func:`tune_decoder` tries every combination of a grid of :class:`~models.decoding.decoders.HmmDecoder`
 settings on the given (inner-fold) nights and keeps the one with the smallest parameter error
-among those whose pooled balanced accuracy reaches the floor. The error of a setting is
+among those whose pooled balanced accuracy reaches the floor. The error of a setting
+(:func:`parameter_objective`) is
 
-``mean |awakenings error| / margin_awakenings + mean |WASO error| / margin_waso``
+``sum over MAE_PARAMETERS of mean |error| / margin + sum over BIAS_PARAMETERS of |mean error| / margin``
 
-over the nights, each parameter computed by :func:`models.scoring.parameters.sleep_parameters`
-under the study protocol on the decoded calls and on the labels, and scaled by the protocol's
-equivalence margin so that counts and minutes add up. When no setting reaches the floor, the
+over the nights (error = decoded minus reference value of a night), each parameter computed by
+:func:`models.scoring.parameters.sleep_parameters` under the study protocol on the decoded calls
+and on the labels, and scaled by the protocol's equivalence margin so that counts and minutes add
+up. The absolute errors reward night-by-night agreement; the signed means (awakenings, WASO and
+TST) penalise a decoder that leans to one state on every night, which the absolute errors alone
+allow when it trades a few large errors for many small ones of one sign. When no setting reaches the floor, the
 setting of highest balanced accuracy is kept and ``floor_met`` is False. Ties keep the earlier
 grid point (grid order is the product of the grid's values in the order given).
 
@@ -35,16 +39,20 @@ from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
 from .decoders import HmmDecoder
 from .hmm import DEFAULT_PSEUDO_COUNT, InvalidHmmError, SleepWakeHmm, fit_sleep_wake_hmm
 
-__all__ = ["DEFAULT_DECODER_GRID", "DecoderChoice", "tune_decoder"]
+__all__ = ["BIAS_PARAMETERS", "DEFAULT_DECODER_GRID", "MAE_PARAMETERS", "DecoderChoice", "parameter_objective",
+           "tune_decoder"]
 
 #: Settings tried by default (grid order: the product in this order).
 DEFAULT_DECODER_GRID: Mapping[str, Sequence[Any]] = {
     "method": ("viterbi", "marginal"),
     "stickiness": (0.5, 1.0, 2.0, 4.0),
-    "emission_weight": (0.25, 0.5, 1.0),
-    "threshold": (0.5, 0.35, 0.2),
+    "emission_weight": (0.25, 0.5, 1.0, 2.0),
+    "threshold": (0.5, 0.35, 0.2, 0.1),
 }
-_ERROR_PARAMETERS = ("awakenings", "waso_min")
+#: Parameters whose mean absolute error enters the objective.
+MAE_PARAMETERS: tuple[str, ...] = ("awakenings", "waso_min")
+#: Parameters whose mean signed error (bias) enters the objective, as an absolute value.
+BIAS_PARAMETERS: tuple[str, ...] = ("awakenings", "waso_min", "tst_min")
 
 
 @dataclass(frozen=True)
@@ -64,8 +72,9 @@ class DecoderChoice:
     floor_met : bool
         Whether any setting reached ``ba_floor``.
     trials : list of dict
-        Per grid point: its settings, ``objective``, ``balanced_accuracy``, ``awakenings_mae``
-        and ``waso_mae_min``.
+        Per grid point: its settings, ``objective``, ``balanced_accuracy`` and the terms of the
+        objective in the parameters' units (``<name>_mae`` and ``<name>_bias`` per parameter name,
+        e.g. ``waso_min_mae``, ``tst_min_bias``).
     """
 
     settings: dict[str, Any]
@@ -78,6 +87,39 @@ class DecoderChoice:
 
 def _number(value: float | int | None) -> float:
     return float("nan") if value is None else float(value)
+
+
+def parameter_objective(decoded: Sequence[Mapping[str, Any]], truth: Sequence[Mapping[str, Any]],
+                        margins: Mapping[str, float]) -> tuple[float, dict[str, float]]:
+    """The tuning objective of decoded nights against their reference values (module docstring).
+
+    Parameters
+    ----------
+    decoded, truth : sequence of mapping of str to number or None
+        Per night, the sleep parameters of the decoded calls and of the labels (e.g.
+        ``sleep_parameters(...).as_dict()``); None = undefined on that night (left out).
+    margins : mapping of str to float
+        Equivalence margin per parameter, in its unit (``protocol.equivalence_margins``).
+
+    Returns
+    -------
+    objective : float
+        NaN when a term has no night with both values defined.
+    terms : dict of str to float
+        ``<name>_mae`` and ``<name>_bias`` in the parameter's unit.
+    """
+    terms: dict[str, float] = {}
+    objective = 0.0
+    for name in dict.fromkeys((*MAE_PARAMETERS, *BIAS_PARAMETERS)):
+        diffs = np.array([_number(d[name]) - _number(t[name]) for d, t in zip(decoded, truth, strict=True)])
+        diffs = diffs[np.isfinite(diffs)]
+        terms[f"{name}_mae"] = float(np.abs(diffs).mean()) if diffs.size else float("nan")
+        terms[f"{name}_bias"] = float(diffs.mean()) if diffs.size else float("nan")
+        if name in MAE_PARAMETERS:
+            objective += terms[f"{name}_mae"] / margins[name]
+        if name in BIAS_PARAMETERS:
+            objective += abs(terms[f"{name}_bias"]) / margins[name]
+    return float(objective), terms
 
 
 def _grid_points(grid: Mapping[str, Sequence[Any]]) -> list[dict[str, Any]]:
@@ -166,14 +208,9 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
             calls = [np.where(np.isnan(p), np.nan, (m >= decoder.threshold).astype(np.float64))
                      for p, m in zip(probs, cache[key], strict=True)]
         decoded = [params(c, k) for k, c in enumerate(calls)]
-        errors: dict[str, float] = {}
-        for name in _ERROR_PARAMETERS:
-            diffs = [abs(_number(d[name]) - _number(truth[k][name])) for k, d in enumerate(decoded)]
-            errors[name] = float(np.nanmean(diffs)) if np.isfinite(diffs).any() else float("nan")
-        objective = sum(errors[n] / margins[n] for n in _ERROR_PARAMETERS)
+        objective, terms = parameter_objective(decoded, truth, margins)
         ba = epoch_agreement(pooled_labels, np.concatenate(calls))["balanced_accuracy"]
-        trials.append(point | {"objective": float(objective), "balanced_accuracy": float(ba),
-                               "awakenings_mae": errors["awakenings"], "waso_mae_min": errors["waso_min"]})
+        trials.append(point | {"objective": objective, "balanced_accuracy": float(ba)} | terms)
         decoders.append(decoder)
     if not trials:
         raise InvalidHmmError("no setting of the grid fits the chain (every stickiness is too small)")

@@ -1,7 +1,8 @@
 """Per-night intervals, review score and posterior P(sleep) of a model's scoring.
 
-The intervals are the model's own (:meth:`models.SleepModel.intervals`: equal-tailed intervals over
-posterior sleep/wake paths of the fitted decoding, at the study protocol's ``interval_level``);
+The intervals are the model's own (:meth:`models.SleepModel.intervals`: the spread of posterior
+sleep/wake paths of the fitted decoding around the decoded night, scaled on the model's inner nights,
+at the study protocol's ``interval_level``);
 :data:`INTERVAL_PATHS` paths are drawn from :func:`interval_seed` of the night id and the model
 version, so a night scored again by the same version gets the same numbers.
 """

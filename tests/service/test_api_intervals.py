@@ -1,7 +1,7 @@
 """Per-night intervals of calibrated, decoded models over HTTP, on SQLite and PostgreSQL (real worker).
 
 The one definition of a night's intervals is the stored model's own
-(:meth:`models.SleepModel.intervals`, equal-tailed quantiles of posterior paths); every number the
+(:meth:`models.SleepModel.intervals`, posterior paths' spread around the decoded night); every number the
 service shows (scoring answer, export columns, pages, coverage) is checked against that definition
 recomputed here from the stored model or the stored held-out predictions. Coverage is checked by
 counting by hand the held-out nights whose reference value (``models.sleep_parameters`` of the

@@ -150,3 +150,36 @@ def test_one_class_inner_nights_keep_the_raw_probabilities(nights) -> None:
     d = fit_night_decoding([n["p"]], [np.ones_like(n["truth"])], [n["truth"]], epoch_seconds=30)
     assert d.calibrator is None and d.info["calibration"]["method"] == "none"
     np.testing.assert_array_equal(d.calibrate(n["p"]), n["p"])
+
+
+def test_intervals_are_centred_on_the_decoded_night_and_scaled_on_the_inner_nights(fitted, nights) -> None:
+    """The stored scales are the conformal scales of the inner nights at the chosen paths (recomputed
+    here from the module's own pieces), and a night's interval holds its decoded value."""
+    settings = fitted.info["intervals"]
+    assert settings["centre"] == "decoded" and set(settings["spread_scale"]) >= {"tst_min", "waso_min"}
+    assert all(v >= 0 for v in settings["spread_scale"].values())
+    night = nights[8]
+    q = fitted.calibrate(night["p"])
+    first, stop = night["in_bed"]
+    iv = fitted.intervals(q, epoch_seconds=30, lights_off_idx=first, lights_on_idx=stop)
+    decoded = sleep_parameters(fitted.decode(q), 30, lights_off_idx=first, lights_on_idx=stop)
+    for name in ("tst_min", "waso_min"):
+        low, high = iv.intervals[name]
+        assert low <= getattr(decoded, name) <= high
+
+
+def test_a_decoding_stored_without_scales_keeps_the_posterior_intervals(fitted, nights) -> None:
+    """Decodings stored before the scales existed load and give the posterior's own intervals."""
+    from models.decoding.intervals import night_intervals
+
+    values = json.loads(json.dumps(fitted.to_dict(), allow_nan=False))
+    for key in ("centre", "spread_scale", "inner_coverage"):
+        values["info"]["intervals"].pop(key)
+    old = NightDecoding.from_dict(values)
+    night = nights[8]
+    q = old.calibrate(night["p"])
+    first, stop = night["in_bed"]
+    settings = values["info"]["intervals"]
+    expected = night_intervals(q, old.chain, 30, lights_off_idx=first, lights_on_idx=stop, n_paths=200,
+                               stickiness=settings["stickiness"], emission_weight=settings["emission_weight"])
+    assert old.intervals(q, epoch_seconds=30, lights_off_idx=first, lights_on_idx=stop).to_dict() == expected.to_dict()

@@ -133,3 +133,24 @@ def test_settings_the_chain_cannot_take_are_left_out() -> None:
     assert [t["stickiness"] for t in choice.trials] == [1.0]
     with pytest.raises(ValueError, match="no setting of the grid"):
         tune_decoder(p, labels, grid={"stickiness": [0.5], "method": ["viterbi"]})
+
+
+def test_the_objective_adds_mean_absolute_and_signed_errors_over_the_margins() -> None:
+    """Written out with pandas (mean of |error| and |mean error| per parameter, over the margins)."""
+    import pandas as pd
+
+    from models.decoding.tuning import BIAS_PARAMETERS, MAE_PARAMETERS, parameter_objective
+
+    decoded = [{"awakenings": 5, "waso_min": 40.0, "tst_min": 400.0},
+               {"awakenings": 2, "waso_min": None, "tst_min": 380.0},
+               {"awakenings": 7, "waso_min": 20.0, "tst_min": 300.0}]
+    truth = [{"awakenings": 4, "waso_min": 30.0, "tst_min": 410.0},
+             {"awakenings": 6, "waso_min": 25.0, "tst_min": 385.0},
+             {"awakenings": 7, "waso_min": 35.0, "tst_min": 330.0}]
+    margins = {"awakenings": 3.0, "waso_min": 15.0, "tst_min": 15.0}
+    error = pd.DataFrame(decoded, dtype=float) - pd.DataFrame(truth, dtype=float)  # NaN rows skipped by pandas
+    expected = (sum(error[n].abs().mean() / margins[n] for n in MAE_PARAMETERS)
+                + sum(abs(error[n].mean()) / margins[n] for n in BIAS_PARAMETERS))
+    objective, terms = parameter_objective(decoded, truth, margins)
+    assert objective == pytest.approx(expected)
+    assert terms["tst_min_bias"] == pytest.approx(-15.0) and terms["waso_min_mae"] == pytest.approx(12.5)

@@ -15,6 +15,7 @@ from models.learning.config import InvalidTrainingConfigError, TrainingConfig
 from models.learning.personal import train_personal
 from models.learning.pooled import train_pooled
 from models.nights.night import Night
+from models.scoring.parameters import sleep_parameters
 from models.simulation.simulator import CohortSpec, simulate_cohort
 
 CONFIG = TrainingConfig(n_trials=3, max_rounds=60, interval_paths=50)
@@ -52,7 +53,10 @@ def test_personal_model_predicts_calibrated_decoded_with_intervals(result, night
     intervals = model.intervals(p, night, n_paths=50)
     assert intervals is not None and intervals.level == 0.9
     low, high = intervals.intervals["tst_min"]
-    assert low <= intervals.median["tst_min"] <= high
+    first, stop = night.in_bed  # the interval is centred on the decoded night's TST
+    assert low <= sleep_parameters(model.predict(night), night.epoch_seconds, lights_off_idx=first,
+                                   lights_on_idx=stop).tst_min <= high
+    assert info["intervals"]["centre"] == "decoded" and info["intervals"]["spread_scale"]["tst_min"] >= 0
     for h in result.outer:
         assert h.intervals is not None and h.intervals.n_paths == CONFIG.interval_paths
 
