@@ -76,8 +76,8 @@ from ..store.snapshots import ParticipantInfo, StudyInfo
 from .model_flags import auto_choice
 from .night_intervals import decoded_extras, interval_seed, probabilities
 
-__all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night", "scoring_key", "study_uncertainty",
-           "uses_current_nights"]
+__all__ = ["SCORING_METHODS", "compute_scoring", "resolve_method", "score_night", "scoring_body", "scoring_key",
+           "study_uncertainty", "uses_current_nights"]
 
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 #: part of every cache key: bump when a stored scoring body would now come out differently
@@ -294,8 +294,19 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
     if model is not None and features is None:
         features = night_features(night, model.feature_config_)
         _save(factory, writer, features_row(night_pk=night_pk, config=model.feature_config_, features=features))
+    body, cache_row = scoring_body(night, resolved=resolved, key=key, model=model, offset=offset,
+                                   descriptors=descriptors, features=features, protocol=protocol, night_pk=night_pk,
+                                   night_hash=night_hash, night_id=stored_id)
+    _save(factory, writer, cache_row)
+    return body
+
+
+def scoring_body(night: Night, *, resolved: _Resolved, key: str, model: Any, offset: float,
+                 descriptors: Mapping[str, float | None] | None, features: FeatureMatrix | None,
+                 protocol: StudyProtocol, night_pk: int, night_hash: str, night_id: str) -> tuple[bytes, db.Scoring]:
+    """The response bytes of a resolved scoring (inputs of :func:`scoring_key`) and the cache row holding them."""
     number = None if resolved.version is None else resolved.version.version
-    seed = 0 if resolved.version is None else interval_seed(stored_id, resolved.version.uid)
+    seed = 0 if resolved.version is None else interval_seed(night_id, resolved.version.uid)
     # stored descriptors keep a missing value as None (JSON); the model reads it as NaN
     numeric = None if descriptors is None else {k: math.nan if v is None else v for k, v in descriptors.items()}
     result = compute_scoring(night, method=resolved.method, model=model, version=number,
@@ -304,10 +315,10 @@ def score_night(factory: sessionmaker[Session], *, study_id: str, participant_id
     if resolved.passed_over:
         result["auto"] = {"method": resolved.method, "passed_over": resolved.passed_over}
     body = json.dumps(result, separators=(",", ":"), allow_nan=False).encode()
-    _save(factory, writer, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
-                                      else resolved.version.pk, cache_key=key, night_hash=night_hash,
-                                      method=resolved.method, body=zlib.compress(body, 1), created_at=db.utcnow()))
-    return body
+    row = db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None else resolved.version.pk,
+                     cache_key=key, night_hash=night_hash, method=resolved.method, body=zlib.compress(body, 1),
+                     created_at=db.utcnow())
+    return body, row
 
 
 def study_uncertainty(factory: sessionmaker[Session], *, study_id: str, method: str = "auto",
