@@ -11,7 +11,8 @@ generalised linear model with log link (McCullagh & Nelder 1989, from memory), w
 *mean* absolute error, so a few nights with very large errors (a device taken off) set the scale
 of their own terms without swamping the small multiplicative effects of the others, as they do in
 least squares on minutes. Weights are kept >= 0 (evidence never lowers the expected error; bounded
-L-BFGS-B, deterministic from a fixed start), and the terms are scaled to unit SD for the fit only.
+L-BFGS-B, deterministic from a fixed start), a term that is the same on every night gets 0, and
+the terms are scaled to unit SD for the fit only.
 """
 
 from __future__ import annotations
@@ -80,7 +81,8 @@ def fit_priority_weights(evidence: Sequence[NightEvidence], errors_min: Mapping[
         raise InvalidReviewError(problems)
     x = evidence_matrix(evidence)
     scale = x.std(axis=0)
-    scale[scale <= 0] = 1.0
+    constant = scale <= 0  # the same on every night: no information beyond the base, weight 0
+    scale[constant] = 1.0
     design = np.column_stack([np.ones(len(y)), x / scale])
 
     def loss(beta: NDArray[np.float64]) -> tuple[float, NDArray[np.float64]]:
@@ -89,7 +91,7 @@ def fit_priority_weights(evidence: Sequence[NightEvidence], errors_min: Mapping[
         return float(np.mean(mu - y * eta)), design.T @ (mu - y) / len(y)
 
     start = np.concatenate([[np.log(y.mean())], np.zeros(x.shape[1])])
-    bounds = [(None, None)] + [(0.0, None)] * x.shape[1]
+    bounds = [(None, None)] + [(0.0, 0.0) if c else (0.0, None) for c in constant]
     found = minimize(loss, start, jac=True, method="L-BFGS-B", bounds=bounds,
                      options={"maxiter": 2000, "ftol": 1e-12, "gtol": 1e-9})
     beta = found.x
