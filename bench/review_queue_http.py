@@ -72,7 +72,8 @@ def main() -> None:
         queue = client.get("/v1/studies/q/review-queue?limit=500").json()
         context = [_timed_ms(client, f"/v1/studies/q/participants/{item['participant_id']}/nights/"
                                      f"{item['night_id']}/review-context") for item in queue["data"][:5]]
-    figures = {"training_job_s": round(job_s, 1), "queue_cold_s": round(cold_ms / 1000.0, 2), "queue_warm_ms": round(statistics.median(warm), 1),
+    figures = {"training_job_s": round(job_s, 1),
+               "queue_cold_s": round(cold_ms / 1000.0, 2), "queue_warm_ms": round(statistics.median(warm), 1),
                "context_warm_ms": round(statistics.median(context), 1), "n_queued": queue["count"],
                "load_average": [round(v, 2) for v in os.getloadavg()]}
     print(json.dumps(figures))
