@@ -15,6 +15,10 @@ recording); nights with PSG are never queued. Each candidate's evidence is built
   night's start, within 12 h);
 - the deployed parameters of the participant's other candidate nights.
 
+The scorings are read (or computed and stored) for all candidates at once
+(:func:`service.results.bulk_scoring.score_nights`: the same bodies a scoring request answers);
+after a training they are usually stored already (:mod:`service.jobs.queue_warm`).
+
 :func:`models.rank_nights` orders them; the status of each night comes from its reviews.
 """
 
@@ -165,6 +169,8 @@ def _evidence(factory: sessionmaker[Session], study_id: str, candidates: Sequenc
             raise answer
         return json.loads(answer)  # type: ignore[no-any-return]
 
+    # a night deleted since the candidates were read has no scoring: it leaves the queue
+    candidates = [c for c in candidates if (c.participant_id, c.night_id, "auto") in bodies]
     shown: dict[int, dict[str, Any]] = {}
     rules: dict[int, dict[str, dict[str, float]]] = {}
     for c in candidates:
