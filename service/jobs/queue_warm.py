@@ -17,7 +17,7 @@ import logging
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import FeatureConfig, Progress
+from models import FeatureConfig
 
 from ..store import db
 from ..store.codec import night_from_row
@@ -29,6 +29,10 @@ __all__ = ["warm_review_queue"]
 log = logging.getLogger("nightbank.worker")
 
 
+def _quiet(done: int, total: int, stage: str) -> None:
+    """No progress report (see :func:`warm_review_queue`)."""
+
+
 def _configs(session: Session, study_pk: int) -> list[FeatureConfig]:
     found: dict[str, FeatureConfig] = {}
     for meta in session.scalars(select(db.ModelVersion.model_meta).where(db.ModelVersion.study_pk == study_pk,
@@ -38,16 +42,16 @@ def _configs(session: Session, study_pk: int) -> list[FeatureConfig]:
     return list(found.values())
 
 
-def warm_review_queue(factory: sessionmaker[Session], *, study_id: str, n_jobs: int, progress: Progress) -> None:
+def warm_review_queue(factory: sessionmaker[Session], *, study_id: str, n_jobs: int) -> None:
     """Store the features and scorings the study's review queue reads (errors are logged, not raised).
+
+    The job's progress is not reported from here: it stays at the training's (done = total).
 
     Parameters
     ----------
     study_id : str
     n_jobs : int
         Processes computing missing features.
-    progress : callable
-        The job's progress callback.
     """
     from ..results.review_queue import review_queue  # the results layer sits above the jobs
 
@@ -63,9 +67,8 @@ def warm_review_queue(factory: sessionmaker[Session], *, study_id: str, n_jobs: 
             pks = [row.pk for row, _ in rows]
             configs = _configs(session, study.pk)
         for config in configs:
-            training_features(factory, nights, pks, config=config, n_jobs=n_jobs, progress=progress,
+            training_features(factory, nights, pks, config=config, n_jobs=n_jobs, progress=_quiet,
                               stage="review queue: night features")
-        progress(0, 1, "review queue: scoring nights")
         review_queue(factory, study_id=study_id)
     except Exception:  # noqa: BLE001 - the version is stored; the queue request computes what is missing
         log.warning("study %s: the review queue was not prepared after training", study_id, exc_info=True)

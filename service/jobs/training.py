@@ -254,7 +254,7 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
                                        actor=_actor(session, job), held_out=encode_held_out(result.outer))
         refresh_choices(session, study=study, participants=[participant], policy=config.choice_policy)
         chosen = find_participant(session, study, job.participant_id).chosen_method
-    warm_review_queue(factory, study_id=job.study_id, n_jobs=config.n_jobs, progress=progress)
+    warm_review_queue(factory, study_id=job.study_id, n_jobs=config.n_jobs)
     return {"model_version": version.version, "active": version.active, "chosen_method": chosen}
 
 
@@ -306,7 +306,7 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
                                        held_out=encode_held_out(held_out))
         pooled_bases.add_fold_models(session, version=version, fold_models=result.fold_models, folds=result.folds)
         refresh_choices(session, study=study, policy=config.choice_policy)
-    warm_review_queue(factory, study_id=job.study_id, n_jobs=config.n_jobs, progress=progress)
+    warm_review_queue(factory, study_id=job.study_id, n_jobs=config.n_jobs)
     return {"model_version": version.version, "active": version.active}
 
 
