@@ -10,9 +10,9 @@ trials), so the deployed scoring is a model (``pooled+offset``) for every partic
   without PSG with the new model, stored);
 - ``queue_cold_s``: the first ``GET /review-queue`` after the training (the stored scorings of
   every queued night with ``auto`` and two rules read in bulk, :mod:`service.results.bulk_scoring`,
-  and ranked); goal: a few seconds for ~120 nights. Latest: 1.18 s with the training job at 127.8 s
-  (load average 12.9). Before the queue was prepared by the training job the request scored every
-  night itself, one request's work per night and method: 33 s;
+  and ranked); goal: a few seconds for ~120 nights. Latest: 1.78 s, the training job 53.7 s (load
+  average 5.2). Before the queue was prepared by the training job the request scored every night
+  itself, one request's work per night and method: 28.6 s, the training job 19.6 s (load average 5.5);
 - ``queue_warm_ms``: the median of 5 further requests (scorings read from the cache);
 - ``context_warm_ms``: the median of 5 ``GET .../review-context`` of queued nights (the page's
   request; it ranks the queue for the neighbours);
