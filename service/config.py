@@ -48,6 +48,10 @@ class Settings(BaseSettings):
     token_cache_s: float = Field(default=5.0, ge=0, description="Seconds a verified token is remembered (a "
                                                                 "revocation takes effect within it).")
     log_level: str = Field(default="INFO", description="Log level of the service and its workers.")
+    prepare_review_queue: bool = Field(default=True, description="After storing a version, a training job scores "
+                                                                 "the study's nights without PSG for the review "
+                                                                 "queue, so its first request reads stored "
+                                                                 "scorings (off: that request computes them).")
     executor: Literal["local", "dask"] = Field(default="local", description="Where workers run trainings: local "
                                                                             "(in the worker process) or dask.")
     dask_scheduler: str | None = Field(default=None, description="Dask scheduler address for the dask executor, "

@@ -10,6 +10,10 @@ from .corrections import (
     review_parameters,
     runs_of,
 )
+from .error_model import (
+    evidence_matrix,
+    fit_priority_weights,
+)
 from .evidence import (
     DIARY_TOLERANCE_MIN,
     EVIDENCE_TERMS,
@@ -42,7 +46,9 @@ __all__ = [
     "REASON_MIN",
     "REVIEW_PARAMETERS",
     "evidence_figures",
+    "evidence_matrix",
     "expected_change",
+    "fit_priority_weights",
     "inter_rater_summary",
     "judged_span",
     "labels_from_review",

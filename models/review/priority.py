@@ -1,31 +1,39 @@
 """The review queue: nights ranked by how much a review is expected to change their parameters.
 
 For each night the evidence terms of :func:`models.review.evidence.evidence_figures` (minutes, the
-quality flags a count) are weighed into one figure, the **expected absolute change** a review makes
-to TST, WASO and SOL together, in minutes::
+quality flags a count) are combined into one figure, the **expected absolute change** a review makes
+to TST, WASO and SOL together (the expected total absolute error of the deployed scoring), in minutes,
+by a log-linear model (:mod:`models.review.error_model`)::
 
-    expected_change_min = base_min + sum(weight[term] * value[term])
+    expected_change_min = base_min * exp(sum(weight[term] * value[term]))
 
+so each term multiplies the expected change (a weight is the log change per minute of the term).
 ``priority`` is the same figure: the queue is ordered by it, highest first, ties by ``night_id``
-(so the order is deterministic). ``reasons`` are the sentences of the terms that add at least
-:data:`REASON_MIN` minutes, largest contribution first.
+(so the order is deterministic). A term's contribution is the minutes it adds, the expected
+change with it minus the expected change without it (``expected * (1 - exp(-weight * value))``);
+``reasons`` are the sentences of the terms that add at least :data:`REASON_MIN` minutes, largest
+contribution first.
 
 Where the weights come from
 ---------------------------
-:data:`DEFAULT_PRIORITY_WEIGHTS` were **fitted on simulated nights** by ``bench/review_queue.py --fit``:
-non-negative least squares of each night's true total absolute error of the deployed scoring
-(|TST err| + |WASO err| + |SOL err|, minutes) on the evidence terms and a base, over the 167
-unlabelled nights of a simulated cohort of 24 participants with its own seed (not the cohort the
-bench's figure is measured on). They are figures of the simulator, not of any real study; a study
-that collects double reviews should refit them on its own adjudicated nights. In particular:
+:data:`DEFAULT_PRIORITY_WEIGHTS` were **fitted on simulated nights** by ``bench/review_queue.py --fit``
+(:func:`models.review.error_model.fit_priority_weights`: Poisson quasi-likelihood, log link, weights
+>= 0) to each night's true total absolute error of the deployed scoring (|TST err| + |WASO err| +
+|SOL err|, minutes) over the 167 unlabelled nights of a simulated cohort of 24 participants with its
+own seed (not the cohorts the bench's figure is measured on). They are figures of the simulator, not
+of any real study; a study that collects double reviews should refit them on its own adjudicated
+nights. Notes:
 
-- the fit gave no weight to ``uncertainty`` (the models' per-night ``uncertainty_min``): on the
-  simulated nights it rises and falls with the detected wake in bed, which took its share;
-  ``sol_interval``, ``rule_disagreement`` and ``qc_flags`` got none either (the simulator has no
-  spikes or stuck sensors, and the rules' disagreement is mostly their constant bias). These terms
-  keep small weights of our own choice (0.25, 0.05 and 0.05 minutes per minute, 5 minutes per flag)
-  so that such evidence still counts and is shown; with them the bench's figure moved by under
-  2 points (``bench/review_queue.py --weights`` measures any other set).
+- the models' per-night ``uncertainty_min`` gets the largest weight per minute (0.042: 20 more
+  minutes of posterior spread multiply the expected change by 2.3). The former non-negative least
+  squares on minutes gave it 0 (0.11 minutes per minute on the same cohort today): there the few
+  nights with a device taken off (errors of 150-200 min) dominate the squared error, and the
+  posterior spread, whose effect is a proportion of an error of tens of minutes, was mostly taken
+  up by the detected wake in bed. On the same evidence the log-linear fit holds 40.0 % of the
+  error in the top fifth of the 12-participant bench cohort where least squares held 37.8 %;
+- ``sol_interval`` and ``rule_disagreement`` were fitted 0 (the rules' disagreement is mostly their
+  constant bias) and add nothing; their figures are still computed (``evidence_figures``), and
+  ``bench/review_queue.py --weights`` measures any other set.
 """
 
 from __future__ import annotations
@@ -34,25 +42,27 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
+import numpy as np
+
 from ..errors import Problem
 from .corrections import InvalidReviewError
 from .evidence import EVIDENCE_TERMS, NightEvidence, evidence_figures
 
 __all__ = ["DEFAULT_PRIORITY_WEIGHTS", "REASON_MIN", "QueueItem", "expected_change", "rank_nights"]
 
-#: Minutes per unit of each evidence term, plus ``base_min`` (the expected change of a night
-#: without any evidence). See "Where the weights come from" in the module docstring.
+#: ``base_min`` (the expected change of a night without any evidence, minutes) and the log change of the
+#: expected change per unit of each evidence term. See "Where the weights come from" in the module docstring.
 DEFAULT_PRIORITY_WEIGHTS: Mapping[str, float] = MappingProxyType({
-    "base_min": 0.0,              # fitted
-    "uncertainty": 0.25,          # own choice (fitted 0)
-    "sol_interval": 0.05,         # own choice (fitted 0)
-    "model_disagreement": 0.64,   # fitted
-    "rule_disagreement": 0.05,    # own choice (fitted 0)
-    "wake_in_bed": 0.46,          # fitted
-    "nonwear": 0.78,              # fitted
-    "diary": 0.89,                # fitted
-    "unusual": 0.24,              # fitted
-    "qc_flags": 5.0,              # own choice (fitted 0)
+    "base_min": 12.32,            # minutes: expected change of a night without evidence
+    "uncertainty": 0.0422,        # log change per minute (per flag for qc_flags), as fitted
+    "sol_interval": 0.0,
+    "model_disagreement": 0.0065,
+    "rule_disagreement": 0.0,
+    "wake_in_bed": 0.0016,
+    "nonwear": 0.0092,
+    "diary": 0.0138,
+    "unusual": 0.0014,
+    "qc_flags": 0.347,
 })
 #: A term adds a reason when its contribution reaches this many minutes.
 REASON_MIN = 2.0
@@ -72,7 +82,8 @@ class QueueItem:
     reasons : list of str
         Readable sentences naming the figures behind the priority, largest first.
     contributions : dict of str to float
-        Minutes each evidence term adds (``base_min`` included).
+        ``base_min``, and the minutes each evidence term adds (the expected change with the term
+        minus without it; the terms multiply, so these do not sum to the total).
     """
 
     night_id: str
@@ -99,8 +110,9 @@ def _check_weights(weights: Mapping[str, float]) -> dict[str, float]:
 
 def _item(e: NightEvidence, w: Mapping[str, float]) -> QueueItem:
     figures = evidence_figures(e)
-    contributions = {"base_min": w["base_min"]} | {t: w[t] * f.value for t, f in figures.items()}
-    total = float(sum(contributions.values()))
+    logs = {t: w[t] * f.value for t, f in figures.items()}
+    total = float(w["base_min"] * np.exp(sum(logs.values())))
+    contributions = {"base_min": w["base_min"]} | {t: float(total * -np.expm1(-v)) for t, v in logs.items()}
     shown = sorted((t for t in figures if contributions[t] >= REASON_MIN), key=lambda t: (-contributions[t], t))
     reasons = [figures[t].reason for t in shown] or ["no evidence that a review would change much"]
     return QueueItem(night_id=e.night_id, participant_id=e.participant_id, priority=total,
@@ -137,7 +149,8 @@ def rank_nights(evidence: Sequence[NightEvidence], *,
     evidence : sequence of NightEvidence
         One per night (night ids unique).
     weights : mapping of str to float, default=DEFAULT_PRIORITY_WEIGHTS
-        Minutes per unit of each evidence term (module docstring); terms left out keep their default.
+        ``base_min`` and the log change per unit of each evidence term (module docstring); terms left out
+        keep their default.
 
     Returns
     -------

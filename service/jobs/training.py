@@ -26,6 +26,10 @@ A pooled version is stored with its fold models. A personal training starts from
 active pooled version (:mod:`service.store.pooled_bases`: the deployed model continues its final
 model, the held-out nights the fold model that left the participant out), or from scratch without
 one (or with another feature set); the version's hyperparameters and ``info_["start_note"]`` say which.
+
+After storing a version the job prepares the study's review queue (:mod:`service.jobs.queue_warm`:
+the nights without PSG scored with the models now active), so the reviewer's first queue page is
+read from stored scorings (``Settings.prepare_review_queue``, on by default).
 """
 
 from __future__ import annotations
@@ -68,6 +72,7 @@ from ..store.registry import (
 )
 from ..store.reviews import corrections_by_participant, participant_corrections
 from .queue import JobInfo, enqueue_job
+from .queue_warm import warm_review_queue
 from .training_inputs import night_pks_of as _night_pks
 from .training_inputs import training_features as _training_features
 
@@ -253,6 +258,8 @@ def _run_personal(job: JobInfo, factory: sessionmaker[Session], settings: Settin
                                        actor=_actor(session, job), held_out=encode_held_out(result.outer))
         refresh_choices(session, study=study, participants=[participant], policy=config.choice_policy)
         chosen = find_participant(session, study, job.participant_id).chosen_method
+    if settings.prepare_review_queue:
+        warm_review_queue(factory, study_id=job.study_id, n_jobs=config.n_jobs)
     return {"model_version": version.version, "active": version.active, "chosen_method": chosen}
 
 
@@ -305,6 +312,8 @@ def _run_pooled(job: JobInfo, factory: sessionmaker[Session], settings: Settings
                                        held_out=encode_held_out(held_out))
         pooled_bases.add_fold_models(session, version=version, fold_models=result.fold_models, folds=result.folds)
         refresh_choices(session, study=study, policy=config.choice_policy)
+    if settings.prepare_review_queue:
+        warm_review_queue(factory, study_id=job.study_id, n_jobs=config.n_jobs)
     return {"model_version": version.version, "active": version.active}
 
 

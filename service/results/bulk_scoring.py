@@ -42,7 +42,7 @@ from ..store.snapshots import participant_snapshot, study_snapshot
 from .night_intervals import at_level
 from .scoring import SCORING_METHODS, fresh_scoring, resolve_method, scoring_key
 
-__all__ = ["CHUNK_NIGHTS", "bulk_scorings"]
+__all__ = ["CHUNK_NIGHTS", "bulk_scorings", "score_nights"]
 
 #: nights read, computed and stored together
 CHUNK_NIGHTS = 50
@@ -121,6 +121,27 @@ def bulk_scorings(factory: sessionmaker[Session], *, study_id: str, method: str,
         yield _chunk(factory, list(nights[start:start + chunk]), plans, pks, writer)
 
 
+class _NightGone(NotFound):
+    """A night asked for that is not stored (deleted since it was listed)."""
+
+
+def score_nights(factory: sessionmaker[Session], *, study_id: str, nights: Sequence[tuple[str, str]],
+                 methods: Sequence[str], writer: CacheWriter | None = None,
+                 ) -> dict[tuple[str, str, str], bytes | Exception]:
+    """:func:`bulk_scorings` of several methods as one mapping; nights not stored are left out.
+
+    Returns
+    -------
+    dict of (participant id, night id, method) to bytes or error
+        The body :func:`score_night` answers, or the error its resolution raises.
+    """
+    out: dict[tuple[str, str, str], bytes | Exception] = {}
+    for method in methods:
+        for chunk in bulk_scorings(factory, study_id=study_id, method=method, nights=nights, writer=writer):
+            out |= {(pid, night_id, method): body for pid, night_id, body in chunk if not isinstance(body, _NightGone)}
+    return out
+
+
 def _chunk(factory: sessionmaker[Session], nights: list[tuple[str, str]], plans: dict[str, _Plan | Exception],
            pks: dict[tuple[str, str], int], writer: CacheWriter | None) -> list[tuple[str, str, bytes | Exception]]:
     answers: dict[tuple[str, str], bytes | Exception] = {}
@@ -130,7 +151,7 @@ def _chunk(factory: sessionmaker[Session], nights: list[tuple[str, str]], plans:
         if isinstance(plan, Exception):
             answers[(pid, night_id)] = plan
         elif (pid, night_id) not in pks:
-            answers[(pid, night_id)] = NotFound(f"no night {night_id!r} for participant {pid!r}")
+            answers[(pid, night_id)] = _NightGone(f"no night {night_id!r} for participant {pid!r}")
         else:
             wanted[(pid, night_id)] = (pks[(pid, night_id)], plan)
     new_rows: list[db.Base] = []

@@ -15,6 +15,10 @@ recording); nights with PSG are never queued. Each candidate's evidence is built
   night's start, within 12 h);
 - the deployed parameters of the participant's other candidate nights.
 
+The scorings are read (or computed and stored) for all candidates at once
+(:func:`service.results.bulk_scoring.score_nights`: the same bodies a scoring request answers);
+after a training they are usually stored already (:mod:`service.jobs.queue_warm`).
+
 :func:`models.rank_nights` orders them; the status of each night comes from its reviews.
 """
 
@@ -42,6 +46,7 @@ from ..store.codec import night_from_row
 from ..store.recording_codec import diary_from_records
 from ..store.registry import find_study
 from ..store.reviews import review_statuses
+from .bulk_scoring import score_nights
 from .model_flags import FALLBACK_RULE
 from .scoring import score_night
 
@@ -154,13 +159,25 @@ def _candidates(session: Session, study_id: str) -> list[_Candidate]:
 
 
 def _evidence(factory: sessionmaker[Session], study_id: str, candidates: Sequence[_Candidate]) -> list[NightEvidence]:
+    methods = tuple(dict.fromkeys(("auto", FALLBACK_RULE, *COMPARED_RULES)))
+    bodies = score_nights(factory, study_id=study_id, nights=[(c.participant_id, c.night_id) for c in candidates],
+                          methods=methods)
+
+    def body_of(c: _Candidate, method: str) -> dict[str, Any]:
+        answer = bodies[(c.participant_id, c.night_id, method)]
+        if isinstance(answer, Exception):
+            raise answer
+        return json.loads(answer)  # type: ignore[no-any-return]
+
+    # a night deleted since the candidates were read has no scoring: it leaves the queue
+    candidates = [c for c in candidates if (c.participant_id, c.night_id, "auto") in bodies]
     shown: dict[int, dict[str, Any]] = {}
     rules: dict[int, dict[str, dict[str, float]]] = {}
     for c in candidates:
-        shown[c.pk] = shown_scoring(factory, study_id=study_id, participant_id=c.participant_id, night_id=c.night_id)
-        rules[c.pk] = {m: _numbers(json.loads(score_night(factory, study_id=study_id, participant_id=c.participant_id,
-                                                          night_id=c.night_id, method=m))["parameters"])
-                       for m in COMPARED_RULES}
+        auto = bodies[(c.participant_id, c.night_id, "auto")]
+        no_model = isinstance(auto, Unprocessable) and auto.code == "no_model"
+        shown[c.pk] = body_of(c, FALLBACK_RULE if no_model else "auto")
+        rules[c.pk] = {m: _numbers(body_of(c, m)["parameters"]) for m in COMPARED_RULES}
     by_participant: dict[str, list[_Candidate]] = {}
     for c in candidates:
         by_participant.setdefault(c.participant_id, []).append(c)

@@ -49,7 +49,8 @@ def live_world(backend: str, tmp_path: Path) -> Iterator[World]:
             from pg_support import throwaway_database
 
             url = stack.enter_context(throwaway_database())
-        settings = Settings(db=url, port=free_port(), token_cache_s=0.5, n_trials=2, job_workers=1)
+        settings = Settings(db=url, port=free_port(), token_cache_s=0.5, n_trials=2, job_workers=1,
+                            prepare_review_queue=False)
         upgrade(settings)
         engine = make_engine(settings)
         stack.callback(engine.dispose)

@@ -18,13 +18,17 @@ ROOT = Path(__file__).resolve().parents[2]
 
 
 @pytest.fixture
-def settings(tmp_path: Path) -> Any:
-    """Settings of a fresh, migrated SQLite database under ``tmp_path`` (short leases, few trials)."""
+def settings(tmp_path: Path, request: pytest.FixtureRequest) -> Any:
+    """Settings of a fresh, migrated SQLite database under ``tmp_path`` (short leases, few trials).
+
+    Trainings leave the review queue unprepared unless the test is marked ``prepared_review_queue``
+    (preparing it scores every unlabelled night, which only tests of the queue need)."""
     from service.config import Settings
     from service.store.schema import upgrade
 
+    prepare = request.node.get_closest_marker("prepared_review_queue") is not None
     s = Settings(db=f"sqlite:///{tmp_path / 'nightbank.db'}", port=free_port(), lease_s=3.0, heartbeat_s=0.5,
-                 poll_s=0.2, n_trials=2, job_workers=1, token_cache_s=0.5)
+                 poll_s=0.2, n_trials=2, job_workers=1, token_cache_s=0.5, prepare_review_queue=prepare)
     upgrade(s)
     return s
 

@@ -224,6 +224,7 @@ def test_agreement_kappa_matches_scikit_learn(world: World) -> None:
 
 
 @pytest.mark.slow
+@pytest.mark.prepared_review_queue
 def test_personal_training_fits_corrected_nights_with_the_study_weight_but_never_holds_them_out(
         http: Any, study: str, admin: dict[str, str], settings: Any, factory: Any, make_token: Any) -> None:
     from sqlalchemy import select
@@ -277,6 +278,35 @@ def test_personal_training_fits_corrected_nights_with_the_study_weight_but_never
     assert card["data"]["corrected_nights"] == 2
     assert "Corrected nights (reviewed labels, not PSG; final fit only, never held out): 2 at weight 0.3" \
         in model_card_markdown(card)
+    _check_prepared_queue(factory, [("P-01", nid) for nid in corrected])
+
+
+def _check_prepared_queue(factory: Any, queued: list[tuple[str, str]]) -> None:
+    """The training job stored the queue's scorings (auto and the compared rules) of the nights without PSG, and
+    the bulk scoring builds the very bytes a single scoring request builds (rows deleted before each)."""
+    from sqlalchemy import delete, select
+
+    from service.results.bulk_scoring import score_nights
+    from service.results.review_queue import COMPARED_RULES
+    from service.results.scoring import score_night
+    from service.store import db
+
+    methods = ("auto", *COMPARED_RULES)
+    with db.session_scope(factory) as session:
+        pks = list(session.scalars(select(db.Night.pk).where(db.Night.night_id.in_([n for _, n in queued]))))
+        stored = session.execute(select(db.Scoring.night_pk, db.Scoring.method)
+                                 .where(db.Scoring.night_pk.in_(pks))).all()
+    assert {pk for pk, _ in stored} == set(pks)
+    assert {m for _, m in stored} == {"personal", *COMPARED_RULES}  # auto resolved to the new personal model
+    with db.session_scope(factory, write=True) as session:
+        session.execute(delete(db.Scoring).where(db.Scoring.night_pk.in_(pks)))
+    bulk = score_nights(factory, study_id="s1", nights=queued, methods=methods)
+    with db.session_scope(factory, write=True) as session:
+        session.execute(delete(db.Scoring).where(db.Scoring.night_pk.in_(pks)))
+    for pid, nid in queued:
+        for method in methods:
+            single = score_night(factory, study_id="s1", participant_id=pid, night_id=nid, method=method)
+            assert bulk[(pid, nid, method)] == single, (nid, method)
 
 
 def test_queue_command_and_client_review_methods(server: Any, http: Any, study: str, admin: dict[str, str],

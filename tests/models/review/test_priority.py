@@ -7,7 +7,8 @@ import numpy as np
 import pytest
 
 from models.review.corrections import InvalidReviewError
-from models.review.evidence import NightEvidence, evidence_figures
+from models.review.error_model import evidence_matrix, fit_priority_weights
+from models.review.evidence import EVIDENCE_TERMS, NightEvidence, evidence_figures
 from models.review.priority import DEFAULT_PRIORITY_WEIGHTS, expected_change, rank_nights
 
 AUTO = {"sol_min": 20.0, "tst_min": 400.0, "waso_min": 40.0, "awakenings": 8.0, "sleep_efficiency_pct": 87.0}
@@ -44,17 +45,60 @@ def test_order_is_deterministic_whatever_the_input_order() -> None:
     assert first[:4] == ["n5", "n4", "n3", "n2"]
 
 
-def test_expected_change_adds_weighted_terms_in_minutes() -> None:
+def test_expected_change_is_log_linear_in_the_terms_and_reasons_name_the_minutes_added() -> None:
     e = _clean("x", nonwear_share=0.12, qc_flags=["off_wrist"], diary_offsets_min={"bed_time": 70.0})
     item = expected_change(e)
     w = DEFAULT_PRIORITY_WEIGHTS
     figures = evidence_figures(e)
     assert figures["diary"].value == 55.0  # |70| minus the 15-min tolerance
     assert figures["nonwear"].value == pytest.approx(0.12 * 100 * 400 / 87)  # share x 100 x TST / efficiency
-    want = w["base_min"] + sum(w[t] * f.value for t, f in figures.items())
+    want = w["base_min"] * np.exp(sum(w[t] * f.value for t, f in figures.items()))
     assert item.expected_change_min == pytest.approx(want)
+    # a term adds the expected change with it minus the expected change without it
+    without_diary = expected_change(_clean("x", nonwear_share=0.12, qc_flags=["off_wrist"]))
+    assert item.contributions["diary"] == pytest.approx(item.expected_change_min - without_diary.expected_change_min)
     assert "12 % of the rest period off-wrist (55 min)" in item.reasons
     assert "diary bed time 70 min after the detected rest start" in item.reasons
+    # a term weighted 0 adds nothing and is no reason
+    zero = expected_change(e, weights={"diary": 0.0})
+    assert zero.contributions["diary"] == 0.0 and not any(r.startswith("diary") for r in zero.reasons)
+
+
+def _simulated_errors(n: int, seed: int) -> tuple[list[NightEvidence], dict[str, float], dict[str, float]]:
+    """Nights with diary offsets and off-wrist shares, errors drawn Poisson from a known log-linear mean."""
+    rng = np.random.default_rng(seed)
+    truth = {"base_min": 20.0, "diary": 0.02, "nonwear": 0.01}
+    nights, errors = [], {}
+    for k in range(n):
+        e = _clean(f"n{k:03d}", diary_offsets_min={"bed_time": float(rng.uniform(0, 90))},
+                   nonwear_share=float(rng.uniform(0, 0.3)), uncertainty_min=None, intervals=None,
+                   parameters={"auto": AUTO})
+        f = evidence_figures(e)
+        mean = truth["base_min"] * np.exp(truth["diary"] * f["diary"].value + truth["nonwear"] * f["nonwear"].value)
+        nights.append(e)
+        errors[e.night_id] = float(rng.poisson(mean))
+    return nights, errors, truth
+
+
+def test_fitted_weights_match_a_poisson_glm_of_statsmodels() -> None:
+    # the reference: statsmodels GLM, Poisson family (log link), on the same design; the true weights are
+    # positive, so the fit's bound at 0 is inactive and both maximise the same quasi-likelihood
+    import statsmodels.api as sm
+
+    nights, errors, truth = _simulated_errors(300, seed=11)
+    fitted = fit_priority_weights(nights, errors)
+    x = evidence_matrix(nights)
+    used = [EVIDENCE_TERMS.index(t) for t in ("diary", "nonwear")]
+    glm = sm.GLM(np.array([errors[e.night_id] for e in nights]), sm.add_constant(x[:, used]),
+                 family=sm.families.Poisson()).fit()
+    assert fitted["base_min"] == pytest.approx(float(np.exp(glm.params[0])), rel=1e-4)
+    assert fitted["diary"] == pytest.approx(float(glm.params[1]), rel=1e-3)
+    assert fitted["nonwear"] == pytest.approx(float(glm.params[2]), rel=1e-3)
+    assert fitted["diary"] == pytest.approx(truth["diary"], rel=0.2)  # and near the simulated truth
+    # terms the same on every night (no uncertainty or disagreement; the wake in bed of AUTO) get no weight
+    assert fitted["uncertainty"] == fitted["model_disagreement"] == fitted["wake_in_bed"] == 0.0
+    with pytest.raises(InvalidReviewError, match="errors_min"):
+        fit_priority_weights(nights[:3], {nights[0].night_id: 1.0})
 
 
 def test_unusual_night_for_the_participant() -> None:
