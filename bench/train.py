@@ -2,7 +2,7 @@
 pooled model (100 participants x 7 nights, leave-participants-out evaluation included).
 
 Each part runs in its own process (so peak memory is that part's own), on simulated data, with
-``n_jobs=2``. Goals: personal <= 60 s wall; pooled <= 180 s wall and <= 4 GB peak RSS. CPU seconds
+``n_jobs=2``. Goals: personal <= 30 s wall; pooled <= 90 s wall and <= 4 GB peak RSS. CPU seconds
 and the load average are printed too: on a shared machine the wall time depends on the others.
 The last printed line is one JSON object.
 """
@@ -20,7 +20,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-GOALS = {"personal_s": 60.0, "pooled_s": 180.0, "pooled_peak_rss_mb": 4096.0}
+GOALS = {"personal_s": 30.0, "pooled_s": 90.0, "pooled_peak_rss_mb": 4096.0}
 
 
 def _personal() -> dict[str, float]:
