@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Callable
-from datetime import timedelta
+from datetime import datetime, timedelta
 from functools import lru_cache
 from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -114,9 +114,11 @@ def _early_days(ns: NDArray[np.int64], last_day: int) -> bool:
     """
     if ns.size == 0:
         return False
-    ends = np.array([ns.min(), ns.max()]).view("M8[ns]")
-    months = ends.astype("M8[M]")
-    return bool(months[0] != months[1] or (ends[0].astype("M8[D]") - months[0]).astype(np.int64) + 1 <= last_day)
+    first, last = (_EPOCH + timedelta(microseconds=int(v) // 1000) for v in (ns.min(), ns.max()))  # floored
+    return (first.year, first.month) != (last.year, last.month) or first.day <= last_day
+
+
+_EPOCH = datetime(1970, 1, 1)  # naive: int64 nanoseconds count from it
 
 
 Rows = Callable[[NDArray[np.intp]], "pa.Array"]  # the trimmed times as written of some 0-based data rows
