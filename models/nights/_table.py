@@ -12,6 +12,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..errors import InvalidNightError, Problem
+from ._days import text_of
 from ._decoding import finish_night, metadata_fields
 from .checks import MAX_LISTED, CodedLabels, NightOptions, validate_night_fields
 from .columns import ColumnRoles
@@ -32,7 +33,6 @@ from .timestamps import (
     parse_with_format,
     plausible_problems,
     settle_doubtful,
-    text_of,
 )
 
 if TYPE_CHECKING:  # pyarrow has no type information: these names stand for what the values are

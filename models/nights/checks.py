@@ -274,7 +274,7 @@ def validate_night_fields(
         if "\x00" in column:
             problems.append(Problem("nul_character", f"column header {column.replace(chr(0), '?')!r} contains a NUL "
                                     "character (\\u0000)", {"field": "columns", "column": column.replace(chr(0), "?")}))
-    if start is not None and seconds is not None:
+    if start is not None and seconds is not None and (lights_off is not None or lights_on is not None):
         end = start + pd.Timedelta(seconds=seconds * n)
         for name, ts in (("lights_off", lights_off), ("lights_on", lights_on)):
             if ts is not None and not (start <= ts <= end):

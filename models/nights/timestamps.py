@@ -32,6 +32,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..errors import Problem
+from ._days import day_of_month, days_read, early_days, written_days
 from .checks import MAX_LISTED
 
 if TYPE_CHECKING:  # pyarrow has no type information
@@ -73,50 +74,9 @@ def arrow_ns(col: pa.Array) -> NDArray[np.int64]:
     return raw if per == 1 else np.clip(raw, _LOW // per, _HIGH // per) * per
 
 
-def text_of(col: pa.Array) -> pa.Array:
-    """A column as trimmed text (nulls as empty text)."""
-    import pyarrow as pa
-    import pyarrow.compute as pc
-
-    if not pa.types.is_string(col.type):
-        col = col.cast(pa.string())
-    return pc.utf8_trim_whitespace(pc.fill_null(col, "") if col.null_count else col)
-
-
 def has_zone(fmt: str) -> bool:
     """Whether times written with ``fmt`` carry their UTC offset."""
     return "%z" in fmt or "%Z" in fmt
-
-
-_DIGITS = {"m": r"\d{1,2}", "Y": r"\d{4}", "y": r"\d{2}", "H": r"\d{1,2}", "I": r"\d{1,2}", "M": r"\d{1,2}",
-           "S": r"\d{1,2}", "f": r"\d{1,9}", "j": r"\d{1,3}"}
-
-
-@lru_cache(maxsize=256)
-def _day_pattern(fmt: str) -> str:
-    """A regular expression (RE2) of the start of texts written with ``fmt``, up to the day of month (group ``d``)."""
-    out = ["^"]
-    for literal, directive in re.findall(r"([^%]*)(%.|$)", fmt):
-        out.extend(r"\s+" if part.isspace() else re.sub(r"([^\w\s])", r"\\\1", part)
-                   for part in re.split(r"(\s+)", literal) if part)
-        key = directive[1:]
-        if key == "d":
-            return "".join(out) + r"(?P<d>\d{1,2})"
-        out.append("%" if key == "%" else _DIGITS.get(key, ".+?"))
-    return "".join(out)
-
-
-def _early_days(ns: NDArray[np.int64], last_day: int) -> bool:
-    """Whether some of the times (int64 ns) may fall on days 1..``last_day`` of a month.
-
-    Every time lies between the earliest and the latest, so when those two share a month and the
-    earliest is past ``last_day``, none can.
-    """
-    if ns.size == 0:
-        return False
-    ends = np.array([ns.min(), ns.max()]).view("M8[ns]")
-    months = ends.astype("M8[M]")
-    return bool(months[0] != months[1] or (ends[0].astype("M8[D]") - months[0]).astype(np.int64) + 1 <= last_day)
 
 
 Rows = Callable[[NDArray[np.intp]], "pa.Array"]  # the trimmed times as written of some 0-based data rows
@@ -173,9 +133,8 @@ def settle_doubtful(ns: NDArray[np.int64], fmt: str, rows: Rows, *, all_doubtful
         # not read, or a year pandas may refuse (e.g. 31 for %Y); a time of day alone is read on 1900-01-01
         doubtful = ns < _FIRST if re.search(r"%[YyG]", fmt) else ns == NAT
         read = ns[~doubtful] if doubtful.any() else ns
-        if "%d" in fmt and _early_days(read, 4 if aware else 3):  # in UTC a local day may move by one
-            stamps = ns.view("M8[ns]")
-            day_read = (stamps.astype("M8[D]") - stamps.astype("M8[M]")).astype(np.int64) + 1
+        if "%d" in fmt and early_days(read, 4 if aware else 3):  # in UTC a local day may move by one
+            day_read = days_read(ns, read)
             early = ~doubtful & (day_read <= (4 if aware else 3))
             if early.any():
                 at = np.flatnonzero(early)
@@ -188,15 +147,6 @@ def settle_doubtful(ns: NDArray[np.int64], fmt: str, rows: Rows, *, all_doubtful
         ns = ns.copy()
         ns[idx] = index_ns(exact)
     return ns
-
-
-def day_of_month(text: pa.Array, fmt: str) -> NDArray[np.int64]:
-    """The day of month as written in each of the texts (written with ``fmt``, trimmed), -1 where not found."""
-    import pyarrow as pa
-    import pyarrow.compute as pc
-
-    days = pc.extract_regex(text, _day_pattern(fmt)).field("d")
-    return np.asarray(pc.fill_null(pc.cast(days, pa.int64(), safe=False), -1).to_numpy(zero_copy_only=False))
 
 
 _DATE_DIRECTIVES, _TIME_DIRECTIVES = frozenset("dmYybB"), frozenset("HMSIp")
@@ -275,7 +225,7 @@ def date_time_ns(date_col: pa.Array, time_col: pa.Array,
     before_day = fmt.partition("%d")[0]
     if "%" in before_day or any(c.isspace() for c in before_day):
         return ns, None
-    return ns, lambda at: day_of_month(text_of(dates), fmt)[codes[at]]
+    return ns, lambda at: written_days(dates, fmt)[codes[at]]
 
 
 def iso_invalid(text: pd.Series) -> NDArray[np.bool_]:

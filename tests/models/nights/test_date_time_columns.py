@@ -15,6 +15,7 @@ import pytest
 from factories import one_problem, problems_of
 
 from models import ImportProfile, night_from_csv
+from models.nights._days import day_of_month, days_read, text_of, written_days
 from models.nights.timestamps import NAT, date_time_ns, parse_with_format, settle_doubtful
 
 BERLIN = "Europe/Berlin"
@@ -126,3 +127,30 @@ def test_date_and_time_pairs_agree_with_pandas_exact(fmt: str) -> None:
         expect = pd.DatetimeIndex(pd.to_datetime(text.to_pylist(), format=fmt, exact=True, errors="coerce"))
         np.testing.assert_array_equal(split == NAT, expect.isna())  # pandas: the reference
         np.testing.assert_array_equal(split[~expect.isna()], expect[~expect.isna()].as_unit("ns").asi8)
+
+
+@pytest.mark.parametrize("span_days", [0.5, 2, 40, 400])  # a night, a long recording, over a year (numpy's calendar)
+def test_days_read_agree_with_pandas(span_days: float) -> None:
+    rng = np.random.default_rng(7)
+    start = pd.Timestamp("1899-12-30").value  # before 1970 too: days are floored
+    day_ns = 86_400 * 10**9
+    for offset_days in (0, 25_567, 40_000, 60_000):
+        ns = start + offset_days * day_ns + rng.integers(0, int(span_days * day_ns), 300)
+        ns[::17] = NAT  # rows not read: any value
+        read = ns[ns != NAT]
+        got = days_read(ns, read)
+        want = pd.DatetimeIndex(read.view("M8[ns]")).day.to_numpy()  # pandas: the reference
+        np.testing.assert_array_equal(got[ns != NAT], want)
+
+
+@pytest.mark.parametrize("fmt", ["%d.%m.%Y %H:%M:%S", "T%d/%m/%Y %H:%M", "%d-%b-%y %H:%M"])
+def test_written_days_of_distinct_dates_agree_with_arrow_regex(fmt: str) -> None:
+    date_fmt = fmt.rsplit(" ", 1)[0]
+    dates = pd.Series(pd.date_range("2031-02-25", periods=12, freq="D").strftime(date_fmt))
+    dates[3], dates[5] = f" {dates[3]}", f"{dates[5]}\t"  # blanks around a cell are trimmed
+    if date_fmt.startswith("%d."):
+        dates[7] = dates[7].lstrip("0")  # one digit for the day
+    text = pa.array(dates.tolist())
+    want = pd.to_datetime(dates.str.strip(), format=date_fmt).dt.day.to_numpy()  # pandas: the reference
+    np.testing.assert_array_equal(written_days(text, fmt), want)
+    np.testing.assert_array_equal(written_days(text, fmt), day_of_month(text_of(text), fmt))  # Arrow's RE2
