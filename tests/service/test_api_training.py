@@ -103,9 +103,10 @@ def test_cancel_queued_and_running_jobs(http, study, admin, start_worker) -> Non
     running = _train(http, admin, study, "P-01", n_trials=500).json()
     assert running["created"] is True and running["job_id"] != queued
     start_worker()
-    # cancel while it trains, past its loading and night-feature stages (their own progress counts)
+    # cancel while it trains (a held-out or the final model's search, whichever runs first), past its loading
+    # and night-feature stages (their own progress counts)
     wait_for(lambda: (j := _job(http, admin, running["job_id"]))["progress"]["done"] > 0
-             and "held out" in j["progress"]["stage"])
+             and any(s in j["progress"]["stage"] for s in ("held out", "final model")))
     assert http.post(f"/v1/jobs/{running['job_id']}/cancel", headers=admin).status_code == 200
     job = wait_for(_finished(http, admin, running["job_id"]), timeout_s=60)
     assert job["state"] == "cancelled" and job["progress"]["done"] < job["progress"]["total"]

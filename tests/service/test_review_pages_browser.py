@@ -155,7 +155,7 @@ def test_review_drag_marks_intervals_and_the_parameters_follow_the_service(tab, 
     t.page.locator("#review-note").fill("a long wake stretch after the first third")
     assert t.page.locator("#reviewer-name").input_value() == "reader1 of the lab"
     t.page.get_by_role("button", name="Submit review").click()
-    t.page.wait_for_selector("#submit-status[data-state=submitted]")
+    t.page.wait_for_selector("#submit-status[data-state=submitted]", state="attached")
     assert t.page.locator("svg.review-svg.locked").count() == 1
     stored = _api(site, "reader1", "GET", _night_api(night_id) + "/reviews")
     (own,) = stored["data"]
@@ -192,7 +192,7 @@ def test_review_second_reader_sees_nothing_of_the_first_until_both_are_in(tab, s
     a_start = lo + (hi - lo) // 2
     _drag(first_reader, a_start, a_start + 59, n)
     first_reader.page.get_by_role("button", name="Submit review").click()
-    first_reader.page.wait_for_selector("#submit-status[data-state=submitted]")
+    first_reader.page.wait_for_selector("#submit-status[data-state=submitted]", state="attached")
 
     second = _open(tab, "reader2", night_id)
     second.page.wait_for_selector("#reviews-summary[data-count]")
@@ -213,7 +213,7 @@ def test_review_second_reader_sees_nothing_of_the_first_until_both_are_in(tab, s
     b_start = a_start + 30
     _drag(second, b_start, b_start + 59, n)
     second.page.get_by_role("button", name="Submit review").click()
-    second.page.wait_for_selector("#submit-status[data-state=submitted]")
+    second.page.wait_for_selector("#submit-status[data-state=submitted]", state="attached")
 
     analyst.page.reload()
     analyst.page.wait_for_selector("#compare:not([hidden])")
