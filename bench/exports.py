@@ -69,7 +69,8 @@ def build(path: Path, *, n_nights: int, n_trials: int) -> str:
     from service.store.schema import upgrade
     from service.store.tokens import create_token
 
-    settings = Settings(db=f"sqlite:///{path}", n_trials=n_trials, port=_free_port())
+    # the queue is not prepared after training: the export measured next must find nothing of it stored
+    settings = Settings(db=f"sqlite:///{path}", n_trials=n_trials, port=_free_port(), prepare_review_queue=False)
     upgrade(settings)
     engine = make_engine(settings)
     factory = make_session_factory(engine)
