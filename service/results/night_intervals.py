@@ -3,21 +3,23 @@
 The intervals are the model's own (:meth:`models.SleepModel.intervals`: the spread of posterior
 sleep/wake paths of the fitted decoding around the decoded night, scaled on the model's inner nights,
 at the study protocol's ``interval_level``);
-:data:`INTERVAL_PATHS` paths are drawn from :func:`interval_seed` of the night id and the model
-version, so a night scored again by the same version gets the same numbers.
+:data:`INTERVAL_PATHS` paths are drawn from :func:`interval_seed` of the night id and the model's content
+(:func:`model_key`), so a night scored again, also by the same nights trained again, gets the same numbers.
 """
 
 from __future__ import annotations
 
 import hashlib
 import math
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 
 from models import HmmDecoder, Night, SleepModel, StudyProtocol, TrainingConfig
 
-__all__ = ["INTERVAL_PARAMETERS", "INTERVAL_PATHS", "at_level", "decoded_extras", "interval_seed", "probabilities"]
+__all__ = ["INTERVAL_PARAMETERS", "INTERVAL_PATHS", "at_level", "decoded_extras", "interval_seed", "model_key",
+           "probabilities"]
 
 #: Parameters that get a per-night interval (model methods with decoding), in table order.
 INTERVAL_PARAMETERS: tuple[str, ...] = ("sol_min", "tst_min", "waso_min", "awakenings", "sleep_efficiency_pct")
@@ -38,15 +40,26 @@ def at_level(protocol: StudyProtocol, interval_level: float | None) -> StudyProt
     return StudyProtocol.from_dict(protocol.to_dict() | {"interval_level": interval_level})
 
 
-def interval_seed(night_id: str, model_uid: str) -> int:
-    """Seed of a night's interval paths: the first 8 hex digits of SHA-256 of ``night_id:model_uid``.
+def model_key(kind: str, version: int, training_hashes: Sequence[str]) -> str:
+    """What names a model's content for :func:`interval_seed`: its kind, number and training nights' hashes.
+
+    Not the version's random uid: the same nights trained again (same seed, same model) give the same key,
+    so the same intervals.
+    """
+    digest = hashlib.sha256(",".join(sorted(training_hashes)).encode()).hexdigest()[:16]
+    return f"{kind}:{version}:{digest}"
+
+
+def interval_seed(night_id: str, model: str) -> int:
+    """Seed of a night's interval paths: the first 8 hex digits of SHA-256 of ``night_id:model``
+    (``model`` from :func:`model_key`).
 
     Examples
     --------
     >>> interval_seed("a1", "v") == interval_seed("a1", "v") != interval_seed("a2", "v")
     True
     """
-    return int(hashlib.sha256(f"{night_id}:{model_uid}".encode()).hexdigest()[:8], 16)
+    return int(hashlib.sha256(f"{night_id}:{model}".encode()).hexdigest()[:8], 16)
 
 
 def _finite(value: Any) -> float | None:

@@ -22,9 +22,9 @@ add per-night intervals of the sleep parameters (``intervals``: ``[low, high]`` 
 :data:`INTERVAL_PARAMETERS`, at the study protocol's ``interval_level``), the review score
 ``uncertainty_min`` and, for the HMM decoder, the posterior P(sleep) per epoch
 (``p_sleep_posterior``); all from the model's own :meth:`SleepModel.intervals` and decoder, with
-:data:`INTERVAL_PATHS` posterior paths drawn from a seed derived from the night id and the model
-version's uid (:func:`interval_seed`), so the same request gives the same numbers. Rules and
-models without decoding answer ``null`` for these. The per-night score is part of the stored body;
+:data:`INTERVAL_PATHS` posterior paths drawn from a seed derived from the night id and the model's
+content (:func:`interval_seed`), so the same request, and the same nights trained again, give the same
+numbers. Rules and models without decoding answer ``null`` for these. The per-night score is part of the stored body;
 :func:`study_uncertainty` reads it for every night of a study at once.
 
 Each result is stored (zlib-compressed JSON) under the night and a key naming the rule, or the
@@ -74,7 +74,7 @@ from ..store.protocols import study_protocol
 from ..store.registry import find_participant, find_study, participant_snapshot, study_snapshot
 from ..store.snapshots import ParticipantInfo, StudyInfo
 from .model_flags import auto_choice
-from .night_intervals import at_level, decoded_extras, interval_seed, probabilities
+from .night_intervals import at_level, decoded_extras, interval_seed, model_key, probabilities
 
 __all__ = ["SCORING_METHODS", "compute_scoring", "fresh_scoring", "resolve_method", "score_night", "scoring_key",
            "study_uncertainty", "uses_current_nights"]
@@ -82,8 +82,9 @@ __all__ = ["SCORING_METHODS", "compute_scoring", "fresh_scoring", "resolve_metho
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 #: part of every cache key: bump when a stored scoring body would now come out differently
 #: (2: epochs without counts are unscored, ``null``, instead of sleep or wake; 3: intervals, the review
-#: score and the posterior P(sleep) of models with decoding)
-SCORING_REVISION = "s3"
+#: score and the posterior P(sleep) of models with decoding; 4: the intervals' seed from the model's content,
+#: not its uid)
+SCORING_REVISION = "s4"
 
 
 @dataclass(frozen=True)
@@ -309,7 +310,8 @@ def fresh_scoring(night: Night, *, night_pk: int, night_hash: str, night_id: str
                   protocol: StudyProtocol, features: FeatureMatrix | None) -> tuple[bytes, db.Scoring]:
     """A night's scoring computed now: the JSON body and the ``scorings`` row that stores it (not added yet)."""
     number = None if resolved.version is None else resolved.version.version
-    seed = 0 if resolved.version is None else interval_seed(night_id, resolved.version.uid)
+    v = resolved.version
+    seed = 0 if v is None else interval_seed(night_id, model_key(v.kind, v.version, v.metadata.training_hashes))
     # stored descriptors keep a missing value as None (JSON); the model reads it as NaN
     numeric = None if descriptors is None else {k: math.nan if v is None else v for k, v in descriptors.items()}
     result = compute_scoring(night, method=resolved.method, model=model, version=number,

@@ -92,7 +92,7 @@ def _stored_model(world, pid: str | None):
 def _direct_intervals(world, pid: str, k: int, *, protocol=None):
     """P-01's personal model's NightIntervals of night ``k``, computed here from the stored model."""
     from models import DEFAULT_PROTOCOL, night_from_json
-    from service.results.night_intervals import INTERVAL_PATHS, interval_seed
+    from service.results.night_intervals import INTERVAL_PATHS, interval_seed, model_key
 
     protocol = protocol or DEFAULT_PROTOCOL
     model, version = _stored_model(world, pid)
@@ -104,7 +104,9 @@ def _direct_intervals(world, pid: str, k: int, *, protocol=None):
         descriptors = {k: math.nan if v is None else v for k, v in descriptors.items()}
     p_sleep = model.predict_proba(night, descriptors=descriptors)
     found = model.intervals(p_sleep, night, level=protocol.interval_level, n_paths=INTERVAL_PATHS,
-                            seed=interval_seed(world.ids[pid][k], version.uid), protocol=protocol)
+                            seed=interval_seed(world.ids[pid][k], model_key(version.kind, version.version,
+                                                                       version.metadata.training_hashes)),
+                            protocol=protocol)
     return found, model, p_sleep
 
 
