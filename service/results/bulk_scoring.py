@@ -20,6 +20,7 @@ nights are still computed. A night or participant that cannot be scored gets the
 
 from __future__ import annotations
 
+import json
 import zlib
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
@@ -31,7 +32,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from models import NightbankError, night_features
 
-from ..errors import BadRequest, NotFound
+from ..errors import BadRequest, NotFound, Unprocessable
 from ..store import db
 from ..store.cachewriter import CacheWriter
 from ..store.codec import night_from_row
@@ -42,7 +43,7 @@ from ..store.snapshots import participant_snapshot, study_snapshot
 from .night_intervals import at_level
 from .scoring import SCORING_METHODS, fresh_scoring, resolve_method, scoring_key
 
-__all__ = ["CHUNK_NIGHTS", "bulk_scorings", "score_nights"]
+__all__ = ["CHUNK_NIGHTS", "bulk_scorings", "score_nights", "study_uncertainty"]
 
 #: nights read, computed and stored together
 CHUNK_NIGHTS = 50
@@ -139,6 +140,57 @@ def score_nights(factory: sessionmaker[Session], *, study_id: str, nights: Seque
     for method in methods:
         for chunk in bulk_scorings(factory, study_id=study_id, method=method, nights=nights, writer=writer):
             out |= {(pid, night_id, method): body for pid, night_id, body in chunk if not isinstance(body, _NightGone)}
+    return out
+
+
+def study_uncertainty(factory: sessionmaker[Session], *, study_id: str, method: str = "auto",
+                      writer: CacheWriter | None = None) -> list[dict[str, Any]]:
+    """Every night's review score in a study, from the stored scoring bodies (computed and stored when missing,
+    in bulk: :func:`bulk_scorings`).
+
+    Parameters
+    ----------
+    method : str, default="auto"
+        As for :func:`score_night`.
+
+    Returns
+    -------
+    list of dict
+        One per night (participants and nights in storage order): ``participant_id``, ``night_id``,
+        ``label``, ``method`` (the concrete method; None when the participant has no model for it),
+        ``model_version``, ``uncertainty_min`` (minutes; None for rules, models without decoding
+        and nights without a model) and ``interval_level``.
+
+    Raises
+    ------
+    NotFound
+        If the study does not exist.
+    BadRequest
+        If the method is unknown.
+    """
+    if method not in SCORING_METHODS:
+        raise BadRequest(f"unknown method {method!r}; choose one of {', '.join(SCORING_METHODS)}")
+    with db.session_scope(factory) as session:
+        study = find_study(session, study_id)
+        nights = session.execute(
+            select(db.Participant.participant_id, db.Night.night_id, db.Night.label)
+            .join(db.Night, db.Night.participant_pk == db.Participant.pk)
+            .where(db.Participant.study_pk == study.pk)
+            .order_by(db.Participant.participant_id, db.Night.start_utc, db.Night.night_id)).all()
+    labels = {(pid, night_id): label for pid, night_id, label in nights}
+    out = []
+    for chunk in bulk_scorings(factory, study_id=study_id, method=method, nights=list(labels), writer=writer):
+        for participant_id, night_id, body in chunk:
+            row: dict[str, Any] = {"participant_id": participant_id, "night_id": night_id,
+                                   "label": labels[(participant_id, night_id)], "method": None,
+                                   "model_version": None, "uncertainty_min": None, "interval_level": None}
+            if isinstance(body, Exception):
+                if not (isinstance(body, Unprocessable) and body.code == "no_model"):
+                    raise body
+            else:
+                found = json.loads(body)
+                row |= {k: found.get(k) for k in ("method", "model_version", "uncertainty_min", "interval_level")}
+            out.append(row)
     return out
 
 

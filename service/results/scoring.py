@@ -25,7 +25,7 @@ add per-night intervals of the sleep parameters (``intervals``: ``[low, high]`` 
 :data:`INTERVAL_PATHS` posterior paths drawn from a seed derived from the night id and the model's
 content (:func:`interval_seed`), so the same request, and the same nights trained again, give the same
 numbers. Rules and models without decoding answer ``null`` for these. The per-night score is part of the stored body;
-:func:`study_uncertainty` reads it for every night of a study at once.
+:func:`service.results.bulk_scoring.study_uncertainty` reads it for every night of a study at once.
 
 Each result is stored (zlib-compressed JSON) under the night and a key naming the rule, or the
 model version's uid plus the participant inputs (offset, descriptors); a repeat request returns the
@@ -77,7 +77,7 @@ from .model_flags import auto_choice
 from .night_intervals import at_level, decoded_extras, interval_seed, model_key, probabilities
 
 __all__ = ["SCORING_METHODS", "compute_scoring", "fresh_scoring", "resolve_method", "score_night", "scoring_key",
-           "study_uncertainty", "uses_current_nights"]
+           "uses_current_nights"]
 
 SCORING_METHODS: tuple[str, ...] = ("auto", *MODEL_METHODS, *METHOD_IDS)
 #: part of every cache key: bump when a stored scoring body would now come out differently
@@ -323,56 +323,6 @@ def fresh_scoring(night: Night, *, night_pk: int, night_hash: str, night_id: str
     return body, db.Scoring(night_pk=night_pk, model_version_pk=None if resolved.version is None
                             else resolved.version.pk, cache_key=key, night_hash=night_hash,
                             method=resolved.method, body=zlib.compress(body, 1), created_at=db.utcnow())
-
-
-def study_uncertainty(factory: sessionmaker[Session], *, study_id: str, method: str = "auto",
-                      writer: CacheWriter | None = None) -> list[dict[str, Any]]:
-    """Every night's review score in a study, from the stored scoring bodies (computed and stored when missing).
-
-    Parameters
-    ----------
-    method : str, default="auto"
-        As for :func:`score_night`.
-
-    Returns
-    -------
-    list of dict
-        One per night (participants and nights in storage order): ``participant_id``, ``night_id``,
-        ``label``, ``method`` (the concrete method; None when the participant has no model for it),
-        ``model_version``, ``uncertainty_min`` (minutes; None for rules, models without decoding
-        and nights without a model) and ``interval_level``.
-
-    Raises
-    ------
-    NotFound
-        If the study does not exist.
-    BadRequest
-        If the method is unknown.
-    """
-    if method not in SCORING_METHODS:
-        raise BadRequest(f"unknown method {method!r}; choose one of {', '.join(SCORING_METHODS)}")
-    with db.session_scope(factory) as session:
-        study = find_study(session, study_id)
-        nights = session.execute(
-            select(db.Participant.participant_id, db.Night.night_id, db.Night.label)
-            .join(db.Night, db.Night.participant_pk == db.Participant.pk)
-            .where(db.Participant.study_pk == study.pk)
-            .order_by(db.Participant.participant_id, db.Night.start_utc, db.Night.night_id)).all()
-    out = []
-    for participant_id, night_id, label in nights:
-        row: dict[str, Any] = {"participant_id": participant_id, "night_id": night_id, "label": label,
-                               "method": None, "model_version": None, "uncertainty_min": None,
-                               "interval_level": None}
-        try:
-            body = json.loads(score_night(factory, study_id=study_id, participant_id=participant_id,
-                                          night_id=night_id, method=method, writer=writer))
-        except Unprocessable as exc:
-            if exc.code != "no_model":
-                raise
-        else:
-            row |= {k: body.get(k) for k in ("method", "model_version", "uncertainty_min", "interval_level")}
-        out.append(row)
-    return out
 
 
 def _save(factory: sessionmaker[Session], writer: CacheWriter | None, row: db.Base) -> None:

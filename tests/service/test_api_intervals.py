@@ -246,7 +246,7 @@ def test_export_interval_columns_parse_back_with_pandas(trained) -> None:
 
 
 def test_study_uncertainty_reads_every_nights_review_score(trained) -> None:
-    from service.results.scoring import study_uncertainty
+    from service.results.bulk_scoring import study_uncertainty
 
     found = study_uncertainty(trained.factory, study_id="s", method="personal")
     assert len(found) == 12
