@@ -7,15 +7,23 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass
-from typing import Any
 
 import pandas as pd
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import PARAMETER_NAMES
 
-from .bulk_scoring import CHUNK_NIGHTS
-from .exports import _INTEGER_COLUMNS, EXPORT_COLUMNS, _check_format, _csv, _parquet, _prepare, _rows, _typed
+from .exports import (
+    _INTEGER_COLUMNS,
+    EXPORT_COLUMNS,
+    _check_format,
+    _chunk_rows,
+    _csv,
+    _frame,
+    _parquet,
+    _prepare,
+    _typed,
+)
 
 __all__ = ["ExportStream", "export_stream"]
 
@@ -48,15 +56,11 @@ def export_stream(factory: sessionmaker[Session], *, study_id: str, fmt: str = "
 
     def csv_chunks() -> Iterator[bytes]:
         yield _csv(pd.DataFrame(columns=list(EXPORT_COLUMNS)), header=True)
-        for start in range(0, len(export.targets), CHUNK_NIGHTS):
-            rows = _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
+        for rows in _chunk_rows(factory, export):
             yield _csv(_fixed(_typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS)))), header=False)
 
     def parquet_chunks() -> Iterator[bytes]:
-        rows: list[dict[str, Any]] = []
-        for start in range(0, len(export.targets), CHUNK_NIGHTS):
-            rows += _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
-        yield _parquet(_typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS))))
+        yield _parquet(_frame(factory, export))
 
     return ExportStream(export.n_rows, len(export.targets), csv_chunks() if fmt == "csv" else parquet_chunks())
 

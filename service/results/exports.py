@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import io
 import json
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -304,10 +305,17 @@ def export_frame(factory: sessionmaker[Session], *, study_id: str, interval_leve
     NotFound
         If the study does not exist.
     """
-    export = _prepare(factory, study_id, interval_level)
-    rows: list[dict[str, Any]] = []
+    return _frame(factory, _prepare(factory, study_id, interval_level))
+
+
+def _chunk_rows(factory: sessionmaker[Session], export: _Export) -> Iterator[list[dict[str, Any]]]:
+    """The export's rows, :data:`~service.results.bulk_scoring.CHUNK_NIGHTS` nights at a time."""
     for start in range(0, len(export.targets), CHUNK_NIGHTS):
-        rows += _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
+        yield _rows(factory, export, export.targets[start:start + CHUNK_NIGHTS])
+
+
+def _frame(factory: sessionmaker[Session], export: _Export) -> pd.DataFrame:
+    rows = [row for chunk in _chunk_rows(factory, export) for row in chunk]
     return _typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS)))
 
 
