@@ -33,6 +33,7 @@ from ..store.db import session_scope
 from ..store.protocols import study_protocol
 from ..store.recording_codec import nonwear_from_records, period_from_record
 from .bulk_scoring import bulk_scorings
+from .parquet_stream import parquet_chunks, schema_of
 from .scoring import SCORING_METHODS, score_night
 
 __all__ = ["DAY_COLUMNS", "FALLBACK_RULE", "day_table", "export_days", "export_days_stream", "recording_days"]
@@ -190,6 +191,8 @@ def recording_days(factory: sessionmaker[Session], *, study_id: str, participant
 #: recordings computed and sent together by :func:`export_days_stream`
 CHUNK_RECORDINGS = 10
 _EXPORT_COLUMNS = ["participant_id", "recording_id", *DAY_COLUMNS]
+_DAY_INTEGERS = ("model_version", "awakenings", "naps")
+_DAY_FLOATS = ("tst_min", "sol_min", "waso_min", "sleep_efficiency_pct", "nap_min", "nonwear_min")
 
 
 def _ahead(factory: sessionmaker[Session], study_id: str, infos: list[Any], method: str) -> Scored:
@@ -215,8 +218,10 @@ def _frame(factory: sessionmaker[Session], study_id: str, infos: list[Any], meth
     frame = pd.concat(frames, ignore_index=True)[_EXPORT_COLUMNS] if frames else pd.DataFrame(columns=_EXPORT_COLUMNS)
     for c in ("bed_time", "sleep_onset", "sleep_offset", "rise_time"):
         frame[c] = frame[c].map(lambda t: None if t is None or t is pd.NaT else pd.Timestamp(t).isoformat())
-    frame["model_version"] = pd.to_numeric(frame["model_version"]).astype("Int64")
-    frame["awakenings"] = pd.to_numeric(frame["awakenings"]).astype("Int64")
+    for c in _DAY_INTEGERS:
+        frame[c] = pd.to_numeric(frame[c]).astype("Int64")
+    for c in _DAY_FLOATS:
+        frame[c] = pd.to_numeric(frame[c]).astype("float64")
     return frame
 
 
@@ -237,22 +242,25 @@ def export_days(factory: sessionmaker[Session], *, study_id: str, fmt: str = "cs
 
 def export_days_stream(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv", method: str = "auto",
                        participant_id: str | None = None) -> tuple[int, Iterator[bytes]]:
-    """:func:`export_days` as a stream: the number of recordings and the bytes, CSV a chunk of recordings at a time.
+    """:func:`export_days` as a stream: the number of recordings and the bytes, a chunk of recordings at a time
+    (CSV rows; Parquet: a row group each, :func:`~service.results.parquet_stream.parquet_chunks`).
 
-    The study and participant are checked before the stream starts (NotFound); Parquet comes as one piece.
+    The study and participant are checked before the stream starts (NotFound).
     """
     infos = _recordings(factory, study_id, participant_id)
     if infos and method not in SCORING_METHODS:  # the answer day_table gives, before the stream starts
         raise Unprocessable(f"unknown method {method!r}; choose one of {', '.join(SCORING_METHODS)}",
                             code="unknown_method")
 
-    def chunks() -> Iterator[bytes]:
-        if fmt == "parquet":
-            yield export_days(factory, study_id=study_id, fmt=fmt, method=method, participant_id=participant_id)
-            return
-        yield pd.DataFrame(columns=_EXPORT_COLUMNS).to_csv(index=False).encode()
+    def frames() -> Iterator[pd.DataFrame]:
         for start in range(0, len(infos), CHUNK_RECORDINGS):
-            frame = _frame(factory, study_id, infos[start:start + CHUNK_RECORDINGS], method)
+            yield _frame(factory, study_id, infos[start:start + CHUNK_RECORDINGS], method)
+
+    def chunks() -> Iterator[bytes]:
+        yield pd.DataFrame(columns=_EXPORT_COLUMNS).to_csv(index=False).encode()
+        for frame in frames():
             yield frame.to_csv(index=False, header=False).encode()
 
+    if fmt == "parquet":
+        return len(infos), parquet_chunks(frames(), schema=schema_of(_frame(factory, study_id, [], method)))
     return len(infos), chunks()

@@ -1,4 +1,5 @@
-"""The parameter export as a stream: counts known at once, CSV rows sent as their nights are computed.
+"""The parameter export as a stream: counts known at once, CSV rows or Parquet row groups sent as their nights are
+computed.
 
 The bytes are those of :func:`service.results.exports.export_parameters` (same rows, same CSV).
 """
@@ -19,11 +20,10 @@ from .exports import (
     _check_format,
     _chunk_rows,
     _csv,
-    _frame,
-    _parquet,
     _prepare,
     _typed,
 )
+from .parquet_stream import parquet_chunks, schema_of
 
 __all__ = ["ExportStream", "export_stream"]
 
@@ -34,7 +34,8 @@ class ExportStream:
 
     ``chunks`` computes :data:`~service.results.bulk_scoring.CHUNK_NIGHTS` nights at a time; for
     CSV each chunk's rows are sent as soon as they are made (the same bytes as
-    :func:`export_parameters`), Parquet comes as one piece at the end.
+    :func:`export_parameters`), for Parquet each chunk is a row group of one file
+    (:func:`~service.results.parquet_stream.parquet_chunks`; the same table when read).
     """
 
     n_rows: int
@@ -56,13 +57,17 @@ def export_stream(factory: sessionmaker[Session], *, study_id: str, fmt: str = "
 
     def csv_chunks() -> Iterator[bytes]:
         yield _csv(pd.DataFrame(columns=list(EXPORT_COLUMNS)), header=True)
+        for frame in frames():
+            yield _csv(frame, header=False)
+
+    def frames() -> Iterator[pd.DataFrame]:
         for rows in _chunk_rows(factory, export):
-            yield _csv(_fixed(_typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS)))), header=False)
+            yield _fixed(_typed(pd.DataFrame(rows, columns=list(EXPORT_COLUMNS))))
 
-    def parquet_chunks() -> Iterator[bytes]:
-        yield _parquet(_frame(factory, export))
-
-    return ExportStream(export.n_rows, len(export.targets), csv_chunks() if fmt == "csv" else parquet_chunks())
+    if fmt == "csv":
+        return ExportStream(export.n_rows, len(export.targets), csv_chunks())
+    empty = _fixed(_typed(pd.DataFrame(columns=list(EXPORT_COLUMNS))))
+    return ExportStream(export.n_rows, len(export.targets), parquet_chunks(frames(), schema=schema_of(empty)))
 
 
 def _fixed(frame: pd.DataFrame) -> pd.DataFrame:

@@ -106,3 +106,33 @@ def test_bulk_scorings_are_the_bytes_score_night_computes(http, study, admin, fa
     assert len(_stored_times(factory)) == len(ids)
     unknown = bearer("x")  # the route still refuses a token it does not know
     assert http.get(f"/v1/studies/{study}/exports/parameters", headers=unknown).status_code == 401
+
+
+def test_parquet_exports_stream_row_groups_that_read_back_as_the_whole_table(http, study, admin, factory) -> None:
+    """A Parquet export is one file of a row group per chunk; pyarrow reads it back as the whole table would be."""
+    import pyarrow.parquet as pq
+
+    from service.results.bulk_scoring import CHUNK_NIGHTS
+    from service.results.exports import export_parameters
+
+    _post_nights(http, admin, study)
+    with http.stream("GET", f"/v1/studies/{study}/exports/parameters", params={"format": "parquet"},
+                     headers=admin) as response:
+        assert response.status_code == 200
+        assert response.headers["content-type"].startswith("application/vnd.apache.parquet")
+        parts = [bytes(chunk) for chunk in response.iter_raw() if chunk]
+    body = b"".join(parts)
+    assert len(parts) > 1 and parts[0][:4] == b"PAR1" and body[-4:] == b"PAR1"
+    file = pq.ParquetFile(io.BytesIO(body))
+    assert file.metadata.num_row_groups == -(-N_NIGHTS // CHUNK_NIGHTS)  # one per chunk of nights
+    streamed = pd.read_parquet(io.BytesIO(body))
+    # the export made whole (computed once by the stream above, read back now), written by pandas in one piece
+    whole = pd.read_parquet(io.BytesIO(export_parameters(factory, study_id=study, fmt="parquet")))
+    assert streamed.shape == whole.shape == (N_NIGHTS * len(RULES), whole.shape[1])
+
+    def cells(frame: pd.DataFrame) -> pd.DataFrame:  # missing as None: an all-missing text column has no type
+        return frame.astype(object).where(frame.notna(), None)
+
+    pd.testing.assert_frame_equal(cells(streamed), cells(whole))
+    for column in ("awakenings", "epoch_seconds"):  # the nullable integers come back as such
+        assert str(streamed[column].dtype) == "Int64"

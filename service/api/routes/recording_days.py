@@ -49,7 +49,7 @@ async def export_days(access: AnalystAccess, factory: FactoryDep,
     """Day rows of every recording of the study, with participant and recording ids (CSV or Parquet).
 
     Streamed: CSV rows are sent a few recordings at a time as they are computed
-    (`X-Export-Recordings` says how many recordings will come); Parquet is sent when complete.
+    (`X-Export-Recordings` says how many recordings will come); Parquet comes a row group at a time (one file).
     """
     n_recordings, chunks = await run_in_threadpool(days.export_days_stream, factory, study_id=access.study_id,
                                                    fmt=format, method=method, participant_id=participant)

@@ -51,7 +51,7 @@ async def export_parameters(access: AnalystAccess, factory: FactoryDep,
     """Sleep parameters, one row per night and method (CSV or Parquet), intervals with their level.
 
     Streamed: CSV rows are sent as their nights are computed (`X-Export-Rows` and `X-Export-Nights`
-    say how many rows and nights there will be); Parquet is sent when complete.
+    say how many rows and nights there will be); Parquet comes a row group at a time (one file).
     """
     stream = await run_in_threadpool(export_stream.export_stream, factory, study_id=access.study_id, fmt=format,
                                      interval_level=interval_level)
