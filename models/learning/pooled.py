@@ -59,6 +59,7 @@ from ..decoding.fitting import fit_night_decoding
 from ..features.source import FeatureSource
 from ..nights.night import Night
 from .artifacts import library_versions
+from .boosting import boost_early_stopped
 from .classifier import SleepModel
 from .config import POOLED_PARAMS, TrainingConfig, TrainingDataError
 from .descriptors import DESCRIPTOR_NAMES, participant_descriptors
@@ -101,18 +102,6 @@ class _Rows:
         self.groups = np.concatenate(groups)
 
 
-class _CancelCallback(xgb.callback.TrainingCallback):
-    """Stops a long fit as soon as training is cancelled."""
-
-    def __init__(self, reporter: Reporter) -> None:
-        super().__init__()
-        self.reporter = reporter
-
-    def after_iteration(self, model: Any, epoch: int, evals_log: Any) -> bool:
-        self.reporter.check()
-        return False
-
-
 def _at_most(idx: NDArray[np.intp], n: int, rng: np.random.Generator) -> NDArray[np.intp]:
     """``idx`` itself, or a sorted uniform sample of ``n`` of its entries."""
     return idx if idx.size <= n else np.sort(rng.choice(idx, size=n, replace=False))
@@ -134,10 +123,9 @@ def _fit(rows: _Rows, train_idx: NDArray[np.intp], *, config: TrainingConfig, se
     # a plain DMatrix: XGBoost evaluates it incrementally, a QuantileDMatrix validation set ~10x slower
     dval = xgb.DMatrix(rows.X[val_idx], y_val, weight=np.where(y_val == 1, params["scale_pos_weight"], 1.0)
                        * (1.0 if rows.w is None else rows.w[val_idx]), nthread=1)
-    booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
-                        early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False,
-                        callbacks=[_CancelCallback(reporter)])
-    n_rounds = booster.best_iteration + 1
+    booster, best = boost_early_stopped(params, dtrain, dval, max_rounds=config.max_rounds,
+                                        early_stopping_rounds=config.early_stopping_rounds, check=reporter.check)
+    n_rounds = best + 1
     margin_val = booster.predict(dval, iteration_range=(0, n_rounds), output_margin=True).astype(np.float64)
     del dtrain, dval
     return SleepModel(

@@ -58,15 +58,15 @@ import numpy as np
 import optuna
 import xgboost as xgb
 from numpy.typing import NDArray
-from sklearn.metrics import roc_auc_score
 
 from ..decoding.fitting import NightDecoding, fit_night_decoding
+from .boosting import boost_early_stopped
 from .classifier import Projection
 from .config import TrainingConfig
 from .rows import NightRows
 from .splits import ForwardChainedSplit, fold_groups
 from .tasks import Reporter
-from .threshold import youden_threshold
+from .threshold import binary_auc, youden_threshold
 
 __all__ = ["PCA_CHOICES", "TunedPipeline", "WARM_START", "booster_params", "suggest_hyperparameters",
            "tune_and_fit"]
@@ -199,10 +199,6 @@ def _decoding(data: _InnerData, val_rows: list[NDArray[np.intp]], val_p: list[ND
                               min_sensitivity=config.min_sensitivity)
 
 
-def _auc(y: NDArray[np.float64], p: NDArray[np.float64]) -> float:
-    return float(roc_auc_score(y, p)) if np.unique(y).size == 2 else float("nan")
-
-
 def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: int, reporter: Reporter,
                  stage: str) -> TunedPipeline:
     """Search hyperparameters on forward-chained splits of ``nights``, then refit on all of them.
@@ -237,11 +233,11 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
             y_val = data.y[val]
             dval.set_weight(np.where(y_val == 1, params["scale_pos_weight"], 1.0) * (1.0 if data.w is None
                                                                                     else data.w[val]))
-            booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
-                                early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False)
-            n = booster.best_iteration + 1
+            booster, best = boost_early_stopped(params, dtrain, dval, max_rounds=config.max_rounds,
+                                                early_stopping_rounds=config.early_stopping_rounds)
+            n = best + 1
             p = booster.predict(dval, iteration_range=(0, n))
-            aucs.append(_auc(y_val, p))
+            aucs.append(binary_auc(y_val, p))
             vals.append(val)
             ps.append(p.astype(np.float64))
             rounds.append(n)
