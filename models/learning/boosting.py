@@ -12,11 +12,12 @@
 - training stops after ``early_stopping_rounds`` rounds in a row without improvement, or after
   ``max_rounds`` rounds.
 
-The booster keeps every round fitted (not only the best ones), carries the ``best_iteration`` and
-``best_score`` attributes ``xgboost.train`` sets, and has its training caches released
-(``Booster.reset``), as ``xgboost.train`` returns it. The per-round Python work is one update, one
-evaluation string and one comparison, instead of the callback container's history bookkeeping:
-with small training sets (a few thousand rows) that bookkeeping costs a quarter of the fit.
+The booster keeps every round fitted (not only the best ones) and carries the ``best_iteration``
+and ``best_score`` attributes ``xgboost.train`` sets: the same model. Unlike ``xgboost.train`` it
+does not call ``Booster.reset`` at the end (about 2 ms per fit, a fifth of a fit on the smallest
+training sets); its prediction caches go with the booster. The per-round Python
+work is one update, one evaluation string and one comparison, without the callback container's
+history bookkeeping.
 """
 
 from __future__ import annotations
@@ -58,7 +59,8 @@ def boost_early_stopped(params: Mapping[str, Any], dtrain: xgb.DMatrix, dval: xg
     Returns
     -------
     booster : xgboost.Booster
-        Every fitted round (slice or use ``iteration_range`` for the best ones).
+        Every fitted round (slice or use ``iteration_range`` for the best ones); it still holds
+        its prediction caches of ``dtrain`` and ``dval`` (drop it, or slice it, when done).
     best_iteration : int
         0-based round with the lowest validation score (the first one on ties).
     """
@@ -77,4 +79,4 @@ def boost_early_stopped(params: Mapping[str, Any], dtrain: xgb.DMatrix, dval: xg
             if stale >= early_stopping_rounds:
                 break
     booster.set_attr(best_score=str(best_score), best_iteration=str(best_iteration))
-    return booster.reset(), best_iteration
+    return booster, best_iteration
