@@ -270,7 +270,7 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     fold_of = {rows.participants[o]: k for k, (_, test) in enumerate(folds) for o in np.unique(rows.owners[test])}
 
     def fit_task(k: int) -> Any:
-        def run(reporter: Reporter) -> SleepModel:
+        def run(reporter: Reporter) -> tuple[SleepModel, dict[str, list[HeldOutNight]]]:
             train_idx = np.arange(final_rows.y.size) if k < 0 else folds[k][0]
             used = {pid: data[pid] + extra.get(pid, []) if k < 0 else data[pid] for pid in pids}
             training = tuple(r.night.content_hash for pid in pids for r in used[pid] if k < 0 or fold_of.get(pid) != k)
@@ -280,17 +280,20 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
                          feature_version=feature_version)
             model = _with_decoding(model, data, descriptors, [pid for pid in pids if k < 0 or fold_of.get(pid) != k],
                                    config, seed)
+            # the fold's participants are scored here, beside the other fits, rather than after all of them
+            held = {} if k < 0 else {pid: [_held_out(model, r, descriptors[pid], config) for r in data[pid]]
+                                     for pid in pids if fold_of.get(pid) == k}
             reporter.tick("pooled: final model" if k < 0 else f"pooled: fold {k + 1}/{n_folds}")
-            return model
+            return model, held
         return run
 
-    fitted = run_tasks([fit_task(k) for k in [-1, *range(n_folds)]], n_jobs=config.n_jobs, total=total,
-                       progress=progress, done=len(flat))
-    final, fitted = fitted[0], fitted[1:]
+    results = run_tasks([fit_task(k) for k in [-1, *range(n_folds)]], n_jobs=config.n_jobs, total=total,
+                        progress=progress, done=len(flat))
+    final, fitted = results[0][0], [model for model, _ in results[1:]]
     final.info_["offset_rule"] = OFFSET_RULE
     final.info_["corrected_nights"] = n_extra
-    held_out = {pid: [_held_out(fitted[fold_of[pid]], r, descriptors[pid], config) for r in data[pid]]
-                for pid in pids}
+    scored = {pid: nights_out for _, held in results[1:] for pid, nights_out in held.items()}
+    held_out = {pid: scored.get(pid, []) for pid in pids}
     baselines = {pid: fitted[k].offset_baseline_ for pid, k in fold_of.items()}
     pairs = {pid: _margins(held_out[pid], data[pid], baselines[pid]) for pid in pids if data[pid]}
     night_groups = {pid: fold_groups([r.night for r in data[pid]]) for pid in pairs}
