@@ -22,10 +22,12 @@ from numpy.typing import ArrayLike, NDArray
 
 from .hmm import InvalidHmmError, _check
 
-__all__ = ["BLOCK_CASES", "batch_marginals", "batch_viterbi"]
+__all__ = ["BLOCK_CASES", "BLOCK_LANES", "batch_marginals", "batch_sample_paths", "batch_viterbi"]
 
 #: Largest number of cases run side by side.
 BLOCK_CASES = 512
+#: Largest number of sampled paths (over all cases) drawn side by side.
+BLOCK_LANES = 4096
 
 Case = tuple[ArrayLike, ArrayLike, ArrayLike]
 
@@ -45,12 +47,13 @@ class _Block:
         self.pi = np.array([c[2] for c in cases])
 
 
-def _blocks(cases: Sequence[Case]) -> tuple[list[int], list[_Block], list[list[int]]]:
+def _blocks(cases: Sequence[Case], size: int | None = None) -> tuple[list[int], list[_Block], list[list[int]]]:
     """Checked cases split into blocks; the positions of empty cases; each block's case positions."""
+    size = BLOCK_CASES if size is None else size
     checked = [_check(*case) for case in cases]
     empty = [k for k, (e, _, _) in enumerate(checked) if e.shape[0] == 0]
     live = [k for k, (e, _, _) in enumerate(checked) if e.shape[0] > 0]
-    groups = [live[i:i + BLOCK_CASES] for i in range(0, len(live), BLOCK_CASES)]
+    groups = [live[i:i + size] for i in range(0, len(live), size)]
     return empty, [_Block([checked[k] for k in g]) for g in groups], groups
 
 
@@ -149,4 +152,56 @@ def batch_viterbi(cases: Sequence[Case]) -> list[NDArray[np.int8]]:
             paths[t - 1] = state
         for j, k in enumerate(group):
             out[k] = paths[:b.lengths[j], j].copy()
+    return out
+
+
+def batch_sample_paths(cases: Sequence[Case], *, n_paths: int, seeds: Sequence[int]) -> list[NDArray[np.int8]]:
+    """Posterior paths of every case, as ``sample_paths(*case, n_paths=n_paths, rng=default_rng(seed))``.
+
+    Each case draws its uniforms from its own generator, in the order
+    :func:`models.decoding.hmm.sample_paths` draws them, so its paths are the same; the backward
+    steps of all cases' paths are taken side by side.
+
+    Parameters
+    ----------
+    cases : sequence of (emissions, transition, initial)
+    n_paths : int
+        Paths per case (>= 1).
+    seeds : sequence of int
+        One ``numpy.random.default_rng`` seed per case.
+
+    Returns
+    -------
+    list of ndarray of int8, shape (n_paths, n_epochs) each
+    """
+    if isinstance(n_paths, bool) or not isinstance(n_paths, int | np.integer) or n_paths < 1:
+        raise InvalidHmmError(f"n_paths must be an integer >= 1, got {n_paths!r}")
+    if len(seeds) != len(cases):
+        raise InvalidHmmError(f"{len(cases)} cases but {len(seeds)} seeds")
+    p = int(n_paths)
+    out: list[NDArray[np.int8]] = [np.empty((p, 0), dtype=np.int8)] * len(cases)
+    _, blocks, groups = _blocks(cases, size=max(1, BLOCK_LANES // p))
+    for b, group in zip(blocks, groups, strict=True):
+        alpha0, alpha1, _ = _forward(b)
+        n, m = alpha0.shape
+        # per lane (case j's path i at column j * p + i): state_t = after_wake xor (state_t+1 and switch);
+        # past a case's last epoch the state is carried unchanged (switch on, after_wake off)
+        after_wake, switch = np.zeros((n, m * p), dtype=bool), np.ones((n, m * p), dtype=bool)
+        rows = np.empty((n, m * p), dtype=bool)
+        for j, k in enumerate(group):
+            length, lanes = int(b.lengths[j]), slice(j * p, (j + 1) * p)
+            u = np.random.default_rng(seeds[k]).random((length, p))  # row r: epoch length - 1 - r
+            rows[-1, lanes] = u[0] < alpha1[length - 1, j]
+            to_sleep0, to_sleep1 = alpha1[:length - 1, j] * b.a10[j], alpha1[:length - 1, j] * b.a11[j]
+            total0 = alpha0[:length - 1, j] * b.a00[j] + to_sleep0
+            total1 = alpha0[:length - 1, j] * b.a01[j] + to_sleep1
+            wake_next = u[:0:-1] * total0[:, None] < to_sleep0[:, None]
+            after_wake[:length - 1, lanes] = wake_next
+            switch[:length - 1, lanes] = wake_next ^ (u[:0:-1] * total1[:, None] < to_sleep1[:, None])
+        for t in range(n - 2, -1, -1):
+            row = rows[t]
+            np.bitwise_and(rows[t + 1], switch[t], out=row)
+            np.bitwise_xor(row, after_wake[t], out=row)
+        for j, k in enumerate(group):
+            out[k] = np.ascontiguousarray(rows[:b.lengths[j], j * p:(j + 1) * p].T).view(np.int8)
     return out

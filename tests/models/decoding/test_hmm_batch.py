@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 
 import models.decoding.hmm_batch as hmm_batch
-from models.decoding.hmm import InvalidHmmError, forward_backward, viterbi
-from models.decoding.hmm_batch import batch_marginals, batch_viterbi
+from models.decoding.hmm import InvalidHmmError, forward_backward, sample_paths, viterbi
+from models.decoding.hmm_batch import batch_marginals, batch_sample_paths, batch_viterbi
 
 
 def _cases(seed: int, n_cases: int) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
@@ -46,3 +46,15 @@ def test_impossible_observations_are_reported() -> None:
         batch_marginals([_cases(3, 1)[0], (e, a, np.array([1.0, 0.0]))])
     with pytest.raises(InvalidHmmError, match="epoch 1"):
         forward_backward(e, a, np.array([1.0, 0.0]))  # the one-case pass says the same
+
+
+@pytest.mark.parametrize("seed, n_cases, n_paths, lanes", [(4, 1, 1, 4096), (5, 30, 50, 4096), (6, 23, 7, 20)])
+def test_batch_sampling_equals_one_case_sampling(seed: int, n_cases: int, n_paths: int, lanes: int,
+                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(hmm_batch, "BLOCK_LANES", lanes)
+    cases = _cases(seed, n_cases)
+    seeds = [seed * 100 + k for k in range(n_cases)]
+    drawn = batch_sample_paths(cases, n_paths=n_paths, seeds=seeds)
+    for case, s, paths in zip(cases, seeds, drawn, strict=True):
+        expected = sample_paths(*case, n_paths=n_paths, rng=np.random.default_rng(s))
+        assert paths.dtype == np.int8 and paths.flags.c_contiguous and np.array_equal(paths, expected)
