@@ -58,7 +58,7 @@ from .calibration import (
 from .decoders import HmmDecoder, ThresholdDecoder, make_decoder
 from .hmm import InvalidHmmError, SleepWakeHmm, fit_sleep_wake_hmm
 from .interval_scaling import covered, inner_scales, scaled_intervals
-from .intervals import DEFAULT_INTERVAL_LEVEL, NightIntervals, night_intervals, sampled_parameters
+from .intervals import DEFAULT_INTERVAL_LEVEL, NightIntervals, night_intervals, sampled_parameters_of_nights
 from .tuning import DEFAULT_DECODER_GRID, parameter_objective, tune_decoder
 
 __all__ = ["CALIBRATION_CHOICES", "DECODER_CHOICES", "DEFAULT_BA_MARGIN", "INTERVAL_WEIGHT_FACTORS",
@@ -230,9 +230,9 @@ def _interval_settings(probs: Sequence[NDArray[np.float64]], truth: Sequence[Map
     spans = [b[1] - b[0] for b in bounds]
     scores, fits = [], []
     for factor in INTERVAL_WEIGHT_FACTORS:
-        samples = [sampled_parameters(p, chain, epoch_seconds, lights_off_idx=bounds[k][0], lights_on_idx=bounds[k][1],
-                                      protocol=protocol, n_paths=_TUNING_PATHS, seed=seed + k, stickiness=stickiness,
-                                      emission_weight=weight * factor) for k, p in enumerate(probs)]
+        samples = sampled_parameters_of_nights(probs, chain, epoch_seconds, bounds=bounds, protocol=protocol,
+                                               n_paths=_TUNING_PATHS, seeds=[seed + k for k in range(len(probs))],
+                                               stickiness=stickiness, emission_weight=weight * factor)
         scale = inner_scales(samples, centres, truth, level=level, epoch_seconds=epoch_seconds, in_bed_epochs=spans)
         intervals = [scaled_intervals(s, {n: _number(c.get(n)) for n in s}, scale, level=level,
                                       epoch_seconds=epoch_seconds, in_bed_epochs=spans[k])

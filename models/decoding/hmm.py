@@ -228,19 +228,22 @@ def _forward(e: NDArray[np.float64], a: NDArray[np.float64], pi: NDArray[np.floa
              ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Filtered distributions alpha_t = P(s_t | x_1..t), shape (n, 2), and the scale factors c_t."""
     n = e.shape[0]
-    alpha = np.empty((n, 2))
-    scale = np.empty(n)
+    alpha: list[tuple[float, float]] = []
+    scale: list[float] = []
     a00, a01, a10, a11 = float(a[0, 0]), float(a[0, 1]), float(a[1, 0]), float(a[1, 1])
+    emit = e.tolist()  # plain floats: faster than 2-element numpy operations and numpy scalar indexing
     w0, s0 = float(pi[0] * e[0, 0]), float(pi[1] * e[0, 1])
-    for t in range(n):  # plain floats: faster than 2-element numpy operations
+    for t in range(n):
         if t:
-            w0, s0 = (w0 * a00 + s0 * a10) * e[t, 0], (w0 * a01 + s0 * a11) * e[t, 1]
+            e0, e1 = emit[t]
+            w0, s0 = (w0 * a00 + s0 * a10) * e0, (w0 * a01 + s0 * a11) * e1
         c = w0 + s0
         if not c > 0:
             raise InvalidHmmError(f"the observations are impossible under the chain at epoch {t}")
         w0, s0 = w0 / c, s0 / c
-        alpha[t, 0], alpha[t, 1], scale[t] = w0, s0, c
-    return alpha, scale
+        alpha.append((w0, s0))
+        scale.append(c)
+    return np.array(alpha, dtype=np.float64).reshape(n, 2), np.array(scale, dtype=np.float64)
 
 
 def forward_backward(emissions: ArrayLike, transition: ArrayLike, initial: ArrayLike
@@ -266,13 +269,17 @@ def forward_backward(emissions: ArrayLike, transition: ArrayLike, initial: Array
     if n == 0:
         return np.zeros((0, 2)), 0.0
     alpha, scale = _forward(e, a, pi)
-    beta = np.ones((n, 2))
+    a00, a01, a10, a11 = float(a[0, 0]), float(a[0, 1]), float(a[1, 0]), float(a[1, 1])
+    emit, scales = e.tolist(), scale.tolist()
+    beta: list[tuple[float, float]] = [(1.0, 1.0)]  # from the last epoch backwards
     b0, b1 = 1.0, 1.0
     for t in range(n - 2, -1, -1):
-        x0, x1 = e[t + 1, 0] * b0, e[t + 1, 1] * b1
-        b0, b1 = (a[0, 0] * x0 + a[0, 1] * x1) / scale[t + 1], (a[1, 0] * x0 + a[1, 1] * x1) / scale[t + 1]
-        beta[t, 0], beta[t, 1] = b0, b1
-    post = alpha * beta
+        e0, e1 = emit[t + 1]
+        x0, x1 = e0 * b0, e1 * b1
+        c = scales[t + 1]
+        b0, b1 = (a00 * x0 + a01 * x1) / c, (a10 * x0 + a11 * x1) / c
+        beta.append((b0, b1))
+    post = alpha * np.array(beta[::-1], dtype=np.float64).reshape(n, 2)
     return post / post.sum(axis=1, keepdims=True), float(np.log(scale).sum())
 
 
@@ -295,23 +302,24 @@ def viterbi(emissions: ArrayLike, transition: ArrayLike, initial: ArrayLike) -> 
         return np.zeros(0, dtype=np.int8)
     with np.errstate(divide="ignore"):
         log_e, log_a, log_pi = np.log(e), np.log(a), np.log(pi)
-    back = np.zeros((n, 2), dtype=np.int8)  # back[t, j]: best state at t - 1 on the way to j at t
+    back: list[tuple[int, int]] = [(0, 0)]  # back[t][j]: best state at t - 1 on the way to j at t
     l00, l01, l10, l11 = (float(v) for v in log_a.ravel())
     w, s = float(log_pi[0] + log_e[0, 0]), float(log_pi[1] + log_e[0, 1])
     emit = log_e.tolist()
-    for t in range(1, n):  # plain floats: faster than 2-element numpy operations
+    for t in range(1, n):  # plain floats and lists: faster than 2-element numpy operations
         from_w, from_s = w + l00, s + l10  # into wake
         to_w = from_w if from_w >= from_s else from_s
-        back[t, 0] = from_w < from_s
+        back_w = int(from_w < from_s)
         from_w, from_s = w + l01, s + l11  # into sleep
         to_s = from_w if from_w >= from_s else from_s
-        back[t, 1] = from_w < from_s
+        back.append((back_w, int(from_w < from_s)))
         w, s = to_w + emit[t][0], to_s + emit[t][1]
-    path = np.empty(n, dtype=np.int8)
-    path[-1] = s > w
+    state = int(s > w)
+    path = [state]
     for t in range(n - 1, 0, -1):
-        path[t - 1] = back[t, path[t]]
-    return path
+        state = back[t][state]
+        path.append(state)
+    return np.array(path[::-1], dtype=np.int8)
 
 
 def sample_paths(emissions: ArrayLike, transition: ArrayLike, initial: ArrayLike, *, n_paths: int,
@@ -340,9 +348,19 @@ def sample_paths(emissions: ArrayLike, transition: ArrayLike, initial: ArrayLike
     if n == 0:
         return paths
     alpha, _ = _forward(e, a, pi)
-    paths[:, -1] = rng.random(int(n_paths)) < alpha[-1, 1]
-    for t in range(n - 2, -1, -1):  # one uniform per path and epoch, drawn from the last epoch backwards
-        nxt = paths[:, t + 1]
-        to_sleep = alpha[t, 1] * a[1, nxt]  # P(s_t = sleep | x_1..t, s_t+1) up to the normaliser
-        paths[:, t] = rng.random(int(n_paths)) * (alpha[t, 0] * a[0, nxt] + to_sleep) < to_sleep
+    # one uniform per path and epoch, drawn from the last epoch backwards (row k: epoch n - 1 - k)
+    u = rng.random((n, int(n_paths)))
+    # P(s_t = sleep | x_1..t, s_t+1 = j) is to_sleep[t, j] / total[t, j]; a path is asleep at t when
+    # its uniform times total falls below to_sleep. Both outcomes (next epoch awake or asleep) at once:
+    to_sleep = alpha[:-1, 1:2] * a[1]
+    total = alpha[:-1, 0:1] * a[0] + to_sleep
+    after_wake = u[:0:-1] * total[:, 0:1] < to_sleep[:, 0:1]  # shape (n - 1, n_paths), epoch order
+    switch = after_wake ^ (u[:0:-1] * total[:, 1:2] < to_sleep[:, 1:2])  # where the next state matters
+    rows = np.empty((n, int(n_paths)), dtype=bool)  # epoch by epoch; one pass back, row by row
+    rows[-1] = u[0] < alpha[-1, 1]
+    for t in range(n - 2, -1, -1):  # state_t = after_wake xor (state_t+1 and switch)
+        row = rows[t]
+        np.bitwise_and(rows[t + 1], switch[t], out=row)
+        np.bitwise_xor(row, after_wake[t], out=row)
+    paths[:] = rows.T
     return paths

@@ -31,11 +31,13 @@ from numpy.typing import ArrayLike, NDArray
 
 from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
 from .hmm import InvalidHmmError, SleepWakeHmm, sample_paths
+from .hmm_batch import batch_sample_paths
 from .interval_scaling import scaled_intervals
 from .path_parameters import PATH_PARAMETER_NAMES, path_parameters
 
 __all__ = ["DEFAULT_INTERVAL_LEVEL", "NightIntervals", "interval_coverage", "night_intervals",
-           "parameter_intervals", "sampled_parameters"]
+           "parameter_intervals", "sampled_parameters",
+           "sampled_parameters_of_nights"]
 
 #: Default level of the per-night intervals.
 DEFAULT_INTERVAL_LEVEL = 0.90
@@ -141,6 +143,36 @@ def sampled_parameters(p_sleep: ArrayLike, hmm: SleepWakeHmm, epoch_seconds: int
                          n_paths=n_paths, rng=np.random.default_rng(seed))
     return path_parameters(paths, epoch_seconds, lights_off_idx=lights_off_idx, lights_on_idx=lights_on_idx,
                            unscored=np.isnan(p), protocol=protocol)
+
+
+def sampled_parameters_of_nights(probs: Sequence[ArrayLike], hmm: SleepWakeHmm, epoch_seconds: int, *,
+                                 bounds: Sequence[tuple[int, int | None]], seeds: Sequence[int],
+                                 protocol: StudyProtocol = DEFAULT_PROTOCOL, n_paths: int = 1000,
+                                 stickiness: float = 1.0, emission_weight: float = 1.0
+                                 ) -> list[dict[str, NDArray[np.float64]]]:
+    """:func:`sampled_parameters` of several nights, their paths drawn side by side (the same values).
+
+    Parameters
+    ----------
+    probs : sequence of array-like of shape (n_epochs,)
+        Calibrated P(sleep) per night.
+    hmm, epoch_seconds, protocol, n_paths, stickiness, emission_weight
+        As for :func:`sampled_parameters`.
+    bounds : sequence of (int, int or None)
+        ``(lights_off_idx, lights_on_idx)`` per night.
+    seeds : sequence of int
+        Seed per night.
+
+    Returns
+    -------
+    list of dict of str to ndarray of float64, shape (n_paths,)
+    """
+    ps = [np.asarray(p, dtype=np.float64) for p in probs]
+    chain = hmm.with_stickiness(stickiness)
+    paths = batch_sample_paths([(chain.emissions(p, emission_weight=emission_weight), chain.transition, chain.initial)
+                                for p in ps], n_paths=n_paths, seeds=seeds)
+    return [path_parameters(x, epoch_seconds, lights_off_idx=off, lights_on_idx=on, unscored=np.isnan(p),
+                            protocol=protocol) for x, p, (off, on) in zip(paths, ps, bounds, strict=True)]
 
 
 def night_intervals(p_sleep: ArrayLike, hmm: SleepWakeHmm, epoch_seconds: int, *, lights_off_idx: int = 0,

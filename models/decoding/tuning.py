@@ -16,7 +16,8 @@ allow when it trades a few large errors for many small ones of one sign. When no
 setting of highest balanced accuracy is kept and ``floor_met`` is False. Ties keep the earlier
 grid point (grid order is the product of the grid's values in the order given).
 
-Each night is decoded once per (method, stickiness, emission weight): the Viterbi path does not
+Each night is decoded once per (method, stickiness, emission weight), all of them side by side
+(:mod:`models.decoding.hmm_batch`, the same numbers as one by one): the Viterbi path does not
 depend on ``threshold`` (Viterbi grid points differing only in it share one result and the first
 of them stands for all), and the marginals are thresholded for every ``threshold`` of the grid.
 A stickiness below 1 that would push a switching probability of the chain to 1 or more is left out
@@ -38,6 +39,7 @@ from ..scoring.parameters import sleep_parameters
 from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
 from .decoders import HmmDecoder
 from .hmm import DEFAULT_PSEUDO_COUNT, InvalidHmmError, SleepWakeHmm, fit_sleep_wake_hmm
+from .hmm_batch import batch_marginals, batch_viterbi
 
 __all__ = ["BIAS_PARAMETERS", "DEFAULT_DECODER_GRID", "MAE_PARAMETERS", "DecoderChoice", "parameter_objective",
            "tune_decoder"]
@@ -131,6 +133,26 @@ def _grid_points(grid: Mapping[str, Sequence[Any]]) -> list[dict[str, Any]]:
     return [dict(zip(names, values, strict=True)) for values in itertools.product(*(grid[n] for n in names))]
 
 
+def _runs(decoders: Sequence[HmmDecoder], probs: Sequence[NDArray[np.float64]]
+          ) -> dict[tuple[Any, ...], list[NDArray[Any]]]:
+    """Per (method, stickiness, emission weight) of ``decoders``: each night's Viterbi path or marginals.
+
+    Every night under every distinct setting is one case of :func:`~models.decoding.hmm_batch.batch_viterbi`
+    or :func:`~models.decoding.hmm_batch.batch_marginals` (the same numbers as decoding them one by one).
+    """
+    keys = {"viterbi": dict[tuple[Any, ...], HmmDecoder](), "marginal": dict[tuple[Any, ...], HmmDecoder]()}
+    for d in decoders:
+        keys[d.method].setdefault((d.method, d.stickiness, d.emission_weight), d)
+    out: dict[tuple[Any, ...], list[NDArray[Any]]] = {}
+    for method, batch in (("viterbi", batch_viterbi), ("marginal", batch_marginals)):
+        cases = [(d.chain.emissions(p, emission_weight=d.emission_weight), d.chain.transition, d.chain.initial)
+                 for d in keys[method].values() for p in probs]
+        results: list[NDArray[Any]] = list(batch(cases))
+        for i, key in enumerate(keys[method]):
+            out[key] = results[i * len(probs):(i + 1) * len(probs)]
+    return out
+
+
 def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Sequence[ArrayLike], *,
                  protocol: StudyProtocol = DEFAULT_PROTOCOL, ba_floor: float = 0.6,
                  grid: Mapping[str, Sequence[Any]] = DEFAULT_DECODER_GRID, epoch_seconds: int = 30,
@@ -189,24 +211,25 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
     pooled_labels = np.concatenate(labels)
     trials: list[dict[str, Any]] = []
     decoders: list[HmmDecoder] = []
-    cache: dict[tuple[Any, ...], list[NDArray[np.float64]]] = {}
-    seen: set[tuple[Any, ...]] = set()
+    allowed: list[tuple[dict[str, Any], HmmDecoder]] = []
     for point in _grid_points(grid):
         stickiness = float(point.get("stickiness", 1.0))
         if 0.0 < stickiness < 1.0 and max(chain.transition[0, 1], chain.transition[1, 0]) / stickiness >= 1.0:
             continue  # the chain switches too often for this stickiness (a switching probability >= 1)
-        decoder = HmmDecoder(chain, **point)
+        allowed.append((point, HmmDecoder(chain, **point)))
+    runs = _runs([d for _, d in allowed], probs)
+    seen: set[tuple[Any, ...]] = set()
+    for point, decoder in allowed:
         key = (decoder.method, decoder.stickiness, decoder.emission_weight)
         if decoder.method == "viterbi":
             if key in seen:  # the same path as an earlier grid point: its threshold plays no part
                 continue
             seen.add(key)
-            calls = [decoder.decode(p) for p in probs]
+            calls = [np.where(np.isnan(p), np.nan, path.astype(np.float64)) for p, path in zip(probs, runs[key],
+                                                                                                strict=True)]
         else:
-            if key not in cache:
-                cache[key] = [decoder.marginals(p) for p in probs]
             calls = [np.where(np.isnan(p), np.nan, (m >= decoder.threshold).astype(np.float64))
-                     for p, m in zip(probs, cache[key], strict=True)]
+                     for p, m in zip(probs, runs[key], strict=True)]
         decoded = [params(c, k) for k, c in enumerate(calls)]
         objective, terms = parameter_objective(decoded, truth, margins)
         ba = epoch_agreement(pooled_labels, np.concatenate(calls))["balanced_accuracy"]

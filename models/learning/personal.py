@@ -51,7 +51,7 @@ from .pooled_start import PooledBase, StartChoice, continue_boosting, prefer_scr
 from .rows import NightRows, corrected_rows, labelled_nights, prepare_nights, study_seed
 from .splits import SPLITTERS, fold_groups
 from .tasks import Progress, Reporter, run_tasks
-from .tuning import TunedPipeline, tune_and_fit
+from .tuning import SplitMatrices, TunedPipeline, tune_and_fit
 
 __all__ = ["PersonalResult", "personal_studies", "train_personal"]
 
@@ -158,9 +158,9 @@ def _start_decoding(base: SleepModel, nights: Sequence[NightRows], choice: Start
 
 
 def _fit_study(rows: Sequence[NightRows], *, config: TrainingConfig, seed: int, reporter: Reporter, stage: str,
-               base: PooledBase | None, final: bool) -> SleepModel:
+               base: PooledBase | None, final: bool, matrices: SplitMatrices) -> SleepModel:
     """One study: the from-scratch search, and with ``base`` the pooled start and the choice between them."""
-    pipe = tune_and_fit(rows, config=config, seed=seed, reporter=reporter, stage=stage)
+    pipe = tune_and_fit(rows, config=config, seed=seed, reporter=reporter, stage=stage, matrices=matrices)
     if base is None:
         return _model(pipe, rows, config, seed)
     choice = tune_start(rows, base.held_out, base.descriptors, config=config, seed=seed, reporter=reporter)
@@ -250,6 +250,7 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     groups = np.asarray(fold_groups([r.night for r in rows]))
     outer = list(SPLITTERS["leave-one-night-out"]().split(groups, groups=groups))
     n = len(outer)
+    matrices = SplitMatrices()  # inner splits met by several studies are built once per worker
 
     def outer_task(k: int) -> Any:
         def run(reporter: Reporter) -> tuple[list[tuple[int, HeldOutNight]], dict[str, Any]]:
@@ -258,7 +259,8 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
             seed = study_seed(config.seed, k + 1)
             what = "night" if held_idx.size == 1 else f"group of {held_idx.size} nights"
             model = _fit_study(others, config=config, seed=seed, reporter=reporter,
-                               stage=f"personal: {what} {k + 1}/{n} held out", base=base, final=False)
+                               stage=f"personal: {what} {k + 1}/{n} held out", base=base, final=False,
+                               matrices=matrices)
             out = [(int(i), _held_out(model, rows[i], config)) for i in held_idx]
             return out, _trial_row("+".join(h.night_id for _, h in out), model)
         return run
@@ -266,7 +268,7 @@ def train_personal(nights: Sequence[Night], *, config: TrainingConfig = Training
     def final_task(reporter: Reporter) -> SleepModel:
         seed = study_seed(config.seed, 0)
         model = _fit_study([*rows, *extra], config=config, seed=seed, reporter=reporter,
-                           stage="personal: final model", base=base, final=True)
+                           stage="personal: final model", base=base, final=True, matrices=matrices)
         model.info_["corrected_nights"] = len(extra)
         return model
 

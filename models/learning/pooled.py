@@ -59,6 +59,7 @@ from ..decoding.fitting import fit_night_decoding
 from ..features.source import FeatureSource
 from ..nights.night import Night
 from .artifacts import library_versions
+from .boosting import boost_early_stopped
 from .classifier import SleepModel
 from .config import POOLED_PARAMS, TrainingConfig, TrainingDataError
 from .descriptors import DESCRIPTOR_NAMES, participant_descriptors
@@ -101,18 +102,6 @@ class _Rows:
         self.groups = np.concatenate(groups)
 
 
-class _CancelCallback(xgb.callback.TrainingCallback):
-    """Stops a long fit as soon as training is cancelled."""
-
-    def __init__(self, reporter: Reporter) -> None:
-        super().__init__()
-        self.reporter = reporter
-
-    def after_iteration(self, model: Any, epoch: int, evals_log: Any) -> bool:
-        self.reporter.check()
-        return False
-
-
 def _at_most(idx: NDArray[np.intp], n: int, rng: np.random.Generator) -> NDArray[np.intp]:
     """``idx`` itself, or a sorted uniform sample of ``n`` of its entries."""
     return idx if idx.size <= n else np.sort(rng.choice(idx, size=n, replace=False))
@@ -134,10 +123,9 @@ def _fit(rows: _Rows, train_idx: NDArray[np.intp], *, config: TrainingConfig, se
     # a plain DMatrix: XGBoost evaluates it incrementally, a QuantileDMatrix validation set ~10x slower
     dval = xgb.DMatrix(rows.X[val_idx], y_val, weight=np.where(y_val == 1, params["scale_pos_weight"], 1.0)
                        * (1.0 if rows.w is None else rows.w[val_idx]), nthread=1)
-    booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
-                        early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False,
-                        callbacks=[_CancelCallback(reporter)])
-    n_rounds = booster.best_iteration + 1
+    booster, best = boost_early_stopped(params, dtrain, dval, max_rounds=config.max_rounds,
+                                        early_stopping_rounds=config.early_stopping_rounds, check=reporter.check)
+    n_rounds = best + 1
     margin_val = booster.predict(dval, iteration_range=(0, n_rounds), output_margin=True).astype(np.float64)
     del dtrain, dval
     return SleepModel(
@@ -282,7 +270,7 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
     fold_of = {rows.participants[o]: k for k, (_, test) in enumerate(folds) for o in np.unique(rows.owners[test])}
 
     def fit_task(k: int) -> Any:
-        def run(reporter: Reporter) -> SleepModel:
+        def run(reporter: Reporter) -> tuple[SleepModel, dict[str, list[HeldOutNight]]]:
             train_idx = np.arange(final_rows.y.size) if k < 0 else folds[k][0]
             used = {pid: data[pid] + extra.get(pid, []) if k < 0 else data[pid] for pid in pids}
             training = tuple(r.night.content_hash for pid in pids for r in used[pid] if k < 0 or fold_of.get(pid) != k)
@@ -292,17 +280,20 @@ def train_pooled(nights: Mapping[str, Sequence[Night]], *, config: TrainingConfi
                          feature_version=feature_version)
             model = _with_decoding(model, data, descriptors, [pid for pid in pids if k < 0 or fold_of.get(pid) != k],
                                    config, seed)
+            # the fold's participants are scored here, beside the other fits, rather than after all of them
+            held = {} if k < 0 else {pid: [_held_out(model, r, descriptors[pid], config) for r in data[pid]]
+                                     for pid in pids if fold_of.get(pid) == k}
             reporter.tick("pooled: final model" if k < 0 else f"pooled: fold {k + 1}/{n_folds}")
-            return model
+            return model, held
         return run
 
-    fitted = run_tasks([fit_task(k) for k in [-1, *range(n_folds)]], n_jobs=config.n_jobs, total=total,
-                       progress=progress, done=len(flat))
-    final, fitted = fitted[0], fitted[1:]
+    results = run_tasks([fit_task(k) for k in [-1, *range(n_folds)]], n_jobs=config.n_jobs, total=total,
+                        progress=progress, done=len(flat))
+    final, fitted = results[0][0], [model for model, _ in results[1:]]
     final.info_["offset_rule"] = OFFSET_RULE
     final.info_["corrected_nights"] = n_extra
-    held_out = {pid: [_held_out(fitted[fold_of[pid]], r, descriptors[pid], config) for r in data[pid]]
-                for pid in pids}
+    scored = {pid: nights_out for _, held in results[1:] for pid, nights_out in held.items()}
+    held_out = {pid: scored.get(pid, []) for pid in pids}
     baselines = {pid: fitted[k].offset_baseline_ for pid, k in fold_of.items()}
     pairs = {pid: _margins(held_out[pid], data[pid], baselines[pid]) for pid in pids if data[pid]}
     night_groups = {pid: fold_groups([r.night for r in data[pid]]) for pid in pairs}

@@ -52,13 +52,14 @@ from typing import Any
 import numpy as np
 import xgboost as xgb
 from numpy.typing import NDArray
-from sklearn.metrics import balanced_accuracy_score, roc_auc_score
+from sklearn.metrics import balanced_accuracy_score
 
 from .classifier import SleepModel
 from .config import TrainingConfig
 from .rows import NightRows
 from .splits import ForwardChainedSplit, fold_groups
 from .tasks import Reporter
+from .threshold import binary_auc
 
 __all__ = ["ADDED_ROUNDS", "ADDED_TREE_PARAMS", "SCRATCH_MARGIN_AUC", "START_GRID", "PooledBase", "StartChoice",
            "continue_boosting", "prefer_scratch", "start_design", "tune_start"]
@@ -207,10 +208,6 @@ def continue_boosting(base: SleepModel, Z: NDArray[np.float32], y: NDArray[np.fl
     return xgb.train(params, xgb.DMatrix(Z, y, weight=sample_weight, nthread=1), added_rounds, xgb_model=start)
 
 
-def _auc(y: NDArray[np.float64], p: NDArray[np.float64]) -> float:
-    return float(roc_auc_score(y, p)) if np.unique(y).size == 2 else float("nan")
-
-
 def _mean(values: Sequence[float]) -> float:
     finite = [v for v in values if np.isfinite(v)]
     return float(np.mean(finite)) if finite else float("nan")
@@ -257,7 +254,7 @@ def tune_start(nights: Sequence[NightRows], base: SleepModel, descriptors: Mappi
                 ba.setdefault((lr, lam, r), []).append(
                     float(balanced_accuracy_score(y_val, p >= base.threshold_)) if np.unique(y_val).size == 2
                     else float(np.mean((p >= base.threshold_) == y_val)))
-                auc.setdefault((lr, lam, r), []).append(_auc(y_val, p))
+                auc.setdefault((lr, lam, r), []).append(binary_auc(y_val, p))
                 kept.setdefault((lr, lam, r), []).append((p, y_val))
     scores = {key: _mean(v) for key, v in ba.items()}
     # best mean balanced accuracy; ties to fewer added rounds, then the grid's order

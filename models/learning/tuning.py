@@ -50,7 +50,8 @@ study's nights (the training nights of the model; never a held-out night).
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+import threading
+from collections.abc import Callable, Hashable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -58,18 +59,18 @@ import numpy as np
 import optuna
 import xgboost as xgb
 from numpy.typing import NDArray
-from sklearn.metrics import roc_auc_score
 
 from ..decoding.fitting import NightDecoding, fit_night_decoding
+from .boosting import boost_early_stopped
 from .classifier import Projection
 from .config import TrainingConfig
 from .rows import NightRows
 from .splits import ForwardChainedSplit, fold_groups
 from .tasks import Reporter
-from .threshold import youden_threshold
+from .threshold import binary_auc, youden_threshold
 
-__all__ = ["PCA_CHOICES", "TunedPipeline", "WARM_START", "booster_params", "suggest_hyperparameters",
-           "tune_and_fit"]
+__all__ = ["PCA_CHOICES", "SplitMatrices", "TunedPipeline", "WARM_START", "booster_params",
+           "suggest_hyperparameters", "tune_and_fit"]
 
 #: PCA settings searched: 0.0 = off, else the share of variance kept.
 PCA_CHOICES: tuple[float, ...] = (0.0, 0.90, 0.95, 0.99)
@@ -141,10 +142,36 @@ class TunedPipeline:
     decoding: NightDecoding | None = None
 
 
+class SplitMatrices:
+    """XGBoost matrices of inner splits, shared by the studies of one training call.
+
+    Studies over overlapping sets of nights meet the same inner splits: the final study's split
+    "train on the first ``j`` nights" is also the split of every outer study holding out a later
+    night. Such a split's matrices (and its PCA fit) are built once per worker thread and reused:
+    the same rows give the same matrices, so results do not change. Each thread keeps its own
+    (a validation matrix's weights are set before every fit, and XGBoost matrices are not shared
+    between threads). Keys name the :class:`~models.learning.rows.NightRows` objects of the
+    split, so a store is only valid while those objects live: make one per training call.
+    """
+
+    def __init__(self) -> None:
+        self._local = threading.local()
+
+    def get(self, key: Hashable, build: Callable[[], tuple[xgb.QuantileDMatrix, xgb.DMatrix]]
+            ) -> tuple[xgb.QuantileDMatrix, xgb.DMatrix]:
+        """The matrices stored under ``key`` in this thread, built by ``build()`` on first use."""
+        store: dict[Hashable, tuple[xgb.QuantileDMatrix, xgb.DMatrix]] | None = getattr(self._local, "store", None)
+        if store is None:
+            store = self._local.store = {}
+        if key not in store:
+            store[key] = build()
+        return store[key]
+
+
 class _InnerData:
     """Stacked rows of a study's nights, its inner splits and cached XGBoost matrices."""
 
-    def __init__(self, nights: Sequence[NightRows], config: TrainingConfig) -> None:
+    def __init__(self, nights: Sequence[NightRows], config: TrainingConfig, shared: SplitMatrices | None) -> None:
         order = sorted(range(len(nights)), key=lambda i: nights[i].night.start)
         self.X = np.vstack([nights[i].features.values[nights[i].rows] for i in order])
         self.y = np.concatenate([nights[i].reference[nights[i].rows] for i in order])  # type: ignore[index]
@@ -158,21 +185,26 @@ class _InnerData:
         self.night_of = np.concatenate([np.full(nights[i].rows.size, k) for k, i in enumerate(order)])
         self.epoch_of = np.concatenate([nights[i].rows for i in order])
         self.config = config
-        self._cache: dict[tuple[int, float], tuple[xgb.QuantileDMatrix, xgb.DMatrix]] = {}
+        self.shared = shared if shared is not None else SplitMatrices()
 
     def matrices(self, k: int, pca_variance: float) -> tuple[xgb.QuantileDMatrix, xgb.DMatrix]:
         """Training and validation matrices of split ``k`` (projected when PCA is on), built once."""
-        key = (k, pca_variance)
-        if key not in self._cache:
-            train, val = self.splits[k]
+        train, val = self.splits[k]
+
+        def build() -> tuple[xgb.QuantileDMatrix, xgb.DMatrix]:
             Xt, Xv = self.X[train], self.X[val]
             if pca_variance:
                 projection = Projection.fit(Xt, variance=pca_variance)
                 Xt, Xv = projection.transform(Xt), projection.transform(Xv)
             dtrain = xgb.QuantileDMatrix(Xt, self.y[train], max_bin=self.config.max_bin, nthread=1,
                                          weight=None if self.w is None else self.w[train])
-            self._cache[key] = (dtrain, xgb.DMatrix(Xv, self.y[val], nthread=1))
-        return self._cache[key]
+            return dtrain, xgb.DMatrix(Xv, self.y[val], nthread=1)
+
+        # the split's rows are its nights' rows in start order: the nights (and the weights' presence) name them
+        key = (tuple(id(self.nights[i]) for i in np.unique(self.night_of[train])),
+               tuple(id(self.nights[i]) for i in np.unique(self.night_of[val])), self.w is None,
+               float(pca_variance), self.config.max_bin)
+        return self.shared.get(key, build)
 
 
 def _in_bed(r: NightRows, idx: NDArray[np.intp], values: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -199,12 +231,8 @@ def _decoding(data: _InnerData, val_rows: list[NDArray[np.intp]], val_p: list[ND
                               min_sensitivity=config.min_sensitivity)
 
 
-def _auc(y: NDArray[np.float64], p: NDArray[np.float64]) -> float:
-    return float(roc_auc_score(y, p)) if np.unique(y).size == 2 else float("nan")
-
-
 def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: int, reporter: Reporter,
-                 stage: str) -> TunedPipeline:
+                 stage: str, matrices: SplitMatrices | None = None) -> TunedPipeline:
     """Search hyperparameters on forward-chained splits of ``nights``, then refit on all of them.
 
     Parameters
@@ -218,12 +246,15 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
         Receives one tick per finished trial and one for the refit.
     stage : str
         Label of the ticks (shown by progress bars).
+    matrices : SplitMatrices, default=None
+        Inner-split matrices shared with other studies of the same training call (the same
+        ``NightRows`` objects); None = this study's own.
 
     Returns
     -------
     TunedPipeline
     """
-    data = _InnerData(nights, config)
+    data = _InnerData(nights, config, matrices)
     inner: dict[int, tuple[list[NDArray[np.intp]], list[NDArray[np.float64]], list[int]]] = {}
 
     def objective(trial: optuna.Trial) -> float:
@@ -237,11 +268,11 @@ def tune_and_fit(nights: Sequence[NightRows], *, config: TrainingConfig, seed: i
             y_val = data.y[val]
             dval.set_weight(np.where(y_val == 1, params["scale_pos_weight"], 1.0) * (1.0 if data.w is None
                                                                                     else data.w[val]))
-            booster = xgb.train(params, dtrain, config.max_rounds, evals=[(dval, "validation")],
-                                early_stopping_rounds=config.early_stopping_rounds, verbose_eval=False)
-            n = booster.best_iteration + 1
+            booster, best = boost_early_stopped(params, dtrain, dval, max_rounds=config.max_rounds,
+                                                early_stopping_rounds=config.early_stopping_rounds)
+            n = best + 1
             p = booster.predict(dval, iteration_range=(0, n))
-            aucs.append(_auc(y_val, p))
+            aucs.append(binary_auc(y_val, p))
             vals.append(val)
             ps.append(p.astype(np.float64))
             rounds.append(n)
