@@ -163,10 +163,10 @@ def _grid_scores(nights: Sequence[Any], method: str, options: Mapping[str, Any],
         for row, (i, start) in enumerate(zip(rows, starts, strict=True)):
             night = nights[i]
             n = np.asarray(night.counts).size
-            bed = np.arange(n)[slice(night.lights_off_idx, night.lights_on_idx)]
-            where.append(start + bed)
-            code.append(np.full(bed.size, row))
-            truth.append(np.asarray(night.reference, dtype=np.float64)[bed])
+            in_bed = np.arange(n)[slice(night.lights_off_idx, night.lights_on_idx)]
+            where.append(start + in_bed)
+            code.append(np.full(in_bed.size, row))
+            truth.append(np.asarray(night.reference, dtype=np.float64)[in_bed])
         at, owner, reference = np.concatenate(where), np.concatenate(code), np.concatenate(truth)
         for j, kwargs in enumerate(settings):
             sleep = score_with_rule(laid, epoch_seconds, base, **options, **kwargs).sleep

@@ -78,8 +78,9 @@ def _participant_summaries(table: pd.DataFrame) -> dict[str, list[dict[str, Any]
     """Per participant, per method (order of first appearance): nights compared and the mean and SD over
     nights of every epoch metric (one pass over the participant-level rows)."""
     rows = table[table["level"] == "participant"]
-    found: dict[str, dict[Any, dict[str, dict[str, Any]]]] = {}
-    for row in rows[["participant_id", "method", "statistic", "n_nights", *EPOCH_METRIC_NAMES]].to_dict("records"):
+    found: dict[str, dict[Any, dict[str, dict[Any, Any]]]] = {}
+    columns = ["participant_id", "method", "statistic", "n_nights", *EPOCH_METRIC_NAMES]
+    for row in rows[columns].to_dict("records"):
         kinds = found.setdefault(str(row["participant_id"]), {}).setdefault(row["method"], {})
         kinds.setdefault(str(row["statistic"]), row)
     return {pid: [{"method": method, "n_nights": int(kinds["mean"]["n_nights"])}
