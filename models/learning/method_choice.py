@@ -103,8 +103,12 @@ def _means_without_each_group(rows: pd.DataFrame, key: str, groups: Mapping[Any,
     if not len(rows):
         return {}
     tags = rows[key].map(groups).to_numpy()
-    copies = [rows.loc[tags != g, ["method", policy]].assign(_left_out=g) for g in dict.fromkeys(groups.values())]
-    found = pd.concat(copies, ignore_index=True).groupby(["_left_out", "method"])[policy].mean()
+    left_out = list(dict.fromkeys(groups.values()))
+    taken = [np.flatnonzero(tags != g) for g in left_out]
+    at = np.concatenate(taken)
+    copies = pd.DataFrame({"_left_out": np.repeat(left_out, [t.size for t in taken]),
+                           "method": rows["method"].to_numpy()[at], policy: rows[policy].to_numpy()[at]})
+    found = copies.groupby(["_left_out", "method"])[policy].mean()
     out: dict[int, dict[str, float]] = {}
     for (g, m), v in found.items():
         out.setdefault(int(g), {})[str(m)] = float(v)
