@@ -110,7 +110,7 @@ def _means_without_each_group(rows: pd.DataFrame, key: str, groups: Mapping[Any,
                            "method": rows["method"].to_numpy()[at], policy: rows[policy].to_numpy()[at]})
     found = copies.groupby(["_left_out", "method"])[policy].mean()
     out: dict[int, dict[str, float]] = {}
-    for (g, m), v in found.items():
+    for (g, m), v in zip(found.index.tolist(), found.tolist(), strict=True):
         out.setdefault(int(g), {})[str(m)] = float(v)
     return out
 
