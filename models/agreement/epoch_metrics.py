@@ -169,13 +169,13 @@ def _roc_auc(y: NDArray[np.int8], score: NDArray[np.float64]) -> float:
     """
     order = np.argsort(-score, kind="stable")
     ordered, truth = score[order], y[order].astype(np.float64)
-    thresholds = np.r_[np.flatnonzero(np.diff(ordered)), truth.size - 1]
+    thresholds = np.append(np.flatnonzero(np.diff(ordered)), truth.size - 1)
     tps = np.cumsum(truth)[thresholds]
     fps = 1 + thresholds.astype(np.float64) - tps
     if fps.shape[0] > 2:
-        keep = np.r_[True, np.logical_or(np.diff(fps, 2), np.diff(tps, 2)), True]
+        keep = np.concatenate(([True], np.logical_or(np.diff(fps, 2), np.diff(tps, 2)), [True]))
         fps, tps = fps[keep], tps[keep]
-    fpr, tpr = np.r_[0.0, fps] / fps[-1], np.r_[0.0, tps] / tps[-1]
+    fpr, tpr = np.concatenate(([0.0], fps)) / fps[-1], np.concatenate(([0.0], tps)) / tps[-1]
     return float(np.trapezoid(tpr, fpr))
 
 
