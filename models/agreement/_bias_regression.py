@@ -6,14 +6,15 @@ on the same magnitude, ``|r| = c0 + c1 A``; limits ``b0 + b1 A -/+ 1.96 sqrt(pi/
 (from memory: ``sqrt(pi/2)`` turns a mean absolute residual into an SD under normality).
 
 With several nights per participant the difference regression has a random intercept per
-participant (statsmodels ``MixedLM``, REML) — unless the least-squares residuals show no
+participant (REML; the estimate statsmodels ``MixedLM`` makes, computed in closed form per participant
+by :mod:`._random_intercept`) — unless the least-squares residuals show no
 between-participant variance (one-way ANOVA, MS_between <= MS_within), where the REML variance
 estimate is at its boundary and the fit is least squares with participant-clustered standard
 errors instead; the residual-size regression is ordinary least
 squares, as in the 1999 method, with participant-clustered (sandwich; Liang & Zeger 1986, from
 memory) standard errors for its slope test (a random intercept adds nothing there: the size of a
 residual has little participant structure, and the fit then sits on the variance boundary where
-``MixedLM`` is slow and reduces to least squares). When every participant has one night both
+a REML fit is slow and reduces to least squares). When every participant has one night both
 are ordinary least squares. The residuals of the second regression are taken from the fixed
 part of the first (``r = d - b0 - b1 A``), so they keep the between-participant spread that
 the limits must cover.
@@ -22,16 +23,17 @@ the limits must cover.
 from __future__ import annotations
 
 import math
-import warnings
 from typing import Any
 
 import numpy as np
 import statsmodels.api as sm  # type: ignore[import-untyped]
 from numpy.typing import NDArray
 
+from ._random_intercept import random_intercept_line
+
 __all__ = ["ABS_TO_SD", "CLUSTERED_MODEL", "MIXED_MODEL", "OLS_MODEL", "bias_regressions"]
 
-MIXED_MODEL = "random intercept per participant (MixedLM, REML)"
+MIXED_MODEL = "random intercept per participant (MixedLM, REML)"  # the statsmodels model it equals
 OLS_MODEL = "ordinary least squares (one night per participant)"
 CLUSTERED_MODEL = "ordinary least squares, participant-clustered standard errors"
 #: sqrt(pi/2): mean absolute deviation to SD under normality (Bland & Altman 1999; from memory).
@@ -45,27 +47,19 @@ def _fit(y: NDArray[np.float64], x: NDArray[np.float64], groups: NDArray[np.intp
     With repeated groups: a random intercept per group (``mixed``) or least squares with
     group-clustered standard errors; without: ordinary least squares.
     """
-    design = sm.add_constant(x, has_constant="add")
     repeated = np.unique(groups).size < groups.size
-    converged = True
     model = MIXED_MODEL if repeated and mixed else CLUSTERED_MODEL if repeated else OLS_MODEL
     if repeated and mixed:
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            result = sm.MixedLM(y, design, groups=groups).fit(reml=True)
-        converged = bool(getattr(result, "converged", True)) and not any(
-            "converge" in str(w.message).lower() for w in caught)
-        params = np.asarray(result.fe_params, dtype=np.float64)
-        ci = np.asarray(result.conf_int(alpha=alpha), dtype=np.float64)[:2]
-        p_values = np.asarray(result.pvalues, dtype=np.float64)[:2]
-    else:
-        result = sm.OLS(y, design).fit(**({"cov_type": "cluster", "cov_kwds": {"groups": groups}} if repeated else {}))
-        params = np.asarray(result.params, dtype=np.float64)
-        ci = np.asarray(result.conf_int(alpha=alpha), dtype=np.float64)
-        p_values = np.asarray(result.pvalues, dtype=np.float64)
+        _, codes = np.unique(groups, return_inverse=True)
+        return random_intercept_line(y, x, codes, alpha) | {"model": model}
+    design = sm.add_constant(x, has_constant="add")
+    result = sm.OLS(y, design).fit(**({"cov_type": "cluster", "cov_kwds": {"groups": groups}} if repeated else {}))
+    params = np.asarray(result.params, dtype=np.float64)
+    ci = np.asarray(result.conf_int(alpha=alpha), dtype=np.float64)
+    p_values = np.asarray(result.pvalues, dtype=np.float64)
     return {"intercept": float(params[0]), "slope": float(params[1]),
             "slope_ci": (float(ci[1, 0]), float(ci[1, 1])), "p_value": float(p_values[1]),
-            "model": model, "converged": converged}
+            "model": model, "converged": True}
 
 
 def _empty(model: str) -> dict[str, Any]:

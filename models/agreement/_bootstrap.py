@@ -9,6 +9,7 @@ practice; Efron & Tibshirani 1993, from memory).
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Mapping
 from dataclasses import replace
 from typing import Any
@@ -73,9 +74,20 @@ def participant_codes(participant_ids: ArrayLike, n: int) -> tuple[NDArray[np.in
 
 
 def draw_counts(k: int, n_boot: int, seed: int) -> NDArray[np.float64]:
-    """Resample counts, shape (n_boot, k): row b says how often each participant is in resample b."""
+    """Resample counts, shape (n_boot, k): row b says how often each participant is in resample b.
+
+    The same arguments give the same draws, so they are made once and shared (read-only): a
+    comparison asks for them once per method and parameter.
+    """
+    return _draws(int(k), int(n_boot), int(seed))
+
+
+@functools.lru_cache(maxsize=32)
+def _draws(k: int, n_boot: int, seed: int) -> NDArray[np.float64]:
     rng = np.random.default_rng(seed)
-    return rng.multinomial(k, np.full(k, 1.0 / k), size=n_boot).astype(np.float64)
+    counts = rng.multinomial(k, np.full(k, 1.0 / k), size=n_boot).astype(np.float64)
+    counts.setflags(write=False)
+    return counts
 
 
 def percentile_interval(values: NDArray[np.float64], ci_level: float) -> tuple[float, float]:

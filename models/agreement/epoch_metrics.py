@@ -126,7 +126,7 @@ def epoch_agreement(reference: ArrayLike, predicted: ArrayLike, *,
         "sensitivity": sensitivity, "specificity": specificity,
         "ppv": _ratio(tp, tp + fp), "npv": _ratio(tn, tn + fn),
         "accuracy": accuracy,
-        "balanced_accuracy": float(np.mean(np.array([specificity, sensitivity]))) if two_ref else nan,
+        "balanced_accuracy": (specificity + sensitivity) / 2.0 if two_ref else nan,  # numpy's mean of the two
         "f1_sleep": _ratio(2.0 * tp, true_sleep + predicted_sleep),
         "f1_wake": _ratio(2.0 * tn, (float(y.size) - true_sleep) + (float(y.size) - predicted_sleep)),
         "kappa": _kappa(tn, fp, fn, tp) if (two_ref or two_pred or y[0] != p[0]) else nan,
@@ -144,12 +144,20 @@ def _ratio(numerator: float, denominator: float) -> float:
 
 
 def _kappa(tn: float, fp: float, fn: float, tp: float) -> float:
-    """Cohen's kappa of a 2 x 2 confusion, in the order of operations of ``sklearn.metrics.cohen_kappa_score``."""
-    confusion = np.array([[tn, fp], [fn, tp]])
-    sum0, sum1 = confusion.sum(axis=0), confusion.sum(axis=1)
-    expected = np.outer(sum0, sum1) / np.sum(sum0)
-    off = np.ones((2, 2)) - np.eye(2)
-    return float(1 - np.sum(off * confusion) / np.sum(off * expected))
+    """Cohen's kappa of a 2 x 2 confusion, in the order of operations of ``sklearn.metrics.cohen_kappa_score``.
+
+    ``1 - sum(W * C) / sum(W * E)`` with ``W`` zero on the diagonal and ``E = outer(col sums, row
+    sums) / n``: the zero-weighted cells add exact zeros, so the sums are ``fp + fn`` and
+    ``E[0, 1] + E[1, 0]`` in plain floats.
+    """
+    predicted_wake, predicted_sleep = tn + fn, fp + tp  # column sums
+    true_wake, true_sleep = tn + fp, fn + tp  # row sums
+    n = predicted_wake + predicted_sleep
+    expected_off = predicted_wake * true_sleep / n + predicted_sleep * true_wake / n if n else 0.0
+    if not expected_off:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return float(1 - np.float64(fp + fn) / np.float64(expected_off))
+    return float(1 - (fp + fn) / expected_off)
 
 
 def _mcc(tn: float, fp: float, fn: float, tp: float) -> float:
@@ -169,13 +177,13 @@ def _roc_auc(y: NDArray[np.int8], score: NDArray[np.float64]) -> float:
     """
     order = np.argsort(-score, kind="stable")
     ordered, truth = score[order], y[order].astype(np.float64)
-    thresholds = np.r_[np.flatnonzero(np.diff(ordered)), truth.size - 1]
+    thresholds = np.append(np.flatnonzero(np.diff(ordered)), truth.size - 1)
     tps = np.cumsum(truth)[thresholds]
     fps = 1 + thresholds.astype(np.float64) - tps
     if fps.shape[0] > 2:
-        keep = np.r_[True, np.logical_or(np.diff(fps, 2), np.diff(tps, 2)), True]
+        keep = np.concatenate(([True], np.logical_or(np.diff(fps, 2), np.diff(tps, 2)), [True]))
         fps, tps = fps[keep], tps[keep]
-    fpr, tpr = np.r_[0.0, fps] / fps[-1], np.r_[0.0, tps] / tps[-1]
+    fpr, tpr = np.concatenate(([0.0], fps)) / fps[-1], np.concatenate(([0.0], tps)) / tps[-1]
     return float(np.trapezoid(tpr, fpr))
 
 

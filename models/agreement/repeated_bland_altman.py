@@ -61,15 +61,18 @@ _LOA_Z = 1.96  # Bland & Altman 1986
 
 _NAMES = ("bias", "sd_within", "sd_between", "sd_total", "loa_lower", "loa_upper")
 _BLOCK_CELLS = 200_000  # resamples x participants evaluated at once
+#: the figures with intervals: (name of the interval, row in ``_NAMES``)
+_WITH_CI = (("bias_ci", 0), ("loa_lower_ci", 4), ("loa_upper_ci", 5))
 
 
 def _limits_from_totals(k: NDArray[np.float64], n: NDArray[np.float64], sum_m2: NDArray[np.float64],
                         s: NDArray[np.float64], q: NDArray[np.float64],
-                        w: NDArray[np.float64]) -> NDArray[np.float64]:
+                        w: NDArray[np.float64], *, all_figures: bool = True) -> NDArray[np.float64]:
     """The six figures of ``_NAMES`` from totals over a set of participants (any shape).
 
     ``k`` participants, ``n`` nights, ``sum_m2`` = sum of m_i^2, ``s`` = sum of d, ``q`` = sum
-    of d^2 and ``w`` = within-participant sum of squares. Returns shape (6, *k.shape).
+    of d^2 and ``w`` = within-participant sum of squares. Returns shape (6, *k.shape), or with
+    ``all_figures=False`` only the bias and the two limits (:data:`_WITH_CI`), shape (3, *k.shape).
     """
     with np.errstate(invalid="ignore", divide="ignore"):
         grand = s / n
@@ -79,6 +82,8 @@ def _limits_from_totals(k: NDArray[np.float64], n: NDArray[np.float64], sum_m2: 
         divisor = (n**2 - sum_m2) / ((k - 1.0) * n)
         var_between = np.clip((between_ss / (k - 1.0) - ms_within) / divisor, 0.0, None)
     sd_total = np.sqrt(var_between + ms_within)
+    if not all_figures:
+        return np.stack([grand, grand - _LOA_Z * sd_total, grand + _LOA_Z * sd_total])
     return np.stack([grand, np.sqrt(ms_within), np.sqrt(var_between), sd_total,
                      grand - _LOA_Z * sd_total, grand + _LOA_Z * sd_total])
 
@@ -89,14 +94,16 @@ def _figures_and_jackknife_se(counts: NDArray[np.float64], per: NDArray[np.float
 
     ``counts`` (n_sets, k): how often each participant is in a set (all ones: the data);
     ``per`` (5, k): m_i, m_i^2, sum of d, sum of d^2 and the within sum of squares of each
-    participant. Returns two arrays of shape (6, n_sets). A participant drawn c times is c
+    participant. Returns arrays of shape (6, n_sets) and (3, n_sets) (SEs of the figures of
+    :data:`_WITH_CI`, in that order). A participant drawn c times is c
     participants; leaving out any one of its copies gives the same figures, so the jackknife
     needs k evaluations per set, not one per draw.
     """
     k = counts.sum(axis=1)
     totals = counts @ per.T  # (n_sets, 5)
     figures = _limits_from_totals(k, *(totals[:, j] for j in range(5)))
-    left_out = _limits_from_totals(k[:, None] - 1.0, *(totals[:, j, None] - per[j][None, :] for j in range(5)))
+    left_out = _limits_from_totals(k[:, None] - 1.0, *(totals[:, j, None] - per[j][None, :] for j in range(5)),
+                                   all_figures=False)
     with np.errstate(invalid="ignore", divide="ignore"):
         # jackknife over the k draws: each participant's leave-one-out value weighted by its count
         weights = np.broadcast_to(counts, left_out.shape)
@@ -172,8 +179,8 @@ def repeated_limits_of_agreement(differences: ArrayLike, participant_ids: ArrayL
     parts = [_figures_and_jackknife_se(counts[i:i + block], per) for i in range(0, n_boot, block)]
     boot = np.concatenate([b for b, _ in parts], axis=1)
     boot_se = np.concatenate([se for _, se in parts], axis=1)
-    for name, row in (("bias_ci", 0), ("loa_lower_ci", 4), ("loa_upper_ci", 5)):
-        out[name] = studentized_interval(float(point[row, 0]), float(point_se[row, 0]), boot[row], boot_se[row],
+    for i, (name, row) in enumerate(_WITH_CI):
+        out[name] = studentized_interval(float(point[row, 0]), float(point_se[i, 0]), boot[row], boot_se[i],
                                          ci_level, n_participants=k)
     return out
 

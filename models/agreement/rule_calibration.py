@@ -36,6 +36,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from ..scoring.rescoring import webster_rescore
 from ..scoring.rules import score_with_rule
 
 __all__ = ["CALIBRATED_PARAMETER", "CALIBRATED_SUFFIX", "COUNT_SCALE_GRID", "THRESHOLD_GRID", "RuleCalibration",
@@ -121,6 +122,77 @@ def _balanced_accuracy(reference: NDArray[np.float64], sleep: NDArray[np.float64
         return float("nan")
     return 0.5 * (float(np.sum((y == 1) & (s == 1))) / n_sleep + float(np.sum((y == 0) & (s == 0))) / n_wake)
 
+#: zero-count minutes between nights scored together: more than any rule's window reaches on both sides
+_GAP_MINUTES = 16
+
+
+def _grid_scores(nights: Sequence[Any], method: str, options: Mapping[str, Any],
+                 settings: Sequence[Mapping[str, float]]) -> NDArray[np.float64]:
+    """Per-night balanced accuracy of the in-bed epochs, shape (n_nights, n_settings), one column per
+    ``settings`` (keyword arguments of the rule).
+
+    Nights without missing counts and of one epoch length are scored together: laid end to end, each
+    starting on a minute and separated by :data:`_GAP_MINUTES` of zero counts, which is what a rule
+    sees past the ends of a lone recording, so each night's calls are those of scoring it alone (a
+    Webster-rescored method is rescored per night). Other nights are scored one by one.
+    """
+    scores = np.full((len(nights), len(settings)), np.nan)
+    base, _, suffix = method.partition("+")
+    together: dict[int, list[int]] = {}
+    for i, night in enumerate(nights):
+        counts = np.asarray(night.counts, dtype=np.float64)
+        if np.isfinite(counts).all() and np.asarray(night.reference).shape == counts.shape:
+            together.setdefault(int(night.epoch_seconds), []).append(i)
+        else:
+            bed = slice(night.lights_off_idx, night.lights_on_idx)
+            reference = np.asarray(night.reference, dtype=np.float64)[bed]
+            for j, kwargs in enumerate(settings):
+                sleep = score_with_rule(night.counts, night.epoch_seconds, method, **options, **kwargs).sleep
+                scores[i, j] = _balanced_accuracy(reference, np.asarray(sleep, dtype=np.float64)[bed])
+    for epoch_seconds, rows in together.items():
+        per_min = 60 // epoch_seconds
+        starts, pieces, position = [], [], 0
+        for i in rows:
+            counts = np.asarray(nights[i].counts, dtype=np.float64)
+            span = -(-counts.size // per_min) * per_min + _GAP_MINUTES * per_min
+            starts.append(position)
+            pieces += [counts, np.zeros(span - counts.size)]
+            position += span
+        laid = np.concatenate(pieces)
+        where, code, truth = [], [], []
+        for row, (i, start) in enumerate(zip(rows, starts, strict=True)):
+            night = nights[i]
+            n = np.asarray(night.counts).size
+            in_bed = np.arange(n)[slice(night.lights_off_idx, night.lights_on_idx)]
+            where.append(start + in_bed)
+            code.append(np.full(in_bed.size, row))
+            truth.append(np.asarray(night.reference, dtype=np.float64)[in_bed])
+        at, owner, reference = np.concatenate(where), np.concatenate(code), np.concatenate(truth)
+        for j, kwargs in enumerate(settings):
+            sleep = score_with_rule(laid, epoch_seconds, base, **options, **kwargs).sleep
+            if suffix:
+                sleep = sleep.copy()
+                for i, start in zip(rows, starts, strict=True):
+                    n = np.asarray(nights[i].counts).size
+                    sleep[start:start + n] = webster_rescore(sleep[start:start + n], epoch_seconds)
+            scores[rows, j] = _balanced_accuracies(reference, sleep[at], owner, len(rows))
+    return scores
+
+
+def _balanced_accuracies(reference: NDArray[np.float64], sleep: NDArray[np.float64], owner: NDArray[np.intp],
+                         n_nights: int) -> NDArray[np.float64]:
+    """:func:`_balanced_accuracy` of each night at once (``owner`` = night of each epoch)."""
+    keep = np.isfinite(reference) & np.isfinite(sleep)
+
+    def count(mask: NDArray[np.bool_]) -> NDArray[np.float64]:
+        return np.bincount(owner[mask], minlength=n_nights).astype(np.float64)
+
+    is_sleep, is_wake = keep & (reference == 1), keep & (reference == 0)
+    n_sleep, n_wake = count(is_sleep), count(is_wake)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        value = 0.5 * (count(is_sleep & (sleep == 1)) / n_sleep + count(is_wake & (sleep == 0)) / n_wake)
+    return np.where((n_sleep > 0) & (n_wake > 0), value, np.nan)
+
 
 def _column_means(scores: NDArray[np.float64]) -> NDArray[np.float64]:
     """NaN-skipping mean of each column (NaN for a column without a finite value)."""
@@ -176,15 +248,8 @@ def calibrate_rule(nights: Sequence[Any], method: str, *, groups: Mapping[str, i
         published = float(count_scale)
         values = np.asarray(sorted(grid if grid is not None else np.multiply(COUNT_SCALE_GRID, count_scale)),
                             dtype=np.float64)
-    scores = np.full((len(nights), values.size), np.nan)
-    for i, night in enumerate(nights):
-        reference = np.asarray(night.reference, dtype=np.float64)
-        bed = slice(night.lights_off_idx, night.lights_on_idx)
-        for j, value in enumerate(values):
-            kwargs = {"threshold": value, "count_scale": count_scale} if parameter == "threshold" \
-                else {"count_scale": value}
-            sleep = score_with_rule(night.counts, night.epoch_seconds, method, **options, **kwargs).sleep
-            scores[i, j] = _balanced_accuracy(reference[bed], np.asarray(sleep, dtype=np.float64)[bed])
+    scores = _grid_scores(nights, method, options, [{"threshold": v, "count_scale": count_scale} if parameter ==
+                                                    "threshold" else {"count_scale": v} for v in values])
     owners = [n.participant_id for n in nights]
     group_of = {pid: (groups or {}).get(pid, -1 - k) for k, pid in enumerate(dict.fromkeys(owners))}
     distance = np.abs(np.log(values / published))

@@ -31,6 +31,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -92,6 +93,28 @@ def _means(rows: pd.DataFrame, policy: str) -> dict[str, float]:
     return {str(m): float(v) for m, v in values.items()}
 
 
+def _means_without_each_group(rows: pd.DataFrame, key: str, groups: Mapping[Any, int],
+                              policy: str) -> dict[int, dict[str, float]]:
+    """Per fold group: each method's mean ``policy`` over the rows of the *other* groups.
+
+    One pandas groupby over the rows copied once per group left out (each copy keeps the rows'
+    order), so every mean is the one :func:`_means` gives on that group's other nights.
+    """
+    if not len(rows):
+        return {}
+    tags = rows[key].map(groups).to_numpy()
+    left_out = list(dict.fromkeys(groups.values()))
+    taken = [np.flatnonzero(tags != g) for g in left_out]
+    at = np.concatenate(taken)
+    copies = pd.DataFrame({"_left_out": np.repeat(left_out, [t.size for t in taken]),
+                           "method": rows["method"].to_numpy()[at], policy: rows[policy].to_numpy()[at]})
+    found = copies.groupby(["_left_out", "method"])[policy].mean()
+    out: dict[int, dict[str, float]] = {}
+    for (g, m), v in zip(found.index.tolist(), found.tolist(), strict=True):
+        out.setdefault(int(g), {})[str(m)] = float(v)
+    return out
+
+
 def nested_choice(night_metrics: pd.DataFrame, *, policy: str = "balanced_accuracy",
                   night_groups: Mapping[str, int] | None = None) -> MethodChoice:
     """Choose a participant's method, and evaluate that choice on nights it was not made on.
@@ -132,14 +155,19 @@ def nested_choice(night_metrics: pd.DataFrame, *, policy: str = "balanced_accura
     method = _pick(means) or "pooled"
     nights = list(dict.fromkeys(rows[key])) if len(rows) else []
     groups = {n: (night_groups or {}).get(n, -1 - i) for i, n in enumerate(nights)}
+    left_out = _means_without_each_group(rows, key, groups, policy)
+    keys, methods = rows[key].tolist() if len(rows) else [], rows["method"].tolist() if len(rows) else []
+    first: dict[tuple[Any, str], int] = {}  # (night, method) -> position of its first row
+    for position, pair in enumerate(zip(keys, methods, strict=True)):
+        first.setdefault(pair, position)
     picked = []
     for night in nights:
-        here = rows[rows[key] == night]
-        others = rows[rows[key].map(groups) != groups[night]]
-        chosen = _pick({m: v for m, v in _means(others, policy).items() if m in set(here["method"])}) or "pooled"
-        if chosen not in set(here["method"]):  # no figure elsewhere: the simplest candidate predicting the night
-            chosen = next(m for m in _SIMPLEST_FIRST if m in set(here["method"]))
-        picked.append(here[here["method"] == chosen].iloc[0].to_dict() | {"method": AUTO, "chosen": chosen})
+        present = [m for (n, m) in first if n == night]
+        found = left_out.get(groups[night], {})
+        chosen = _pick({m: v for m, v in found.items() if m in present}) or "pooled"
+        if chosen not in present:  # no figure elsewhere: the simplest candidate predicting the night
+            chosen = next(m for m in _SIMPLEST_FIRST if m in present)
+        picked.append(rows.iloc[first[(night, chosen)]].to_dict() | {"method": AUTO, "chosen": chosen})
     per_night = pd.DataFrame(picked, columns=[*night_metrics.columns, "chosen"])
     auto_value = float(per_night[policy].astype(np.float64).mean()) if len(per_night) else float("nan")
     return MethodChoice(method=method, reason=_reason(method, means, policy, auto_value, len(per_night)),

@@ -45,7 +45,7 @@ gives the values of the options' defaults.
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, replace
+from dataclasses import dataclass, fields, replace
 from typing import Any, Literal
 
 import numpy as np
@@ -114,7 +114,7 @@ class SleepParameters:
 
     def as_dict(self) -> dict[str, float | int | None]:
         """All fields as a dict, the :data:`PARAMETER_NAMES` first, in table order."""
-        return asdict(self)
+        return {f.name: getattr(self, f.name) for f in fields(self)}  # every field is a scalar: nothing to copy
 
 
 def _no_sleep(tib: float, unscored: int, nothing_scored: bool, outside: tuple[float, float]) -> SleepParameters:

@@ -74,15 +74,19 @@ def _fingerprint(session: Session, study: StudyInfo, participant_id: str | None,
                                       protocol.fingerprint()]).encode()).hexdigest()
 
 
-def _participant_summary(table: pd.DataFrame, participant_id: str) -> list[dict[str, Any]]:
-    """Per method: nights compared and the mean and SD over nights of every epoch metric."""
-    rows = table[(table["level"] == "participant") & (table["participant_id"] == participant_id)]
-    out = []
-    for method, stats in rows.groupby("method", sort=False):
-        mean, sd = (stats[stats["statistic"] == k].iloc[0] for k in ("mean", "sd"))
-        out.append({"method": method, "n_nights": int(mean["n_nights"])}
-                   | {m: json_record({"mean": float(mean[m]), "sd": float(sd[m])}) for m in EPOCH_METRIC_NAMES})
-    return out
+def _participant_summaries(table: pd.DataFrame) -> dict[str, list[dict[str, Any]]]:
+    """Per participant, per method (order of first appearance): nights compared and the mean and SD over
+    nights of every epoch metric (one pass over the participant-level rows)."""
+    rows = table[table["level"] == "participant"]
+    found: dict[str, dict[Any, dict[str, dict[Any, Any]]]] = {}
+    columns = ["participant_id", "method", "statistic", "n_nights", *EPOCH_METRIC_NAMES]
+    for row in rows[columns].to_dict("records"):
+        kinds = found.setdefault(str(row["participant_id"]), {}).setdefault(row["method"], {})
+        kinds.setdefault(str(row["statistic"]), row)
+    return {pid: [{"method": method, "n_nights": int(kinds["mean"]["n_nights"])}
+                  | {m: json_record({"mean": float(kinds["mean"][m]), "sd": float(kinds["sd"][m])})
+                     for m in EPOCH_METRIC_NAMES} for method, kinds in methods.items()]
+            for pid, methods in found.items()}
 
 
 def _night_summary(night_rows: pd.DataFrame) -> list[dict[str, Any]]:
@@ -210,6 +214,7 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
     movement_time = TrainingConfig().movement_time
     epoch_metrics = tables.epoch_metrics
     night_rows = epoch_metrics[epoch_metrics["level"] == "night"]
+    summaries = _participant_summaries(epoch_metrics)
     result = {
         "study_id": study_id,
         "model_versions": used,
@@ -217,7 +222,7 @@ def _compare(factory: sessionmaker[Session], study_id: str, participant_id: str 
         "pooled_epochs": _pooled_summary(epoch_metrics),
         "participants": [{"participant_id": pid, "n_labelled_nights": len(nights[pid]),
                           "chosen_method": choices[pid][0], "choice_reason": choices[pid][1],
-                          "summary": _participant_summary(epoch_metrics, pid)} for pid in nights],
+                          "summary": summaries.get(pid, [])} for pid in nights],
         "nights": json_records(night_rows.drop(columns=["level", "statistic", "n_nights"])),
         "parameters": json_records(tables.parameters.drop(columns=["label"])),  # nights are named by night_id
         "bland_altman": json_records(tables.bland_altman),

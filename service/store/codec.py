@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import io
 import json
+import re
+import zipfile
 import zlib
 from collections.abc import Sequence
 from typing import Any
@@ -122,16 +124,40 @@ def _intervals(stored: dict[str, Any] | None) -> NightIntervals | None:
                           uncertainty_min=_nan(stored["uncertainty_min"]), n_paths=int(stored["n_paths"]))
 
 
+_NPY_HEADER = re.compile(r"\{'descr': '([<>|=][a-z]\d+|\|b1)', 'fortran_order': False, 'shape': \(([0-9, ]*)\), \} *\n")
+
+
+def _npy(data: bytes) -> np.ndarray:
+    """One ``.npy`` member: the plain headers ``np.save`` writes are read with a pattern (no ``ast``
+    evaluation per array); anything else goes through :func:`numpy.lib.format.read_array`."""
+    if data[:6] == b"\x93NUMPY" and data[6] in (1, 2, 3):
+        start = 10 if data[6] == 1 else 12
+        size = int.from_bytes(data[8:start], "little")
+        found = _NPY_HEADER.fullmatch(data[start:start + size].decode("latin1"))
+        if found is not None:
+            shape = tuple(int(v) for v in found.group(2).replace(" ", "").split(",") if v)
+            dtype = np.dtype(found.group(1))
+            if dtype.kind in "biuf":
+                count = int(np.prod(shape)) if shape else 1
+                return np.frombuffer(data, dtype=dtype, count=count, offset=start + size).reshape(shape).copy()
+    return np.lib.format.read_array(io.BytesIO(data), allow_pickle=False)  # type: ignore[no-any-return]
+
+
+def _npz(blob: bytes) -> dict[str, np.ndarray]:
+    """Every array of an ``np.savez`` archive by name (what ``np.load(...)[name]`` gives)."""
+    with zipfile.ZipFile(io.BytesIO(blob)) as archive:
+        return {name.removesuffix(".npy"): _npy(archive.read(name)) for name in archive.namelist()}
+
+
 def decode_held_out(blob: bytes) -> list[HeldOutNight]:
     """Bytes from :func:`encode_held_out` -> held-out predictions."""
-    with np.load(io.BytesIO(blob), allow_pickle=False) as archive:
-        meta = json.loads(archive["meta"].tobytes())
-        out = []
-        for i, m in enumerate(meta):
-            arrays: dict[str, Any] = {name: archive[f"{i}.{name}"] if f"{i}.{name}" in archive else None
-                                      for name in _ARRAYS}
-            out.append(HeldOutNight(participant_id=m["participant_id"], night_hash=m["night_hash"], label=m["label"],
-                                    method=m["method"], in_bed=(m["in_bed"][0], m["in_bed"][1]),
-                                    threshold=m["threshold"], offset=m["offset"],
-                                    intervals=_intervals(m.get("intervals")), **arrays))
+    archive = _npz(blob)
+    meta = json.loads(archive["meta"].tobytes())
+    out = []
+    for i, m in enumerate(meta):
+        arrays: dict[str, Any] = {name: archive.get(f"{i}.{name}") for name in _ARRAYS}
+        out.append(HeldOutNight(participant_id=m["participant_id"], night_hash=m["night_hash"], label=m["label"],
+                                method=m["method"], in_bed=(m["in_bed"][0], m["in_bed"][1]),
+                                threshold=m["threshold"], offset=m["offset"],
+                                intervals=_intervals(m.get("intervals")), **arrays))
     return out

@@ -122,3 +122,35 @@ def test_study_shows_the_nested_figure_where_it_differs_from_the_winners_mean(st
         choice = result.choices[pid]
         winner = table.loc[pid, f"{choice.method}_balanced_accuracy"]
         assert table.loc[pid, "auto_balanced_accuracy"] != pytest.approx(winner)
+
+
+def _pandas_per_night(table: pd.DataFrame, groups: dict[str, int]) -> list[str]:
+    """Each night's choice from pandas means (``groupby("method").mean()``) of its other groups' rows."""
+    out = []
+    for night in dict.fromkeys(table["night_id"]):
+        here = set(table.loc[table["night_id"] == night, "method"])
+        others = table[table["night_id"].map(groups) != groups[night]]
+        means = others.groupby("method")["balanced_accuracy"].mean()
+        finite = {m: float(v) for m, v in means.items() if m in here}
+        best = max(finite.values()) if finite else None
+        chosen = next((m for m in SIMPLEST_FIRST if best is not None and finite.get(m) == best), "pooled")
+        out.append(chosen if chosen in here else next(m for m in SIMPLEST_FIRST if m in here))
+    return out
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_each_nights_choice_is_made_on_pandas_means_of_the_other_nights(seed) -> None:
+    # seeded tables (invented figures): some coarse (exact ties between models), some with a missing model
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(2, 15))
+    nights = [f"n{i}" for i in range(n)]
+    rows = [{"night_id": night, "method": m, "balanced_accuracy": float(rng.random()) if seed % 2 else
+             round(float(rng.random()), 1)} for night in nights for m in MODEL_METHODS if rng.random() > 0.15]
+    table = pd.DataFrame(rows)
+    groups = {night: i // 2 if seed % 3 == 0 else i for i, night in enumerate(nights)}
+    groups = {k: v for k, v in groups.items() if k in set(table["night_id"])}
+    choice = nested_choice(table, night_groups=groups)
+    assert choice.per_night["chosen"].tolist() == _pandas_per_night(table, groups)
+    expected = [table[(table["night_id"] == n) & (table["method"] == c)].iloc[0]["balanced_accuracy"]
+                for n, c in zip(choice.per_night["night_id"], choice.per_night["chosen"], strict=True)]
+    assert choice.per_night["balanced_accuracy"].tolist() == expected
