@@ -45,7 +45,10 @@ them and measures the figure with them; without ``--fit`` the figure is measured
 weights are never fitted on the cohort the figure is measured on (``--seed``, default ``EVAL_SEED``,
 must not be a fit seed; ``--participants``).
 
-FIGURES
+Figures (2 cores, load average 10-12; the seeded cohorts give the same shares on every run), top
+fifth's share with the best possible share in brackets: 20 participants 51.2 % (56.7 %),
+12 participants 37.5 % (47.4 %; the goal is missed), seed 737373 with 16 participants 44.8 %
+(50.8 %), seed 909090 with 12 participants 32.2 % (37.9 %: no order reaches 40 % there).
 
 The last printed line is one JSON object (with the load average before and after).
 """
