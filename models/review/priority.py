@@ -57,7 +57,7 @@ __all__ = ["DEFAULT_PRIORITY_WEIGHTS", "REASON_MIN", "QueueItem", "expected_chan
 #: ``base_min`` (the expected change of a night without any evidence, minutes) and the log change of the
 #: expected change per unit of each evidence term. See "Where the weights come from" in the module docstring.
 DEFAULT_PRIORITY_WEIGHTS: Mapping[str, float] = MappingProxyType({
-    "base_min": 17.5364,          # minutes: expected change of a night without evidence
+    "base_min": 17.54,            # minutes: expected change of a night without evidence
     "relabel": 0.01773,           # log change per minute (per flag for qc_flags), as fitted
     "uncertainty": 0.0,
     "sol_interval": 0.0,
