@@ -21,6 +21,7 @@ from .evidence import (
     EvidenceFigure,
     NightEvidence,
     evidence_figures,
+    expected_relabel,
 )
 from .inter_rater import (
     INTER_RATER_PARAMETERS,
@@ -48,6 +49,7 @@ __all__ = [
     "evidence_figures",
     "evidence_matrix",
     "expected_change",
+    "expected_relabel",
     "fit_priority_weights",
     "inter_rater_summary",
     "judged_span",

@@ -12,13 +12,14 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from ..errors import Problem
 from ..scoring.rules import METHOD_IDS
 from .corrections import InvalidReviewError
 
 __all__ = ["DIARY_TOLERANCE_MIN", "EVIDENCE_TERMS", "EvidenceFigure", "NightEvidence", "REVIEW_PARAMETERS",
-           "evidence_figures"]
+           "evidence_figures", "expected_relabel"]
 
 #: Parameters whose change a review is expected to make (minutes); their sum is the queue's figure.
 REVIEW_PARAMETERS: tuple[str, ...] = ("tst_min", "waso_min", "sol_min")
@@ -38,7 +39,7 @@ _MIN_HISTORY = 3
 _ABS_ERROR_PER_WIDTH = float(np.sqrt(2.0 / np.pi) / (2.0 * 1.6448536))
 
 #: The evidence terms, each in minutes (qc_flags: a count), in the order reasons are built.
-EVIDENCE_TERMS: tuple[str, ...] = ("uncertainty", "sol_interval", "model_disagreement", "rule_disagreement",
+EVIDENCE_TERMS: tuple[str, ...] = ("relabel", "uncertainty", "sol_interval", "model_disagreement", "rule_disagreement",
                                    "wake_in_bed", "nonwear", "diary", "unusual", "qc_flags")
 
 
@@ -66,6 +67,9 @@ class NightEvidence:
         Diary minus detected, minutes, e.g. ``{"bed_time": 70.0, "wake_time": -15.0}``.
     history : sequence of mapping of str to float, default=()
         Deployed parameters of the participant's other nights.
+    relabel_min : mapping of str to float or None, default=None
+        The deployed model's expected relabelled in-bed minutes (:func:`expected_relabel`):
+        ``{"to_wake": ..., "to_sleep": ...}``; None = unknown (a classical rule has no P(sleep)).
 
     Raises
     ------
@@ -84,6 +88,7 @@ class NightEvidence:
     nonwear_share: float = 0.0
     diary_offsets_min: Mapping[str, float] = field(default_factory=dict)
     history: Sequence[Mapping[str, float]] = ()
+    relabel_min: Mapping[str, float] | None = None
 
     def __post_init__(self) -> None:
         where = f"night {self.night_id}"
@@ -108,6 +113,9 @@ class NightEvidence:
             bad("nonwear_share", f"must be a share between 0 and 1, got {self.nonwear_share!r}")
         if self.uncertainty_min is not None and (not _is_number(self.uncertainty_min) or self.uncertainty_min < 0):
             bad("uncertainty_min", f"must be minutes >= 0 or null, got {self.uncertainty_min!r}")
+        for key, value in (self.relabel_min or {}).items():
+            if key not in ("to_wake", "to_sleep") or not _is_number(value) or not value >= 0:
+                bad(f"relabel_min.{key}", f"must be 'to_wake' or 'to_sleep' minutes >= 0, got {value!r}")
         for key, value in self.diary_offsets_min.items():
             if not _is_number(value):
                 bad(f"diary_offsets_min.{key}", f"must be minutes, got {value!r}")
@@ -142,6 +150,56 @@ def _width(e: NightEvidence, name: str) -> float:
         return float("nan")
     low, high = (float(b) for b in e.intervals[name])
     return high - low if np.isfinite(low) and np.isfinite(high) else float("nan")
+
+
+def expected_relabel(p_sleep: ArrayLike, sleep: ArrayLike, in_bed: tuple[int, int],
+                     epoch_seconds: int) -> dict[str, float]:
+    """Expected in-bed minutes whose call a review changes, under the model's own P(sleep).
+
+    Each in-bed epoch called sleep is wake with probability ``1 - p``, one called wake is sleep with
+    probability ``p``; the sums times the epoch length are the expected minutes a reviewer who
+    agrees with the calibrated probabilities relabels. Epochs without a call or a probability
+    (unscored) count 0.
+
+    Parameters
+    ----------
+    p_sleep : array-like of shape (n_epochs,)
+        Calibrated P(sleep) of each epoch (NaN or None = unscored).
+    sleep : array-like of shape (n_epochs,)
+        The scoring's calls, 1 sleep, 0 wake (NaN or None = unscored).
+    in_bed : (int, int)
+        First and stop epoch of the rest interval.
+    epoch_seconds : int
+
+    Returns
+    -------
+    dict of str to float
+        ``to_wake`` (expected minutes called sleep that are wake) and ``to_sleep`` (called wake that are sleep).
+
+    Examples
+    --------
+    Two 30-s epochs called sleep at P(sleep) 0.9 and 0.6 and one called wake at 0.2:
+    ``to_wake`` = (0.1 + 0.4) x 0.5 = 0.25 min, ``to_sleep`` = 0.2 x 0.5 = 0.1 min.
+    """
+    first, stop = int(in_bed[0]), int(in_bed[1])
+    p = np.array(p_sleep, dtype=np.float64)[first:stop]
+    calls = np.array(sleep, dtype=np.float64)[first:stop]
+    if p.shape != calls.shape:
+        raise InvalidReviewError([Problem("invalid_review", f"p_sleep has {p.size} in-bed epochs, sleep {calls.size}",
+                                          {"field": "p_sleep"})])
+    known = np.isfinite(p) & np.isfinite(calls)
+    minutes = epoch_seconds / 60.0
+    return {"to_wake": float(np.sum(np.where(known & (calls == 1), 1.0 - p, 0.0)) * minutes),
+            "to_sleep": float(np.sum(np.where(known & (calls == 0), p, 0.0)) * minutes)}
+
+
+def _relabel(e: NightEvidence) -> EvidenceFigure | None:
+    if e.relabel_min is None:
+        return None
+    to_wake, to_sleep = (float(e.relabel_min.get(k, 0.0)) for k in ("to_wake", "to_sleep"))
+    total = to_wake + to_sleep
+    return EvidenceFigure("relabel", total, f"the model expects about {total:.0f} min of its in-bed calls to be wrong "
+                          f"({to_wake:.0f} min called sleep, {to_sleep:.0f} min called wake)")
 
 
 def _uncertainty(e: NightEvidence) -> EvidenceFigure | None:
@@ -276,6 +334,7 @@ def evidence_figures(evidence: NightEvidence) -> dict[str, EvidenceFigure]:
     dict of str to EvidenceFigure
         Keyed by the names of :data:`EVIDENCE_TERMS`, in that order:
 
+        - ``relabel``: ``to_wake + to_sleep`` of ``relabel_min`` (:func:`expected_relabel`), minutes;
         - ``uncertainty``: ``uncertainty_min``, or without it E|X - median| of a normal variable
           from the TST and WASO interval widths (0.243 x width of a 90 % interval), minutes;
         - ``sol_interval``: the SOL interval's width, minutes;
@@ -289,7 +348,7 @@ def evidence_figures(evidence: NightEvidence) -> dict[str, EvidenceFigure]:
           (1.4826 MAD, at least 10 min) of their other nights (3 or more), summed, minutes;
         - ``qc_flags``: the number of distinct quality flags.
     """
-    found = (_uncertainty(evidence), _sol_interval(evidence), _disagreement(evidence, rules=False),
+    found = (_relabel(evidence), _uncertainty(evidence), _sol_interval(evidence), _disagreement(evidence, rules=False),
              _disagreement(evidence, rules=True), _wake_in_bed(evidence), _nonwear(evidence), _diary(evidence),
              _unusual(evidence), _qc(evidence))
     return {f.term: f for f in found if f is not None and np.isfinite(f.value)}

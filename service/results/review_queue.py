@@ -5,7 +5,8 @@ recording); nights with PSG are never queued. Each candidate's evidence is built
 
 - the deployed scoring (``auto``; the classical default rule while no model is trained): its
   parameters, and its ``intervals`` and ``uncertainty_min`` where the scoring body carries them
-  (missing: unknown);
+  (missing: unknown), and the expected relabelled in-bed minutes from its calibrated P(sleep) and
+  calls (:func:`models.review.evidence.expected_relabel`; a rule has no P(sleep): unknown);
 - the parameters of two classical rules (Cole-Kripke, Sadeh), for the methods' disagreement;
 - the night's QC flag codes;
 - the share of the rest period off-wrist: the recording's non-wear intervals for a night of a
@@ -38,7 +39,7 @@ from cachetools import LRUCache
 from sqlalchemy import Row, select
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import NightEvidence, rank_nights
+from models import NightEvidence, expected_relabel, rank_nights
 
 from ..errors import Unprocessable
 from ..store import db
@@ -188,12 +189,18 @@ def _evidence(factory: sessionmaker[Session], study_id: str, candidates: Sequenc
         uncertainty = body.get("uncertainty_min")
         intervals = {k: [float(b) for b in v] for k, v in (body.get("intervals") or {}).items()
                      if isinstance(v, list | tuple) and len(v) == 2 and all(isinstance(b, int | float) for b in v)}
+        relabel = None
+        if isinstance(body.get("p_sleep"), list) and isinstance(body.get("sleep"), list):
+            nan = math.nan
+            relabel = expected_relabel([nan if v is None else v for v in body["p_sleep"]],
+                                       [nan if v is None else v for v in body["sleep"]],
+                                       (int(body["in_bed"][0]), int(body["in_bed"][1])), int(body["epoch_seconds"]))
         out.append(NightEvidence(
             night_id=c.night_id, participant_id=c.participant_id, epoch_seconds=int(body["epoch_seconds"]),
             parameters={"auto": _numbers(body["parameters"]), **rules[c.pk]},
             intervals=intervals or None, uncertainty_min=None if uncertainty is None else float(uncertainty),
             qc_flags=tuple(c.qc_codes), nonwear_share=c.nonwear_share, diary_offsets_min=c.diary_offsets_min,
-            history=tuple(history)))
+            history=tuple(history), relabel_min=relabel))
     return out
 
 

@@ -417,3 +417,30 @@ def test_pooled_training_fits_corrected_nights_in_the_final_model_only(
     assert meta.corrected_nights == 1 and meta.correction_weight == 0.5  # the study's default weight
     assert {r["night_hash"] for r in meta.night_metrics} == {hashes[i] for i in psg}  # held out: PSG only
     assert hashes[nid] in meta.training_hashes
+
+
+def test_queue_weighs_the_minutes_the_deployed_model_expects_to_relabel(world: World) -> None:
+    from trained import train_here
+
+    for pid, bodies in cohort_bodies(n_participants=3, nights=5, seed=5).items():
+        for i, body in enumerate(bodies):  # three nights with PSG, two without
+            r = world.http.post(NIGHTS.format(pid=pid), json=body if i < 3 else
+                                {k: v for k, v in body.items() if k != "reference"})
+            assert r.status_code == 201, r.text
+    train_here(world)
+    queue = world.http.get("/v1/studies/s1/review-queue", params={"limit": 500}).json()["data"]
+    assert len(queue) == 6
+    shown = 0
+    for item in queue:
+        scoring = world.http.get(f"{_night_url(item['participant_id'], item['night_id'])}/scoring").json()
+        first, stop = scoring["in_bed"]
+        # computed here from the served scoring: over the in-bed epochs, P(the other state) summed, in minutes
+        # (the expected number of misclassified epochs; common practice)
+        pairs = [(p, c) for p, c in zip(scoring["p_sleep"][first:stop], scoring["sleep"][first:stop], strict=True)
+                 if p is not None and c is not None]
+        minutes = sum(1 - p if c == 1 else p for p, c in pairs) * scoring["epoch_seconds"] / 60
+        relabel = [r for r in item["reasons"] if r.startswith("the model expects about")]
+        if minutes >= 20:  # enough to add a reason with the fitted weight
+            shown += 1
+            assert relabel and relabel[0].startswith(f"the model expects about {minutes:.0f} min"), (minutes, relabel)
+    assert shown >= 1

@@ -26,12 +26,15 @@ def _clean(night_id: str, **kwargs: object) -> NightEvidence:
 def test_wide_interval_and_disagreement_rank_above_a_clean_night() -> None:
     doubtful = _clean("b-doubtful", intervals={"tst_min": [340.0, 435.0], "waso_min": [20.0, 90.0],
                                                "sol_min": [10.0, 60.0]}, uncertainty_min=45.0,
-                      parameters={"auto": AUTO, "pooled": dict(AUTO, tst_min=360.0, waso_min=90.0)})
-    ranked = rank_nights([_clean("a-clean"), doubtful, _clean("c-clean")])
-    assert [it.night_id for it in ranked] == ["b-doubtful", "a-clean", "c-clean"]  # equal priorities: by id
-    top = ranked[0]
-    assert top.expected_change_min > ranked[1].expected_change_min
-    assert top.priority == top.expected_change_min
+                      parameters={"auto": AUTO, "pooled": dict(AUTO, tst_min=360.0, waso_min=90.0)},
+                      relabel_min={"to_wake": 30.0, "to_sleep": 15.0})
+    clean = {"relabel_min": {"to_wake": 4.0, "to_sleep": 2.0}}
+    for weights in ({}, {"uncertainty": 0.5, "model_disagreement": 0.5}):  # the defaults, and weights on both terms
+        ranked = rank_nights([_clean("a-clean", **clean), doubtful, _clean("c-clean", **clean)], weights=weights)
+        assert [it.night_id for it in ranked] == ["b-doubtful", "a-clean", "c-clean"]  # equal priorities: by id
+        top = ranked[0]
+        assert top.expected_change_min > ranked[1].expected_change_min
+        assert top.priority == top.expected_change_min
     assert "TST interval 95 min wide, WASO interval 70 min wide" in top.reasons
     assert any(r.startswith("models disagree on WASO by 50 min (pooled 90 vs auto 40)") for r in top.reasons)
 
@@ -96,19 +99,18 @@ def test_fitted_weights_match_a_poisson_glm_of_statsmodels() -> None:
     assert fitted["nonwear"] == pytest.approx(float(glm.params[2]), rel=1e-3)
     assert fitted["diary"] == pytest.approx(truth["diary"], rel=0.2)  # and near the simulated truth
     # terms the same on every night (no uncertainty or disagreement; the wake in bed of AUTO) get no weight
-    assert fitted["uncertainty"] == fitted["model_disagreement"] == fitted["wake_in_bed"] == 0.0
+    assert fitted["uncertainty"] == fitted["model_disagreement"] == fitted["wake_in_bed"] == fitted["relabel"] == 0.0
     with pytest.raises(InvalidReviewError, match="errors_min"):
         fit_priority_weights(nights[:3], {nights[0].night_id: 1.0})
 
 
 def test_unusual_night_for_the_participant() -> None:
     history = [dict(AUTO, tst_min=t) for t in (540.0, 550.0, 555.0, 560.0)]
-    item = expected_change(_clean("x", history=history))
+    item = expected_change(_clean("x", history=history), weights={"unusual": 0.01})  # the fitted default is 0
     # median of the other nights 552.5; 152.5 min below it
     assert "TST 152 min below this participant's usual" in item.reasons or \
         "TST 153 min below this participant's usual" in item.reasons
-    assert expected_change(_clean("y", history=history[:2])).reasons == \
-        expected_change(_clean("y")).reasons  # fewer than 3 other nights: not judged
+    assert "unusual" not in evidence_figures(_clean("y", history=history[:2]))  # fewer than 3 other nights: not judged
 
 
 def test_missing_uncertainty_falls_back_to_interval_widths_and_then_to_nothing() -> None:
@@ -154,3 +156,21 @@ def test_malformed_evidence_names_its_field(kwargs: dict, field: str) -> None:
     with pytest.raises(InvalidReviewError) as err:
         _clean("x", **kwargs)
     assert [p.location["field"] for p in err.value.problems] == [field]
+
+
+def test_expected_relabel_sums_the_probability_of_the_other_state_over_in_bed_epochs() -> None:
+    from models.review.evidence import expected_relabel
+
+    # worked by hand (common practice: the expected count of misclassified epochs is the sum of each
+    # epoch's probability of the other class): epochs 1-4 in bed; the first and the unscored last left out
+    p = [0.99, 0.9, 0.6, 0.2, np.nan, 0.5]
+    calls = [1, 1, 1, 0, np.nan, 0]
+    found = expected_relabel(p, calls, (1, 5), 30)
+    assert found["to_wake"] == pytest.approx((0.1 + 0.4) * 0.5)
+    assert found["to_sleep"] == pytest.approx(0.2 * 0.5)
+    e = _clean("x", relabel_min=found)
+    figure = evidence_figures(e)["relabel"]
+    assert figure.value == pytest.approx(0.35)
+    assert figure.reason.startswith("the model expects about 0 min of its in-bed calls to be wrong")
+    with pytest.raises(InvalidReviewError, match=r"relabel_min\.to_wake"):
+        _clean("x", relabel_min={"to_wake": -1.0})
