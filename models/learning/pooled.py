@@ -58,8 +58,8 @@ from sklearn.model_selection import GroupKFold, GroupShuffleSplit
 from ..decoding.fitting import fit_night_decoding
 from ..features.source import FeatureSource
 from ..nights.night import Night
+from ._boosting import boost_early_stopped
 from .artifacts import library_versions
-from .boosting import boost_early_stopped
 from .classifier import SleepModel
 from .config import POOLED_PARAMS, TrainingConfig, TrainingDataError
 from .descriptors import DESCRIPTOR_NAMES, participant_descriptors
