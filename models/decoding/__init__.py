@@ -54,6 +54,7 @@ from .intervals import (
     night_intervals,
     parameter_intervals,
     sampled_parameters,
+    sampled_parameters_of_nights,
 )
 from .path_parameters import (
     PATH_PARAMETER_NAMES,
@@ -114,6 +115,7 @@ __all__ = [
     "resolutions",
     "sample_paths",
     "sampled_parameters",
+    "sampled_parameters_of_nights",
     "scaled_intervals",
     "scaled_likelihoods",
     "tune_decoder",

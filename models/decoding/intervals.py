@@ -30,8 +30,8 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
+from ._hmm_batch import batch_sample_paths
 from .hmm import InvalidHmmError, SleepWakeHmm, sample_paths
-from .hmm_batch import batch_sample_paths
 from .interval_scaling import scaled_intervals
 from .path_parameters import PATH_PARAMETER_NAMES, path_parameters
 

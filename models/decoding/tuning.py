@@ -17,7 +17,7 @@ setting of highest balanced accuracy is kept and ``floor_met`` is False. Ties ke
 grid point (grid order is the product of the grid's values in the order given).
 
 Each night is decoded once per (method, stickiness, emission weight), all of them side by side
-(:mod:`models.decoding.hmm_batch`, the same numbers as one by one): the Viterbi path does not
+(:mod:`models.decoding._hmm_batch`, the same numbers as one by one): the Viterbi path does not
 depend on ``threshold`` (Viterbi grid points differing only in it share one result and the first
 of them stands for all), and the marginals are thresholded for every ``threshold`` of the grid.
 A stickiness below 1 that would push a switching probability of the chain to 1 or more is left out
@@ -37,9 +37,9 @@ from numpy.typing import ArrayLike, NDArray
 from ..agreement.epoch_metrics import epoch_agreement
 from ..scoring.parameters import sleep_parameters
 from ..scoring.protocol import DEFAULT_PROTOCOL, StudyProtocol
+from ._hmm_batch import batch_marginals, batch_viterbi
 from .decoders import HmmDecoder
 from .hmm import DEFAULT_PSEUDO_COUNT, InvalidHmmError, SleepWakeHmm, fit_sleep_wake_hmm
-from .hmm_batch import batch_marginals, batch_viterbi
 
 __all__ = ["BIAS_PARAMETERS", "DEFAULT_DECODER_GRID", "MAE_PARAMETERS", "DecoderChoice", "parameter_objective",
            "tune_decoder"]
@@ -137,8 +137,8 @@ def _runs(decoders: Sequence[HmmDecoder], probs: Sequence[NDArray[np.float64]]
           ) -> dict[tuple[Any, ...], list[NDArray[Any]]]:
     """Per (method, stickiness, emission weight) of ``decoders``: each night's Viterbi path or marginals.
 
-    Every night under every distinct setting is one case of :func:`~models.decoding.hmm_batch.batch_viterbi`
-    or :func:`~models.decoding.hmm_batch.batch_marginals` (the same numbers as decoding them one by one).
+    Every night under every distinct setting is one case of :func:`~models.decoding._hmm_batch.batch_viterbi`
+    or :func:`~models.decoding._hmm_batch.batch_marginals` (the same numbers as decoding them one by one).
     """
     keys = {"viterbi": dict[tuple[Any, ...], HmmDecoder](), "marginal": dict[tuple[Any, ...], HmmDecoder]()}
     for d in decoders:

@@ -107,11 +107,13 @@ from .tasks import (
     run_tasks,
 )
 from .threshold import (
+    binary_auc,
     youden_threshold,
 )
 from .tuning import (
     PCA_CHOICES,
     WARM_START,
+    SplitMatrices,
     TunedPipeline,
     booster_params,
     suggest_hyperparameters,
@@ -152,6 +154,7 @@ __all__ = [
     "START_GRID",
     "ShrinkageChoice",
     "SleepModel",
+    "SplitMatrices",
     "StartChoice",
     "StudyComparison",
     "TooFewNightsError",
@@ -161,6 +164,7 @@ __all__ = [
     "TunedPipeline",
     "WARM_START",
     "activation_evidence",
+    "binary_auc",
     "booster_params",
     "choose_method",
     "choose_shrinkage",

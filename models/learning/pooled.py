@@ -23,7 +23,8 @@ share a night (the same content stored under two ids,
 and validation participants are held back as whole groups too. The final model repeats
 the procedure on all participants. Each fit trains on at most ``pooled_max_rows`` epochs (a
 uniform sample when there are more) through ``xgboost.QuantileDMatrix`` (compressed histogram
-input); fits and night features run on ``n_jobs`` threads.
+input); fits (each fold fit then scores its held-out participants) and night features run on
+``n_jobs`` threads.
 
 Offsets (:mod:`models.learning.offset`): the penalty is chosen from the held-out margins of participants
 with two or more labelled night groups (:func:`~models.learning.splits.fold_groups`: overlapping
@@ -58,8 +59,8 @@ from sklearn.model_selection import GroupKFold, GroupShuffleSplit
 from ..decoding.fitting import fit_night_decoding
 from ..features.source import FeatureSource
 from ..nights.night import Night
+from ._boosting import boost_early_stopped
 from .artifacts import library_versions
-from .boosting import boost_early_stopped
 from .classifier import SleepModel
 from .config import POOLED_PARAMS, TrainingConfig, TrainingDataError
 from .descriptors import DESCRIPTOR_NAMES, participant_descriptors

@@ -61,7 +61,7 @@ import xgboost as xgb
 from numpy.typing import NDArray
 
 from ..decoding.fitting import NightDecoding, fit_night_decoding
-from .boosting import boost_early_stopped
+from ._boosting import boost_early_stopped
 from .classifier import Projection
 from .config import TrainingConfig
 from .rows import NightRows
@@ -171,7 +171,8 @@ class SplitMatrices:
 class _InnerData:
     """Stacked rows of a study's nights, its inner splits and cached XGBoost matrices."""
 
-    def __init__(self, nights: Sequence[NightRows], config: TrainingConfig, shared: SplitMatrices | None) -> None:
+    def __init__(self, nights: Sequence[NightRows], config: TrainingConfig,
+                 shared: SplitMatrices | None = None) -> None:
         order = sorted(range(len(nights)), key=lambda i: nights[i].night.start)
         self.X = np.vstack([nights[i].features.values[nights[i].rows] for i in order])
         self.y = np.concatenate([nights[i].reference[nights[i].rows] for i in order])  # type: ignore[index]

@@ -6,9 +6,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-import models.decoding.hmm_batch as hmm_batch
+import models.decoding._hmm_batch as hmm_batch
+from models.decoding._hmm_batch import batch_marginals, batch_sample_paths, batch_viterbi
 from models.decoding.hmm import InvalidHmmError, forward_backward, sample_paths, viterbi
-from models.decoding.hmm_batch import batch_marginals, batch_sample_paths, batch_viterbi
 
 
 def _cases(seed: int, n_cases: int) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import xgboost as xgb
 
-from models.learning.boosting import boost_early_stopped
+from models.learning._boosting import boost_early_stopped
 
 
 def _data(seed: int, n_train: int = 1500, n_val: int = 600, n_features: int = 8) -> tuple[xgb.DMatrix, xgb.DMatrix]:
