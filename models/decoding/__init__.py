@@ -61,6 +61,7 @@ from .path_parameters import (
 )
 from .tuning import (
     BIAS_PARAMETERS,
+    BIAS_WEIGHT,
     DEFAULT_DECODER_GRID,
     MAE_PARAMETERS,
     DecoderChoice,
@@ -70,6 +71,7 @@ from .tuning import (
 
 __all__ = [
     "BIAS_PARAMETERS",
+    "BIAS_WEIGHT",
     "CALIBRATION_CHOICES",
     "CALIBRATORS",
     "Calibrator",
