@@ -62,6 +62,7 @@ from .path_parameters import (
 )
 from .tuning import (
     BIAS_PARAMETERS,
+    BIAS_WEIGHT,
     DEFAULT_DECODER_GRID,
     MAE_PARAMETERS,
     DecoderChoice,
@@ -71,6 +72,7 @@ from .tuning import (
 
 __all__ = [
     "BIAS_PARAMETERS",
+    "BIAS_WEIGHT",
     "CALIBRATION_CHOICES",
     "CALIBRATORS",
     "Calibrator",

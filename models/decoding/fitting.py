@@ -15,8 +15,9 @@ nights (never a held-out night) into a :class:`NightDecoding`:
 4. **HMM decoder**: :func:`~models.decoding.tuning.tune_decoder` over :data:`DEFAULT_DECODER_GRID`
    on the calibrated inner nights: the settings with the smallest inner objective
    (:func:`~models.decoding.tuning.parameter_objective`: awakenings and WASO mean absolute
-   errors plus the absolute mean signed errors of awakenings, WASO and TST, each scaled by its
-   equivalence margin) among those meeting the floor;
+   errors plus :data:`~models.decoding.tuning.BIAS_WEIGHT` times the absolute mean signed errors
+   of awakenings, WASO and TST, each scaled by its equivalence margin) among those meeting the
+   floor;
 5. **interval settings**: paths for the per-night intervals are drawn from the chain with the
    tuned HMM stickiness and its emission weight multiplied by a factor of
    :data:`INTERVAL_WEIGHT_FACTORS` (a factor < 1 tempers the epoch evidence, which the chain
@@ -68,8 +69,9 @@ __all__ = ["CALIBRATION_CHOICES", "DECODER_CHOICES", "DEFAULT_BA_MARGIN", "INTER
 DECODER_CHOICES: tuple[str, ...] = ("hmm", "threshold")
 #: Calibrations of the raw probabilities ("none" keeps them as they are).
 CALIBRATION_CHOICES: tuple[str, ...] = ("isotonic", "platt", "none")
-#: Default floor of the HMM tuning = threshold decoder's inner balanced accuracy minus this (common practice).
-DEFAULT_BA_MARGIN = 0.01
+#: Default floor of the HMM tuning = threshold decoder's inner balanced accuracy minus this (chosen on simulated
+#: development studies: a tighter floor keeps the decoder calling too much wake).
+DEFAULT_BA_MARGIN = 0.03
 #: Factors on the tuned emission weight tried for the interval paths (largest first).
 INTERVAL_WEIGHT_FACTORS: tuple[float, ...] = (1.0, 0.5, 0.25, 0.12, 0.06, 0.03)
 _TUNING_PATHS = 100

@@ -5,14 +5,18 @@ settings on the given (inner-fold) nights and keeps the one with the smallest pa
 among those whose pooled balanced accuracy reaches the floor. The error of a setting
 (:func:`parameter_objective`) is
 
-``sum over MAE_PARAMETERS of mean |error| / margin + sum over BIAS_PARAMETERS of |mean error| / margin``
+``sum over MAE_PARAMETERS of mean |error| / margin + w * sum over BIAS_PARAMETERS of |mean error| / margin``
 
 over the nights (error = decoded minus reference value of a night), each parameter computed by
 :func:`models.scoring.parameters.sleep_parameters` under the study protocol on the decoded calls
 and on the labels, and scaled by the protocol's equivalence margin so that counts and minutes add
 up. The absolute errors reward night-by-night agreement; the signed means (awakenings, WASO and
 TST) penalise a decoder that leans to one state on every night, which the absolute errors alone
-allow when it trades a few large errors for many small ones of one sign. When no setting reaches the floor, the
+allow when it trades a few large errors for many small ones of one sign. The weight ``w``
+(:data:`BIAS_WEIGHT`) makes a bias of one margin count as much as ``w`` margins of night-by-night
+error: a lean repeated on every night adds up in a study's mean, while night-by-night errors
+partly cancel there (with ``w = 1`` the chosen settings called too much wake on simulated studies:
+mean TST error about -16 min on held-out nights). When no setting reaches the floor, the
 setting of highest balanced accuracy is kept and ``floor_met`` is False. Ties keep the earlier
 grid point (grid order is the product of the grid's values in the order given).
 
@@ -41,20 +45,22 @@ from ._hmm_batch import batch_marginals, batch_viterbi
 from .decoders import HmmDecoder
 from .hmm import DEFAULT_PSEUDO_COUNT, InvalidHmmError, SleepWakeHmm, fit_sleep_wake_hmm
 
-__all__ = ["BIAS_PARAMETERS", "DEFAULT_DECODER_GRID", "MAE_PARAMETERS", "DecoderChoice", "parameter_objective",
-           "tune_decoder"]
+__all__ = ["BIAS_PARAMETERS", "BIAS_WEIGHT", "DEFAULT_DECODER_GRID", "MAE_PARAMETERS", "DecoderChoice",
+           "parameter_objective", "tune_decoder"]
 
 #: Settings tried by default (grid order: the product in this order).
 DEFAULT_DECODER_GRID: Mapping[str, Sequence[Any]] = {
     "method": ("viterbi", "marginal"),
-    "stickiness": (0.5, 1.0, 2.0, 4.0),
-    "emission_weight": (0.25, 0.5, 1.0, 2.0),
-    "threshold": (0.5, 0.35, 0.2, 0.1),
+    "stickiness": (0.25, 0.5, 1.0, 2.0),
+    "emission_weight": (0.5, 1.0, 2.0, 3.0),
+    "threshold": (0.5, 0.35, 0.2, 0.1, 0.05, 0.02),
 }
 #: Parameters whose mean absolute error enters the objective.
 MAE_PARAMETERS: tuple[str, ...] = ("awakenings", "waso_min")
 #: Parameters whose mean signed error (bias) enters the objective, as an absolute value.
 BIAS_PARAMETERS: tuple[str, ...] = ("awakenings", "waso_min", "tst_min")
+#: Weight of the bias terms against the mean absolute errors in the objective (module docstring).
+BIAS_WEIGHT = 12.0
 
 
 @dataclass(frozen=True)
@@ -92,7 +98,8 @@ def _number(value: float | int | None) -> float:
 
 
 def parameter_objective(decoded: Sequence[Mapping[str, Any]], truth: Sequence[Mapping[str, Any]],
-                        margins: Mapping[str, float]) -> tuple[float, dict[str, float]]:
+                        margins: Mapping[str, float], *,
+                        bias_weight: float = BIAS_WEIGHT) -> tuple[float, dict[str, float]]:
     """The tuning objective of decoded nights against their reference values (module docstring).
 
     Parameters
@@ -102,6 +109,8 @@ def parameter_objective(decoded: Sequence[Mapping[str, Any]], truth: Sequence[Ma
         ``sleep_parameters(...).as_dict()``); None = undefined on that night (left out).
     margins : mapping of str to float
         Equivalence margin per parameter, in its unit (``protocol.equivalence_margins``).
+    bias_weight : float, default=BIAS_WEIGHT
+        Factor on the bias terms (>= 0).
 
     Returns
     -------
@@ -120,7 +129,7 @@ def parameter_objective(decoded: Sequence[Mapping[str, Any]], truth: Sequence[Ma
         if name in MAE_PARAMETERS:
             objective += terms[f"{name}_mae"] / margins[name]
         if name in BIAS_PARAMETERS:
-            objective += abs(terms[f"{name}_bias"]) / margins[name]
+            objective += bias_weight * abs(terms[f"{name}_bias"]) / margins[name]
     return float(objective), terms
 
 
@@ -157,7 +166,7 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
                  protocol: StudyProtocol = DEFAULT_PROTOCOL, ba_floor: float = 0.6,
                  grid: Mapping[str, Sequence[Any]] = DEFAULT_DECODER_GRID, epoch_seconds: int = 30,
                  in_bed: Sequence[tuple[int, int]] | None = None, hmm: SleepWakeHmm | None = None,
-                 pseudo_count: float = DEFAULT_PSEUDO_COUNT) -> DecoderChoice:
+                 pseudo_count: float = DEFAULT_PSEUDO_COUNT, bias_weight: float = BIAS_WEIGHT) -> DecoderChoice:
     """Pick HMM decoder settings on the given (inner) nights.
 
     Parameters
@@ -179,6 +188,8 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
     hmm : SleepWakeHmm or None, default=None
         The chain; None fits it on ``labels_per_night`` with ``pseudo_count``.
     pseudo_count : float, default=DEFAULT_PSEUDO_COUNT
+    bias_weight : float, default=BIAS_WEIGHT
+        Factor on the objective's bias terms (:func:`parameter_objective`).
 
     Returns
     -------
@@ -187,13 +198,16 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
     Raises
     ------
     InvalidHmmError
-        For mismatched nights, an empty or unknown grid, or a ``ba_floor`` outside [0, 1].
+        For mismatched nights, an empty or unknown grid, a ``ba_floor`` outside [0, 1] or a negative
+        ``bias_weight``.
     """
     n_nights = len(p_sleep_per_night)
     if n_nights == 0 or len(labels_per_night) != n_nights or (in_bed is not None and len(in_bed) != n_nights):
         raise InvalidHmmError("p_sleep_per_night, labels_per_night (and in_bed) must list the same nights (>= 1)")
     if not 0.0 <= ba_floor <= 1.0:
         raise InvalidHmmError(f"ba_floor must lie in [0, 1], got {ba_floor!r}")
+    if not np.isfinite(bias_weight) or bias_weight < 0:
+        raise InvalidHmmError(f"bias_weight must be a finite number >= 0, got {bias_weight!r}")
     probs = [np.asarray(p, dtype=np.float64) for p in p_sleep_per_night]
     labels = [np.asarray(y, dtype=np.float64) for y in labels_per_night]
     for k, (p, y) in enumerate(zip(probs, labels, strict=True)):
@@ -231,7 +245,7 @@ def tune_decoder(p_sleep_per_night: Sequence[ArrayLike], labels_per_night: Seque
             calls = [np.where(np.isnan(p), np.nan, (m >= decoder.threshold).astype(np.float64))
                      for p, m in zip(probs, runs[key], strict=True)]
         decoded = [params(c, k) for k, c in enumerate(calls)]
-        objective, terms = parameter_objective(decoded, truth, margins)
+        objective, terms = parameter_objective(decoded, truth, margins, bias_weight=bias_weight)
         ba = epoch_agreement(pooled_labels, np.concatenate(calls))["balanced_accuracy"]
         trials.append(point | {"objective": objective, "balanced_accuracy": float(ba)} | terms)
         decoders.append(decoder)

@@ -102,6 +102,8 @@ def test_an_unreachable_floor_keeps_the_most_accurate_setting(nights: list[dict]
     assert set(choice.settings) == {"stickiness", "method"}
     with pytest.raises(ValueError, match="unknown"):
         tune_decoder([inner[0]["p"]], [inner[0]["truth"]], grid={"temperature": [1.0]})
+    with pytest.raises(ValueError, match="bias_weight"):
+        tune_decoder([inner[0]["p"]], [inner[0]["truth"]], bias_weight=-1.0)
 
 
 def test_decoders_keep_unscored_epochs_unscored() -> None:
@@ -139,7 +141,7 @@ def test_the_objective_adds_mean_absolute_and_signed_errors_over_the_margins() -
     """Written out with pandas (mean of |error| and |mean error| per parameter, over the margins)."""
     import pandas as pd
 
-    from models.decoding.tuning import BIAS_PARAMETERS, MAE_PARAMETERS, parameter_objective
+    from models.decoding.tuning import BIAS_PARAMETERS, BIAS_WEIGHT, MAE_PARAMETERS, parameter_objective
 
     decoded = [{"awakenings": 5, "waso_min": 40.0, "tst_min": 400.0},
                {"awakenings": 2, "waso_min": None, "tst_min": 380.0},
@@ -149,8 +151,12 @@ def test_the_objective_adds_mean_absolute_and_signed_errors_over_the_margins() -
              {"awakenings": 7, "waso_min": 35.0, "tst_min": 330.0}]
     margins = {"awakenings": 3.0, "waso_min": 15.0, "tst_min": 15.0}
     error = pd.DataFrame(decoded, dtype=float) - pd.DataFrame(truth, dtype=float)  # NaN rows skipped by pandas
-    expected = (sum(error[n].abs().mean() / margins[n] for n in MAE_PARAMETERS)
-                + sum(abs(error[n].mean()) / margins[n] for n in BIAS_PARAMETERS))
-    objective, terms = parameter_objective(decoded, truth, margins)
-    assert objective == pytest.approx(expected)
+    for weight in (1.0, 2.5, 0.0):
+        expected = (sum(error[n].abs().mean() / margins[n] for n in MAE_PARAMETERS)
+                    + weight * sum(abs(error[n].mean()) / margins[n] for n in BIAS_PARAMETERS))
+        objective, terms = parameter_objective(decoded, truth, margins, bias_weight=weight)
+        assert objective == pytest.approx(expected)
+    default = (sum(error[n].abs().mean() / margins[n] for n in MAE_PARAMETERS)
+               + BIAS_WEIGHT * sum(abs(error[n].mean()) / margins[n] for n in BIAS_PARAMETERS))
+    assert parameter_objective(decoded, truth, margins)[0] == pytest.approx(default)
     assert terms["tst_min_bias"] == pytest.approx(-15.0) and terms["waso_min_mae"] == pytest.approx(12.5)
