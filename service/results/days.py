@@ -36,7 +36,7 @@ from .bulk_scoring import bulk_scorings
 from .parquet_stream import parquet_chunks, schema_of
 from .scoring import SCORING_METHODS, score_night
 
-__all__ = ["DAY_COLUMNS", "FALLBACK_RULE", "day_table", "export_days", "export_days_stream", "recording_days"]
+__all__ = ["DAY_COLUMNS", "FALLBACK_RULE", "day_table", "export_days_stream", "recording_days"]
 
 #: the columns of a day row, in order
 DAY_COLUMNS: tuple[str, ...] = (
@@ -231,19 +231,11 @@ def _recordings(factory: sessionmaker[Session], study_id: str, participant_id: s
     return infos
 
 
-def export_days(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv", method: str = "auto",
-                participant_id: str | None = None) -> bytes:
-    """Day rows of every recording of the study (or of one participant), as CSV or Parquet bytes."""
-    frame = _frame(factory, study_id, _recordings(factory, study_id, participant_id), method)
-    if fmt == "parquet":
-        return frame.to_parquet(index=False)  # type: ignore[no-any-return]
-    return frame.to_csv(index=False).encode()
-
-
 def export_days_stream(factory: sessionmaker[Session], *, study_id: str, fmt: str = "csv", method: str = "auto",
                        participant_id: str | None = None) -> tuple[int, Iterator[bytes]]:
-    """:func:`export_days` as a stream: the number of recordings and the bytes, a chunk of recordings at a time
-    (CSV rows; Parquet: a row group each, :func:`~service.results.parquet_stream.parquet_chunks`).
+    """Day rows of every recording of the study (or of one participant) as a stream: the number of recordings
+    and the bytes, a chunk of recordings at a time (CSV rows; Parquet: a row group each,
+    :func:`~service.results.parquet_stream.parquet_chunks`).
 
     The study and participant are checked before the stream starts (NotFound).
     """

@@ -190,11 +190,9 @@ def _evidence(factory: sessionmaker[Session], study_id: str, candidates: Sequenc
         intervals = {k: [float(b) for b in v] for k, v in (body.get("intervals") or {}).items()
                      if isinstance(v, list | tuple) and len(v) == 2 and all(isinstance(b, int | float) for b in v)}
         relabel = None
-        if isinstance(body.get("p_sleep"), list) and isinstance(body.get("sleep"), list):
-            nan = math.nan
-            relabel = expected_relabel([nan if v is None else v for v in body["p_sleep"]],
-                                       [nan if v is None else v for v in body["sleep"]],
-                                       (int(body["in_bed"][0]), int(body["in_bed"][1])), int(body["epoch_seconds"]))
+        if isinstance(body.get("p_sleep"), list) and isinstance(body.get("sleep"), list):  # null = unscored (NaN)
+            relabel = expected_relabel(body["p_sleep"], body["sleep"], (int(body["in_bed"][0]), int(body["in_bed"][1])),
+                                       int(body["epoch_seconds"]))
         out.append(NightEvidence(
             night_id=c.night_id, participant_id=c.participant_id, epoch_seconds=int(body["epoch_seconds"]),
             parameters={"auto": _numbers(body["parameters"]), **rules[c.pk]},
