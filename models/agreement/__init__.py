@@ -26,6 +26,7 @@ from .epoch_metrics import (
     agreement_table,
     always_sleep,
     epoch_agreement,
+    roc_auc,
 )
 from .equivalence import (
     parameter_equivalence,
@@ -125,5 +126,6 @@ __all__ = [
     "repeated_bland_altman",
     "repeated_bland_altman_table",
     "repeated_limits_of_agreement",
+    "roc_auc",
     "tost_paired",
 ]

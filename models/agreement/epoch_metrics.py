@@ -41,7 +41,7 @@ from numpy.typing import ArrayLike, NDArray
 from ..scoring.rescoring import InvalidSleepVectorError, as_sleep_vector
 
 __all__ = ["ALWAYS_SLEEP", "EPOCH_COUNT_NAMES", "EPOCH_METRIC_NAMES", "ScoredNight", "agreement_table", "always_sleep",
-           "epoch_agreement"]
+           "epoch_agreement", "roc_auc"]
 
 #: Method label of the "always sleep" baseline.
 ALWAYS_SLEEP = "always-sleep"
@@ -135,7 +135,7 @@ def epoch_agreement(reference: ArrayLike, predicted: ArrayLike, *,
         "auc": nan,
     }
     if scores is not None and two_ref and np.isfinite(scores[keep]).all():
-        out["auc"] = _roc_auc(y, scores[keep])
+        out["auc"] = roc_auc(y, scores[keep])
     return out
 
 
@@ -169,7 +169,7 @@ def _mcc(tn: float, fp: float, fn: float, tp: float) -> float:
     return float(cov_ytyp / np.sqrt(cov_ypyp_ytyt)) if cov_ypyp_ytyt else 0.0
 
 
-def _roc_auc(y: NDArray[np.int8], score: NDArray[np.float64]) -> float:
+def roc_auc(y: NDArray[np.int8], score: NDArray[np.float64]) -> float:
     """Area under the ROC curve (both classes present), the trapezoids of ``sklearn.metrics.roc_curve``.
 
     The curve's points are those of ``roc_curve(drop_intermediate=True)``, so the sum of the

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 from numpy.typing import NDArray
-from sklearn.metrics import auc, roc_curve
+from sklearn.metrics import roc_curve
+
+from ..agreement import roc_auc
 
 __all__ = ["binary_auc", "youden_threshold"]
 
@@ -12,9 +14,10 @@ __all__ = ["binary_auc", "youden_threshold"]
 def binary_auc(y: NDArray[np.float64], p: NDArray[np.float64]) -> float:
     """Area under the ROC curve of ``p`` for ``y`` (1 = sleep), NaN when ``y`` holds a single class.
 
-    The same number as :func:`sklearn.metrics.roc_auc_score`, computed the way it does for two
-    classes (trapezoids under :func:`~sklearn.metrics.roc_curve`), without its input checks, which
-    cost more than the area itself on a few thousand epochs.
+    The same number as :func:`sklearn.metrics.roc_auc_score`: the epoch agreement's
+    :func:`~models.agreement.epoch_metrics.roc_auc` (trapezoids over the points of
+    :func:`~sklearn.metrics.roc_curve`), without scikit-learn's input checks, which cost more than
+    the area itself on a few thousand epochs.
 
     Parameters
     ----------
@@ -36,8 +39,7 @@ def binary_auc(y: NDArray[np.float64], p: NDArray[np.float64]) -> float:
     """
     if np.unique(y).size != 2:
         return float("nan")
-    fpr, tpr, _ = roc_curve(y, p)
-    return float(auc(fpr, tpr))
+    return roc_auc(np.asarray(y, dtype=np.int8), np.asarray(p, dtype=np.float64))
 
 
 def youden_threshold(y: NDArray[np.float64], p: NDArray[np.float64], *, min_sensitivity: float = 0.0) -> float:
